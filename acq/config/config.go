@@ -1,0 +1,127 @@
+// Package config defines the fixture and specimen configuration of hystd and
+// loads them strictly (see package configs for the loader and its error
+// format). A loaded config is an immutable value: callers receive copies.
+package config
+
+import "hystd/configs"
+
+// Role names of a fixture's instruments.
+const (
+	RoleSupply      = "supply"
+	RoleIntegrator  = "integrator"
+	RoleFieldMeter  = "field_meter"
+	RoleThermometer = "thermometer"
+)
+
+// Fixture is one test fixture: its instruments, windings and limits.
+type Fixture struct {
+	Kind        string                `yaml:"kind"` // "fixture"
+	Name        string                `yaml:"name"`
+	Description string                `yaml:"description"`
+	Instruments map[string]Instrument `yaml:"instruments"` // by role
+	Winding     Winding               `yaml:"winding"`
+	// HFrom says how H is obtained: "current" (H = N1·I/l_m, closed magnetic
+	// circuits) or "field_meter" (H = B_probe/μ0 beside the specimen, yokes).
+	HFrom  string `yaml:"h_from"`
+	Limits Limits `yaml:"limits"`
+}
+
+// Instrument says where one instrument is and which profile speaks to it.
+type Instrument struct {
+	// Port is a device path (/dev/ttyUSB0, /dev/serial/by-id/...); or USB
+	// names the adapter by identity. One of the two is required.
+	Port    string       `yaml:"port"`
+	USB     *USBIdentity `yaml:"usb"`
+	Profile string       `yaml:"profile"` // profile name in configs/instruments, or a path to a profile file
+	// Baud overrides the profile's baud rate when non-zero.
+	Baud int `yaml:"baud"`
+	// Identity overrides the substring the *IDN? reply must contain.
+	Identity string `yaml:"identity"`
+}
+
+// USBIdentity finds a USB serial adapter by its descriptor, compared
+// case-insensitively.
+type USBIdentity struct {
+	VID    string `yaml:"vid"`
+	PID    string `yaml:"pid"`
+	Serial string `yaml:"serial"`
+}
+
+// Winding holds the turns and the search-coil area of the fixture.
+type Winding struct {
+	N1 int `yaml:"n1"` // magnetizing turns
+	N2 int `yaml:"n2"` // sensing (search-coil) turns
+	// CoilAreaMM2 is the area enclosed by one sensing turn, mm²; when larger
+	// than the specimen's cross-section the air flux is corrected. 0: equal
+	// to the specimen's area (coil wound tight on the specimen).
+	CoilAreaMM2 float64 `yaml:"coil_area_mm2"`
+	// ResistanceOhm is the magnetizing winding's resistance at 20 °C, used to
+	// watch its heating from V/I; 0 disables that check.
+	ResistanceOhm float64 `yaml:"resistance_ohm"`
+	// InductanceH is the winding's inductance estimate, for the stored-energy caution.
+	InductanceH float64 `yaml:"inductance_h"`
+}
+
+// Limits are the fixture's hard limits; a run that would cross one is
+// refused, a run that crosses one is ended after a safe ramp-down.
+type Limits struct {
+	MaxCurrentA       float64          `yaml:"max_current_a"`
+	MaxVoltageV       float64          `yaml:"max_voltage_v"`
+	MaxSlewAPerS      float64          `yaml:"max_slew_a_per_s"`
+	MaxWindingTempC   float64          `yaml:"max_winding_temp_c"`  // 0: no thermometer check
+	MaxResistanceRise float64          `yaml:"max_resistance_rise"` // fraction, e.g. 0.15; 0: no check
+	MaxFieldT         float64          `yaml:"max_field_t"`         // field-meter reading; 0: no check
+	CommTimeout       configs.Duration `yaml:"comm_timeout"`        // no reply within this ends the run
+}
+
+// Specimen is one specimen with its shape and material.
+type Specimen struct {
+	Kind     string `yaml:"kind"` // "specimen"
+	ID       string `yaml:"id"`
+	Material string `yaml:"material"`
+	// Class is "soft" or "magnet": which figures are reported.
+	Class string `yaml:"class"`
+	Note  string `yaml:"note"`
+	// Shape is one of ring, epstein, strip, direct; the matching block below is required.
+	Shape   string   `yaml:"shape"`
+	Ring    *Ring    `yaml:"ring"`
+	Epstein *Epstein `yaml:"epstein"`
+	Strip   *Strip   `yaml:"strip"`
+	Direct  *Direct  `yaml:"direct"`
+	// DensityKgM3 is needed for Epstein and strip areas and for loss per kg.
+	DensityKgM3 float64 `yaml:"density_kg_m3"`
+	MassKg      float64 `yaml:"mass_kg"`
+}
+
+// Ring is a toroidal specimen (IEC 60404-4).
+type Ring struct {
+	OuterMM  float64 `yaml:"outer_diameter_mm"`
+	InnerMM  float64 `yaml:"inner_diameter_mm"`
+	HeightMM float64 `yaml:"height_mm"`
+	// Path is "mean" (π(D+d)/2, IEC 60404-4) or "effective" (IEC 60205 l_e, A_e).
+	Path string `yaml:"path"`
+	// StackingFactor is the fraction of the height that is metal (laminated
+	// or tape-wound rings); 0 means 1.
+	StackingFactor float64 `yaml:"stacking_factor"`
+}
+
+// Epstein is an Epstein-square specimen (IEC 60404-2, conventional l_m = 0.94 m).
+type Epstein struct {
+	StripLengthM float64 `yaml:"strip_length_m"`
+	Strips       int     `yaml:"strips"` // a multiple of 4
+}
+
+// Strip is a strip or rod whose area comes from mass, length and density.
+type Strip struct {
+	LengthM     float64 `yaml:"length_m"`
+	PathLengthM float64 `yaml:"path_length_m"` // magnetic path; 0 means LengthM
+	// DemagFactor is the demagnetizing factor N for an open specimen; 0: none.
+	DemagFactor float64 `yaml:"demag_factor"`
+}
+
+// Direct gives the effective magnetic path length and area directly.
+type Direct struct {
+	PathLengthMM float64 `yaml:"path_length_mm"`
+	AreaMM2      float64 `yaml:"area_mm2"`
+	DemagFactor  float64 `yaml:"demag_factor"`
+}

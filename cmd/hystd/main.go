@@ -1,0 +1,66 @@
+// Command hystd is a daemon for DC magnetic hysteresis (B–H loop)
+// measurement. This package only wires commands to the packages that do the
+// work; each command lives in its own file and registers itself.
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"os"
+	"os/signal"
+	"sort"
+	"syscall"
+
+	"github.com/spf13/cobra"
+)
+
+// version is set at build time with -ldflags "-X main.version=...".
+var version = "0.1.0-dev"
+
+// commands holds the constructors registered by the command files.
+var commands []func() *cobra.Command
+
+// register adds a command constructor; call it from an init function.
+func register(c func() *cobra.Command) { commands = append(commands, c) }
+
+func newRoot() *cobra.Command {
+	root := &cobra.Command{
+		Use:           "hystd",
+		Short:         "DC B–H loop measurement daemon",
+		Version:       version,
+		SilenceUsage:  true,
+		SilenceErrors: true,
+	}
+	var subs []*cobra.Command
+	for _, c := range commands {
+		subs = append(subs, c())
+	}
+	sort.Slice(subs, func(i, j int) bool { return subs[i].Name() < subs[j].Name() })
+	root.AddCommand(subs...)
+	return root
+}
+
+// exitError carries a process exit code through cobra.
+type exitError struct {
+	code int
+	err  error
+}
+
+func (e *exitError) Error() string { return e.err.Error() }
+func (e *exitError) Unwrap() error { return e.err }
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	err := newRoot().ExecuteContext(ctx)
+	if err == nil {
+		return
+	}
+	fmt.Fprintln(os.Stderr, "hystd:", err)
+	var ee *exitError
+	if errors.As(err, &ee) {
+		os.Exit(ee.code)
+	}
+	os.Exit(1)
+}

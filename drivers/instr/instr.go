@@ -1,0 +1,95 @@
+// Package instr holds the contracts between the acquisition engine and the
+// instruments of a fixture. It has no implementation: drivers/profile builds
+// these roles from instrument profiles, tests build them from fakes.
+//
+// Every method that talks to an instrument takes a context; cancelling it
+// stops the call. Implementations are not required to be safe for concurrent
+// use by several goroutines: the engine owns one goroutine per instrument.
+package instr
+
+import (
+	"context"
+	"time"
+
+	"hystd/calib/units"
+)
+
+// Reading is one value read from an instrument.
+//
+// At is the midpoint between sending the request and receiving the reply,
+// taken from Go's monotonic clock; AtUncertainty is half that round trip.
+type Reading struct {
+	Value         float64
+	Unit          string
+	At            time.Time
+	AtUncertainty time.Duration
+}
+
+// Resource is what every instrument role has.
+type Resource interface {
+	// Identify returns the instrument's *IDN? reply.
+	Identify(ctx context.Context) (string, error)
+	// Halt brings the instrument to an inert state (for a supply: ramp to zero
+	// at its slew limit, then output off). It must be safe to call at any time,
+	// repeatedly, also after an error.
+	Halt(ctx context.Context) error
+	// Close releases the port. It does not Halt.
+	Close() error
+}
+
+// SupplyStatus is the condition of a current supply.
+type SupplyStatus struct {
+	OutputOn    bool
+	Compliance  bool // voltage limit reached: the current no longer follows the setpoint
+	OverTemp    bool
+	Tripped     bool // the supply shut its output down by itself
+	RawRegister int
+}
+
+// SupplyLimits are what the supply's profile says it can do.
+type SupplyLimits struct {
+	MaxCurrent units.Ampere
+	MaxVoltage units.Volt
+	MaxSlew    units.AmperePerSecond // used by Halt to ramp down
+}
+
+// Supply is a bipolar current supply driving the magnetizing winding.
+type Supply interface {
+	Resource
+	// SetCurrent sets the output current. A value outside the profile's range
+	// is rejected with an error, never clamped.
+	SetCurrent(ctx context.Context, i units.Ampere) error
+	ReadCurrent(ctx context.Context) (Reading, error)
+	ReadVoltage(ctx context.Context) (Reading, error)
+	SetOutput(ctx context.Context, on bool) error
+	Status(ctx context.Context) (SupplyStatus, error)
+	Limits() SupplyLimits
+}
+
+// Integrator is an electronic integrator (fluxmeter) on the search coil.
+type Integrator interface {
+	Resource
+	// Reset zeroes the integrated flux linkage.
+	Reset(ctx context.Context) error
+	// SetRange selects the full scale, in Wb-turns (V·s).
+	SetRange(ctx context.Context, fullScale units.WeberTurn) error
+	// ReadFlux returns ψ in Wb-turns (V·s).
+	ReadFlux(ctx context.Context) (Reading, error)
+	// Overloaded reports whether the input left the selected range.
+	Overloaded(ctx context.Context) (bool, error)
+}
+
+// FieldMeter is a Hall-probe field meter; it reads flux density in tesla.
+type FieldMeter interface {
+	Resource
+	ReadField(ctx context.Context) (Reading, error)
+	SetRange(ctx context.Context, fullScale units.Tesla) error
+	// Zero nulls the probe offset; call it in a zero-field chamber.
+	Zero(ctx context.Context) error
+}
+
+// Thermometer is an optional temperature channel (specimen or winding), in °C.
+type Thermometer interface {
+	Resource
+	ReadTemperature(ctx context.Context) (Reading, error)
+}

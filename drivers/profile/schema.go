@@ -1,0 +1,107 @@
+// Package profile describes any SCPI instrument as data: an instrument profile
+// is a YAML command map (configs/instruments/*.yaml) naming, for each
+// operation of a role, the command template, how to parse the reply, unit,
+// scale and valid range. Generic Supply, Integrator, FieldMeter and
+// Thermometer implementations are built from a profile.
+//
+// The simulated bench (drivers/sim) serves the same profiles, so a profile is
+// exercised end to end without hardware.
+package profile
+
+// Profile is one instrument profile as loaded from YAML.
+type Profile struct {
+	Kind        string `yaml:"kind"` // always "instrument-profile"
+	Name        string `yaml:"name"` // our own name, referenced by fixtures
+	Role        string `yaml:"role"` // supply | integrator | field_meter | thermometer
+	Description string `yaml:"description"`
+
+	Serial      SerialSettings `yaml:"serial"`
+	Terminators Terminators    `yaml:"terminators"`
+	Timeout     string         `yaml:"timeout"` // per reply, e.g. "500ms"
+
+	// Identity is a substring that the *IDN? reply must contain.
+	Identity string `yaml:"identity"`
+	// ErrorQuery is the command read after every setting until it reports
+	// code 0, e.g. "SYST:ERR?". Empty: the instrument has no error queue.
+	ErrorQuery string `yaml:"error_query"`
+
+	Init      []string `yaml:"init"`       // sent after opening and after every reconnect
+	SafeState []string `yaml:"safe_state"` // sent by Halt after any ramp-down
+
+	// Operations maps an operation name of the role (see Ops*) to its command.
+	Operations map[string]Operation `yaml:"operations"`
+
+	// Supply only: the slew rate Halt ramps down with, in A/s, and the step
+	// period of that ramp.
+	HaltSlew   float64 `yaml:"halt_slew_a_per_s"`
+	HaltPeriod string  `yaml:"halt_period"`
+}
+
+// SerialSettings are the line settings of the port.
+type SerialSettings struct {
+	Baud     int    `yaml:"baud"`
+	DataBits int    `yaml:"data_bits"`
+	Parity   string `yaml:"parity"`    // none | even | odd
+	StopBits string `yaml:"stop_bits"` // "1" | "1.5" | "2"
+	Flow     string `yaml:"flow"`      // none | rtscts
+}
+
+// Terminators end every command written and every reply read.
+type Terminators struct {
+	Write string `yaml:"write"` // e.g. "\n", "\r\n", "\r"
+	Read  string `yaml:"read"`
+}
+
+// Operation is one query or setting of an instrument.
+//
+// Exactly one of Set and Query is given. In Set, "{}" is replaced by the
+// value formatted with Format (a Go fmt verb, default "%g") after dividing
+// it by Scale and mapping it through Map when Map is given (booleans are
+// "true"/"false" keys). For Query, the reply is parsed with Parse and the
+// number multiplied by Scale to give SI.
+type Operation struct {
+	Set    string            `yaml:"set"`
+	Query  string            `yaml:"query"`
+	Format string            `yaml:"format"`
+	Parse  string            `yaml:"parse"` // number | number-unit | field:N | bool | int | enum
+	Unit   string            `yaml:"unit"`  // SI unit after scaling: A, V, Wb, T, °C
+	Scale  float64           `yaml:"scale"` // instrument unit → SI (default 1)
+	Range  []float64         `yaml:"range"` // [min, max] in SI; setpoints outside are rejected
+	Map    map[string]string `yaml:"map"`   // value map for enums and booleans
+	// Bits names status-register bits for parse: int (bit number → meaning).
+	Bits map[string]int `yaml:"bits"`
+	// Settle is waited after a setting; Poll, when given, is queried until it
+	// returns PollDone (e.g. "*OPC?" → "1").
+	Settle   string `yaml:"settle"`
+	Poll     string `yaml:"poll"`
+	PollDone string `yaml:"poll_done"`
+	// Accuracy of a reading for the uncertainty budget: |U| = Gain·|value| + Offset,
+	// as a 95 % (k = 2) interval in the SI unit.
+	Accuracy *Accuracy `yaml:"accuracy"`
+}
+
+// Accuracy is a gain-and-offset specification of a reading.
+type Accuracy struct {
+	Gain   float64 `yaml:"gain"`   // fraction of reading
+	Offset float64 `yaml:"offset"` // SI unit
+}
+
+// Operation names, per role.
+const (
+	// supply
+	OpSetCurrent  = "set_current"
+	OpReadCurrent = "read_current"
+	OpReadVoltage = "read_voltage"
+	OpSetOutput   = "set_output"
+	OpReadStatus  = "read_status" // parse: int with bits compliance, overtemp, trip, output
+	// integrator
+	OpReset        = "reset"
+	OpSetRange     = "set_range"
+	OpReadFlux     = "read_flux"
+	OpReadOverload = "read_overload"
+	// field meter
+	OpReadField = "read_field"
+	OpZero      = "zero"
+	// thermometer
+	OpReadTemperature = "read_temperature"
+)
