@@ -1,13 +1,16 @@
 package plot
 
-import "math"
+import "hystd/calib/units"
 
-// Display factors from SI to CGS (NBS SP 696 "Units for magnetic
-// properties"; NIST SP 811 App. B): 1 Oe = 10³/(4π) A/m, 1 G = 1e-4 T,
-// 1 MGOe = 10⁵/(4π) J/m³ (≈ 7957.747 J/m³). They belong in calib/units; they
-// stay here only until that package exports its CGS conversions.
+// Display factors from SI to CGS, from the one definition in calib/units.
 const (
-	oerstedPerAm           = 4 * math.Pi / 1e3
-	gaussPerTesla          = 1e4
-	megaGaussOerstedPerJm3 = 4 * math.Pi / 1e5
+	oerstedPerAm           = 1 / units.AmperePerMetrePerOersted
+	gaussPerTesla          = 1 / units.TeslaPerGauss
+	megaGaussOerstedPerJm3 = 1 / units.JoulePerCubicMetrePerMGOe
 )
+
+// CGSFactors returns the multipliers that turn A/m into Oe, T into G and
+// J/m³ into MGOe, for clients (the review page) that draw CGS axes.
+func CGSFactors() (oePerAm, gPerT, mgoePerJm3 float64) {
+	return oerstedPerAm, gaussPerTesla, megaGaussOerstedPerJm3
+}
