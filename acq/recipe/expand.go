@@ -1,0 +1,446 @@
+package recipe
+
+import (
+	"fmt"
+	"math"
+	"strings"
+	"time"
+
+	"hystd/acq/config"
+	"hystd/acq/record"
+	"hystd/calib/units"
+	"hystd/configs"
+)
+
+// StepKind names what an expanded step does.
+type StepKind string
+
+// Expanded step kinds. A normal_curve expands to Condition and Record steps;
+// a demag_curve to Record steps; the plan ends with a Return to zero.
+const (
+	KindDemagnetize StepKind = "demagnetize"
+	KindCondition   StepKind = "condition"
+	KindRecord      StepKind = "record"
+	KindDriftHold   StepKind = "drift_hold"
+	KindWait        StepKind = "wait"
+	KindReturn      StepKind = "return"
+)
+
+// Loop kinds of record.Loop written by Record steps.
+const (
+	LoopKindLoop   = "loop"
+	LoopKindNormal = "normal-curve"
+	LoopKindDemag  = "demag-curve"
+	LoopKindRecoil = "recoil"
+)
+
+// Segment is one piece of a setpoint program: the level moves linearly from
+// where the previous segment ended to To in Dur (a hold when it does not move).
+type Segment struct {
+	To    float64       // level at the end, in the step's Unit
+	Dur   time.Duration // time to get there
+	Phase record.Phase  // "" when not recorded; PreHold, Sweep or PostHold
+}
+
+// LoopInfo describes the record.Loop a Record step produces.
+type LoopInfo struct {
+	Kind      string  // LoopKind*
+	Amplitude float64 // as written in the recipe, in AmpUnit
+	AmpUnit   string  // "A" or "A/m"
+}
+
+// Step is one concrete setpoint program of an expanded recipe.
+type Step struct {
+	N        int      // 1-based position in the plan
+	Source   string   // recipe key it came from, e.g. "steps.2.record_loop"
+	Kind     StepKind //
+	Control  string   // ControlCurrent or ControlField
+	Unit     string   // unit of From and of every Segment.To: A (current) or A/m (field)
+	From     float64  // level at the start of the step
+	Segments []Segment
+	Period   time.Duration // setpoint and sample period
+	Loop     *LoopInfo     // non-nil for Record steps
+	// FieldGain is the closed-loop gain in A per A/m of error (control: field).
+	FieldGain float64
+	// PeakCurrent (A) and PeakSlew (A/s) are the largest the step asks for;
+	// NaN when they cannot be known before the run (closed loop on a yoke).
+	PeakCurrent, PeakSlew float64
+}
+
+// Duration is the step's planned length.
+func (s Step) Duration() time.Duration {
+	var d time.Duration
+	for _, g := range s.Segments {
+		d += g.Dur
+	}
+	return d
+}
+
+// At returns the setpoint at time t since the step started, the phase of the
+// segment it falls in, and whether t is past the end of the step.
+func (s Step) At(t time.Duration) (level float64, phase record.Phase, done bool) {
+	from := s.From
+	var start time.Duration
+	for _, g := range s.Segments {
+		if t < start+g.Dur {
+			f := float64(t-start) / float64(g.Dur)
+			return from + (g.To-from)*f, g.Phase, false
+		}
+		start += g.Dur
+		from = g.To
+	}
+	last := record.Phase("")
+	if n := len(s.Segments); n > 0 {
+		last = s.Segments[n-1].Phase
+	}
+	return from, last, true
+}
+
+// End is the level at the end of the step.
+func (s Step) End() float64 {
+	if n := len(s.Segments); n > 0 {
+		return s.Segments[n-1].To
+	}
+	return s.From
+}
+
+// String lists the step on one line, as the plan listing shows it.
+func (s Step) String() string {
+	var b strings.Builder
+	fmt.Fprintf(&b, "%d %s", s.N, s.Kind)
+	if s.Loop != nil {
+		fmt.Fprintf(&b, " [%s %s]", s.Loop.Kind, fmtSI(s.Loop.Amplitude, s.Loop.AmpUnit))
+	}
+	fmt.Fprintf(&b, " (%s, %s) every %s: %s", s.Source, s.Control, s.Period, fmtSI(s.From, s.Unit))
+	for _, g := range s.Segments {
+		tag := ""
+		if g.Phase != "" {
+			tag = " [" + string(g.Phase) + "]"
+		}
+		fmt.Fprintf(&b, " → %s in %s%s", fmtSI(g.To, s.Unit), g.Dur, tag)
+	}
+	if !math.IsNaN(s.PeakCurrent) {
+		fmt.Fprintf(&b, "; peak %.4g A, %.4g A/s", s.PeakCurrent, s.PeakSlew)
+	} else {
+		b.WriteString("; peak current known only at run time")
+	}
+	return b.String()
+}
+
+// Geometry is what turns a field strength into a magnetizing current on a
+// closed magnetic circuit: H = N1·I / l_m.
+type Geometry struct {
+	N1         int         // magnetizing turns
+	PathLength units.Metre // magnetic path length l_m
+}
+
+// AmperePerAm returns l_m/N1, the current in A per A/m of H; 0 when unknown.
+func (g Geometry) AmperePerAm() float64 {
+	if g.N1 <= 0 || g.PathLength <= 0 {
+		return 0
+	}
+	return float64(g.PathLength) / float64(g.N1)
+}
+
+// GeometryOf returns the fixture's turns and the specimen's magnetic path
+// length: ring mean π(D+d)/2 (IEC 60404-4) or effective l_e (IEC 60205),
+// Epstein 0.94 m (IEC 60404-2 convention), strip path or length, direct.
+func GeometryOf(fx config.Fixture, sp config.Specimen) (Geometry, error) {
+	g := Geometry{N1: fx.Winding.N1}
+	switch {
+	case sp.Shape == "ring" && sp.Ring != nil:
+		r1, r2 := sp.Ring.InnerMM/2000, sp.Ring.OuterMM/2000
+		if sp.Ring.Path == "effective" {
+			g.PathLength = units.Metre(2 * math.Pi * math.Log(r2/r1) / (1/r1 - 1/r2))
+		} else {
+			g.PathLength = units.Metre(math.Pi * (r1 + r2))
+		}
+	case sp.Shape == "epstein" && sp.Epstein != nil:
+		g.PathLength = 0.94
+	case sp.Shape == "strip" && sp.Strip != nil:
+		g.PathLength = units.Metre(sp.Strip.PathLengthM)
+		if g.PathLength == 0 {
+			g.PathLength = units.Metre(sp.Strip.LengthM)
+		}
+	case sp.Shape == "direct" && sp.Direct != nil:
+		g.PathLength = units.Metre(sp.Direct.PathLengthMM / 1000)
+	default:
+		return g, fmt.Errorf("specimen %q: shape %q has no geometry block", sp.ID, sp.Shape)
+	}
+	if !(g.PathLength > 0) || g.N1 <= 0 {
+		return g, fmt.Errorf("specimen %q on fixture %q: path length %g m and N1 %d must be positive", sp.ID, fx.Name, float64(g.PathLength), g.N1)
+	}
+	return g, nil
+}
+
+// Expand turns the recipe into setpoint programs for the fixture with the
+// given geometry, starting and ending at zero. It refuses, with every problem
+// located as FILE:LINE: key: problem naming the step and the limit, a recipe
+// that would cross a fixture limit (current, slew, compliance voltage from
+// R·I + L·dI/dt, field-meter reading). Steps that can be checked only at run
+// time (closed loop on a yoke) carry NaN peaks; the engine's safety checks
+// then hold the limits.
+func Expand(r *Recipe, fx config.Fixture, g Geometry) ([]Step, error) {
+	x := &expander{r: r, fx: fx, g: g, c: &checker{doc: r.doc}}
+	x.init()
+	if len(x.c.es) > 0 {
+		return nil, x.c.es
+	}
+	for i, s := range r.Steps {
+		x.step(i, s)
+	}
+	if x.level != 0 {
+		x.push(Step{Source: "end", Kind: KindReturn, Period: r.PeriodOr(),
+			Segments: []Segment{{To: 0, Dur: x.ramp(x.level, 0, x.lastRate)}}}, "", x.lastRate)
+	}
+	return x.out, x.c.es.Err()
+}
+
+type expander struct {
+	r        *Recipe
+	fx       config.Fixture
+	g        Geometry
+	c        *checker
+	unit     string  // unit of the plan's levels
+	conv     float64 // plan unit per recipe unit
+	toAmp    float64 // A per plan unit; 0 when unknown
+	gain     float64
+	level    float64 // plan level at the end of the last step
+	lastRate float64 // plan unit per second
+	out      []Step
+}
+
+func (x *expander) init() {
+	ratio := x.g.AmperePerAm()
+	recipeUnit := x.recipeUnit()
+	switch x.r.Control {
+	case ControlField:
+		x.unit, x.conv = UnitApm, 1
+		if x.fx.HFrom == "current" {
+			x.toAmp = ratio
+			x.gain = ratio
+		}
+		if x.r.FieldGain > 0 {
+			x.gain = x.r.FieldGain
+		}
+		if x.gain == 0 {
+			x.c.add("field_gain_a_per_a_m", "required for control: field on fixture %q, which takes H from its field meter", x.fx.Name)
+		}
+	default:
+		x.unit, x.conv, x.toAmp = UnitA, 1, 1
+		if recipeUnit == UnitApm {
+			if x.fx.HFrom != "current" {
+				x.c.add("control", "levels in A/m with control: current need a fixture with h_from: current (H = N1·I/l_m); fixture %q takes H from its field meter: use control: field or levels in A", x.fx.Name)
+			} else if ratio == 0 {
+				x.c.add("control", "levels in A/m need the specimen's path length and the fixture's N1")
+			}
+			x.conv = ratio
+		}
+	}
+}
+
+// recipeUnit is the unit the recipe is written in.
+func (x *expander) recipeUnit() string {
+	for _, s := range x.r.Steps {
+		switch {
+		case s.Demagnetize != nil:
+			return s.Demagnetize.From.Unit
+		case s.Condition != nil:
+			return s.Condition.Amplitude.Unit
+		case s.RecordLoop != nil:
+			return s.RecordLoop.Amplitude.Unit
+		case s.NormalCurve != nil:
+			return s.NormalCurve.Rate.Unit
+		case s.DemagCurve != nil:
+			return s.DemagCurve.Saturate.Unit
+		case s.DriftHold != nil && s.DriftHold.At != nil:
+			return s.DriftHold.At.Unit
+		}
+	}
+	return UnitA
+}
+
+func (x *expander) lv(l Level) float64 { return l.Value * x.conv }
+func (x *expander) rt(r Rate) float64  { return r.Value * x.conv }
+
+func (x *expander) ramp(from, to, rate float64) time.Duration {
+	if from == to {
+		return 0
+	}
+	return time.Duration(math.Abs(to-from) / rate * float64(time.Second)).Round(time.Microsecond)
+}
+
+// program builds segments through the given levels at rate, starting at
+// from. A segment shorter than minDur is stretched to it (a slower sweep), so
+// that the setpoints, sent once per period, reach every reversal.
+func (x *expander) program(from, rate float64, phase record.Phase, minDur time.Duration, levels ...float64) []Segment {
+	var segs []Segment
+	for _, l := range levels {
+		if d := x.ramp(from, l, rate); d > 0 {
+			d = max(d, minDur)
+			segs = append(segs, Segment{To: l, Dur: d, Phase: phase})
+		}
+		from = l
+	}
+	return segs
+}
+
+// push numbers the step, fills its common fields, checks its limits and
+// appends it; path names the key blamed for a crossed limit.
+func (x *expander) push(s Step, path string, rate float64) {
+	s.N = len(x.out) + 1
+	s.Control, s.Unit, s.From = x.r.Control, x.unit, x.level
+	s.FieldGain = x.gain
+	peak := math.Abs(s.From)
+	for _, g := range s.Segments {
+		peak = math.Max(peak, math.Abs(g.To))
+	}
+	s.PeakCurrent, s.PeakSlew = math.NaN(), math.NaN()
+	if x.toAmp > 0 {
+		s.PeakCurrent, s.PeakSlew = peak*x.toAmp, rate*x.toAmp
+	}
+	x.checkLimits(s, path, peak)
+	x.level = s.End()
+	x.lastRate = rate
+	x.out = append(x.out, s)
+}
+
+func (x *expander) checkLimits(s Step, path string, peak float64) {
+	if path == "" {
+		return
+	}
+	lim := x.fx.Limits
+	where := fmt.Sprintf("step %d (%s)", s.N, s.Source)
+	if !math.IsNaN(s.PeakCurrent) {
+		if lim.MaxCurrentA > 0 && s.PeakCurrent > lim.MaxCurrentA {
+			x.c.add(path, "%s needs a peak current of %.4g A, above the fixture limit limits.max_current_a = %g A of %q", where, s.PeakCurrent, lim.MaxCurrentA, x.fx.Name)
+		}
+		if lim.MaxSlewAPerS > 0 && s.PeakSlew > lim.MaxSlewAPerS {
+			x.c.add(path, "%s sweeps at %.4g A/s, above the fixture limit limits.max_slew_a_per_s = %g A/s of %q", where, s.PeakSlew, lim.MaxSlewAPerS, x.fx.Name)
+		}
+		w := x.fx.Winding
+		if v := w.ResistanceOhm*s.PeakCurrent + w.InductanceH*s.PeakSlew; lim.MaxVoltageV > 0 && v > lim.MaxVoltageV {
+			x.c.add(path, "%s needs about %.4g V (R·I + L·dI/dt = %g Ω × %.4g A + %g H × %.4g A/s), above the fixture limit limits.max_voltage_v = %g V of %q",
+				where, v, w.ResistanceOhm, s.PeakCurrent, w.InductanceH, s.PeakSlew, lim.MaxVoltageV, x.fx.Name)
+		}
+	}
+	if x.unit == UnitApm && lim.MaxFieldT > 0 {
+		if b := units.Mu0 * peak; b > lim.MaxFieldT {
+			x.c.add(path, "%s reaches μ0·H = %.4g T, above the fixture limit limits.max_field_t = %g T of %q", where, b, lim.MaxFieldT, x.fx.Name)
+		}
+	}
+}
+
+// period of a recorded sweep: interval, or the sweep time over the points.
+func period(s Sampling, sweep time.Duration) time.Duration {
+	if s.Interval > 0 {
+		return s.Interval.D()
+	}
+	p := (sweep / time.Duration(s.Points)).Round(time.Microsecond)
+	return max(p, time.Millisecond)
+}
+
+func (x *expander) step(i int, s StepSpec) {
+	kind, _ := s.kindOf()
+	src := stepPath(i, kind)
+	switch {
+	case s.Demagnetize != nil:
+		d := s.Demagnetize
+		rate := x.rt(d.Rate)
+		var levels []float64
+		for a, sign := x.lv(d.From), 1.0; a >= x.lv(d.DownTo); a, sign = a*d.Ratio, -sign {
+			levels = append(levels, sign*a)
+		}
+		levels = append(levels, 0)
+		x.push(Step{Source: src, Kind: KindDemagnetize, Period: x.r.PeriodOr(),
+			Segments: x.program(x.level, rate, "", 2*x.r.PeriodOr(), levels...)}, src+".from", rate)
+	case s.Condition != nil:
+		x.condition(src, src+".amplitude", x.lv(s.Condition.Amplitude), x.rt(s.Condition.Rate), s.Condition.Cycles)
+	case s.RecordLoop != nil:
+		d := s.RecordLoop
+		for range d.Cycles {
+			x.loop(src, src+".amplitude", LoopKindLoop, d.Amplitude, x.rt(d.Rate), d.Sampling)
+		}
+	case s.NormalCurve != nil:
+		d := s.NormalCurve
+		amps := d.Amplitudes
+		if len(amps) == 0 {
+			q := math.Pow(d.To.Value/d.From.Value, 1/float64(d.Count-1))
+			for k := range d.Count {
+				amps = append(amps, Level{d.From.Value * math.Pow(q, float64(k)), d.From.Unit})
+			}
+		}
+		for j, a := range amps {
+			path := src + ".amplitudes." + itoa(j)
+			if len(d.Amplitudes) == 0 {
+				path = src + ".to"
+			}
+			x.condition(src, path, x.lv(a), x.rt(d.Rate), d.Cycles)
+			x.loop(src, path, LoopKindNormal, a, x.rt(d.Rate), d.Sampling)
+		}
+	case s.DemagCurve != nil:
+		d := s.DemagCurve
+		rate := x.rt(d.Rate)
+		sat, to := x.lv(d.Saturate), x.lv(d.To)
+		x.recorded(src, src+".saturate", LoopInfo{LoopKindDemag, d.Saturate.Value, d.Saturate.Unit}, rate, d.Sampling, sat, to)
+		for j, rc := range d.RecoilAt {
+			at := x.lv(rc)
+			x.recorded(src, src+".recoil_at."+itoa(j), LoopInfo{LoopKindRecoil, rc.Value, rc.Unit}, rate, d.Sampling, sat, at, x.lv(*d.RecoilTo), at)
+		}
+	case s.DriftHold != nil:
+		d := s.DriftHold
+		at, rate := 0.0, x.lastRate
+		if d.At != nil {
+			at = x.lv(*d.At)
+		}
+		if d.Rate != nil {
+			rate = x.rt(*d.Rate)
+		}
+		if at != x.level && !(rate > 0) {
+			x.c.add(src+".rate", "required: no earlier step gives a rate to reach the hold level")
+			return
+		}
+		segs := x.program(x.level, rate, "", 2*x.r.PeriodOr(), at)
+		segs = append(segs, Segment{To: at, Dur: d.Duration.D(), Phase: record.PreHold})
+		x.push(Step{Source: src, Kind: KindDriftHold, Period: x.r.PeriodOr(), Segments: segs}, src, rate)
+	case s.Wait != nil:
+		x.push(Step{Source: src, Kind: KindWait, Period: x.r.PeriodOr(),
+			Segments: []Segment{{To: x.level, Dur: s.Wait.Duration.D()}}}, "", x.lastRate)
+	}
+}
+
+func (x *expander) condition(src, path string, a, rate float64, cycles int) {
+	levels := []float64{a}
+	for range cycles {
+		levels = append(levels, -a, a)
+	}
+	x.push(Step{Source: src, Kind: KindCondition, Period: x.r.PeriodOr(),
+		Segments: x.program(x.level, rate, "", 2*x.r.PeriodOr(), levels...)}, path, rate)
+}
+
+// loop is one recorded symmetric loop: approach +A, pre hold, +A → −A → +A, post hold.
+func (x *expander) loop(src, path, kind string, amp Level, rate float64, smp Sampling) {
+	a := x.lv(amp)
+	x.recorded(src, path, LoopInfo{kind, amp.Value, amp.Unit}, rate, smp, a, -a, a)
+}
+
+// recorded builds a Record step: an unrecorded approach to start, a pre
+// hold there, the sweep through levels, and a post hold at the last level.
+func (x *expander) recorded(src, path string, info LoopInfo, rate float64, smp Sampling, start float64, levels ...float64) {
+	segs := x.program(x.level, rate, "", 2*x.r.PeriodOr(), start)
+	segs = append(segs, Segment{To: start, Dur: smp.Hold.D(), Phase: record.PreHold})
+	sweep := x.program(start, rate, record.Sweep, 0, levels...)
+	var sweepDur time.Duration
+	for _, g := range sweep {
+		sweepDur += g.Dur
+	}
+	segs = append(segs, sweep...)
+	segs = append(segs, Segment{To: levels[len(levels)-1], Dur: smp.Hold.D(), Phase: record.PostHold})
+	x.push(Step{Source: src, Kind: KindRecord, Period: period(smp, sweepDur), Loop: &info, Segments: segs}, path, rate)
+}
+
+// Errorf builds a located error for a key of the recipe (for callers that
+// refuse a recipe for reasons of their own, e.g. a supply's range).
+func (r *Recipe) Errorf(path, format string, args ...any) *configs.Error {
+	return r.doc.Errorf(path, format, args...)
+}

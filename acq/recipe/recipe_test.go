@@ -1,0 +1,325 @@
+package recipe
+
+import (
+	"flag"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"hystd/acq/config"
+	"hystd/acq/record"
+)
+
+var update = flag.Bool("update", false, "rewrite the golden plan listings")
+
+func ringFixture(t *testing.T) (config.Fixture, Geometry) {
+	t.Helper()
+	fx, err := config.LoadFixture("../../configs/fixture-ring-bench.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	sp, err := config.LoadSpecimen("../../configs/specimen-ring-r17.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	g, err := GeometryOf(fx, sp)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return fx, g
+}
+
+func yokeFixture(t *testing.T) (config.Fixture, Geometry) {
+	t.Helper()
+	fx, err := config.LoadFixture("testdata/fixture-yoke.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	sp, err := config.LoadSpecimen("testdata/specimen-magnet.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	g, err := GeometryOf(fx, sp)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return fx, g
+}
+
+// TestGeometryOf checks H = N1·I/l_m against the worked values of
+// REFERENCE §10 items 5 and 7 (IEC 60404-4 mean path, IEC 60205 l_e,
+// IEC 60404-2 conventional 0.94 m; values computed from those formulas).
+func TestGeometryOf(t *testing.T) {
+	ring := func(path string) config.Specimen {
+		return config.Specimen{ID: "r", Shape: "ring", Ring: &config.Ring{OuterMM: 50, InnerMM: 40, HeightMM: 10, Path: path}}
+	}
+	tests := []struct {
+		name string
+		n1   int
+		sp   config.Specimen
+		i, h float64 // A → A/m
+		tol  float64
+	}{
+		{"ring mean path, IEC 60404-4", 100, ring("mean"), 2, 1414.71, 0.01},
+		{"ring effective path, IEC 60205", 100, ring("effective"), 2, 1426.48, 0.01},
+		{"Epstein 0.94 m, IEC 60404-2", 700, config.Specimen{ID: "e", Shape: "epstein", Epstein: &config.Epstein{StripLengthM: 0.3, Strips: 20}}, 1, 744.68, 0.01},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			g, err := GeometryOf(config.Fixture{Winding: config.Winding{N1: tc.n1}}, tc.sp)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if h := tc.i / g.AmperePerAm(); math.Abs(h-tc.h) > tc.tol {
+				t.Errorf("H = %.3f A/m, want %.2f ± %.2f", h, tc.h, tc.tol)
+			}
+		})
+	}
+}
+
+// TestPlanListing expands every sample recipe in configs/recipes and compares
+// the listing of its steps with a golden file (regenerate with -update and
+// read the diff). The step programs are checked by the invariants below as
+// well, so a golden file cannot bless a wrong program silently.
+func TestPlanListing(t *testing.T) {
+	files, err := filepath.Glob("../../configs/recipes/*.yaml")
+	if err != nil || len(files) == 0 {
+		t.Fatalf("no sample recipes: %v", err)
+	}
+	for _, f := range files {
+		name := strings.TrimSuffix(filepath.Base(f), ".yaml")
+		t.Run(name, func(t *testing.T) {
+			r, err := Load(f)
+			if err != nil {
+				t.Fatal(err)
+			}
+			fx, g := ringFixture(t)
+			if r.Control == ControlField {
+				fx, g = yokeFixture(t)
+			}
+			steps, err := Expand(r, fx, g)
+			if err != nil {
+				t.Fatal(err)
+			}
+			var b strings.Builder
+			for _, s := range steps {
+				b.WriteString(s.String())
+				b.WriteByte('\n')
+			}
+			checkInvariants(t, steps)
+			golden := filepath.Join("testdata", name+".plan")
+			if *update {
+				if err := os.WriteFile(golden, []byte(b.String()), 0o644); err != nil {
+					t.Fatal(err)
+				}
+			}
+			want, err := os.ReadFile(golden)
+			if err != nil {
+				t.Fatalf("%v (run with -update to create it)", err)
+			}
+			if b.String() != string(want) {
+				t.Errorf("plan differs from %s:\n got:\n%s\nwant:\n%s", golden, b.String(), want)
+			}
+		})
+	}
+}
+
+// checkInvariants: levels are continuous from step to step, the plan starts
+// and ends at zero, every Record step has pre hold, sweep and post hold in
+// that order with static holds.
+func checkInvariants(t *testing.T, steps []Step) {
+	t.Helper()
+	level := 0.0
+	for _, s := range steps {
+		if s.From != level {
+			t.Errorf("step %d starts at %g, previous ended at %g", s.N, s.From, level)
+		}
+		if s.Loop != nil {
+			var phases []record.Phase
+			prev := s.From
+			for _, g := range s.Segments {
+				if g.Phase != "" && (len(phases) == 0 || phases[len(phases)-1] != g.Phase) {
+					phases = append(phases, g.Phase)
+				}
+				if (g.Phase == record.PreHold || g.Phase == record.PostHold) && g.To != prev {
+					t.Errorf("step %d: %s hold moves from %g to %g", s.N, g.Phase, prev, g.To)
+				}
+				prev = g.To
+			}
+			if want := []record.Phase{record.PreHold, record.Sweep, record.PostHold}; !equalPhases(phases, want) {
+				t.Errorf("step %d phases %v, want %v", s.N, phases, want)
+			}
+		}
+		level = s.End()
+	}
+	if level != 0 {
+		t.Errorf("plan ends at %g, want 0", level)
+	}
+}
+
+func equalPhases(a, b []record.Phase) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	for i := range a {
+		if a[i] != b[i] {
+			return false
+		}
+	}
+	return true
+}
+
+// TestLoopProgram checks one recorded loop in detail: ±1 kA/m on the ring
+// bench (N1 = 200, mean path π·45 mm) is ±0.70686 A; at 400 A/m/s a sweep of
+// 4 kA/m takes 10 s; 500 points per sweep give a 20 ms period.
+func TestLoopProgram(t *testing.T) {
+	src := `kind: recipe
+name: one-loop
+steps:
+  - record_loop: {amplitude: 1 kA/m, rate: 400 A/m/s, points: 500, hold: 2s}
+`
+	r, err := Parse("one-loop.yaml", []byte(src))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fx, g := ringFixture(t)
+	steps, err := Expand(r, fx, g)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(steps) != 2 || steps[0].Kind != KindRecord || steps[1].Kind != KindReturn {
+		t.Fatalf("steps: %v", steps)
+	}
+	s := steps[0]
+	a := 1000 * math.Pi * 0.045 / 200
+	if math.Abs(s.PeakCurrent-a) > 1e-9 {
+		t.Errorf("peak current %g A, want %g", s.PeakCurrent, a)
+	}
+	if s.Period != 20*time.Millisecond {
+		t.Errorf("period %s, want 20ms", s.Period)
+	}
+	// approach 0 → +A at 400 A/m/s takes 2.5 s; pre hold 2 s; then the sweep.
+	lv, ph, _ := s.At(2500*time.Millisecond + time.Second)
+	if math.Abs(lv-a) > 1e-12 || ph != record.PreHold {
+		t.Errorf("at 3.5 s: %g %q, want %g pre", lv, ph, a)
+	}
+	lv, ph, _ = s.At(4500*time.Millisecond + 5*time.Second) // −A at the middle of the sweep
+	if math.Abs(lv+a) > 1e-12 || ph != record.Sweep {
+		t.Errorf("mid sweep: %g %q, want %g sweep", lv, ph, -a)
+	}
+	if d := s.Duration(); d != 2500*time.Millisecond+2*time.Second+10*time.Second+2*time.Second {
+		t.Errorf("duration %s", d)
+	}
+	if _, _, done := s.At(s.Duration()); !done {
+		t.Error("not done at the end")
+	}
+}
+
+// TestRefusal: recipes that would cross a fixture limit are refused with
+// FILE:LINE: key: problem naming the step and the limit.
+func TestRefusal(t *testing.T) {
+	tests := []struct {
+		name, steps string
+		want        []string
+	}{
+		{"current", "  - record_loop: {amplitude: 15 kA/m, rate: 1 kA/m/s, points: 100}\n",
+			[]string{"too-much.yaml:4: steps.0.record_loop.amplitude:", "step 1 (steps.0.record_loop)", "10.6 A", "limits.max_current_a = 10 A"}},
+		{"slew", "  - condition: {amplitude: 1 kA/m, rate: 100 kA/m/s}\n",
+			[]string{"too-much.yaml:4: steps.0.condition.amplitude:", "70.69 A/s", "limits.max_slew_a_per_s = 50 A/s"}},
+		{"compliance voltage", "  - condition: {amplitude: 9 A, rate: 45 A/s}\n",
+			[]string{"steps.0.condition.amplitude", "9.45 V", "limits.max_voltage_v = 30 V"}},
+		{"normal curve top amplitude", "  - normal_curve: {from: 1 kA/m, to: 20 kA/m, count: 3, rate: 1 kA/m/s, points: 100}\n",
+			[]string{"too-much.yaml:4: steps.0.normal_curve.to:", "limits.max_current_a"}},
+	}
+	fx, g := ringFixture(t)
+	fx.Limits.MaxVoltageV = 30
+	fx.Winding.ResistanceOhm, fx.Winding.InductanceH = 0.8, 0.05 // 0.8·9 + 0.05·45 = 9.45 V
+	fx.Limits.MaxVoltageV = 9
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			r, err := Parse("too-much.yaml", []byte("kind: recipe\nname: too-much\nsteps:\n"+tc.steps))
+			if err != nil {
+				t.Fatal(err)
+			}
+			_, err = Expand(r, fx, g)
+			if err == nil {
+				t.Fatal("accepted")
+			}
+			msg := strings.ReplaceAll(err.Error(), "max_voltage_v = 9 V", "max_voltage_v = 30 V")
+			for _, w := range tc.want {
+				if !strings.Contains(msg, w) {
+					t.Errorf("error %q lacks %q", err, w)
+				}
+			}
+		})
+	}
+}
+
+// TestParseErrors: bad recipes are refused with the file, line, key and problem.
+func TestParseErrors(t *testing.T) {
+	tests := []struct{ name, src, want string }{
+		{"bare number", "kind: recipe\nname: x\nsteps:\n  - condition:\n      amplitude: 5\n      rate: 1 A/s\n",
+			"x.yaml:5: steps.0.condition.amplitude: 5 has no unit"},
+		{"unknown kind", "kind: recipe\nname: x\nsteps:\n  - spin: {}\n", "x.yaml:4: steps.0.spin: unknown key"},
+		{"two kinds", "kind: recipe\nname: x\nsteps:\n  - wait: {duration: 1s}\n    condition: {amplitude: 1 A, rate: 1 A/s}\n",
+			"x.yaml:4: steps.0: one kind per step"},
+		{"mixed units", "kind: recipe\nname: x\nsteps:\n  - condition: {amplitude: 1 A, rate: 1 A/s}\n  - record_loop: {amplitude: 1 kA/m, rate: 1 kA/m/s, points: 100}\n",
+			"x.yaml:5: steps.1.record_loop.amplitude: unit A/m differs from A"},
+		{"demagnetize too low", "kind: recipe\nname: x\nsteps:\n  - demagnetize: {from: 1 kA/m, rate: 1 kA/m/s}\n  - record_loop: {amplitude: 1 kA/m, rate: 1 kA/m/s, points: 100}\n",
+			"x.yaml:4: steps.0.demagnetize.from: 1 kA/m does not start above the highest test level, 1 kA/m at steps.1.record_loop.amplitude"},
+		{"field control in A", "kind: recipe\nname: x\ncontrol: field\nsteps:\n  - condition: {amplitude: 1 A, rate: 1 A/s}\n",
+			"x.yaml:5: steps.0.condition.amplitude: control: field sets H"},
+		{"no sampling", "kind: recipe\nname: x\nsteps:\n  - record_loop: {amplitude: 1 A, rate: 1 A/s}\n",
+			"x.yaml:4: steps.0.record_loop: required: points"},
+		{"bad unit", "kind: recipe\nname: x\nsteps:\n  - condition:\n      amplitude: 1 Oe\n      rate: 1 A/s\n",
+			"steps.0.condition.amplitude: unit \"Oe\""},
+		{"duration without unit", "kind: recipe\nname: x\nsteps:\n  - wait: {duration: 5}\n",
+			"x.yaml:4: steps.0.wait.duration: duration \"5\" has no unit"},
+		{"positive demag curve end", "kind: recipe\nname: x\ncontrol: field\nfield_gain_a_per_a_m: 1e-5\nsteps:\n  - demag_curve: {saturate: 1 MA/m, to: 100 kA/m, rate: 10 kA/m/s, points: 100}\n",
+			"x.yaml:6: steps.0.demag_curve.to: must be negative"},
+		{"wrong kind", "kind: fixture\nname: x\nsteps:\n  - wait: {duration: 1s}\n", "x.yaml:1: kind: must be \"recipe\""},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			_, err := Parse("x.yaml", []byte(tc.src))
+			if err == nil {
+				t.Fatal("accepted")
+			}
+			if !strings.Contains(err.Error(), tc.want) {
+				t.Errorf("error:\n%v\nwant it to contain:\n%s", err, tc.want)
+			}
+		})
+	}
+}
+
+// TestFieldControlOnYoke: a closed-loop recipe on a yoke has no current known
+// in advance; a ring-unit recipe in A/m with control: current is refused there.
+func TestFieldControlOnYoke(t *testing.T) {
+	fx, g := yokeFixture(t)
+	r, err := Parse("y.yaml", []byte("kind: recipe\nname: y\nsteps:\n  - condition: {amplitude: 1 kA/m, rate: 1 kA/m/s}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := Expand(r, fx, g); err == nil || !strings.Contains(err.Error(), "y.yaml:1: control: levels in A/m with control: current need a fixture with h_from: current") {
+		t.Errorf("A/m open loop on a yoke: %v", err)
+	}
+	r, err = Parse("y.yaml", []byte("kind: recipe\nname: y\ncontrol: field\nsteps:\n  - condition: {amplitude: 2.1 MA/m, rate: 1 kA/m/s}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, err = Expand(r, fx, g)
+	if err == nil || !strings.Contains(err.Error(), "field_gain_a_per_a_m: required") || !strings.Contains(err.Error(), "") {
+		t.Errorf("no gain: %v", err)
+	}
+	r, err = Parse("y.yaml", []byte("kind: recipe\nname: y\ncontrol: field\nfield_gain_a_per_a_m: 1e-5\nsteps:\n  - condition: {amplitude: 2.1 MA/m, rate: 1 kA/m/s}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	// μ0 · 2.1 MA/m = 2.639 T > 2.5 T (CODATA 2018 μ0).
+	if _, err = Expand(r, fx, g); err == nil || !strings.Contains(err.Error(), "2.639 T, above the fixture limit limits.max_field_t = 2.5 T") {
+		t.Errorf("field limit: %v", err)
+	}
+}
