@@ -1,0 +1,314 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"fmt"
+	"strings"
+	"time"
+
+	"hystd/acq/record"
+)
+
+// DefaultRunLimit is how many runs Runs returns when the filter sets no limit.
+const DefaultRunLimit = 100
+
+const runCols = `id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns`
+
+func scanRun(sc interface{ Scan(...any) error }) (record.Run, error) {
+	var r record.Run
+	var st string
+	var q, s, e sql.NullInt64
+	err := sc.Scan(&r.ID, &r.Recipe, &r.RecipeText, &r.Fixture, &r.Specimen, &r.Material, &r.Config, &r.ConfigHash,
+		&r.Software, &st, &r.Reason, &q, &s, &e)
+	r.State, r.Queued, r.Started, r.Ended = record.State(st), timeOf(q), timeOf(s), timeOf(e)
+	return r, err
+}
+
+// Runs returns the runs matching f, newest first (by start time, runs not yet
+// started by queue time), at most f.Limit (DefaultRunLimit when 0).
+func (s *Store) Runs(ctx context.Context, f record.RunFilter) ([]record.Run, error) {
+	var where []string
+	var args []any
+	add := func(cond string, v any) { where = append(where, cond); args = append(args, v) }
+	if f.Fixture != "" {
+		add("fixture = ?", f.Fixture)
+	}
+	if f.Specimen != "" {
+		add("specimen = ?", f.Specimen)
+	}
+	if f.Material != "" {
+		add("material = ?", f.Material)
+	}
+	if f.State != "" {
+		add("state = ?", string(f.State))
+	}
+	if !f.Since.IsZero() {
+		add("started_ns >= ?", f.Since.UnixNano())
+	}
+	if !f.Until.IsZero() {
+		add("started_ns < ?", f.Until.UnixNano())
+	}
+	lim := f.Limit
+	if lim <= 0 {
+		lim = DefaultRunLimit
+	}
+	q := "SELECT " + runCols + " FROM runs"
+	if len(where) > 0 {
+		q += " WHERE " + strings.Join(where, " AND ")
+	}
+	q += " ORDER BY COALESCE(started_ns, queued_ns) DESC, id DESC LIMIT ?"
+	args = append(args, lim)
+	rows, err := s.r.QueryContext(ctx, q, args...)
+	if err != nil {
+		return nil, fmt.Errorf("store: runs: %w", err)
+	}
+	defer rows.Close()
+	var out []record.Run
+	for rows.Next() {
+		r, err := scanRun(rows)
+		if err != nil {
+			return nil, fmt.Errorf("store: runs: %w", err)
+		}
+		out = append(out, r)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("store: runs: %w", err)
+	}
+	return out, nil
+}
+
+// Run returns one run, or an error wrapping record.ErrNotFound.
+func (s *Store) Run(ctx context.Context, id string) (record.Run, error) {
+	r, err := scanRun(s.r.QueryRowContext(ctx, "SELECT "+runCols+" FROM runs WHERE id = ?", id))
+	if errors.Is(err, sql.ErrNoRows) {
+		return record.Run{}, fmt.Errorf("store: run %s: %w", id, record.ErrNotFound)
+	}
+	if err != nil {
+		return record.Run{}, fmt.Errorf("store: run %s: %w", id, err)
+	}
+	return r, nil
+}
+
+// Loops returns a run's loops in order with figures and corrections but
+// without Raw and Points; record.ErrNotFound for an unknown run.
+func (s *Store) Loops(ctx context.Context, runID string) ([]record.Loop, error) {
+	tx, err := s.r.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
+	if err != nil {
+		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
+	}
+	defer tx.Rollback()
+	var one int
+	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM runs WHERE id = ?`, runID).Scan(&one); err != nil {
+		if errors.Is(err, sql.ErrNoRows) {
+			return nil, fmt.Errorf("store: loops of run %s: %w", runID, record.ErrNotFound)
+		}
+		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
+	}
+	rows, err := tx.QueryContext(ctx, `SELECT n, kind, amplitude, amp_unit, started_ns FROM loops WHERE run_id = ? ORDER BY n`, runID)
+	if err != nil {
+		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
+	}
+	var out []record.Loop
+	for rows.Next() {
+		l := record.Loop{RunID: runID}
+		var amp sql.NullFloat64
+		var st sql.NullInt64
+		if err := rows.Scan(&l.N, &l.Kind, &amp, &l.AmpUnit, &st); err != nil {
+			rows.Close()
+			return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
+		}
+		l.Amplitude, l.Started = floatOf(amp), timeOf(st)
+		out = append(out, l)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
+	}
+	for i := range out {
+		if err := readDerived(ctx, tx, &out[i]); err != nil {
+			return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
+		}
+	}
+	return out, nil
+}
+
+func readDerived(ctx context.Context, tx *sql.Tx, l *record.Loop) error {
+	rows, err := tx.QueryContext(ctx, `SELECT name, value, u, unit, note FROM figures WHERE run_id = ? AND loop_n = ? ORDER BY seq`, l.RunID, l.N)
+	if err != nil {
+		return err
+	}
+	for rows.Next() {
+		var f record.Figure
+		var v, u sql.NullFloat64
+		if err := rows.Scan(&f.Name, &v, &u, &f.Unit, &f.Note); err != nil {
+			rows.Close()
+			return err
+		}
+		f.Value, f.U = floatOf(v), floatOf(u)
+		l.Figures = append(l.Figures, f)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return err
+	}
+	rows, err = tx.QueryContext(ctx, `SELECT name, size, unit, note FROM corrections WHERE run_id = ? AND loop_n = ? ORDER BY seq`, l.RunID, l.N)
+	if err != nil {
+		return err
+	}
+	defer rows.Close()
+	for rows.Next() {
+		var c record.Correction
+		var sz sql.NullFloat64
+		if err := rows.Scan(&c.Name, &sz, &c.Unit, &c.Note); err != nil {
+			return err
+		}
+		c.Size = floatOf(sz)
+		l.Corrections = append(l.Corrections, c)
+	}
+	return rows.Err()
+}
+
+// Loop returns loop n of a run with raw samples, points, figures and
+// corrections; an error wrapping record.ErrNotFound if either is unknown.
+func (s *Store) Loop(ctx context.Context, runID string, n int) (record.Loop, error) {
+	l, err := s.loop(ctx, runID, n)
+	if err != nil {
+		return record.Loop{}, fmt.Errorf("store: loop %d of run %s: %w", n, runID, err)
+	}
+	return l, nil
+}
+
+func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, error) {
+	tx, err := s.r.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
+	if err != nil {
+		return record.Loop{}, err
+	}
+	defer tx.Rollback()
+	l := record.Loop{RunID: runID, N: n}
+	var amp sql.NullFloat64
+	var st sql.NullInt64
+	var nRaw, nPts int
+	err = tx.QueryRowContext(ctx, `SELECT kind, amplitude, amp_unit, started_ns, n_raw, n_points FROM loops WHERE run_id = ? AND n = ?`,
+		runID, n).Scan(&l.Kind, &amp, &l.AmpUnit, &st, &nRaw, &nPts)
+	if errors.Is(err, sql.ErrNoRows) {
+		return record.Loop{}, record.ErrNotFound
+	}
+	if err != nil {
+		return record.Loop{}, err
+	}
+	l.Amplitude, l.Started = floatOf(amp), timeOf(st)
+
+	rows, err := tx.QueryContext(ctx, `SELECT t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c
+		FROM raw_samples WHERE run_id = ? AND loop_n = ? ORDER BY seq`, runID, n)
+	if err != nil {
+		return record.Loop{}, err
+	}
+	l.Raw = make([]record.Sample, 0, nRaw)
+	for rows.Next() {
+		var r record.Sample
+		var t, tu int64
+		var ph string
+		var sp, i, v, psi, bp, tc sql.NullFloat64
+		if err := rows.Scan(&t, &tu, &ph, &sp, &i, &v, &psi, &bp, &tc); err != nil {
+			rows.Close()
+			return record.Loop{}, err
+		}
+		r.T, r.TUnc, r.Phase = time.Duration(t), time.Duration(tu), record.Phase(ph)
+		r.Setpoint, r.I, r.V, r.Psi, r.BProbe, r.TempC = floatOf(sp), floatOf(i), floatOf(v), floatOf(psi), floatOf(bp), floatOf(tc)
+		l.Raw = append(l.Raw, r)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return record.Loop{}, err
+	}
+
+	rows, err = tx.QueryContext(ctx, `SELECT t_ns, h_a_m, b_t, j_t, branch FROM points WHERE run_id = ? AND loop_n = ? ORDER BY seq`, runID, n)
+	if err != nil {
+		return record.Loop{}, err
+	}
+	l.Points = make([]record.Point, 0, nPts)
+	for rows.Next() {
+		var p record.Point
+		var t int64
+		var h, b, j sql.NullFloat64
+		if err := rows.Scan(&t, &h, &b, &j, &p.Branch); err != nil {
+			rows.Close()
+			return record.Loop{}, err
+		}
+		p.T, p.H, p.B, p.J = time.Duration(t), floatOf(h), floatOf(b), floatOf(j)
+		l.Points = append(l.Points, p)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return record.Loop{}, err
+	}
+	if err := readDerived(ctx, tx, &l); err != nil {
+		return record.Loop{}, err
+	}
+	return l, nil
+}
+
+// Events returns a run's events in the order they were added;
+// record.ErrNotFound for an unknown run.
+func (s *Store) Events(ctx context.Context, runID string) ([]record.Event, error) {
+	if _, err := s.Run(ctx, runID); err != nil {
+		return nil, err
+	}
+	rows, err := s.r.QueryContext(ctx, `SELECT at_ns, level, text FROM events WHERE run_id = ? ORDER BY id`, runID)
+	if err != nil {
+		return nil, fmt.Errorf("store: events of run %s: %w", runID, err)
+	}
+	defer rows.Close()
+	var out []record.Event
+	for rows.Next() {
+		e := record.Event{RunID: runID}
+		var at sql.NullInt64
+		if err := rows.Scan(&at, &e.Level, &e.Text); err != nil {
+			return nil, fmt.Errorf("store: events of run %s: %w", runID, err)
+		}
+		e.At = timeOf(at)
+		out = append(out, e)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("store: events of run %s: %w", runID, err)
+	}
+	return out, nil
+}
+
+// Trend returns figure values of one specimen across runs, oldest first,
+// for loops started at or after since (zero: all). The time of a point is
+// the loop's start, or the run's start when the loop has none.
+func (s *Store) Trend(ctx context.Context, specimen, figure string, since time.Time) ([]record.TrendPoint, error) {
+	var sinceNs int64 = -1 << 62
+	if !since.IsZero() {
+		sinceNs = since.UnixNano()
+	}
+	rows, err := s.r.QueryContext(ctx, `
+		SELECT l.run_id, l.n, COALESCE(l.started_ns, r.started_ns) AS at, f.value, f.u
+		FROM figures f
+		JOIN loops l ON l.run_id = f.run_id AND l.n = f.loop_n
+		JOIN runs r ON r.id = l.run_id
+		WHERE r.specimen = ? AND f.name = ? AND COALESCE(l.started_ns, r.started_ns, 0) >= ?
+		ORDER BY at, l.run_id, l.n, f.seq`, specimen, figure, sinceNs)
+	if err != nil {
+		return nil, fmt.Errorf("store: trend of %s for %s: %w", figure, specimen, err)
+	}
+	defer rows.Close()
+	var out []record.TrendPoint
+	for rows.Next() {
+		var p record.TrendPoint
+		var at sql.NullInt64
+		var v, u sql.NullFloat64
+		if err := rows.Scan(&p.RunID, &p.Loop, &at, &v, &u); err != nil {
+			return nil, fmt.Errorf("store: trend of %s for %s: %w", figure, specimen, err)
+		}
+		p.At, p.Value, p.U = timeOf(at), floatOf(v), floatOf(u)
+		out = append(out, p)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("store: trend of %s for %s: %w", figure, specimen, err)
+	}
+	return out, nil
+}

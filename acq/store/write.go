@@ -1,0 +1,237 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"fmt"
+	"strings"
+	"time"
+
+	"hystd/acq/record"
+)
+
+// CreateRun stores a new run. The ID must be non-empty and new (ErrExists
+// otherwise).
+func (s *Store) CreateRun(ctx context.Context, r record.Run) error {
+	if strings.TrimSpace(r.ID) == "" {
+		return errors.New("store: create run: empty run id")
+	}
+	if r.State == "" {
+		r.State = record.Queued
+	}
+	if err := checkState(r.State); err != nil {
+		return fmt.Errorf("store: create run %s: %w", r.ID, err)
+	}
+	_, err := s.w.ExecContext(ctx, `INSERT INTO runs
+		(id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+		r.ID, r.Recipe, r.RecipeText, r.Fixture, r.Specimen, r.Material, r.Config, r.ConfigHash, r.Software,
+		string(r.State), r.Reason, nsOf(r.Queued), nsOf(r.Started), nsOf(r.Ended))
+	if err != nil {
+		if isConstraint(err) {
+			return fmt.Errorf("store: create run %s: %w", r.ID, ErrExists)
+		}
+		return fmt.Errorf("store: create run %s: %w", r.ID, err)
+	}
+	return nil
+}
+
+func checkState(st record.State) error {
+	switch st {
+	case record.Queued, record.Running, record.Finished, record.Aborted, record.Failed:
+		return nil
+	}
+	return fmt.Errorf("unknown state %q", st)
+}
+
+// SetState moves a run to state st. Entering Running records at as the
+// start time (unless one is set); entering a final state records at as the
+// end time and reason. A run that has ended cannot change state again.
+func (s *Store) SetState(ctx context.Context, id string, st record.State, reason string, at time.Time) error {
+	if err := checkState(st); err != nil {
+		return fmt.Errorf("store: run %s: %w", id, err)
+	}
+	tx, err := s.w.BeginTx(ctx, nil)
+	if err != nil {
+		return fmt.Errorf("store: run %s: %w", id, err)
+	}
+	defer tx.Rollback()
+	var cur string
+	if err := tx.QueryRowContext(ctx, `SELECT state FROM runs WHERE id = ?`, id).Scan(&cur); err != nil {
+		if errors.Is(err, sql.ErrNoRows) {
+			return fmt.Errorf("store: run %s: %w", id, record.ErrNotFound)
+		}
+		return fmt.Errorf("store: run %s: %w", id, err)
+	}
+	if record.State(cur).Ended() {
+		return fmt.Errorf("store: run %s has already ended (%s); cannot set %s", id, cur, st)
+	}
+	switch {
+	case st == record.Running:
+		_, err = tx.ExecContext(ctx, `UPDATE runs SET state = ?, started_ns = COALESCE(started_ns, ?) WHERE id = ?`,
+			string(st), nsOf(at), id)
+	case st.Ended():
+		_, err = tx.ExecContext(ctx, `UPDATE runs SET state = ?, reason = ?, ended_ns = ? WHERE id = ?`,
+			string(st), reason, nsOf(at), id)
+	default:
+		_, err = tx.ExecContext(ctx, `UPDATE runs SET state = ? WHERE id = ?`, string(st), id)
+	}
+	if err != nil {
+		return fmt.Errorf("store: run %s: %w", id, err)
+	}
+	if err := tx.Commit(); err != nil {
+		return fmt.Errorf("store: run %s: %w", id, err)
+	}
+	return nil
+}
+
+// AddEvent appends an event to a run (record.ErrNotFound for an unknown run).
+func (s *Store) AddEvent(ctx context.Context, e record.Event) error {
+	_, err := s.w.ExecContext(ctx, `INSERT INTO events (run_id, at_ns, level, text) VALUES (?, ?, ?, ?)`,
+		e.RunID, nsOf(e.At), e.Level, e.Text)
+	if err != nil {
+		if isConstraint(err) {
+			return fmt.Errorf("store: event for run %s: %w", e.RunID, record.ErrNotFound)
+		}
+		return fmt.Errorf("store: event for run %s: %w", e.RunID, err)
+	}
+	return nil
+}
+
+// AddLoop commits a loop with its raw samples, corrected points, figures,
+// corrections and its outbox row in one transaction (synchronous=FULL: on
+// disk when it returns). The run must exist (record.ErrNotFound) and the
+// loop number must be new for the run (ErrExists); l.N starts at 1. On any
+// error nothing is stored.
+func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
+	if l.N < 1 {
+		return fmt.Errorf("store: loop of run %s: loop number %d, want ≥ 1", l.RunID, l.N)
+	}
+	tx, err := s.w.BeginTx(ctx, nil)
+	if err != nil {
+		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
+	}
+	defer tx.Rollback()
+	if err := addLoop(ctx, tx, l, s.now()); err != nil {
+		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
+	}
+	if err := tx.Commit(); err != nil {
+		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
+	}
+	return nil
+}
+
+// batchRows is how many rows one multi-row INSERT carries.
+const batchRows = 64
+
+func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) error {
+	var one int
+	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM runs WHERE id = ?`, l.RunID).Scan(&one); err != nil {
+		if errors.Is(err, sql.ErrNoRows) {
+			return fmt.Errorf("run: %w", record.ErrNotFound)
+		}
+		return err
+	}
+	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM loops WHERE run_id = ? AND n = ?`, l.RunID, l.N).Scan(&one); err == nil {
+		return ErrExists
+	} else if !errors.Is(err, sql.ErrNoRows) {
+		return err
+	}
+	if _, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?)`,
+		l.RunID, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points)); err != nil {
+		return err
+	}
+	raw := func(i int, a []any) []any {
+		r := l.Raw[i]
+		return append(a, l.RunID, l.N, i, int64(r.T), int64(r.TUnc), string(r.Phase),
+			real(r.Setpoint), real(r.I), real(r.V), real(r.Psi), real(r.BProbe), real(r.TempC))
+	}
+	if err := insertRows(ctx, tx, "raw_samples (run_id, loop_n, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c)",
+		12, len(l.Raw), raw); err != nil {
+		return fmt.Errorf("raw samples: %w", err)
+	}
+	pt := func(i int, a []any) []any {
+		p := l.Points[i]
+		return append(a, l.RunID, l.N, i, int64(p.T), real(p.H), real(p.B), real(p.J), p.Branch)
+	}
+	if err := insertRows(ctx, tx, "points (run_id, loop_n, seq, t_ns, h_a_m, b_t, j_t, branch)", 8, len(l.Points), pt); err != nil {
+		return fmt.Errorf("points: %w", err)
+	}
+	fig := func(i int, a []any) []any {
+		f := l.Figures[i]
+		return append(a, l.RunID, l.N, i, f.Name, real(f.Value), real(f.U), f.Unit, f.Note)
+	}
+	if err := insertRows(ctx, tx, "figures (run_id, loop_n, seq, name, value, u, unit, note)", 8, len(l.Figures), fig); err != nil {
+		return fmt.Errorf("figures: %w", err)
+	}
+	cor := func(i int, a []any) []any {
+		c := l.Corrections[i]
+		return append(a, l.RunID, l.N, i, c.Name, real(c.Size), c.Unit, c.Note)
+	}
+	if err := insertRows(ctx, tx, "corrections (run_id, loop_n, seq, name, size, unit, note)", 7, len(l.Corrections), cor); err != nil {
+		return fmt.Errorf("corrections: %w", err)
+	}
+	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)`,
+		l.RunID, l.N, now.UnixNano(), now.UnixNano()); err != nil {
+		return fmt.Errorf("outbox: %w", err)
+	}
+	return nil
+}
+
+// insertRows inserts n rows of cols columns into table in multi-row
+// statements of batchRows rows; args appends row i's values.
+func insertRows(ctx context.Context, tx *sql.Tx, table string, cols, n int, args func(i int, a []any) []any) error {
+	if n == 0 {
+		return nil
+	}
+	build := func(rows int) string {
+		var b strings.Builder
+		b.WriteString("INSERT INTO ")
+		b.WriteString(table)
+		b.WriteString(" VALUES ")
+		row := "(" + strings.TrimSuffix(strings.Repeat("?,", cols), ",") + ")"
+		for i := 0; i < rows; i++ {
+			if i > 0 {
+				b.WriteByte(',')
+			}
+			b.WriteString(row)
+		}
+		return b.String()
+	}
+	full := n / batchRows
+	a := make([]any, 0, cols*batchRows)
+	if full > 0 {
+		st, err := tx.PrepareContext(ctx, build(batchRows))
+		if err != nil {
+			return err
+		}
+		defer st.Close()
+		for k := 0; k < full; k++ {
+			a = a[:0]
+			for i := k * batchRows; i < (k+1)*batchRows; i++ {
+				a = args(i, a)
+			}
+			if _, err := st.ExecContext(ctx, a...); err != nil {
+				return err
+			}
+		}
+	}
+	if rest := n - full*batchRows; rest > 0 {
+		a = a[:0]
+		for i := full * batchRows; i < n; i++ {
+			a = args(i, a)
+		}
+		if _, err := tx.ExecContext(ctx, build(rest), a...); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// isConstraint reports a SQLite constraint violation (unique, foreign key).
+func isConstraint(err error) bool {
+	var ce interface{ Code() int }
+	return errors.As(err, &ce) && ce.Code()&0xff == 19 // SQLITE_CONSTRAINT
+}
