@@ -1,0 +1,243 @@
+// Package safety holds the checks the engine runs on every sample against a
+// fixture's hard limits: current, compliance voltage, dI/dt, winding
+// temperature and resistance rise, field-meter reading, integrator overload,
+// supply status, instrument errors and lost communication.
+//
+// The checks are pure: a Checker keeps only the short history it needs
+// (dI/dt, sustained resistance rise) and does no I/O. A Checker is not safe
+// for concurrent use; the engine owns one per run.
+package safety
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"hystd/acq/config"
+	"hystd/drivers/instr"
+)
+
+// Tolerances of the read-back checks: the limits are hard, but read-back
+// values carry the meter's error, so a reading must exceed the limit by
+// more than these before it counts as crossed.
+const (
+	// CurrentTolerance is the relative margin on max_current_a (2 %) plus
+	// CurrentToleranceA.
+	CurrentTolerance  = 0.02
+	CurrentToleranceA = 0.005
+	// SlewMargin is the factor on max_slew_a_per_s a measured dI/dt may reach
+	// (the supply's own slew ripple), plus the read-back noise SlewNoiseA
+	// over the window.
+	SlewMargin = 1.25
+	SlewNoiseA = 0.01
+	// SlewWindow is the span over which dI/dt is measured.
+	SlewWindow = 100 * time.Millisecond
+	// ResistanceSamples is how many consecutive samples the resistance must
+	// stay above its limit; one noisy sample does not end a run.
+	ResistanceSamples = 5
+)
+
+// Limits are the hard limits one run is checked against; a zero limit is not checked.
+type Limits struct {
+	MaxCurrent        float64 // A
+	MaxVoltage        float64 // V
+	MaxSlew           float64 // A/s
+	MaxTempC          float64 // °C
+	MaxResistanceRise float64 // fraction of R0
+	MaxField          float64 // T, field-meter reading
+	R0                float64 // Ω, winding resistance at 20 °C
+	L                 float64 // H, winding inductance
+}
+
+// LimitsOf returns the limits of a fixture.
+func LimitsOf(fx config.Fixture) Limits {
+	return Limits{
+		MaxCurrent:        fx.Limits.MaxCurrentA,
+		MaxVoltage:        fx.Limits.MaxVoltageV,
+		MaxSlew:           fx.Limits.MaxSlewAPerS,
+		MaxTempC:          fx.Limits.MaxWindingTempC,
+		MaxResistanceRise: fx.Limits.MaxResistanceRise,
+		MaxField:          fx.Limits.MaxFieldT,
+		R0:                fx.Winding.ResistanceOhm,
+		L:                 fx.Winding.InductanceH,
+	}
+}
+
+// Observation is what one sample tells about the fixture. Absent channels are NaN.
+type Observation struct {
+	T      time.Duration // since the run started
+	I      float64       // A
+	V      float64       // V
+	BProbe float64       // T
+	TempC  float64       // °C
+	// Status is the supply's status; HaveStatus false when it was not read.
+	Status     instr.SupplyStatus
+	HaveStatus bool
+	// Energised is true when the engine has turned the output on and expects it on.
+	Energised bool
+	Overload  bool // integrator overload
+}
+
+// Violation is a crossed limit. Limit is the config key of the limit, or a
+// short name of the condition ("supply.status", "integrator.overload").
+type Violation struct {
+	Limit string
+	Value float64 // NaN when the condition has no value
+	Max   float64
+	Unit  string
+	Text  string // a sentence for the run's reason
+}
+
+func (v *Violation) Error() string { return v.Text }
+
+// Checker checks observations against Limits.
+type Checker struct {
+	lim   Limits
+	hist  []obsIV // recent (T, I) within SlewWindow
+	rHigh int     // consecutive samples with R above its limit
+}
+
+type obsIV struct {
+	t time.Duration
+	i float64
+}
+
+// NewChecker returns a Checker for one run.
+func NewChecker(l Limits) *Checker { return &Checker{lim: l} }
+
+// Check returns the first limit o crosses, or nil.
+func (c *Checker) Check(o Observation) *Violation {
+	l := c.lim
+	if o.HaveStatus {
+		switch {
+		case o.Status.Tripped:
+			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply tripped: it shut its output down by itself"}
+		case o.Status.OverTemp:
+			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply reports over-temperature"}
+		case o.Status.Compliance:
+			return &Violation{Limit: "limits.max_voltage_v", Value: o.V, Max: l.MaxVoltage, Unit: "V",
+				Text: fmt.Sprintf("supply in voltage compliance at %.4g V: the current no longer follows the setpoint", o.V)}
+		case o.Energised && !o.Status.OutputOn:
+			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply output went off while the run had it on"}
+		}
+	}
+	if o.Overload {
+		return &Violation{Limit: "integrator.overload", Value: math.NaN(), Text: "integrator overload: the flux left the selected range"}
+	}
+	if l.MaxCurrent > 0 && !math.IsNaN(o.I) && math.Abs(o.I) > l.MaxCurrent*(1+CurrentTolerance)+CurrentToleranceA {
+		return &Violation{Limit: "limits.max_current_a", Value: o.I, Max: l.MaxCurrent, Unit: "A",
+			Text: fmt.Sprintf("current %.4g A crossed the fixture limit limits.max_current_a = %g A", o.I, l.MaxCurrent)}
+	}
+	if l.MaxVoltage > 0 && !math.IsNaN(o.V) && math.Abs(o.V) > l.MaxVoltage {
+		return &Violation{Limit: "limits.max_voltage_v", Value: o.V, Max: l.MaxVoltage, Unit: "V",
+			Text: fmt.Sprintf("voltage %.4g V crossed the fixture limit limits.max_voltage_v = %g V", o.V, l.MaxVoltage)}
+	}
+	if l.MaxField > 0 && !math.IsNaN(o.BProbe) && math.Abs(o.BProbe) > l.MaxField {
+		return &Violation{Limit: "limits.max_field_t", Value: o.BProbe, Max: l.MaxField, Unit: "T",
+			Text: fmt.Sprintf("field-meter reading %.4g T crossed the fixture limit limits.max_field_t = %g T", o.BProbe, l.MaxField)}
+	}
+	if l.MaxTempC > 0 && !math.IsNaN(o.TempC) && o.TempC > l.MaxTempC {
+		return &Violation{Limit: "limits.max_winding_temp_c", Value: o.TempC, Max: l.MaxTempC, Unit: "°C",
+			Text: fmt.Sprintf("winding temperature %.4g °C crossed the fixture limit limits.max_winding_temp_c = %g °C", o.TempC, l.MaxTempC)}
+	}
+	prev, hadPrev := c.last()
+	didt, ok := c.slew(o)
+	if l.MaxSlew > 0 {
+		// over the window (slow drifts past the limit) and from the previous
+		// sample (a collapse within one period), each with its noise allowance
+		check := func(di float64, span time.Duration) *Violation {
+			sec := float64(span) / float64(time.Second)
+			rate := di / sec
+			if sec > 0 && math.Abs(rate) > l.MaxSlew*SlewMargin+2*SlewNoiseA/sec {
+				return &Violation{Limit: "limits.max_slew_a_per_s", Value: rate, Max: l.MaxSlew, Unit: "A/s",
+					Text: fmt.Sprintf("current changed at %.4g A/s, beyond the fixture limit limits.max_slew_a_per_s = %g A/s", rate, l.MaxSlew)}
+			}
+			return nil
+		}
+		if ok {
+			if v := check(o.I-c.hist[0].i, o.T-c.hist[0].t); v != nil {
+				return v
+			}
+		}
+		if hadPrev && !math.IsNaN(o.I) {
+			if v := check(o.I-prev.i, o.T-prev.t); v != nil {
+				return v
+			}
+		}
+	}
+	if v := c.resistance(o, didt, ok); v != nil {
+		return v
+	}
+	return nil
+}
+
+// last returns the previous sample's (T, I).
+func (c *Checker) last() (obsIV, bool) {
+	if len(c.hist) == 0 {
+		return obsIV{}, false
+	}
+	return c.hist[len(c.hist)-1], true
+}
+
+// slew records o and returns dI/dt over the last SlewWindow, when at least
+// half a window is covered.
+func (c *Checker) slew(o Observation) (float64, bool) {
+	if math.IsNaN(o.I) {
+		return 0, false
+	}
+	c.hist = append(c.hist, obsIV{o.T, o.I})
+	k := 0
+	for k < len(c.hist)-1 && o.T-c.hist[k+1].t >= SlewWindow {
+		k++
+	}
+	c.hist = c.hist[k:]
+	first := c.hist[0]
+	if o.T-first.t < SlewWindow/2 {
+		return 0, false
+	}
+	return (o.I - first.i) / (float64(o.T-first.t) / float64(time.Second)), true
+}
+
+// resistance estimates R = (V − L·dI/dt)/I while the current is large enough
+// to give a meaningful value, and reports a rise sustained over
+// ResistanceSamples samples.
+func (c *Checker) resistance(o Observation, didt float64, ok bool) *Violation {
+	l := c.lim
+	if l.MaxResistanceRise <= 0 || l.R0 <= 0 || !ok || math.IsNaN(o.V) {
+		return nil
+	}
+	floor := math.Max(0.05, 0.1*l.MaxCurrent)
+	if math.Abs(o.I) < floor {
+		c.rHigh = 0
+		return nil
+	}
+	r := (o.V - l.L*didt) / o.I
+	rise := r/l.R0 - 1
+	if rise <= l.MaxResistanceRise {
+		c.rHigh = 0
+		return nil
+	}
+	c.rHigh++
+	if c.rHigh < ResistanceSamples {
+		return nil
+	}
+	return &Violation{Limit: "limits.max_resistance_rise", Value: rise, Max: l.MaxResistanceRise, Unit: "",
+		Text: fmt.Sprintf("winding resistance %.4g Ω is %.1f %% above %g Ω, beyond the fixture limit limits.max_resistance_rise = %g (the winding is heating)",
+			r, 100*rise, l.R0, l.MaxResistanceRise)}
+}
+
+// Comm turns an instrument I/O error into the Violation a run ends with:
+// no reply within the comm timeout, a lost port, or the instrument's own error.
+func Comm(role string, err error) *Violation {
+	var v *Violation
+	if errors.As(err, &v) {
+		return v
+	}
+	text := fmt.Sprintf("lost communication with the %s: %v", role, err)
+	if errors.Is(err, context.DeadlineExceeded) {
+		text = fmt.Sprintf("no reply from the %s within limits.comm_timeout: %v", role, err)
+	}
+	return &Violation{Limit: "comm." + role, Value: math.NaN(), Text: text}
+}
