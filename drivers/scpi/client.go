@@ -1,0 +1,341 @@
+// Package scpi is a SCPI client over a byte stream (drivers/link on a real
+// port, scpitest in unit tests): commands and queries with configurable
+// terminators, numeric replies in the IEEE 488.2 forms with SCPI's special
+// values, arbitrary blocks, the IEEE 488.2 common commands, and the error
+// queue drained after every setting and returned as *InstrumentError.
+//
+// Transport errors pass through wrapped, so errors.Is(err, link.ErrTimeout)
+// and errors.Is(err, link.ErrDisconnected) keep working above this layer.
+package scpi
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"strings"
+	"time"
+
+	"hystd/drivers/link"
+)
+
+// Stream is a byte stream with context-aware I/O; *link.Conn is one.
+// Read returns at least one byte or an error (a timeout is an error
+// matching link.ErrTimeout, never (0, nil)).
+type Stream interface {
+	Read(ctx context.Context, p []byte) (int, error)
+	Write(ctx context.Context, p []byte) (int, error)
+}
+
+// Options configure a Client; zero fields take the defaults given.
+type Options struct {
+	Name       string // used in logs; e.g. the profile name
+	WriteTerm  string // appended to each command; default "\n"
+	ReadTerm   string // ends each reply; default "\n"
+	ErrorQuery string // e.g. "SYST:ERR?"; "" when the instrument has no error queue
+	MaxReply   int    // longest reply line in bytes; default 64 KiB
+	MaxErrors  int    // most queue entries drained at once; default 32
+	// Log receives one Debug record per exchange (command, reply, round
+	// trip); nil logs nothing.
+	Log *slog.Logger
+	// Now is the clock used for Reply stamps; nil is time.Now (monotonic).
+	Now func() time.Time
+}
+
+// Client speaks SCPI over one Stream. It is not safe for concurrent use:
+// one goroutine owns a Client (and its instrument). The caller owns and
+// closes the Stream.
+type Client struct {
+	s     Stream
+	o     Options
+	buf   []byte // bytes read beyond the last reply
+	stale bool   // an exchange broke off: a late reply may still arrive
+	rbuf  []byte
+}
+
+// New returns a Client on s.
+func New(s Stream, o Options) *Client {
+	if o.WriteTerm == "" {
+		o.WriteTerm = "\n"
+	}
+	if o.ReadTerm == "" {
+		o.ReadTerm = "\n"
+	}
+	if o.MaxReply <= 0 {
+		o.MaxReply = 64 << 10
+	}
+	if o.MaxErrors <= 0 {
+		o.MaxErrors = 32
+	}
+	if o.Log == nil {
+		o.Log = slog.New(slog.DiscardHandler)
+	}
+	if o.Now == nil {
+		o.Now = time.Now
+	}
+	return &Client{s: s, o: o, rbuf: make([]byte, 512)}
+}
+
+// Options returns the options in effect (defaults filled in).
+func (c *Client) Options() Options { return c.o }
+
+// Reply is a reply with the times its request was sent and it was received.
+type Reply struct {
+	Text     string // terminator removed
+	Sent     time.Time
+	Received time.Time
+}
+
+// Mid returns the midpoint of the exchange, the best estimate of when the
+// instrument took the reading, and half the round trip, its uncertainty.
+func (r Reply) Mid() (time.Time, time.Duration) {
+	half := r.Received.Sub(r.Sent) / 2
+	return r.Sent.Add(half), half
+}
+
+// Write sends one command (the terminator is appended). It does not read
+// the error queue; use Set for settings.
+func (c *Client) Write(ctx context.Context, cmd string) error {
+	if err := c.resync(ctx); err != nil {
+		return err
+	}
+	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
+		c.stale = true
+		c.o.Log.Debug("scpi write failed", "instr", c.o.Name, "cmd", cmd, "err", err)
+		return fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	c.o.Log.Debug("scpi write", "instr", c.o.Name, "cmd", cmd)
+	return nil
+}
+
+// Set sends a setting and then drains the error queue; a non-empty queue is
+// returned as *InstrumentError.
+func (c *Client) Set(ctx context.Context, cmd string) error {
+	if err := c.Write(ctx, cmd); err != nil {
+		return err
+	}
+	return c.DrainErrors(ctx, cmd)
+}
+
+// Query sends a query and returns its reply line.
+func (c *Client) Query(ctx context.Context, cmd string) (string, error) {
+	r, err := c.QueryTimed(ctx, cmd)
+	return r.Text, err
+}
+
+// QueryTimed sends a query and returns its reply with the send and
+// receive times (monotonic clock).
+func (c *Client) QueryTimed(ctx context.Context, cmd string) (Reply, error) {
+	if err := c.resync(ctx); err != nil {
+		return Reply{}, err
+	}
+	sent := c.o.Now()
+	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
+		c.stale = true
+		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "err", err)
+		return Reply{}, fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	line, err := c.readLine(ctx)
+	got := c.o.Now()
+	if err != nil {
+		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "partial", string(line), "err", err)
+		return Reply{}, fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	c.o.Log.Debug("scpi query", "instr", c.o.Name, "cmd", cmd, "reply", line, "rtt", got.Sub(sent))
+	return Reply{Text: line, Sent: sent, Received: got}, nil
+}
+
+// QueryNumber sends a query and parses the reply with ParseNumber.
+func (c *Client) QueryNumber(ctx context.Context, cmd string) (float64, error) {
+	s, err := c.Query(ctx, cmd)
+	if err != nil {
+		return 0, err
+	}
+	v, err := ParseNumber(s)
+	if err != nil {
+		return 0, fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	return v, nil
+}
+
+// QueryBlock sends a query whose reply is an arbitrary block and returns
+// the block's data; the read terminator after a definite-length block is
+// consumed when present.
+func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
+	if err := c.resync(ctx); err != nil {
+		return nil, err
+	}
+	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
+		c.stale = true
+		return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	for {
+		data, rest, err := ParseBlock(c.buf, c.o.ReadTerm)
+		if err == nil {
+			out := bytes.Clone(data)
+			c.buf = append(c.buf[:0], rest...)
+			if len(c.buf) > 0 && len(c.buf) < len(c.o.ReadTerm) && strings.HasPrefix(c.o.ReadTerm, string(c.buf)) {
+				if err := c.fill(ctx); err != nil {
+					return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+				}
+			}
+			c.buf = bytes.TrimPrefix(c.buf, []byte(c.o.ReadTerm))
+			c.o.Log.Debug("scpi block", "instr", c.o.Name, "cmd", cmd, "bytes", len(out))
+			return out, nil
+		}
+		if !errors.Is(err, ErrShortBlock) {
+			c.stale = true
+			return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+		}
+		if len(c.buf) > MaxBlock+32 {
+			c.stale = true
+			return nil, fmt.Errorf("scpi %q: block longer than %d bytes", cmd, MaxBlock)
+		}
+		if err := c.fill(ctx); err != nil {
+			return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+		}
+	}
+}
+
+// DrainErrors reads the error queue until it reports code 0 and returns
+// what it held as *InstrumentError (nil when empty). after names the
+// command the errors are attributed to. Without an ErrorQuery it returns nil.
+func (c *Client) DrainErrors(ctx context.Context, after string) error {
+	if c.o.ErrorQuery == "" {
+		return nil
+	}
+	var got []QueueEntry
+	for range c.o.MaxErrors {
+		s, err := c.Query(ctx, c.o.ErrorQuery)
+		if err != nil {
+			return fmt.Errorf("reading the error queue after %q: %w", after, err)
+		}
+		e, err := ParseQueueEntry(s)
+		if err != nil {
+			c.stale = true
+			return fmt.Errorf("reading the error queue after %q: %w", after, err)
+		}
+		if e.Code == 0 {
+			if len(got) == 0 {
+				return nil
+			}
+			return &InstrumentError{Command: after, Code: got[0].Code, Msg: got[0].Msg, More: got[1:]}
+		}
+		got = append(got, e)
+	}
+	return &InstrumentError{Command: after, Code: got[0].Code, Msg: got[0].Msg,
+		More: append(got[1:], QueueEntry{Code: 0, Msg: fmt.Sprintf("queue not empty after %d reads", c.o.MaxErrors)})}
+}
+
+// Identify sends *IDN? and returns the reply.
+func (c *Client) Identify(ctx context.Context) (string, error) { return c.Query(ctx, "*IDN?") }
+
+// Reset sends *RST and drains the error queue.
+func (c *Client) Reset(ctx context.Context) error { return c.Set(ctx, "*RST") }
+
+// Clear sends *CLS (clears the status registers and the error queue).
+func (c *Client) Clear(ctx context.Context) error { return c.Write(ctx, "*CLS") }
+
+// WaitComplete sends *OPC? and checks that the reply is 1.
+func (c *Client) WaitComplete(ctx context.Context) error {
+	s, err := c.Query(ctx, "*OPC?")
+	if err != nil {
+		return err
+	}
+	if v, err := ParseInt(s); err != nil || v != 1 {
+		return fmt.Errorf("scpi \"*OPC?\": %w", &ParseError{Reply: s, Want: "1"})
+	}
+	return nil
+}
+
+// EventStatus sends *ESR? and returns the standard event status register.
+func (c *Client) EventStatus(ctx context.Context) (int, error) { return c.queryInt(ctx, "*ESR?") }
+
+// StatusByte sends *STB? and returns the status byte.
+func (c *Client) StatusByte(ctx context.Context) (int, error) { return c.queryInt(ctx, "*STB?") }
+
+func (c *Client) queryInt(ctx context.Context, cmd string) (int, error) {
+	s, err := c.Query(ctx, cmd)
+	if err != nil {
+		return 0, err
+	}
+	v, err := ParseInt(s)
+	if err != nil {
+		return 0, fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	return v, nil
+}
+
+// Forget drops any buffered input and the record of a broken exchange;
+// call it after the stream was reconnected.
+func (c *Client) Forget() {
+	c.buf = c.buf[:0]
+	c.stale = false
+}
+
+// readLine returns the next reply line without its terminator.
+func (c *Client) readLine(ctx context.Context) (string, error) {
+	term := []byte(c.o.ReadTerm)
+	for {
+		if i := bytes.Index(c.buf, term); i >= 0 {
+			line := string(c.buf[:i])
+			c.buf = append(c.buf[:0], c.buf[i+len(term):]...)
+			return line, nil
+		}
+		if len(c.buf) > c.o.MaxReply {
+			partial := string(c.buf[:80])
+			c.buf = c.buf[:0]
+			c.stale = true
+			return partial, fmt.Errorf("reply longer than %d bytes without terminator %q", c.o.MaxReply, c.o.ReadTerm)
+		}
+		if err := c.fill(ctx); err != nil {
+			return string(c.buf), err
+		}
+	}
+}
+
+// fill reads once more into the buffer.
+func (c *Client) fill(ctx context.Context) error {
+	n, err := c.s.Read(ctx, c.rbuf)
+	c.buf = append(c.buf, c.rbuf[:n]...)
+	if err != nil {
+		c.stale = true
+		if errors.Is(err, io.EOF) {
+			return fmt.Errorf("%w: %w", link.ErrDisconnected, err)
+		}
+		return err
+	}
+	return nil
+}
+
+// resyncWindow is how long resync listens for a late reply.
+const resyncWindow = 5 * time.Millisecond
+
+// resync discards input left over from a broken exchange (a reply that
+// arrived after its timeout would otherwise answer the next query).
+func (c *Client) resync(ctx context.Context) error {
+	if !c.stale {
+		return nil
+	}
+	c.buf = c.buf[:0]
+	for {
+		rctx, cancel := context.WithTimeout(ctx, resyncWindow)
+		n, err := c.s.Read(rctx, c.rbuf)
+		cancel()
+		if n > 0 {
+			c.o.Log.Debug("scpi discarded late input", "instr", c.o.Name, "bytes", string(c.rbuf[:n]))
+		}
+		if err != nil {
+			if ctx.Err() != nil {
+				return ctx.Err()
+			}
+			if errors.Is(err, link.ErrTimeout) {
+				c.stale = false
+				return nil
+			}
+			return err
+		}
+	}
+}
