@@ -208,20 +208,19 @@ func Baseline(t, psi []float64, t0 float64, pre, post Rate) float64 {
 	return m
 }
 
-// Closure removes the closure error of a cyclic loop in place:
-// ε = B(ib) − B(ia) between two samples of the same magnetic state, removed
-// as B(t) −= ε·(t − t_a)/(t_b − t_a) over all samples (extrapolated outside
-// [t_a, t_b]). It returns ε in T.
-func Closure(t, b []float64, ia, ib int) (float64, error) {
-	if ia < 0 || ib >= len(b) || ib <= ia || !(t[ib] > t[ia]) {
-		return 0, fmt.Errorf("closure: need two samples in time order (got %d, %d of %d)", ia, ib, len(b))
+// Closure removes the closure error of a cyclic loop in place. eps (T) is
+// B(t_b) − B(t_a) between two moments ta < tb (s) of the same magnetic state
+// (two tips of the same kind); it is removed as B(t) −= eps·(t − ta)/(tb − ta)
+// over all samples, extrapolated outside [ta, tb].
+func Closure(t, b []float64, ta, tb, eps float64) error {
+	if !(tb > ta) || math.IsNaN(eps) || math.IsInf(eps, 0) {
+		return fmt.Errorf("closure: need ta < tb and a finite error (got %g, %g, %g)", ta, tb, eps)
 	}
-	eps := b[ib] - b[ia]
-	ta, span := t[ia], t[ib]-t[ia]
+	span := tb - ta
 	for i := range b {
 		b[i] -= eps * (t[i] - ta) / span
 	}
-	return eps, nil
+	return nil
 }
 
 // Center shifts B in place so that the loop's tips are symmetric:

@@ -52,11 +52,11 @@ func TestReferenceChecks(t *testing.T) {
 	for i := range bc {
 		bc[i] = 0.3 + 0.12*ts[i]/60 // closure error ε = 0.12 T over T = 60 s
 	}
-	eps, err := Closure(ts, bc, 0, 60)
-	if err != nil {
+	eps := bc[60] - bc[0]
+	near(t, "ε", eps, 0.12, 1e-12, "closure error B(T) − B(0)")
+	if err := Closure(ts, bc, 0, 60, eps); err != nil {
 		t.Fatal(err)
 	}
-	near(t, "ε", eps, 0.12, 1e-12, "closure error B(T) − B(0)")
 	near(t, "B(T/2) after closure", bc[30], 0.3, 1e-12, "removes ε/2 at T/2")
 
 	// 10. Centering: tips +2.10 T and −0.90 T → offset 0.60 T, tips ±1.50 T.
@@ -176,7 +176,7 @@ func TestAnchorAndClosureErrors(t *testing.T) {
 	if off := Anchor(b, 0); off != 0.2 || b[0] != 0 {
 		t.Errorf("anchor: %v %v", off, b)
 	}
-	if _, err := Closure([]float64{0, 1}, b, 1, 0); err == nil {
+	if err := Closure([]float64{0, 1}, b, 1, 0, 0.1); err == nil {
 		t.Error("reversed closure accepted")
 	}
 	if AirFlux(b, []float64{1, 1}, 40e-6, 50e-6) != 0 {

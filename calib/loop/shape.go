@@ -1,0 +1,307 @@
+// Package loop finds the branches of a recorded B–H loop and computes the
+// figures that magnetic test standards report, each with an uncertainty
+// budget. Pure numerics on float64 slices in SI units (s, A/m, T).
+//
+// Branches are found on H alone with a reversal threshold, so noise, a
+// partial first cycle, several cycles and uneven sampling are handled. Each
+// complete branch is averaged into bins of H (mean H, mean B per bin, kept
+// separately for even and odd samples); figures are read from these curves
+// by linear interpolation between bin means, never from the nearest sample.
+package loop
+
+import (
+	"errors"
+	"fmt"
+	"math"
+)
+
+// Branch labels of a sample.
+const (
+	Rising  = 1  // H increasing
+	Falling = -1 // H decreasing
+	Initial = 0  // initial curve, or a piece not attributed to a branch
+)
+
+// ReversalFraction is the fraction of the H range that H must move back from
+// its running extremum before a reversal is declared; smaller excursions are
+// noise.
+const ReversalFraction = 0.1
+
+// completeFraction is how close (as a fraction of the H range) a branch must
+// start and end to the two tips to count as complete.
+const completeFraction = 0.05
+
+// tipFraction is the H band below a tip (fraction of the range) whose
+// samples are averaged into the tip's H and B.
+const tipFraction = 2e-4
+
+// Segment is a run of samples between two reversals of H, inclusive.
+type Segment struct {
+	Start, End int
+	Dir        int  // Rising or Falling
+	Complete   bool // runs from one tip to the other
+	Initial    bool // the first piece, starting near H = 0
+}
+
+// Tip is a reversal of H at a loop tip, with H and B averaged over the
+// samples within tipFraction of the range of the extremum.
+type Tip struct {
+	Index int
+	Top   bool // maximum of H (else minimum)
+	T     float64
+	H, B  float64
+	N     int // samples averaged
+}
+
+// Shape is the branch structure of one recorded loop.
+type Shape struct {
+	N        int // samples
+	Segments []Segment
+	Lo, Hi   float64 // extreme H in A/m
+}
+
+// ErrNoLoop is returned when H never reverses by more than the threshold.
+var ErrNoLoop = errors.New("no loop: H does not reverse")
+
+// Detect finds the segments of h. It needs at least 3 finite samples and
+// one reversal of H by ReversalFraction of its range.
+func Detect(h []float64) (Shape, error) {
+	n := len(h)
+	if n < 3 {
+		return Shape{}, fmt.Errorf("%w: %d samples", ErrNoLoop, n)
+	}
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for i, v := range h {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return Shape{}, fmt.Errorf("H[%d] is not a finite number", i)
+		}
+		lo, hi = math.Min(lo, v), math.Max(hi, v)
+	}
+	span := hi - lo
+	if !(span > 0) {
+		return Shape{}, fmt.Errorf("%w: H is constant", ErrNoLoop)
+	}
+	thr := ReversalFraction * span
+	// Find the first direction.
+	dir, ext, extI := 0, h[0], 0
+	var turns []int
+	for i := 1; i < n; i++ {
+		v := h[i]
+		switch dir {
+		case 0:
+			if v-h[0] > thr {
+				dir = Rising
+			} else if h[0]-v > thr {
+				dir = Falling
+			} else {
+				continue
+			}
+			ext, extI = v, i
+		case Rising:
+			if v > ext {
+				ext, extI = v, i
+			} else if ext-v > thr {
+				turns = append(turns, extI)
+				dir, ext, extI = Falling, v, i
+			}
+		case Falling:
+			if v < ext {
+				ext, extI = v, i
+			} else if v-ext > thr {
+				turns = append(turns, extI)
+				dir, ext, extI = Rising, v, i
+			}
+		}
+	}
+	if dir == 0 {
+		return Shape{}, fmt.Errorf("%w by %.0f %% of its range", ErrNoLoop, 100*ReversalFraction)
+	}
+	// The last segment ends at the last extremum; the samples after it moved
+	// back by less than the threshold (noise, or the start of a reversal)
+	// and are labelled with the last segment's direction.
+	s := Shape{N: n, Lo: lo, Hi: hi}
+	start := 0
+	bounds := append(turns, extI)
+	for _, end := range bounds {
+		if end <= start {
+			continue
+		}
+		d := Rising
+		if h[end] < h[start] {
+			d = Falling
+		}
+		s.Segments = append(s.Segments, Segment{Start: start, End: end, Dir: d})
+		start = end
+	}
+	band := completeFraction * span
+	for k := range s.Segments {
+		g := &s.Segments[k]
+		a, b := h[g.Start], h[g.End]
+		if g.Dir == Rising {
+			g.Complete = a-lo <= band && hi-b <= band
+		} else {
+			g.Complete = hi-a <= band && b-lo <= band
+		}
+		if k == 0 && !g.Complete && math.Abs(a) <= band {
+			g.Initial = true
+		}
+	}
+	return s, nil
+}
+
+// Labels returns the branch label of every sample (Rising, Falling or
+// Initial); a sample shared by two segments takes the later one's label.
+// Pieces that are neither complete nor initial keep their direction.
+func (s Shape) Labels(dst []int) []int {
+	if cap(dst) < s.N {
+		dst = make([]int, s.N)
+	}
+	dst = dst[:s.N]
+	for _, g := range s.Segments {
+		l := g.Dir
+		if g.Initial {
+			l = Initial
+		}
+		for i := g.Start; i <= g.End; i++ {
+			dst[i] = l
+		}
+	}
+	if k := len(s.Segments); k > 0 {
+		g := s.Segments[k-1]
+		for i := g.End + 1; i < s.N; i++ {
+			dst[i] = g.Dir
+		}
+	}
+	return dst
+}
+
+// Complete returns the complete segments in time order.
+func (s Shape) Complete() []Segment {
+	var out []Segment
+	for _, g := range s.Segments {
+		if g.Complete {
+			out = append(out, g)
+		}
+	}
+	return out
+}
+
+// Cycles returns pairs of consecutive complete segments of opposite
+// direction, not sharing a segment: each pair is one full cycle.
+func (s Shape) Cycles() [][2]Segment {
+	var out [][2]Segment
+	for k := 0; k+1 < len(s.Segments); k++ {
+		a, b := s.Segments[k], s.Segments[k+1]
+		if a.Complete && b.Complete && a.Dir != b.Dir {
+			out = append(out, [2]Segment{a, b})
+			k++
+		}
+	}
+	return out
+}
+
+// Tips returns the tips at the ends of complete segments, in time order,
+// with H and B averaged over the samples next to each extremum whose H lies
+// within tipFraction of the range of it. t may be nil (index used as time).
+func (s Shape) Tips(t, h, b []float64) []Tip {
+	band := tipFraction * (s.Hi - s.Lo)
+	seen := map[int]bool{}
+	var out []Tip
+	for _, g := range s.Segments {
+		if !g.Complete {
+			continue
+		}
+		for _, i := range []int{g.Start, g.End} {
+			if seen[i] {
+				continue
+			}
+			seen[i] = true
+			top := i == g.End && g.Dir == Rising || i == g.Start && g.Dir == Falling
+			out = append(out, tipAt(t, h, b, i, top, band))
+		}
+	}
+	sortTips(out)
+	return out
+}
+
+func tipAt(t, h, b []float64, i int, top bool, band float64) Tip {
+	in := func(j int) bool {
+		if top {
+			return h[i]-h[j] <= band
+		}
+		return h[j]-h[i] <= band
+	}
+	tp := Tip{Index: i, Top: top}
+	for j := i; j >= 0 && in(j); j-- {
+		tp.add(t, h, b, j)
+	}
+	for j := i + 1; j < len(h) && in(j); j++ {
+		tp.add(t, h, b, j)
+	}
+	tp.H /= float64(tp.N)
+	tp.B /= float64(tp.N)
+	tp.T /= float64(tp.N)
+	return tp
+}
+
+func (tp *Tip) add(t, h, b []float64, j int) {
+	tp.N++
+	tp.H += h[j]
+	tp.B += b[j]
+	if t != nil {
+		tp.T += t[j]
+	} else {
+		tp.T += float64(j)
+	}
+}
+
+func sortTips(a []Tip) {
+	for i := 1; i < len(a); i++ {
+		for j := i; j > 0 && a[j].Index < a[j-1].Index; j-- {
+			a[j], a[j-1] = a[j-1], a[j]
+		}
+	}
+}
+
+// TipLevels returns the mean B of the top tips and of the bottom tips, for
+// centering; ok is false when either kind is missing.
+func TipLevels(tips []Tip) (top, bottom float64, ok bool) {
+	var nt, nb int
+	for _, tp := range tips {
+		if tp.Top {
+			top += tp.B
+			nt++
+		} else {
+			bottom += tp.B
+			nb++
+		}
+	}
+	if nt == 0 || nb == 0 {
+		return 0, 0, false
+	}
+	return top / float64(nt), bottom / float64(nb), true
+}
+
+// ClosurePair returns the first and last tips of the same kind that are
+// furthest apart in time: the magnetic state at both is the same in a cyclic
+// loop. ok is false when no kind has two tips.
+func ClosurePair(tips []Tip) (a, b Tip, ok bool) {
+	best := -1.0
+	for _, top := range []bool{true, false} {
+		first, last := -1, -1
+		for k, tp := range tips {
+			if tp.Top == top {
+				if first < 0 {
+					first = k
+				}
+				last = k
+			}
+		}
+		if first >= 0 && last > first {
+			if d := tips[last].T - tips[first].T; d > best {
+				best, a, b, ok = d, tips[first], tips[last], true
+			}
+		}
+	}
+	return a, b, ok
+}
