@@ -1,0 +1,447 @@
+package engine
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"strings"
+	"time"
+
+	"hystd/acq/live"
+	"hystd/acq/recipe"
+	"hystd/acq/record"
+	"hystd/acq/safety"
+	"hystd/calib/units"
+)
+
+// Timeouts of the engine's own bookkeeping, independent of the run's context.
+const (
+	// DefaultCommTimeout bounds one sample round when the fixture names no comm_timeout.
+	DefaultCommTimeout = 2 * time.Second
+	// WriteTimeout bounds one store call.
+	WriteTimeout = 30 * time.Second
+	// HaltMargin is added to the ramp-down time |I|/slew when bounding Halt.
+	HaltMargin = 15 * time.Second
+	// progressEvery is the spacing of progress events within a step.
+	progressEvery = 500 * time.Millisecond
+	// unreachableAfter ends a closed-loop run whose current has sat at the
+	// fixture's limit this long without reaching the field setpoint.
+	unreachableAfter = time.Second
+	// fieldCorrection is the fraction of the field error corrected per period.
+	fieldCorrection = 0.5
+)
+
+type exec struct {
+	p      *Plan
+	s      Setup
+	log    *slog.Logger
+	check  *safety.Checker
+	start  time.Time
+	comm   time.Duration
+	loopN  int
+	done   time.Duration // planned time of the steps before the current one
+	energd bool          // output turned on by this run
+	lastI  float64       // last current read back, A
+	lastH  float64       // last measured H, A/m
+	icmd   float64       // commanded current in closed loop, A
+	pinned time.Duration // time the closed-loop current has sat at the limit
+	// lastLevel is the previous closed-loop setpoint, A/m.
+	lastLevel float64
+	haveLevel bool
+	failed    []record.Loop // loops the writer refused
+	notes     []string      // added to the final reason
+}
+
+func newExec(p *Plan) *exec {
+	comm := p.s.Fixture.Limits.CommTimeout.D()
+	if comm <= 0 {
+		comm = DefaultCommTimeout
+	}
+	return &exec{p: p, s: p.s, log: p.s.Log.With("run", p.run.ID, "fixture", p.run.Fixture),
+		check: safety.NewChecker(safety.LimitsOf(p.s.Fixture)), comm: comm}
+}
+
+// bg returns a context that outlives ctx's cancellation, bounded by d: for
+// the halt and the record, which must happen after an abort too.
+func bg(ctx context.Context, d time.Duration) (context.Context, context.CancelFunc) {
+	return context.WithTimeout(context.WithoutCancel(ctx), d)
+}
+
+func (x *exec) event(ctx context.Context, level, format string, args ...any) {
+	text := fmt.Sprintf(format, args...)
+	switch level {
+	case "error":
+		x.log.Error(text)
+	case "warn":
+		x.log.Warn(text)
+	default:
+		x.log.Info(text)
+	}
+	wctx, cancel := bg(ctx, WriteTimeout)
+	defer cancel()
+	if err := x.s.Writer.AddEvent(wctx, record.Event{RunID: x.p.run.ID, At: x.s.Clock.Now(), Level: level, Text: text}); err != nil {
+		x.log.Error("event not stored", "err", err, "text", text)
+	}
+}
+
+func (x *exec) setState(ctx context.Context, st record.State, reason string, at time.Time) {
+	wctx, cancel := bg(ctx, WriteTimeout)
+	defer cancel()
+	if err := x.s.Writer.SetState(wctx, x.p.run.ID, st, reason, at); err != nil {
+		x.log.Error("run state not stored", "state", st, "reason", reason, "err", err)
+		x.notes = append(x.notes, fmt.Sprintf("state %s not stored: %v", st, err))
+	}
+	x.p.publish(live.Event{Kind: live.KindState, State: st, Reason: reason, At: at})
+}
+
+// steps runs the whole plan; its error says why it stopped early.
+func (x *exec) steps(ctx context.Context) error {
+	x.start = x.s.Clock.Now()
+	x.p.run.State, x.p.run.Started = record.Running, x.start
+	x.setState(ctx, record.Running, "", x.start)
+	sup := x.s.Instruments.Supply
+
+	// A supply found energised is brought to zero before anything else.
+	cctx, cancel := context.WithTimeout(ctx, x.comm)
+	st, err := sup.Status(cctx)
+	cancel()
+	if err != nil {
+		return safety.Comm("supply", fmt.Errorf("read status: %w", err))
+	}
+	if st.OutputOn {
+		x.event(ctx, "warn", "supply found with its output on: ramping it to zero before the run starts")
+		if err := x.halt(ctx); err != nil {
+			return fmt.Errorf("supply found on and could not be brought to zero: %w", err)
+		}
+	}
+
+	peak := 0.0
+	for _, s := range x.p.Steps {
+		if !math.IsNaN(s.PeakCurrent) {
+			peak = math.Max(peak, s.PeakCurrent)
+		} else {
+			peak = math.Max(peak, x.s.Fixture.Limits.MaxCurrentA)
+		}
+	}
+	x.event(ctx, "warn", "%s", Caution(x.s.Fixture, peak))
+
+	cctx, cancel = context.WithTimeout(ctx, x.comm)
+	err = sup.SetCurrent(cctx, 0)
+	if err == nil {
+		x.energd = true // from here on the output may be on
+		err = sup.SetOutput(cctx, true)
+	}
+	cancel()
+	if err != nil {
+		return safety.Comm("supply", fmt.Errorf("turn output on: %w", err))
+	}
+	for i := range x.p.Steps {
+		if err := x.step(ctx, x.p.Steps[i]); err != nil {
+			return err
+		}
+		x.done += x.p.Steps[i].Duration()
+	}
+	return nil
+}
+
+// hOf is the measured H of a sample: from the current on a closed circuit,
+// from the probe beside the specimen otherwise.
+func (x *exec) hOf(s record.Sample) float64 {
+	if x.s.Fixture.HFrom == "current" {
+		if r := x.s.Geometry.AmperePerAm(); r > 0 {
+			return s.I / r
+		}
+		return math.NaN()
+	}
+	return s.BProbe / units.Mu0
+}
+
+// command returns the current to set for the level of a step.
+func (x *exec) command(st recipe.Step, level float64) (float64, error) {
+	if st.Control != recipe.ControlField {
+		return level, nil
+	}
+	h := x.lastH
+	if math.IsNaN(h) {
+		return 0, &safety.Violation{Limit: "h_from", Value: math.NaN(), Text: "control: field needs a measured H, and none was read"}
+	}
+	// Feed the setpoint's change forward and correct half the last error:
+	// with the exact gain the first term alone tracks a ramp; the second
+	// removes what the gain or the specimen's curvature leave, without the
+	// overshoot a full correction of a lagging reading would give.
+	prev := x.lastLevel
+	if !x.haveLevel {
+		prev = h
+	}
+	i := x.icmd + st.FieldGain*(level-prev) + fieldCorrection*st.FieldGain*(prev-h)
+	x.lastLevel, x.haveLevel = level, true
+	step := x.s.Fixture.Limits.MaxSlewAPerS * st.Period.Seconds()
+	if step > 0 {
+		i = math.Max(x.icmd-step, math.Min(x.icmd+step, i))
+	}
+	pinned := false
+	if m := x.s.Fixture.Limits.MaxCurrentA; m > 0 && math.Abs(i) > m {
+		i = math.Copysign(m, i)
+		pinned = true
+	}
+	if pinned {
+		x.pinned += st.Period
+		if x.pinned >= unreachableAfter {
+			return 0, &safety.Violation{Limit: "limits.max_current_a", Value: i, Max: x.s.Fixture.Limits.MaxCurrentA, Unit: "A",
+				Text: fmt.Sprintf("field setpoint %.4g A/m not reached (measured %.4g A/m) with the current at the fixture limit limits.max_current_a = %g A", level, h, x.s.Fixture.Limits.MaxCurrentA)}
+		}
+	} else {
+		x.pinned = 0
+	}
+	x.icmd = i
+	return i, nil
+}
+
+func (x *exec) step(ctx context.Context, st recipe.Step) error {
+	n := len(x.p.Steps)
+	x.event(ctx, "info", "step %d/%d %s (%s) started, planned %s", st.N, n, st.Kind, st.Source, st.Duration())
+	x.progress(st, 0)
+	var raw, drift []record.Sample
+	var loopStart time.Time
+	stepStart := x.s.Clock.Now()
+	lastProgress := stepStart
+	prevPhase := record.Phase("")
+	in := x.s.Instruments
+	for {
+		now := x.s.Clock.Now()
+		t := now.Sub(stepStart)
+		level, phase, done := st.At(t)
+		if st.Loop != nil && phase == record.PreHold && prevPhase != record.PreHold {
+			loopStart = now
+			if in.Integrator != nil { // the field is static: zero the integrator
+				cctx, cancel := context.WithTimeout(ctx, x.comm)
+				err := in.Integrator.Reset(cctx)
+				cancel()
+				if err != nil {
+					return x.stopErr(ctx, safety.Comm("integrator", fmt.Errorf("reset: %w", err)))
+				}
+			}
+		}
+		prevPhase = phase
+		set, err := x.command(st, level)
+		if err != nil {
+			return err
+		}
+		cctx, cancel := context.WithTimeout(ctx, x.comm)
+		rd, err := sampleAll(cctx, in, &set)
+		cancel()
+		if err != nil {
+			return x.stopErr(ctx, violationOf(err))
+		}
+		at := rd.at
+		if at.IsZero() {
+			at = x.s.Clock.Now()
+		}
+		s := rd.s
+		s.T, s.Phase, s.Setpoint = at.Sub(x.start), phase, level
+		x.lastI, x.lastH = s.I, x.hOf(s)
+		if v := x.check.Check(safety.Observation{T: s.T, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
+			Status: rd.status, HaveStatus: true, Energised: x.energd, Overload: rd.overload}); v != nil {
+			return v
+		}
+		if st.Loop != nil && phase != "" {
+			raw = append(raw, s)
+			x.liveSample(s)
+		}
+		if st.Kind == recipe.KindDriftHold && phase == record.PreHold {
+			drift = append(drift, s)
+		}
+		if now.Sub(lastProgress) >= progressEvery {
+			lastProgress = now
+			x.progress(st, t)
+		}
+		if done {
+			break
+		}
+		next := stepStart.Add((t/st.Period + 1) * st.Period)
+		if err := x.s.Clock.SleepUntil(ctx, next); err != nil {
+			return err
+		}
+	}
+	if st.Loop != nil {
+		x.storeLoop(ctx, st, raw, loopStart)
+	}
+	if len(drift) > 1 && x.s.Instruments.Integrator != nil {
+		rate, ok := slope(drift)
+		if ok {
+			x.event(ctx, "info", "drift hold (%s): integrator drift %.4g Wb-turns/s over %s", st.Source, rate, drift[len(drift)-1].T-drift[0].T)
+		}
+	}
+	return nil
+}
+
+// stopErr prefers the context's ending over an I/O error it caused.
+func (x *exec) stopErr(ctx context.Context, err error) error {
+	if ctx.Err() != nil {
+		return ctx.Err()
+	}
+	return err
+}
+
+func (x *exec) progress(st recipe.Step, t time.Duration) {
+	frac := 1.0
+	if x.p.total > 0 {
+		frac = math.Min(1, float64(x.done+min(t, st.Duration()))/float64(x.p.total))
+	}
+	x.p.publish(live.Event{Kind: live.KindProgress, Step: st.N, Steps: len(x.p.Steps),
+		StepName: fmt.Sprintf("%s (%s)", st.Kind, st.Source), Fraction: frac})
+}
+
+func (x *exec) liveSample(s record.Sample) {
+	if x.s.Live == nil {
+		return
+	}
+	b := 0.0
+	if a := float64(x.s.Area); a > 0 && x.s.Fixture.Winding.N2 > 0 {
+		b = s.Psi / (float64(x.s.Fixture.Winding.N2) * a)
+	}
+	x.p.publish(live.Event{Kind: live.KindSample, Loop: x.loopN + 1, T: s.T.Seconds(),
+		H: finite(x.hOf(s)), B: finite(b), I: finite(s.I)})
+}
+
+// slope is the least-squares dψ/dt of samples, Wb-turns/s.
+func slope(ss []record.Sample) (float64, bool) {
+	var n, st, sp, stt, stp float64
+	for _, s := range ss {
+		if math.IsNaN(s.Psi) {
+			continue
+		}
+		t := s.T.Seconds()
+		n++
+		st += t
+		sp += s.Psi
+		stt += t * t
+		stp += t * s.Psi
+	}
+	d := n*stt - st*st
+	if n < 2 || d == 0 {
+		return 0, false
+	}
+	return (n*stp - st*sp) / d, true
+}
+
+// storeLoop processes and commits one completed loop; a loop the writer
+// refuses is kept for a retry at the end of the run.
+func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sample, started time.Time) {
+	x.loopN++
+	l := record.Loop{RunID: x.p.run.ID, N: x.loopN, Kind: st.Loop.Kind, Amplitude: st.Loop.Amplitude,
+		AmpUnit: st.Loop.AmpUnit, Started: started, Raw: raw}
+	if x.s.Process == nil {
+		x.event(ctx, "warn", "loop %d stored raw only: no processing configured", l.N)
+	} else if pr, err := x.s.Process(raw, *st.Loop); err != nil {
+		x.event(ctx, "warn", "loop %d stored raw only: processing failed: %v", l.N, err)
+	} else {
+		l.Points, l.Figures, l.Corrections = pr.Points, pr.Figures, pr.Corrections
+	}
+	wctx, cancel := bg(ctx, WriteTimeout)
+	defer cancel()
+	if err := x.s.Writer.AddLoop(wctx, l); err != nil {
+		x.log.Error("loop not committed; kept for a retry", "loop", l.N, "err", err)
+		x.failed = append(x.failed, l)
+		return
+	}
+	x.event(ctx, "info", "loop %d (%s, %d samples) committed", l.N, l.Kind, len(raw))
+}
+
+// end halts the instruments, retries refused loops, records the final state
+// and returns the run.
+func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
+	state, reason := classify(ctx, err)
+	if herr := x.halt(ctx); herr != nil {
+		state = record.Failed
+		x.notes = append(x.notes, fmt.Sprintf("RAMP-DOWN FAILED: %v — the winding may still carry current; bring the supply to zero by hand before touching the fixture", herr))
+	}
+	for _, l := range x.failed {
+		wctx, cancel := bg(ctx, WriteTimeout)
+		werr := x.s.Writer.AddLoop(wctx, l)
+		cancel()
+		if werr == nil {
+			continue
+		}
+		file, serr := spool(x.s.SpoolDir, l)
+		if serr != nil {
+			x.notes = append(x.notes, fmt.Sprintf("loop %d not committed (%v) and not spooled (%v)", l.N, werr, serr))
+		} else {
+			x.notes = append(x.notes, fmt.Sprintf("loop %d not committed (%v): kept in %s", l.N, werr, file))
+		}
+		state = record.Failed
+	}
+	if len(x.notes) > 0 {
+		reason = strings.TrimPrefix(reason+"; "+strings.Join(x.notes, "; "), "; ")
+	}
+	at := x.s.Clock.Now()
+	level := "info"
+	if state != record.Finished {
+		level = "error"
+		if state == record.Aborted {
+			level = "warn"
+		}
+	}
+	x.event(ctx, level, "run %s after %s: %s", state, at.Sub(x.start).Round(time.Millisecond), orDash(reason))
+	x.setState(ctx, state, reason, at)
+	x.p.run.State, x.p.run.Reason, x.p.run.Ended = state, reason, at
+	if state == record.Finished {
+		return x.p.run, nil
+	}
+	return x.p.run, &Stop{State: state, Reason: reason}
+}
+
+func orDash(s string) string {
+	if s == "" {
+		return "—"
+	}
+	return s
+}
+
+// halt ramps the supply to zero at its slew limit and turns it off, with a
+// context of its own, then reads back that it did; other roles are halted too.
+func (x *exec) halt(ctx context.Context) error {
+	sup := x.s.Instruments.Supply
+	slew := float64(sup.Limits().MaxSlew)
+	if slew <= 0 {
+		slew = x.s.Fixture.Limits.MaxSlewAPerS
+	}
+	d := HaltMargin
+	if i := math.Abs(x.lastI); slew > 0 && !math.IsNaN(i) {
+		d += time.Duration(i / slew * 2 * float64(time.Second))
+	}
+	hctx, cancel := bg(ctx, d)
+	defer cancel()
+	err := sup.Halt(hctx)
+	if err != nil {
+		x.log.Error("supply halt failed; trying again", "err", err)
+		err = sup.Halt(hctx)
+	}
+	for _, r := range []interface {
+		Halt(context.Context) error
+	}{x.s.Instruments.Integrator, x.s.Instruments.FieldMeter, x.s.Instruments.Thermometer} {
+		if r == nil {
+			continue
+		}
+		if herr := r.Halt(hctx); herr != nil {
+			x.log.Warn("instrument halt failed", "err", herr)
+		}
+	}
+	if err != nil {
+		return err
+	}
+	i, ierr := sup.ReadCurrent(hctx)
+	st, serr := sup.Status(hctx)
+	if e := errors.Join(ierr, serr); e != nil {
+		return fmt.Errorf("halted, but the read-back failed: %w", e)
+	}
+	x.lastI = i.Value
+	if tol := 0.01*x.s.Fixture.Limits.MaxCurrentA + 0.01; math.Abs(i.Value) > tol || st.OutputOn {
+		return fmt.Errorf("after the halt the supply reads %.4g A with output on = %v", i.Value, st.OutputOn)
+	}
+	x.energd = false
+	x.log.Info("supply at zero, output off", "current_a", i.Value)
+	return nil
+}

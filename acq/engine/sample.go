@@ -1,0 +1,170 @@
+package engine
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sync"
+	"time"
+
+	"hystd/acq/record"
+	"hystd/acq/safety"
+	"hystd/calib/units"
+	"hystd/drivers/instr"
+)
+
+// Instruments are the opened roles of one fixture. Supply is required; the
+// others may be nil when the fixture lacks them. The engine uses each from
+// one goroutine at a time; the caller keeps ownership and closes them.
+type Instruments struct {
+	Supply      instr.Supply
+	Integrator  instr.Integrator
+	FieldMeter  instr.FieldMeter
+	Thermometer instr.Thermometer
+}
+
+// reading is one concurrent read of every channel.
+type reading struct {
+	s        record.Sample
+	status   instr.SupplyStatus
+	overload bool
+	at       time.Time // mid-time of the supply's current reading
+}
+
+// roleError is an I/O error of one instrument role.
+type roleError struct {
+	role string
+	err  error
+}
+
+func (e *roleError) Error() string { return fmt.Sprintf("%s: %v", e.role, e.err) }
+func (e *roleError) Unwrap() error { return e.err }
+
+// sampleAll sets the supply (when set is non-nil) and reads every channel,
+// each instrument in its own goroutine, all started together. The first
+// error is returned as a *roleError.
+func sampleAll(ctx context.Context, in Instruments, set *float64) (reading, error) {
+	var (
+		r    reading
+		wg   sync.WaitGroup
+		mu   sync.Mutex
+		errs []error
+		ats  []instr.Reading
+	)
+	nan := math.NaN()
+	r.s = record.Sample{I: nan, V: nan, Psi: nan, BProbe: nan, TempC: nan}
+	fail := func(role string, err error) {
+		mu.Lock()
+		errs = append(errs, &roleError{role, err})
+		mu.Unlock()
+	}
+	keep := func(rd instr.Reading) {
+		mu.Lock()
+		ats = append(ats, rd)
+		mu.Unlock()
+	}
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		s := in.Supply
+		if set != nil {
+			if err := s.SetCurrent(ctx, units.Ampere(*set)); err != nil {
+				fail("supply", fmt.Errorf("set current %.6g A: %w", *set, err))
+				return
+			}
+		}
+		i, err := s.ReadCurrent(ctx)
+		if err != nil {
+			fail("supply", fmt.Errorf("read current: %w", err))
+			return
+		}
+		v, err := s.ReadVoltage(ctx)
+		if err != nil {
+			fail("supply", fmt.Errorf("read voltage: %w", err))
+			return
+		}
+		st, err := s.Status(ctx)
+		if err != nil {
+			fail("supply", fmt.Errorf("read status: %w", err))
+			return
+		}
+		r.s.I, r.s.V, r.status, r.at = i.Value, v.Value, st, i.At
+		keep(i)
+	}()
+	if in.Integrator != nil {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			p, err := in.Integrator.ReadFlux(ctx)
+			if err != nil {
+				fail("integrator", fmt.Errorf("read flux: %w", err))
+				return
+			}
+			o, err := in.Integrator.Overloaded(ctx)
+			if err != nil {
+				fail("integrator", fmt.Errorf("read overload: %w", err))
+				return
+			}
+			r.s.Psi, r.overload = p.Value, o
+			keep(p)
+		}()
+	}
+	if in.FieldMeter != nil {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			b, err := in.FieldMeter.ReadField(ctx)
+			if err != nil {
+				fail("field meter", fmt.Errorf("read field: %w", err))
+				return
+			}
+			r.s.BProbe = b.Value
+			keep(b)
+		}()
+	}
+	if in.Thermometer != nil {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			t, err := in.Thermometer.ReadTemperature(ctx)
+			if err != nil {
+				fail("thermometer", fmt.Errorf("read temperature: %w", err))
+				return
+			}
+			r.s.TempC = t.Value
+			keep(t)
+		}()
+	}
+	wg.Wait()
+	if len(errs) > 0 {
+		return r, errors.Join(errs...)
+	}
+	// The sample's time is the supply current's; its uncertainty covers the
+	// spread of the channels' mid-times and their own round trips.
+	var unc time.Duration
+	for _, a := range ats {
+		d := a.At.Sub(r.at)
+		if d < 0 {
+			d = -d
+		}
+		unc = max(unc, d+a.AtUncertainty)
+	}
+	r.s.TUnc = unc
+	return r, nil
+}
+
+// firstRole returns the role and error of the first failing instrument.
+func firstRole(err error) (string, error) {
+	var re *roleError
+	if errors.As(err, &re) {
+		return re.role, re.err
+	}
+	return "instruments", err
+}
+
+// violationOf turns a sampling error into the safety violation the run ends with.
+func violationOf(err error) *safety.Violation {
+	role, e := firstRole(err)
+	return safety.Comm(role, e)
+}
