@@ -15,7 +15,11 @@ type scpiError struct {
 	Msg  string
 }
 
-func (e scpiError) String() string { return fmt.Sprintf("%d,%q", e.Code, e.Msg) }
+// String renders the entry as an error-queue reply: the code, a comma and
+// the message as IEEE 488.2 string data (quotes doubled).
+func (e scpiError) String() string {
+	return fmt.Sprintf(`%d,"%s"`, e.Code, strings.ReplaceAll(e.Msg, `"`, `""`))
+}
 
 var (
 	errNone          = scpiError{0, "No error"}

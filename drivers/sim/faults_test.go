@@ -1,0 +1,183 @@
+package sim
+
+import (
+	"context"
+	"errors"
+	"os"
+	"strings"
+	"testing"
+	"time"
+
+	"hystd/drivers/link"
+	"hystd/drivers/scpi"
+)
+
+// faultBench is the demo bench with the given faults section appended.
+func faultBench(t *testing.T, faults string) Config {
+	t.Helper()
+	data, err := os.ReadFile("../../configs/bench-demo.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c, err := ParseBench("bench-test.yaml", append(data, []byte("faults:\n"+faults)...))
+	if err != nil {
+		t.Fatal(err)
+	}
+	return c
+}
+
+// driver opens a role's port through the project's own transport and SCPI
+// client (drivers/link, drivers/scpi), as the instrument drivers do.
+func driver(t *testing.T, b *Bench, role string) (*link.Conn, *scpi.Client) {
+	t.Helper()
+	conn, err := link.Open(context.Background(), link.Address{Path: b.Ports()[role]},
+		link.Settings{Baud: 115200, ReadTimeout: 150 * time.Millisecond},
+		link.Options{Backoff: link.Backoff{Initial: time.Millisecond, Max: 10 * time.Millisecond, Attempts: 50}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { conn.Close() })
+	return conn, scpi.New(conn, scpi.Options{Name: role, ErrorQuery: "SYST:ERR?"})
+}
+
+// TestFaultsSeenAsTypedErrors: each injected fault reaches the drivers as
+// the error type they decide on.
+func TestFaultsSeenAsTypedErrors(t *testing.T) {
+	ctx := context.Background()
+	t.Run("drop is a timeout", func(t *testing.T) {
+		b, _ := startBench(t, faultBench(t, "  - {role: thermometer, kind: drop, after_commands: 2}\n"))
+		_, c := driver(t, b, RoleThermometer)
+		if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); err != nil {
+			t.Fatalf("1st query: %v", err)
+		}
+		_, err := c.QueryNumber(ctx, "MEAS:TEMP?")
+		if !errors.Is(err, link.ErrTimeout) {
+			t.Fatalf("dropped reply: err = %v, want link.ErrTimeout", err)
+		}
+		if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); err != nil {
+			t.Errorf("after the drop: %v", err)
+		}
+	})
+	t.Run("garble is a parse error", func(t *testing.T) {
+		b, _ := startBench(t, faultBench(t, "  - {role: field_meter, kind: garble, after_commands: 1}\n"))
+		_, c := driver(t, b, RoleFieldMeter)
+		_, err := c.QueryNumber(ctx, "MEAS:FIEL?")
+		var pe *scpi.ParseError
+		if !errors.As(err, &pe) {
+			t.Fatalf("garbled reply: err = %v, want *scpi.ParseError", err)
+		}
+		if _, err := c.QueryNumber(ctx, "MEAS:FIEL?"); err != nil {
+			t.Errorf("after the garble: %v", err)
+		}
+	})
+	t.Run("delay is a timeout, then the late reply is discarded", func(t *testing.T) {
+		b, clk := startBench(t, faultBench(t, "  - {role: thermometer, kind: delay, delay: 5s, after_commands: 1}\n"))
+		_, c := driver(t, b, RoleThermometer)
+		_, err := c.QueryNumber(ctx, "MEAS:TEMP?")
+		if !errors.Is(err, link.ErrTimeout) {
+			t.Fatalf("delayed reply: err = %v, want link.ErrTimeout", err)
+		}
+		if clk.Waiters() != 1 {
+			t.Fatalf("the bench holds %d delayed replies, want 1", clk.Waiters())
+		}
+		clk.Advance(5 * time.Second)
+		id, err := c.Identify(ctx)
+		if err != nil || len(fields(id)) != 4 {
+			t.Errorf("after the delay: %q, %v", id, err)
+		}
+	})
+	t.Run("hangup is a disconnect, and reconnecting works", func(t *testing.T) {
+		b, clk := startBench(t, faultBench(t, "  - {role: integrator, kind: hangup, at: 1s}\n"))
+		conn, c := driver(t, b, RoleIntegrator)
+		if _, err := c.Identify(ctx); err != nil {
+			t.Fatal(err)
+		}
+		clk.Advance(1100 * time.Millisecond)
+		b.Truth() // runs the timed fault now
+		var err error
+		for i := 0; i < 40; i++ { // the serving loop hangs up within its poll slice
+			if _, err = c.Identify(ctx); err != nil {
+				break
+			}
+		}
+		if !errors.Is(err, link.ErrDisconnected) {
+			t.Fatalf("after hang-up: err = %v, want link.ErrDisconnected", err)
+		}
+		if err := conn.Reconnect(ctx); err != nil {
+			t.Fatal(err)
+		}
+		c.Forget()
+		if id, err := c.Identify(ctx); err != nil || !strings.Contains(id, "FLUX-INTEGRATOR") {
+			t.Errorf("after reconnect: %q, %v", id, err)
+		}
+	})
+	t.Run("error is an instrument error", func(t *testing.T) {
+		b, clk := startBench(t, faultBench(t, "  - {role: field_meter, kind: error, at: 1s, code: -310, message: \"System error;probe \\\"B\\\"\"}\n"))
+		_, c := driver(t, b, RoleFieldMeter)
+		if err := c.Set(ctx, "FIEL:RANG 1.0E-01"); err != nil {
+			t.Fatal(err)
+		}
+		clk.Advance(2 * time.Second)
+		err := c.Set(ctx, "FIEL:RANG 1.0E-01")
+		var ie *scpi.InstrumentError
+		if !errors.As(err, &ie) || ie.Code != -310 || ie.Msg != `System error;probe "B"` {
+			t.Fatalf("err = %v, want *scpi.InstrumentError -310", err)
+		}
+	})
+	t.Run("trip shows in the status register and refuses output", func(t *testing.T) {
+		b, clk := startBench(t, faultBench(t, "  - {role: supply, kind: trip, at: 1s}\n"))
+		_, c := driver(t, b, RoleSupply)
+		for _, cmd := range []string{"SOUR:CURR 1.0", "OUTP ON"} {
+			if err := c.Set(ctx, cmd); err != nil {
+				t.Fatal(err)
+			}
+		}
+		clk.Advance(2 * time.Second)
+		st, err := c.QueryNumber(ctx, "STAT:QUES:COND?")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if int(st)&(1<<2) == 0 || int(st)&(1<<3) != 0 {
+			t.Errorf("status %v: want trip (bit 2) set, output (bit 3) clear", st)
+		}
+		if tr := b.Truth(); !tr.Tripped || tr.I != 0 {
+			t.Errorf("truth: tripped %v, I = %g A; want tripped and ramped to 0", tr.Tripped, tr.I)
+		}
+		var ie *scpi.InstrumentError
+		if err := c.Set(ctx, "OUTP ON"); !errors.As(err, &ie) || ie.Code != -221 {
+			t.Errorf("output on while tripped: %v, want -221", err)
+		}
+		if err := c.Set(ctx, "*RST"); err != nil {
+			t.Fatal(err)
+		}
+		if err := c.Set(ctx, "OUTP ON"); err != nil {
+			t.Errorf("after *RST (winding cool): %v", err)
+		}
+	})
+}
+
+// TestRandomFaultsFollowTheSeed: a random fault fires at the same commands
+// in two runs with one seed.
+func TestRandomFaultsFollowTheSeed(t *testing.T) {
+	ctx := context.Background()
+	pattern := func() string {
+		b, _ := startBench(t, faultBench(t, "  - {role: thermometer, kind: garble, probability: 0.3}\n"))
+		_, c := driver(t, b, RoleThermometer)
+		var s strings.Builder
+		for i := 0; i < 30; i++ {
+			if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); err != nil {
+				s.WriteByte('x')
+			} else {
+				s.WriteByte('.')
+			}
+		}
+		return s.String()
+	}
+	p1, p2 := pattern(), pattern()
+	if p1 != p2 {
+		t.Errorf("runs differ:\n%s\n%s", p1, p2)
+	}
+	if n := strings.Count(p1, "x"); n < 3 || n > 18 {
+		t.Errorf("%d of 30 replies garbled at p = 0.3: %s", n, p1)
+	}
+}
