@@ -59,6 +59,15 @@ type Terminators struct {
 // it by Scale and mapping it through Map when Map is given (booleans are
 // "true"/"false" keys). For Query, the reply is parsed with Parse and the
 // number multiplied by Scale to give SI.
+//
+// A numeric Set with Map selects among discrete values: the SI value must
+// equal one of Map's keys (numbers) and the mapped text replaces "{}".
+// Parse kinds: number (NR1/NR2/NR3; SCPI overflow 9.9E37 is an overrange
+// error); number-unit (a number followed by a unit suffix, see Suffixes);
+// field:N (the N-th field, from 1, of a Separator-separated reply, parsed
+// as a number); bool (Map maps reply → "true"/"false"; without Map 1/0 and
+// ON/OFF); int (NR1; with Bits a status register); enum (Map maps reply →
+// value).
 type Operation struct {
 	Set    string            `yaml:"set"`
 	Query  string            `yaml:"query"`
@@ -78,6 +87,22 @@ type Operation struct {
 	// Accuracy of a reading for the uncertainty budget: |U| = Gain·|value| + Offset,
 	// as a 95 % (k = 2) interval in the SI unit.
 	Accuracy *Accuracy `yaml:"accuracy"`
+
+	// Added by drivers/profile (additive; absent keys keep the meaning above):
+	//
+	// Suffixes, for parse: number-unit, maps each unit suffix the instrument
+	// may append (case-sensitive, e.g. "mT", "G") to the factor that turns
+	// the number into the instrument unit; Scale is applied after it. Empty:
+	// the only suffix accepted is Unit itself, with factor 1.
+	Suffixes map[string]float64 `yaml:"suffixes"`
+	// Separator splits the reply for parse: field:N (N counts from 1);
+	// default ",".
+	Separator string `yaml:"separator"`
+	// PollPeriod is waited between Poll queries that did not return
+	// PollDone (default "50ms"); PollTimeout bounds the total wait
+	// (default "30s").
+	PollPeriod  string `yaml:"poll_period"`
+	PollTimeout string `yaml:"poll_timeout"`
 }
 
 // Accuracy is a gain-and-offset specification of a reading.

@@ -1,0 +1,502 @@
+package profile
+
+import (
+	"cmp"
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"slices"
+	"strconv"
+	"strings"
+	"time"
+
+	"hystd/drivers/instr"
+	"hystd/drivers/link"
+	"hystd/drivers/scpi"
+)
+
+// Errors a profile instrument returns, matched with errors.Is. Transport
+// errors keep matching link.ErrTimeout / link.ErrDisconnected and instrument
+// errors *scpi.InstrumentError (errors.As).
+var (
+	// ErrOverrange: the instrument reported overflow (±9.9E37, ±INF) or
+	// not-a-number for a reading.
+	ErrOverrange = errors.New("instrument reports overrange")
+	// ErrIdentity: the *IDN? reply does not contain the expected identity.
+	ErrIdentity = errors.New("wrong instrument")
+	// ErrUnsupported: the profile does not define the operation.
+	ErrUnsupported = errors.New("operation not in profile")
+)
+
+// OpError is the failure of one operation of one instrument.
+type OpError struct {
+	Profile string
+	Op      string // operation name, e.g. read_current; or "identify", "init", "halt"
+	Command string // the command sent, when one was
+	// Reconnected is true when the port had gone away during the operation
+	// and was reconnected and re-identified afterwards: the operation itself
+	// still failed, the next one can succeed.
+	Reconnected bool
+	Err         error
+}
+
+func (e *OpError) Error() string {
+	s := e.Profile + " " + e.Op
+	if e.Command != "" {
+		s += " (" + e.Command + ")"
+	}
+	s += ": " + e.Err.Error()
+	if e.Reconnected {
+		s += " [port reconnected]"
+	}
+	return s
+}
+
+func (e *OpError) Unwrap() error { return e.Err }
+
+// RangeError is a setpoint or a reading outside the operation's range.
+type RangeError struct {
+	Value    float64
+	Min, Max float64
+	Unit     string
+	Reading  bool // a reading out of range, not a setpoint
+}
+
+func (e *RangeError) Error() string {
+	what := "setpoint"
+	if e.Reading {
+		what = "reading"
+	}
+	return fmt.Sprintf("%s %g %s outside the valid range [%g, %g] %s (rejected, not clamped)", what, e.Value, e.Unit, e.Min, e.Max, e.Unit)
+}
+
+// Port is what an instrument needs of its transport: *link.Conn, or
+// scpitest.Script in tests. The instrument owns it and closes it in Close.
+type Port interface {
+	scpi.Stream
+	Reconnect(ctx context.Context) error
+	Close() error
+}
+
+// Options tune a profile instrument; the zero value is usable.
+type Options struct {
+	// Identity overrides the profile's identity (fixture config).
+	Identity string
+	// HaltSlew, when positive and below the profile's, is the ramp rate
+	// Halt uses (the fixture's limit).
+	HaltSlew float64 // A/s
+	// Log receives warnings (reconnects, halts) and, at Debug level, every
+	// SCPI exchange. nil: slog.Default().
+	Log *slog.Logger
+	// Sleep waits for settle times, poll periods and halt steps; nil uses
+	// a timer. Tests inject it.
+	Sleep func(ctx context.Context, d time.Duration) error
+	// Now stamps readings; nil is time.Now (monotonic).
+	Now func() time.Time
+	// ReconnectWithin bounds a reconnect after a disconnect (default 10 s).
+	ReconnectWithin time.Duration
+}
+
+// Device is the part common to every role: the SCPI client on its port,
+// identification, init and safe-state sequences, and the generic set and
+// read of an operation. Not safe for concurrent use: one goroutine owns it.
+type Device struct {
+	p      Profile
+	port   Port
+	c      *scpi.Client
+	o      Options
+	ident  string
+	failed error // set when a reconnect found the wrong instrument
+}
+
+func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, error) {
+	if err := Validate(p); err != nil {
+		return nil, err
+	}
+	p = normalize(p)
+	if o.Log == nil {
+		o.Log = slog.Default()
+	}
+	if o.Sleep == nil {
+		o.Sleep = sleepCtx
+	}
+	if o.Now == nil {
+		o.Now = time.Now
+	}
+	if o.ReconnectWithin <= 0 {
+		o.ReconnectWithin = 10 * time.Second
+	}
+	d := &Device{p: p, port: port, o: o, ident: p.Identity}
+	if o.Identity != "" {
+		d.ident = o.Identity
+	}
+	d.c = scpi.New(port, scpi.Options{
+		Name: p.Name, WriteTerm: p.Terminators.Write, ReadTerm: p.Terminators.Read,
+		ErrorQuery: p.ErrorQuery, Log: o.Log, Now: o.Now,
+	})
+	if err := d.start(ctx); err != nil {
+		return nil, err
+	}
+	return d, nil
+}
+
+// start identifies the instrument and sends the init sequence.
+func (d *Device) start(ctx context.Context) error {
+	id, err := d.c.Identify(ctx)
+	if err != nil {
+		return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?", Err: err}
+	}
+	if !strings.Contains(id, d.ident) {
+		return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?",
+			Err: fmt.Errorf("%w: *IDN? replied %q, expected it to contain %q", ErrIdentity, id, d.ident)}
+	}
+	for _, cmd := range d.p.Init {
+		if err := d.c.Set(ctx, cmd); err != nil {
+			return &OpError{Profile: d.p.Name, Op: "init", Command: cmd, Err: err}
+		}
+	}
+	return nil
+}
+
+// Profile returns the (normalized) profile the device speaks.
+func (d *Device) Profile() Profile { return d.p }
+
+// Identify returns the instrument's *IDN? reply.
+func (d *Device) Identify(ctx context.Context) (string, error) {
+	if d.failed != nil {
+		return "", d.failed
+	}
+	id, err := d.c.Identify(ctx)
+	if err != nil {
+		return "", d.fail(ctx, "identify", "*IDN?", err)
+	}
+	return id, nil
+}
+
+// Close closes the port. It does not Halt.
+func (d *Device) Close() error { return d.port.Close() }
+
+// haltSafe sends the safe-state sequence, every command even if one fails.
+func (d *Device) haltSafe(ctx context.Context) error {
+	var errs []error
+	for _, cmd := range d.p.SafeState {
+		if err := d.c.Set(ctx, cmd); err != nil {
+			errs = append(errs, d.fail(ctx, "halt", cmd, err))
+		}
+	}
+	return errors.Join(errs...)
+}
+
+// Halt sends the safe-state sequence. Supply overrides it with a ramp.
+func (d *Device) Halt(ctx context.Context) error {
+	if d.failed != nil {
+		return d.failed
+	}
+	return d.haltSafe(ctx)
+}
+
+// fail wraps err; on a disconnect it reconnects, re-identifies and re-inits
+// before returning, and says so in the error.
+func (d *Device) fail(ctx context.Context, op, cmd string, err error) error {
+	oe := &OpError{Profile: d.p.Name, Op: op, Command: cmd, Err: err}
+	if !errors.Is(err, link.ErrDisconnected) || ctx.Err() != nil {
+		return oe
+	}
+	rctx, cancel := context.WithTimeout(ctx, d.o.ReconnectWithin)
+	defer cancel()
+	d.o.Log.Warn("instrument port lost; reconnecting", "profile", d.p.Name, "op", op, "err", err)
+	if rerr := d.port.Reconnect(rctx); rerr != nil {
+		oe.Err = errors.Join(err, fmt.Errorf("reconnect failed: %w", rerr))
+		return oe
+	}
+	d.c.Forget()
+	if serr := d.start(rctx); serr != nil {
+		if errors.Is(serr, ErrIdentity) {
+			d.failed = serr // never talk to a different instrument
+		}
+		oe.Err = errors.Join(err, fmt.Errorf("after reconnect: %w", serr))
+		return oe
+	}
+	d.o.Log.Info("instrument reconnected and re-identified", "profile", d.p.Name)
+	oe.Reconnected = true
+	return oe
+}
+
+func (d *Device) op(name string) (Operation, error) {
+	o, ok := d.p.Operations[name]
+	if !ok {
+		return Operation{}, &OpError{Profile: d.p.Name, Op: name, Err: ErrUnsupported}
+	}
+	return o, nil
+}
+
+// has reports whether the profile defines the operation.
+func (d *Device) has(name string) bool { _, ok := d.p.Operations[name]; return ok }
+
+// command builds the command text of a setting for value v (nil: none).
+func (d *Device) command(name string, o Operation, v any) (string, error) {
+	if !strings.Contains(o.Set, "{}") {
+		return o.Set, nil
+	}
+	var text string
+	switch x := v.(type) {
+	case bool:
+		text = o.Map[strconv.FormatBool(x)]
+	case float64:
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return "", &OpError{Profile: d.p.Name, Op: name, Err: fmt.Errorf("setpoint %v is not a finite number", x)}
+		}
+		if len(o.Range) == 2 && (x < o.Range[0] || x > o.Range[1]) {
+			return "", &OpError{Profile: d.p.Name, Op: name, Err: &RangeError{Value: x, Min: o.Range[0], Max: o.Range[1], Unit: o.Unit}}
+		}
+		if len(o.Map) > 0 {
+			t, err := pick(o.Map, x)
+			if err != nil {
+				return "", &OpError{Profile: d.p.Name, Op: name, Err: err}
+			}
+			text = t
+			break
+		}
+		inst := x / o.Scale
+		if strings.HasSuffix(o.Format, "d") {
+			text = fmt.Sprintf(o.Format, int64(math.Round(inst)))
+		} else {
+			text = fmt.Sprintf(o.Format, inst)
+		}
+	default:
+		return "", &OpError{Profile: d.p.Name, Op: name, Err: errors.New("this operation takes a value")}
+	}
+	return strings.Replace(o.Set, "{}", text, 1), nil
+}
+
+// pick finds the map entry whose key equals x (relative 1e-9).
+func pick(m map[string]string, x float64) (string, error) {
+	var allowed []string
+	for k, v := range m {
+		f, _ := strconv.ParseFloat(k, 64)
+		if f == x || math.Abs(f-x) <= 1e-9*math.Max(math.Abs(f), math.Abs(x)) {
+			return v, nil
+		}
+		allowed = append(allowed, k)
+	}
+	sortFloats(allowed)
+	return "", fmt.Errorf("value %g is not one of the instrument's settings (%s)", x, strings.Join(allowed, ", "))
+}
+
+func sortFloats(s []string) {
+	slices.SortFunc(s, func(a, b string) int {
+		x, _ := strconv.ParseFloat(a, 64)
+		y, _ := strconv.ParseFloat(b, 64)
+		return cmp.Compare(x, y)
+	})
+}
+
+// set performs a setting: range check, command, error queue, settle, poll.
+func (d *Device) set(ctx context.Context, name string, v any) error {
+	_, err := d.setSent(ctx, name, v)
+	return err
+}
+
+// setSent is set that also tells whether the command may have reached the
+// instrument (false: rejected before sending).
+func (d *Device) setSent(ctx context.Context, name string, v any) (sent bool, err error) {
+	if d.failed != nil {
+		return false, d.failed
+	}
+	o, err := d.op(name)
+	if err != nil {
+		return false, err
+	}
+	cmd, err := d.command(name, o, v)
+	if err != nil {
+		return false, err
+	}
+	return true, d.finishSet(ctx, name, o, cmd)
+}
+
+func (d *Device) finishSet(ctx context.Context, name string, o Operation, cmd string) error {
+	if err := d.c.Set(ctx, cmd); err != nil {
+		return d.fail(ctx, name, cmd, err)
+	}
+	if o.Settle != "" {
+		s, _ := time.ParseDuration(o.Settle)
+		if err := d.o.Sleep(ctx, s); err != nil {
+			return &OpError{Profile: d.p.Name, Op: name, Command: cmd, Err: err}
+		}
+	}
+	if o.Poll == "" {
+		return nil
+	}
+	period, _ := time.ParseDuration(o.PollPeriod)
+	limit, _ := time.ParseDuration(o.PollTimeout)
+	var waited time.Duration
+	for {
+		r, err := d.c.Query(ctx, o.Poll)
+		if err != nil {
+			return d.fail(ctx, name, o.Poll, err)
+		}
+		if strings.TrimSpace(r) == o.PollDone {
+			return nil
+		}
+		if waited >= limit {
+			return &OpError{Profile: d.p.Name, Op: name, Command: o.Poll,
+				Err: fmt.Errorf("not done after %v (last reply %q, want %q)", limit, r, o.PollDone)}
+		}
+		if err := d.o.Sleep(ctx, period); err != nil {
+			return &OpError{Profile: d.p.Name, Op: name, Command: o.Poll, Err: err}
+		}
+		waited += period
+	}
+}
+
+// query sends an operation's query and returns the reply with its stamps.
+func (d *Device) query(ctx context.Context, name string) (Operation, scpi.Reply, error) {
+	if d.failed != nil {
+		return Operation{}, scpi.Reply{}, d.failed
+	}
+	o, err := d.op(name)
+	if err != nil {
+		return o, scpi.Reply{}, err
+	}
+	r, err := d.c.QueryTimed(ctx, o.Query)
+	if err != nil {
+		return o, r, d.fail(ctx, name, o.Query, err)
+	}
+	return o, r, nil
+}
+
+// read performs a numeric query and returns the reading in SI.
+func (d *Device) read(ctx context.Context, name string) (instr.Reading, error) {
+	o, r, err := d.query(ctx, name)
+	if err != nil {
+		return instr.Reading{}, err
+	}
+	v, err := parseNumeric(o, r.Text)
+	if err != nil {
+		return instr.Reading{}, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: err}
+	}
+	at, unc := r.Mid()
+	return instr.Reading{Value: v, Unit: o.Unit, At: at, AtUncertainty: unc}, nil
+}
+
+// parseNumeric turns a reply into an SI value following the operation.
+func parseNumeric(o Operation, reply string) (float64, error) {
+	text, factor := reply, 1.0
+	switch {
+	case o.Parse == "number":
+	case o.Parse == "number-unit":
+		num, suffix := splitSuffix(reply)
+		f, ok := o.Suffixes[suffix]
+		if len(o.Suffixes) == 0 {
+			f, ok = 1, suffix == o.Unit
+		}
+		if !ok {
+			return 0, &scpi.ParseError{Reply: reply, Want: "a number with a unit suffix " + suffixList(o)}
+		}
+		text, factor = num, f
+	case strings.HasPrefix(o.Parse, "field:"):
+		n, _ := strconv.Atoi(strings.TrimPrefix(o.Parse, "field:"))
+		fields := strings.Split(reply, o.Separator)
+		if n > len(fields) {
+			return 0, &scpi.ParseError{Reply: reply, Want: fmt.Sprintf("at least %d fields separated by %q", n, o.Separator)}
+		}
+		text = fields[n-1]
+	default:
+		return 0, fmt.Errorf("parse %q does not give a number", o.Parse)
+	}
+	v, err := scpi.ParseNumber(text)
+	if err != nil {
+		var pe *scpi.ParseError
+		if errors.As(err, &pe) {
+			pe.Reply = reply
+		}
+		return 0, err
+	}
+	if math.IsInf(v, 0) || math.IsNaN(v) {
+		return 0, fmt.Errorf("%w (reply %q)", ErrOverrange, reply)
+	}
+	v *= factor * o.Scale
+	if len(o.Range) == 2 && (v < o.Range[0] || v > o.Range[1]) {
+		return 0, &RangeError{Value: v, Min: o.Range[0], Max: o.Range[1], Unit: o.Unit, Reading: true}
+	}
+	return v, nil
+}
+
+// splitSuffix splits "12.5 mT" or "12.5mT" into number and suffix.
+func splitSuffix(s string) (num, suffix string) {
+	t := strings.TrimSpace(s)
+	i := len(t)
+	for i > 0 {
+		c := t[i-1]
+		if c >= '0' && c <= '9' || c == '.' || c == ' ' {
+			break
+		}
+		i--
+	}
+	// An exponent letter belongs to the number only when digits follow it;
+	// the loop stops at the last digit, so "1E3 T" keeps "1E3".
+	return strings.TrimSpace(t[:i]), strings.TrimSpace(t[i:])
+}
+
+func suffixList(o Operation) string {
+	if len(o.Suffixes) == 0 {
+		return fmt.Sprintf("(%s)", o.Unit)
+	}
+	var s []string
+	for k := range o.Suffixes {
+		s = append(s, k)
+	}
+	slices.Sort(s)
+	return "(" + strings.Join(s, ", ") + ")"
+}
+
+// readBool performs a bool query.
+func (d *Device) readBool(ctx context.Context, name string) (bool, error) {
+	o, r, err := d.query(ctx, name)
+	if err != nil {
+		return false, err
+	}
+	t := strings.TrimSpace(r.Text)
+	if len(o.Map) > 0 {
+		switch o.Map[t] {
+		case "true":
+			return true, nil
+		case "false":
+			return false, nil
+		}
+	} else {
+		switch strings.ToUpper(t) {
+		case "1", "ON":
+			return true, nil
+		case "0", "OFF":
+			return false, nil
+		}
+	}
+	return false, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: &scpi.ParseError{Reply: r.Text, Want: "an on/off value"}}
+}
+
+// readInt performs an int query.
+func (d *Device) readInt(ctx context.Context, name string) (int, error) {
+	o, r, err := d.query(ctx, name)
+	if err != nil {
+		return 0, err
+	}
+	v, err := scpi.ParseInt(r.Text)
+	if err != nil {
+		return 0, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: err}
+	}
+	return v, nil
+}
+
+func sleepCtx(ctx context.Context, d time.Duration) error {
+	t := time.NewTimer(d)
+	defer t.Stop()
+	select {
+	case <-t.C:
+		return nil
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+}

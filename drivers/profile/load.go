@@ -1,0 +1,449 @@
+package profile
+
+import (
+	"fmt"
+	"io/fs"
+	"math"
+	"os"
+	"regexp"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"hystd/configs"
+	"hystd/drivers/link"
+)
+
+// Kind is the value of the top-level kind key of every profile.
+const Kind = "instrument-profile"
+
+// Roles.
+const (
+	RoleSupply      = "supply"
+	RoleIntegrator  = "integrator"
+	RoleFieldMeter  = "field_meter"
+	RoleThermometer = "thermometer"
+)
+
+// roleOps lists, per role, the operations it may have; true marks the
+// required ones. Units are the SI unit each operation must declare ("" for
+// operations without a value).
+var roleOps = map[string]map[string]opRule{
+	RoleSupply: {
+		OpSetCurrent:  {required: true, unit: "A", numeric: true, set: true, ranged: true},
+		OpReadCurrent: {required: true, unit: "A", numeric: true},
+		OpReadVoltage: {required: true, unit: "V", numeric: true},
+		OpSetOutput:   {required: true, set: true, boolean: true},
+		OpReadStatus:  {parse: "int"},
+	},
+	RoleIntegrator: {
+		OpReset:        {required: true, set: true},
+		OpSetRange:     {unit: "Wb", numeric: true, set: true, ranged: true},
+		OpReadFlux:     {required: true, unit: "Wb", numeric: true},
+		OpReadOverload: {parse: "bool"},
+	},
+	RoleFieldMeter: {
+		OpReadField: {required: true, unit: "T", numeric: true},
+		OpSetRange:  {unit: "T", numeric: true, set: true, ranged: true},
+		OpZero:      {set: true},
+	},
+	RoleThermometer: {
+		OpReadTemperature: {required: true, unit: "°C", numeric: true},
+	},
+}
+
+type opRule struct {
+	required bool
+	unit     string
+	numeric  bool   // a query giving a number, or a set taking one
+	set      bool   // must be a setting (else a query)
+	boolean  bool   // a setting taking on/off
+	ranged   bool   // a setting whose range is required
+	parse    string // the parse kind required, if any
+}
+
+var statusBits = map[string]bool{"compliance": true, "overtemp": true, "trip": true, "output": true}
+
+var nameRE = regexp.MustCompile(`^[a-z0-9][a-z0-9-]*$`)
+
+// Load loads and validates a profile. nameOrPath is either a profile name,
+// looked up as instruments/NAME.yaml in the embedded configs.Samples, or a
+// path to a YAML file (anything containing a "/" or ending in .yaml/.yml).
+// Errors name the file, line and key. The returned profile has its
+// defaults filled in (Scale 1, Format "%g", Separator ",", 8 data bits,
+// parity none, stop bits "1", flow none).
+func Load(nameOrPath string) (Profile, error) {
+	var (
+		data []byte
+		err  error
+		file = nameOrPath
+	)
+	if strings.Contains(nameOrPath, "/") || strings.HasSuffix(nameOrPath, ".yaml") || strings.HasSuffix(nameOrPath, ".yml") {
+		data, err = os.ReadFile(nameOrPath)
+		if err != nil {
+			return Profile{}, fmt.Errorf("instrument profile %s: %w", nameOrPath, err)
+		}
+	} else {
+		file = "instruments/" + nameOrPath + ".yaml"
+		data, err = fs.ReadFile(configs.Samples, file)
+		if err != nil {
+			return Profile{}, fmt.Errorf("instrument profile %q: no such profile (shipped: %s)", nameOrPath, strings.Join(Names(), ", "))
+		}
+	}
+	return Parse(file, data)
+}
+
+// Names returns the names of the shipped profiles, sorted.
+func Names() []string {
+	entries, _ := fs.ReadDir(configs.Samples, "instruments")
+	var out []string
+	for _, e := range entries {
+		if n, ok := strings.CutSuffix(e.Name(), ".yaml"); ok {
+			out = append(out, n)
+		}
+	}
+	sort.Strings(out)
+	return out
+}
+
+// Parse decodes and validates a profile from YAML; file names it in errors.
+func Parse(file string, data []byte) (Profile, error) {
+	doc, err := configs.Parse(file, data)
+	if err != nil {
+		return Profile{}, err
+	}
+	if k := doc.Kind(); k != Kind {
+		return Profile{}, doc.Errorf("kind", "want %q, got %q", Kind, k)
+	}
+	var p Profile
+	if err := doc.Decode(&p); err != nil {
+		return Profile{}, err
+	}
+	if err := validate(p, func(key, format string, args ...any) *configs.Error {
+		return doc.Errorf(key, format, args...)
+	}); err != nil {
+		return Profile{}, err
+	}
+	return normalize(p), nil
+}
+
+// Validate checks a profile that did not come from a file (errors carry
+// the profile's name instead of a file and line).
+func Validate(p Profile) error {
+	return validate(p, func(key, format string, args ...any) *configs.Error {
+		return &configs.Error{File: "profile " + p.Name, Key: key, Problem: fmt.Sprintf(format, args...)}
+	})
+}
+
+type errorf func(key, format string, args ...any) *configs.Error
+
+func validate(p Profile, ef errorf) error {
+	var es configs.Errors
+	add := func(key, format string, args ...any) { es = append(es, ef(key, format, args...)) }
+	if p.Kind != Kind {
+		add("kind", "want %q, got %q", Kind, p.Kind)
+	}
+	if !nameRE.MatchString(p.Name) {
+		add("name", "%q: want lower-case letters, digits and dashes", p.Name)
+	}
+	rules, ok := roleOps[p.Role]
+	if !ok {
+		add("role", "%q: want one of supply, integrator, field_meter, thermometer", p.Role)
+	}
+	if err := p.LineSettings().Check(); err != nil {
+		for _, e := range strings.Split(err.Error(), "\n") {
+			add("serial", "%s", e)
+		}
+	}
+	checkTerm := func(key, t string) {
+		switch {
+		case t == "":
+			add(key, "required, e.g. \"\\n\" or \"\\r\\n\"")
+		case len(t) > 4:
+			add(key, "%q: at most 4 bytes", t)
+		case strings.ContainsAny(t, "{}"):
+			add(key, "%q: must not contain braces", t)
+		}
+	}
+	checkTerm("terminators.write", p.Terminators.Write)
+	checkTerm("terminators.read", p.Terminators.Read)
+	checkDur(add, "timeout", p.Timeout, true)
+	if strings.TrimSpace(p.Identity) == "" {
+		add("identity", "required: a text the *IDN? reply must contain")
+	}
+	for i, c := range p.Init {
+		if strings.TrimSpace(c) == "" || strings.Contains(c, "{}") {
+			add(fmt.Sprintf("init.%d", i), "%q: want a command without placeholder", c)
+		}
+	}
+	for i, c := range p.SafeState {
+		if strings.TrimSpace(c) == "" || strings.Contains(c, "{}") {
+			add(fmt.Sprintf("safe_state.%d", i), "%q: want a command without placeholder", c)
+		}
+	}
+	if p.Role == RoleSupply {
+		if !(p.HaltSlew > 0) || math.IsInf(p.HaltSlew, 0) {
+			add("halt_slew_a_per_s", "required for a supply: a positive slew rate in A/s")
+		}
+		checkDur(add, "halt_period", p.HaltPeriod, true)
+		if len(p.SafeState) == 0 {
+			add("safe_state", "required for a supply: the commands that leave it at zero current, output off")
+		}
+	} else {
+		if p.HaltSlew != 0 {
+			add("halt_slew_a_per_s", "only for a supply")
+		}
+		if p.HaltPeriod != "" {
+			add("halt_period", "only for a supply")
+		}
+	}
+	if rules != nil {
+		names := make([]string, 0, len(rules))
+		for n := range rules {
+			names = append(names, n)
+		}
+		sort.Strings(names)
+		for _, n := range names {
+			if _, ok := p.Operations[n]; !ok && rules[n].required {
+				add("operations", "%s: required for %s", n, article(p.Role))
+			}
+		}
+		ops := make([]string, 0, len(p.Operations))
+		for n := range p.Operations {
+			ops = append(ops, n)
+		}
+		sort.Strings(ops)
+		for _, n := range ops {
+			r, ok := rules[n]
+			if !ok {
+				add("operations."+n, "not an operation of %s (known: %s)", article(p.Role), strings.Join(names, ", "))
+				continue
+			}
+			validateOp(add, "operations."+n, p.Operations[n], r)
+		}
+	}
+	return es.Err()
+}
+
+func checkDur(add func(string, string, ...any), key, v string, required bool) {
+	if v == "" {
+		if required {
+			add(key, "required: a duration with a unit, e.g. \"500ms\"")
+		}
+		return
+	}
+	d, err := time.ParseDuration(v)
+	if err != nil {
+		add(key, "%q is not a duration (use a unit: ms, s)", v)
+	} else if d <= 0 {
+		add(key, "%q: must be positive", v)
+	}
+}
+
+var verbRE = regexp.MustCompile(`%[-+ 0#]*[0-9]*(\.[0-9]+)?([eEfFgGd])`)
+
+func validateOp(add func(string, string, ...any), key string, o Operation, r opRule) {
+	if (o.Set == "") == (o.Query == "") {
+		add(key, "give exactly one of set and query")
+		return
+	}
+	if r.set && o.Set == "" {
+		add(key, "must be a setting (set:)")
+		return
+	}
+	if !r.set && o.Query == "" {
+		add(key, "must be a query (query:)")
+		return
+	}
+	if r.unit != "" && o.Unit != r.unit {
+		add(key+".unit", "%q: want %q", o.Unit, r.unit)
+	}
+	if r.unit == "" && o.Unit != "" && !r.numeric {
+		add(key+".unit", "this operation has no value")
+	}
+	if o.Scale != 0 && (math.IsNaN(o.Scale) || math.IsInf(o.Scale, 0)) {
+		add(key+".scale", "must be a finite non-zero number")
+	}
+	if o.Range != nil {
+		if len(o.Range) != 2 {
+			add(key+".range", "want [min, max]")
+		} else if !(o.Range[0] < o.Range[1]) {
+			add(key+".range", "min %g must be below max %g", o.Range[0], o.Range[1])
+		}
+	} else if r.ranged {
+		add(key+".range", "required: [min, max] in %s; setpoints outside are rejected", r.unit)
+	}
+	if o.Accuracy != nil && (o.Accuracy.Gain < 0 || o.Accuracy.Offset < 0) {
+		add(key+".accuracy", "gain and offset must not be negative")
+	}
+	checkDur(add, key+".settle", o.Settle, false)
+	checkDur(add, key+".poll_period", o.PollPeriod, false)
+	checkDur(add, key+".poll_timeout", o.PollTimeout, false)
+	if (o.Poll == "") != (o.PollDone == "") {
+		add(key, "poll and poll_done go together")
+	}
+	if o.Set != "" {
+		n := strings.Count(o.Set, "{}")
+		switch {
+		case n > 1:
+			add(key+".set", "%q: at most one {}", o.Set)
+		case (r.numeric || r.boolean) && n == 0:
+			add(key+".set", "%q: needs {} where the value goes", o.Set)
+		case !r.numeric && !r.boolean && n == 1:
+			add(key+".set", "%q: this operation takes no value; remove {}", o.Set)
+		}
+		if o.Parse != "" {
+			add(key+".parse", "only for queries")
+		}
+		if r.boolean {
+			if o.Map["true"] == "" || o.Map["false"] == "" {
+				add(key+".map", "needs \"true\" and \"false\" entries")
+			}
+		} else if r.numeric {
+			if o.Format != "" {
+				if m := verbRE.FindAllString(o.Format, -1); len(m) != 1 || strings.Count(o.Format, "%") != 1 {
+					add(key+".format", "%q: want one number verb such as %%g, %%.6E, %%+.3f, %%d", o.Format)
+				}
+			}
+			for k := range o.Map {
+				if _, err := strconv.ParseFloat(k, 64); err != nil {
+					add(key+".map", "key %q: for a numeric setting the keys are the allowed values", k)
+				}
+			}
+		}
+		return
+	}
+	// A query.
+	kind := o.Parse
+	if f, ok := strings.CutPrefix(o.Parse, "field:"); ok {
+		kind = "field"
+		if n, err := strconv.Atoi(f); err != nil || n < 1 {
+			add(key+".parse", "%q: want field:N with N ≥ 1", o.Parse)
+		}
+	}
+	switch kind {
+	case "number", "number-unit", "field":
+		if !r.numeric {
+			add(key+".parse", "%q: this operation does not return a number", o.Parse)
+		}
+	case "bool", "int", "enum":
+		if r.numeric {
+			add(key+".parse", "%q: this operation returns a number (number, number-unit or field:N)", o.Parse)
+		}
+	case "":
+		add(key+".parse", "required: number, number-unit, field:N, bool, int or enum")
+	default:
+		add(key+".parse", "%q: want number, number-unit, field:N, bool, int or enum", o.Parse)
+	}
+	if r.parse != "" && kind != r.parse && kind != "" {
+		add(key+".parse", "%q: want %s", o.Parse, r.parse)
+	}
+	if kind == "bool" && o.Map != nil {
+		for k, v := range o.Map {
+			if v != "true" && v != "false" {
+				add(key+".map", "%q: %q: want \"true\" or \"false\"", k, v)
+			}
+		}
+	}
+	if kind == "enum" && len(o.Map) == 0 {
+		add(key+".map", "required for parse: enum")
+	}
+	if kind == "number-unit" {
+		for s, f := range o.Suffixes {
+			if !(f > 0) || math.IsInf(f, 0) {
+				add(key+".suffixes", "%q: factor must be positive", s)
+			}
+		}
+	} else if o.Suffixes != nil {
+		add(key+".suffixes", "only for parse: number-unit")
+	}
+	if o.Separator != "" && kind != "field" {
+		add(key+".separator", "only for parse: field:N")
+	}
+	if len(o.Bits) > 0 {
+		if kind != "int" {
+			add(key+".bits", "only for parse: int")
+		}
+		for b, n := range o.Bits {
+			if !statusBits[b] {
+				add(key+".bits", "%q: want compliance, overtemp, trip or output", b)
+			}
+			if n < 0 || n > 62 {
+				add(key+".bits", "%q: bit %d out of 0..62", b, n)
+			}
+		}
+	}
+	if o.Format != "" {
+		add(key+".format", "only for settings")
+	}
+}
+
+// normalize fills in defaults.
+func normalize(p Profile) Profile {
+	if p.Serial.DataBits == 0 {
+		p.Serial.DataBits = 8
+	}
+	if p.Serial.Parity == "" {
+		p.Serial.Parity = "none"
+	}
+	if p.Serial.StopBits == "" {
+		p.Serial.StopBits = "1"
+	}
+	if p.Serial.Flow == "" {
+		p.Serial.Flow = "none"
+	}
+	ops := make(map[string]Operation, len(p.Operations))
+	for n, o := range p.Operations {
+		if o.Scale == 0 {
+			o.Scale = 1
+		}
+		if o.Set != "" && o.Format == "" && strings.Contains(o.Set, "{}") {
+			o.Format = "%g"
+		}
+		if strings.HasPrefix(o.Parse, "field:") && o.Separator == "" {
+			o.Separator = ","
+		}
+		if o.Poll != "" {
+			if o.PollPeriod == "" {
+				o.PollPeriod = "50ms"
+			}
+			if o.PollTimeout == "" {
+				o.PollTimeout = "30s"
+			}
+		}
+		ops[n] = o
+	}
+	p.Operations = ops
+	return p
+}
+
+// LineSettings returns the profile's serial settings for drivers/link, with
+// the reply timeout as the read timeout. Modem lines are left alone.
+func (p Profile) LineSettings() link.Settings {
+	d, _ := time.ParseDuration(p.Timeout)
+	return link.Settings{
+		Baud: p.Serial.Baud, DataBits: p.Serial.DataBits, Parity: p.Serial.Parity,
+		StopBits: p.Serial.StopBits, Flow: p.Serial.Flow, ReadTimeout: d,
+	}
+}
+
+// AccuracyOf returns the accuracy figures of an operation, for the
+// uncertainty budget; ok is false when the profile gives none.
+func (p Profile) AccuracyOf(op string) (a Accuracy, ok bool) {
+	o, found := p.Operations[op]
+	if !found || o.Accuracy == nil {
+		return Accuracy{}, false
+	}
+	return *o.Accuracy, true
+}
+
+// U returns the expanded (k = 2) uncertainty of a reading v: Gain·|v| + Offset.
+func (a Accuracy) U(v float64) float64 { return a.Gain*math.Abs(v) + a.Offset }
+
+func article(role string) string {
+	if strings.IndexByte("aeiou", role[0]) >= 0 {
+		return "an " + role
+	}
+	return "a " + role
+}

@@ -1,0 +1,114 @@
+package profile
+
+import (
+	"context"
+	"fmt"
+
+	"hystd/drivers/instr"
+	"hystd/drivers/link"
+)
+
+// Spec says where an instrument is and which profile speaks to it: the
+// fields of a fixture's instrument entry (acq/config.Instrument), as a plain
+// struct so that drivers do not import acq.
+type Spec struct {
+	Port     string    // device path; or
+	USB      *link.USB // USB identity
+	Profile  string    // profile name or path (see Load)
+	Baud     int       // overrides the profile's baud rate when non-zero
+	Identity string    // overrides the profile's identity when non-empty
+}
+
+// Dial opens the serial port of the address with the profile's line
+// settings (baud overridden when baud > 0) and backoff for reconnects.
+func Dial(ctx context.Context, p Profile, a link.Address, baud int, o Options) (*link.Conn, error) {
+	s := p.LineSettings()
+	if baud > 0 {
+		s.Baud = baud
+	}
+	return link.Open(ctx, a, s, link.Options{Log: o.Log})
+}
+
+// Open loads the spec's profile, opens its port, identifies the instrument
+// and sends its init sequence. It returns the role's implementation:
+// *Supply, *Integrator, *FieldMeter or *Thermometer (assert to the instr
+// interface of the role, or use the typed helpers below). The caller closes
+// it. On error nothing stays open.
+func Open(ctx context.Context, s Spec, o Options) (instr.Resource, error) {
+	p, err := Load(s.Profile)
+	if err != nil {
+		return nil, err
+	}
+	return openLoaded(ctx, p, s, o)
+}
+
+func openLoaded(ctx context.Context, p Profile, s Spec, o Options) (instr.Resource, error) {
+	addr := link.Address{Path: s.Port, USB: s.USB}
+	if err := addr.Check(); err != nil {
+		return nil, fmt.Errorf("instrument with profile %s: %w", p.Name, err)
+	}
+	if s.Identity != "" {
+		o.Identity = s.Identity
+	}
+	conn, err := Dial(ctx, p, addr, s.Baud, o)
+	if err != nil {
+		return nil, fmt.Errorf("instrument with profile %s: %w", p.Name, err)
+	}
+	var r instr.Resource
+	switch p.Role {
+	case RoleSupply:
+		r, err = NewSupply(ctx, p, conn, o)
+	case RoleIntegrator:
+		r, err = NewIntegrator(ctx, p, conn, o)
+	case RoleFieldMeter:
+		r, err = NewFieldMeter(ctx, p, conn, o)
+	case RoleThermometer:
+		r, err = NewThermometer(ctx, p, conn, o)
+	}
+	if err != nil {
+		conn.Close()
+		return nil, err
+	}
+	return r, nil
+}
+
+func openAs[T instr.Resource](ctx context.Context, role string, s Spec, o Options) (T, error) {
+	var zero T
+	p, err := Load(s.Profile)
+	if err != nil {
+		return zero, err
+	}
+	if p.Role != role {
+		return zero, fmt.Errorf("profile %s is a %s profile, not a %s", p.Name, p.Role, role)
+	}
+	r, err := openLoaded(ctx, p, s, o)
+	if err != nil {
+		return zero, err
+	}
+	t, ok := r.(T)
+	if !ok {
+		r.Close()
+		return zero, fmt.Errorf("profile %s is not a %s profile", s.Profile, role)
+	}
+	return t, nil
+}
+
+// OpenSupply opens a supply from a spec (see Open).
+func OpenSupply(ctx context.Context, s Spec, o Options) (instr.Supply, error) {
+	return openAs[instr.Supply](ctx, RoleSupply, s, o)
+}
+
+// OpenIntegrator opens an integrator from a spec (see Open).
+func OpenIntegrator(ctx context.Context, s Spec, o Options) (instr.Integrator, error) {
+	return openAs[instr.Integrator](ctx, RoleIntegrator, s, o)
+}
+
+// OpenFieldMeter opens a field meter from a spec (see Open).
+func OpenFieldMeter(ctx context.Context, s Spec, o Options) (instr.FieldMeter, error) {
+	return openAs[instr.FieldMeter](ctx, RoleFieldMeter, s, o)
+}
+
+// OpenThermometer opens a thermometer from a spec (see Open).
+func OpenThermometer(ctx context.Context, s Spec, o Options) (instr.Thermometer, error) {
+	return openAs[instr.Thermometer](ctx, RoleThermometer, s, o)
+}

@@ -1,0 +1,272 @@
+package profile
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"hystd/calib/units"
+	"hystd/drivers/instr"
+)
+
+// Supply is a current supply driven by a profile.
+type Supply struct {
+	*Device
+	last    float64 // last setpoint sent, A
+	haveSet bool
+	output  bool // last output state set
+}
+
+// Integrator is an electronic integrator driven by a profile.
+type Integrator struct{ *Device }
+
+// FieldMeter is a Hall-probe field meter driven by a profile.
+type FieldMeter struct{ *Device }
+
+// Thermometer is a temperature channel driven by a profile.
+type Thermometer struct{ *Device }
+
+var (
+	_ instr.Supply      = (*Supply)(nil)
+	_ instr.Integrator  = (*Integrator)(nil)
+	_ instr.FieldMeter  = (*FieldMeter)(nil)
+	_ instr.Thermometer = (*Thermometer)(nil)
+)
+
+func attach(ctx context.Context, role string, p Profile, port Port, o Options) (*Device, error) {
+	if p.Role != role {
+		return nil, fmt.Errorf("profile %s is a %s profile, not a %s", p.Name, p.Role, role)
+	}
+	return newDevice(ctx, p, port, o)
+}
+
+// NewSupply identifies the supply on port, sends its init sequence and
+// returns it. The Supply owns port and closes it in Close.
+func NewSupply(ctx context.Context, p Profile, port Port, o Options) (*Supply, error) {
+	d, err := attach(ctx, RoleSupply, p, port, o)
+	if err != nil {
+		return nil, err
+	}
+	return &Supply{Device: d}, nil
+}
+
+// NewIntegrator is NewSupply for an integrator.
+func NewIntegrator(ctx context.Context, p Profile, port Port, o Options) (*Integrator, error) {
+	d, err := attach(ctx, RoleIntegrator, p, port, o)
+	if err != nil {
+		return nil, err
+	}
+	return &Integrator{d}, nil
+}
+
+// NewFieldMeter is NewSupply for a field meter.
+func NewFieldMeter(ctx context.Context, p Profile, port Port, o Options) (*FieldMeter, error) {
+	d, err := attach(ctx, RoleFieldMeter, p, port, o)
+	if err != nil {
+		return nil, err
+	}
+	return &FieldMeter{d}, nil
+}
+
+// NewThermometer is NewSupply for a thermometer.
+func NewThermometer(ctx context.Context, p Profile, port Port, o Options) (*Thermometer, error) {
+	d, err := attach(ctx, RoleThermometer, p, port, o)
+	if err != nil {
+		return nil, err
+	}
+	return &Thermometer{d}, nil
+}
+
+// SetCurrent sets the output current in A. A value outside the profile's
+// set_current range is a *RangeError and nothing is sent.
+func (s *Supply) SetCurrent(ctx context.Context, i units.Ampere) error {
+	sent, err := s.setSent(ctx, OpSetCurrent, float64(i))
+	// After an error the command may or may not have been applied: keep the
+	// larger magnitude, so that Halt never underestimates the current.
+	if sent && (err == nil || !s.haveSet || math.Abs(float64(i)) > math.Abs(s.last)) {
+		s.last, s.haveSet = float64(i), true
+	}
+	return err
+}
+
+// ReadCurrent reads the output current, A.
+func (s *Supply) ReadCurrent(ctx context.Context) (instr.Reading, error) {
+	return s.read(ctx, OpReadCurrent)
+}
+
+// ReadVoltage reads the output voltage, V.
+func (s *Supply) ReadVoltage(ctx context.Context) (instr.Reading, error) {
+	return s.read(ctx, OpReadVoltage)
+}
+
+// SetOutput switches the output on or off.
+func (s *Supply) SetOutput(ctx context.Context, on bool) error {
+	err := s.set(ctx, OpSetOutput, on)
+	if err == nil {
+		s.output = on
+	}
+	return err
+}
+
+// Status reads the status register named by read_status and decodes the
+// bits the profile names. Without an output bit, OutputOn is the last
+// state set. Without read_status it returns ErrUnsupported.
+func (s *Supply) Status(ctx context.Context) (instr.SupplyStatus, error) {
+	v, err := s.readInt(ctx, OpReadStatus)
+	if err != nil {
+		return instr.SupplyStatus{}, err
+	}
+	bits := s.p.Operations[OpReadStatus].Bits
+	bit := func(name string) bool {
+		n, ok := bits[name]
+		return ok && v&(1<<n) != 0
+	}
+	st := instr.SupplyStatus{Compliance: bit("compliance"), OverTemp: bit("overtemp"), Tripped: bit("trip"), RawRegister: v, OutputOn: s.output}
+	if _, ok := bits["output"]; ok {
+		st.OutputOn = bit("output")
+	}
+	return st, nil
+}
+
+// Limits returns the limits the profile states: the largest magnitude of
+// the set_current range, the top of the read_voltage range (0 when the
+// profile gives none) and the halt slew.
+func (s *Supply) Limits() instr.SupplyLimits {
+	r := s.p.Operations[OpSetCurrent].Range
+	l := instr.SupplyLimits{MaxCurrent: units.Ampere(math.Max(math.Abs(r[0]), math.Abs(r[1]))), MaxSlew: units.AmperePerSecond(s.haltSlew())}
+	if vr := s.p.Operations[OpReadVoltage].Range; len(vr) == 2 {
+		l.MaxVoltage = units.Volt(vr[1])
+	}
+	return l
+}
+
+func (s *Supply) haltSlew() float64 {
+	if s.o.HaltSlew > 0 && s.o.HaltSlew < s.p.HaltSlew {
+		return s.o.HaltSlew
+	}
+	return s.p.HaltSlew
+}
+
+// HaltPlan returns the setpoints, in A, Halt steps through from i0 to zero
+// at slew A/s in steps of period: |ΔI| ≤ slew·period per step, the last
+// step exactly 0.
+func HaltPlan(i0, slew float64, period time.Duration) []float64 {
+	step := slew * period.Seconds()
+	if !(step > 0) || i0 == 0 || math.IsNaN(i0) {
+		return []float64{0}
+	}
+	n := int(math.Ceil(math.Abs(i0)/step - 1e-9))
+	n = max(n, 1)
+	out := make([]float64, n)
+	for k := 1; k <= n; k++ {
+		out[k-1] = i0 * (1 - float64(k)/float64(n))
+	}
+	out[n-1] = 0
+	return out
+}
+
+// Halt brings the supply to zero current and output off: it reads the
+// current (or, failing that, uses the last setpoint sent), ramps it to zero
+// at the halt slew (the profile's halt_slew_a_per_s, or Options.HaltSlew if
+// lower) in steps of halt_period, then sends the safe-state sequence.
+//
+// Caution: the magnetizing winding stores ½·L·I²; switching the output off
+// or breaking the circuit at full current drives a high voltage across the
+// winding and the supply. Halt therefore ramps first and only then switches
+// off. It is no substitute for the supply's own protection, a discharge path
+// across the winding or the lab's interlocks; wire and operate the fixture
+// as local electrical-safety codes and licensed practice require.
+//
+// Halt is safe to call at any time and repeatedly. It does not stop when ctx
+// is cancelled (a half-done ramp-down is worse than a finished one); it is
+// bounded instead by the ramp time plus 10 s. Errors are returned after the
+// whole sequence was attempted.
+func (s *Supply) Halt(ctx context.Context) error {
+	if s.failed != nil {
+		return s.failed
+	}
+	period, _ := time.ParseDuration(s.p.HaltPeriod)
+	i0, known := s.last, s.haveSet
+	var errs []error
+	if r, err := s.ReadCurrent(context.WithoutCancel(ctx)); err == nil {
+		i0, known = r.Value, true
+	} else {
+		errs = append(errs, err)
+	}
+	slew := s.haltSlew()
+	plan := []float64{}
+	if known {
+		plan = HaltPlan(i0, slew, period)
+	}
+	budget := time.Duration(len(plan))*period + 10*time.Second
+	hctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), budget)
+	defer cancel()
+	if known && i0 != 0 {
+		s.o.Log.Warn("halting supply: ramping to zero", "profile", s.p.Name, "from_a", i0, "slew_a_per_s", slew, "steps", len(plan))
+	}
+	for k, i := range plan {
+		if err := s.SetCurrent(hctx, units.Ampere(i)); err != nil {
+			errs = append(errs, fmt.Errorf("halt step %d/%d (%g A): %w", k+1, len(plan), i, err))
+			var oe *OpError
+			if !errors.As(err, &oe) || !oe.Reconnected {
+				break // the line is gone or the supply refuses: go to the safe state
+			}
+		}
+		if k < len(plan)-1 {
+			if err := s.o.Sleep(hctx, period); err != nil {
+				errs = append(errs, err)
+				break
+			}
+		}
+	}
+	if err := s.haltSafe(hctx); err != nil {
+		errs = append(errs, err)
+	} else {
+		s.output = false
+		s.last, s.haveSet = 0, true
+	}
+	if len(errs) > 0 {
+		s.o.Log.Error("supply halt had errors; check the supply by hand", "profile", s.p.Name, "err", errors.Join(errs...))
+		return &OpError{Profile: s.p.Name, Op: "halt", Err: errors.Join(errs...)}
+	}
+	return nil
+}
+
+// Reset zeroes the integrated flux (reset operation, with its poll).
+func (n *Integrator) Reset(ctx context.Context) error { return n.set(ctx, OpReset, nil) }
+
+// SetRange selects the full scale, Wb-turns; a value outside the range (or
+// not one of the mapped ranges) is rejected.
+func (n *Integrator) SetRange(ctx context.Context, fullScale units.WeberTurn) error {
+	return n.set(ctx, OpSetRange, float64(fullScale))
+}
+
+// ReadFlux reads ψ in Wb-turns.
+func (n *Integrator) ReadFlux(ctx context.Context) (instr.Reading, error) {
+	return n.read(ctx, OpReadFlux)
+}
+
+// Overloaded reports the overload flag (read_overload).
+func (n *Integrator) Overloaded(ctx context.Context) (bool, error) {
+	return n.readBool(ctx, OpReadOverload)
+}
+
+// ReadField reads B in T.
+func (f *FieldMeter) ReadField(ctx context.Context) (instr.Reading, error) {
+	return f.read(ctx, OpReadField)
+}
+
+// SetRange selects the full scale in T.
+func (f *FieldMeter) SetRange(ctx context.Context, fullScale units.Tesla) error {
+	return f.set(ctx, OpSetRange, float64(fullScale))
+}
+
+// Zero nulls the probe offset (zero operation).
+func (f *FieldMeter) Zero(ctx context.Context) error { return f.set(ctx, OpZero, nil) }
+
+// ReadTemperature reads the temperature in °C.
+func (t *Thermometer) ReadTemperature(ctx context.Context) (instr.Reading, error) {
+	return t.read(ctx, OpReadTemperature)
+}
