@@ -3,7 +3,6 @@ package profile
 import (
 	"context"
 	"errors"
-	"fmt"
 	"log/slog"
 	"strconv"
 	"strings"
@@ -181,21 +180,31 @@ func TestHangupMidQueryReconnects(t *testing.T) {
 	var p2 *linktest.PTY
 	var r2 *linktest.Responder
 	moved := make(chan struct{})
+	b.mu.Lock() // publishes the hook (and r1, l) to the responder goroutine
 	b.hangup = func() {
 		r1.Stop()
 		p1.Close() // hang-up: the slave reads EOF/EIO
+		defer close(moved)
 		p, err := linktest.Open()
 		if err != nil {
-			panic(fmt.Sprint("second pty: ", err))
+			t.Errorf("second pty: %v", err)
+			return
 		}
 		p2, r2 = p, linktest.Serve(p, "\n", "\n", 0, b.handle(id))
 		l.Point(p.Path)
-		close(moved)
 	}
+	b.mu.Unlock()
 	t.Cleanup(func() {
-		<-moved
-		r2.Stop()
-		p2.Close()
+		select {
+		case <-moved:
+			if r2 != nil {
+				r2.Stop()
+				p2.Close()
+			}
+		default: // the hang-up never happened
+			r1.Stop()
+			p1.Close()
+		}
 	})
 	sup, err := OpenSupply(ctx, Spec{Port: l.Path, Profile: "sim-supply"}, quiet())
 	if err != nil {
