@@ -1,0 +1,294 @@
+// Package demo runs the whole job once on the simulated bench: it starts the
+// bench on pseudo-terminals, opens its ports through the same serial drivers
+// as real instruments, runs the demo recipe on the demo ring, stores the run
+// in an SQLite file, writes a plot of each loop and prints the figures.
+package demo
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"io/fs"
+	"log/slog"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"text/tabwriter"
+	"time"
+
+	"hystd/acq/config"
+	"hystd/acq/engine"
+	"hystd/acq/fixture"
+	"hystd/acq/live"
+	"hystd/acq/plot"
+	"hystd/acq/recipe"
+	"hystd/acq/record"
+	"hystd/acq/store"
+	"hystd/configs"
+	"hystd/drivers/sim"
+)
+
+// Sample config files the demo uses, from configs/ (embedded).
+const (
+	FixtureFile  = "fixture-ring-bench.yaml"
+	SpecimenFile = "specimen-ring-r17.yaml"
+	RecipeFile   = "recipes/demo-ring.yaml"
+)
+
+// Options configure a demo run.
+type Options struct {
+	DataDir  string       // store and plots go here; created if missing
+	Out      io.Writer    // progress and the figures table; nil: io.Discard
+	Log      *slog.Logger // nil: warnings only, to Out
+	Software string       // version recorded with the run
+	Live     *live.Hub    // optional: also publish live events here
+	// Bench replaces the default bench (tests); zero: sim.DefaultBench().
+	Bench *sim.Config
+	// Store, when set, is used instead of opening DataDir/hystd.db; the
+	// caller keeps ownership.
+	Store *store.Store
+}
+
+// Result is what a demo run produced.
+type Result struct {
+	Run   record.Run
+	Loops []record.Loop // as read back from the store, with samples
+	Plots []string      // SVG files written
+	// Truth is the bench's record of the specimen's true state, one entry per
+	// physics step, for checking the measurement against the model.
+	Truth []sim.Truth
+	DB    string // path of the SQLite file
+}
+
+// Run runs the demo. Cancelling ctx ends the run safely (the supply is
+// ramped down) and returns the error.
+func Run(ctx context.Context, o Options) (Result, error) {
+	out := o.Out
+	if out == nil {
+		out = io.Discard
+	}
+	log := o.Log
+	if log == nil {
+		log = slog.New(slog.NewTextHandler(out, &slog.HandlerOptions{Level: slog.LevelWarn}))
+	}
+	fx, sp, rc, err := loadSamples()
+	if err != nil {
+		return Result{}, err
+	}
+
+	benchCfg := o.Bench
+	if benchCfg == nil {
+		c, err := sim.DefaultBench()
+		if err != nil {
+			return Result{}, fmt.Errorf("demo bench: %w", err)
+		}
+		benchCfg = &c
+	}
+	fmt.Fprintf(out, "starting the simulated bench %q on pseudo-terminals\n", benchCfg.Name)
+	bench, err := sim.Start(ctx, *benchCfg)
+	if err != nil {
+		return Result{}, fmt.Errorf("simulated bench: %w", err)
+	}
+	defer bench.Close()
+	fx = withPorts(fx, bench.Ports())
+	for _, role := range []string{config.RoleSupply, config.RoleIntegrator, config.RoleFieldMeter, config.RoleThermometer} {
+		if in, ok := fx.Instruments[role]; ok {
+			fmt.Fprintf(out, "  %-12s %s (profile %s)\n", role, in.Port, in.Profile)
+		}
+	}
+
+	st := o.Store
+	var db string
+	if st == nil {
+		if err := os.MkdirAll(o.DataDir, 0o755); err != nil {
+			return Result{}, err
+		}
+		db = filepath.Join(o.DataDir, "hystd.db")
+		st, err = store.Open(ctx, db)
+		if err != nil {
+			return Result{}, err
+		}
+		defer st.Close()
+	} else {
+		db = st.Path()
+	}
+
+	opened, err := fixture.Open(ctx, fx, log)
+	if err != nil {
+		return Result{}, err
+	}
+	defer opened.Close()
+	proc, warnings, err := opened.Processor(fx, sp)
+	if err != nil {
+		return Result{}, err
+	}
+	for _, w := range warnings {
+		fmt.Fprintln(out, "warning:", w)
+	}
+
+	pub := &progress{out: out, hub: o.Live}
+	fmt.Fprintf(out, "running recipe %q on specimen %s (%s)\n", rc.Name, sp.ID, sp.Material)
+	run, runErr := engine.Run(ctx, engine.Setup{
+		Fixture:     fx,
+		Specimen:    sp,
+		Recipe:      rc,
+		Instruments: opened.Instruments,
+		Writer:      st,
+		Process:     proc,
+		Live:        pub,
+		Log:         log,
+		Software:    o.Software,
+		SpoolDir:    o.DataDir,
+	})
+	pub.done()
+	res := Result{Run: run, DB: db, Truth: bench.History()}
+	if run.ID != "" {
+		// Read back what was committed, whatever the ending.
+		if r, err := st.Run(ctx, run.ID); err == nil {
+			res.Run = r
+		}
+		loops, err := st.Loops(ctx, run.ID)
+		if err != nil {
+			return res, err
+		}
+		for _, l := range loops {
+			full, err := st.Loop(ctx, run.ID, l.N)
+			if err != nil {
+				return res, err
+			}
+			res.Loops = append(res.Loops, full)
+		}
+	}
+	if runErr != nil {
+		return res, runErr
+	}
+	fmt.Fprintf(out, "run %s %s; stored in %s\n", res.Run.ID, res.Run.State, db)
+	if len(res.Loops) > 0 {
+		p := filepath.Join(filepath.Dir(db), res.Run.ID+".svg")
+		if err := writePlot(p, res.Run, res.Loops); err != nil {
+			return res, err
+		}
+		res.Plots = append(res.Plots, p)
+		fmt.Fprintf(out, "plot: %s\n", p)
+	}
+	PrintFigures(out, res.Loops)
+	return res, nil
+}
+
+func loadSamples() (config.Fixture, config.Specimen, *recipe.Recipe, error) {
+	read := func(name string) ([]byte, error) { return fs.ReadFile(configs.Samples, name) }
+	b, err := read(FixtureFile)
+	if err != nil {
+		return config.Fixture{}, config.Specimen{}, nil, err
+	}
+	fx, err := config.ParseFixture("configs/"+FixtureFile, b)
+	if err != nil {
+		return config.Fixture{}, config.Specimen{}, nil, err
+	}
+	if b, err = read(SpecimenFile); err != nil {
+		return config.Fixture{}, config.Specimen{}, nil, err
+	}
+	sp, err := config.ParseSpecimen("configs/"+SpecimenFile, b)
+	if err != nil {
+		return config.Fixture{}, config.Specimen{}, nil, err
+	}
+	if b, err = read(RecipeFile); err != nil {
+		return config.Fixture{}, config.Specimen{}, nil, err
+	}
+	rc, err := recipe.Parse("configs/"+RecipeFile, b)
+	if err != nil {
+		return config.Fixture{}, config.Specimen{}, nil, err
+	}
+	return fx, sp, rc, nil
+}
+
+// withPorts returns fx with each role's port replaced by the bench's.
+func withPorts(fx config.Fixture, ports map[string]string) config.Fixture {
+	ins := make(map[string]config.Instrument, len(fx.Instruments))
+	for role, in := range fx.Instruments {
+		if p, ok := ports[role]; ok {
+			in.Port, in.USB = p, nil
+			ins[role] = in
+		}
+	}
+	fx.Instruments = ins
+	return fx
+}
+
+func writePlot(path string, run record.Run, loops []record.Loop) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	labels := make([]string, len(loops))
+	for i, l := range loops {
+		labels[i] = fmt.Sprintf("loop %d", l.N)
+	}
+	err = plot.SVG(f, loops, plot.Options{
+		Title:  fmt.Sprintf("%s — %s, %s", run.Specimen, run.Recipe, run.Started.UTC().Format(time.DateTime)),
+		Labels: labels,
+	})
+	if cerr := f.Close(); err == nil {
+		err = cerr
+	}
+	return err
+}
+
+// PrintFigures writes a table of every loop's figures with their expanded
+// uncertainties (k = 2) and units.
+func PrintFigures(w io.Writer, loops []record.Loop) {
+	for _, l := range loops {
+		fmt.Fprintf(w, "\nloop %d (%s, ±%g %s)\n", l.N, l.Kind, l.Amplitude, l.AmpUnit)
+		tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', tabwriter.AlignRight)
+		fmt.Fprintln(tw, "figure\tvalue\t± U (k=2)\tunit\t")
+		for _, f := range l.Figures {
+			u := "—"
+			if !math.IsNaN(f.U) {
+				u = fmt.Sprintf("%.3g", f.U)
+			}
+			fmt.Fprintf(tw, "%s\t%.5g\t%s\t%s\t\n", f.Name, f.Value, u, f.Unit)
+		}
+		tw.Flush()
+		var cs []string
+		for _, c := range l.Corrections {
+			cs = append(cs, fmt.Sprintf("%s %.3g %s", c.Name, c.Size, c.Unit))
+		}
+		if len(cs) > 0 {
+			fmt.Fprintf(w, "corrections: %s\n", strings.Join(cs, "; "))
+		}
+	}
+}
+
+// progress prints one line per step and a progress line now and then, and
+// forwards every event to a hub when one is given. It never blocks the engine.
+type progress struct {
+	out     io.Writer
+	hub     *live.Hub
+	last    string
+	lastPct int
+}
+
+func (p *progress) Publish(ev live.Event) {
+	if p.hub != nil {
+		p.hub.Publish(ev)
+	}
+	switch ev.Kind {
+	case live.KindProgress:
+		name := fmt.Sprintf("step %d/%d %s", ev.Step, ev.Steps, ev.StepName)
+		pct := int(ev.Fraction * 100)
+		if name != p.last {
+			fmt.Fprintf(p.out, "  %3d %%  %s\n", pct, name)
+			p.last, p.lastPct = name, pct
+		} else if pct >= p.lastPct+10 {
+			fmt.Fprintf(p.out, "  %3d %%\n", pct)
+			p.lastPct = pct
+		}
+	case live.KindState:
+		if ev.Reason != "" {
+			fmt.Fprintf(p.out, "  run %s: %s\n", ev.State, ev.Reason)
+		}
+	}
+}
+
+func (p *progress) done() {}
