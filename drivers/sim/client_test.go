@@ -14,14 +14,14 @@ import (
 // lineClient is a minimal line-based client over go.bug.st/serial, written
 // for these tests (the real drivers live in drivers/link and drivers/scpi).
 type lineClient struct {
-	t    *testing.T
+	t    testing.TB
 	port serial.Port
 	buf  []byte
 }
 
 var errNoReply = errors.New("no reply within the timeout")
 
-func dial(t *testing.T, path string) *lineClient {
+func dial(t testing.TB, path string) *lineClient {
 	t.Helper()
 	p, err := serial.Open(path, &serial.Mode{BaudRate: 115200})
 	if err != nil {
