@@ -105,7 +105,12 @@ func AirFlux(b, h []float64, coilArea, area units.SquareMetre) float64 {
 	for i := range b {
 		d := k * h[i]
 		b[i] -= d
-		m = math.Max(m, math.Abs(d))
+		if d < 0 {
+			d = -d
+		}
+		if d > m {
+			m = d
+		}
 	}
 	return m
 }
@@ -135,7 +140,12 @@ func Demag(h, b []float64, n float64) (float64, error) {
 		mag := (b[i]/units.Mu0 - h[i]) / (1 - n)
 		d := n * mag
 		h[i] -= d
-		m = math.Max(m, math.Abs(d))
+		if d < 0 {
+			d = -d
+		}
+		if d > m {
+			m = d
+		}
 	}
 	return m, nil
 }
@@ -203,7 +213,12 @@ func Baseline(t, psi []float64, t0 float64, pre, post Rate) float64 {
 	for i := range psi {
 		b := prim(t[i]) - p0
 		psi[i] -= b
-		m = math.Max(m, math.Abs(b))
+		if b < 0 {
+			b = -b
+		}
+		if b > m {
+			m = b
+		}
 	}
 	return m
 }

@@ -43,7 +43,8 @@ var order = []string{FigHmax, FigBmax, FigBr, FigHcB, FigHcJ, FigMuA, FigMuIniti
 // Source is one input of the uncertainty budget, described by the change of
 // the corrected H and B that one standard uncertainty of it causes:
 // H → H·(1+HScale) + HShift and
-// B → B·(1+BScale) + BShift + BT1·(t−T0) + BT2·(t−T0)², t and T0 in s.
+// B → B·(1+BScale) + BShift + BT1·(t−T0) + BT2·(t−T0)², t and T0 in s on
+// the time base of the t passed to Figures.
 type Source struct {
 	Name           string
 	HScale, HShift float64
@@ -125,7 +126,7 @@ type analysis struct {
 	branches  []curve
 	cycles    [][2]int // indices into branches
 	tips      []tipAcc
-	initial   *curve
+	initial   *rawCurve
 	opt       Options
 }
 
@@ -148,7 +149,9 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 	half := a.eval(variant{parity: -1, half: true})
 	srcs := make([]vals, len(opt.Sources))
 	for i := range opt.Sources {
-		srcs[i] = a.eval(variant{parity: -1, src: &opt.Sources[i]})
+		src := opt.Sources[i]
+		src.T0 -= a.t0 // the bins keep times relative to the first sample
+		srcs[i] = a.eval(variant{parity: -1, src: &src})
 	}
 	// The loss is integrated on the samples themselves; the bins serve the budget.
 	rawLoss := loss(t, h, b, s)
@@ -236,18 +239,25 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 			continue
 		}
 		c := curve{dir: g.Dir}
-		c.bins[0] = make([]acc, nb)
-		c.bins[1] = make([]acc, nb)
-		for i := g.Start; i <= g.End; i++ {
-			j := int((h[i] - a.lo) * a.scale)
-			j = max(0, min(nb-1, j))
-			c.bins[i&1][j].add(h[i], b[i], tm(i))
+		if g.Complete {
+			c.bins[0] = make([]acc, nb)
+			c.bins[1] = make([]acc, nb)
+			for i := g.Start; i <= g.End; i++ {
+				j := int((h[i] - a.lo) * a.scale)
+				j = max(0, min(nb-1, j))
+				c.bins[i&1][j].add(h[i], b[i], tm(i))
+			}
 		}
 		if g.Complete {
 			idxOf[k] = len(a.branches)
 			a.branches = append(a.branches, c)
 		} else {
-			a.initial = &c
+			rc := &rawCurve{dir: g.Dir, h: h[g.Start : g.End+1], b: b[g.Start : g.End+1], start: g.Start}
+			rc.t = make([]float64, len(rc.h))
+			for i := range rc.t {
+				rc.t[i] = tm(g.Start + i)
+			}
+			a.initial = rc
 		}
 	}
 	for k := 0; k+1 < len(s.Segments); k++ {
@@ -311,6 +321,9 @@ func (v variant) pick(two [2]acc, i int) acc {
 
 // points returns the curve's bin means in ascending H.
 func (c curve) points(v variant, dst []pt) []pt {
+	if cap(dst) < len(c.bins[0]) {
+		dst = make([]pt, 0, len(c.bins[0]))
+	}
 	dst = dst[:0]
 	step := 1
 	if v.half {
@@ -405,7 +418,7 @@ func (a *analysis) eval(v variant) vals {
 		out[FigLossJKg] = out[FigLossJM3] / a.opt.Density
 	}
 	if a.initial != nil && a.opt.MuInitialB > 0 {
-		out[FigMuInitial] = muInitial(a.initial.points(v, nil), a.initial.dir, a.opt.MuInitialB)
+		out[FigMuInitial] = a.initial.muInitial(v, a.opt.MuInitialB)
 	}
 	return out
 }
@@ -646,27 +659,60 @@ func loss(_ []float64, h, b []float64, s Shape) float64 {
 	return meanOf(w)
 }
 
-// muInitial reads B/(μ0·H) where the initial curve first reaches |B| = level.
-func muInitial(p []pt, dir int, level float64) float64 {
-	if dir == Falling {
-		for i, j := 0, len(p)-1; i < j; i, j = i+1, j-1 {
-			p[i], p[j] = p[j], p[i]
-		}
-		for i := range p {
-			p[i].h, p[i].b = -p[i].h, -p[i].b
-		}
+// rawCurve is the initial curve kept as samples: μ_initial is read at a
+// low B, where bins spread over the whole H range would be too coarse.
+type rawCurve struct {
+	dir     int
+	start   int // index of the first sample, for the parity
+	t, h, b []float64
+}
+
+// muInitial reads B/(μ0·H) where the initial curve reaches |B| = level: H
+// at that level is the least-squares line H = α + β·(B − level) through the
+// samples with |B| within ±50 % of the level (±75 % at the coarser
+// "sampling" variant), or the interpolation between the two samples that
+// bracket it when fewer than 3 samples lie there.
+func (c *rawCurve) muInitial(v variant, level float64) float64 {
+	w := 0.5
+	if v.half {
+		w = 0.75
 	}
-	for i := 0; i+1 < len(p); i++ {
-		if p[i].h < 0 {
+	sign := 1.0
+	if c.dir == Falling {
+		sign = -1
+	}
+	var n, sx, sy, sxx, sxy float64
+	prevB, prevH := math.NaN(), math.NaN()
+	bracket := math.NaN()
+	for i := range c.h {
+		if v.parity >= 0 && (c.start+i)&1 != v.parity {
 			continue
 		}
-		if p[i].b < level && p[i+1].b >= level {
-			f := (level - p[i].b) / (p[i+1].b - p[i].b)
-			h := p[i].h + f*(p[i+1].h-p[i].h)
-			if h > 0 {
-				return level / (units.Mu0 * h)
-			}
+		p := v.apply(pt{h: c.h[i], b: c.b[i], t: c.t[i], t2: c.t[i] * c.t[i]})
+		hh, bb := sign*p.h, sign*p.b
+		if math.IsNaN(bracket) && prevB < level && bb >= level {
+			bracket = prevH + (level-prevB)/(bb-prevB)*(hh-prevH)
+		}
+		prevB, prevH = bb, hh
+		if bb < (1-w)*level || bb > (1+w)*level {
+			continue
+		}
+		x := bb - level
+		n++
+		sx += x
+		sy += hh
+		sxx += x * x
+		sxy += x * hh
+	}
+	hAt := bracket
+	if n >= 3 {
+		if den := n*sxx - sx*sx; den > 0 {
+			beta := (n*sxy - sx*sy) / den
+			hAt = (sy - beta*sx) / n
 		}
 	}
-	return nan()
+	if !(hAt > 0) {
+		return nan()
+	}
+	return level / (units.Mu0 * hAt)
 }

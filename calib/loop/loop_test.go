@@ -4,7 +4,7 @@ import (
 	"math"
 	"testing"
 
-	"hystd/calib/internal/synth"
+	"hystd/calib/synth"
 	"hystd/calib/units"
 )
 

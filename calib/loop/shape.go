@@ -75,7 +75,12 @@ func Detect(h []float64) (Shape, error) {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return Shape{}, fmt.Errorf("H[%d] is not a finite number", i)
 		}
-		lo, hi = math.Min(lo, v), math.Max(hi, v)
+		if v < lo {
+			lo = v
+		}
+		if v > hi {
+			hi = v
+		}
 	}
 	span := hi - lo
 	if !(span > 0) {
@@ -147,6 +152,26 @@ func Detect(h []float64) (Shape, error) {
 		}
 	}
 	return s, nil
+}
+
+// Label calls set for every sample index with its branch label, as
+// Labels does, without allocating.
+func (s Shape) Label(set func(i, branch int)) {
+	for _, g := range s.Segments {
+		l := g.Dir
+		if g.Initial {
+			l = Initial
+		}
+		for i := g.Start; i <= g.End; i++ {
+			set(i, l)
+		}
+	}
+	if k := len(s.Segments); k > 0 {
+		g := s.Segments[k-1]
+		for i := g.End + 1; i < s.N; i++ {
+			set(i, g.Dir)
+		}
+	}
 }
 
 // Labels returns the branch label of every sample (Rising, Falling or

@@ -1,0 +1,370 @@
+// Package process is the glue between a recorded loop step and the calib
+// numerics: it turns the raw samples of one step into corrected points, the
+// figures with their uncertainties and the list of corrections applied. It
+// does no I/O and keeps no state; Loop may be called from several goroutines
+// at once.
+package process
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"hystd/acq/record"
+	"hystd/calib/correct"
+	"hystd/calib/loop"
+	"hystd/calib/units"
+)
+
+// How H is obtained.
+const (
+	HFromCurrent    = "current"     // H = N1·I/l_m
+	HFromFieldMeter = "field_meter" // H = B_probe/μ0 beside the specimen
+)
+
+// Specimen classes: which figures are reported.
+const (
+	ClassSoft   = "soft"
+	ClassMagnet = "magnet"
+)
+
+// Drift modes: how the absolute level of B is fixed.
+const (
+	// DriftCyclic: drift baseline from the holds when present, closure of
+	// the cyclic loop between tips of the same kind, then centering.
+	DriftCyclic = "cyclic-centred"
+	// DriftDemagStart: the sweep starts from a demagnetized state, B = 0 at
+	// the first sweep sample; drift baseline from the holds; no closure and
+	// no centering. Gives the initial curve and μ_initial.
+	DriftDemagStart = "demagnetized-start"
+)
+
+// DefaultMuInitialB is the flux density at which μ_initial is read unless
+// set otherwise: 4 mT, usual for Ni-Fe alloys (REFERENCE §3, from memory).
+const DefaultMuInitialB units.Tesla = 4e-3
+
+// Accuracy is an instrument's reading specification as a 95 % (k = 2)
+// interval |U| = Gain·|reading| + Offset, Offset in the reading's SI unit.
+// The zero value leaves the instrument out of the budget.
+type Accuracy struct {
+	Gain, Offset float64
+}
+
+// Setup is everything Loop needs besides the samples. SetupFrom fills it
+// from a fixture and a specimen; SetAccuracy adds instrument specifications.
+type Setup struct {
+	PathLength         units.Metre       // l_m, for H from current
+	Area               units.SquareMetre // specimen cross-section A
+	CoilArea           units.SquareMetre // search-coil area; 0 or ≤ A: no air-flux correction
+	RelUPath, RelUArea float64           // relative standard uncertainties of l_m and A
+	Geometry           string            // how l_m and A were obtained
+	N1, N2             int
+	HFrom              string           // HFromCurrent (default) or HFromFieldMeter
+	Probe              correct.ProbeCal // field-meter calibration (HFromFieldMeter)
+	Class              string           // ClassSoft (default) or ClassMagnet
+	Density            units.KilogramPerCubicMetre
+	Mass               units.Kilogram
+	Drift              string      // DriftCyclic (default) or DriftDemagStart
+	DemagFactor        float64     // N of an open specimen; 0: no correction
+	MuInitialB         units.Tesla // where μ_initial is read; 0: DefaultMuInitialB
+	// Accuracy of the current read-back (A), the integrator (Wb-turns) and
+	// the field meter (T).
+	Current, Flux, Field Accuracy
+}
+
+// Validate reports the first problem of s that makes Loop impossible.
+func (s Setup) Validate() error {
+	switch s.HFrom {
+	case "", HFromCurrent:
+		if !(s.PathLength > 0) || s.N1 <= 0 {
+			return fmt.Errorf("setup: H from current needs a path length > 0 and N1 > 0 (got %v, %d)", s.PathLength, s.N1)
+		}
+	case HFromFieldMeter:
+	default:
+		return fmt.Errorf("setup: h_from %q: want %q or %q", s.HFrom, HFromCurrent, HFromFieldMeter)
+	}
+	if !(s.Area > 0) || s.N2 <= 0 {
+		return fmt.Errorf("setup: B from flux needs a specimen area > 0 and N2 > 0 (got %v, %d)", s.Area, s.N2)
+	}
+	switch s.Class {
+	case "", ClassSoft, ClassMagnet:
+	default:
+		return fmt.Errorf("setup: class %q: want %q or %q", s.Class, ClassSoft, ClassMagnet)
+	}
+	switch s.Drift {
+	case "", DriftCyclic, DriftDemagStart:
+	default:
+		return fmt.Errorf("setup: drift mode %q: want %q or %q", s.Drift, DriftCyclic, DriftDemagStart)
+	}
+	if !(s.DemagFactor >= 0 && s.DemagFactor < 1) {
+		return fmt.Errorf("setup: demagnetizing factor %g: must be in [0, 1)", s.DemagFactor)
+	}
+	return nil
+}
+
+// ErrNoSweep is returned for a step without enough sweep samples.
+var ErrNoSweep = errors.New("no sweep samples")
+
+// Loop converts the raw samples of one loop step into corrected points
+// (one per usable sweep sample, in time order), figures (record.Figure.U is
+// the expanded uncertainty, k = 2) and the corrections applied, each with
+// its size. raw is not modified. Samples of the pre and post holds give the
+// drift rates; a step without holds gets the closure correction only.
+// Sweep samples with a needed channel missing (NaN) are left out and
+// counted in a correction note; more than half missing is an error.
+func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Figure, corr []record.Correction, err error) {
+	if err := s.Validate(); err != nil {
+		return nil, nil, nil, err
+	}
+	hFrom := s.HFrom
+	if hFrom == "" {
+		hFrom = HFromCurrent
+	}
+	sec := func(d time.Duration) float64 { return d.Seconds() }
+
+	var preT, preP, postT, postP []float64
+	nSweep, missing := 0, 0
+	for _, r := range raw {
+		if r.Phase == record.Sweep {
+			nSweep++
+		}
+	}
+	t := make([]float64, 0, nSweep)
+	psi := make([]float64, 0, nSweep)
+	idx := make([]int, 0, nSweep)
+	var cur, probe, temp []float64
+	if hFrom == HFromCurrent {
+		cur = make([]float64, 0, nSweep)
+	} else {
+		probe = make([]float64, 0, nSweep)
+		temp = make([]float64, 0, nSweep)
+	}
+	nSweep = 0
+	for i, r := range raw {
+		switch r.Phase {
+		case record.PreHold:
+			if finite(r.Psi) {
+				preT, preP = append(preT, sec(r.T)), append(preP, r.Psi)
+			}
+		case record.PostHold:
+			if finite(r.Psi) {
+				postT, postP = append(postT, sec(r.T)), append(postP, r.Psi)
+			}
+		case record.Sweep:
+			nSweep++
+			hv := r.I
+			if hFrom == HFromFieldMeter {
+				hv = r.BProbe
+			}
+			if !finite(r.Psi) || !finite(hv) {
+				missing++
+				continue
+			}
+			t = append(t, sec(r.T))
+			if hFrom == HFromCurrent {
+				cur = append(cur, r.I)
+			} else {
+				probe = append(probe, r.BProbe)
+				temp = append(temp, r.TempC)
+			}
+			psi = append(psi, r.Psi)
+			idx = append(idx, i)
+		default:
+			return nil, nil, nil, fmt.Errorf("sample %d: unknown phase %q", i, r.Phase)
+		}
+	}
+	if nSweep < 3 {
+		return nil, nil, nil, fmt.Errorf("%w: %d in the step", ErrNoSweep, nSweep)
+	}
+	if 2*missing > nSweep {
+		return nil, nil, nil, fmt.Errorf("%d of %d sweep samples lack the flux or the %s reading", missing, nSweep, hFrom)
+	}
+	for i := 1; i < len(t); i++ {
+		if t[i] < t[i-1] {
+			return nil, nil, nil, fmt.Errorf("sample %d: time %v runs backwards", idx[i], raw[idx[i]].T)
+		}
+	}
+	nab := float64(s.N2) * float64(s.Area) // Wb-turns per T
+
+	corr = append(corr, record.Correction{Name: "geometry", Size: float64(s.PathLength), Unit: "m",
+		Note: fmt.Sprintf("l_m %.6g m, A %.6g m², search coil %.6g m², N1 %d, N2 %d; %s",
+			float64(s.PathLength), float64(s.Area), float64(s.CoilArea), s.N1, s.N2, s.Geometry)})
+	if missing > 0 {
+		corr = append(corr, record.Correction{Name: "missing-samples", Size: float64(missing), Unit: "",
+			Note: fmt.Sprintf("%d of %d sweep samples without a reading left out", missing, nSweep)})
+	}
+
+	// H.
+	var h []float64
+	if hFrom == HFromCurrent {
+		h = correct.HFromCurrent(cur, cur, s.N1, s.PathLength)
+	} else {
+		h = correct.HFromProbe(probe, probe, temp, s.Probe)
+	}
+
+	// Drift baseline on ψ.
+	var pre, post correct.Rate
+	var havePre, havePost bool
+	if r, err := correct.DriftRate(preT, preP); err == nil {
+		pre, havePre = r, true
+	}
+	if r, err := correct.DriftRate(postT, postP); err == nil {
+		post, havePost = r, true
+	}
+	switch {
+	case havePre && !havePost:
+		post = pre
+	case havePost && !havePre:
+		pre = post
+	}
+	if havePre || havePost {
+		m := correct.Baseline(t, psi, t[0], pre, post)
+		corr = append(corr, record.Correction{Name: "drift-baseline", Size: m / nab, Unit: "T",
+			Note: fmt.Sprintf("rates pre %s, post %s; rate interpolated linearly in time, largest baseline %.3g Wb-turns",
+				rateText(pre, havePre), rateText(post, havePost), m)})
+	} else {
+		corr = append(corr, record.Correction{Name: "drift-baseline", Size: 0, Unit: "T",
+			Note: "no static holds: drift rate not measured, closure correction only"})
+	}
+
+	b := correct.BFromFlux(psi, psi, s.N2, s.Area)
+	if m := correct.AirFlux(b, h, s.CoilArea, s.Area); m > 0 {
+		corr = append(corr, record.Correction{Name: "air-flux", Size: m, Unit: "T",
+			Note: fmt.Sprintf("B −= μ0·H·(A_c − A)/A, A_c/A = %.4g; largest value", float64(s.CoilArea/s.Area))})
+	}
+
+	shape, err := loop.Detect(h)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	var sources []loop.Source
+	drift := s.Drift
+	if drift == "" {
+		drift = DriftCyclic
+	}
+	if drift == DriftCyclic {
+		tips := shape.Tips(t, h, b)
+		if ta, tb, ok := loop.ClosurePair(tips); ok {
+			eps := tb.B - ta.B
+			if err := correct.Closure(t, b, ta.T, tb.T, eps); err != nil {
+				return nil, nil, nil, err
+			}
+			corr = append(corr, record.Correction{Name: "closure", Size: eps, Unit: "T",
+				Note: fmt.Sprintf("ε = B(t_b) − B(t_a) between tips at %.4g s and %.4g s, removed linearly in time", ta.T, tb.T)})
+			if havePre && havePost && post.T > pre.T {
+				// The baseline's rate slope is uncertain by δ; after closure
+				// through t_a and t_b the residual is δ/(2T)·(t − t_a)(t − t_b).
+				d := math.Hypot(pre.U, post.U)
+				k := d / (2 * (post.T - pre.T)) / nab
+				sources = append(sources, loop.Source{Name: "drift rate", BT2: k, BT1: -k * (tb.T - ta.T), T0: ta.T,
+					Note: "Type A: standard errors of the hold fits; residual after closure"})
+			}
+		} else {
+			corr = append(corr, record.Correction{Name: "closure", Size: 0, Unit: "T",
+				Note: "not applied: fewer than two tips of the same kind"})
+		}
+		tips = shape.Tips(t, h, b)
+		if top, bot, ok := loop.TipLevels(tips); ok {
+			off := correct.Center(b, top, bot)
+			corr = append(corr, record.Correction{Name: "centering", Size: off, Unit: "T",
+				Note: "offset (B_top + B_bottom)/2 subtracted"})
+		}
+	} else {
+		off := correct.Anchor(b, 0)
+		corr = append(corr, record.Correction{Name: "anchor", Size: off, Unit: "T",
+			Note: "demagnetized start: B = 0 at the first sweep sample"})
+		if havePre || havePost {
+			u := pre.U
+			if !havePre {
+				u = post.U
+			}
+			sources = append(sources, loop.Source{Name: "drift rate", BT1: u / nab, T0: t[0],
+				Note: "Type A: standard error of the hold fit, integrated from the start"})
+		}
+		if s.Flux.Offset > 0 {
+			sources = append(sources, loop.Source{Name: "integrator offset", BShift: s.Flux.Offset / 2 / nab,
+				Note: "Type B: profile accuracy, k = 2 → standard"})
+		}
+	}
+	if s.DemagFactor > 0 {
+		m, err := correct.Demag(h, b, s.DemagFactor)
+		if err != nil {
+			return nil, nil, nil, err
+		}
+		corr = append(corr, record.Correction{Name: "demag", Size: m, Unit: "A/m",
+			Note: fmt.Sprintf("H_int = H − N·M with N = %g; largest N·M", s.DemagFactor)})
+	}
+
+	// Budget sources of geometry and instruments.
+	if hFrom == HFromCurrent {
+		sources = appendSource(sources, "path length", -s.RelUPath, 0, 0, 0, "Type B: dimension tolerances")
+		sources = appendSource(sources, "current gain", s.Current.Gain/2, 0, 0, 0, "Type B: profile accuracy, k = 2 → standard")
+		sources = appendSource(sources, "current offset", 0, float64(s.N1)*s.Current.Offset/2/float64(s.PathLength), 0, 0,
+			"Type B: profile accuracy, k = 2 → standard")
+	} else {
+		sources = appendSource(sources, "field-meter gain", s.Field.Gain/2, 0, 0, 0, "Type B: profile accuracy, k = 2 → standard")
+		sources = appendSource(sources, "field-meter offset", 0, s.Field.Offset/2/units.Mu0, 0, 0, "Type B: profile accuracy, k = 2 → standard")
+	}
+	sources = appendSource(sources, "specimen area", 0, 0, -s.RelUArea, 0, "Type B: dimension, mass and density tolerances")
+	sources = appendSource(sources, "integrator gain", 0, 0, s.Flux.Gain/2, 0, "Type B: profile accuracy, k = 2 → standard")
+
+	muB := s.MuInitialB
+	if muB == 0 {
+		muB = DefaultMuInitialB
+	}
+	fs, err := loop.Figures(t, h, b, shape, loop.Options{
+		MuInitialB: float64(muB), InitialCurve: drift == DriftDemagStart,
+		Density: float64(s.Density), Sources: sources,
+	})
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	class := s.Class
+	if class == "" {
+		class = ClassSoft
+	}
+	for _, f := range fs {
+		if !reported(class, f.Name) {
+			continue
+		}
+		figs = append(figs, record.Figure{Name: f.Name, Value: f.Value, U: f.U, Unit: f.Unit,
+			Note: f.Note + "; " + f.Budget.Summary(f.Unit)})
+	}
+
+	points = make([]record.Point, len(t))
+	for i := range t {
+		points[i] = record.Point{T: raw[idx[i]].T, H: h[i], B: b[i], J: b[i] - units.Mu0*h[i]}
+	}
+	shape.Label(func(i, branch int) { points[i].Branch = branch })
+	return points, figs, corr, nil
+}
+
+// reported says which figures a class reports.
+func reported(class, name string) bool {
+	switch name {
+	case loop.FigHmax, loop.FigBmax, loop.FigBr, loop.FigHcB, loop.FigHcJ, loop.FigLossJM3, loop.FigLossJKg:
+		return true
+	case loop.FigMuA, loop.FigMuInitial:
+		return class == ClassSoft
+	case loop.FigBHmax, loop.FigBHmaxB, loop.FigBHmaxH, loop.FigHk, loop.FigSquareness, loop.FigMuRec:
+		return class == ClassMagnet
+	}
+	return false
+}
+
+func appendSource(s []loop.Source, name string, hScale, hShift, bScale, bShift float64, note string) []loop.Source {
+	if hScale == 0 && hShift == 0 && bScale == 0 && bShift == 0 {
+		return s
+	}
+	return append(s, loop.Source{Name: name, HScale: hScale, HShift: hShift, BScale: bScale, BShift: bShift, Note: note})
+}
+
+func rateText(r correct.Rate, ok bool) string {
+	if !ok {
+		return "not measured"
+	}
+	return fmt.Sprintf("%.4g ± %.2g V (%d samples)", r.Rate, r.U, r.N)
+}
+
+func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }

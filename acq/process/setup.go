@@ -1,0 +1,117 @@
+package process
+
+import (
+	"fmt"
+
+	"hystd/acq/config"
+	"hystd/calib/geometry"
+	"hystd/calib/units"
+	"hystd/drivers/profile"
+)
+
+const mm = 1e-3
+
+// SetupFrom builds the Setup of a fixture and specimen: geometry from the
+// specimen's shape block (with geometry.DefaultTol for the budget), turns
+// and search-coil area from the fixture's winding. Warnings (e.g. a ring
+// wider than IEC 60404-4 admits) are returned for the run's events. Errors
+// name the config key at fault. Instrument accuracies are added with
+// SetAccuracy.
+func SetupFrom(fx config.Fixture, sp config.Specimen) (Setup, []string, error) {
+	s := Setup{
+		N1: fx.Winding.N1, N2: fx.Winding.N2,
+		CoilArea: units.SquareMetre(fx.Winding.CoilAreaMM2 * mm * mm),
+		HFrom:    fx.HFrom, Class: sp.Class,
+		Density: units.KilogramPerCubicMetre(sp.DensityKgM3), Mass: units.Kilogram(sp.MassKg),
+	}
+	if s.HFrom == "" {
+		s.HFrom = HFromCurrent
+	}
+	if s.Class == "" {
+		s.Class = ClassSoft
+	}
+	spec := fmt.Sprintf("specimen %s", sp.ID)
+	var g geometry.Result
+	var err error
+	switch sp.Shape {
+	case "ring":
+		r := sp.Ring
+		if r == nil {
+			return Setup{}, nil, fmt.Errorf("%s: ring: shape is ring but the ring block is missing", spec)
+		}
+		g, err = geometry.Ring(units.Metre(r.OuterMM*mm), units.Metre(r.InnerMM*mm), units.Metre(r.HeightMM*mm),
+			r.StackingFactor, r.Path, geometry.DefaultTol)
+	case "epstein":
+		e := sp.Epstein
+		if e == nil {
+			return Setup{}, nil, fmt.Errorf("%s: epstein: shape is epstein but the epstein block is missing", spec)
+		}
+		g, err = geometry.Epstein(units.Kilogram(sp.MassKg), units.Metre(e.StripLengthM),
+			units.KilogramPerCubicMetre(sp.DensityKgM3), e.Strips, geometry.DefaultTol)
+	case "strip":
+		st := sp.Strip
+		if st == nil {
+			return Setup{}, nil, fmt.Errorf("%s: strip: shape is strip but the strip block is missing", spec)
+		}
+		g, err = geometry.Strip(units.Kilogram(sp.MassKg), units.Metre(st.LengthM),
+			units.KilogramPerCubicMetre(sp.DensityKgM3), units.Metre(st.PathLengthM), geometry.DefaultTol)
+		s.DemagFactor = st.DemagFactor
+	case "direct":
+		d := sp.Direct
+		if d == nil {
+			return Setup{}, nil, fmt.Errorf("%s: direct: shape is direct but the direct block is missing", spec)
+		}
+		g, err = geometry.Direct(units.Metre(d.PathLengthMM*mm), units.SquareMetre(d.AreaMM2*mm*mm), 0, 0)
+		s.DemagFactor = d.DemagFactor
+		if err == nil {
+			g.Warnings = append(g.Warnings, "direct geometry: no tolerance given, path length and area are not in the budget")
+		}
+	default:
+		return Setup{}, nil, fmt.Errorf("%s: shape: %q: want ring, epstein, strip or direct", spec, sp.Shape)
+	}
+	if err != nil {
+		return Setup{}, nil, fmt.Errorf("%s: %s: %w", spec, sp.Shape, err)
+	}
+	s.PathLength, s.Area = g.PathLength, g.Area
+	s.RelUPath, s.RelUArea = g.RelUPath, g.RelUArea
+	s.Geometry = g.Method
+	if s.CoilArea > 0 && s.CoilArea < s.Area {
+		return Setup{}, nil, fmt.Errorf("fixture %s: winding.coil_area_mm2: %g mm² is smaller than the specimen's area %.4g mm²",
+			fx.Name, fx.Winding.CoilAreaMM2, float64(s.Area)/(mm*mm))
+	}
+	if err := s.Validate(); err != nil {
+		return Setup{}, nil, fmt.Errorf("fixture %s, %s: %w", fx.Name, spec, err)
+	}
+	return s, g.Warnings, nil
+}
+
+// SetAccuracy copies the reading accuracy of an instrument's profile into
+// the budget: read_current for a supply, read_flux for an integrator,
+// read_field for a field meter. Profiles of other roles, or without an
+// accuracy, change nothing.
+func (s *Setup) SetAccuracy(p *profile.Profile) {
+	if p == nil {
+		return
+	}
+	pick := func(op string) (Accuracy, bool) {
+		o, ok := p.Operations[op]
+		if !ok || o.Accuracy == nil {
+			return Accuracy{}, false
+		}
+		return Accuracy{Gain: o.Accuracy.Gain, Offset: o.Accuracy.Offset}, true
+	}
+	switch p.Role {
+	case config.RoleSupply:
+		if a, ok := pick(profile.OpReadCurrent); ok {
+			s.Current = a
+		}
+	case config.RoleIntegrator:
+		if a, ok := pick(profile.OpReadFlux); ok {
+			s.Flux = a
+		}
+	case config.RoleFieldMeter:
+		if a, ok := pick(profile.OpReadField); ok {
+			s.Field = a
+		}
+	}
+}
