@@ -10,8 +10,8 @@ import (
 
 	"hystd/acq/config"
 	"hystd/acq/record"
-	"hystd/calib/synth"
 	"hystd/calib/loop"
+	"hystd/calib/synth"
 	"hystd/calib/units"
 	"hystd/configs"
 	"hystd/drivers/profile"
