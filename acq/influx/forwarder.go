@@ -1,8 +1,8 @@
 // Package influx forwards stored loops to a time-series database through the
 // InfluxDB v2 write API (InfluxDB 2.x and 3, 1.8+, VictoriaMetrics). The
 // local store is the record of truth; the forwarder drains its outbox:
-// pending entries are turned into points (Points), written in batches with
-// the client's blocking write API, and marked delivered only after the server
+// pending entries are turned into points (Points, encoded by Lines), written
+// in batches with the client's blocking write API (WriteRecord), and marked delivered only after the server
 // acknowledged every batch. Progress is kept per batch, so a restart resumes
 // where the last acknowledged batch ended; timestamps and tags are
 // deterministic, so a batch sent twice overwrites itself.
@@ -24,7 +24,6 @@ import (
 	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
 	"github.com/influxdata/influxdb-client-go/v2/api"
 	ihttp "github.com/influxdata/influxdb-client-go/v2/api/http"
-	"github.com/influxdata/influxdb-client-go/v2/api/write"
 
 	"hystd/acq/store"
 )
@@ -157,6 +156,7 @@ func classify(err error) (permanent string, temp *TemporaryError) {
 
 // pass sends every pending entry once. It returns the number of points
 // acknowledged and stops at the first temporary failure, which it returns.
+// Loading and encoding the next loop overlaps with sending the current one.
 func (f *Forwarder) pass(ctx context.Context) (int, error) {
 	f.mu.Lock()
 	defer f.mu.Unlock()
@@ -169,19 +169,51 @@ func (f *Forwarder) pass(ctx context.Context) (int, error) {
 		if len(entries) == 0 {
 			return sent, nil
 		}
-		for _, e := range entries {
-			n, err := f.send(ctx, e)
-			sent += n
-			if err != nil {
-				return sent, err
-			}
+		n, err := f.sendAll(ctx, entries)
+		sent += n
+		if err != nil {
+			return sent, err
 		}
 	}
 }
 
-// send delivers one entry from its stored progress on.
-func (f *Forwarder) send(ctx context.Context, e store.OutboxEntry) (int, error) {
-	pts, err := f.points(ctx, e)
+type prepared struct {
+	e     store.OutboxEntry
+	lines []string
+	err   error
+}
+
+// sendAll sends entries in order; one goroutine prepares the lines of the
+// next entry while the current one is on the wire.
+func (f *Forwarder) sendAll(ctx context.Context, entries []store.OutboxEntry) (int, error) {
+	pctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	next := make(chan prepared, 1)
+	go func() {
+		defer close(next)
+		for _, e := range entries {
+			lines, err := f.points(pctx, e)
+			select {
+			case next <- prepared{e, lines, err}:
+			case <-pctx.Done():
+				return
+			}
+		}
+	}()
+	sent := 0
+	for p := range next {
+		n, err := f.send(ctx, p)
+		sent += n
+		if err != nil {
+			return sent, err
+		}
+	}
+	return sent, ctx.Err()
+}
+
+// send delivers one prepared entry from its stored progress on.
+func (f *Forwarder) send(ctx context.Context, p prepared) (int, error) {
+	e, pts, err := p.e, p.lines, p.err
 	if err != nil {
 		var perm *permanentError
 		if errors.As(err, &perm) {
@@ -196,7 +228,7 @@ func (f *Forwarder) send(ctx context.Context, e store.OutboxEntry) (int, error) 
 	}
 	for done < len(pts) {
 		end := min(done+f.cfg.BatchSize, len(pts))
-		werr := f.w.WritePoint(ctx, pts[done:end]...)
+		werr := f.w.WriteRecord(ctx, pts[done:end]...)
 		if werr != nil {
 			if ctx.Err() != nil {
 				return sent, ctx.Err()
@@ -236,7 +268,9 @@ type permanentError struct{ msg string }
 
 func (e *permanentError) Error() string { return e.msg }
 
-func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]*write.Point, error) {
+// points returns the entry's loop as lines (Lines: the same points, in the
+// same order, as Points).
+func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]string, error) {
 	r, err := f.ob.Run(ctx, e.RunID)
 	if err != nil {
 		return nil, err
@@ -245,7 +279,7 @@ func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]*write.P
 	if err != nil {
 		return nil, err
 	}
-	pts, err := Points(r, l)
+	pts, err := Lines(r, l)
 	if errors.Is(err, ErrNoStart) {
 		return nil, &permanentError{err.Error()}
 	}

@@ -1,12 +1,14 @@
 package influx
 
 import (
+	"bytes"
 	"errors"
 	"fmt"
 	"io"
 	"math"
 	"sort"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/influxdata/influxdb-client-go/v2/api/write"
@@ -62,14 +64,132 @@ func Base(r record.Run) (time.Time, error) {
 // NaN and ±Inf values have no line-protocol form and are left out; a sample
 // with no finite value at all is left out too.
 func Points(r record.Run, l record.Loop) ([]*write.Point, error) {
+	sp, err := plan(r, l)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]*write.Point, 0, len(sp.rows)+1)
+	for i := range sp.rows {
+		row := &sp.rows[i]
+		if row.n == 0 {
+			continue
+		}
+		fields := make(map[string]any, row.n)
+		for k, name := range sampleFields {
+			if row.set&(1<<k) != 0 {
+				fields[name] = row.v[k]
+			}
+		}
+		tags := make(map[string]string, len(sp.tags)+1)
+		for k, v := range sp.tags {
+			tags[k] = v
+		}
+		tags["branch"] = row.branch
+		out = append(out, write.NewPoint(SampleMeasurement, tags, fields, row.ts))
+	}
+	if fp := figurePoint(sp, l); fp != nil {
+		out = append(out, fp)
+	}
+	return out, nil
+}
+
+// Lines returns the line protocol of Points(r, l), one line per point
+// without the trailing newline, byte for byte what the client's encoder
+// makes of Points (nanosecond timestamps). It is the forwarder's fast path.
+func Lines(r record.Run, l record.Loop) ([]string, error) {
+	sp, err := plan(r, l)
+	if err != nil {
+		return nil, err
+	}
+	prefix := map[string][]byte{}
+	out := make([]string, 0, len(sp.rows)+1)
+	buf := make([]byte, 0, 512)
+	for i := range sp.rows {
+		row := &sp.rows[i]
+		if row.n == 0 {
+			continue
+		}
+		pre, ok := prefix[row.branch]
+		if !ok {
+			tags := make(map[string]string, len(sp.tags)+1)
+			for k, v := range sp.tags {
+				tags[k] = v
+			}
+			tags["branch"] = row.branch
+			if pre, err = linePrefix(SampleMeasurement, tags); err != nil {
+				return nil, err
+			}
+			prefix[row.branch] = pre
+		}
+		buf = append(buf[:0], pre...)
+		first := true
+		for k, name := range sampleFields {
+			if row.set&(1<<k) == 0 {
+				continue
+			}
+			if !first {
+				buf = append(buf, ',')
+			}
+			first = false
+			buf = append(buf, name...)
+			buf = append(buf, '=')
+			buf = strconv.AppendFloat(buf, row.v[k], 'f', -1, 64)
+		}
+		buf = append(buf, ' ')
+		buf = strconv.AppendInt(buf, row.ts.UnixNano(), 10)
+		out = append(out, string(buf))
+	}
+	if fp := figurePoint(sp, l); fp != nil {
+		var b bytes.Buffer
+		if err := encode(&b, fp); err != nil {
+			return nil, err
+		}
+		out = append(out, strings.TrimSuffix(b.String(), "\n"))
+	}
+	return out, nil
+}
+
+// sampleFields are the field keys of a sample point in the order the
+// client's encoder writes them (sorted by byte value).
+var sampleFields = [...]string{"B", "H", "I", "J", "V", "b_probe", "psi", "setpoint", "t", "temp"}
+
+const (
+	fB = iota
+	fH
+	fI
+	fJ
+	fV
+	fBProbe
+	fPsi
+	fSetpoint
+	fT
+	fTemp
+)
+
+// plannedRow is one sample point: its finite field values and timestamp.
+type plannedRow struct {
+	sampleRow
+	v   [len(sampleFields)]float64
+	set uint16 // bit k: v[k] is present
+	n   int    // number of values besides t; 0 means the point is left out
+	ts  time.Time
+}
+
+type samplePlan struct {
+	base time.Time
+	tags map[string]string // without branch
+	rows []plannedRow
+}
+
+func plan(r record.Run, l record.Loop) (*samplePlan, error) {
 	base, err := Base(r)
 	if err != nil {
 		return nil, err
 	}
-	tags := map[string]string{}
+	sp := &samplePlan{base: base, tags: map[string]string{}}
 	put := func(k, v string) {
 		if v != "" {
-			tags[k] = v
+			sp.tags[k] = v
 		}
 	}
 	put("fixture", r.Fixture)
@@ -77,47 +197,49 @@ func Points(r record.Run, l record.Loop) ([]*write.Point, error) {
 	put("material", r.Material)
 	put("run", r.ID)
 	put("loop", strconv.Itoa(l.N))
-
 	rows := joinSamples(l)
-	out := make([]*write.Point, 0, len(rows)+1)
+	sp.rows = make([]plannedRow, len(rows))
 	var lastMs int64 = math.MinInt64
-	for _, row := range rows {
-		fields := make(map[string]any, 10)
-		addf := func(k string, v float64) {
+	for i, row := range rows {
+		pr := &sp.rows[i]
+		pr.sampleRow = row
+		add := func(k int, v float64) {
 			if !math.IsNaN(v) && !math.IsInf(v, 0) {
-				fields[k] = v
+				pr.v[k] = v
+				pr.set |= 1 << k
+				pr.n++
 			}
 		}
 		if p := row.pt; p != nil {
-			addf("H", p.H)
-			addf("B", p.B)
-			addf("J", p.J)
+			add(fH, p.H)
+			add(fB, p.B)
+			add(fJ, p.J)
 		}
 		if s := row.raw; s != nil {
-			addf("I", s.I)
-			addf("psi", s.Psi)
-			addf("V", s.V)
-			addf("setpoint", s.Setpoint)
-			addf("b_probe", s.BProbe)
-			addf("temp", s.TempC)
+			add(fI, s.I)
+			add(fPsi, s.Psi)
+			add(fV, s.V)
+			add(fSetpoint, s.Setpoint)
+			add(fBProbe, s.BProbe)
+			add(fTemp, s.TempC)
 		}
-		if len(fields) == 0 {
+		if pr.n == 0 {
 			continue
 		}
-		fields["t"] = row.t.Seconds()
+		pr.v[fT] = row.t.Seconds()
+		pr.set |= 1 << fT
 		ts := base.Add(row.t)
 		if ms := ts.UnixMilli(); ms <= lastMs {
 			ts = time.UnixMilli(lastMs + 1)
 		}
 		lastMs = ts.UnixMilli()
-		st := make(map[string]string, len(tags)+1)
-		for k, v := range tags {
-			st[k] = v
-		}
-		st["branch"] = row.branch
-		out = append(out, write.NewPoint(SampleMeasurement, st, fields, ts.UTC()))
+		pr.ts = ts.UTC()
 	}
+	return sp, nil
+}
 
+// figurePoint is the loop's figure point, or nil when it has no finite figure.
+func figurePoint(sp *samplePlan, l record.Loop) *write.Point {
 	ff := map[string]any{}
 	for _, f := range l.Figures {
 		if f.Name == "" {
@@ -130,27 +252,49 @@ func Points(r record.Run, l record.Loop) ([]*write.Point, error) {
 			ff[f.Name+"_u"] = f.U
 		}
 	}
-	if len(ff) > 0 {
-		ft := make(map[string]string, len(tags)+1)
-		for k, v := range tags {
-			ft[k] = v
-		}
-		put2 := func(k, v string) {
-			if v != "" {
-				ft[k] = v
-			}
-		}
-		put2("kind", l.Kind)
-		at := l.Started
-		if at.IsZero() {
-			at = base
-			if len(rows) > 0 {
-				at = base.Add(rows[0].t)
-			}
-		}
-		out = append(out, write.NewPoint(FigureMeasurement, ft, ff, at.UTC()))
+	if len(ff) == 0 {
+		return nil
 	}
-	return out, nil
+	ft := make(map[string]string, len(sp.tags)+1)
+	for k, v := range sp.tags {
+		ft[k] = v
+	}
+	if l.Kind != "" {
+		ft["kind"] = l.Kind
+	}
+	at := l.Started
+	if at.IsZero() {
+		at = sp.base
+		if len(sp.rows) > 0 {
+			at = sp.base.Add(sp.rows[0].t)
+		}
+	}
+	return write.NewPoint(FigureMeasurement, ft, ff, at.UTC())
+}
+
+// encode writes p with the encoder set up exactly as the client's write
+// service sets it up.
+func encode(w io.Writer, p *write.Point) error {
+	e := lp.NewEncoder(w)
+	e.SetFieldTypeSupport(lp.UintSupport)
+	e.FailOnFieldErr(true)
+	e.SetPrecision(time.Nanosecond)
+	_, err := e.Encode(p)
+	return err
+}
+
+// linePrefix is "measurement,tags " as the client's encoder escapes them.
+func linePrefix(meas string, tags map[string]string) ([]byte, error) {
+	var b bytes.Buffer
+	if err := encode(&b, write.NewPoint(meas, tags, map[string]any{"x": 0.0}, time.Unix(0, 1))); err != nil {
+		return nil, err
+	}
+	line := b.Bytes()
+	const tail = "x=0 1\n"
+	if !bytes.HasSuffix(line, []byte(tail)) {
+		return nil, fmt.Errorf("influx: unexpected encoding %q", line)
+	}
+	return line[:len(line)-len(tail)], nil
 }
 
 type sampleRow struct {
@@ -219,21 +363,16 @@ func branchOf(b int) string {
 
 // WriteLineProtocol writes the points of a loop (see Points) as line
 // protocol with nanosecond timestamps, one point per line: the same bytes the
-// forwarder sends.
+// forwarder sends. It returns the number of lines written.
 func WriteLineProtocol(w io.Writer, r record.Run, l record.Loop) (int, error) {
-	pts, err := Points(r, l)
+	lines, err := Lines(r, l)
 	if err != nil {
 		return 0, err
 	}
-	// The encoder set up exactly as the client's write service does.
-	e := lp.NewEncoder(w)
-	e.SetFieldTypeSupport(lp.UintSupport)
-	e.FailOnFieldErr(true)
-	e.SetPrecision(time.Nanosecond)
-	for i, p := range pts {
-		if _, err := e.Encode(p); err != nil {
+	for i, line := range lines {
+		if _, err := io.WriteString(w, line+"\n"); err != nil {
 			return i, err
 		}
 	}
-	return len(pts), nil
+	return len(lines), nil
 }

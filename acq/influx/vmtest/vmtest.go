@@ -1,0 +1,313 @@
+// Package vmtest runs a real VictoriaMetrics single-node server for tests:
+// it builds the server with the Go command (once per machine, cached under
+// the user cache directory), starts it on 127.0.0.1 with its data in a
+// temporary directory, and reads points back through /api/v1/export.
+//
+// Under `go test -short` the server tests are skipped. When the build fails
+// the test is skipped, except under CI=true, where it fails.
+package vmtest
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"net/http"
+	"net/url"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+)
+
+// Module is the server's Go package and version, built with `go install`.
+// v1.150.0 is the newest that builds with Go 1.26.
+const Module = "github.com/VictoriaMetrics/VictoriaMetrics/app/victoria-metrics@v1.150.0"
+
+// Dir returns the directory the server binary is cached in:
+// $HYSTD_VM_DIR, else <user cache dir>/hystd-vm.
+func Dir() (string, error) {
+	if d := os.Getenv("HYSTD_VM_DIR"); d != "" {
+		return d, nil
+	}
+	c, err := os.UserCacheDir()
+	if err != nil {
+		return "", err
+	}
+	return filepath.Join(c, "hystd-vm"), nil
+}
+
+var buildMu sync.Mutex
+
+// Binary returns the path of the server binary, building it first if it is
+// not in Dir. Concurrent test processes wait for one build (a lock file).
+func Binary(ctx context.Context) (string, error) {
+	buildMu.Lock()
+	defer buildMu.Unlock()
+	dir, err := Dir()
+	if err != nil {
+		return "", err
+	}
+	bin := filepath.Join(dir, "victoria-metrics")
+	if fi, err := os.Stat(bin); err == nil && fi.Mode().IsRegular() {
+		return bin, nil
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return "", err
+	}
+	lock, err := os.OpenFile(filepath.Join(dir, ".lock"), os.O_CREATE|os.O_RDWR, 0o644)
+	if err != nil {
+		return "", err
+	}
+	defer lock.Close()
+	if err := syscall.Flock(int(lock.Fd()), syscall.LOCK_EX); err != nil {
+		return "", err
+	}
+	defer syscall.Flock(int(lock.Fd()), syscall.LOCK_UN)
+	if _, err := os.Stat(bin); err == nil { // built by another process meanwhile
+		return bin, nil
+	}
+	goCmd := filepath.Join(runtimeGOROOT(), "bin", "go")
+	if _, err := os.Stat(goCmd); err != nil {
+		goCmd = "go"
+	}
+	cmd := exec.CommandContext(ctx, goCmd, "install", Module)
+	cmd.Env = append(os.Environ(), "GOBIN="+dir, "CGO_ENABLED=0")
+	out, err := cmd.CombinedOutput()
+	if err != nil {
+		return "", fmt.Errorf("go install %s: %v\n%s", Module, err, out)
+	}
+	if _, err := os.Stat(bin); err != nil {
+		return "", fmt.Errorf("go install %s did not produce %s", Module, bin)
+	}
+	return bin, nil
+}
+
+// runtimeGOROOT is the GOROOT of the go command running the tests.
+func runtimeGOROOT() string {
+	if r := os.Getenv("GOROOT"); r != "" {
+		return r
+	}
+	out, err := exec.Command("go", "env", "GOROOT").Output()
+	if err != nil {
+		return ""
+	}
+	return strings.TrimSpace(string(out))
+}
+
+// Server is one running (or stopped) server process with its data directory.
+type Server struct {
+	// URL is the base URL, e.g. http://127.0.0.1:40329; it stays the same
+	// across Stop and Start.
+	URL  string
+	t    testing.TB
+	bin  string
+	data string
+	addr string // host:port once known
+	args []string
+
+	mu   sync.Mutex
+	cmd  *exec.Cmd
+	done chan struct{}
+}
+
+// Start builds (if needed) and starts a server for the test and stops it in
+// t.Cleanup. Extra flags are passed to the server. It skips the test under
+// -short, or when the build fails and CI is not "true".
+func Start(t testing.TB, flags ...string) *Server {
+	t.Helper()
+	if testing.Short() {
+		t.Skip("VictoriaMetrics server test: skipped with -short")
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 15*time.Minute)
+	defer cancel()
+	bin, err := Binary(ctx)
+	if err != nil {
+		if os.Getenv("CI") == "true" {
+			t.Fatalf("building the test server: %v", err)
+		}
+		t.Skipf("building the test server failed (set CI=true to fail instead): %v", err)
+	}
+	s := &Server{t: t, bin: bin, data: t.TempDir(), addr: "127.0.0.1:0", args: flags}
+	if err := s.start(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(s.Stop)
+	return s
+}
+
+var startedRe = regexp.MustCompile(`started server at http://([0-9.]+:[0-9]+)/`)
+
+func (s *Server) start() error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.cmd != nil {
+		return errors.New("vmtest: server already running")
+	}
+	args := append([]string{
+		"-storageDataPath=" + s.data,
+		"-httpListenAddr=" + s.addr,
+		"-retentionPeriod=100y",
+		"-loggerLevel=INFO",
+	}, s.args...)
+	cmd := exec.Command(s.bin, args...)
+	stderr, err := cmd.StderrPipe()
+	if err != nil {
+		return err
+	}
+	cmd.Stdout = io.Discard
+	if err := cmd.Start(); err != nil {
+		return fmt.Errorf("vmtest: start %s: %w", s.bin, err)
+	}
+	addrc := make(chan string, 1)
+	var tail []string
+	var tailMu sync.Mutex
+	go func() {
+		sc := bufio.NewScanner(stderr)
+		sc.Buffer(make([]byte, 64*1024), 1024*1024)
+		sent := false
+		for sc.Scan() {
+			line := sc.Text()
+			tailMu.Lock()
+			tail = append(tail, line)
+			if len(tail) > 20 {
+				tail = tail[1:]
+			}
+			tailMu.Unlock()
+			if m := startedRe.FindStringSubmatch(line); m != nil && !sent {
+				addrc <- m[1]
+				sent = true
+			}
+		}
+		io.Copy(io.Discard, stderr)
+	}()
+	done := make(chan struct{})
+	go func() { cmd.Wait(); close(done) }()
+	select {
+	case a := <-addrc:
+		s.addr = a
+		s.URL = "http://" + a
+	case <-done:
+		tailMu.Lock()
+		defer tailMu.Unlock()
+		return fmt.Errorf("vmtest: server exited before listening:\n%s", strings.Join(tail, "\n"))
+	case <-time.After(60 * time.Second):
+		cmd.Process.Kill()
+		<-done
+		return errors.New("vmtest: server did not report its address within 60 s")
+	}
+	s.cmd, s.done = cmd, done
+	return nil
+}
+
+// Stop stops the server (SIGTERM, then SIGKILL after 10 s) and waits for it.
+// Stopping a stopped server does nothing.
+func (s *Server) Stop() {
+	s.mu.Lock()
+	cmd, done := s.cmd, s.done
+	s.cmd = nil
+	s.mu.Unlock()
+	if cmd == nil {
+		return
+	}
+	cmd.Process.Signal(syscall.SIGTERM)
+	select {
+	case <-done:
+	case <-time.After(10 * time.Second):
+		cmd.Process.Kill()
+		<-done
+	}
+}
+
+// Restart starts a stopped server again on the same address and data.
+func (s *Server) Restart() {
+	s.t.Helper()
+	var err error
+	for i := 0; i < 50; i++ { // the port may linger a moment after the stop
+		if err = s.start(); err == nil {
+			return
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+	s.t.Fatalf("vmtest: restart: %v", err)
+}
+
+// Series is one exported time series: its labels and raw samples.
+type Series struct {
+	Metric     map[string]string `json:"metric"`
+	Values     []float64         `json:"values"`
+	Timestamps []int64           `json:"timestamps"` // ms
+}
+
+// Export flushes the server's buffers and returns the raw samples of the
+// series matching the selector (e.g. `{__name__=~"hyst_.*",run="r1"}`).
+func (s *Server) Export(ctx context.Context, match string) ([]Series, error) {
+	if err := s.get(ctx, "/internal/force_flush", nil); err != nil {
+		return nil, err
+	}
+	var out []Series
+	err := s.get(ctx, "/api/v1/export?"+url.Values{"match[]": {match}}.Encode(), func(r io.Reader) error {
+		dec := json.NewDecoder(r)
+		for {
+			var se Series
+			if err := dec.Decode(&se); err == io.EOF {
+				return nil
+			} else if err != nil {
+				return err
+			}
+			out = append(out, se)
+		}
+	})
+	return out, err
+}
+
+// Count is the total number of raw samples in series.
+func Count(series []Series) int {
+	n := 0
+	for _, s := range series {
+		n += len(s.Values)
+	}
+	return n
+}
+
+// WaitCount polls Export until it holds at least want samples or 10 s
+// passed (ingested data becomes searchable after a short delay), and
+// returns the last answer.
+func (s *Server) WaitCount(ctx context.Context, match string, want int) ([]Series, error) {
+	deadline := time.Now().Add(10 * time.Second)
+	for {
+		se, err := s.Export(ctx, match)
+		if err == nil && Count(se) >= want || time.Now().After(deadline) {
+			return se, err
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+}
+
+func (s *Server) get(ctx context.Context, path string, read func(io.Reader) error) error {
+	req, err := http.NewRequestWithContext(ctx, http.MethodGet, s.URL+path, nil)
+	if err != nil {
+		return err
+	}
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		return err
+	}
+	defer resp.Body.Close()
+	if resp.StatusCode/100 != 2 {
+		b, _ := io.ReadAll(io.LimitReader(resp.Body, 4096))
+		return fmt.Errorf("vmtest: GET %s: %s: %s", path, resp.Status, b)
+	}
+	if read == nil {
+		_, err = io.Copy(io.Discard, resp.Body)
+		return err
+	}
+	return read(resp.Body)
+}
