@@ -10,14 +10,15 @@ import (
 
 // PortInfo is one serial port as the kernel describes it.
 type PortInfo struct {
-	Path         string   // /dev/ttyUSB0
-	ByID         []string // /dev/serial/by-id links pointing at Path
-	Driver       string   // kernel driver, e.g. ftdi_sio, cdc_acm, serial8250
-	USB          bool
-	VID, PID     string // uppercase hex, USB only
-	Serial       string // USB serial number, may be empty
-	Manufacturer string
-	Product      string
+	Path         string   `json:"path"`             // /dev/ttyUSB0
+	ByID         []string `json:"by_id,omitempty"`  // /dev/serial/by-id links pointing at Path
+	Driver       string   `json:"driver,omitempty"` // kernel driver, e.g. ftdi_sio, cdc_acm
+	USB          bool     `json:"usb"`
+	VID          string   `json:"vid,omitempty"` // uppercase hex, USB only
+	PID          string   `json:"pid,omitempty"`
+	Serial       string   `json:"serial,omitempty"` // USB serial number, may be empty
+	Manufacturer string   `json:"manufacturer,omitempty"`
+	Product      string   `json:"product,omitempty"`
 }
 
 // Matches reports whether the port is the USB adapter u (VID and PID
