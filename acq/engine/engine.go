@@ -134,8 +134,8 @@ func NewRunID(fixture string, at time.Time) string {
 // would cross a fixture limit or the supply's range is returned as *Refused)
 // and creates the run in the Writer in state queued.
 func Prepare(ctx context.Context, s Setup) (*Plan, error) {
-	if s.Recipe == nil || s.Writer == nil || s.Instruments.Supply == nil {
-		return nil, errors.New("engine: a setup needs a recipe, a writer and a supply")
+	if s.Recipe == nil || s.Writer == nil {
+		return nil, errors.New("engine: a setup needs a recipe and a writer")
 	}
 	if s.Clock == nil {
 		s.Clock = RealClock{}
@@ -154,11 +154,8 @@ func Prepare(ctx context.Context, s Setup) (*Plan, error) {
 	if err != nil {
 		return nil, &Refused{err}
 	}
-	lim := s.Instruments.Supply.Limits()
-	for _, st := range steps {
-		if lim.MaxCurrent > 0 && st.PeakCurrent > float64(lim.MaxCurrent) {
-			return nil, &Refused{s.Recipe.Errorf(st.Source, "step %d (%s) needs %.4g A, beyond the supply's range of %g A", st.N, st.Source, st.PeakCurrent, float64(lim.MaxCurrent))}
-		}
+	if err := checkSupply(s, steps); err != nil {
+		return nil, err
 	}
 	now := s.Clock.Now()
 	if s.Queued.IsZero() {
@@ -186,6 +183,54 @@ func Prepare(ctx context.Context, s Setup) (*Plan, error) {
 	}
 	p.publish(live.Event{Kind: live.KindState, State: record.Queued, Steps: len(steps)})
 	return p, nil
+}
+
+// checkSupply refuses steps beyond the supply's range (when a supply is given).
+func checkSupply(s Setup, steps []recipe.Step) error {
+	if s.Instruments.Supply == nil {
+		return nil
+	}
+	lim := s.Instruments.Supply.Limits()
+	for _, st := range steps {
+		if lim.MaxCurrent > 0 && st.PeakCurrent > float64(lim.MaxCurrent) {
+			return &Refused{s.Recipe.Errorf(st.Source, "step %d (%s) needs %.4g A, beyond the supply's range of %g A", st.N, st.Source, st.PeakCurrent, float64(lim.MaxCurrent))}
+		}
+	}
+	return nil
+}
+
+// SetInstruments gives a plan prepared without instruments (queued before
+// its fixture's ports were opened) the opened roles and, when proc is not
+// nil, the processing built for them; it refuses the plan (a *Refused) when
+// a step is beyond the supply's range.
+func (p *Plan) SetInstruments(in Instruments, proc Processor) error {
+	s := p.s
+	s.Instruments = in
+	if proc != nil {
+		s.Process = proc
+	}
+	if err := checkSupply(s, p.Steps); err != nil {
+		return err
+	}
+	p.s = s
+	return nil
+}
+
+// End records the ending of a plan that will not be executed (aborted while
+// queued, or its instruments could not be opened). Nothing is energised.
+func (p *Plan) End(ctx context.Context, st record.State, reason string) record.Run {
+	at := p.s.Clock.Now()
+	wctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), WriteTimeout)
+	defer cancel()
+	if err := p.s.Writer.SetState(wctx, p.run.ID, st, reason, at); err != nil {
+		p.s.Log.Error("run state not stored", "run", p.run.ID, "state", st, "err", err)
+	}
+	if err := p.s.Writer.AddEvent(wctx, record.Event{RunID: p.run.ID, At: at, Level: "warn", Text: fmt.Sprintf("run %s before it started: %s", st, reason)}); err != nil {
+		p.s.Log.Error("event not stored", "run", p.run.ID, "err", err)
+	}
+	p.publish(live.Event{Kind: live.KindState, State: st, Reason: reason, At: at})
+	p.run.State, p.run.Reason, p.run.Ended = st, reason, at
+	return p.run
 }
 
 func needsGeometry(s Setup) bool {
@@ -226,6 +271,9 @@ func (p *Plan) publish(e live.Event) {
 // state and reason are recorded before Execute returns. The error is nil for
 // a finished run, a *Stop otherwise.
 func (p *Plan) Execute(ctx context.Context) (record.Run, error) {
+	if p.s.Instruments.Supply == nil {
+		return p.End(ctx, record.Failed, "no supply opened for the fixture"), &Stop{State: record.Failed, Reason: "no supply"}
+	}
 	x := newExec(p)
 	err := x.steps(ctx)
 	return x.end(ctx, err)

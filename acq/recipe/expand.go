@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"hystd/acq/config"
+	"hystd/acq/process"
 	"hystd/acq/record"
 	"hystd/calib/units"
 	"hystd/configs"
@@ -143,30 +144,16 @@ func (g Geometry) AmperePerAm() float64 {
 }
 
 // GeometryOf returns the fixture's turns and the specimen's magnetic path
-// length: ring mean π(D+d)/2 (IEC 60404-4) or effective l_e (IEC 60205),
-// Epstein 0.94 m (IEC 60404-2 convention), strip path or length, direct.
+// length exactly as the loop processing computes them (process.SetupFrom:
+// ring mean path π(D+d)/2 per IEC 60404-4 or effective l_e per IEC 60205,
+// Epstein 0.94 m per IEC 60404-2, strip, direct), so that a refusal and the
+// stored H use the same l_m.
 func GeometryOf(fx config.Fixture, sp config.Specimen) (Geometry, error) {
-	g := Geometry{N1: fx.Winding.N1}
-	switch {
-	case sp.Shape == "ring" && sp.Ring != nil:
-		r1, r2 := sp.Ring.InnerMM/2000, sp.Ring.OuterMM/2000
-		if sp.Ring.Path == "effective" {
-			g.PathLength = units.Metre(2 * math.Pi * math.Log(r2/r1) / (1/r1 - 1/r2))
-		} else {
-			g.PathLength = units.Metre(math.Pi * (r1 + r2))
-		}
-	case sp.Shape == "epstein" && sp.Epstein != nil:
-		g.PathLength = 0.94
-	case sp.Shape == "strip" && sp.Strip != nil:
-		g.PathLength = units.Metre(sp.Strip.PathLengthM)
-		if g.PathLength == 0 {
-			g.PathLength = units.Metre(sp.Strip.LengthM)
-		}
-	case sp.Shape == "direct" && sp.Direct != nil:
-		g.PathLength = units.Metre(sp.Direct.PathLengthMM / 1000)
-	default:
-		return g, fmt.Errorf("specimen %q: shape %q has no geometry block", sp.ID, sp.Shape)
+	s, _, err := process.SetupFrom(fx, sp)
+	if err != nil {
+		return Geometry{N1: fx.Winding.N1}, fmt.Errorf("specimen %q on fixture %q: %w", sp.ID, fx.Name, err)
 	}
+	g := Geometry{N1: s.N1, PathLength: s.PathLength}
 	if !(g.PathLength > 0) || g.N1 <= 0 {
 		return g, fmt.Errorf("specimen %q on fixture %q: path length %g m and N1 %d must be positive", sp.ID, fx.Name, float64(g.PathLength), g.N1)
 	}

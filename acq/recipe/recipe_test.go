@@ -65,11 +65,12 @@ func TestGeometryOf(t *testing.T) {
 	}{
 		{"ring mean path, IEC 60404-4", 100, ring("mean"), 2, 1414.71, 0.01},
 		{"ring effective path, IEC 60205", 100, ring("effective"), 2, 1426.48, 0.01},
-		{"Epstein 0.94 m, IEC 60404-2", 700, config.Specimen{ID: "e", Shape: "epstein", Epstein: &config.Epstein{StripLengthM: 0.3, Strips: 20}}, 1, 744.68, 0.01},
+		{"Epstein 0.94 m, IEC 60404-2", 700, config.Specimen{ID: "e", Shape: "epstein", MassKg: 1, DensityKgM3: 7650,
+			Epstein: &config.Epstein{StripLengthM: 0.3, Strips: 20}}, 1, 744.68, 0.01},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			g, err := GeometryOf(config.Fixture{Winding: config.Winding{N1: tc.n1}}, tc.sp)
+			g, err := GeometryOf(config.Fixture{Winding: config.Winding{N1: tc.n1, N2: 100}}, tc.sp)
 			if err != nil {
 				t.Fatal(err)
 			}
