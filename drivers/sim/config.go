@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 
@@ -130,13 +131,6 @@ func DefaultBench() (Config, error) {
 // BenchFrom decodes and validates a parsed bench document (for `hystd
 // check`): every problem found is returned, as configs.Errors.
 func BenchFrom(doc *configs.Doc) (Config, error) {
-	read := func(p string) ([]byte, string, error) {
-		if !filepath.IsAbs(p) {
-			p = filepath.Join(filepath.Dir(doc.File), p)
-		}
-		b, err := os.ReadFile(p)
-		return b, p, err
-	}
 	var c Config
 	if err := doc.Decode(&c); err != nil {
 		return Config{}, err
@@ -178,7 +172,7 @@ func BenchFrom(doc *configs.Doc) (Config, error) {
 		if ic.Profile == "" {
 			ic.Profile = defaultProfiles[role]
 		}
-		p, err := loadProfile(ic.Profile, read)
+		p, err := loadProfile(ic.Profile, filepath.Dir(doc.File))
 		if err != nil {
 			es = append(es, doc.Errorf(key+".profile", "%v", err))
 			continue
@@ -205,36 +199,19 @@ func BenchFrom(doc *configs.Doc) (Config, error) {
 	return c, nil
 }
 
-// loadProfile finds a profile by name among the embedded samples, or reads
-// it from a path (a value with a slash or ending in .yaml).
-func loadProfile(ref string, read func(string) ([]byte, string, error)) (profile.Profile, error) {
-	var data []byte
-	var file string
-	var err error
-	if strings.ContainsRune(ref, '/') || strings.HasSuffix(ref, ".yaml") {
-		data, file, err = read(ref)
-	} else {
-		file = "instruments/" + ref + ".yaml"
-		data, err = configs.Samples.ReadFile(file)
-		if err != nil {
-			return profile.Profile{}, fmt.Errorf("no profile named %q in configs/instruments", ref)
+// loadProfile loads a profile with profile.Load: a name among the shipped
+// profiles, or a path (a value with a slash or ending in .yaml), relative to
+// the bench file's folder.
+func loadProfile(ref, dir string) (profile.Profile, error) {
+	if (strings.ContainsRune(ref, '/') || strings.HasSuffix(ref, ".yaml") || strings.HasSuffix(ref, ".yml")) && !filepath.IsAbs(ref) {
+		ref = filepath.Join(dir, ref)
+		if !strings.ContainsRune(ref, '/') {
+			ref = "./" + ref
 		}
+	} else if !filepath.IsAbs(ref) && !slices.Contains(profile.Names(), ref) {
+		return profile.Profile{}, fmt.Errorf("no profile named %q in configs/instruments", ref)
 	}
-	if err != nil {
-		return profile.Profile{}, err
-	}
-	doc, err := configs.Parse(file, data)
-	if err != nil {
-		return profile.Profile{}, err
-	}
-	var p profile.Profile
-	if err := doc.Decode(&p); err != nil {
-		return profile.Profile{}, err
-	}
-	if p.Kind != "instrument-profile" {
-		return profile.Profile{}, fmt.Errorf("%s: kind must be instrument-profile, got %q", file, p.Kind)
-	}
-	return p, nil
+	return profile.Load(ref)
 }
 
 // checkProfile refuses a profile with an operation the bench cannot serve.

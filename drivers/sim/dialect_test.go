@@ -2,6 +2,7 @@ package sim
 
 import (
 	"bytes"
+	"math"
 	"os"
 	"strings"
 	"testing"
@@ -49,8 +50,8 @@ func TestServesAnyProfile(t *testing.T) {
 	if tr := b.Truth(); tr.I != 1.5 {
 		t.Errorf("truth I = %g A, want 1.5 (1500 mA)", tr.I)
 	}
-	if f := fields(ask("VOUT?")); len(f) != 3 || f[2] != f[0] {
-		t.Errorf("VOUT? fields %q", f)
+	if f := fields(ask("VOUT?")); len(f) != 2 || f[0] != "0" || math.Abs(num(t, f[1])-1.5*b.Truth().Resistance) > 1e-5 {
+		t.Errorf("VOUT? fields %q, want status 0 and R·I in field 2", f)
 	}
 	if r := ask("COND?"); r != "1" {
 		t.Errorf("COND? = %q, want 1 (output on bit 0)", r)

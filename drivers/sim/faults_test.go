@@ -3,6 +3,7 @@ package sim
 import (
 	"context"
 	"errors"
+	"log/slog"
 	"os"
 	"strings"
 	"testing"
@@ -32,7 +33,7 @@ func driver(t *testing.T, b *Bench, role string) (*link.Conn, *scpi.Client) {
 	t.Helper()
 	conn, err := link.Open(context.Background(), link.Address{Path: b.Ports()[role]},
 		link.Settings{Baud: 115200, ReadTimeout: 150 * time.Millisecond},
-		link.Options{Backoff: link.Backoff{Initial: time.Millisecond, Max: 10 * time.Millisecond, Attempts: 50}})
+		link.Options{Log: slog.New(slog.DiscardHandler), Backoff: link.Backoff{Initial: time.Millisecond, Max: 10 * time.Millisecond, Attempts: 50}})
 	if err != nil {
 		t.Fatal(err)
 	}

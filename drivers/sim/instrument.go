@@ -165,6 +165,12 @@ func (b *Bench) command(in *instrument, cmd string) (string, bool) {
 		in.st.push(b.unmatched(in, up))
 		return "", false
 	}
+	switch m.name {
+	case opPoll:
+		return m.op.PollDone, true
+	case opLiteral:
+		return "", false
+	}
 	if m.query {
 		r, e := b.query(in, m)
 		if e != nil {

@@ -98,8 +98,12 @@ func (s *scpiState) stb() int {
 }
 
 // matcher recognises the command lines of one operation of a profile.
+// Two pseudo-operations complete the profile: an operation's Poll query
+// (answered with its PollDone: the simulated operation is done at once)
+// and the literal lines of Init and SafeState that are no operation
+// (accepted and ignored, e.g. a remote-lock command).
 type matcher struct {
-	name   string
+	name   string // operation name, or opPoll / opLiteral
 	op     profile.Operation
 	query  bool
 	prefix string // upper case; for templates with "{}", the part before it
@@ -123,9 +127,24 @@ func newMatchers(p profile.Profile) []matcher {
 			m.prefix = strings.ToUpper(tmpl)
 		}
 		ms = append(ms, m)
+		if op.Poll != "" {
+			ms = append(ms, matcher{name: opPoll, query: true, prefix: strings.ToUpper(normalize(op.Poll)),
+				op: profile.Operation{PollDone: op.PollDone}})
+		}
+	}
+	for _, l := range append(append([]string{}, p.Init...), p.SafeState...) {
+		if _, _, ok := match(ms, normalize(l)); !ok && !strings.HasPrefix(l, "*") {
+			ms = append(ms, matcher{name: opLiteral, prefix: strings.ToUpper(normalize(l))})
+		}
 	}
 	return ms
 }
+
+// Names of the pseudo-operations.
+const (
+	opPoll    = "(poll)"
+	opLiteral = "(literal)"
+)
 
 // normalize trims a command and collapses runs of blanks into one space.
 func normalize(s string) string { return strings.Join(strings.Fields(s), " ") }
@@ -230,19 +249,31 @@ func encodeReply(op profile.Operation, r reply) string {
 		}
 		return r.Key
 	case parse == "number-unit":
-		return num() + " " + op.Unit
+		// The suffix with factor 1 (the instrument unit), else Unit.
+		unit := op.Unit
+		for sfx, f := range op.Suffixes {
+			if f == 1 {
+				unit = sfx
+				break
+			}
+		}
+		return num() + " " + unit
 	case strings.HasPrefix(parse, "field:"):
-		// Every field carries the value, so the reply reads the same whether
-		// a client counts fields from 0 or from 1.
+		// N counts from 1; the fields before the value are status codes, 0.
 		n, err := strconv.Atoi(strings.TrimPrefix(parse, "field:"))
-		if err != nil || n < 0 {
-			n = 0
+		if err != nil || n < 1 {
+			n = 1
 		}
-		f := make([]string, n+1)
+		f := make([]string, n)
 		for i := range f {
-			f[i] = num()
+			f[i] = "0"
 		}
-		return strings.Join(f, ",")
+		f[n-1] = num()
+		sep := op.Separator
+		if sep == "" {
+			sep = ","
+		}
+		return strings.Join(f, sep)
 	default:
 		return num()
 	}
