@@ -1,0 +1,223 @@
+// Package export writes a stored run in one of the exchange formats of
+// `hystd export`: CSV (samples), JSON (everything), line protocol (the same
+// points the forwarder sends), SVG and PNG (the loop plot).
+//
+// Export only reads: it takes a record.Reader and never changes the store.
+package export
+
+import (
+	"bufio"
+	"context"
+	"encoding/csv"
+	"fmt"
+	"io"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"hystd/acq/influx"
+	"hystd/acq/plot"
+	"hystd/acq/record"
+)
+
+// Format is an export format name.
+type Format string
+
+// Formats.
+const (
+	CSV  Format = "csv"
+	JSON Format = "json"
+	LP   Format = "lp"
+	SVG  Format = "svg"
+	PNG  Format = "png"
+)
+
+// Formats lists the format names in the order help texts show them.
+func Formats() []Format { return []Format{CSV, JSON, LP, SVG, PNG} }
+
+// ParseFormat accepts a format name, case-insensitively.
+func ParseFormat(s string) (Format, error) {
+	f := Format(strings.ToLower(strings.TrimSpace(s)))
+	for _, k := range Formats() {
+		if f == k {
+			return f, nil
+		}
+	}
+	names := make([]string, 0, 5)
+	for _, k := range Formats() {
+		names = append(names, string(k))
+	}
+	return "", fmt.Errorf("unknown format %q: want one of %s", s, strings.Join(names, ", "))
+}
+
+// Options select what is exported.
+type Options struct {
+	// Loop exports only loop n (1-based); 0 exports every loop of the run.
+	Loop int
+	// Plot passes drawing options to SVG and PNG.
+	Plot plot.Options
+}
+
+// Write exports run id from rd to w in format f. Errors name the run, the
+// loop or the format; record.ErrNotFound is wrapped for an unknown run or
+// loop. w is not closed.
+func Write(ctx context.Context, w io.Writer, rd record.Reader, id string, f Format, o Options) error {
+	if _, err := ParseFormat(string(f)); err != nil {
+		return err
+	}
+	if o.Loop < 0 {
+		return fmt.Errorf("loop %d: loops are numbered from 1", o.Loop)
+	}
+	r, err := rd.Run(ctx, id)
+	if err != nil {
+		return err
+	}
+	loops, err := load(ctx, rd, r.ID, o.Loop)
+	if err != nil {
+		return err
+	}
+	switch f {
+	case CSV:
+		return writeCSV(w, r, loops)
+	case JSON:
+		var evs []record.Event
+		if evs, err = rd.Events(ctx, r.ID); err != nil {
+			return err
+		}
+		return writeJSON(w, r, loops, evs)
+	case LP:
+		bw := bufio.NewWriter(w)
+		for _, l := range loops {
+			if _, err := influx.WriteLineProtocol(bw, r, l); err != nil {
+				return fmt.Errorf("run %s loop %d: %w", r.ID, l.N, err)
+			}
+		}
+		return bw.Flush()
+	case SVG, PNG:
+		po := o.Plot
+		if po.Title == "" {
+			po.Title = fmt.Sprintf("%s · %s · %s", r.ID, r.Specimen, r.Fixture)
+		}
+		if f == SVG {
+			err = plot.SVG(w, loops, po)
+		} else {
+			err = plot.PNG(w, loops, po)
+		}
+		if err != nil {
+			return fmt.Errorf("run %s: %w", r.ID, err)
+		}
+		return nil
+	}
+	return nil
+}
+
+// load reads loop n, or every loop of the run with its samples.
+func load(ctx context.Context, rd record.Reader, id string, n int) ([]record.Loop, error) {
+	if n > 0 {
+		l, err := rd.Loop(ctx, id, n)
+		if err != nil {
+			return nil, err
+		}
+		return []record.Loop{l}, nil
+	}
+	sum, err := rd.Loops(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]record.Loop, 0, len(sum))
+	for _, s := range sum {
+		l, err := rd.Loop(ctx, id, s.N)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, l)
+	}
+	return out, nil
+}
+
+// CSVHeader is the header row of the CSV export. Units: t s (since the run
+// started), setpoint A or A/m (the loop's amplitude unit), I A, V V, psi
+// Wb-turns, B_probe T, temp °C, H A/m, B T, J T. A missing value is an
+// empty cell.
+var CSVHeader = []string{"run", "loop", "t", "phase", "branch", "setpoint", "I", "V", "psi", "B_probe", "temp", "H", "B", "J"}
+
+// writeCSV writes one row per raw sample, joined with the corrected point of
+// the same T (points without a raw sample get a row of their own), ordered
+// by T within each loop.
+func writeCSV(w io.Writer, r record.Run, loops []record.Loop) error {
+	cw := csv.NewWriter(w)
+	if err := cw.Write(CSVHeader); err != nil {
+		return err
+	}
+	num := func(v float64) string {
+		if math.IsNaN(v) {
+			return ""
+		}
+		return strconv.FormatFloat(v, 'g', -1, 64)
+	}
+	for _, l := range loops {
+		for _, row := range join(l) {
+			rec := make([]string, 0, len(CSVHeader))
+			rec = append(rec, r.ID, strconv.Itoa(l.N), strconv.FormatFloat(row.t.Seconds(), 'f', -1, 64))
+			if s := row.raw; s != nil {
+				rec = append(rec, string(s.Phase))
+			} else {
+				rec = append(rec, string(record.Sweep))
+			}
+			if p := row.pt; p != nil {
+				rec = append(rec, strconv.Itoa(p.Branch))
+			} else {
+				rec = append(rec, "")
+			}
+			if s := row.raw; s != nil {
+				rec = append(rec, num(s.Setpoint), num(s.I), num(s.V), num(s.Psi), num(s.BProbe), num(s.TempC))
+			} else {
+				rec = append(rec, "", "", "", "", "", "")
+			}
+			if p := row.pt; p != nil {
+				rec = append(rec, num(p.H), num(p.B), num(p.J))
+			} else {
+				rec = append(rec, "", "", "")
+			}
+			if err := cw.Write(rec); err != nil {
+				return err
+			}
+		}
+	}
+	cw.Flush()
+	return cw.Error()
+}
+
+type row struct {
+	t   time.Duration
+	raw *record.Sample
+	pt  *record.Point
+}
+
+func join(l record.Loop) []row {
+	byT := make(map[time.Duration]int, len(l.Points))
+	for i := range l.Points {
+		if _, dup := byT[l.Points[i].T]; !dup {
+			byT[l.Points[i].T] = i
+		}
+	}
+	used := make([]bool, len(l.Points))
+	rows := make([]row, 0, len(l.Raw))
+	for i := range l.Raw {
+		rw := row{t: l.Raw[i].T, raw: &l.Raw[i]}
+		if j, ok := byT[rw.t]; ok && !used[j] {
+			used[j] = true
+			rw.pt = &l.Points[j]
+		}
+		rows = append(rows, rw)
+	}
+	for j := range l.Points {
+		if !used[j] {
+			rows = append(rows, row{t: l.Points[j].T, pt: &l.Points[j]})
+		}
+	}
+	sort.SliceStable(rows, func(a, b int) bool { return rows[a].t < rows[b].t })
+	return rows
+}

@@ -1,0 +1,108 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"github.com/spf13/cobra"
+	"golang.org/x/term"
+
+	"hystd/acq/export"
+	"hystd/acq/record"
+	"hystd/acq/store"
+)
+
+func init() { register(newExportCmd) }
+
+func newExportCmd() *cobra.Command {
+	var (
+		dataDir, format, out string
+		loop                 int
+	)
+	names := make([]string, 0, 5)
+	for _, f := range export.Formats() {
+		names = append(names, string(f))
+	}
+	cmd := &cobra.Command{
+		Use:   "export RUN",
+		Short: "Write a stored run as " + strings.Join(names, ", "),
+		Long: "export reads run RUN from DIR/hystd.db and writes it to standard output, or to FILE with -o:\n" +
+			"  csv   one row per sample: " + strings.Join(export.CSVHeader, ",") + "\n" +
+			"        (t s, setpoint A or A/m, I A, V V, psi Wb, B_probe T, temp °C, H A/m, B T, J T;\n" +
+			"        a missing channel is an empty cell)\n" +
+			"  json  the run with its provenance, loops, figures, corrections, samples and events\n" +
+			"  lp    line protocol, the same points the forwarder sends to the time-series database\n" +
+			"  svg   the B–H plot\n" +
+			"  png   the B–H plot as an image\n" +
+			"The store is only read. With -o the file appears only when the export succeeded.",
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			f, err := export.ParseFormat(format)
+			if err != nil {
+				return &exitError{code: 2, err: fmt.Errorf("--format: %w", err)}
+			}
+			if loop < 0 {
+				return &exitError{code: 2, err: fmt.Errorf("--loop %d: loops are numbered from 1", loop)}
+			}
+			if out == "" && f == export.PNG {
+				if fd, ok := cmd.OutOrStdout().(*os.File); ok && term.IsTerminal(int(fd.Fd())) {
+					return &exitError{code: 2, err: errors.New("--format png: refusing to write an image to the terminal; use -o FILE")}
+				}
+			}
+			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, args[0], f, loop, out)
+		},
+	}
+	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder holding hystd.db")
+	cmd.Flags().StringVar(&format, "format", "csv", "output format: "+strings.Join(names, ", "))
+	cmd.Flags().IntVar(&loop, "loop", 0, "export only loop N (1-based); 0: every loop")
+	cmd.Flags().StringVarP(&out, "output", "o", "", "write to FILE instead of standard output")
+	return cmd
+}
+
+func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f export.Format, loop int, out string) error {
+	db := filepath.Join(dataDir, "hystd.db")
+	if _, err := os.Stat(db); err != nil {
+		return fmt.Errorf("no store at %s (use --data DIR): %w", db, err)
+	}
+	st, err := store.Open(ctx, db)
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	// Export into memory first: nothing is written unless the whole export succeeds.
+	var buf bytes.Buffer
+	if err := export.Write(ctx, &buf, st, run, f, export.Options{Loop: loop}); err != nil {
+		if errors.Is(err, record.ErrNotFound) {
+			return &exitError{code: 3, err: err}
+		}
+		return err
+	}
+	if out == "" {
+		_, err := stdout.Write(buf.Bytes())
+		return err
+	}
+	tmp, err := os.CreateTemp(filepath.Dir(out), "."+filepath.Base(out)+".*")
+	if err != nil {
+		return err
+	}
+	if _, err := tmp.Write(buf.Bytes()); err != nil {
+		tmp.Close()
+		os.Remove(tmp.Name())
+		return err
+	}
+	if err := tmp.Close(); err != nil {
+		os.Remove(tmp.Name())
+		return err
+	}
+	if err := os.Rename(tmp.Name(), out); err != nil {
+		os.Remove(tmp.Name())
+		return err
+	}
+	return nil
+}
