@@ -1,0 +1,366 @@
+package daemon
+
+import (
+	"fmt"
+	"net"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/spf13/viper"
+
+	"hystd/acq/config"
+	"hystd/acq/influx"
+	"hystd/acq/recipe"
+	"hystd/configs"
+)
+
+// Kind is the value of `kind:` in a daemon config file.
+const Kind = "daemon"
+
+// DefaultAddr is where the HTTP API listens when the config names no address.
+const DefaultAddr = "127.0.0.1:8740"
+
+// DefaultPoll is how often a watched folder is looked at.
+const DefaultPoll = 2 * time.Second
+
+// Config is a daemon config file (`kind: daemon`). Relative paths are taken
+// from the config file's folder.
+type Config struct {
+	Kind string `yaml:"kind"`
+	HTTP struct {
+		Addr string `yaml:"addr"` // host:port; default 127.0.0.1:8740
+		// TokenFile holds the bearer token that mutations (submit, abort)
+		// need; empty: mutations are refused.
+		TokenFile string `yaml:"token_file"`
+	} `yaml:"http"`
+	Store struct {
+		Path string `yaml:"path"` // SQLite file, the record of truth
+	} `yaml:"store"`
+	// Influx, when given, forwards every stored loop to an InfluxDB-v2-compatible server.
+	Influx *influx.Config `yaml:"influx"`
+	Log    struct {
+		Level  string `yaml:"level"`  // debug | info (default) | warn | error
+		Format string `yaml:"format"` // text (default) | json
+	} `yaml:"log"`
+	// SpoolDir keeps loops the store refused during a run; default: beside the store.
+	SpoolDir string         `yaml:"spool_dir"`
+	Fixtures []FixtureEntry `yaml:"fixtures"`
+}
+
+// FixtureEntry is one fixture this daemon drives.
+type FixtureEntry struct {
+	Fixture  string `yaml:"fixture"`  // fixture file
+	Specimen string `yaml:"specimen"` // specimen file: what is mounted now
+	// Watch is a folder of recipe files: each new file is validated, queued,
+	// run, then moved to done/ or failed/ with a result file beside it.
+	Watch    string           `yaml:"watch"`
+	Poll     configs.Duration `yaml:"poll"` // default 2s
+	Schedule []ScheduleEntry  `yaml:"schedule"`
+}
+
+// ScheduleEntry runs a recipe every day at a local time.
+type ScheduleEntry struct {
+	At     string   `yaml:"at"`     // "HH:MM", local time of the daemon
+	Days   []string `yaml:"days"`   // mon … sun; empty: every day
+	Recipe string   `yaml:"recipe"` // recipe file
+}
+
+// Loaded is a validated config with every file it names read and checked.
+// It is immutable: a reload builds a new one.
+type Loaded struct {
+	File     string
+	Config   Config
+	Fixtures []LoadedFixture
+	TokenSet bool // a token file was given and read
+	token    string
+	LoadedAt time.Time
+}
+
+// LoadedFixture is one fixture entry with its files parsed.
+type LoadedFixture struct {
+	Name     string
+	Fixture  config.Fixture
+	Specimen config.Specimen
+	Geometry recipe.Geometry
+	Watch    string
+	Poll     time.Duration
+	Schedule []Scheduled
+}
+
+// Scheduled is a schedule entry with its recipe parsed and checked against the fixture.
+type Scheduled struct {
+	Hour, Minute int
+	Days         map[time.Weekday]bool // nil: every day
+	RecipeFile   string
+	Recipe       *recipe.Recipe
+}
+
+// envKeys are the settings an environment variable HYSTD_<KEY> (dots as
+// underscores, upper case) may override, e.g. HYSTD_HTTP_ADDR.
+var envKeys = []string{"http.addr", "http.token_file", "store.path", "log.level", "log.format", "spool_dir",
+	"influx.url", "influx.org", "influx.bucket", "influx.token_file"}
+
+// Load reads, overrides from the environment and validates a daemon config
+// and every file it names. Every problem is reported as FILE:LINE: key: problem.
+func Load(path string) (*Loaded, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	return Parse(path, data)
+}
+
+// Parse is Load on data as if read from file. Relative paths are taken from
+// file's folder; HYSTD_* environment variables override the file.
+func Parse(file string, data []byte) (*Loaded, error) {
+	doc, err := configs.Parse(file, data)
+	if err != nil {
+		return nil, err
+	}
+	return FromDoc(doc)
+}
+
+// FromDoc validates a parsed daemon document.
+func FromDoc(doc *configs.Doc) (*Loaded, error) {
+	var c Config
+	if err := doc.Decode(&c); err != nil {
+		return nil, err
+	}
+	ce := &cerr{doc: doc}
+	overrideFromEnv(&c, ce)
+	base := filepath.Dir(doc.File)
+	abs := func(p string) string {
+		if p == "" || filepath.IsAbs(p) {
+			return p
+		}
+		return filepath.Join(base, p)
+	}
+	if c.Kind != Kind {
+		ce.add("kind", "must be %q, got %q", Kind, c.Kind)
+	}
+	if c.HTTP.Addr == "" {
+		c.HTTP.Addr = DefaultAddr
+	}
+	if _, port, err := net.SplitHostPort(c.HTTP.Addr); err != nil {
+		ce.add("http.addr", "%q is not host:port: %v", c.HTTP.Addr, err)
+	} else if n, err := strconv.Atoi(port); err != nil || n < 0 || n > 65535 {
+		ce.add("http.addr", "port %q is not a number 0–65535", port)
+	}
+	l := &Loaded{File: doc.File}
+	if c.HTTP.TokenFile != "" {
+		c.HTTP.TokenFile = abs(c.HTTP.TokenFile)
+		b, err := os.ReadFile(c.HTTP.TokenFile)
+		tok := strings.TrimSpace(string(b))
+		switch {
+		case err != nil:
+			ce.add("http.token_file", "%v", err)
+		case len(tok) < 16 || strings.ContainsAny(tok, " \t\r\n"):
+			ce.add("http.token_file", "%s must hold one token of at least 16 characters and no spaces", c.HTTP.TokenFile)
+		default:
+			l.token, l.TokenSet = tok, true
+		}
+	}
+	if c.Store.Path == "" {
+		ce.add("store.path", "required: the SQLite file runs are stored in")
+	}
+	c.Store.Path = abs(c.Store.Path)
+	if c.SpoolDir == "" && c.Store.Path != "" {
+		c.SpoolDir = filepath.Join(filepath.Dir(c.Store.Path), "spool")
+	}
+	c.SpoolDir = abs(c.SpoolDir)
+	switch c.Log.Level {
+	case "":
+		c.Log.Level = "info"
+	case "debug", "info", "warn", "error":
+	default:
+		ce.add("log.level", "must be debug, info, warn or error, got %q", c.Log.Level)
+	}
+	switch c.Log.Format {
+	case "":
+		c.Log.Format = "text"
+	case "text", "json":
+	default:
+		ce.add("log.format", "must be text or json, got %q", c.Log.Format)
+	}
+	if c.Influx != nil {
+		ic := c.Influx.WithDefaults()
+		ic.TokenFile = abs(ic.TokenFile)
+		ic.TLS.CAFile = abs(ic.TLS.CAFile)
+		for _, p := range ic.Problems() {
+			ce.add("influx."+p.Key, "%s", p.Msg)
+		}
+		c.Influx = &ic
+	}
+	if len(c.Fixtures) == 0 {
+		ce.add("fixtures", "required: at least one fixture with its fixture and specimen files")
+	}
+	names, watches := map[string]string{}, map[string]string{}
+	for i, fe := range c.Fixtures {
+		p := fmt.Sprintf("fixtures.%d", i)
+		lf := LoadedFixture{Watch: abs(fe.Watch), Poll: fe.Poll.D()}
+		if lf.Poll == 0 {
+			lf.Poll = DefaultPoll
+		}
+		if lf.Poll < 100*time.Millisecond {
+			ce.add(p+".poll", "must be at least 100ms, got %s", lf.Poll)
+		}
+		fx, err := config.LoadFixture(abs(fe.Fixture))
+		if err != nil {
+			ce.add(p+".fixture", "%v", err)
+			continue
+		}
+		sp, err := config.LoadSpecimen(abs(fe.Specimen))
+		if err != nil {
+			ce.add(p+".specimen", "%v", err)
+			continue
+		}
+		lf.Name, lf.Fixture, lf.Specimen = fx.Name, fx, sp
+		if prev, dup := names[fx.Name]; dup {
+			ce.add(p+".fixture", "fixture %q is already driven by %s", fx.Name, prev)
+		}
+		names[fx.Name] = p
+		if g, err := recipe.GeometryOf(fx, sp); err == nil {
+			lf.Geometry = g
+		} else if fx.HFrom == "current" {
+			ce.add(p+".specimen", "%v", err)
+		}
+		if lf.Watch != "" {
+			if prev, dup := watches[lf.Watch]; dup {
+				ce.add(p+".watch", "folder %s is already watched by %s", lf.Watch, prev)
+			}
+			watches[lf.Watch] = p
+			if st, err := os.Stat(lf.Watch); err == nil && !st.IsDir() {
+				ce.add(p+".watch", "%s is not a folder", lf.Watch)
+			} else if err != nil && !os.IsNotExist(err) {
+				ce.add(p+".watch", "%v", err)
+			}
+		}
+		for j, se := range fe.Schedule {
+			sp := fmt.Sprintf("%s.schedule.%d", p, j)
+			s, err := parseSchedule(se, abs)
+			if err != nil {
+				ce.add(sp+"."+err.key, "%s", err.msg)
+				continue
+			}
+			if _, err := recipe.Expand(s.Recipe, fx, lf.Geometry); err != nil {
+				ce.add(sp+".recipe", "refused on fixture %q: %v", fx.Name, err)
+				continue
+			}
+			lf.Schedule = append(lf.Schedule, s)
+		}
+		l.Fixtures = append(l.Fixtures, lf)
+	}
+	if err := ce.es.Err(); err != nil {
+		return nil, err
+	}
+	l.Config = c
+	return l, nil
+}
+
+// Token returns the bearer token for mutations, or "" when none is set.
+func (l *Loaded) Token() string { return l.token }
+
+// Fixture returns the loaded fixture named name.
+func (l *Loaded) Fixture(name string) (LoadedFixture, bool) {
+	for _, f := range l.Fixtures {
+		if f.Name == name {
+			return f, true
+		}
+	}
+	return LoadedFixture{}, false
+}
+
+type cerr struct {
+	doc *configs.Doc
+	es  configs.Errors
+}
+
+func (c *cerr) add(path, format string, args ...any) {
+	c.es = append(c.es, c.doc.Errorf(path, format, args...))
+}
+
+// overrideFromEnv applies HYSTD_* variables through viper: one fresh
+// instance per load, every key bound explicitly (viper ignores unbound keys).
+func overrideFromEnv(c *Config, ce *cerr) {
+	v := viper.New()
+	v.SetEnvPrefix("HYSTD")
+	v.SetEnvKeyReplacer(strings.NewReplacer(".", "_"))
+	for _, k := range envKeys {
+		if err := v.BindEnv(k); err != nil {
+			ce.add(k, "environment override: %v", err)
+		}
+	}
+	set := func(k string, dst *string) {
+		if v.IsSet(k) {
+			*dst = v.GetString(k)
+		}
+	}
+	set("http.addr", &c.HTTP.Addr)
+	set("http.token_file", &c.HTTP.TokenFile)
+	set("store.path", &c.Store.Path)
+	set("log.level", &c.Log.Level)
+	set("log.format", &c.Log.Format)
+	set("spool_dir", &c.SpoolDir)
+	if v.IsSet("influx.url") || v.IsSet("influx.bucket") {
+		if c.Influx == nil {
+			c.Influx = &influx.Config{}
+		}
+	}
+	if c.Influx != nil {
+		set("influx.url", &c.Influx.URL)
+		set("influx.org", &c.Influx.Org)
+		set("influx.bucket", &c.Influx.Bucket)
+		set("influx.token_file", &c.Influx.TokenFile)
+	}
+}
+
+type schedErr struct{ key, msg string }
+
+var dayNames = map[string]time.Weekday{"sun": time.Sunday, "mon": time.Monday, "tue": time.Tuesday,
+	"wed": time.Wednesday, "thu": time.Thursday, "fri": time.Friday, "sat": time.Saturday}
+
+func parseSchedule(se ScheduleEntry, abs func(string) string) (Scheduled, *schedErr) {
+	var s Scheduled
+	hh, mm, ok := strings.Cut(se.At, ":")
+	h, err1 := strconv.Atoi(hh)
+	m, err2 := strconv.Atoi(mm)
+	if !ok || err1 != nil || err2 != nil || h < 0 || h > 23 || m < 0 || m > 59 || len(mm) != 2 {
+		return s, &schedErr{"at", fmt.Sprintf("want a local time HH:MM such as \"07:30\", got %q", se.At)}
+	}
+	s.Hour, s.Minute = h, m
+	for _, d := range se.Days {
+		wd, ok := dayNames[strings.ToLower(d)]
+		if !ok {
+			return s, &schedErr{"days", fmt.Sprintf("%q is not one of mon, tue, wed, thu, fri, sat, sun", d)}
+		}
+		if s.Days == nil {
+			s.Days = map[time.Weekday]bool{}
+		}
+		s.Days[wd] = true
+	}
+	if se.Recipe == "" {
+		return s, &schedErr{"recipe", "required: the recipe file to run"}
+	}
+	s.RecipeFile = abs(se.Recipe)
+	r, err := recipe.Load(s.RecipeFile)
+	if err != nil {
+		return s, &schedErr{"recipe", err.Error()}
+	}
+	s.Recipe = r
+	return s, nil
+}
+
+// Next returns the first time after now at which s is due, in now's location.
+func (s Scheduled) Next(now time.Time) time.Time {
+	y, mo, d := now.Date()
+	for k := 0; k <= 8; k++ {
+		t := time.Date(y, mo, d+k, s.Hour, s.Minute, 0, 0, now.Location())
+		if t.After(now) && (s.Days == nil || s.Days[t.Weekday()]) {
+			return t
+		}
+	}
+	return time.Time{} // unreachable: some day of the next 8 matches
+}

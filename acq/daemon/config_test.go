@@ -1,0 +1,136 @@
+package daemon
+
+import (
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+)
+
+func TestSampleConfig(t *testing.T) {
+	l, err := Load("../../configs/daemon.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if l.Config.HTTP.Addr != "127.0.0.1:8740" || len(l.Fixtures) != 1 || l.Fixtures[0].Name != "aldermoor-ring-2" {
+		t.Errorf("loaded %+v", l.Config)
+	}
+	if got := l.Fixtures[0].Schedule; len(got) != 1 || got[0].Hour != 7 || got[0].Minute != 30 || got[0].Recipe.Name != "ring-reference-morning" {
+		t.Errorf("schedule %+v", got)
+	}
+	if l.Config.SpoolDir != "/var/lib/hystd/spool" {
+		t.Errorf("spool dir %q", l.Config.SpoolDir)
+	}
+}
+
+// writeConfig writes a daemon config beside copies of the sample fixture and
+// specimen and returns its path.
+func writeConfig(t *testing.T, body string) string {
+	t.Helper()
+	dir := t.TempDir()
+	for _, f := range []string{"fixture-ring-bench.yaml", "specimen-ring-r17.yaml"} {
+		b, err := os.ReadFile(filepath.Join("../../configs", f))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, f), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	p := filepath.Join(dir, "d.yaml")
+	if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+const fixtures = "fixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"
+
+func TestConfigErrors(t *testing.T) {
+	tests := []struct{ name, body, want string }{
+		{"unknown key", "kind: daemon\nstore: {path: x.db}\nhttp: {adress: 1}\n" + fixtures, "d.yaml:3: http.adress: unknown key (known keys: addr, token_file)"},
+		{"bad addr", "kind: daemon\nstore: {path: x.db}\nhttp: {addr: localhost}\n" + fixtures, "d.yaml:3: http.addr: \"localhost\" is not host:port"},
+		{"no store", "kind: daemon\n" + fixtures, "store.path: required"},
+		{"bad level", "kind: daemon\nstore: {path: x.db}\nlog: {level: loud}\n" + fixtures, "d.yaml:3: log.level: must be debug, info, warn or error"},
+		{"missing fixture file", "kind: daemon\nstore: {path: x.db}\nfixtures:\n  - {fixture: nope.yaml, specimen: specimen-ring-r17.yaml}\n", "d.yaml:4: fixtures.0.fixture: open"},
+		{"same fixture twice", "kind: daemon\nstore: {path: x.db}\n" + fixtures + "  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n",
+			"fixtures.1.fixture: fixture \"aldermoor-ring-2\" is already driven by fixtures.0"},
+		{"bad time", "kind: daemon\nstore: {path: x.db}\nfixtures:\n  - fixture: fixture-ring-bench.yaml\n    specimen: specimen-ring-r17.yaml\n    schedule:\n      - {at: \"7h30\", recipe: r.yaml}\n",
+			"d.yaml:7: fixtures.0.schedule.0.at: want a local time HH:MM"},
+		{"poll without unit", "kind: daemon\nstore: {path: x.db}\nfixtures:\n  - fixture: fixture-ring-bench.yaml\n    specimen: specimen-ring-r17.yaml\n    poll: 2\n",
+			"d.yaml:6: fixtures.0.poll: duration \"2\" has no unit"},
+		{"short token", "kind: daemon\nstore: {path: x.db}\nhttp: {token_file: tok}\n" + fixtures, "http.token_file:"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			p := writeConfig(t, tc.body)
+			_ = os.WriteFile(filepath.Join(filepath.Dir(p), "tok"), []byte("short"), 0o600)
+			_, err := Load(p)
+			if err == nil {
+				t.Fatal("accepted")
+			}
+			if !strings.Contains(err.Error(), tc.want) {
+				t.Errorf("error:\n%v\nwant it to contain:\n%s", err, tc.want)
+			}
+		})
+	}
+}
+
+// TestScheduledRecipeRefused: a scheduled recipe beyond a fixture limit is
+// refused when the config is loaded, naming the step and the limit.
+func TestScheduledRecipeRefused(t *testing.T) {
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nfixtures:\n  - fixture: fixture-ring-bench.yaml\n    specimen: specimen-ring-r17.yaml\n    schedule:\n      - {at: \"07:30\", recipe: big.yaml}\n")
+	big := "kind: recipe\nname: big\nsteps:\n  - record_loop: {amplitude: 20 kA/m, rate: 1 kA/m/s, points: 100}\n"
+	if err := os.WriteFile(filepath.Join(filepath.Dir(p), "big.yaml"), []byte(big), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, err := Load(p)
+	if err == nil || !strings.Contains(err.Error(), "fixtures.0.schedule.0.recipe: refused on fixture \"aldermoor-ring-2\"") ||
+		!strings.Contains(err.Error(), "big.yaml:4: steps.0.record_loop.amplitude") || !strings.Contains(err.Error(), "limits.max_current_a = 10 A") {
+		t.Errorf("error: %v", err)
+	}
+}
+
+// TestEnvOverride: HYSTD_* variables override the file, through viper.
+func TestEnvOverride(t *testing.T) {
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\n"+fixtures)
+	t.Setenv("HYSTD_HTTP_ADDR", "127.0.0.1:9999")
+	t.Setenv("HYSTD_STORE_PATH", "/srv/loops.db")
+	t.Setenv("HYSTD_LOG_FORMAT", "json")
+	l, err := Load(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if l.Config.HTTP.Addr != "127.0.0.1:9999" || l.Config.Store.Path != "/srv/loops.db" || l.Config.Log.Format != "json" {
+		t.Errorf("overrides not applied: %+v", l.Config)
+	}
+	t.Setenv("HYSTD_LOG_LEVEL", "loud")
+	if _, err := Load(p); err == nil || !strings.Contains(err.Error(), "log.level: must be") {
+		t.Errorf("bad override accepted: %v", err)
+	}
+}
+
+func TestScheduleNext(t *testing.T) {
+	loc := time.UTC
+	weekdays := map[time.Weekday]bool{time.Monday: true, time.Tuesday: true, time.Wednesday: true, time.Thursday: true, time.Friday: true}
+	tests := []struct {
+		name string
+		s    Scheduled
+		now  time.Time
+		want time.Time
+	}{
+		// 2026-03-06 is a Friday (calendar).
+		{"later today", Scheduled{Hour: 7, Minute: 30}, time.Date(2026, 3, 6, 6, 0, 0, 0, loc), time.Date(2026, 3, 6, 7, 30, 0, 0, loc)},
+		{"exactly now is next day", Scheduled{Hour: 7, Minute: 30}, time.Date(2026, 3, 6, 7, 30, 0, 0, loc), time.Date(2026, 3, 7, 7, 30, 0, 0, loc)},
+		{"weekdays skip the weekend", Scheduled{Hour: 7, Minute: 30, Days: weekdays}, time.Date(2026, 3, 6, 8, 0, 0, 0, loc), time.Date(2026, 3, 9, 7, 30, 0, 0, loc)},
+		{"month end", Scheduled{Hour: 0, Minute: 5}, time.Date(2026, 3, 31, 23, 0, 0, 0, loc), time.Date(2026, 4, 1, 0, 5, 0, 0, loc)},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			if got := tc.s.Next(tc.now); !got.Equal(tc.want) {
+				t.Errorf("Next(%s) = %s, want %s", tc.now, got, tc.want)
+			}
+		})
+	}
+}

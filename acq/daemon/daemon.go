@@ -1,0 +1,464 @@
+// Package daemon is hystd's long-running service: it drives several
+// fixtures, one run at a time each, from recipes submitted over the API,
+// dropped into a watched folder per fixture, or due on a schedule; it
+// reloads its config on SIGHUP (validated before the swap), ends every run
+// safely on SIGTERM, tells systemd it is ready and alive, and exposes
+// /healthz and Prometheus /metrics.
+//
+// A Daemon is safe for concurrent use. Runs are executed by acq/engine; the
+// instruments, the processing and the HTTP API are injected (see Deps and
+// Wiring), so that this package knows sweeps and queues, not ports.
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sort"
+	"strings"
+	"sync"
+	"sync/atomic"
+
+	"hystd/acq/config"
+	"hystd/acq/engine"
+	"hystd/acq/recipe"
+	"hystd/acq/record"
+	"hystd/calib/units"
+)
+
+// QueueLength is how many runs may wait per fixture.
+const QueueLength = 32
+
+// Errors of Submit and Abort.
+var (
+	ErrUnknownFixture = errors.New("unknown fixture")
+	ErrNotActive      = errors.New("run is not queued or running")
+	ErrStopping       = errors.New("daemon is stopping")
+	ErrQueueFull      = errors.New("queue full")
+)
+
+// Opened is a fixture's instruments opened for one run, with the loop
+// processing built for them (nil: the Deps' default, or raw only).
+type Opened struct {
+	Instruments engine.Instruments
+	Process     engine.Processor
+	// Close releases the ports; it does not halt (the engine has done that).
+	Close func() error
+}
+
+// Opener opens a fixture's instruments for one run with the specimen mounted.
+type Opener func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error)
+
+// Deps are a Daemon's collaborators.
+type Deps struct {
+	Open   Opener        // required
+	Writer record.Writer // required
+	// Area returns the specimen's cross-section for the live B estimate; nil: none.
+	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre
+	Live     engine.Publisher
+	Clock    engine.Clock // nil: engine.RealClock
+	Log      *slog.Logger // nil: slog.Default()
+	Software string
+}
+
+// Runner is what the HTTP API and the command line need of a daemon.
+type Runner interface {
+	Submit(ctx context.Context, fixture string, recipeYAML []byte) (runID string, err error)
+	Abort(ctx context.Context, runID string) error
+}
+
+var _ Runner = (*Daemon)(nil)
+
+// Daemon drives the fixtures of one config.
+type Daemon struct {
+	cfg     atomic.Pointer[Loaded]
+	deps    Deps
+	log     *slog.Logger
+	metrics *Metrics
+
+	ctx    context.Context
+	cancel context.CancelCauseFunc
+	wg     sync.WaitGroup
+
+	mu       sync.Mutex
+	fixtures map[string]*fixtureRunner
+	runs     map[string]*job // queued or running, by run id
+	stopping bool
+}
+
+type fixtureRunner struct {
+	name      string
+	queue     chan *job
+	active    atomic.Pointer[job]
+	stopAside context.CancelFunc // ends the watcher and scheduler
+}
+
+type job struct {
+	plan    *engine.Plan
+	fixture string
+	fx      config.Fixture
+	sp      config.Specimen
+	source  string
+	done    func(record.Run, error)
+	// guarded by Daemon.mu
+	cancel  context.CancelCauseFunc // set while running
+	aborted bool                    // ended while queued
+}
+
+// New returns a daemon for cfg; Start begins its work.
+func New(cfg *Loaded, deps Deps) (*Daemon, error) {
+	if deps.Open == nil || deps.Writer == nil {
+		return nil, errors.New("daemon: Deps.Open and Deps.Writer are required")
+	}
+	if deps.Clock == nil {
+		deps.Clock = engine.RealClock{}
+	}
+	if deps.Log == nil {
+		deps.Log = slog.Default()
+	}
+	d := &Daemon{deps: deps, log: deps.Log, fixtures: map[string]*fixtureRunner{}, runs: map[string]*job{}}
+	d.metrics = newMetrics(d, deps.Software)
+	d.deps.Live = countingPublisher{deps.Live, d.metrics}
+	d.cfg.Store(cfg)
+	return d, nil
+}
+
+// Config returns the config in force.
+func (d *Daemon) Config() *Loaded { return d.cfg.Load() }
+
+// Metrics returns the daemon's Prometheus metrics.
+func (d *Daemon) Metrics() *Metrics { return d.metrics }
+
+// Start brings every fixture's supply to zero if it was left on, then starts
+// one worker per fixture and the watched folders and schedules. It returns
+// at once; Stop ends it all.
+func (d *Daemon) Start(ctx context.Context) {
+	d.ctx, d.cancel = context.WithCancelCause(context.WithoutCancel(ctx))
+	cfg := d.cfg.Load()
+	for _, lf := range cfg.Fixtures {
+		d.safeAtStart(ctx, lf)
+	}
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	for _, lf := range cfg.Fixtures {
+		d.startFixture(lf)
+	}
+}
+
+// safeAtStart opens a fixture's instruments once and halts a supply found
+// with its output on, before anything else happens on that fixture.
+func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
+	log := d.log.With("fixture", lf.Name)
+	op, err := d.deps.Open(ctx, lf.Fixture, lf.Specimen)
+	if err != nil {
+		log.Error("instruments not reachable at start-up; runs will retry", "err", err)
+		return
+	}
+	if op.Close != nil {
+		defer op.Close()
+	}
+	in := op.Instruments
+	st, err := in.Supply.Status(ctx)
+	if err != nil {
+		log.Error("supply status unreadable at start-up; halting it anyway", "err", err)
+	}
+	if err != nil || st.OutputOn {
+		if st.OutputOn {
+			log.Warn("supply found with its output on at start-up: ramping it to zero")
+		}
+		if herr := in.Supply.Halt(ctx); herr != nil {
+			log.Error("supply halt at start-up failed: check the supply by hand before touching the fixture", "err", herr)
+		}
+	}
+}
+
+// startFixture starts (or restarts the side tasks of) one fixture; d.mu held.
+func (d *Daemon) startFixture(lf LoadedFixture) {
+	fr := d.fixtures[lf.Name]
+	if fr == nil {
+		fr = &fixtureRunner{name: lf.Name, queue: make(chan *job, QueueLength)}
+		d.fixtures[lf.Name] = fr
+		d.wg.Add(1)
+		go func() {
+			defer d.wg.Done()
+			d.work(fr)
+		}()
+	}
+	if fr.stopAside != nil {
+		fr.stopAside()
+	}
+	actx, cancel := context.WithCancel(d.ctx)
+	fr.stopAside = cancel
+	if lf.Watch != "" {
+		w := &watcher{d: d, fixture: lf.Name, dir: lf.Watch, poll: lf.Poll, log: d.log.With("fixture", lf.Name, "watch", lf.Watch)}
+		d.wg.Add(1)
+		go func() {
+			defer d.wg.Done()
+			w.run(actx)
+		}()
+	}
+	if len(lf.Schedule) > 0 {
+		d.wg.Add(1)
+		go func() {
+			defer d.wg.Done()
+			d.schedule(actx, lf)
+		}()
+	}
+}
+
+// Reload swaps in a new config. Runs under way keep the setup they started
+// with; new submissions use the new one. Fixtures that left the config stop
+// taking runs; new ones start.
+func (d *Daemon) Reload(cfg *Loaded) {
+	old := d.cfg.Swap(cfg)
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	keep := map[string]bool{}
+	for _, lf := range cfg.Fixtures {
+		keep[lf.Name] = true
+		d.startFixture(lf)
+	}
+	for _, lf := range old.Fixtures {
+		if fr := d.fixtures[lf.Name]; fr != nil && !keep[lf.Name] && fr.stopAside != nil {
+			fr.stopAside()
+			fr.stopAside = nil
+			d.log.Info("fixture left the config: it takes no new runs", "fixture", lf.Name)
+		}
+	}
+	d.metrics.reloads.WithLabelValues("ok").Inc()
+}
+
+// Submit validates a recipe against a fixture and queues it; the error is a
+// *engine.Refused or a configs error naming file, line, key and problem for
+// a recipe that cannot run, and nothing is queued then.
+func (d *Daemon) Submit(ctx context.Context, fixture string, recipeYAML []byte) (string, error) {
+	return d.submit(ctx, fixture, "submitted recipe", recipeYAML, "api", nil)
+}
+
+// SubmitNamed is Submit with the file name used in error messages, the
+// source shown in logs ("api", "watch", "schedule", "cli") and a function
+// called once with the run's final record (never called when an error is
+// returned).
+func (d *Daemon) SubmitNamed(ctx context.Context, fixture, name string, data []byte, source string, done func(record.Run, error)) (string, error) {
+	return d.submit(ctx, fixture, name, data, source, done)
+}
+
+func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, source string, done func(record.Run, error)) (string, error) {
+	cfg := d.cfg.Load()
+	lf, ok := cfg.Fixture(fixture)
+	d.mu.Lock()
+	fr := d.fixtures[fixture]
+	stopping := d.stopping || d.ctx == nil
+	d.mu.Unlock()
+	if !ok || fr == nil {
+		names := make([]string, 0, len(cfg.Fixtures))
+		for _, f := range cfg.Fixtures {
+			names = append(names, f.Name)
+		}
+		sort.Strings(names)
+		return "", fmt.Errorf("%w %q; this daemon drives %s", ErrUnknownFixture, fixture, strings.Join(names, ", "))
+	}
+	if stopping {
+		return "", ErrStopping
+	}
+	if len(fr.queue) >= cap(fr.queue) {
+		return "", fmt.Errorf("fixture %q: %w (%d runs waiting)", fixture, ErrQueueFull, cap(fr.queue))
+	}
+	r, err := recipe.Parse(name, data)
+	if err != nil {
+		d.metrics.refused.WithLabelValues(fixture, source).Inc()
+		return "", err
+	}
+	s := engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: r, Geometry: lf.Geometry,
+		Writer: d.deps.Writer, Live: d.deps.Live, Clock: d.deps.Clock, Log: d.log.With("source", source),
+		Software: d.deps.Software, SpoolDir: cfg.Config.SpoolDir}
+	if d.deps.Area != nil {
+		s.Area = d.deps.Area(lf.Fixture, lf.Specimen)
+	}
+	plan, err := engine.Prepare(ctx, s)
+	if err != nil {
+		d.metrics.refused.WithLabelValues(fixture, source).Inc()
+		return "", err
+	}
+	if done == nil {
+		done = func(record.Run, error) {}
+	}
+	j := &job{plan: plan, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done}
+	id := plan.Run().ID
+	d.mu.Lock()
+	d.runs[id] = j
+	d.mu.Unlock()
+	select {
+	case fr.queue <- j:
+	default:
+		d.mu.Lock()
+		delete(d.runs, id)
+		d.mu.Unlock()
+		plan.End(ctx, record.Aborted, "queue full")
+		return "", fmt.Errorf("fixture %q: %w", fixture, ErrQueueFull)
+	}
+	d.metrics.queued.WithLabelValues(fixture).Inc()
+	d.log.Info("run queued", "run", id, "fixture", fixture, "recipe", r.Name, "source", source)
+	return id, nil
+}
+
+// Abort ends a queued or running run: a running one is ramped down and
+// recorded aborted; a queued one is recorded aborted without starting.
+func (d *Daemon) Abort(ctx context.Context, runID string) error {
+	return d.AbortWithReason(ctx, runID, "aborted on request")
+}
+
+// AbortWithReason is Abort with the reason recorded.
+func (d *Daemon) AbortWithReason(ctx context.Context, runID, reason string) error {
+	d.mu.Lock()
+	j := d.runs[runID]
+	if j == nil {
+		d.mu.Unlock()
+		return fmt.Errorf("run %s: %w", runID, ErrNotActive)
+	}
+	if j.cancel != nil {
+		j.cancel(engine.Abort(reason))
+		d.mu.Unlock()
+		d.log.Info("abort requested", "run", runID, "reason", reason)
+		return nil
+	}
+	j.aborted = true
+	delete(d.runs, runID)
+	d.mu.Unlock()
+	run := j.plan.End(ctx, record.Aborted, reason+" (before it started)")
+	d.metrics.ended.WithLabelValues(j.fixture, string(record.Aborted)).Inc()
+	j.done(run, &engine.Stop{State: record.Aborted, Reason: run.Reason})
+	return nil
+}
+
+// work runs a fixture's queue, one run at a time, until the daemon stops;
+// runs still queued then are recorded aborted.
+func (d *Daemon) work(fr *fixtureRunner) {
+	for {
+		select {
+		case <-d.ctx.Done():
+			for {
+				select {
+				case j := <-fr.queue:
+					d.dropQueued(j, "daemon stopped before the run started: "+causeText(d.ctx))
+				default:
+					return
+				}
+			}
+		case j := <-fr.queue:
+			d.metrics.queued.WithLabelValues(fr.name).Dec()
+			d.execute(fr, j)
+		}
+	}
+}
+
+func causeText(ctx context.Context) string {
+	var st *engine.Stop
+	if c := context.Cause(ctx); errors.As(c, &st) {
+		return st.Reason
+	}
+	return context.Cause(ctx).Error()
+}
+
+func (d *Daemon) dropQueued(j *job, reason string) {
+	d.mu.Lock()
+	skip := j.aborted
+	delete(d.runs, j.plan.Run().ID)
+	d.mu.Unlock()
+	if skip {
+		return
+	}
+	run := j.plan.End(d.ctx, record.Aborted, reason)
+	d.metrics.ended.WithLabelValues(j.fixture, string(record.Aborted)).Inc()
+	j.done(run, &engine.Stop{State: record.Aborted, Reason: reason})
+}
+
+func (d *Daemon) execute(fr *fixtureRunner, j *job) {
+	id := j.plan.Run().ID
+	ctx, cancel := context.WithCancelCause(d.ctx)
+	defer cancel(nil)
+	d.mu.Lock()
+	if j.aborted {
+		d.mu.Unlock()
+		return
+	}
+	j.cancel = cancel
+	d.mu.Unlock()
+	fr.active.Store(j)
+	d.metrics.active.WithLabelValues(fr.name).Set(1)
+	defer func() {
+		fr.active.Store(nil)
+		d.metrics.active.WithLabelValues(fr.name).Set(0)
+		d.mu.Lock()
+		delete(d.runs, id)
+		d.mu.Unlock()
+	}()
+	var run record.Run
+	var err error
+	op, oerr := d.deps.Open(ctx, j.fx, j.sp)
+	switch {
+	case oerr != nil && ctx.Err() != nil:
+		run = j.plan.End(ctx, record.Aborted, causeText(ctx))
+		err = &engine.Stop{State: record.Aborted, Reason: run.Reason}
+	case oerr != nil:
+		run = j.plan.End(ctx, record.Failed, "instruments could not be opened: "+oerr.Error())
+		err = &engine.Stop{State: record.Failed, Reason: run.Reason}
+	default:
+		if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
+			run = j.plan.End(ctx, record.Failed, serr.Error())
+			err = serr
+		} else {
+			run, err = j.plan.Execute(ctx)
+		}
+		if op.Close != nil {
+			if cerr := op.Close(); cerr != nil {
+				d.log.Warn("closing instruments", "fixture", fr.name, "err", cerr)
+			}
+		}
+	}
+	d.metrics.ended.WithLabelValues(fr.name, string(run.State)).Inc()
+	d.log.Info("run ended", "run", id, "fixture", fr.name, "state", run.State, "reason", run.Reason)
+	j.done(run, err)
+}
+
+// Stop aborts every run with reason (ramping each supply down), records
+// queued runs as aborted, ends the watchers and schedules, and waits for all
+// of it. Submissions after Stop are refused.
+func (d *Daemon) Stop(reason string) {
+	d.mu.Lock()
+	d.stopping = true
+	d.mu.Unlock()
+	if d.cancel == nil {
+		return
+	}
+	d.cancel(engine.Abort("daemon stopping: " + reason))
+	d.wg.Wait()
+}
+
+// FixtureStatus is one fixture's state for /healthz.
+type FixtureStatus struct {
+	Name      string `json:"name"`
+	ActiveRun string `json:"active_run,omitempty"`
+	Queued    int    `json:"queued"`
+	Watch     string `json:"watch,omitempty"`
+}
+
+// Status lists the fixtures of the config in force.
+func (d *Daemon) Status() []FixtureStatus {
+	cfg := d.cfg.Load()
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	var out []FixtureStatus
+	for _, lf := range cfg.Fixtures {
+		fs := FixtureStatus{Name: lf.Name, Watch: lf.Watch}
+		if fr := d.fixtures[lf.Name]; fr != nil {
+			fs.Queued = len(fr.queue)
+			if j := fr.active.Load(); j != nil {
+				fs.ActiveRun = j.plan.Run().ID
+			}
+		}
+		out = append(out, fs)
+	}
+	return out
+}

@@ -1,0 +1,216 @@
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"os/signal"
+	"path/filepath"
+	"strings"
+	"sync"
+	"syscall"
+	"time"
+
+	"hystd/acq/config"
+	"hystd/acq/engine"
+	"hystd/acq/influx"
+	"hystd/acq/live"
+	"hystd/acq/record"
+	"hystd/acq/store"
+	"hystd/calib/units"
+)
+
+// APIFactory builds the HTTP API over the store, the daemon and the live hub.
+// token is the bearer token mutations need ("" : mutations refused).
+type APIFactory func(reader record.Reader, runner Runner, hub *live.Hub, token string, log *slog.Logger) http.Handler
+
+// Wiring is what Serve needs from outside this package.
+type Wiring struct {
+	Open     Opener     // required: opens a fixture's instruments
+	API      APIFactory // nil: only /healthz and /metrics
+	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre
+	Software string
+	Stderr   io.Writer // logs; nil: os.Stderr
+	// Listening, when set, is called with the HTTP address once it listens.
+	Listening func(addr string)
+	// Signals, when set, replaces the process's SIGHUP/SIGTERM/SIGINT (tests).
+	Signals <-chan os.Signal
+}
+
+// NewLogger returns the structured logger a config asks for.
+func NewLogger(cfg *Loaded, w io.Writer) *slog.Logger {
+	var lv slog.Level
+	_ = lv.UnmarshalText([]byte(cfg.Config.Log.Level))
+	o := &slog.HandlerOptions{Level: lv}
+	if cfg.Config.Log.Format == "json" {
+		return slog.New(slog.NewJSONHandler(w, o))
+	}
+	return slog.New(slog.NewTextHandler(w, o))
+}
+
+// Serve is `hystd serve`: it loads the config, opens the store, replays
+// spooled loops, starts the forwarder, the HTTP server and the daemon, tells
+// systemd it is ready, pings the watchdog, reloads on SIGHUP and, on SIGTERM
+// or SIGINT or ctx's end, ends every run safely before it returns.
+func Serve(ctx context.Context, configPath string, w Wiring) error {
+	if w.Stderr == nil {
+		w.Stderr = os.Stderr
+	}
+	cfg, err := Load(configPath)
+	if err != nil {
+		return err
+	}
+	cfg.LoadedAt = time.Now()
+	log := NewLogger(cfg, w.Stderr)
+	st, err := store.Open(ctx, cfg.Config.Store.Path)
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
+
+	hub := live.NewHub(0)
+	d, err := New(cfg, Deps{Open: w.Open, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area})
+	if err != nil {
+		return err
+	}
+	var fwg sync.WaitGroup
+	fctx, fstop := context.WithCancel(context.WithoutCancel(ctx))
+	defer func() { fstop(); fwg.Wait() }()
+	if ic := cfg.Config.Influx; ic != nil {
+		f, err := influx.New(*ic, st, influx.Options{Log: log.With("part", "forwarder")})
+		if err != nil {
+			return fmt.Errorf("%s: influx: %w", configPath, err)
+		}
+		defer f.Close()
+		d.metrics.Registry.MustRegister(f.Collectors()...)
+		fwg.Add(1)
+		go func() {
+			defer fwg.Done()
+			if err := f.Run(fctx); err != nil && !errors.Is(err, context.Canceled) {
+				log.Error("forwarder stopped", "err", err)
+			}
+		}()
+	}
+	var api http.Handler
+	if w.API != nil {
+		api = w.API(st, d, hub, cfg.Token(), log.With("part", "api"))
+	}
+	ln, err := net.Listen("tcp", cfg.Config.HTTP.Addr)
+	if err != nil {
+		return fmt.Errorf("%s: http.addr: %w", configPath, err)
+	}
+	srv := &http.Server{Handler: d.Handler(api), ReadHeaderTimeout: 10 * time.Second}
+	go func() {
+		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
+			log.Error("http server stopped", "err", err)
+		}
+	}()
+	if w.Listening != nil {
+		w.Listening(ln.Addr().String())
+	}
+	sigs := w.Signals
+	if sigs == nil {
+		c := make(chan os.Signal, 4)
+		signal.Notify(c, syscall.SIGHUP, syscall.SIGTERM, syscall.SIGINT)
+		defer signal.Stop(c)
+		sigs = c
+	}
+	d.Start(ctx)
+	log.Info("hystd serving", "config", cfg.File, "http", ln.Addr().String(), "store", st.Path(), "fixtures", len(cfg.Fixtures))
+	notify(log, "READY=1\nSTATUS=serving "+fmt.Sprint(len(cfg.Fixtures))+" fixture(s)")
+	var wd <-chan time.Time
+	if iv, ok := WatchdogInterval(); ok {
+		t := time.NewTicker(iv)
+		defer t.Stop()
+		wd = t.C
+	}
+	reason := ""
+	for reason == "" {
+		select {
+		case s := <-sigs:
+			if s == syscall.SIGHUP {
+				notify(log, "RELOADING=1")
+				reload(d, configPath, log)
+				notify(log, "READY=1")
+				continue
+			}
+			reason = s.String() + " received"
+		case <-ctx.Done():
+			reason = "context ended: " + context.Cause(ctx).Error()
+		case <-wd:
+			notify(log, "WATCHDOG=1")
+		}
+	}
+	log.Warn("stopping: ending every run safely", "reason", reason)
+	notify(log, "STOPPING=1")
+	d.Stop(reason)
+	sctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
+	defer cancel()
+	_ = srv.Shutdown(sctx)
+	log.Info("stopped")
+	return nil
+}
+
+func notify(log *slog.Logger, state string) {
+	if _, err := Notify(state); err != nil {
+		log.Warn("systemd notify failed", "err", err)
+	}
+}
+
+// reload loads the config afresh and swaps it in only when it is valid.
+func reload(d *Daemon, path string, log *slog.Logger) {
+	cfg, err := Load(path)
+	if err != nil {
+		d.metrics.ReloadFailed()
+		log.Error("config reload refused; keeping the config in force", "err", err)
+		return
+	}
+	cfg.LoadedAt = time.Now()
+	old := d.Config().Config
+	nc := cfg.Config
+	var restart []string
+	if nc.HTTP.Addr != old.HTTP.Addr {
+		restart = append(restart, "http.addr")
+	}
+	if nc.Store.Path != old.Store.Path {
+		restart = append(restart, "store.path")
+	}
+	if (nc.Influx == nil) != (old.Influx == nil) || (nc.Influx != nil && *nc.Influx != *old.Influx) {
+		restart = append(restart, "influx")
+	}
+	if nc.Log != old.Log {
+		restart = append(restart, "log")
+	}
+	if nc.HTTP.TokenFile != old.HTTP.TokenFile {
+		restart = append(restart, "http.token_file")
+	}
+	if len(restart) > 0 {
+		log.Warn("config reloaded; these settings take effect at the next start", "keys", strings.Join(restart, ", "))
+	}
+	d.Reload(cfg)
+	log.Info("config reloaded", "config", path, "fixtures", len(cfg.Fixtures))
+}
+
+// ReplaySpool commits loops spooled by runs whose store was down, removing
+// each file once committed. Files that still fail are kept.
+func ReplaySpool(ctx context.Context, dir string, w record.Writer, log *slog.Logger) {
+	files, _ := filepath.Glob(filepath.Join(dir, "*.gob"))
+	for _, f := range files {
+		l, err := engine.ReadSpool(f)
+		if err == nil {
+			err = w.AddLoop(ctx, l)
+		}
+		if err != nil {
+			log.Error("spooled loop not committed; kept", "file", f, "err", err)
+			continue
+		}
+		log.Info("spooled loop committed", "file", f, "run", l.RunID, "loop", l.N)
+		_ = os.Remove(f)
+	}
+}

@@ -1,0 +1,224 @@
+package daemon
+
+import (
+	"context"
+	"fmt"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"strings"
+	"time"
+
+	"go.yaml.in/yaml/v3"
+
+	"hystd/acq/record"
+)
+
+// Subfolders of a watched folder.
+const (
+	ActiveDir = "active" // files queued or running
+	DoneDir   = "done"   // files whose run finished
+	FailedDir = "failed" // refused files and runs that aborted or failed
+)
+
+// Result is the file written beside a recipe moved to done/ or failed/
+// (NAME.result.yaml).
+type Result struct {
+	Kind    string `yaml:"kind"` // "run-result"
+	Recipe  string `yaml:"recipe_file"`
+	Fixture string `yaml:"fixture"`
+	RunID   string `yaml:"run_id,omitempty"`
+	State   string `yaml:"state"` // refused, finished, aborted, failed, interrupted
+	Reason  string `yaml:"reason,omitempty"`
+	Queued  string `yaml:"queued,omitempty"`
+	Started string `yaml:"started,omitempty"`
+	Ended   string `yaml:"ended,omitempty"`
+}
+
+// watcher polls one folder for new recipe files (*.yaml, *.yml). A file is
+// taken once its size and modification time stayed the same over one poll
+// (so a file being copied in is not read half-written), moved to active/,
+// submitted, and moved on to done/ or failed/ when its run ends.
+type watcher struct {
+	d       *Daemon
+	fixture string
+	dir     string
+	poll    time.Duration
+	log     *slog.Logger
+	seen    map[string]fileSig
+}
+
+type fileSig struct {
+	size int64
+	mod  time.Time
+}
+
+func (w *watcher) run(ctx context.Context) {
+	w.seen = map[string]fileSig{}
+	for _, sub := range []string{"", ActiveDir, DoneDir, FailedDir} {
+		if err := os.MkdirAll(filepath.Join(w.dir, sub), 0o755); err != nil {
+			w.log.Error("watched folder unusable", "err", err)
+			return
+		}
+	}
+	w.recover()
+	t := time.NewTicker(w.poll)
+	defer t.Stop()
+	for {
+		w.scan(ctx)
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+	}
+}
+
+// recover moves files left in active/ by a daemon that was killed to failed/.
+func (w *watcher) recover() {
+	ents, _ := os.ReadDir(filepath.Join(w.dir, ActiveDir))
+	for _, e := range ents {
+		if e.IsDir() || !isRecipe(e.Name()) {
+			continue
+		}
+		src := filepath.Join(w.dir, ActiveDir, e.Name())
+		w.finish(src, Result{State: "interrupted", Reason: "the daemon stopped while this recipe was queued or running; its run record says how far it got"})
+	}
+}
+
+func isRecipe(name string) bool {
+	return !strings.HasPrefix(name, ".") && (strings.HasSuffix(name, ".yaml") || strings.HasSuffix(name, ".yml")) &&
+		!strings.HasSuffix(name, ".result.yaml")
+}
+
+func (w *watcher) scan(ctx context.Context) {
+	ents, err := os.ReadDir(w.dir)
+	if err != nil {
+		w.log.Error("cannot read watched folder", "err", err)
+		return
+	}
+	now := map[string]fileSig{}
+	for _, e := range ents {
+		if e.IsDir() || !isRecipe(e.Name()) {
+			continue
+		}
+		fi, err := e.Info()
+		if err != nil {
+			continue
+		}
+		sig := fileSig{fi.Size(), fi.ModTime()}
+		now[e.Name()] = sig
+		if prev, ok := w.seen[e.Name()]; !ok || prev != sig {
+			continue // new or still changing: look again next poll
+		}
+		w.take(ctx, e.Name())
+		delete(now, e.Name())
+	}
+	w.seen = now
+}
+
+func (w *watcher) take(ctx context.Context, name string) {
+	src := filepath.Join(w.dir, name)
+	act := unique(filepath.Join(w.dir, ActiveDir, name))
+	if err := os.Rename(src, act); err != nil {
+		w.log.Error("cannot move recipe file to active/", "file", name, "err", err)
+		return
+	}
+	data, err := os.ReadFile(act)
+	if err != nil {
+		w.finish(act, Result{State: "refused", Reason: err.Error()})
+		return
+	}
+	id, err := w.d.SubmitNamed(ctx, w.fixture, src, data, "watch", func(run record.Run, err error) {
+		w.finish(act, resultOf(run, err))
+	})
+	if err != nil {
+		w.d.metrics.files.WithLabelValues(w.fixture, "refused").Inc()
+		w.log.Warn("recipe file refused", "file", name, "err", err)
+		w.finish(act, Result{State: "refused", Reason: err.Error()})
+		return
+	}
+	w.d.metrics.files.WithLabelValues(w.fixture, "queued").Inc()
+	w.log.Info("recipe file queued", "file", name, "run", id)
+}
+
+func resultOf(run record.Run, err error) Result {
+	r := Result{RunID: run.ID, State: string(run.State), Reason: run.Reason}
+	if r.State == "" {
+		r.State = string(record.Failed)
+	}
+	if r.Reason == "" && err != nil {
+		r.Reason = err.Error()
+	}
+	ts := func(t time.Time) string {
+		if t.IsZero() {
+			return ""
+		}
+		return t.UTC().Format(time.RFC3339Nano)
+	}
+	r.Queued, r.Started, r.Ended = ts(run.Queued), ts(run.Started), ts(run.Ended)
+	return r
+}
+
+// finish moves a file from active/ to done/ (finished) or failed/ and writes
+// its result file beside it.
+func (w *watcher) finish(act string, r Result) {
+	sub := FailedDir
+	if r.State == string(record.Finished) {
+		sub = DoneDir
+	}
+	dst := unique(filepath.Join(w.dir, sub, filepath.Base(act)))
+	if err := os.Rename(act, dst); err != nil {
+		w.log.Error("cannot move recipe file", "from", act, "to", dst, "err", err)
+		dst = act
+	}
+	r.Kind, r.Recipe, r.Fixture = "run-result", filepath.Base(dst), w.fixture
+	out, _ := yaml.Marshal(r)
+	res := strings.TrimSuffix(strings.TrimSuffix(dst, ".yaml"), ".yml") + ".result.yaml"
+	if err := writeFileSync(res, out); err != nil {
+		w.log.Error("cannot write result file", "file", res, "err", err)
+	}
+	outcome := sub
+	if r.State == "refused" {
+		outcome = "refused"
+	}
+	if outcome != "refused" {
+		w.d.metrics.files.WithLabelValues(w.fixture, outcome).Inc()
+	}
+}
+
+// unique returns path, or path with a number before its extension when a
+// file of that name exists.
+func unique(path string) string {
+	if _, err := os.Lstat(path); os.IsNotExist(err) {
+		return path
+	}
+	ext := filepath.Ext(path)
+	base := strings.TrimSuffix(path, ext)
+	for i := 2; ; i++ {
+		p := fmt.Sprintf("%s.%d%s", base, i, ext)
+		if _, err := os.Lstat(p); os.IsNotExist(err) {
+			return p
+		}
+	}
+}
+
+func writeFileSync(path string, data []byte) error {
+	tmp := path + ".tmp"
+	f, err := os.Create(tmp)
+	if err != nil {
+		return err
+	}
+	if _, err := f.Write(data); err != nil {
+		f.Close()
+		return err
+	}
+	if err := f.Sync(); err != nil {
+		f.Close()
+		return err
+	}
+	if err := f.Close(); err != nil {
+		return err
+	}
+	return os.Rename(tmp, path)
+}
