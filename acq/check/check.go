@@ -13,6 +13,8 @@ import (
 
 	"hystd/acq/config"
 	"hystd/configs"
+	"hystd/drivers/profile"
+	"hystd/drivers/sim"
 )
 
 // Validator validates one parsed document of a kind.
@@ -20,8 +22,10 @@ type Validator func(doc *configs.Doc) error
 
 // kinds maps a document kind to its validator.
 var kinds = map[string]Validator{
-	"fixture":  validateFixture,
-	"specimen": func(doc *configs.Doc) error { _, err := config.SpecimenFrom(doc); return err },
+	"fixture":            validateFixture,
+	"specimen":           func(doc *configs.Doc) error { _, err := config.SpecimenFrom(doc); return err },
+	"instrument-profile": func(doc *configs.Doc) error { _, err := profile.FromDoc(doc); return err },
+	"bench":              func(doc *configs.Doc) error { _, err := sim.BenchFrom(doc); return err },
 }
 
 // File validates the file at path. The error lists every problem found, one
@@ -56,24 +60,30 @@ func Bytes(file string, data []byte) error {
 	return v(doc)
 }
 
-// ProfileRange returns the settable current range [min, max] in A of the
-// supply profile named name; set by the package that loads profiles.
-var ProfileRange func(name string) (lo, hi float64, err error)
-
 func validateFixture(doc *configs.Doc) error {
 	f, err := config.FixtureFrom(doc)
 	if err != nil {
 		return err
 	}
 	var es configs.Errors
-	if s, ok := f.Instruments[config.RoleSupply]; ok && ProfileRange != nil {
-		lo, hi, err := ProfileRange(s.Profile)
-		switch {
-		case err != nil:
-			es = append(es, doc.Errorf("instruments.supply.profile", "%v", err))
-		case f.Limits.MaxCurrentA > hi || -f.Limits.MaxCurrentA < lo:
+	for role, in := range f.Instruments {
+		p, err := profile.Load(in.Profile)
+		if err != nil {
+			es = append(es, doc.Errorf("instruments."+role+".profile", "%v", err))
+			continue
+		}
+		if p.Role != role {
+			es = append(es, doc.Errorf("instruments."+role+".profile", "profile %s is for a %s, not a %s", p.Name, p.Role, role))
+			continue
+		}
+		if role != config.RoleSupply {
+			continue
+		}
+		// The fixture may not promise more current than the supply can be set to.
+		if r := p.Operations[profile.OpSetCurrent].Range; len(r) == 2 &&
+			(f.Limits.MaxCurrentA > r[1] || -f.Limits.MaxCurrentA < r[0]) {
 			es = append(es, doc.Errorf("limits.max_current_a",
-				"%g A is beyond what supply profile %q can set (%g A to %g A)", f.Limits.MaxCurrentA, s.Profile, lo, hi))
+				"%g A is beyond what supply profile %s can set (%g A to %g A)", f.Limits.MaxCurrentA, p.Name, r[0], r[1]))
 		}
 	}
 	return es.Err()
@@ -90,7 +100,9 @@ func Files(paths []string) error {
 	return errors.Join(all...)
 }
 
-// Register adds the validator of a kind; packages defining a kind call it.
+// Register adds the validator of a kind. Packages of acq that define a kind
+// call it from an init function; kinds defined below acq (instrument
+// profiles, benches) are listed above.
 func Register(kind string, v Validator) {
 	if _, dup := kinds[kind]; dup {
 		panic(fmt.Sprintf("check: kind %q registered twice", kind))

@@ -1,0 +1,101 @@
+package check_test
+
+import (
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"hystd/acq/check"
+	_ "hystd/acq/recipe" // registers kind recipe
+)
+
+// TestEverySampleConfigValidates loads every YAML file shipped in configs/
+// through the loader of its kind.
+func TestEverySampleConfigValidates(t *testing.T) {
+	var files []string
+	err := filepath.WalkDir("../../configs", func(p string, d os.DirEntry, err error) error {
+		if err == nil && !d.IsDir() && strings.HasSuffix(p, ".yaml") {
+			files = append(files, p)
+		}
+		return err
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(files) < 5 {
+		t.Fatalf("found only %d sample configs", len(files))
+	}
+	for _, f := range files {
+		t.Run(filepath.ToSlash(strings.TrimPrefix(f, "../../")), func(t *testing.T) {
+			data, err := os.ReadFile(f)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if strings.Contains(string(data), "\nkind: daemon") {
+				t.Skip("daemon configs are validated by acq/daemon's tests")
+			}
+			if err := check.Bytes(f, data); err != nil {
+				t.Error(err)
+			}
+		})
+	}
+}
+
+// TestRejects covers the four rejections the check command must name by
+// file and key, one edit of a valid sample each.
+func TestRejects(t *testing.T) {
+	read := func(name string) string {
+		b, err := os.ReadFile(filepath.Join("../../configs", name))
+		if err != nil {
+			t.Fatal(err)
+		}
+		return string(b)
+	}
+	fixture, specimen := read("fixture-ring-bench.yaml"), read("specimen-ring-r17.yaml")
+	cases := []struct {
+		name, text, from, to, want string
+	}{
+		{"misspelled key", fixture, "  max_voltage_v: 30", "  max_voltag_v: 30",
+			`f.yaml:%d: limits.max_voltag_v: unknown key (did you mean "max_voltage_v"?)`},
+		{"current the supply cannot reach", fixture, "  max_current_a: 10", "  max_current_a: 25",
+			"f.yaml:%d: limits.max_current_a: 25 A is beyond what supply profile sim-supply can set (-20 A to 20 A)"},
+		{"negative dimension", specimen, "  outer_diameter_mm: 50", "  outer_diameter_mm: -50",
+			"f.yaml:%d: ring.outer_diameter_mm: must be a positive number, got -50"},
+		{"duration without unit", fixture, "  comm_timeout: 2s", "  comm_timeout: 2",
+			`f.yaml:%d: limits.comm_timeout: duration "2" has no unit`},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			bad := strings.Replace(tc.text, tc.from, tc.to, 1)
+			if bad == tc.text {
+				t.Fatalf("edit %q not applied", tc.from)
+			}
+			err := check.Bytes("f.yaml", []byte(bad))
+			if err == nil {
+				t.Fatal("accepted")
+			}
+			want := fmt.Sprintf(tc.want, lineOf(bad, tc.to))
+			if !strings.Contains(err.Error(), want) {
+				t.Errorf("got\n%v\nwant a line containing\n%s", err, want)
+			}
+		})
+	}
+}
+
+func TestUnknownKind(t *testing.T) {
+	err := check.Bytes("x.yaml", []byte("kind: gadget\nname: x\n"))
+	if err == nil || !strings.Contains(err.Error(), `x.yaml:1: kind: unknown kind "gadget"`) {
+		t.Errorf("got %v", err)
+	}
+}
+
+// lineOf returns the 1-based line on which sub starts in text.
+func lineOf(text, sub string) int {
+	i := strings.Index(text, sub)
+	if i < 0 {
+		return 0
+	}
+	return strings.Count(text[:i], "\n") + 1
+}
