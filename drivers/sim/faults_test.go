@@ -32,7 +32,7 @@ func faultBench(t *testing.T, faults string) Config {
 func driver(t *testing.T, b *Bench, role string) (*link.Conn, *scpi.Client) {
 	t.Helper()
 	conn, err := link.Open(context.Background(), link.Address{Path: b.Ports()[role]},
-		link.Settings{Baud: 115200, ReadTimeout: 150 * time.Millisecond},
+		link.Settings{Baud: 115200, ReadTimeout: 600 * time.Millisecond},
 		link.Options{Log: slog.New(slog.DiscardHandler), Backoff: link.Backoff{Initial: time.Millisecond, Max: 10 * time.Millisecond, Attempts: 50}})
 	if err != nil {
 		t.Fatal(err)
