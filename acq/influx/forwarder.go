@@ -25,6 +25,7 @@ import (
 	"github.com/influxdata/influxdb-client-go/v2/api"
 	ihttp "github.com/influxdata/influxdb-client-go/v2/api/http"
 
+	"hystd/acq/record"
 	"hystd/acq/store"
 )
 
@@ -272,10 +273,16 @@ func (e *permanentError) Error() string { return e.msg }
 // same order, as Points).
 func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]string, error) {
 	r, err := f.ob.Run(ctx, e.RunID)
+	if errors.Is(err, record.ErrNotFound) {
+		return nil, &permanentError{"not in the store: " + err.Error()}
+	}
 	if err != nil {
 		return nil, err
 	}
 	l, err := f.ob.Loop(ctx, e.RunID, e.Loop)
+	if errors.Is(err, record.ErrNotFound) {
+		return nil, &permanentError{"not in the store: " + err.Error()}
+	}
 	if err != nil {
 		return nil, err
 	}

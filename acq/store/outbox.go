@@ -150,10 +150,11 @@ func (s *Store) Quarantine(ctx context.Context, id int64, msg string) error {
 	return s.update(ctx, id, "quarantine", "state = 'quarantined', attempts = attempts + 1, last_error = ?", msg)
 }
 
-// Requeue puts a quarantined entry back into the queue from its start (after
-// the cause was fixed). The message of the last failure is kept.
+// Requeue puts a quarantined entry back into the queue (after the cause was
+// fixed on the server); it resumes after the points already acknowledged.
+// The message of the last failure is kept.
 func (s *Store) Requeue(ctx context.Context, id int64) error {
-	res, err := s.w.ExecContext(ctx, "UPDATE outbox SET state = 'pending', done = 0, updated_ns = ? WHERE id = ? AND state = 'quarantined'",
+	res, err := s.w.ExecContext(ctx, "UPDATE outbox SET state = 'pending', updated_ns = ? WHERE id = ? AND state = 'quarantined'",
 		s.now().UnixNano(), id)
 	if err != nil {
 		return fmt.Errorf("store: outbox entry %d: requeue: %w", id, err)

@@ -200,3 +200,36 @@ func BenchmarkLoop100k(b *testing.B) {
 		}
 	}
 }
+
+func TestRequeue(t *testing.T) {
+	ctx := context.Background()
+	s := openTemp(t)
+	t0 := time.Date(2026, 3, 14, 9, 0, 0, 0, time.UTC)
+	if err := s.CreateRun(ctx, storetest.SampleRun("run-a", t0)); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.AddLoop(ctx, storetest.SampleLoop("run-a", 1, 20, t0)); err != nil {
+		t.Fatal(err)
+	}
+	p, _ := s.Pending(ctx, 0)
+	id := p[0].ID
+	if err := s.Progress(ctx, id, 7); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.Quarantine(ctx, id, "HTTP 422: beyond retention"); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.Requeue(ctx, id); err != nil {
+		t.Fatal(err)
+	}
+	e, err := s.Entry(ctx, id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if e.State != store.StatePending || e.Done != 7 || e.LastError != "HTTP 422: beyond retention" {
+		t.Fatalf("after requeue: %+v", e)
+	}
+	if err := s.Requeue(ctx, id); err == nil {
+		t.Fatal("requeue of a pending entry succeeded")
+	}
+}
