@@ -1,0 +1,511 @@
+package api
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"errors"
+	"io"
+	"net"
+	"net/http"
+	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"hystd/acq/live"
+	"hystd/acq/record"
+)
+
+const testToken = "s3cret-bench-token"
+
+var t0 = time.Date(2026, 11, 30, 7, 30, 0, 0, time.UTC)
+
+type env struct {
+	srv    *httptest.Server
+	reader *memReader
+	runner *fakeRunner
+	hub    *live.Hub
+}
+
+func newEnv(t *testing.T, o Options) *env {
+	t.Helper()
+	rd := newMemReader()
+	for i, spec := range []struct{ id, specimen, material string }{
+		{"RUN-A", "R-17", "FeSi3"}, {"RUN-B", "R-17", "FeSi3"}, {"RUN-C", "M-3", "NdFeB-demo"},
+	} {
+		l := tanhLoop(spec.id, 200, 6000, 400+float64(i)*10, 900, 1.6)
+		rd.put(record.Run{ID: spec.id, Recipe: "ring-soft-loop", Fixture: "ring-bench", Specimen: spec.specimen,
+			Material: spec.material, State: record.Finished, Started: t0.Add(time.Duration(i) * 24 * time.Hour),
+			Ended: t0.Add(time.Duration(i)*24*time.Hour + time.Minute)}, l)
+	}
+	rd.events["RUN-A"] = []record.Event{{RunID: "RUN-A", At: t0, Level: "info", Text: "step 1 demagnetize"}}
+	hub := live.NewHub(64)
+	clock := t0
+	rn := &fakeRunner{reader: rd, hub: hub, now: func() time.Time { clock = clock.Add(time.Second); return clock }}
+	o.Reader = rd
+	if o.Runner == nil {
+		o.Runner = rn
+	}
+	o.Live = hub
+	h, err := New(o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewServer(h)
+	t.Cleanup(srv.Close)
+	return &env{srv: srv, reader: rd, runner: rn, hub: hub}
+}
+
+func (e *env) do(t *testing.T, method, path, token, ctype string, body io.Reader) (int, map[string]any, http.Header) {
+	t.Helper()
+	req, err := http.NewRequest(method, e.srv.URL+path, body)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
+	}
+	if ctype != "" {
+		req.Header.Set("Content-Type", ctype)
+	}
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	var m map[string]any
+	b, _ := io.ReadAll(resp.Body)
+	if strings.HasPrefix(resp.Header.Get("Content-Type"), "application/json") {
+		if err := json.Unmarshal(b, &m); err != nil {
+			t.Fatalf("%s %s: body is not JSON: %v: %s", method, path, err, b)
+		}
+	}
+	return resp.StatusCode, m, resp.Header
+}
+
+const goodRecipe = `kind: recipe
+name: api-test-loop
+control: current
+steps:
+  - record_loop: {amplitude: 1 kA/m, rate: 400 A/m/s, points: 200, hold: 2s}
+`
+
+func TestMutationsNeedToken(t *testing.T) {
+	e := newEnv(t, Options{Token: testToken})
+	tests := []struct {
+		name, method, path, token string
+		body                      string
+		want                      int
+	}{
+		{"submit without token", "POST", "/api/v1/runs", "", goodRecipe, 401},
+		{"submit with wrong token", "POST", "/api/v1/runs", "guess", goodRecipe, 401},
+		{"submit with a longer wrong token", "POST", "/api/v1/runs", testToken + "x", goodRecipe, 401},
+		{"abort without token", "POST", "/api/v1/runs/RUN-A/abort", "", "", 401},
+		{"abort with wrong token", "POST", "/api/v1/runs/RUN-A/abort", "nope", "", 401},
+	}
+	for _, tc := range tests {
+		code, m, h := e.do(t, tc.method, tc.path, tc.token, "application/yaml", strings.NewReader(tc.body))
+		if code != tc.want {
+			t.Errorf("%s: %d %v, want %d", tc.name, code, m, tc.want)
+		}
+		if !strings.HasPrefix(h.Get("WWW-Authenticate"), "Bearer") {
+			t.Errorf("%s: WWW-Authenticate %q", tc.name, h.Get("WWW-Authenticate"))
+		}
+	}
+	if n := e.runner.callCount(); n != 0 {
+		t.Errorf("runner called %d times by refused requests", n)
+	}
+	code, m, h := e.do(t, "POST", "/api/v1/runs", testToken, "application/yaml", strings.NewReader(goodRecipe))
+	if code != 202 || m["run_id"] != "RUN-001" || h.Get("Location") != "/api/v1/runs/RUN-001" {
+		t.Fatalf("submit with token: %d %v %v", code, m, h)
+	}
+	code, m, _ = e.do(t, "POST", "/api/v1/runs/RUN-001/abort", testToken, "", nil)
+	if code != 202 {
+		t.Fatalf("abort with token: %d %v", code, m)
+	}
+	if r, _ := e.reader.Run(context.Background(), "RUN-001"); r.State != record.Aborted {
+		t.Errorf("run state %s after abort", r.State)
+	}
+	code, m, _ = e.do(t, "POST", "/api/v1/runs/RUN-001/abort", testToken, "", nil)
+	if code != 409 {
+		t.Errorf("second abort: %d %v, want 409", code, m)
+	}
+}
+
+func TestNoTokenConfiguredRefusesMutations(t *testing.T) {
+	e := newEnv(t, Options{})
+	for _, tok := range []string{"", "anything"} {
+		code, m, _ := e.do(t, "POST", "/api/v1/runs", tok, "application/yaml", strings.NewReader(goodRecipe))
+		if code != 403 || !strings.Contains(m["error"].(string), "no API token") {
+			t.Errorf("token %q: %d %v, want 403", tok, code, m)
+		}
+	}
+	if code, _, _ := e.do(t, "GET", "/api/v1/runs", "", "", nil); code != 200 {
+		t.Errorf("reads refused without a token: %d", code)
+	}
+}
+
+func TestProtectReads(t *testing.T) {
+	e := newEnv(t, Options{Token: testToken, ProtectReads: true})
+	for _, p := range []string{"/api/v1/runs", "/api/v1/runs/RUN-A", "/metrics", "/api/v1/events"} {
+		if code, _, _ := e.do(t, "GET", p, "", "", nil); code != 401 {
+			t.Errorf("GET %s without token: %d, want 401", p, code)
+		}
+	}
+	if code, _, _ := e.do(t, "GET", "/api/v1/runs", testToken, "", nil); code != 200 {
+		t.Errorf("GET with token: %d", code)
+	}
+	if code, _, _ := e.do(t, "GET", "/healthz", "", "", nil); code != 200 {
+		t.Errorf("healthz: %d", code)
+	}
+}
+
+func TestTokenSources(t *testing.T) {
+	dir := t.TempDir()
+	file := filepath.Join(dir, "token")
+	if err := os.WriteFile(file, []byte("  from-file  \nsecond line ignored\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	empty := filepath.Join(dir, "empty")
+	if err := os.WriteFile(empty, []byte("\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	t.Setenv("HYSTD_TEST_TOKEN", "from-env")
+	tests := []struct {
+		name    string
+		o       Options
+		good    string
+		wantErr string
+	}{
+		{"file", Options{TokenFile: file}, "from-file", ""},
+		{"env", Options{TokenEnv: "HYSTD_TEST_TOKEN"}, "from-env", ""},
+		{"literal wins", Options{Token: "lit", TokenFile: file}, "lit", ""},
+		{"missing file", Options{TokenFile: filepath.Join(dir, "nope")}, "", "token file"},
+		{"empty file", Options{TokenFile: empty}, "", "first line is empty"},
+	}
+	for _, tc := range tests {
+		tc.o.Reader = newMemReader()
+		tc.o.Runner = &fakeRunner{}
+		h, err := New(tc.o)
+		if tc.wantErr != "" {
+			if err == nil || !strings.Contains(err.Error(), tc.wantErr) {
+				t.Errorf("%s: err %v, want %q", tc.name, err, tc.wantErr)
+			}
+			continue
+		}
+		if err != nil {
+			t.Fatalf("%s: %v", tc.name, err)
+		}
+		req := httptest.NewRequest("POST", "/api/v1/runs/X/abort", nil)
+		req.Header.Set("Authorization", "Bearer "+tc.good)
+		rec := httptest.NewRecorder()
+		h.ServeHTTP(rec, req)
+		if rec.Code == 401 || rec.Code == 403 {
+			t.Errorf("%s: good token refused: %d %s", tc.name, rec.Code, rec.Body)
+		}
+	}
+}
+
+func TestOversizedBody(t *testing.T) {
+	e := newEnv(t, Options{Token: testToken, MaxBody: 4096})
+	big := goodRecipe + "# " + strings.Repeat("x", 5000) + "\n"
+	code, m, _ := e.do(t, "POST", "/api/v1/runs", testToken, "application/yaml", strings.NewReader(big))
+	if code != 413 || !strings.Contains(m["error"].(string), "4096 bytes") {
+		t.Errorf("oversized: %d %v, want 413 naming the limit", code, m)
+	}
+	if n := e.runner.callCount(); n != 0 {
+		t.Errorf("runner called for an oversized body")
+	}
+	runs, _ := e.reader.Runs(context.Background(), record.RunFilter{})
+	if len(runs) != 3 {
+		t.Errorf("%d runs after refused submit, want 3", len(runs))
+	}
+}
+
+func TestUnknownRun(t *testing.T) {
+	e := newEnv(t, Options{Token: testToken})
+	tests := []struct{ method, path, token string }{
+		{"GET", "/api/v1/runs/NO-SUCH", ""},
+		{"GET", "/api/v1/runs/NO-SUCH/loops/1", ""},
+		{"GET", "/api/v1/runs/RUN-A/loops/9", ""},
+		{"POST", "/api/v1/runs/NO-SUCH/abort", testToken},
+		{"GET", "/api/v1/nothing-here", ""},
+	}
+	for _, tc := range tests {
+		code, m, _ := e.do(t, tc.method, tc.path, tc.token, "", nil)
+		if code != 404 || m["error"] == "" {
+			t.Errorf("%s %s: %d %v, want 404 with an error", tc.method, tc.path, code, m)
+		}
+	}
+}
+
+func TestMalformedRecipe(t *testing.T) {
+	// The fake runner validates with the real recipe parser (acq/recipe),
+	// so the messages are the ones a user sees.
+	e := newEnv(t, Options{Token: testToken})
+	tests := []struct {
+		name, body, ctype string
+		want              int
+		mention           []string
+	}{
+		{"unknown key", strings.Replace(goodRecipe, "control:", "controll:", 1), "application/yaml", 400, []string{"controll", ":3:"}},
+		{"not YAML", "kind: recipe\nsteps: [ {\n", "application/yaml", 400, []string{"submitted recipe"}},
+		{"wrong kind", strings.Replace(goodRecipe, "kind: recipe", "kind: fixture", 1), "text/yaml", 400, []string{"kind"}},
+		{"empty body", "  \n", "application/yaml", 400, []string{"empty body"}},
+		{"bad amplitude", strings.Replace(goodRecipe, "1 kA/m", "1 parsec", 1), "application/yaml", 400, []string{"parsec"}},
+		{"json sent", `{"kind":"recipe"}`, "application/json", 415, []string{"application/yaml"}},
+	}
+	for _, tc := range tests {
+		code, m, _ := e.do(t, "POST", "/api/v1/runs", testToken, tc.ctype, strings.NewReader(tc.body))
+		msg, _ := m["error"].(string)
+		if code != tc.want {
+			t.Errorf("%s: %d %q, want %d", tc.name, code, msg, tc.want)
+			continue
+		}
+		for _, w := range tc.mention {
+			if !strings.Contains(msg, w) {
+				t.Errorf("%s: error %q does not mention %q", tc.name, msg, w)
+			}
+		}
+	}
+	if code, m, _ := e.do(t, "POST", "/api/v1/runs?fixture=yoke-9", testToken, "application/yaml", strings.NewReader(goodRecipe)); code != 400 {
+		t.Errorf("unknown fixture: %d %v", code, m)
+	}
+	runs, _ := e.reader.Runs(context.Background(), record.RunFilter{})
+	if len(runs) != 3 {
+		t.Errorf("%d runs after refused submits, want 3", len(runs))
+	}
+}
+
+func TestListRunsFilters(t *testing.T) {
+	e := newEnv(t, Options{})
+	tests := []struct {
+		query   string
+		want    int
+		wantIDs []string
+		bad     string
+	}{
+		{"", 200, []string{"RUN-C", "RUN-B", "RUN-A"}, ""},
+		{"?specimen=R-17", 200, []string{"RUN-B", "RUN-A"}, ""},
+		{"?material=NdFeB-demo", 200, []string{"RUN-C"}, ""},
+		{"?since=2026-12-01", 200, []string{"RUN-C", "RUN-B"}, ""},
+		{"?until=2026-11-30", 200, []string{"RUN-A"}, ""},
+		{"?since=2026-12-01T00:00:00Z&limit=1", 200, []string{"RUN-C"}, ""},
+		{"?state=finished&fixture=ring-bench", 200, []string{"RUN-C", "RUN-B", "RUN-A"}, ""},
+		{"?state=done", 400, nil, "state"},
+		{"?since=yesterday", 400, nil, "since"},
+		{"?limit=-4", 400, nil, "limit"},
+		{"?specimn=R-17", 400, nil, "specimn"},
+	}
+	for _, tc := range tests {
+		code, m, _ := e.do(t, "GET", "/api/v1/runs"+tc.query, "", "", nil)
+		if code != tc.want {
+			t.Errorf("%s: %d %v", tc.query, code, m)
+			continue
+		}
+		if tc.bad != "" {
+			if msg, _ := m["error"].(string); !strings.Contains(msg, tc.bad) {
+				t.Errorf("%s: error %q does not name %q", tc.query, msg, tc.bad)
+			}
+			continue
+		}
+		runs := m["runs"].([]any)
+		var ids []string
+		for _, r := range runs {
+			ids = append(ids, r.(map[string]any)["id"].(string))
+		}
+		if strings.Join(ids, ",") != strings.Join(tc.wantIDs, ",") {
+			t.Errorf("%s: runs %v, want %v", tc.query, ids, tc.wantIDs)
+		}
+	}
+}
+
+func TestRunAndLoopJSON(t *testing.T) {
+	e := newEnv(t, Options{})
+	code, m, _ := e.do(t, "GET", "/api/v1/runs/RUN-A", "", "", nil)
+	if code != 200 {
+		t.Fatal(code, m)
+	}
+	loops := m["loops"].([]any)
+	if len(loops) != 1 || loops[0].(map[string]any)["points"] != nil {
+		t.Errorf("run summary loops %v: want one summary without points", loops)
+	}
+	if evs := m["events"].([]any); len(evs) != 1 {
+		t.Errorf("events %v", evs)
+	}
+	code, m, _ = e.do(t, "GET", "/api/v1/runs/RUN-A/loops/1?raw=1", "", "", nil)
+	if code != 200 {
+		t.Fatal(code, m)
+	}
+	l := m["loop"].(map[string]any)
+	pts := l["points"].(map[string]any)
+	want := tanhLoop("RUN-A", 200, 6000, 400, 900, 1.6)
+	hs := pts["h_a_m"].([]any)
+	bs := pts["b_t"].([]any)
+	if len(hs) != len(want.Points) || int(l["n_points"].(float64)) != len(want.Points) {
+		t.Fatalf("%d points, want %d", len(hs), len(want.Points))
+	}
+	for i := range hs {
+		if hs[i].(float64) != want.Points[i].H || bs[i].(float64) != want.Points[i].B {
+			t.Fatalf("point %d differs: %v,%v vs %+v", i, hs[i], bs[i], want.Points[i])
+		}
+	}
+	// NaN becomes null, both for an absent channel and an unevaluated U.
+	raw := l["raw"].(map[string]any)
+	if v := raw["b_probe_t"].([]any)[0]; v != nil {
+		t.Errorf("NaN channel encoded as %v, want null", v)
+	}
+	figs := l["figures"].([]any)
+	if u := figs[2].(map[string]any)["u"]; u != nil {
+		t.Errorf("NaN uncertainty encoded as %v", u)
+	}
+	if code, m, _ := e.do(t, "GET", "/api/v1/runs/RUN-A/loops/x", "", "", nil); code != 400 {
+		t.Errorf("loop x: %d %v", code, m)
+	}
+}
+
+func TestTrend(t *testing.T) {
+	e := newEnv(t, Options{})
+	code, m, _ := e.do(t, "GET", "/api/v1/trend?specimen=R-17&figure=HcB", "", "", nil)
+	if code != 200 {
+		t.Fatal(code, m)
+	}
+	pts := m["points"].([]any)
+	if len(pts) != 2 || pts[0].(map[string]any)["value"].(float64) != 400 || pts[1].(map[string]any)["value"].(float64) != 410 {
+		t.Errorf("trend %v", pts)
+	}
+	for _, q := range []string{"?specimen=R-17", "?figure=HcB", "?specimen=R-17&figure=HcB&since=soon"} {
+		if code, _, _ := e.do(t, "GET", "/api/v1/trend"+q, "", "", nil); code != 400 {
+			t.Errorf("%s: %d, want 400", q, code)
+		}
+	}
+}
+
+func TestEventStream(t *testing.T) {
+	e := newEnv(t, Options{})
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	req, _ := http.NewRequestWithContext(ctx, "GET", e.srv.URL+"/api/v1/events?run=RUN-9", nil)
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	if ct := resp.Header.Get("Content-Type"); ct != "text/event-stream" {
+		t.Fatalf("Content-Type %q", ct)
+	}
+	rd := bufio.NewReader(resp.Body)
+	next := func() (string, string) {
+		var ev, data string
+		for {
+			line, err := rd.ReadString('\n')
+			if err != nil {
+				t.Fatalf("stream ended: %v", err)
+			}
+			line = strings.TrimRight(line, "\n")
+			switch {
+			case line == "" && ev != "":
+				return ev, data
+			case strings.HasPrefix(line, "event: "):
+				ev = line[7:]
+			case strings.HasPrefix(line, "data: "):
+				data = line[6:]
+			}
+		}
+	}
+	if ev, _ := next(); ev != "hello" {
+		t.Fatalf("first event %q", ev)
+	}
+	for e.hub.Subscribers() == 0 { // the handler subscribes right after hello
+		time.Sleep(time.Millisecond)
+	}
+	e.hub.Publish(live.Event{Kind: live.KindSample, RunID: "OTHER", H: 1})
+	e.hub.Publish(live.Event{Kind: live.KindProgress, RunID: "RUN-9", Step: 2, Steps: 5, Fraction: 0.25})
+	e.hub.Publish(live.Event{Kind: live.KindSample, RunID: "RUN-9", Loop: 1, H: -512.5, B: 0.75})
+	ev, data := next()
+	var got live.Event
+	if err := json.Unmarshal([]byte(data), &got); err != nil {
+		t.Fatal(err)
+	}
+	if ev != "progress" || got.Step != 2 || got.Fraction != 0.25 {
+		t.Errorf("got %s %+v, want progress step 2 (the OTHER run filtered out)", ev, got)
+	}
+	ev, data = next()
+	_ = json.Unmarshal([]byte(data), &got)
+	if ev != "sample" || got.H != -512.5 || got.B != 0.75 {
+		t.Errorf("got %s %+v", ev, got)
+	}
+}
+
+func TestPanicBecomes500(t *testing.T) {
+	e := newEnv(t, Options{})
+	e.reader.mu.Lock()
+	e.reader.panic = true
+	e.reader.mu.Unlock()
+	code, m, _ := e.do(t, "GET", "/api/v1/runs", "", "", nil)
+	if code != 500 || m["error"] != "internal error" {
+		t.Errorf("%d %v", code, m)
+	}
+}
+
+func TestPageAndHeaders(t *testing.T) {
+	e := newEnv(t, Options{})
+	resp, err := http.Get(e.srv.URL + "/")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 || !strings.Contains(string(b), "<!doctype html>") {
+		t.Errorf("page: %d %.80s", resp.StatusCode, b)
+	}
+	if csp := resp.Header.Get("Content-Security-Policy"); !strings.Contains(csp, "default-src 'self'") {
+		t.Errorf("CSP %q", csp)
+	}
+	code, m, _ := e.do(t, "GET", "/healthz", "", "", nil)
+	if code != 200 || m["ok"] != true {
+		t.Errorf("healthz %d %v", code, m)
+	}
+	resp, err = http.Get(e.srv.URL + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, _ = io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if !strings.Contains(string(b), `hystd_http_requests_total{code="200",route="/healthz"} 1`) {
+		t.Errorf("metrics lack the healthz request count:\n%s", b)
+	}
+}
+
+func TestServeShutsDownOnCancel(t *testing.T) {
+	h, err := New(Options{Reader: newMemReader()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- ServeListener(ctx, ln, h) }()
+	// An open event stream must not hold the shutdown up.
+	resp, err := http.Get("http://" + ln.Addr().String() + "/api/v1/events")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	cancel()
+	if err := <-done; err != nil {
+		t.Errorf("ServeListener: %v", err)
+	}
+	if _, err := http.Get("http://" + ln.Addr().String() + "/healthz"); err == nil {
+		t.Error("still serving after shutdown")
+	}
+	if err := Serve(context.Background(), "127.0.0.1:notaport", h); err == nil || errors.Is(err, context.Canceled) {
+		t.Errorf("bad address: %v", err)
+	}
+}

@@ -1,0 +1,299 @@
+package api
+
+import (
+	"errors"
+	"io"
+	"mime"
+	"net/http"
+	"net/url"
+	"strconv"
+	"strings"
+	"time"
+
+	"hystd/acq/daemon"
+	"hystd/acq/engine"
+	"hystd/acq/plot"
+	"hystd/acq/record"
+	"hystd/configs"
+)
+
+func (s *server) health(w http.ResponseWriter, r *http.Request) {
+	writeJSON(w, http.StatusOK, map[string]any{
+		"ok":       true,
+		"version":  s.o.Version,
+		"runner":   s.o.Runner != nil,
+		"live":     s.o.Live != nil,
+		"mutation": s.token != nil,
+	})
+}
+
+// info tells the page what this daemon can do and the CGS factors from the
+// one definition in calib/units, so the page converts nothing on its own.
+func (s *server) info(w http.ResponseWriter, r *http.Request) {
+	oe, g, mgoe := plot.CGSFactors()
+	writeJSON(w, http.StatusOK, map[string]any{
+		"version":       s.o.Version,
+		"can_submit":    s.o.Runner != nil && s.token != nil,
+		"token_set":     s.token != nil,
+		"protect_reads": s.o.ProtectReads,
+		"cgs": map[string]float64{
+			"oe_per_a_m":    oe,
+			"g_per_t":       g,
+			"mgoe_per_j_m3": mgoe,
+		},
+	})
+}
+
+// parseTime accepts RFC 3339 or a date YYYY-MM-DD (UTC). For an end bound a
+// bare date means the end of that day.
+func parseTime(v string, end bool) (time.Time, error) {
+	if t, err := time.Parse(time.RFC3339, v); err == nil {
+		return t, nil
+	}
+	t, err := time.Parse(time.DateOnly, v)
+	if err != nil {
+		return time.Time{}, errors.New("want RFC 3339 (2026-12-01T08:00:00Z) or a date (2026-12-01)")
+	}
+	if end {
+		t = t.AddDate(0, 0, 1)
+	}
+	return t, nil
+}
+
+func runFilter(q url.Values) (record.RunFilter, error) {
+	var f record.RunFilter
+	for k := range q {
+		switch k {
+		case "fixture", "specimen", "material", "state", "since", "until", "limit":
+		default:
+			return f, errors.New("unknown query parameter " + strconv.Quote(k) + " (known: fixture, specimen, material, state, since, until, limit)")
+		}
+	}
+	f.Fixture, f.Specimen, f.Material = q.Get("fixture"), q.Get("specimen"), q.Get("material")
+	if v := q.Get("state"); v != "" {
+		switch st := record.State(v); st {
+		case record.Queued, record.Running, record.Finished, record.Aborted, record.Failed:
+			f.State = st
+		default:
+			return f, errors.New("state: " + strconv.Quote(v) + " is not one of queued, running, finished, aborted, failed")
+		}
+	}
+	var err error
+	if v := q.Get("since"); v != "" {
+		if f.Since, err = parseTime(v, false); err != nil {
+			return f, errors.New("since: " + strconv.Quote(v) + ": " + err.Error())
+		}
+	}
+	if v := q.Get("until"); v != "" {
+		if f.Until, err = parseTime(v, true); err != nil {
+			return f, errors.New("until: " + strconv.Quote(v) + ": " + err.Error())
+		}
+	}
+	if v := q.Get("limit"); v != "" {
+		n, err := strconv.Atoi(v)
+		if err != nil || n < 1 || n > 10000 {
+			return f, errors.New("limit: " + strconv.Quote(v) + " is not a whole number from 1 to 10000")
+		}
+		f.Limit = n
+	}
+	return f, nil
+}
+
+func (s *server) listRuns(w http.ResponseWriter, r *http.Request) {
+	f, err := runFilter(r.URL.Query())
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
+	runs, err := s.o.Reader.Runs(r.Context(), f)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	out := make([]runJSON, 0, len(runs))
+	for _, run := range runs {
+		out = append(out, toRun(run, false))
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"runs": out})
+}
+
+func (s *server) getRun(w http.ResponseWriter, r *http.Request) {
+	id := r.PathValue("id")
+	run, err := s.o.Reader.Run(r.Context(), id)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	loops, err := s.o.Reader.Loops(r.Context(), id)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	evs, err := s.o.Reader.Events(r.Context(), id)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	lj := make([]loopJSON, 0, len(loops))
+	for _, l := range loops {
+		lj = append(lj, toLoop(l, false, false))
+	}
+	ej := make([]eventJSON, 0, len(evs))
+	for _, e := range evs {
+		ej = append(ej, eventJSON{stamp(e.At), e.Level, e.Text})
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"run": toRun(run, true), "loops": lj, "events": ej})
+}
+
+func (s *server) getLoop(w http.ResponseWriter, r *http.Request) {
+	id := r.PathValue("id")
+	n, err := strconv.Atoi(r.PathValue("n"))
+	if err != nil || n < 1 {
+		writeError(w, http.StatusBadRequest, "loop number %q: want a whole number from 1", r.PathValue("n"))
+		return
+	}
+	raw := false
+	switch v := r.URL.Query().Get("raw"); v {
+	case "", "0", "false":
+	case "1", "true":
+		raw = true
+	default:
+		writeError(w, http.StatusBadRequest, "raw: %q: want 1 or 0", v)
+		return
+	}
+	l, err := s.o.Reader.Loop(r.Context(), id, n)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"loop": toLoop(l, true, raw)})
+}
+
+func (s *server) trend(w http.ResponseWriter, r *http.Request) {
+	q := r.URL.Query()
+	spec, fig := q.Get("specimen"), q.Get("figure")
+	if spec == "" || fig == "" {
+		writeError(w, http.StatusBadRequest, "specimen and figure are required, e.g. ?specimen=R-17&figure=HcB")
+		return
+	}
+	var since time.Time
+	if v := q.Get("since"); v != "" {
+		var err error
+		if since, err = parseTime(v, false); err != nil {
+			writeError(w, http.StatusBadRequest, "since: %q: %v", v, err)
+			return
+		}
+	}
+	pts, err := s.o.Reader.Trend(r.Context(), spec, fig, since)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	out := make([]trendJSON, 0, len(pts))
+	for _, p := range pts {
+		out = append(out, trendJSON{p.RunID, p.Loop, stamp(p.At), num(p.Value), num(p.U)})
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"specimen": spec, "figure": fig, "points": out})
+}
+
+// recipeTypes are the content types a recipe may be sent as.
+var recipeTypes = map[string]bool{
+	"application/yaml": true, "application/x-yaml": true, "text/yaml": true,
+	"text/x-yaml": true, "text/plain": true, "application/octet-stream": true,
+}
+
+func (s *server) submit(w http.ResponseWriter, r *http.Request) {
+	if s.o.Runner == nil {
+		writeError(w, http.StatusServiceUnavailable, "this server only reviews a store; it runs no fixture")
+		return
+	}
+	if ct := r.Header.Get("Content-Type"); ct != "" {
+		mt, _, err := mime.ParseMediaType(ct)
+		if err != nil || !recipeTypes[mt] {
+			writeError(w, http.StatusUnsupportedMediaType, "Content-Type %q: send the recipe as application/yaml", ct)
+			return
+		}
+	}
+	for k := range r.URL.Query() {
+		if k != "fixture" {
+			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: fixture)", k)
+			return
+		}
+	}
+	body, err := io.ReadAll(r.Body)
+	if err != nil {
+		s.bodyError(w, err)
+		return
+	}
+	if strings.TrimSpace(string(body)) == "" {
+		writeError(w, http.StatusBadRequest, "empty body: send the recipe file (YAML, kind: recipe)")
+		return
+	}
+	id, err := s.o.Runner.Submit(r.Context(), r.URL.Query().Get("fixture"), body)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	s.log.Info("api: recipe submitted", "run", id, "remote", r.RemoteAddr)
+	w.Header().Set("Location", "/api/v1/runs/"+url.PathEscape(id))
+	writeJSON(w, http.StatusAccepted, map[string]string{"run_id": id, "state": string(record.Queued)})
+}
+
+func (s *server) abort(w http.ResponseWriter, r *http.Request) {
+	if s.o.Runner == nil {
+		writeError(w, http.StatusServiceUnavailable, "this server only reviews a store; it runs no fixture")
+		return
+	}
+	id := r.PathValue("id")
+	if err := s.o.Runner.Abort(r.Context(), id); err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	s.log.Info("api: abort requested", "run", id, "remote", r.RemoteAddr)
+	writeJSON(w, http.StatusAccepted, map[string]string{"run_id": id, "state": "aborting"})
+}
+
+func (s *server) bodyError(w http.ResponseWriter, err error) {
+	var mbe *http.MaxBytesError
+	if errors.As(err, &mbe) {
+		writeError(w, http.StatusRequestEntityTooLarge, "request body larger than %d bytes", mbe.Limit)
+		return
+	}
+	writeError(w, http.StatusBadRequest, "reading the request body: %v", err)
+}
+
+// badRequest is implemented by errors that are the client's fault.
+type badRequest interface{ BadRequest() bool }
+
+// fail maps an error from the Reader or the Runner to a status code. Besides
+// this package's markers it knows the daemon's and the engine's errors: a
+// refused recipe or an unknown fixture is the client's (400), a full queue
+// or a run that is no longer active a conflict (409), a stopping daemon 503.
+func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
+	var ce *configs.Error
+	var br badRequest
+	var refused *engine.Refused
+	switch {
+	case errors.Is(err, record.ErrNotFound):
+		writeError(w, http.StatusNotFound, "%v", err)
+	case errors.Is(err, ErrInvalid), errors.As(err, &ce), errors.As(err, &refused),
+		errors.Is(err, daemon.ErrUnknownFixture), errors.As(err, &br) && br.BadRequest():
+		writeError(w, http.StatusBadRequest, "%v", err)
+	case errors.Is(err, daemon.ErrNotActive):
+		// Unknown to the store as well: 404; a run that has ended: 409.
+		if _, rerr := s.o.Reader.Run(r.Context(), r.PathValue("id")); errors.Is(rerr, record.ErrNotFound) {
+			writeError(w, http.StatusNotFound, "run %s: %v", r.PathValue("id"), rerr)
+			return
+		}
+		writeError(w, http.StatusConflict, "%v", err)
+	case errors.Is(err, ErrConflict), errors.Is(err, daemon.ErrQueueFull):
+		writeError(w, http.StatusConflict, "%v", err)
+	case errors.Is(err, daemon.ErrStopping):
+		writeError(w, http.StatusServiceUnavailable, "%v", err)
+	case r.Context().Err() != nil:
+		writeError(w, http.StatusServiceUnavailable, "request cancelled or timed out: %v", err)
+	default:
+		s.log.Error("api: request failed", "path", r.URL.Path, "err", err)
+		writeError(w, http.StatusInternalServerError, "%v", err)
+	}
+}

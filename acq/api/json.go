@@ -1,0 +1,171 @@
+package api
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"net/http"
+	"strconv"
+	"time"
+
+	"hystd/acq/record"
+)
+
+// num is a float64 that encodes NaN and ±Inf as JSON null (an absent
+// channel, an unevaluated uncertainty).
+type num float64
+
+// MarshalJSON implements json.Marshaler.
+func (n num) MarshalJSON() ([]byte, error) {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(nil, f, 'g', -1, 64), nil
+}
+
+// stamp is a time that encodes the zero time as null.
+type stamp time.Time
+
+// MarshalJSON implements json.Marshaler.
+func (t stamp) MarshalJSON() ([]byte, error) {
+	if time.Time(t).IsZero() {
+		return []byte("null"), nil
+	}
+	return json.Marshal(time.Time(t).UTC())
+}
+
+type runJSON struct {
+	ID         string       `json:"id"`
+	Recipe     string       `json:"recipe"`
+	Fixture    string       `json:"fixture"`
+	Specimen   string       `json:"specimen"`
+	Material   string       `json:"material"`
+	State      record.State `json:"state"`
+	Reason     string       `json:"reason"`
+	Software   string       `json:"software"`
+	ConfigHash string       `json:"config_hash"`
+	Queued     stamp        `json:"queued"`
+	Started    stamp        `json:"started"`
+	Ended      stamp        `json:"ended"`
+	RecipeText string       `json:"recipe_text,omitempty"`
+	Config     string       `json:"config,omitempty"`
+}
+
+func toRun(r record.Run, full bool) runJSON {
+	j := runJSON{ID: r.ID, Recipe: r.Recipe, Fixture: r.Fixture, Specimen: r.Specimen, Material: r.Material,
+		State: r.State, Reason: r.Reason, Software: r.Software, ConfigHash: r.ConfigHash,
+		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended)}
+	if full {
+		j.RecipeText, j.Config = r.RecipeText, r.Config
+	}
+	return j
+}
+
+type figureJSON struct {
+	Name  string `json:"name"`
+	Value num    `json:"value"`
+	U     num    `json:"u"` // expanded, k = 2
+	Unit  string `json:"unit"`
+	Note  string `json:"note"`
+}
+
+type correctionJSON struct {
+	Name string `json:"name"`
+	Size num    `json:"size"`
+	Unit string `json:"unit"`
+	Note string `json:"note"`
+}
+
+type loopJSON struct {
+	RunID       string           `json:"run_id"`
+	N           int              `json:"n"`
+	Kind        string           `json:"kind"`
+	Amplitude   num              `json:"amplitude"`
+	AmpUnit     string           `json:"amplitude_unit"`
+	Started     stamp            `json:"started"`
+	Figures     []figureJSON     `json:"figures"`
+	Corrections []correctionJSON `json:"corrections"`
+	NPoints     int              `json:"n_points"`
+	// Points are columns (t in s, H in A/m, B and J in T, branch) so that a
+	// 100 k-point loop stays compact.
+	Points *pointsJSON `json:"points,omitempty"`
+	Raw    *rawJSON    `json:"raw,omitempty"`
+}
+
+type pointsJSON struct {
+	T      []num `json:"t_s"`
+	H      []num `json:"h_a_m"`
+	B      []num `json:"b_t"`
+	J      []num `json:"j_t"`
+	Branch []int `json:"branch"`
+}
+
+type rawJSON struct {
+	T        []num    `json:"t_s"`
+	TUnc     []num    `json:"t_unc_s"`
+	Phase    []string `json:"phase"`
+	Setpoint []num    `json:"setpoint"`
+	I        []num    `json:"i_a"`
+	V        []num    `json:"v_v"`
+	Psi      []num    `json:"psi_wb"`
+	BProbe   []num    `json:"b_probe_t"`
+	TempC    []num    `json:"temp_c"`
+}
+
+func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
+	j := loopJSON{RunID: l.RunID, N: l.N, Kind: l.Kind, Amplitude: num(l.Amplitude), AmpUnit: l.AmpUnit,
+		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, NPoints: len(l.Points)}
+	for _, f := range l.Figures {
+		j.Figures = append(j.Figures, figureJSON{f.Name, num(f.Value), num(f.U), f.Unit, f.Note})
+	}
+	for _, c := range l.Corrections {
+		j.Corrections = append(j.Corrections, correctionJSON{c.Name, num(c.Size), c.Unit, c.Note})
+	}
+	if withPoints {
+		n := len(l.Points)
+		p := &pointsJSON{make([]num, n), make([]num, n), make([]num, n), make([]num, n), make([]int, n)}
+		for i, q := range l.Points {
+			p.T[i], p.H[i], p.B[i], p.J[i], p.Branch[i] = num(q.T.Seconds()), num(q.H), num(q.B), num(q.J), q.Branch
+		}
+		j.Points = p
+	}
+	if withRaw {
+		n := len(l.Raw)
+		r := &rawJSON{make([]num, n), make([]num, n), make([]string, n), make([]num, n), make([]num, n),
+			make([]num, n), make([]num, n), make([]num, n), make([]num, n)}
+		for i, s := range l.Raw {
+			r.T[i], r.TUnc[i], r.Phase[i], r.Setpoint[i] = num(s.T.Seconds()), num(s.TUnc.Seconds()), string(s.Phase), num(s.Setpoint)
+			r.I[i], r.V[i], r.Psi[i], r.BProbe[i], r.TempC[i] = num(s.I), num(s.V), num(s.Psi), num(s.BProbe), num(s.TempC)
+		}
+		j.Raw = r
+	}
+	return j
+}
+
+type eventJSON struct {
+	At    stamp  `json:"at"`
+	Level string `json:"level"`
+	Text  string `json:"text"`
+}
+
+type trendJSON struct {
+	RunID string `json:"run_id"`
+	Loop  int    `json:"loop"`
+	At    stamp  `json:"at"`
+	Value num    `json:"value"`
+	U     num    `json:"u"`
+}
+
+// writeJSON writes v with status code c.
+func writeJSON(w http.ResponseWriter, c int, v any) {
+	w.Header().Set("Content-Type", "application/json; charset=utf-8")
+	w.WriteHeader(c)
+	enc := json.NewEncoder(w)
+	_ = enc.Encode(v) // the client may be gone; nothing else to do
+}
+
+// writeError writes {"error": "..."} with status code c.
+func writeError(w http.ResponseWriter, c int, format string, args ...any) {
+	writeJSON(w, c, map[string]string{"error": fmt.Sprintf(format, args...)})
+}

@@ -1,0 +1,57 @@
+package api
+
+import (
+	"context"
+	"errors"
+	"net"
+	"net/http"
+	"time"
+)
+
+// DefaultAddr is where the API listens unless configured: loopback only.
+const DefaultAddr = "127.0.0.1:8417"
+
+// Serve listens on addr ("" means DefaultAddr) and serves h until ctx is
+// cancelled, then shuts down: new connections are refused, requests in
+// flight get up to 5 s to finish, event streams are cut. It returns nil
+// after a clean shutdown, or the listen or serve error.
+func Serve(ctx context.Context, addr string, h http.Handler) error {
+	if addr == "" {
+		addr = DefaultAddr
+	}
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		return err
+	}
+	return ServeListener(ctx, ln, h)
+}
+
+// ServeListener is Serve on an open listener, which it closes.
+func ServeListener(ctx context.Context, ln net.Listener, h http.Handler) error {
+	srv := &http.Server{
+		Handler:           h,
+		ReadHeaderTimeout: 5 * time.Second,
+		ReadTimeout:       30 * time.Second,
+		WriteTimeout:      60 * time.Second, // the event stream lifts it for itself
+		IdleTimeout:       120 * time.Second,
+		MaxHeaderBytes:    32 << 10,
+		BaseContext:       func(net.Listener) context.Context { return ctx },
+	}
+	done := make(chan error, 1)
+	go func() { done <- srv.Serve(ln) }()
+	select {
+	case err := <-done:
+		return err
+	case <-ctx.Done():
+	}
+	sctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	err := srv.Shutdown(sctx)
+	if errors.Is(err, context.DeadlineExceeded) {
+		err = srv.Close()
+	}
+	if serr := <-done; serr != nil && !errors.Is(serr, http.ErrServerClosed) {
+		return serr
+	}
+	return err
+}
