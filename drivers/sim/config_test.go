@@ -16,7 +16,11 @@ var update = flag.Bool("update", false, "rewrite the golden files in testdata/ba
 // TestSampleBenches loads every bench file shipped in configs/ and the
 // embedded default.
 func TestSampleBenches(t *testing.T) {
-	for _, f := range []string{"../../configs/bench-demo.yaml", "../../configs/bench-faults.yaml"} {
+	files, _ := filepath.Glob("../../configs/bench-*.yaml")
+	if len(files) < 3 {
+		t.Fatalf("bench samples: %v", files)
+	}
+	for _, f := range files {
 		c, err := LoadBench(f)
 		if err != nil {
 			t.Errorf("%s: %v", f, err)
