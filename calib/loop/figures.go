@@ -127,6 +127,7 @@ type analysis struct {
 	cycles    [][2]int // indices into branches
 	tips      []tipAcc
 	initial   *rawCurve
+	loc       local
 	opt       Options
 }
 
@@ -156,6 +157,7 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 	// The loss is integrated on the samples themselves; the bins serve the budget.
 	rawLoss := loss(t, h, b, s)
 	tipBand := tipFraction * (s.Hi - s.Lo)
+	tips := s.Tips(t, h, b)
 
 	var out []Figure
 	for _, name := range order {
@@ -179,6 +181,9 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 		switch name {
 		case FigHmax:
 			f.Budget.Add("tip averaging", tipBand/(2*math.Sqrt(3)), "Type B: H band averaged at each tip, rectangular")
+			f.Budget.Add("tip scatter", tipScatter(tips, func(tp Tip) float64 { return tp.H }), "Type A: scatter of the tips about their mean")
+		case FigBmax:
+			f.Budget.Add("tip scatter", tipScatter(tips, func(tp Tip) float64 { return tp.B }), "Type A: scatter of the tips about their mean")
 		case FigMuA:
 			f.Budget.Add("tip averaging", v*tipBand/(2*math.Sqrt(3))/nom[FigHmax], "Type B: from the Hmax tip band")
 		}
@@ -210,6 +215,37 @@ var notes = map[string]string{
 	FigMuRec:      "slope dB/dH/μ0 of the falling branch between H = 0 and Hk/2 (major-loop estimate of recoil permeability)",
 }
 
+// tipScatter returns the standard uncertainty of (mean top − mean bottom)/2
+// from the pooled scatter of the tips about the mean of their kind, or 0
+// with fewer than three tips.
+func tipScatter(tips []Tip, val func(Tip) float64) float64 {
+	var st, sb float64
+	var nt, nb float64
+	for _, tp := range tips {
+		if tp.Top {
+			st += val(tp)
+			nt++
+		} else {
+			sb += val(tp)
+			nb++
+		}
+	}
+	if nt == 0 || nb == 0 || nt+nb < 3 {
+		return 0
+	}
+	mt, mb := st/nt, sb/nb
+	ss := 0.0
+	for _, tp := range tips {
+		d := val(tp) - mb
+		if tp.Top {
+			d = val(tp) - mt
+		}
+		ss += d * d
+	}
+	s2 := ss / (nt + nb - 2)
+	return 0.5 * math.Sqrt(s2/nt+s2/nb)
+}
+
 func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 	comp := s.Complete()
 	if len(comp) == 0 {
@@ -233,6 +269,7 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 		}
 		return t[i] - a.t0
 	}
+	a.loc = local{h: h, b: b, tm: tm}
 	idxOf := map[int]int{}
 	for k, g := range s.Segments {
 		if !g.Complete && !(g.Initial && opt.InitialCurve) {
@@ -251,6 +288,7 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 		if g.Complete {
 			idxOf[k] = len(a.branches)
 			a.branches = append(a.branches, c)
+			a.loc.addBranch(g.Start, g.End)
 		} else {
 			rc := &rawCurve{dir: g.Dir, h: h[g.Start : g.End+1], b: b[g.Start : g.End+1], start: g.Start}
 			rc.t = make([]float64, len(rc.h))
@@ -381,22 +419,36 @@ func (a *analysis) eval(v variant) vals {
 	for k, c := range a.branches {
 		p := c.points(v, nil)
 		pts[k] = p
-		if x := interpH0(p); !math.IsNaN(x) {
-			br = append(br, math.Abs(x))
+		// Crossings on the samples; the bins are the fallback.
+		xbr, xhcb, xhcj, xhk := a.loc.crossings(k, v, c.dir == Falling)
+		if math.IsNaN(xbr) {
+			xbr = interpH0(p)
 		}
-		if x := crossB(p, func(q pt) float64 { return q.b }); !math.IsNaN(x) {
-			hcb = append(hcb, math.Abs(x))
+		if math.IsNaN(xhcb) {
+			xhcb = crossB(p, func(q pt) float64 { return q.b })
 		}
-		if x := crossB(p, func(q pt) float64 { return q.b - units.Mu0*q.h }); !math.IsNaN(x) {
-			hcj = append(hcj, math.Abs(x))
+		if math.IsNaN(xhcj) {
+			xhcj = crossB(p, func(q pt) float64 { return q.b - units.Mu0*q.h })
+		}
+		if !math.IsNaN(xbr) {
+			br = append(br, math.Abs(xbr))
+		}
+		if !math.IsNaN(xhcb) {
+			hcb = append(hcb, math.Abs(xhcb))
+		}
+		if !math.IsNaN(xhcj) {
+			hcj = append(hcj, math.Abs(xhcj))
 		}
 		if c.dir == Falling {
 			if m, mb, mh := bhMax(p); m > 0 {
 				bh, bhB, bhH = append(bh, m), append(bhB, mb), append(bhH, math.Abs(mh))
 			}
-			k, mu := kneeAndRecoil(p)
-			if !math.IsNaN(k) {
-				hk = append(hk, k)
+			kb, mu := kneeAndRecoil(p, xhk)
+			if !math.IsNaN(xhk) && xhk < 0 {
+				kb = -xhk
+			}
+			if !math.IsNaN(kb) {
+				hk = append(hk, kb)
 			}
 			if !math.IsNaN(mu) {
 				murec = append(murec, mu)
@@ -557,7 +609,7 @@ func solve3(a [3][3]float64, r [3]float64) ([3]float64, bool) {
 // kneeAndRecoil reads Hk (|H| where J falls to 0.9·Jr, going from H = 0
 // towards negative H) and the relative slope of B near Br from a falling
 // branch in ascending H.
-func kneeAndRecoil(p []pt) (hk, murec float64) {
+func kneeAndRecoil(p []pt, hkSamples float64) (hk, murec float64) {
 	hk, murec = nan(), nan()
 	i0 := -1
 	for i := 0; i+1 < len(p); i++ {
@@ -583,6 +635,9 @@ func kneeAndRecoil(p []pt) (hk, murec float64) {
 			hk = -(p[i].h + g*(p[i-1].h-p[i].h))
 			break
 		}
+	}
+	if hkSamples < 0 {
+		hk = -hkSamples
 	}
 	// Least-squares slope of B on H over H in [−reach, 0].
 	reach := hk / 2
