@@ -104,7 +104,10 @@ func Start(ctx context.Context, cfg Config, opts ...Option) (*Bench, error) {
 	for _, role := range sortedKeys(cfg.profiles) {
 		p, err := openPty()
 		if err != nil {
-			b.closePtys()
+			for _, in := range b.insts {
+				in.pty.closeMaster()
+				in.pty.closeSlave()
+			}
 			return nil, fmt.Errorf("sim: %s: %w", role, err)
 		}
 		b.insts[role] = newInstrument(role, cfg.profiles[role], p, serial)
@@ -165,20 +168,19 @@ func (b *Bench) History() []Truth {
 func (b *Bench) Close() error {
 	b.closeOnce.Do(func() {
 		b.cancel()
-		b.closeErr = b.closePtys()
+		var errs []error
+		for _, in := range b.insts {
+			if err := in.pty.closeMaster(); err != nil {
+				errs = append(errs, err)
+			}
+		}
 		b.wg.Wait()
+		for _, in := range b.insts {
+			in.pty.closeSlave()
+		}
+		b.closeErr = errors.Join(errs...)
 	})
 	return b.closeErr
-}
-
-func (b *Bench) closePtys() error {
-	var errs []error
-	for _, in := range b.insts {
-		if err := in.pty.close(); err != nil {
-			errs = append(errs, err)
-		}
-	}
-	return errors.Join(errs...)
 }
 
 // tick advances physics and timed faults in real time, so a trip or a timed

@@ -72,11 +72,14 @@ func (p *pty) hangup() error {
 	return nil
 }
 
-// close closes both ends; a blocked master read returns os.ErrClosed.
-func (p *pty) close() error {
-	err := p.master.Close()
+// closeMaster closes the master; a blocked master read returns
+// os.ErrClosed and the slave path goes away once the slave fd is closed.
+func (p *pty) closeMaster() error { return p.master.Close() }
+
+// closeSlave closes the bench's own slave fd; call it only after the
+// serving goroutine (which may reopen it on a hang-up) has ended.
+func (p *pty) closeSlave() {
 	if p.slave != nil {
 		p.slave.Close()
 	}
-	return err
 }
