@@ -251,6 +251,9 @@ func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, 
 	fr := d.fixtures[fixture]
 	stopping := d.stopping || d.ctx == nil
 	d.mu.Unlock()
+	if ok && fr == nil && !stopping {
+		return "", fmt.Errorf("fixture %q: the daemon has not started it yet", fixture)
+	}
 	if !ok || fr == nil {
 		names := make([]string, 0, len(cfg.Fixtures))
 		for _, f := range cfg.Fixtures {

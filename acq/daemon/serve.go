@@ -31,9 +31,9 @@ type APIFactory func(reader record.Reader, runner Runner, hub *live.Hub, token s
 
 // Wiring is what Serve needs from outside this package.
 type Wiring struct {
-	Open     Opener     // required: opens a fixture's instruments
+	Open     Opener     // nil: FixtureOpener
 	API      APIFactory // nil: only /healthz and /metrics
-	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre
+	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre // nil: SpecimenArea
 	Software string
 	Stderr   io.Writer // logs; nil: os.Stderr
 	// Listening, when set, is called with the HTTP address once it listens.
@@ -74,6 +74,12 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	defer st.Close()
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
 
+	if w.Open == nil {
+		w.Open = FixtureOpener(log)
+	}
+	if w.Area == nil {
+		w.Area = SpecimenArea
+	}
 	hub := live.NewHub(0)
 	d, err := New(cfg, Deps{Open: w.Open, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area})
 	if err != nil {
@@ -101,8 +107,12 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	if w.API != nil {
 		api = w.API(st, d, hub, cfg.Token(), log.With("part", "api"))
 	}
+	// A supply left energised is brought to zero before anything else,
+	// then the fixtures take runs.
+	d.Start(ctx)
 	ln, err := net.Listen("tcp", cfg.Config.HTTP.Addr)
 	if err != nil {
+		d.Stop("http.addr unusable")
 		return fmt.Errorf("%s: http.addr: %w", configPath, err)
 	}
 	srv := &http.Server{Handler: d.Handler(api), ReadHeaderTimeout: 10 * time.Second}
@@ -121,7 +131,6 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		defer signal.Stop(c)
 		sigs = c
 	}
-	d.Start(ctx)
 	log.Info("hystd serving", "config", cfg.File, "http", ln.Addr().String(), "store", st.Path(), "fixtures", len(cfg.Fixtures))
 	notify(log, "READY=1\nSTATUS=serving "+fmt.Sprint(len(cfg.Fixtures))+" fixture(s)")
 	var wd <-chan time.Time

@@ -249,8 +249,17 @@ func TestStartupFindsSupplyOn(t *testing.T) {
 		t.Fatal(err)
 	}
 	r.assertSafe(t)
-	if len(r.sup.setsBefore) != 0 {
-		t.Errorf("setpoints %v sent before the supply was brought to zero", r.sup.setsBefore)
+	// Before the supply's Halt only the engine's ramp-down may set it: each
+	// setpoint nearer zero than the last, one slew step (50 A/s × 20 ms) apart.
+	prev := 3.0
+	for _, sp := range r.sup.setsBefore {
+		if math.Abs(sp) > prev || prev-math.Abs(sp) > 1+1e-9 {
+			t.Fatalf("setpoints %v before the halt are not a ramp from 3 A down to zero", r.sup.setsBefore)
+		}
+		prev = math.Abs(sp)
+	}
+	if n := len(r.sup.setsBefore); n == 0 || r.sup.setsBefore[n-1] != 0 {
+		t.Errorf("ramp-down %v does not end at zero", r.sup.setsBefore)
 	}
 	found := false
 	for _, e := range r.w.events {

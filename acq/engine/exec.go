@@ -400,13 +400,75 @@ func orDash(s string) string {
 	return s
 }
 
+// Ramp-down of the engine's own, before the supply's Halt: setpoints every
+// rampPeriod at the slew limit, then the read-back awaited near zero, so the
+// output is never switched off while the winding still carries current
+// (whatever the driver's Halt does).
+const (
+	rampPeriod = 20 * time.Millisecond
+	settleMax  = 5 * time.Second
+)
+
+// zeroTol is the read-back current taken as zero, A.
+func (x *exec) zeroTol() float64 { return 0.005 + 0.002*x.s.Fixture.Limits.MaxCurrentA }
+
+func (x *exec) rampDown(ctx context.Context, slew float64) {
+	sup := x.s.Instruments.Supply
+	i0 := x.lastI
+	if r, err := sup.ReadCurrent(ctx); err == nil {
+		i0 = r.Value
+	}
+	if math.IsNaN(i0) || !(slew > 0) {
+		return
+	}
+	step := slew * rampPeriod.Seconds()
+	next := x.s.Clock.Now()
+	for i := i0; ; {
+		switch {
+		case math.Abs(i) <= step:
+			i = 0
+		case i > 0:
+			i -= step
+		default:
+			i += step
+		}
+		if err := sup.SetCurrent(ctx, units.Ampere(i)); err != nil {
+			x.log.Error("ramp-down setpoint refused; leaving it to the supply's halt", "err", err)
+			return
+		}
+		if i == 0 {
+			break
+		}
+		next = next.Add(rampPeriod)
+		if x.s.Clock.SleepUntil(ctx, next) != nil {
+			return
+		}
+	}
+	deadline := x.s.Clock.Now().Add(settleMax)
+	for {
+		r, err := sup.ReadCurrent(ctx)
+		if err != nil || math.Abs(r.Value) <= x.zeroTol() {
+			return
+		}
+		if x.s.Clock.Now().After(deadline) {
+			x.log.Error("current did not settle at zero after the ramp-down", "current_a", r.Value)
+			return
+		}
+		next = x.s.Clock.Now().Add(rampPeriod)
+		if x.s.Clock.SleepUntil(ctx, next) != nil {
+			return
+		}
+	}
+}
+
 // halt ramps the supply to zero at its slew limit and turns it off, with a
 // context of its own, then reads back that it did; other roles are halted too.
 func (x *exec) halt(ctx context.Context) error {
 	sup := x.s.Instruments.Supply
+	// the lower of the supply's slew and the fixture's limit
 	slew := float64(sup.Limits().MaxSlew)
-	if slew <= 0 {
-		slew = x.s.Fixture.Limits.MaxSlewAPerS
+	if f := x.s.Fixture.Limits.MaxSlewAPerS; f > 0 && (slew <= 0 || f < slew) {
+		slew = f
 	}
 	d := HaltMargin
 	if i := math.Abs(x.lastI); slew > 0 && !math.IsNaN(i) {
@@ -414,6 +476,7 @@ func (x *exec) halt(ctx context.Context) error {
 	}
 	hctx, cancel := bg(ctx, d)
 	defer cancel()
+	x.rampDown(hctx, slew)
 	err := sup.Halt(hctx)
 	if err != nil {
 		x.log.Error("supply halt failed; trying again", "err", err)
@@ -438,7 +501,7 @@ func (x *exec) halt(ctx context.Context) error {
 		return fmt.Errorf("halted, but the read-back failed: %w", e)
 	}
 	x.lastI = i.Value
-	if tol := 0.01*x.s.Fixture.Limits.MaxCurrentA + 0.01; math.Abs(i.Value) > tol || st.OutputOn {
+	if tol := 2 * x.zeroTol(); math.Abs(i.Value) > tol || st.OutputOn {
 		return fmt.Errorf("after the halt the supply reads %.4g A with output on = %v", i.Value, st.OutputOn)
 	}
 	x.energd = false

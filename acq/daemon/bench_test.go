@@ -1,0 +1,317 @@
+package daemon
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"math"
+	"net/http"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"log/slog"
+
+	"hystd/acq/live"
+	"hystd/acq/record"
+	"hystd/acq/store"
+	"hystd/drivers/sim"
+)
+
+// benchDaemon is a daemon served over a simulated bench on real ptys, with a
+// real SQLite store, driven as `hystd serve` is.
+type benchDaemon struct {
+	bench  *sim.Bench
+	dir    string // config folder
+	watch  string
+	db     string
+	runner Runner
+	hub    *live.Hub
+	addr   string
+	sigs   chan os.Signal
+	done   chan error
+	logs   *syncBuf
+}
+
+type syncBuf struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (s *syncBuf) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuf) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.String()
+}
+
+// startBench starts the demo bench (with faults added) and a daemon on it.
+func startBench(t *testing.T, faults ...sim.Fault) *benchDaemon {
+	t.Helper()
+	if testing.Short() {
+		t.Skip("simulated bench: skipped with -short")
+	}
+	cfg, err := sim.DefaultBench()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg.Faults = append(cfg.Faults, faults...)
+	ctx, cancel := context.WithCancel(context.Background())
+	b, err := sim.Start(ctx, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { cancel(); b.Close() })
+	bd := &benchDaemon{bench: b, dir: t.TempDir(), sigs: make(chan os.Signal, 2), done: make(chan error, 1), logs: &syncBuf{}}
+	bd.watch = filepath.Join(bd.dir, "inbox")
+	bd.db = filepath.Join(bd.dir, "hystd.db")
+	if err := os.Mkdir(bd.watch, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ports := b.Ports()
+	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
+		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(ports[role]))
+	}
+	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	write := func(name string, data []byte) {
+		if err := os.WriteFile(filepath.Join(bd.dir, name), data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write("fixture.yaml", fx)
+	write("specimen.yaml", sp)
+	write("daemon.yaml", []byte(fmt.Sprintf(`kind: daemon
+http: {addr: "127.0.0.1:0"}
+store: {path: %s}
+log: {level: info}
+fixtures:
+  - {fixture: fixture.yaml, specimen: specimen.yaml, watch: inbox, poll: 100ms}
+`, bd.db)))
+	ready := make(chan struct{})
+	var once sync.Once
+	go func() {
+		bd.done <- Serve(ctx, filepath.Join(bd.dir, "daemon.yaml"), Wiring{
+			Software: "test",
+			Stderr:   bd.logs,
+			Signals:  bd.sigs,
+			API: func(_ record.Reader, r Runner, hub *live.Hub, _ string, _ *slog.Logger) http.Handler {
+				bd.runner, bd.hub = r, hub
+				return nil
+			},
+			Listening: func(addr string) { bd.addr = addr; once.Do(func() { close(ready) }) },
+		})
+	}()
+	select {
+	case <-ready:
+	case err := <-bd.done:
+		t.Fatalf("serve: %v\n%s", err, bd.logs)
+	case <-time.After(20 * time.Second):
+		t.Fatalf("daemon not listening\n%s", bd.logs)
+	}
+	t.Cleanup(func() {
+		select {
+		case bd.sigs <- syscall.SIGTERM:
+		default:
+		}
+		select {
+		case <-bd.done:
+		case <-time.After(30 * time.Second):
+			t.Error("daemon did not stop")
+		}
+		if t.Failed() {
+			t.Logf("daemon log:\n%s", bd.logs)
+		}
+	})
+	return bd
+}
+
+// waitFor polls cond (the bench runs in real time) until it holds or the
+// deadline passes.
+func waitFor(t *testing.T, what string, d time.Duration, cond func() bool) {
+	t.Helper()
+	deadline := time.Now().Add(d)
+	for !cond() {
+		if time.Now().After(deadline) {
+			t.Fatalf("timed out waiting for %s", what)
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+}
+
+// assertZero checks the bench's ground truth: no current in the winding and
+// the output off, and that the output never went off with current flowing.
+func (bd *benchDaemon) assertZero(t *testing.T) {
+	t.Helper()
+	tr := bd.bench.Truth()
+	if math.Abs(float64(tr.I)) > 1e-3 || tr.Output {
+		t.Errorf("bench truth after the run: I = %g A, output on = %v", float64(tr.I), tr.Output)
+	}
+	var was bool
+	for _, h := range bd.bench.History() {
+		if was && !h.Output && math.Abs(float64(h.I)) > 0.05 {
+			t.Errorf("output went off at %s with %g A in the winding", h.T, float64(h.I))
+			break
+		}
+		was = h.Output
+	}
+}
+
+func (bd *benchDaemon) run(t *testing.T, id string) (record.Run, []record.Loop) {
+	t.Helper()
+	st, err := store.Open(context.Background(), bd.db)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	r, err := st.Run(context.Background(), id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	loops, err := st.Loops(context.Background(), id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return r, loops
+}
+
+// shortLoop is about 4 s on the bench: approach, 0.5 s hold, 2 s sweep, 0.5 s hold, return.
+const shortLoop = `kind: recipe
+name: short-loop
+steps:
+  - record_loop: {amplitude: 500 A/m, rate: 1 kA/m/s, points: 200, hold: 500ms}
+`
+
+// TestWatchedFolderRun: a recipe file dropped into the folder is validated,
+// queued, run to a stored run, then moved to done/ with a result file; a bad
+// one goes to failed/ with the reason, and a recipe beyond a fixture limit
+// is refused naming the step and the limit.
+func TestWatchedFolderRun(t *testing.T) {
+	bd := startBench(t)
+	drop := func(name, body string) {
+		tmp := filepath.Join(bd.dir, name+".part")
+		if err := os.WriteFile(tmp, []byte(body), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.Rename(tmp, filepath.Join(bd.watch, name)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	drop("loop.yaml", shortLoop)
+	drop("typo.yaml", "kind: recipe\nname: typo\nsteps:\n  - record_loop: {amplitude: 500, rate: 1 kA/m/s, points: 200}\n")
+	drop("big.yaml", "kind: recipe\nname: big\nsteps:\n  - record_loop:\n      amplitude: 20 kA/m\n      rate: 1 kA/m/s\n      points: 200\n")
+	result := func(sub, name string) string {
+		b, _ := os.ReadFile(filepath.Join(bd.watch, sub, name+".result.yaml"))
+		return string(b)
+	}
+	waitFor(t, "done/loop.result.yaml", 60*time.Second, func() bool { return result(DoneDir, "loop") != "" })
+	waitFor(t, "failed/big.result.yaml", 10*time.Second, func() bool { return result(FailedDir, "big") != "" })
+	bd.assertZero(t)
+	res := result(DoneDir, "loop")
+	if !strings.Contains(res, "state: finished") || !strings.Contains(res, "run_id: aldermoor-ring-2-") {
+		t.Fatalf("result:\n%s", res)
+	}
+	if _, err := os.Stat(filepath.Join(bd.watch, DoneDir, "loop.yaml")); err != nil {
+		t.Error("recipe not moved to done/")
+	}
+	id := strings.TrimSpace(strings.SplitN(strings.SplitN(res, "run_id: ", 2)[1], "\n", 2)[0])
+	r, loops := bd.run(t, id)
+	if r.State != record.Finished || len(loops) != 1 || len(loops[0].Figures) == 0 {
+		t.Fatalf("stored run %s %q with %d loops", r.State, r.Reason, len(loops))
+	}
+	typo := result(FailedDir, "typo")
+	if !strings.Contains(typo, "state: refused") || !strings.Contains(typo, "inbox/typo.yaml:4: steps.0.record_loop") || !strings.Contains(typo, "500 has no unit") {
+		t.Errorf("typo result:\n%s", typo)
+	}
+	big := result(FailedDir, "big")
+	if !strings.Contains(big, "inbox/big.yaml:5: steps.0.record_loop.amplitude") || !strings.Contains(big, "step 1 (steps.0.record_loop)") ||
+		!strings.Contains(big, "limits.max_current_a = 10 A") {
+		t.Errorf("big result:\n%s", big)
+	}
+}
+
+// TestEndingsOnBench: each ending mid-loop leaves the bench's winding at
+// zero current with the output off, and the run recorded with its state and reason.
+func TestEndingsOnBench(t *testing.T) {
+	tests := []struct {
+		name   string
+		faults []sim.Fault
+		act    func(bd *benchDaemon, id string) // called mid-sweep; nil: wait for the fault
+		state  record.State
+		reason string
+	}{
+		{"abort", nil, func(bd *benchDaemon, id string) {
+			if err := bd.runner.Abort(context.Background(), id); err != nil {
+				panic(err)
+			}
+		}, record.Aborted, "aborted on request"},
+		{"SIGTERM", nil, func(bd *benchDaemon, id string) { bd.sigs <- syscall.SIGTERM }, record.Aborted, "daemon stopping: terminated received"},
+		{"supply trip", []sim.Fault{{Role: "supply", Kind: sim.FaultTrip, AfterCommands: 700}}, nil, record.Failed, "supply tripped"},
+		{"integrator port hung up", []sim.Fault{{Role: "integrator", Kind: sim.FaultHangup, AfterCommands: 250}}, nil, record.Failed, "integrator"},
+		{"supply port hung up", []sim.Fault{{Role: "supply", Kind: sim.FaultHangup, AfterCommands: 700}}, nil, record.Failed, "supply"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			bd := startBench(t, tc.faults...)
+			evs, cancel := bd.hub.Subscribe()
+			defer cancel()
+			id, err := bd.runner.Submit(context.Background(), "aldermoor-ring-2", []byte(shortLoop))
+			if err != nil {
+				t.Fatal(err)
+			}
+			var end live.Event
+			samples := 0
+			acted := false
+			deadline := time.After(60 * time.Second)
+		wait:
+			for {
+				select {
+				case e := <-evs:
+					if e.RunID != id {
+						continue
+					}
+					if e.Kind == live.KindSample {
+						samples++
+						if samples == 120 && tc.act != nil && !acted {
+							acted = true
+							tc.act(bd, id)
+						}
+					}
+					if e.Kind == live.KindState && e.State.Ended() {
+						end = e
+						break wait
+					}
+				case <-deadline:
+					t.Fatalf("run did not end (%d samples)", samples)
+				}
+			}
+			if tc.act != nil && !acted {
+				t.Fatalf("run ended before the action, after %d samples: %s %q", samples, end.State, end.Reason)
+			}
+			if tc.act == nil && samples < 20 {
+				t.Errorf("the fault fired before the sweep: %d samples", samples)
+			}
+			bd.assertZero(t)
+			r, _ := bd.run(t, id)
+			t.Logf("stored %s: %s (after %d live samples)", r.State, r.Reason, samples)
+			if r.State != tc.state || !strings.Contains(r.Reason, tc.reason) {
+				t.Errorf("stored %s %q, want %s containing %q", r.State, r.Reason, tc.state, tc.reason)
+			}
+		})
+	}
+}

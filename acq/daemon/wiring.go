@@ -1,0 +1,42 @@
+package daemon
+
+import (
+	"context"
+	"log/slog"
+
+	"hystd/acq/config"
+	"hystd/acq/fixture"
+	"hystd/acq/process"
+	"hystd/calib/units"
+)
+
+// FixtureOpener opens a fixture's instruments through their profiles
+// (acq/fixture) and builds the loop processing for the mounted specimen with
+// the profiles' accuracies. Geometry warnings are logged.
+func FixtureOpener(log *slog.Logger) Opener {
+	return func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error) {
+		o, err := fixture.Open(ctx, fx, log)
+		if err != nil {
+			return Opened{}, err
+		}
+		proc, warnings, err := o.Processor(fx, sp)
+		if err != nil {
+			o.Close()
+			return Opened{}, err
+		}
+		for _, w := range warnings {
+			log.Warn(w, "fixture", fx.Name, "specimen", sp.ID)
+		}
+		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close}, nil
+	}
+}
+
+// SpecimenArea is the specimen's cross-section as the processing computes
+// it, for the live B estimate; 0 when it cannot be computed.
+func SpecimenArea(fx config.Fixture, sp config.Specimen) units.SquareMetre {
+	s, _, err := process.SetupFrom(fx, sp)
+	if err != nil {
+		return 0
+	}
+	return s.Area
+}
