@@ -31,8 +31,8 @@ type APIFactory func(reader record.Reader, runner Runner, hub *live.Hub, token s
 
 // Wiring is what Serve needs from outside this package.
 type Wiring struct {
-	Open     Opener     // nil: FixtureOpener
-	API      APIFactory // nil: only /healthz and /metrics
+	Open     Opener                                                        // nil: FixtureOpener
+	API      APIFactory                                                    // nil: only /healthz and /metrics
 	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre // nil: SpecimenArea
 	Software string
 	Stderr   io.Writer // logs; nil: os.Stderr
