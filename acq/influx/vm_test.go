@@ -422,3 +422,72 @@ func BenchmarkForwardLoopback(b *testing.B) {
 	}
 	b.ReportMetric(float64(sent)/b.Elapsed().Seconds(), "points/s")
 }
+
+// TestVMFlapping: the server goes away three times while a backlog of
+// twelve loops is being delivered, in the middle of the stream. With the
+// server deduplicating at 1 ms, as the README tells users to run it, every
+// value is there once afterwards; the test also requires that the outages
+// really hit the forwarder (failed attempts recorded).
+func TestVMFlapping(t *testing.T) {
+	srv := vmtest.Start(t, "-dedup.minScrapeInterval=1ms")
+	st := openStore(t, filepath.Join(t.TempDir(), "hystd.db"))
+	want := map[string]float64{}
+	var ids []string
+	for i := 0; i < 6; i++ {
+		id := fmt.Sprintf("flap-%d", i)
+		r, ls := demoRun(t, st, id, t0.Add(time.Duration(i)*time.Hour), 2, 2500)
+		for k, v := range expected(t, r, ls) {
+			want[k] = v
+		}
+		ids = append(ids, id)
+	}
+	cfg := vmConfig(srv.URL)
+	cfg.BatchSize = 500
+	f, err := influx.New(cfg, st, influx.Options{Log: quiet()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- f.Run(ctx) }()
+	defer func() { cancel(); <-done }()
+	for _, left := range []int{10, 7, 4} {
+		waitBacklogAtMost(t, st, left)
+		srv.Stop()
+		time.Sleep(300 * time.Millisecond) // the forwarder meets a closed port
+		srv.Restart()
+	}
+	waitBacklog(t, st, 0)
+	attempts := 0
+	for id := int64(1); id <= 12; id++ {
+		e, err := st.Entry(context.Background(), id)
+		if err != nil {
+			t.Fatal(err)
+		}
+		attempts += e.Attempts
+	}
+	if attempts == 0 {
+		t.Fatal("no failed attempt recorded: the outages missed the forwarder")
+	}
+	t.Logf("%d failed attempts during three outages", attempts)
+	checkOnce(t, srv, ids, want)
+}
+
+func waitBacklogAtMost(t *testing.T, st *store.Store, n int) {
+	t.Helper()
+	deadline := time.Now().Add(30 * time.Second)
+	for {
+		b, err := st.Backlog(context.Background())
+		if err != nil {
+			t.Fatal(err)
+		}
+		if b.Pending <= n {
+			return
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("backlog stays at %+v, want ≤ %d pending", b, n)
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+}
