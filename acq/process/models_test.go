@@ -2,6 +2,7 @@ package process
 
 import (
 	"math"
+	"strings"
 	"testing"
 	"time"
 
@@ -80,5 +81,35 @@ func TestStonerWohlfarthCheck15(t *testing.T) {
 	}
 	if r := m[loop.FigHcJ].Value / hk; math.Abs(r-0.479) > 0.01*0.479 {
 		t.Errorf("HcJ/H_K = %.4f, want 0.479 ± 1 %%", r)
+	}
+}
+
+// TestNormalCurveFamily: loops of rising amplitude on the Jiles–Atherton set
+// of REFERENCE §7; the normal curve through their tips must have μ_max in
+// the interior of the family, at least the largest tip's B/(μ0·H) and not
+// more than 5 % above it (the parabola only refines between tips).
+func TestNormalCurveFamily(t *testing.T) {
+	var fam [][]record.Figure
+	best := 0.0
+	for _, amp := range []float64{300, 450, 600, 800, 1100, 1600, 2500, 4000} {
+		ja := physics.NewJilesAtherton(physics.JAParams{Ms: 1.6e6, A: 1100, K: 400, C: 0.2, Alpha: 1.6e-3})
+		raw, s := modelLoop(ja, amp, amp/500)
+		_, fs, _, err := Loop(raw, s)
+		if err != nil {
+			t.Fatalf("amplitude %g: %v", amp, err)
+		}
+		m := figs(fs)
+		best = math.Max(best, m[loop.FigBmax].Value/(units.Mu0*m[loop.FigHmax].Value))
+		fam = append(fam, fs)
+	}
+	pts, f, err := NormalCurve(fam)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(pts) != 8 || f.Name != loop.FigMuMax || f.Value < best || f.Value > 1.05*best || !strings.Contains(f.Note, "parabola") {
+		t.Errorf("μ_max %v (largest tip %v), %d points, note %q", f.Value, best, len(pts), f.Note)
+	}
+	if _, _, err := NormalCurve([][]record.Figure{fam[0], {}}); err == nil {
+		t.Error("loop without Hmax accepted")
 	}
 }
