@@ -39,6 +39,7 @@ func TestJilesAthertonCheckValue14(t *testing.T) {
 		j.Drive(6000)
 		cycle(j, 6000, step)
 		f := loopFigures(cycle(j, 6000, step))
+		t.Logf("step %g A/m: Bmax %.5f T, Br %.5f T, Hc %.2f A/m, W %.1f J/m³", step, f.bmax, f.br, f.hc, f.w)
 		for _, c := range []struct {
 			name      string
 			got, want float64
