@@ -2,7 +2,9 @@ package store
 
 import (
 	"context"
+	"crypto/sha256"
 	"database/sql"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"strings"
@@ -12,13 +14,20 @@ import (
 )
 
 // CreateRun stores a new run. The ID must be non-empty and new (ErrExists
-// otherwise).
+// otherwise). ConfigHash must be the hex SHA-256 of Config; when empty the
+// store computes it.
 func (s *Store) CreateRun(ctx context.Context, r record.Run) error {
 	if strings.TrimSpace(r.ID) == "" {
 		return errors.New("store: create run: empty run id")
 	}
 	if r.State == "" {
 		r.State = record.Queued
+	}
+	sum := sha256.Sum256([]byte(r.Config))
+	if h := hex.EncodeToString(sum[:]); r.ConfigHash == "" {
+		r.ConfigHash = h
+	} else if !strings.EqualFold(r.ConfigHash, h) {
+		return fmt.Errorf("store: create run %s: config hash %s is not the SHA-256 of the config snapshot (%s)", r.ID, r.ConfigHash, h)
 	}
 	if err := checkState(r.State); err != nil {
 		return fmt.Errorf("store: create run %s: %w", r.ID, err)

@@ -10,6 +10,8 @@ package storetest
 
 import (
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"math"
@@ -60,10 +62,12 @@ var t0 = time.Date(2026, 3, 14, 9, 30, 0, 123456789, time.UTC)
 
 // SampleRun returns a run with every field set, for tests.
 func SampleRun(id string, started time.Time) record.Run {
+	cfg := "kind: fixture\nname: bench-ring-2\n"
+	sum := sha256.Sum256([]byte(cfg))
 	return record.Run{
 		ID: id, Recipe: "ring-loop-1k", RecipeText: "kind: recipe\nname: ring-loop-1k\n",
 		Fixture: "bench-ring-2", Specimen: "R-17", Material: "NiFe 50/50 tape",
-		Config: "kind: fixture\nname: bench-ring-2\n", ConfigHash: "ab12", Software: "0.1.0-test",
+		Config: cfg, ConfigHash: hex.EncodeToString(sum[:]), Software: "0.1.0-test",
 		State: record.Queued, Queued: started.Add(-time.Second), Started: started,
 	}
 }
@@ -193,11 +197,14 @@ func testRunRoundTrip(t *testing.T, b Backend) {
 	must(t, err)
 	sameRun(t, got, want)
 
-	// A run with no times set keeps them zero.
+	// A run with no times set keeps them zero; a missing config hash is
+	// computed: SHA-256 of the empty string (FIPS 180-4 test vector, as
+	// published with the standard's examples).
 	bare := record.Run{ID: "run-bare", State: record.Queued}
 	must(t, b.CreateRun(ctx(), bare))
 	got, err = b.Run(ctx(), "run-bare")
 	must(t, err)
+	bare.ConfigHash = "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855"
 	sameRun(t, got, bare)
 }
 
@@ -208,6 +215,14 @@ func testRunDuplicate(t *testing.T, b Backend) {
 	}
 	if err := b.CreateRun(ctx(), record.Run{}); err == nil {
 		t.Fatal("CreateRun with empty id succeeded")
+	}
+	bad := SampleRun("run-bad-hash", t0)
+	bad.ConfigHash = "00ff"
+	if err := b.CreateRun(ctx(), bad); err == nil {
+		t.Fatal("CreateRun with a wrong config hash succeeded")
+	}
+	if _, err := b.Run(ctx(), "run-bad-hash"); !errors.Is(err, record.ErrNotFound) {
+		t.Fatalf("rejected run was stored: %v", err)
 	}
 	got, err := b.Run(ctx(), "run-a")
 	must(t, err)
