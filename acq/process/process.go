@@ -38,6 +38,11 @@ const (
 	// the first sweep sample; drift baseline from the holds; no closure and
 	// no centering. Gives the initial curve and μ_initial.
 	DriftDemagStart = "demagnetized-start"
+	// DriftFromLevel: an open curve (a demagnetization curve from
+	// saturation, a recoil loop) whose first sweep sample is at the level
+	// Setup.StartB, e.g. the tip B of a loop measured before at the same
+	// field; drift baseline from the holds; no closure and no centering.
+	DriftFromLevel = "from-level"
 )
 
 // DefaultMuInitialB is the flux density at which μ_initial is read unless
@@ -65,9 +70,11 @@ type Setup struct {
 	Class              string           // ClassSoft (default) or ClassMagnet
 	Density            units.KilogramPerCubicMetre
 	Mass               units.Kilogram
-	Drift              string      // DriftCyclic (default) or DriftDemagStart
+	Drift              string      // DriftCyclic (default), DriftDemagStart or DriftFromLevel
 	DemagFactor        float64     // N of an open specimen; 0: no correction
 	MuInitialB         units.Tesla // where μ_initial is read; 0: DefaultMuInitialB
+	// StartB is B at the first sweep sample for DriftFromLevel.
+	StartB units.Tesla
 	// Accuracy of the current read-back (A), the integrator (Wb-turns) and
 	// the field meter (T).
 	Current, Flux, Field Accuracy
@@ -93,9 +100,9 @@ func (s Setup) Validate() error {
 		return fmt.Errorf("setup: class %q: want %q or %q", s.Class, ClassSoft, ClassMagnet)
 	}
 	switch s.Drift {
-	case "", DriftCyclic, DriftDemagStart:
+	case "", DriftCyclic, DriftDemagStart, DriftFromLevel:
 	default:
-		return fmt.Errorf("setup: drift mode %q: want %q or %q", s.Drift, DriftCyclic, DriftDemagStart)
+		return fmt.Errorf("setup: drift mode %q: want %q, %q or %q", s.Drift, DriftCyclic, DriftDemagStart, DriftFromLevel)
 	}
 	if !(s.DemagFactor >= 0 && s.DemagFactor < 1) {
 		return fmt.Errorf("setup: demagnetizing factor %g: must be in [0, 1)", s.DemagFactor)
@@ -272,8 +279,15 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 		}
 	} else {
 		off := correct.Anchor(b, 0)
-		corr = append(corr, record.Correction{Name: "anchor", Size: off, Unit: "T",
-			Note: "demagnetized start: B = 0 at the first sweep sample"})
+		note := "demagnetized start: B = 0 at the first sweep sample"
+		if drift == DriftFromLevel {
+			for i := range b {
+				b[i] += float64(s.StartB)
+			}
+			off -= float64(s.StartB)
+			note = fmt.Sprintf("open curve: B = %.6g T (the given start level) at the first sweep sample", float64(s.StartB))
+		}
+		corr = append(corr, record.Correction{Name: "anchor", Size: off, Unit: "T", Note: note})
 		if havePre || havePost {
 			u := pre.U
 			if !havePre {

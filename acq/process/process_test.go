@@ -355,3 +355,39 @@ func BenchmarkLoop1M(b *testing.B) {
 	}
 	b.ReportMetric(float64(len(raw)), "samples")
 }
+
+// TestDemagCurveFromLevel: the straight-line magnet (REFERENCE §10 item 12)
+// measured as an open demagnetization curve from +2 MA/m to −0.6 MA/m and a
+// recoil piece, with integrator drift; the start level is the tip B of the
+// same magnet at +2 MA/m, B = Br + μ0·μ_rec·H = 1.3 + μ0·1.05·2e6 T.
+func TestDemagCurveFromLevel(t *testing.T) {
+	l := synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
+	var tt, h, b []float64
+	add := func(from, to float64, n int, line bool) {
+		for i := 0; i < n; i++ {
+			hv := from + (to-from)*float64(i)/float64(n)
+			bv := l.B(hv, -1)
+			if line {
+				bv = 1.3 + units.Mu0*1.05*hv
+			}
+			tt, h, b = append(tt, float64(len(tt))*1e-3), append(h, hv), append(b, bv)
+		}
+	}
+	add(2e6, -0.6e6, 2600, false)
+	add(-0.6e6, 0, 600, true)
+	add(0, -0.6e6, 601, true)
+	s := Setup{Area: 100e-6, N2: 50, HFrom: HFromFieldMeter, Class: ClassMagnet, Drift: DriftFromLevel,
+		StartB: units.Tesla(l.B(2e6, -1))}
+	bn := bench{s: s, hold: 300, v0: 3e-6, noiseI: 1e-5, noiseP: 1e-7, probe: true}
+	_, fs, cs, err := Loop(bn.raw(tt, h, b, 1e-3), bn.s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := figs(fs)
+	within(t, "demag curve", loop.FigBr, m, 1.3, 2e-3)
+	within(t, "demag curve", loop.FigBHmax, m, 320.2e3, 3e-3)
+	within(t, "demag curve", loop.FigMuRec, m, 1.05, 5e-3)
+	if c := corrs(cs); !strings.Contains(c["anchor"].Note, "open curve") || c["closure"].Name != "" {
+		t.Errorf("corrections %+v", cs)
+	}
+}

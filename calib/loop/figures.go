@@ -128,6 +128,7 @@ type analysis struct {
 	tips      []tipAcc
 	initial   *rawCurve
 	loc       local
+	recoil    *rawCurve // recoil pieces after a complete falling branch
 	opt       Options
 }
 
@@ -212,7 +213,7 @@ var notes = map[string]string{
 	FigBHmaxH:     "|H| at the (BH)max point",
 	FigHk:         "|H| where J = 0.9·Jr on the falling branch (Jr = J at H = 0)",
 	FigSquareness: "Hk/HcJ",
-	FigMuRec:      "slope dB/dH/μ0 of the falling branch between H = 0 and Hk/2 (major-loop estimate of recoil permeability)",
+	FigMuRec:      "least-squares slope dB/dH/μ0 of the recoil pieces when recorded, else of the falling branch between H = 0 and Hk/2 (major-loop estimate)",
 }
 
 // tipScatter returns the standard uncertainty of (mean top − mean bottom)/2
@@ -297,6 +298,28 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 			}
 			a.initial = rc
 		}
+	}
+	// Recoil pieces: incomplete segments after a complete falling branch
+	// (a recoil loop from a point of the demagnetization curve).
+	for k, g := range s.Segments {
+		if !g.Complete || g.Dir != Falling || k+1 >= len(s.Segments) {
+			continue
+		}
+		rest := s.Segments[k+1:]
+		first, last := rest[0].Start, rest[len(rest)-1].End
+		ok := true
+		for _, r := range rest {
+			ok = ok && !r.Complete
+		}
+		if ok && last-first >= 4 {
+			rc := &rawCurve{dir: Rising, h: h[first : last+1], b: b[first : last+1], start: first}
+			rc.t = make([]float64, len(rc.h))
+			for i := range rc.t {
+				rc.t[i] = tm(first + i)
+			}
+			a.recoil = rc
+		}
+		break
 	}
 	for k := 0; k+1 < len(s.Segments); k++ {
 		x, y := s.Segments[k], s.Segments[k+1]
@@ -471,6 +494,11 @@ func (a *analysis) eval(v variant) vals {
 	}
 	if a.initial != nil && a.opt.MuInitialB > 0 {
 		out[FigMuInitial] = a.initial.muInitial(v, a.opt.MuInitialB)
+	}
+	if a.recoil != nil {
+		if mu := a.recoil.slope(v); !math.IsNaN(mu) {
+			out[FigMuRec] = mu
+		}
 	}
 	return out
 }
@@ -712,6 +740,27 @@ func loss(_ []float64, h, b []float64, s Shape) float64 {
 		w = append(w, sum)
 	}
 	return meanOf(w)
+}
+
+// slope returns the least-squares slope dB/dH/μ0 over the samples.
+func (c *rawCurve) slope(v variant) float64 {
+	var n, sh, sb, shh, shb float64
+	for i := range c.h {
+		if v.parity >= 0 && (c.start+i)&1 != v.parity {
+			continue
+		}
+		p := v.apply(pt{h: c.h[i], b: c.b[i], t: c.t[i], t2: c.t[i] * c.t[i]})
+		n++
+		sh += p.h
+		sb += p.b
+		shh += p.h * p.h
+		shb += p.h * p.b
+	}
+	den := n*shh - sh*sh
+	if n < 3 || !(den > 0) {
+		return nan()
+	}
+	return (n*shb - sh*sb) / den / units.Mu0
 }
 
 // rawCurve is the initial curve kept as samples: μ_initial is read at a

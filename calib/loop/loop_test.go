@@ -246,3 +246,30 @@ func TestSources(t *testing.T) {
 		}
 	}
 }
+
+// TestRecoil: a demagnetization curve of the straight-line magnet
+// (synth.Magnet, Br 1.3 T, μ_rec 1.05) from +2 MA/m down to −0.6 MA/m, then
+// a recoil piece up to H = 0 and back, on the recoil line
+// B = Br + μ0·μ_rec·H. The recoil slope gives μ_rec = 1.05 exactly; Br and
+// (BH)max = Br²/(4·μ0·μ_rec) (REFERENCE §10 item 12) come from the falling
+// branch.
+func TestRecoil(t *testing.T) {
+	l := synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
+	var tt, h, b []float64
+	add := func(from, to float64, n int, line bool) {
+		for i := 0; i < n; i++ {
+			hv := from + (to-from)*float64(i)/float64(n)
+			bv := l.B(hv, -1)
+			if line {
+				bv = 1.3 + units.Mu0*1.05*hv
+			}
+			tt, h, b = append(tt, float64(len(tt))*1e-3), append(h, hv), append(b, bv)
+		}
+	}
+	add(2e6, -0.6e6, 2600, false)
+	add(-0.6e6, 0, 600, true)
+	add(0, -0.6e6, 600, true)
+	checkFigures(t, "recoil", tt, h, b, Options{}, []want{
+		{FigMuRec, 1.05, 1e-9}, {FigBr, 1.3, 1e-6}, {FigBHmax, 320.2e3, 1e-3},
+	})
+}
