@@ -121,13 +121,13 @@ func (d *Doc) Decode(v any) error {
 		if errors.As(err, &te) {
 			for _, m := range te.Errors {
 				line := yamlLine(m)
-				es = append(es, &Error{File: d.File, Line: line, Key: d.keyAtLine(line), Problem: cleanYAML(m)})
+				es = append(es, &Error{File: d.File, Line: line, Key: d.keyAt(line, quotedValue(m)), Problem: cleanYAML(m)})
 			}
 			return es
 		}
 		var fe *fieldError
 		if errors.As(err, &fe) {
-			return &Error{File: d.File, Line: fe.line, Key: d.keyAtLine(fe.line), Problem: fe.msg}
+			return &Error{File: d.File, Line: fe.line, Key: d.keyAt(fe.line, fe.value), Problem: fe.msg}
 		}
 		return &Error{File: d.File, Problem: cleanYAML(err.Error())}
 	}
@@ -191,9 +191,11 @@ func (d *Doc) lookup(parts []string) (val, key *yaml.Node) {
 	return n, key
 }
 
-// keyAtLine finds the dotted path of the key or item that starts at line.
-func (d *Doc) keyAtLine(line int) string {
-	var best string
+// keyAt finds the dotted path of the key or item on line; when several keys
+// share the line (a flow mapping such as {a: 1, b: 2}), the one whose value
+// is value wins.
+func (d *Doc) keyAt(line int, value string) string {
+	var best, exact string
 	var walk func(n *yaml.Node, path string)
 	walk = func(n *yaml.Node, path string) {
 		switch n.Kind {
@@ -203,6 +205,9 @@ func (d *Doc) keyAtLine(line int) string {
 				p := join(path, k.Value)
 				if k.Line == line || v.Line == line {
 					best = p
+					if value != "" && v.Kind == yaml.ScalarNode && v.Value == value && exact == "" {
+						exact = p
+					}
 				}
 				walk(v, p)
 			}
@@ -217,7 +222,21 @@ func (d *Doc) keyAtLine(line int) string {
 		}
 	}
 	walk(d.root, "")
+	if exact != "" {
+		return exact
+	}
 	return best
+}
+
+var quotedRE = regexp.MustCompile("`([^`]*)`")
+
+// quotedValue returns the value a yaml type error quotes, e.g. "many" in
+// "cannot unmarshal !!str `many` into int".
+func quotedValue(msg string) string {
+	if m := quotedRE.FindStringSubmatch(msg); m != nil {
+		return m[1]
+	}
+	return ""
 }
 
 func join(path, k string) string {
@@ -372,8 +391,9 @@ func cleanYAML(msg string) string {
 
 // fieldError is returned by UnmarshalYAML methods of config value types.
 type fieldError struct {
-	line int
-	msg  string
+	line  int
+	value string
+	msg   string
 }
 
 func (e *fieldError) Error() string { return fmt.Sprintf("line %d: %s", e.line, e.msg) }
@@ -381,7 +401,7 @@ func (e *fieldError) Error() string { return fmt.Sprintf("line %d: %s", e.line, 
 // ValueError is what a config value type's UnmarshalYAML returns for a bad
 // value; Decode turns it into an Error with file, line and key.
 func ValueError(n *yaml.Node, format string, args ...any) error {
-	return &fieldError{line: n.Line, msg: fmt.Sprintf(format, args...)}
+	return &fieldError{line: n.Line, value: n.Value, msg: fmt.Sprintf(format, args...)}
 }
 
 // Duration is a time span written as a string with a unit ("500ms", "2m").
