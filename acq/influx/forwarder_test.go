@@ -20,6 +20,7 @@ import (
 
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/acq/store/memstore"
 	"hystd/configs"
 )
 
@@ -380,5 +381,36 @@ func TestBacklogMetrics(t *testing.T) {
 	if got["hystd_outbox_pending_loops"] != 2 || got["hystd_outbox_oldest_pending_age_seconds"] != 90 ||
 		got["hystd_outbox_quarantined_loops"] != 0 || got["hystd_outbox_read_ok"] != 1 {
 		t.Fatalf("metrics %v", got)
+	}
+}
+
+// TestForwarderOnMemstore: the forwarder needs only the store.Outbox
+// contract; the in-memory store that passes the same suite works too.
+func TestForwarderOnMemstore(t *testing.T) {
+	fs := newFake(t, status(502, nil, "bad gateway"))
+	ms := memstore.New(nil)
+	ctx := context.Background()
+	if err := ms.CreateRun(ctx, smallRun()); err != nil {
+		t.Fatal(err)
+	}
+	for n := 1; n <= 3; n++ {
+		if err := ms.AddLoop(ctx, loopN(n)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	f, err := New(testConfig(fs.srv.URL), ms, Options{Sleep: (&recSleep{}).sleep, Log: slog.New(slog.NewTextHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	n, err := f.Drain(ctx)
+	if err != nil || n != 15 {
+		t.Fatalf("Drain: %d %v", n, err)
+	}
+	if got := len(fs.lines()); got != 15 {
+		t.Fatalf("server holds %d lines, want 15", got)
+	}
+	if b, _ := ms.Backlog(ctx); b.Pending != 0 {
+		t.Fatalf("backlog %+v", b)
 	}
 }
