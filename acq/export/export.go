@@ -56,6 +56,11 @@ func ParseFormat(s string) (Format, error) {
 type Options struct {
 	// Loop exports only loop n (1-based); 0 exports every loop of the run.
 	Loop int
+	// AllSamples makes the CSV include the samples without a corrected
+	// point (the drift holds before and after the sweep), with empty H, B
+	// and J cells. By default the CSV holds the loop only, one row per
+	// corrected point, which `hystd analyze` reads as it is.
+	AllSamples bool
 	// Plot passes drawing options to SVG and PNG.
 	Plot plot.Options
 }
@@ -80,7 +85,7 @@ func Write(ctx context.Context, w io.Writer, rd record.Reader, id string, f Form
 	}
 	switch f {
 	case CSV:
-		return writeCSV(w, r, loops)
+		return writeCSV(w, r, loops, o.AllSamples)
 	case JSON:
 		var evs []record.Event
 		if evs, err = rd.Events(ctx, r.ID); err != nil {
@@ -137,16 +142,17 @@ func load(ctx context.Context, rd record.Reader, id string, n int) ([]record.Loo
 	return out, nil
 }
 
-// CSVHeader is the header row of the CSV export. Units: t s (since the run
+// CSVHeader is the header row of the CSV export; H, B and t are the columns
+// `hystd analyze` reads. Units: t s (since the run
 // started), setpoint A or A/m (the loop's amplitude unit), I A, V V, psi
 // Wb-turns, B_probe T, temp °C, H A/m, B T, J T. A missing value is an
 // empty cell.
 var CSVHeader = []string{"run", "loop", "t", "phase", "branch", "setpoint", "I", "V", "psi", "B_probe", "temp", "H", "B", "J"}
 
-// writeCSV writes one row per raw sample, joined with the corrected point of
-// the same T (points without a raw sample get a row of their own), ordered
-// by T within each loop.
-func writeCSV(w io.Writer, r record.Run, loops []record.Loop) error {
+// writeCSV writes one row per corrected point joined with the raw sample of
+// the same T, ordered by T within each loop; with all, the raw samples
+// without a corrected point get rows too.
+func writeCSV(w io.Writer, r record.Run, loops []record.Loop, all bool) error {
 	cw := csv.NewWriter(w)
 	if err := cw.Write(CSVHeader); err != nil {
 		return err
@@ -159,6 +165,9 @@ func writeCSV(w io.Writer, r record.Run, loops []record.Loop) error {
 	}
 	for _, l := range loops {
 		for _, row := range join(l) {
+			if row.pt == nil && !all {
+				continue
+			}
 			rec := make([]string, 0, len(CSVHeader))
 			rec = append(rec, r.ID, strconv.Itoa(l.N), strconv.FormatFloat(row.t.Seconds(), 'f', -1, 64))
 			if s := row.raw; s != nil {

@@ -21,6 +21,7 @@ import (
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/acq/store/storetest"
+	"hystd/calib/loopcsv"
 )
 
 var update = flag.Bool("update", false, "rewrite golden files")
@@ -68,54 +69,88 @@ func golden(t *testing.T, name string, got []byte) {
 
 // TestCSV: read back with encoding/csv (RFC 4180 reader of the standard
 // library), every number parses to exactly the stored float64 and every
-// missing channel is an empty cell.
+// missing channel is an empty cell; by default one row per corrected point,
+// with AllSamples one per raw sample.
 func TestCSV(t *testing.T) {
 	st := fixture(t, 20)
-	var buf bytes.Buffer
-	if err := export.Write(context.Background(), &buf, st, "run-1", export.CSV, export.Options{Loop: 1}); err != nil {
-		t.Fatal(err)
-	}
-	golden(t, "run-1-loop-1.csv", buf.Bytes())
-	recs, err := csv.NewReader(bytes.NewReader(buf.Bytes())).ReadAll()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if strings.Join(recs[0], ",") != strings.Join(export.CSVHeader, ",") {
-		t.Fatalf("header %v", recs[0])
-	}
 	want := storetest.SampleLoop("run-1", 1, 20, t0.Add(time.Minute))
-	if len(recs)-1 != len(want.Raw) {
-		t.Fatalf("%d rows, want %d", len(recs)-1, len(want.Raw))
-	}
-	col := map[string]int{}
-	for i, h := range recs[0] {
-		col[h] = i
-	}
-	parse := func(s string) float64 {
-		if s == "" {
-			return math.NaN()
+	for _, tc := range []struct {
+		all    bool
+		golden string
+		rows   int
+	}{{false, "run-1-loop-1.csv", len(want.Points)}, {true, "run-1-loop-1-all.csv", len(want.Raw)}} {
+		var buf bytes.Buffer
+		if err := export.Write(context.Background(), &buf, st, "run-1", export.CSV, export.Options{Loop: 1, AllSamples: tc.all}); err != nil {
+			t.Fatal(err)
 		}
-		v, err := strconv.ParseFloat(s, 64)
+		golden(t, tc.golden, buf.Bytes())
+		recs, err := csv.NewReader(bytes.NewReader(buf.Bytes())).ReadAll()
 		if err != nil {
 			t.Fatal(err)
 		}
-		return v
-	}
-	same := func(a, b float64) bool { return a == b || math.IsNaN(a) && math.IsNaN(b) }
-	pi := 0
-	for i, s := range want.Raw {
-		rec := recs[i+1]
-		if !same(parse(rec[col["psi"]]), s.Psi) || !same(parse(rec[col["B_probe"]]), s.BProbe) || !same(parse(rec[col["I"]]), s.I) {
-			t.Fatalf("row %d: %v, want %+v", i, rec, s)
+		if strings.Join(recs[0], ",") != strings.Join(export.CSVHeader, ",") {
+			t.Fatalf("header %v", recs[0])
 		}
-		if s.Phase == record.Sweep {
-			p := want.Points[pi]
-			pi++
-			if parse(rec[col["H"]]) != p.H || parse(rec[col["B"]]) != p.B || rec[col["branch"]] != strconv.Itoa(p.Branch) {
-				t.Fatalf("row %d: %v, want point %+v", i, rec, p)
+		if len(recs)-1 != tc.rows {
+			t.Fatalf("all=%v: %d rows, want %d", tc.all, len(recs)-1, tc.rows)
+		}
+		col := map[string]int{}
+		for i, h := range recs[0] {
+			col[h] = i
+		}
+		parse := func(s string) float64 {
+			if s == "" {
+				return math.NaN()
 			}
-		} else if rec[col["H"]] != "" {
-			t.Fatalf("row %d: hold sample has H %q", i, rec[col["H"]])
+			v, err := strconv.ParseFloat(s, 64)
+			if err != nil {
+				t.Fatal(err)
+			}
+			return v
+		}
+		same := func(a, b float64) bool { return a == b || math.IsNaN(a) && math.IsNaN(b) }
+		pi, row := 0, 1
+		for i, s := range want.Raw {
+			if s.Phase != record.Sweep && !tc.all {
+				continue
+			}
+			rec := recs[row]
+			row++
+			if !same(parse(rec[col["psi"]]), s.Psi) || !same(parse(rec[col["B_probe"]]), s.BProbe) || !same(parse(rec[col["I"]]), s.I) {
+				t.Fatalf("sample %d: %v, want %+v", i, rec, s)
+			}
+			if s.Phase == record.Sweep {
+				p := want.Points[pi]
+				pi++
+				if parse(rec[col["H"]]) != p.H || parse(rec[col["B"]]) != p.B || rec[col["branch"]] != strconv.Itoa(p.Branch) {
+					t.Fatalf("sample %d: %v, want point %+v", i, rec, p)
+				}
+			} else if rec[col["H"]] != "" {
+				t.Fatalf("sample %d: hold sample has H %q", i, rec[col["H"]])
+			}
+		}
+	}
+}
+
+// TestCSVReadsIntoAnalyze: the default CSV is what the loop-CSV reader of
+// `hystd analyze` takes, with H and B exactly as stored.
+func TestCSVReadsIntoAnalyze(t *testing.T) {
+	st := fixture(t, 200)
+	var buf bytes.Buffer
+	if err := export.Write(context.Background(), &buf, st, "run-1", export.CSV, export.Options{Loop: 2}); err != nil {
+		t.Fatal(err)
+	}
+	d, err := loopcsv.Read(&buf, "run-1.csv", loopcsv.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := storetest.SampleLoop("run-1", 2, 200, t0)
+	if len(d.H) != len(want.Points) {
+		t.Fatalf("%d points read, want %d", len(d.H), len(want.Points))
+	}
+	for i, p := range want.Points {
+		if d.H[i] != p.H || d.B[i] != p.B || d.T[i] != p.T.Seconds() {
+			t.Fatalf("point %d: read %g %g %g, stored %+v", i, d.T[i], d.H[i], d.B[i], p)
 		}
 	}
 }

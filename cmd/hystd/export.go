@@ -24,6 +24,7 @@ func newExportCmd() *cobra.Command {
 	var (
 		dataDir, format, out string
 		loop                 int
+		all                  bool
 	)
 	names := make([]string, 0, 5)
 	for _, f := range export.Formats() {
@@ -33,9 +34,10 @@ func newExportCmd() *cobra.Command {
 		Use:   "export RUN",
 		Short: "Write a stored run as " + strings.Join(names, ", "),
 		Long: "export reads run RUN from DIR/hystd.db and writes it to standard output, or to FILE with -o:\n" +
-			"  csv   one row per sample: " + strings.Join(export.CSVHeader, ",") + "\n" +
+			"  csv   one row per point of the loop: " + strings.Join(export.CSVHeader, ",") + "\n" +
 			"        (t s, setpoint A or A/m, I A, V V, psi Wb, B_probe T, temp °C, H A/m, B T, J T;\n" +
-			"        a missing channel is an empty cell)\n" +
+			"        a missing channel is an empty cell); readable by hystd analyze. --all-samples adds\n" +
+			"        the drift-hold samples around the sweep, which have no H, B, J\n" +
 			"  json  the run with its provenance, loops, figures, corrections, samples and events\n" +
 			"  lp    line protocol, the same points the forwarder sends to the time-series database\n" +
 			"  svg   the B–H plot\n" +
@@ -55,17 +57,18 @@ func newExportCmd() *cobra.Command {
 					return &exitError{code: 2, err: errors.New("--format png: refusing to write an image to the terminal; use -o FILE")}
 				}
 			}
-			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, args[0], f, loop, out)
+			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, args[0], f, export.Options{Loop: loop, AllSamples: all}, out)
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder holding hystd.db")
 	cmd.Flags().StringVar(&format, "format", "csv", "output format: "+strings.Join(names, ", "))
 	cmd.Flags().IntVar(&loop, "loop", 0, "export only loop N (1-based); 0: every loop")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "write to FILE instead of standard output")
+	cmd.Flags().BoolVar(&all, "all-samples", false, "csv: include the drift-hold samples without H, B, J")
 	return cmd
 }
 
-func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f export.Format, loop int, out string) error {
+func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f export.Format, o export.Options, out string) error {
 	db := filepath.Join(dataDir, "hystd.db")
 	if _, err := os.Stat(db); err != nil {
 		return fmt.Errorf("no store at %s (use --data DIR): %w", db, err)
@@ -77,7 +80,7 @@ func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f exp
 	defer st.Close()
 	// Export into memory first: nothing is written unless the whole export succeeds.
 	var buf bytes.Buffer
-	if err := export.Write(ctx, &buf, st, run, f, export.Options{Loop: loop}); err != nil {
+	if err := export.Write(ctx, &buf, st, run, f, o); err != nil {
 		if errors.Is(err, record.ErrNotFound) {
 			return &exitError{code: 3, err: err}
 		}
