@@ -48,3 +48,17 @@ func TestCAFileNotPEM(t *testing.T) {
 		t.Fatalf("non-PEM CA file: %v", err)
 	}
 }
+
+func TestSampleConfig(t *testing.T) {
+	data, err := os.ReadFile(filepath.Join("testdata", "influx.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	c, err := LoadConfig("testdata/influx.yaml", data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.URL != "http://127.0.0.1:8428" || c.Bucket != "hysteresis" || c.MaxBackoff.D() != 2*time.Minute {
+		t.Fatalf("sample config %+v", c)
+	}
+}
