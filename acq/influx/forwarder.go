@@ -9,7 +9,7 @@
 //
 // Network errors, 429 and 5xx are retried with exponential backoff (and the
 // server's Retry-After); 400 and 422 quarantine the entry with the server's
-// message. The token is read once, at New, and never logged.
+// message; 413 halves the batch for that loop. The token is read once, at New, and never logged.
 package influx
 
 import (
@@ -227,14 +227,23 @@ func (f *Forwarder) send(ctx context.Context, p prepared) (int, error) {
 	if done > len(pts) {
 		done = len(pts)
 	}
+	bs := f.cfg.BatchSize
 	for done < len(pts) {
-		end := min(done+f.cfg.BatchSize, len(pts))
+		end := min(done+bs, len(pts))
 		werr := f.w.WriteRecord(ctx, pts[done:end]...)
 		if werr != nil {
 			if ctx.Err() != nil {
 				return sent, ctx.Err()
 			}
 			perm, temp := classify(werr)
+			if temp != nil && temp.Status == http.StatusRequestEntityTooLarge {
+				if bs > 1 { // the server's request limit: halve the batch and go on at once
+					bs = max(1, bs/2)
+					f.o.Log.Warn("influx: request too large, halving the batch", "points", bs)
+					continue
+				}
+				perm = "HTTP 413: a single point is larger than the server accepts: " + temp.Msg
+			}
 			if perm != "" {
 				return sent, f.quarantine(ctx, e, perm)
 			}

@@ -414,3 +414,40 @@ func TestForwarderOnMemstore(t *testing.T) {
 		t.Fatalf("backlog %+v", b)
 	}
 }
+
+// TestTooLargeHalvesBatch: a server that takes at most 2 lines per request
+// answers 413 to bigger ones; the forwarder halves the batch and delivers
+// everything once, without backing off.
+func TestTooLargeHalvesBatch(t *testing.T) {
+	var mu sync.Mutex
+	var got []string
+	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		b, _ := io.ReadAll(r.Body)
+		lines := strings.Split(strings.TrimSpace(string(b)), "\n")
+		if len(lines) > 2 {
+			http.Error(w, "request body too large", http.StatusRequestEntityTooLarge)
+			return
+		}
+		mu.Lock()
+		got = append(got, lines...)
+		mu.Unlock()
+		w.WriteHeader(http.StatusNoContent)
+	}))
+	defer srv.Close()
+	st := openStore(t)
+	seed(t, st, loopN(1))
+	cfg := testConfig(srv.URL)
+	cfg.BatchSize = 8
+	sl := &recSleep{}
+	f, err := New(cfg, st, Options{Sleep: sl.sleep, Log: slog.New(slog.NewTextHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	if n, err := f.Drain(context.Background()); err != nil || n != 5 {
+		t.Fatalf("Drain: %d %v", n, err)
+	}
+	if len(got) != 5 || len(sl.d) != 0 {
+		t.Fatalf("server got %d lines, waits %v", len(got), sl.d)
+	}
+}
