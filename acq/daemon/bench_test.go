@@ -14,8 +14,6 @@ import (
 	"testing"
 	"time"
 
-	"log/slog"
-
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
@@ -110,9 +108,9 @@ fixtures:
 			Software: "test",
 			Stderr:   bd.logs,
 			Signals:  bd.sigs,
-			API: func(_ record.Reader, r Runner, hub *live.Hub, _ string, _ *slog.Logger) http.Handler {
-				bd.runner, bd.hub = r, hub
-				return nil
+			API: func(p APIParts) (http.Handler, error) {
+				bd.runner, bd.hub = p.Runner, p.Live
+				return nil, nil // acq/api imports this package; cmd wires it
 			},
 			Listening: func(addr string) { bd.addr = addr; once.Do(func() { close(ready) }) },
 		})

@@ -8,14 +8,17 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 )
 
-// Handler serves GET /healthz and GET /metrics, and everything else from api
-// (the HTTP API and review page; nil: 404).
+// Handler serves GET /healthz (the daemon's fixtures and queues; 503 while
+// stopping) and everything else from api (the HTTP API and review page,
+// which serves the daemon's metrics at /metrics with its own). Without an
+// api it serves GET /metrics itself.
 func (d *Daemon) Handler(api http.Handler) http.Handler {
 	mux := http.NewServeMux()
 	mux.HandleFunc("GET /healthz", d.healthz)
-	mux.Handle("GET /metrics", promhttp.HandlerFor(d.metrics.Registry, promhttp.HandlerOpts{ErrorHandling: promhttp.ContinueOnError}))
 	if api != nil {
 		mux.Handle("/", api)
+	} else {
+		mux.Handle("GET /metrics", promhttp.HandlerFor(d.metrics.Registry, promhttp.HandlerOpts{ErrorHandling: promhttp.ContinueOnError}))
 	}
 	return mux
 }

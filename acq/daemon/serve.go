@@ -16,6 +16,8 @@ import (
 	"syscall"
 	"time"
 
+	"github.com/prometheus/client_golang/prometheus"
+
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/influx"
@@ -25,9 +27,19 @@ import (
 	"hystd/calib/units"
 )
 
-// APIFactory builds the HTTP API over the store, the daemon and the live hub.
-// token is the bearer token mutations need ("" : mutations refused).
-type APIFactory func(reader record.Reader, runner Runner, hub *live.Hub, token string, log *slog.Logger) http.Handler
+// APIParts are what the HTTP API is built over.
+type APIParts struct {
+	Reader  record.Reader
+	Runner  Runner
+	Live    *live.Hub
+	Token   string              // bearer token for mutations; "": mutations refused
+	Metrics prometheus.Gatherer // the daemon's metrics, for the API's /metrics
+	Version string
+	Log     *slog.Logger
+}
+
+// APIFactory builds the HTTP API and review page.
+type APIFactory func(APIParts) (http.Handler, error)
 
 // Wiring is what Serve needs from outside this package.
 type Wiring struct {
@@ -103,9 +115,14 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 			}
 		}()
 	}
-	var api http.Handler
+	var h http.Handler
 	if w.API != nil {
-		api = w.API(st, d, hub, cfg.Token(), log.With("part", "api"))
+		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Metrics: d.metrics.Registry,
+			Version: w.Software, Log: log.With("part", "api")})
+		if err != nil {
+			d.Stop("the HTTP API could not be built")
+			return fmt.Errorf("%s: http: %w", configPath, err)
+		}
 	}
 	// A supply left energised is brought to zero before anything else,
 	// then the fixtures take runs.
@@ -115,7 +132,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		d.Stop("http.addr unusable")
 		return fmt.Errorf("%s: http.addr: %w", configPath, err)
 	}
-	srv := &http.Server{Handler: d.Handler(api), ReadHeaderTimeout: 10 * time.Second}
+	srv := &http.Server{Handler: d.Handler(h), ReadHeaderTimeout: 10 * time.Second}
 	go func() {
 		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
 			log.Error("http server stopped", "err", err)

@@ -242,7 +242,7 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		s := rd.s
 		s.T, s.Phase, s.Setpoint = at.Sub(x.start), phase, level
 		x.lastI, x.lastH = s.I, x.hOf(s)
-		if v := x.check.Check(safety.Observation{T: s.T, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
+		if v := x.check.Check(safety.Observation{T: s.T, TUnc: s.TUnc, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
 			Status: rd.status, HaveStatus: true, Energised: x.energd, Overload: rd.overload}); v != nil {
 			return v
 		}

@@ -12,7 +12,21 @@ import (
 	"hystd/acq/safety"
 	"hystd/calib/units"
 	"hystd/drivers/instr"
+	"hystd/drivers/link"
 )
+
+// retry calls f again after a read timeout (the line is still up: a reply
+// was lost or late) until ctx — bounded by the fixture's comm_timeout — ends.
+// Any other error, a disconnect among them, is returned at once: after a
+// hang-up the instrument's state cannot be trusted within a loop.
+func retry[T any](ctx context.Context, f func(context.Context) (T, error)) (T, error) {
+	for {
+		v, err := f(ctx)
+		if err == nil || !errors.Is(err, link.ErrTimeout) || ctx.Err() != nil {
+			return v, err
+		}
+	}
+}
 
 // Instruments are the opened roles of one fixture. Supply is required; the
 // others may be nil when the fixture lacks them. The engine uses each from
@@ -69,22 +83,24 @@ func sampleAll(ctx context.Context, in Instruments, set *float64) (reading, erro
 		defer wg.Done()
 		s := in.Supply
 		if set != nil {
-			if err := s.SetCurrent(ctx, units.Ampere(*set)); err != nil {
+			if _, err := retry(ctx, func(ctx context.Context) (struct{}, error) {
+				return struct{}{}, s.SetCurrent(ctx, units.Ampere(*set))
+			}); err != nil {
 				fail("supply", fmt.Errorf("set current %.6g A: %w", *set, err))
 				return
 			}
 		}
-		i, err := s.ReadCurrent(ctx)
+		i, err := retry(ctx, s.ReadCurrent)
 		if err != nil {
 			fail("supply", fmt.Errorf("read current: %w", err))
 			return
 		}
-		v, err := s.ReadVoltage(ctx)
+		v, err := retry(ctx, s.ReadVoltage)
 		if err != nil {
 			fail("supply", fmt.Errorf("read voltage: %w", err))
 			return
 		}
-		st, err := s.Status(ctx)
+		st, err := retry(ctx, s.Status)
 		if err != nil {
 			fail("supply", fmt.Errorf("read status: %w", err))
 			return
@@ -96,12 +112,12 @@ func sampleAll(ctx context.Context, in Instruments, set *float64) (reading, erro
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			p, err := in.Integrator.ReadFlux(ctx)
+			p, err := retry(ctx, in.Integrator.ReadFlux)
 			if err != nil {
 				fail("integrator", fmt.Errorf("read flux: %w", err))
 				return
 			}
-			o, err := in.Integrator.Overloaded(ctx)
+			o, err := retry(ctx, in.Integrator.Overloaded)
 			if err != nil {
 				fail("integrator", fmt.Errorf("read overload: %w", err))
 				return
@@ -114,7 +130,7 @@ func sampleAll(ctx context.Context, in Instruments, set *float64) (reading, erro
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			b, err := in.FieldMeter.ReadField(ctx)
+			b, err := retry(ctx, in.FieldMeter.ReadField)
 			if err != nil {
 				fail("field meter", fmt.Errorf("read field: %w", err))
 				return
@@ -127,7 +143,7 @@ func sampleAll(ctx context.Context, in Instruments, set *float64) (reading, erro
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			t, err := in.Thermometer.ReadTemperature(ctx)
+			t, err := retry(ctx, in.Thermometer.ReadTemperature)
 			if err != nil {
 				fail("thermometer", fmt.Errorf("read temperature: %w", err))
 				return

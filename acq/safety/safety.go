@@ -32,8 +32,10 @@ const (
 	// over the window.
 	SlewMargin = 1.25
 	SlewNoiseA = 0.01
-	// SlewWindow is the span over which dI/dt is measured.
-	SlewWindow = 100 * time.Millisecond
+	// SlewWindow is the span over which dI/dt is measured; ShortWindow the
+	// shortest span looked at, so that one late reading is not a slew.
+	SlewWindow  = 100 * time.Millisecond
+	ShortWindow = 20 * time.Millisecond
 	// ResistanceSamples is how many consecutive samples the resistance must
 	// stay above its limit; one noisy sample does not end a run.
 	ResistanceSamples = 5
@@ -68,6 +70,7 @@ func LimitsOf(fx config.Fixture) Limits {
 // Observation is what one sample tells about the fixture. Absent channels are NaN.
 type Observation struct {
 	T      time.Duration // since the run started
+	TUnc   time.Duration // uncertainty of T
 	I      float64       // A
 	V      float64       // V
 	BProbe float64       // T
@@ -102,6 +105,7 @@ type Checker struct {
 type obsIV struct {
 	t time.Duration
 	i float64
+	u time.Duration // time-stamp uncertainty
 }
 
 // NewChecker returns a Checker for one run.
@@ -142,27 +146,32 @@ func (c *Checker) Check(o Observation) *Violation {
 		return &Violation{Limit: "limits.max_winding_temp_c", Value: o.TempC, Max: l.MaxTempC, Unit: "°C",
 			Text: fmt.Sprintf("winding temperature %.4g °C crossed the fixture limit limits.max_winding_temp_c = %g °C", o.TempC, l.MaxTempC)}
 	}
-	prev, hadPrev := c.last()
 	didt, ok := c.slew(o)
-	if l.MaxSlew > 0 {
-		// over the window (slow drifts past the limit) and from the previous
-		// sample (a collapse within one period), each with its noise allowance
-		check := func(di float64, span time.Duration) *Violation {
-			sec := float64(span) / float64(time.Second)
-			rate := di / sec
-			if sec > 0 && math.Abs(rate) > l.MaxSlew*SlewMargin+2*SlewNoiseA/sec {
+	if l.MaxSlew > 0 && !math.IsNaN(o.I) {
+		// Over the window (a slow run-away) and over the short window (a
+		// collapse within a few samples), each allowing for the read-back
+		// noise and for the time-stamp uncertainty of both samples.
+		check := func(a obsIV) *Violation {
+			span := o.T - a.t
+			sec := span.Seconds()
+			if sec <= 0 {
+				return nil
+			}
+			rate := (o.I - a.i) / sec
+			unc := (o.TUnc + a.u).Seconds()
+			if math.Abs(rate) > l.MaxSlew*SlewMargin*(1+unc/sec)+2*SlewNoiseA/sec {
 				return &Violation{Limit: "limits.max_slew_a_per_s", Value: rate, Max: l.MaxSlew, Unit: "A/s",
 					Text: fmt.Sprintf("current changed at %.4g A/s, beyond the fixture limit limits.max_slew_a_per_s = %g A/s", rate, l.MaxSlew)}
 			}
 			return nil
 		}
 		if ok {
-			if v := check(o.I-c.hist[0].i, o.T-c.hist[0].t); v != nil {
+			if v := check(c.hist[0]); v != nil {
 				return v
 			}
 		}
-		if hadPrev && !math.IsNaN(o.I) {
-			if v := check(o.I-prev.i, o.T-prev.t); v != nil {
+		if a, found := c.before(o.T - ShortWindow); found {
+			if v := check(a); v != nil {
 				return v
 			}
 		}
@@ -173,12 +182,14 @@ func (c *Checker) Check(o Observation) *Violation {
 	return nil
 }
 
-// last returns the previous sample's (T, I).
-func (c *Checker) last() (obsIV, bool) {
-	if len(c.hist) == 0 {
-		return obsIV{}, false
+// before returns the newest recorded sample taken at or before t.
+func (c *Checker) before(t time.Duration) (obsIV, bool) {
+	for k := len(c.hist) - 1; k >= 0; k-- {
+		if c.hist[k].t <= t {
+			return c.hist[k], true
+		}
 	}
-	return c.hist[len(c.hist)-1], true
+	return obsIV{}, false
 }
 
 // slew records o and returns dI/dt over the last SlewWindow, when at least
@@ -187,7 +198,7 @@ func (c *Checker) slew(o Observation) (float64, bool) {
 	if math.IsNaN(o.I) {
 		return 0, false
 	}
-	c.hist = append(c.hist, obsIV{o.T, o.I})
+	c.hist = append(c.hist, obsIV{o.T, o.I, o.TUnc})
 	k := 0
 	for k < len(c.hist)-1 && o.T-c.hist[k+1].t >= SlewWindow {
 		k++

@@ -90,6 +90,24 @@ func TestSlew(t *testing.T) {
 // at 80 °C the 0.8 Ω winding is 0.8·(1 + 0.00393·60) = 0.9886 Ω, a 23.6 %
 // rise, beyond a 20 % limit; at 60 °C (15.7 %) it is not. The inductive
 // voltage L·dI/dt is subtracted before R is estimated.
+// TestSlewTimeStamps: readings whose time stamps are uncertain (a loaded
+// machine, a slow reply) are not taken for a slew beyond the limit when the
+// uncertainty covers the apparent jump.
+func TestSlewTimeStamps(t *testing.T) {
+	c := NewChecker(bench())
+	for ms := 0; ms <= 180; ms += 5 {
+		i := 0.05 * float64(ms) // 50 A/s, the limit
+		o := obs(ms, i, 0.8*i+2.5)
+		o.TUnc = 6 * time.Millisecond
+		if ms%25 == 0 {
+			o.T -= 5 * time.Millisecond // stamped early, within its uncertainty
+		}
+		if v := c.Check(o); v != nil {
+			t.Fatalf("flagged at %d ms: %v", ms, v)
+		}
+	}
+}
+
 func TestResistanceRise(t *testing.T) {
 	const alpha = 0.00393
 	tests := []struct {
