@@ -1,6 +1,7 @@
 package process
 
 import (
+	"fmt"
 	"io/fs"
 	"math"
 	"math/rand/v2"
@@ -389,5 +390,33 @@ func TestDemagCurveFromLevel(t *testing.T) {
 	within(t, "demag curve", loop.FigMuRec, m, 1.05, 5e-3)
 	if c := corrs(cs); !strings.Contains(c["anchor"].Note, "open curve") || c["closure"].Name != "" {
 		t.Errorf("corrections %+v", cs)
+	}
+}
+
+// TestLoopConcurrent runs Loop from several goroutines on shared input, as
+// the engine may for several fixtures; run with -race.
+func TestLoopConcurrent(t *testing.T) {
+	sw := synth.Sweep{Hm: 1000, Cycles: 1, PerBranch: 2000, Start: "tip"}
+	tt, h, b := sw.Generate(soft)
+	bn := bench{s: ringSetup(), hold: 100, v0: 1e-6}
+	raw := bn.raw(tt, h, b, 1e-3)
+	_, want, _, err := Loop(raw, bn.s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	errs := make(chan error, 4)
+	for range 4 {
+		go func() {
+			_, got, _, err := Loop(raw, bn.s)
+			if err == nil && (len(got) != len(want) || got[0] != want[0]) {
+				err = fmt.Errorf("different figures: %v vs %v", got[0], want[0])
+			}
+			errs <- err
+		}()
+	}
+	for range 4 {
+		if err := <-errs; err != nil {
+			t.Error(err)
+		}
 	}
 }

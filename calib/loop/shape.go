@@ -83,6 +83,9 @@ func Detect(h []float64) (Shape, error) {
 		}
 	}
 	span := hi - lo
+	if math.IsInf(span, 0) {
+		return Shape{}, fmt.Errorf("H spans %g to %g A/m: the range overflows", lo, hi)
+	}
 	if !(span > 0) {
 		return Shape{}, fmt.Errorf("%w: H is constant", ErrNoLoop)
 	}
