@@ -128,15 +128,11 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	if hFrom == "" {
 		hFrom = HFromCurrent
 	}
-	sec := func(d time.Duration) float64 { return d.Seconds() }
+	sec := func(d time.Duration) float64 { return float64(d) / float64(time.Second) }
 
 	var preT, preP, postT, postP []float64
 	nSweep, missing := 0, 0
-	for _, r := range raw {
-		if r.Phase == record.Sweep {
-			nSweep++
-		}
-	}
+	nSweep = len(raw) // capacity: the holds are short, one pass is cheaper than counting
 	t := make([]float64, 0, nSweep)
 	psi := make([]float64, 0, nSweep)
 	idx := make([]int, 0, nSweep)
@@ -148,7 +144,8 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 		temp = make([]float64, 0, nSweep)
 	}
 	nSweep = 0
-	for i, r := range raw {
+	for i := range raw {
+		r := &raw[i] // a Sample is 80 bytes: do not copy it
 		switch r.Phase {
 		case record.PreHold:
 			if finite(r.Psi) {

@@ -57,15 +57,43 @@ func medianCrossing(start, end int, q func(int) float64, ok func(int) bool) int 
 	return xs[len(xs)/2]
 }
 
+// zeroCrossings returns, in one pass, the median index of the sign changes
+// of H, of B and of J = B − μ0·H between consecutive samples in
+// [start, end], each −1 when there is none (see medianCrossing).
+func zeroCrossings(h, b []float64, start, end int) (ih, ib, ij int) {
+	var xh, xb, xj []int
+	ph, pb := h[start], b[start]
+	pj := pb - units.Mu0*ph
+	for i := start; i < end; i++ {
+		nh, nb := h[i+1], b[i+1]
+		nj := nb - units.Mu0*nh
+		if (ph <= 0 && nh > 0) || (ph >= 0 && nh < 0) {
+			xh = append(xh, i)
+		}
+		if (pb <= 0 && nb > 0) || (pb >= 0 && nb < 0) {
+			xb = append(xb, i)
+		}
+		if (pj <= 0 && nj > 0) || (pj >= 0 && nj < 0) {
+			xj = append(xj, i)
+		}
+		ph, pb, pj = nh, nb, nj
+	}
+	med := func(x []int) int {
+		if len(x) == 0 {
+			return -1
+		}
+		return x[len(x)/2]
+	}
+	return med(xh), med(xb), med(xj)
+}
+
 func (l *local) addBranch(start, end int) {
 	k := len(l.start)
 	l.start, l.end = append(l.start, start), append(l.end, end)
 	l.window = append(l.window, windowSamples(end-start+1))
 	var c [nCross]int
 	h, b := l.h, l.b
-	c[crBr] = medianCrossing(start, end, func(i int) float64 { return h[i] }, nil)
-	c[crHcB] = medianCrossing(start, end, func(i int) float64 { return b[i] }, nil)
-	c[crHcJ] = medianCrossing(start, end, func(i int) float64 { return b[i] - units.Mu0*h[i] }, nil)
+	c[crBr], c[crHcB], c[crHcJ] = zeroCrossings(h, b, start, end)
 	c[crHk] = -1
 	l.cross = append(l.cross, c)
 	l.jr0 = append(l.jr0, nan())
