@@ -6,6 +6,8 @@ import (
 	"net"
 	"net/http"
 	"time"
+
+	"hystd/acq/daemon"
 )
 
 // DefaultAddr is where the API listens unless configured: loopback only.
@@ -54,4 +56,11 @@ func ServeListener(ctx context.Context, ln net.Listener, h http.Handler) error {
 		return serr
 	}
 	return err
+}
+
+// ForDaemon is a daemon.APIFactory: the API and review page over the parts
+// `hystd serve` hands it (store, daemon, live hub, token, metrics).
+func ForDaemon(p daemon.APIParts) (http.Handler, error) {
+	return New(Options{Reader: p.Reader, Runner: p.Runner, Live: p.Live, Gatherer: p.Metrics,
+		Token: p.Token, Version: p.Version, Logger: p.Log})
 }

@@ -36,14 +36,14 @@ type Event struct {
 	Step     int     `json:"step,omitempty"`
 	Steps    int     `json:"steps,omitempty"`
 	StepName string  `json:"step_name,omitempty"`
-	Fraction float64 `json:"fraction,omitempty"`
+	Fraction float64 `json:"fraction"`
 
 	// sample
 	Loop int     `json:"loop,omitempty"` // 1-based loop index being recorded; 0 outside a loop
-	T    float64 `json:"t_s,omitempty"`  // s since the run started
-	H    float64 `json:"h_a_m,omitempty"`
-	B    float64 `json:"b_t,omitempty"`
-	I    float64 `json:"i_a,omitempty"`
+	T    float64 `json:"t_s"`            // s since the run started
+	H    float64 `json:"h_a_m"`
+	B    float64 `json:"b_t"`
+	I    float64 `json:"i_a"`
 }
 
 // Source is what a watcher needs: Subscribe returns a channel of events and

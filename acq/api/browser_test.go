@@ -1,0 +1,493 @@
+package api_test
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"log/slog"
+	"math"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"hystd/acq/api"
+	"hystd/acq/daemon"
+	"hystd/drivers/sim"
+)
+
+const browserToken = "bench-key-7f3a-91c2d0"
+
+// findChromium returns the Chromium binary (HYSTD_CHROMIUM, or chromium /
+// chromium-browser on PATH). Without one the test is skipped with a clear
+// message, and fails when CI=true, because CI installs Debian's package.
+func findChromium(t *testing.T) string {
+	t.Helper()
+	cands := []string{os.Getenv("HYSTD_CHROMIUM"), "chromium", "chromium-browser"}
+	for _, c := range cands {
+		if c == "" {
+			continue
+		}
+		if p, err := exec.LookPath(c); err == nil {
+			return p
+		}
+	}
+	msg := "Chromium not found (set HYSTD_CHROMIUM or install Debian's chromium package: apt-get install -y chromium); browser test not run"
+	if os.Getenv("CI") == "true" {
+		t.Fatal(msg)
+	}
+	t.Skip(msg)
+	return ""
+}
+
+// screenshotDir is where the browser test writes its PNG screenshots:
+// $HYSTD_SCREENSHOTS, or testdata/screenshots in this package.
+func screenshotDir(t *testing.T) string {
+	d := os.Getenv("HYSTD_SCREENSHOTS")
+	if d == "" {
+		d = filepath.Join("testdata", "screenshots")
+	}
+	if err := os.MkdirAll(d, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	return d
+}
+
+type logBuf struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *logBuf) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *logBuf) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
+}
+
+// benchServer is `hystd serve` on the simulated bench (real ptys, real
+// serial drivers, real engine and SQLite store) with this package's API.
+type benchServer struct {
+	base    string
+	fixture string
+	bench   *sim.Bench
+	logs    *logBuf
+}
+
+func startBenchServer(t *testing.T) *benchServer {
+	t.Helper()
+	cfg, err := sim.DefaultBench()
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	b, err := sim.Start(ctx, cfg)
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { cancel(); b.Close() })
+	dir := t.TempDir()
+	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
+		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
+	}
+	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	write := func(name string, data []byte) {
+		if err := os.WriteFile(filepath.Join(dir, name), data, 0o600); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write("fixture.yaml", fx)
+	write("specimen.yaml", sp)
+	write("token", []byte(browserToken+"\n"))
+	write("daemon.yaml", []byte(fmt.Sprintf(`kind: daemon
+http: {addr: "127.0.0.1:0", token_file: %s}
+store: {path: %s}
+log: {level: info}
+fixtures:
+  - {fixture: fixture.yaml, specimen: specimen.yaml}
+`, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"))))
+	bs := &benchServer{bench: b, logs: &logBuf{}}
+	for _, line := range strings.Split(string(fx), "\n") {
+		if v, ok := strings.CutPrefix(line, "name:"); ok {
+			bs.fixture = strings.TrimSpace(v)
+		}
+	}
+	sigs := make(chan os.Signal, 1)
+	done := make(chan error, 1)
+	ready := make(chan string, 1)
+	go func() {
+		done <- daemon.Serve(ctx, filepath.Join(dir, "daemon.yaml"), daemon.Wiring{
+			Open:      daemon.FixtureOpener(slog.New(slog.NewTextHandler(bs.logs, nil))),
+			Area:      daemon.SpecimenArea,
+			Software:  "browser-test",
+			Stderr:    bs.logs,
+			Signals:   sigs,
+			API:       api.ForDaemon,
+			Listening: func(addr string) { ready <- addr },
+		})
+	}()
+	select {
+	case addr := <-ready:
+		bs.base = "http://" + addr
+	case err := <-done:
+		t.Fatalf("serve: %v\n%s", err, bs.logs)
+	case <-time.After(30 * time.Second):
+		t.Fatalf("daemon not listening\n%s", bs.logs)
+	}
+	t.Cleanup(func() {
+		sigs <- syscall.SIGTERM
+		select {
+		case <-done:
+		case <-time.After(30 * time.Second):
+			t.Error("daemon did not stop")
+		}
+		if t.Failed() {
+			t.Logf("daemon log:\n%s", bs.logs)
+		}
+	})
+	return bs
+}
+
+func (bs *benchServer) call(t *testing.T, method, path, token string, body string, out any) int {
+	t.Helper()
+	req, _ := http.NewRequest(method, bs.base+path, strings.NewReader(body))
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
+	}
+	if body != "" {
+		req.Header.Set("Content-Type", "application/yaml")
+	}
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	b, _ := io.ReadAll(resp.Body)
+	if out != nil {
+		if err := json.Unmarshal(b, out); err != nil {
+			t.Fatalf("%s %s: %v: %s", method, path, err, b)
+		}
+	}
+	return resp.StatusCode
+}
+
+type runBody struct {
+	Run struct {
+		ID, State, Specimen string
+	} `json:"run"`
+}
+
+// waitRun polls the API (the bench runs in real time) until the run is in
+// one of the states.
+func (bs *benchServer) waitRun(t *testing.T, id string, d time.Duration, states ...string) string {
+	t.Helper()
+	deadline := time.Now().Add(d)
+	for {
+		var rb runBody
+		bs.call(t, "GET", "/api/v1/runs/"+id, "", "", &rb)
+		for _, s := range states {
+			if rb.Run.State == s {
+				return s
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("run %s still %q after %s, want %v", id, rb.Run.State, d, states)
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+}
+
+func loopRecipe(name string, amp, rate string, points int) string {
+	return fmt.Sprintf(`kind: recipe
+name: %s
+steps:
+  - record_loop: {amplitude: %s, rate: %s, points: %d, hold: 500ms}
+`, name, amp, rate, points)
+}
+
+type browser struct {
+	t   *testing.T
+	ctx context.Context
+	dir string
+}
+
+func newBrowser(t *testing.T, path string) *browser {
+	opts := append(chromedp.DefaultExecAllocatorOptions[:],
+		chromedp.ExecPath(path), chromedp.Headless, chromedp.NoSandbox, chromedp.DisableGPU,
+		chromedp.Flag("disable-quic", true), chromedp.Flag("no-first-run", true),
+		chromedp.Flag("disable-background-networking", true), chromedp.Flag("disable-component-update", true),
+		chromedp.Flag("disable-sync", true), chromedp.UserDataDir(t.TempDir()), chromedp.WindowSize(1440, 960))
+	actx, acancel := chromedp.NewExecAllocator(context.Background(), opts...)
+	ctx, cancel := chromedp.NewContext(actx)
+	t.Cleanup(func() { cancel(); acancel() })
+	if _, err := chromedp.Run(ctx, chromedp.Evaluate[chromedp.Void](`1`)); err != nil {
+		t.Fatalf("starting Chromium %s: %v", path, err)
+	}
+	return &browser{t: t, ctx: ctx, dir: screenshotDir(t)}
+}
+
+func (b *browser) do(steps ...chromedp.Action[chromedp.Void]) {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, 60*time.Second)
+	defer cancel()
+	if err := chromedp.Do(ctx, steps...); err != nil {
+		b.t.Fatal(err)
+	}
+}
+
+// js evaluates expr in the page.
+func js[T any](b *browser, expr string) T {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, 30*time.Second)
+	defer cancel()
+	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](expr))
+	if err != nil {
+		b.t.Fatalf("%s: %v", expr, err)
+	}
+	return v
+}
+
+// wait polls expr in the page until it is truthy.
+func (b *browser) wait(what, expr string, d time.Duration) {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, d+5*time.Second)
+	defer cancel()
+	if _, err := chromedp.Run(ctx, chromedp.Poll[chromedp.Void](expr, chromedp.WithPollingTimeout(d), chromedp.WithPollingInterval(50*time.Millisecond))); err != nil {
+		b.t.Fatalf("waiting for %s (%s): %v", what, expr, err)
+	}
+}
+
+func (b *browser) shot(name string) {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, 30*time.Second)
+	defer cancel()
+	png, err := chromedp.Run(ctx, chromedp.FullScreenshot(100))
+	if err != nil {
+		b.t.Fatal(err)
+	}
+	p := filepath.Join(b.dir, name)
+	if err := os.WriteFile(p, png, 0o644); err != nil {
+		b.t.Fatal(err)
+	}
+	b.t.Logf("screenshot %s (%d bytes)", p, len(png))
+}
+
+type loopBody struct {
+	Loop struct {
+		NPoints int `json:"n_points"`
+		Points  struct {
+			H []*float64 `json:"h_a_m"`
+			B []*float64 `json:"b_t"`
+		} `json:"points"`
+	} `json:"loop"`
+}
+
+// plotVertices reads the first trace of the plot in sel back into data
+// units (A/m and T) through the axis range the SVG carries.
+func plotVertices(b *browser, sel string) (h, bb []float64, count int) {
+	type res struct {
+		Area, Xlo, Xhi, Ylo, Yhi, Xlabel, Ylabel string
+		Points                                   []string
+		Counts                                   []int
+	}
+	r := js[res](b, `(() => { const s = document.querySelector(`+strconv.Quote(sel+" svg")+`);
+	  const ps = [...s.querySelectorAll("polyline.trace")];
+	  return {Area: s.dataset.area, Xlo: s.dataset.xlo, Xhi: s.dataset.xhi, Ylo: s.dataset.ylo, Yhi: s.dataset.yhi,
+	    Xlabel: s.querySelector(".xlabel").textContent, Ylabel: s.querySelector(".ylabel").textContent,
+	    Points: ps.map(p => p.getAttribute("points")), Counts: ps.map(p => +p.dataset.count)}; })()`)
+	f := func(s string) float64 { v, _ := strconv.ParseFloat(s, 64); return v }
+	area := strings.Split(r.Area, ",")
+	x0, x1, y0, y1 := f(area[0]), f(area[1]), f(area[2]), f(area[3])
+	hMul := map[bool]float64{true: 1e3, false: 1}[strings.Contains(r.Xlabel, "kA/m")]
+	yMul := map[bool]float64{true: 1e-3, false: 1}[strings.Contains(r.Ylabel, "mT")]
+	for i, pts := range r.Points {
+		count += r.Counts[i]
+		for _, p := range strings.Fields(pts) {
+			xs, ys, _ := strings.Cut(p, ",")
+			h = append(h, (f(r.Xlo)+(f(xs)-x0)/(x1-x0)*(f(r.Xhi)-f(r.Xlo)))*hMul)
+			bb = append(bb, (f(r.Ylo)+(y1-f(ys))/(y1-y0)*(f(r.Yhi)-f(r.Ylo)))*yMul)
+		}
+	}
+	return h, bb, count
+}
+
+func TestBrowserReview(t *testing.T) {
+	if testing.Short() {
+		t.Skip("browser test on the simulated bench: skipped with -short")
+	}
+	chromium := findChromium(t)
+	bs := startBenchServer(t)
+
+	// Two finished runs on the bench, submitted through the API.
+	var ids []string
+	for i, amp := range []string{"500 A/m", "800 A/m"} {
+		var res map[string]string
+		if code := bs.call(t, "POST", "/api/v1/runs?fixture="+bs.fixture, browserToken, loopRecipe(fmt.Sprintf("short-%d", i+1), amp, "1 kA/m/s", 200), &res); code != 202 {
+			t.Fatalf("submit: %d %v", code, res)
+		}
+		ids = append(ids, res["run_id"])
+		bs.waitRun(t, res["run_id"], 60*time.Second, "finished")
+	}
+	var rb runBody
+	bs.call(t, "GET", "/api/v1/runs/"+ids[0], "", "", &rb)
+	specimen := rb.Run.Specimen
+
+	b := newBrowser(t, chromium)
+	b.do(chromedp.Navigate(bs.base + "/"))
+	b.wait("page ready", `document.body.dataset.ready === "1"`, 20*time.Second)
+
+	// 1. The finished runs appear in the runs list.
+	for _, id := range ids {
+		b.wait("run "+id+" listed", fmt.Sprintf(`!!document.querySelector('#runs-list li[data-run-id=%q][data-state="finished"]')`, id), 10*time.Second)
+	}
+	b.shot("1-runs-list.png")
+
+	// 2. A loop: the plot holds the loop's points, each vertex on a point.
+	var lb loopBody
+	if code := bs.call(t, "GET", "/api/v1/runs/"+ids[1]+"/loops/1", "", "", &lb); code != 200 || lb.Loop.NPoints < 100 {
+		t.Fatalf("loop from the API: %d, %d points", code, lb.Loop.NPoints)
+	}
+	finite := 0
+	for i := range lb.Loop.Points.H {
+		if lb.Loop.Points.H[i] != nil && lb.Loop.Points.B[i] != nil {
+			finite++
+		}
+	}
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, ids[1])))
+	b.wait("loop plot", `document.querySelectorAll('#loop-plot polyline.trace').length > 0 && !!document.querySelector('#figures tbody tr')`, 15*time.Second)
+	h, bv, count := plotVertices(b, "#loop-plot")
+	if count != finite || len(h) != finite {
+		t.Errorf("loop plot draws %d vertices (data-count %d), the loop has %d finite points", len(h), count, finite)
+	}
+	hspan, bspan := 0.0, 0.0
+	for i := range lb.Loop.Points.H {
+		if lb.Loop.Points.H[i] != nil {
+			hspan = math.Max(hspan, math.Abs(*lb.Loop.Points.H[i]))
+			bspan = math.Max(bspan, math.Abs(*lb.Loop.Points.B[i]))
+		}
+	}
+	k := 0
+	for i := range lb.Loop.Points.H {
+		if lb.Loop.Points.H[i] == nil || lb.Loop.Points.B[i] == nil || k >= len(h) {
+			continue
+		}
+		// Pixel coordinates carry two decimals: 0.01 px of a ~800 px axis.
+		if math.Abs(h[k]-*lb.Loop.Points.H[i]) > 2e-4*hspan || math.Abs(bv[k]-*lb.Loop.Points.B[i]) > 2e-4*bspan {
+			t.Fatalf("vertex %d at H %.3f, B %.5f; point is H %.3f, B %.5f", k, h[k], bv[k], *lb.Loop.Points.H[i], *lb.Loop.Points.B[i])
+		}
+		k++
+	}
+	nfig := js[int](b, `document.querySelectorAll('#figures tbody tr').length`)
+	if nfig < 3 {
+		t.Errorf("figures table has %d rows", nfig)
+	}
+	b.shot("2-loop.png")
+	// Zoom by dragging, then back to the whole loop.
+	before := js[string](b, `document.querySelector('#loop-plot svg').dataset.xhi`)
+	b.do(chromedp.Evaluate[chromedp.Void](`(() => { const s = document.querySelector('#loop-plot svg'), r = s.getBoundingClientRect();
+	  const at = (fx, fy) => ({clientX: r.left + r.width * fx, clientY: r.top + r.height * fy, bubbles: true});
+	  s.dispatchEvent(new MouseEvent('mousedown', at(0.45, 0.3))); s.dispatchEvent(new MouseEvent('mousemove', at(0.7, 0.6)));
+	  s.dispatchEvent(new MouseEvent('mouseup', at(0.7, 0.6))); })()`))
+	after := js[string](b, `document.querySelector('#loop-plot svg').dataset.xhi`)
+	if after == before {
+		t.Errorf("drag did not zoom (x max %s)", after)
+	}
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#zoom-reset').click()`))
+	if v := js[string](b, `document.querySelector('#loop-plot svg').dataset.xhi`); v != before {
+		t.Errorf("reset gave x max %s, want %s", v, before)
+	}
+	// Second quadrant with its (BH)max marker, then CGS axes.
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#q2-toggle').click()`))
+	b.wait("(BH)max marker", `!!document.querySelector('#loop-plot circle.bhmax') && document.querySelector('#loop-plot .marker-label').textContent.includes('(BH)max')`, 5*time.Second)
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#q2-toggle').click(); document.querySelector('#loop-toolbar [data-name="units"] [data-v="cgs"]').click()`))
+	b.wait("CGS axis", `document.querySelector('#loop-plot .xlabel').textContent === 'H (Oe)'`, 5*time.Second)
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#loop-toolbar [data-name="units"] [data-v="si"]').click()`))
+
+	// 3. Overlay of loops from two runs.
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#compare-add').click()`))
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, ids[0])))
+	b.wait("first run's loop", fmt.Sprintf(`document.querySelector('#run-head h2') && document.querySelector('#run-head h2').textContent.startsWith(%q) && document.querySelectorAll('#loop-plot polyline.trace').length > 0`, ids[0]), 15*time.Second)
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#compare-add').click(); document.querySelector('[data-view="compare"]').click()`))
+	b.wait("overlay of two runs", `new Set([...document.querySelectorAll('#compare-plot polyline.trace')].map(p => p.dataset.key)).size === 2`, 10*time.Second)
+	keys := js[[]string](b, `[...new Set([...document.querySelectorAll('#compare-plot polyline.trace')].map(p => p.dataset.key))]`)
+	for _, id := range ids {
+		if !strings.Contains(strings.Join(keys, " "), id+"#1") {
+			t.Errorf("overlay keys %v lack %s#1", keys, id)
+		}
+	}
+	b.shot("3-overlay.png")
+
+	// 4. Trend of HcB for the specimen, with limit lines.
+	var tr struct{ Points []struct{ Value float64 } }
+	bs.call(t, "GET", "/api/v1/trend?specimen="+specimen+"&figure=HcB", "", "", &tr)
+	if len(tr.Points) < 2 {
+		t.Fatalf("trend from the API has %d points", len(tr.Points))
+	}
+	lo, hi := tr.Points[0].Value*0.5, tr.Points[0].Value*1.5
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('[data-view="trend"]').click();
+	  document.querySelector('#t-specimen').value = %q; document.querySelector('#t-figure').value = 'HcB';
+	  document.querySelector('#t-lo').value = '%g'; document.querySelector('#t-hi').value = '%g';
+	  document.querySelector('#trend-draw').click()`, specimen, lo, hi)))
+	b.wait("trend points", fmt.Sprintf(`document.querySelectorAll('#trend-plot circle.trend-pt').length === %d && document.querySelectorAll('#trend-plot line.limit').length === 2`, len(tr.Points)), 10*time.Second)
+	b.shot("4-trend.png")
+
+	// 5. A live sweep started from the page with the key, watched, then
+	//    aborted: refused without the key, accepted with it.
+	long := loopRecipe("live-loop", "1 kA/m", "250 A/m/s", 600)
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#key-input').value = %q; document.querySelector('#key-save').click();
+	  document.querySelector('[data-view="start"]').click(); document.querySelector('#s-recipe').value = %q; document.querySelector('#s-fixture').value = %q;
+	  document.querySelector('#s-confirm').click(); document.querySelector('#start-btn').click()`, browserToken, long, bs.fixture)))
+	b.wait("run queued", `document.querySelector('#start-msg').textContent.includes('queued')`, 10*time.Second)
+	msg := js[string](b, `document.querySelector('#start-msg').textContent`)
+	liveID := strings.Fields(strings.TrimPrefix(msg, "run "))[0]
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('[data-view="live"]').click()`))
+	b.wait("live samples", fmt.Sprintf(`document.querySelector('#live-run').textContent === %q && +document.querySelector('#live-count').textContent > 40 && document.querySelectorAll('#live-plot polyline.trace').length > 0`, liveID), 30*time.Second)
+	c1 := js[int](b, `+document.querySelector('#live-count').textContent`)
+	b.wait("live view updating", fmt.Sprintf(`+document.querySelector('#live-count').textContent > %d`, c1+40), 20*time.Second)
+	b.wait("progress shown", `parseFloat(document.querySelector('#live-progress').style.width) > 0`, 5*time.Second)
+	b.shot("5-live-sweep.png")
+
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#key-input').value = ''; document.querySelector('#key-save').click();
+	  { const a = document.querySelector('#live-abort'); a.click(); a.click(); }`))
+	b.wait("abort refused", `document.querySelector('#live-abort-msg').textContent.includes('not allowed')`, 10*time.Second)
+	if st := bs.waitRun(t, liveID, time.Second, "running"); st != "running" {
+		t.Fatalf("run %s is %s after a refused abort", liveID, st)
+	}
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#key-input').value = %q; document.querySelector('#key-save').click();
+	  { const a = document.querySelector('#live-abort'); a.click(); a.click(); }`, browserToken)))
+	b.wait("abort accepted", `document.querySelector('#live-abort-msg').textContent.includes('accepted')`, 10*time.Second)
+	bs.waitRun(t, liveID, 30*time.Second, "aborted")
+	b.wait("live view shows the end", `document.querySelector('#live-state').textContent.startsWith('aborted')`, 10*time.Second)
+	b.shot("6-live-aborted.png")
+	// Safe ending: the bench's own truth says no current and output off.
+	deadline := time.Now().Add(10 * time.Second)
+	for tr := bs.bench.Truth(); math.Abs(float64(tr.I)) > 1e-3 || tr.Output; tr = bs.bench.Truth() {
+		if time.Now().After(deadline) {
+			t.Fatalf("after the abort the bench has I = %g A, output %v", float64(tr.I), tr.Output)
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+}
