@@ -24,7 +24,7 @@ const (
 
 // windowSamples is the half-width of a fit window in samples for a branch
 // of n samples: n/400, at least 4.
-func windowSamples(n int) int { return max(4, n/400) }
+func windowSamples(n int) int { return max(6, n/200) }
 
 type local struct {
 	h, b   []float64
@@ -35,7 +35,7 @@ type local struct {
 	jr0    []float64     // nominal Jr per branch, for the Hk level
 	window []int
 	// scratch buffers of read
-	bt, bx, by []float64
+	bt, bx, by, bu []float64
 }
 
 // medianCrossing returns the index i (start ≤ i < end) of the median sign
@@ -180,25 +180,71 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	if !ok1 || !ok2 {
 		return nan()
 	}
-	// Root of cx0 − x0 + cx1·u + cx2·u² nearest u = 0, within the window.
-	c0, c1, c2 := cx[0]-x0, cx[1], cx[2]
+	// A parabola that misses the shape (a kink, a knee) leaves residuals
+	// that follow each other; white noise leaves uncorrelated ones. Where
+	// the residuals are correlated the samples themselves are interpolated.
+	us := l.bu[:0]
+	for j := range ts {
+		us = append(us, (ts[j]-tc)/scale)
+	}
+	l.bu = us
+	smoothX := correlated(us, xs, cx)
+	smoothY := correlated(us, ys, cy)
 	u := math.NaN()
-	if math.Abs(c2) < 1e-12*math.Abs(c1) {
-		u = -c0 / c1
-	} else if d := c1*c1 - 4*c2*c0; d >= 0 {
-		sq := math.Sqrt(d)
-		// Numerically stable pair of roots.
-		qq := -0.5 * (c1 + math.Copysign(sq, c1))
-		r1, r2 := qq/c2, c0/qq
-		u = r1
-		if math.Abs(r2) < math.Abs(r1) {
-			u = r2
+	if smoothX && js > 0 {
+		f := (x0 - xs[js-1]) / (xs[js] - xs[js-1])
+		u = us[js-1] + f*(us[js]-us[js-1])
+	} else {
+		// Root of cx0 − x0 + cx1·u + cx2·u² nearest u = 0.
+		c0, c1, c2 := cx[0]-x0, cx[1], cx[2]
+		if math.Abs(c2) < 1e-12*math.Abs(c1) {
+			u = -c0 / c1
+		} else if d := c1*c1 - 4*c2*c0; d >= 0 {
+			sq := math.Sqrt(d)
+			qq := -0.5 * (c1 + math.Copysign(sq, c1)) // numerically stable pair of roots
+			r1, r2 := qq/c2, c0/qq
+			u = r1
+			if math.Abs(r2) < math.Abs(r1) {
+				u = r2
+			}
 		}
 	}
 	if math.IsNaN(u) || math.IsInf(u, 0) || math.Abs(u) > 1 {
 		return nan()
 	}
+	if smoothY {
+		// Interpolate y between the samples around u.
+		for j := 1; j < n; j++ {
+			if us[j] >= u {
+				f := 0.0
+				if us[j] > us[j-1] {
+					f = (u - us[j-1]) / (us[j] - us[j-1])
+				}
+				return ys[j-1] + f*(ys[j]-ys[j-1])
+			}
+		}
+		return ys[n-1]
+	}
 	return cy[0] + cy[1]*u + cy[2]*u*u
+}
+
+// correlated reports whether the residuals of the parabola c through the
+// points (u, v) have a lag-1 autocorrelation above 0.6: the parabola does
+// not describe the shape, or there is no noise to average.
+func correlated(u, v []float64, c [3]float64) bool {
+	var s0, s1, prev float64
+	for j := range u {
+		e := v[j] - (c[0] + c[1]*u[j] + c[2]*u[j]*u[j])
+		s0 += e * e
+		if j > 0 {
+			s1 += e * prev
+		}
+		prev = e
+	}
+	if s0 == 0 {
+		return true
+	}
+	return s1/s0 > 0.6
 }
 
 // crossings reads Br, HcB, HcJ and (falling branches) Hk of branch k for a

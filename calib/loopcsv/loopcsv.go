@@ -270,7 +270,11 @@ func (r Result) WriteTable(w io.Writer) error {
 		if unit == "" {
 			unit = "1"
 		}
-		fmt.Fprintf(tw, "%s\t%.6g\t%.2g\t%s\n", row.label, f.Value, f.U, unit)
+		u := f.U
+		if u < 1e-9*math.Abs(f.Value) {
+			u = 0 // round-off, not an uncertainty
+		}
+		fmt.Fprintf(tw, "%s\t%.6g\t%.2g\t%s\n", row.label, f.Value, u, unit)
 	}
 	if err := tw.Flush(); err != nil {
 		return err
