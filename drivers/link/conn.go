@@ -340,21 +340,49 @@ func (c *Conn) Read(ctx context.Context, p []byte) (int, error) {
 }
 
 // Write writes all of p. A failed write (EIO after a hang-up, a closed
-// port) is ErrDisconnected or ErrClosed; ctx is checked before writing and
-// between partial writes (a write to a serial line is not interruptible
-// once the kernel has taken the bytes).
+// port) is ErrDisconnected or ErrClosed. A write normally completes at once
+// (the kernel buffers it); one held up, e.g. by RTS/CTS flow control with
+// the instrument off, is abandoned when ctx is done: the port is then closed
+// and the error matches both ErrDisconnected and the context's error, so
+// the next call needs Reconnect.
 func (c *Conn) Write(ctx context.Context, p []byte) (int, error) {
+	if err := ctx.Err(); err != nil {
+		return 0, err
+	}
 	pt, err := c.current("write")
 	if err != nil {
 		return 0, err
 	}
+	if ctx.Done() == nil {
+		return c.writeAll(pt, p)
+	}
+	type result struct {
+		n   int
+		err error
+	}
+	done := make(chan result, 1)
+	go func() {
+		n, err := c.writeAll(pt, p)
+		done <- result{n, err}
+	}()
+	select {
+	case r := <-done:
+		return r.n, r.err
+	case <-ctx.Done():
+		select {
+		case r := <-done: // finished anyway
+			return r.n, r.err
+		default:
+		}
+		return 0, c.fail("write", pt, fmt.Errorf("write abandoned: %w", ctx.Err()))
+	}
+}
+
+func (c *Conn) writeAll(pt port, p []byte) (int, error) {
 	done := 0
 	for done < len(p) {
-		if err := ctx.Err(); err != nil {
-			return done, err
-		}
 		n, err := pt.Write(p[done:])
-		done += n
+		done += max(n, 0)
 		if err != nil {
 			if errors.Is(err, syscall.EAGAIN) || errors.Is(err, syscall.EINTR) {
 				continue

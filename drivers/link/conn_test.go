@@ -270,3 +270,43 @@ func TestReconnectBackoff(t *testing.T) {
 		t.Fatalf("got %v after %d waits, want ErrNotFound after 4", err, len(waits))
 	}
 }
+
+// stuckPort blocks every write until released, as a line held by flow control.
+type stuckPort struct {
+	fakePort
+	entered chan struct{}
+	release chan struct{}
+}
+
+func (s *stuckPort) Write(p []byte) (int, error) {
+	s.entered <- struct{}{}
+	<-s.release
+	return 0, errors.New("closed")
+}
+
+func TestCancelStopsStuckWrite(t *testing.T) {
+	sp := &stuckPort{entered: make(chan struct{}, 1), release: make(chan struct{})}
+	defer close(sp.release)
+	c, err := Open(context.Background(), Address{Path: "/dev/ttyFAKE"}, lineSettings,
+		Options{open: func(string, Settings) (port, error) { return sp, nil }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { _, err := c.Write(ctx, []byte("OUT 1\n")); done <- err }()
+	<-sp.entered
+	cancel()
+	select {
+	case err := <-done:
+		if !errors.Is(err, context.Canceled) || !errors.Is(err, ErrDisconnected) {
+			t.Fatalf("got %v, want ErrDisconnected and context.Canceled", err)
+		}
+	case <-time.After(5 * time.Second):
+		t.Fatal("a cancelled Write did not return")
+	}
+	// The abandoned write left the port closed: the next call needs Reconnect.
+	if _, err := c.Write(context.Background(), []byte("x")); !errors.Is(err, ErrDisconnected) {
+		t.Fatalf("after abandoned write: %v", err)
+	}
+}

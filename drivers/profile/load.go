@@ -113,6 +113,12 @@ func Parse(file string, data []byte) (Profile, error) {
 	if err != nil {
 		return Profile{}, err
 	}
+	return FromDoc(doc)
+}
+
+// FromDoc decodes and validates a parsed document (for `hystd check`:
+// check.Register(profile.Kind, func(d *configs.Doc) error { _, err := profile.FromDoc(d); return err })).
+func FromDoc(doc *configs.Doc) (Profile, error) {
 	if k := doc.Kind(); k != Kind {
 		return Profile{}, doc.Errorf("kind", "want %q, got %q", Kind, k)
 	}
@@ -446,4 +452,18 @@ func article(role string) string {
 		return "an " + role
 	}
 	return "a " + role
+}
+
+// CurrentRange returns the settable current range [lo, hi] in A of the
+// supply profile named (or at path) name.
+func CurrentRange(name string) (lo, hi float64, err error) {
+	p, err := Load(name)
+	if err != nil {
+		return 0, 0, err
+	}
+	if p.Role != RoleSupply {
+		return 0, 0, fmt.Errorf("profile %s is a %s profile, not a supply", p.Name, p.Role)
+	}
+	r := p.Operations[OpSetCurrent].Range
+	return r[0], r[1], nil
 }
