@@ -1,0 +1,152 @@
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"strings"
+	"sync"
+	"syscall"
+
+	"hystd/acq/engine"
+	"hystd/acq/live"
+	"hystd/acq/recipe"
+	"hystd/acq/record"
+	"hystd/acq/store"
+)
+
+// RunOptions are the inputs of `hystd run`.
+type RunOptions struct {
+	ConfigPath string // daemon config: fixtures, store, log
+	Fixture    string // fixture name; "" when the config has one fixture
+	RecipePath string
+	Out        io.Writer // progress lines; nil: discarded
+	Wiring     Wiring    // Open, Area, Software, Stderr, Signals
+}
+
+// RunOnce runs one recipe in the foreground on one fixture of a daemon
+// config, with the same engine and store as the daemon, printing progress.
+// SIGINT or SIGTERM aborts the run with a safe ramp-down. The error is a
+// recipe or config problem, an *engine.Refused, or an *engine.Stop for a
+// run that did not finish.
+func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
+	w := o.Wiring
+	if w.Stderr == nil {
+		w.Stderr = os.Stderr
+	}
+	if o.Out == nil {
+		o.Out = io.Discard
+	}
+	cfg, err := Load(o.ConfigPath)
+	if err != nil {
+		return record.Run{}, err
+	}
+	log := NewLogger(cfg, w.Stderr)
+	var lf LoadedFixture
+	switch {
+	case o.Fixture != "":
+		f, ok := cfg.Fixture(o.Fixture)
+		if !ok {
+			return record.Run{}, fmt.Errorf("%w %q in %s", ErrUnknownFixture, o.Fixture, o.ConfigPath)
+		}
+		lf = f
+	case len(cfg.Fixtures) == 1:
+		lf = cfg.Fixtures[0]
+	default:
+		var names []string
+		for _, f := range cfg.Fixtures {
+			names = append(names, f.Name)
+		}
+		return record.Run{}, fmt.Errorf("%s drives %d fixtures (%s): name one with --fixture", o.ConfigPath, len(names), strings.Join(names, ", "))
+	}
+	rc, err := recipe.Load(o.RecipePath)
+	if err != nil {
+		return record.Run{}, err
+	}
+	// Refuse before touching any instrument.
+	if _, err := recipe.Expand(rc, lf.Fixture, lf.Geometry); err != nil {
+		return record.Run{}, &engine.Refused{Err: err}
+	}
+	st, err := store.Open(ctx, cfg.Config.Store.Path)
+	if err != nil {
+		return record.Run{}, err
+	}
+	defer st.Close()
+	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
+	if w.Open == nil {
+		w.Open = FixtureOpener(log)
+	}
+	if w.Area == nil {
+		w.Area = SpecimenArea
+	}
+	rctx, cancel := context.WithCancelCause(context.WithoutCancel(ctx))
+	defer cancel(nil)
+	go func() {
+		select {
+		case <-ctx.Done():
+			cancel(engine.Abort("cancelled: " + context.Cause(ctx).Error()))
+		case <-rctx.Done():
+		}
+	}()
+	sigs := w.Signals
+	if sigs == nil {
+		c := make(chan os.Signal, 2)
+		signal.Notify(c, syscall.SIGINT, syscall.SIGTERM)
+		defer signal.Stop(c)
+		sigs = c
+	}
+	go func() {
+		select {
+		case s := <-sigs:
+			cancel(engine.Abort(s.String() + " received"))
+		case <-rctx.Done():
+		}
+	}()
+	op, err := w.Open(rctx, lf.Fixture, lf.Specimen)
+	if err != nil {
+		return record.Run{}, err
+	}
+	defer op.Close()
+	p := &printer{out: o.Out}
+	run, err := engine.Run(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
+		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Writer: st, Process: op.Process,
+		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir})
+	var ref *engine.Refused
+	if errors.As(err, &ref) {
+		return run, err
+	}
+	fmt.Fprintf(o.Out, "run %s %s", run.ID, run.State)
+	if run.Reason != "" {
+		fmt.Fprintf(o.Out, ": %s", run.Reason)
+	}
+	fmt.Fprintf(o.Out, "\nstored in %s\n", st.Path())
+	return run, err
+}
+
+// printer writes one line per step and per tenth of the run.
+type printer struct {
+	mu    sync.Mutex
+	out   io.Writer
+	step  int
+	tenth int
+}
+
+func (p *printer) Publish(e live.Event) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	switch e.Kind {
+	case live.KindState:
+		if e.State == record.Running {
+			fmt.Fprintf(p.out, "run %s running\n", e.RunID)
+		}
+	case live.KindProgress:
+		tenth := int(e.Fraction * 10)
+		if e.Step != p.step || tenth > p.tenth {
+			p.step, p.tenth = e.Step, tenth
+			fmt.Fprintf(p.out, "%3.0f %%  step %d/%d %s\n", 100*e.Fraction, e.Step, e.Steps, e.StepName)
+		}
+	}
+}

@@ -1,0 +1,44 @@
+package main
+
+import (
+	"errors"
+	"fmt"
+
+	"github.com/spf13/cobra"
+
+	"hystd/acq/daemon"
+	"hystd/acq/engine"
+)
+
+func init() { register(newRunCmd) }
+
+func newRunCmd() *cobra.Command {
+	var cfgPath, fixture string
+	cmd := &cobra.Command{
+		Use:   "run --config FILE RECIPE",
+		Short: "Run one recipe in the foreground on a fixture of a daemon config",
+		Long: "run validates RECIPE against the fixture's limits, runs it with the daemon's engine and\n" +
+			"store, and prints progress. Ctrl-C or SIGTERM aborts with a safe ramp-down to zero.\n" +
+			"Exit status: 0 finished, 1 refused or bad input, 2 aborted, 3 failed.",
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			_, err := daemon.RunOnce(cmd.Context(), daemon.RunOptions{
+				ConfigPath: cfgPath, Fixture: fixture, RecipePath: args[0], Out: cmd.OutOrStdout(),
+				Wiring: daemon.Wiring{Software: version, Stderr: cmd.ErrOrStderr()},
+			})
+			var stop *engine.Stop
+			if errors.As(err, &stop) {
+				code := 3
+				if stop.State == "aborted" {
+					code = 2
+				}
+				return &exitError{code: code, err: fmt.Errorf("%s", stop.Error())}
+			}
+			return err
+		},
+	}
+	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config file (kind: daemon)")
+	cmd.Flags().StringVar(&fixture, "fixture", "", "fixture name, when the config drives several")
+	_ = cmd.MarkFlagRequired("config")
+	return cmd
+}
