@@ -4,6 +4,7 @@ import (
 	"context"
 	"log/slog"
 	"math"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -45,9 +46,10 @@ func figure(t *testing.T, l record.Loop, name string) record.Figure {
 	return record.Figure{}
 }
 
-// runAtRate records one loop of ±1 kA/m at rate (A/m/s) on a fresh bench
-// with the given eddy-current parameters (nil: none) and returns HcB and Br.
-func runAtRate(t *testing.T, eddy *physics.EddyParams, rate string) (hc, br record.Figure) {
+// runAtRate records one loop of ±500 A/m at rate (A/m/s) on a fresh bench
+// with the given eddy-current parameters (nil: none) and returns HcB, Br
+// and the 95th percentile of the sweep samples' time-stamp uncertainty.
+func runAtRate(t *testing.T, eddy *physics.EddyParams, rate string) (hc, br record.Figure, tunc time.Duration) {
 	t.Helper()
 	cfg, err := sim.DefaultBench()
 	if err != nil {
@@ -87,8 +89,8 @@ func runAtRate(t *testing.T, eddy *physics.EddyParams, rate string) (hc, br reco
 	src := `kind: recipe
 name: rate-check
 steps:
-  - condition: {amplitude: 1 kA/m, cycles: 1, rate: RATE}
-  - record_loop: {amplitude: 1 kA/m, rate: RATE, sample_interval: 5ms, hold: 500ms}
+  - condition: {amplitude: 500 A/m, cycles: 1, rate: RATE}
+  - record_loop: {amplitude: 500 A/m, rate: RATE, sample_interval: 5ms, hold: 500ms}
 `
 	rc, err := recipe.Parse("rate-check.yaml", []byte(strings.ReplaceAll(src, "RATE", rate)))
 	if err != nil {
@@ -105,8 +107,21 @@ steps:
 	if len(w.ls) != 1 {
 		t.Fatalf("%d loops", len(w.ls))
 	}
-	return figure(t, w.ls[0], "HcB"), figure(t, w.ls[0], "Br")
+	var us []time.Duration
+	for _, smp := range w.ls[0].Raw {
+		if smp.Phase == record.Sweep {
+			us = append(us, smp.TUnc)
+		}
+	}
+	slices.Sort(us)
+	return figure(t, w.ls[0], "HcB"), figure(t, w.ls[0], "Br"), us[len(us)*95/100]
 }
+
+// maxTUnc is the time-stamp uncertainty beyond which the machine is too
+// loaded for this timing-sensitive check: near Hc, B changes by about
+// 0.013 T per A/m, so a channel skew of a few ms at 1 kA/m/s already moves
+// the crossings by several A/m.
+const maxTUnc = 5 * time.Millisecond
 
 // TestQuasiStatic is the usual quasi-static check (REFERENCE §2, from
 // memory: halving the sweep rate must leave Hc and Br unchanged within
@@ -129,12 +144,16 @@ func TestQuasiStatic(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			hcFast, brFast := runAtRate(t, tc.eddy, "2 kA/m/s")
-			hcSlow, brSlow := runAtRate(t, tc.eddy, "1 kA/m/s")
+			hcFast, brFast, uFast := runAtRate(t, tc.eddy, "1 kA/m/s")
+			hcSlow, brSlow, uSlow := runAtRate(t, tc.eddy, "500 A/m/s")
+			if u := max(uFast, uSlow); u > maxTUnc {
+				t.Skipf("time stamps uncertain by %s (95th percentile) on this loaded machine; the check needs ≤ %s", u, maxTUnc)
+			}
 			uHc := math.Hypot(hcFast.U, hcSlow.U)
 			uBr := math.Hypot(brFast.U, brSlow.U)
 			dHc, dBr := hcFast.Value-hcSlow.Value, brFast.Value-brSlow.Value
-			t.Logf("HcB %.2f ± %.2f at 2 kA/m/s, %.2f ± %.2f at 1 kA/m/s (Δ %.2f, U %.2f); Br %.4f ± %.4f, %.4f ± %.4f T (Δ %.4f, U %.4f)",
+			t.Logf("time-stamp uncertainty p95 %s / %s", uFast, uSlow)
+			t.Logf("HcB %.2f ± %.2f at 1 kA/m/s, %.2f ± %.2f at 500 A/m/s (Δ %.2f, U %.2f); Br %.4f ± %.4f, %.4f ± %.4f T (Δ %.4f, U %.4f)",
 				hcFast.Value, hcFast.U, hcSlow.Value, hcSlow.U, dHc, uHc, brFast.Value, brFast.U, brSlow.Value, brSlow.U, dBr, uBr)
 			if math.IsNaN(uHc) || math.IsNaN(uBr) || uHc <= 0 {
 				t.Fatal("figures carry no uncertainty")
