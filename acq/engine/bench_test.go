@@ -25,9 +25,9 @@ type loops struct {
 	ls []record.Loop
 }
 
-func (w *loops) CreateRun(context.Context, record.Run) error                               { return nil }
+func (w *loops) CreateRun(context.Context, record.Run) error                             { return nil }
 func (w *loops) SetState(context.Context, string, record.State, string, time.Time) error { return nil }
-func (w *loops) AddEvent(context.Context, record.Event) error                              { return nil }
+func (w *loops) AddEvent(context.Context, record.Event) error                            { return nil }
 func (w *loops) AddLoop(_ context.Context, l record.Loop) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
