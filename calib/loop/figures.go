@@ -103,18 +103,18 @@ type pt struct{ h, b, t, t2 float64 }
 
 type curve struct {
 	dir  int
-	bins [2][]acc // by sample parity
+	bins [nSub][]acc // by sample index mod nSub
 }
 
 type tipAcc struct {
 	top bool
-	a   [2]acc
+	a   [nSub]acc
 }
 
 // variant says how a curve is read: all samples or one parity, full or half
 // bin resolution, with or without a perturbation.
 type variant struct {
-	parity int // -1: all
+	parity int // -1: all; 0..nSub-1: the samples of that index mod nSub
 	half   bool
 	src    *Source
 }
@@ -146,8 +146,10 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 		return nil, err
 	}
 	nom := a.eval(variant{parity: -1})
-	even := a.eval(variant{parity: 0})
-	odd := a.eval(variant{parity: 1})
+	var subs [nSub]vals
+	for k := range subs {
+		subs[k] = a.eval(variant{parity: k})
+	}
 	half := a.eval(variant{parity: -1, half: true})
 	srcs := make([]vals, len(opt.Sources))
 	for i := range opt.Sources {
@@ -156,7 +158,12 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 		srcs[i] = a.eval(variant{parity: -1, src: &src})
 	}
 	// The loss is integrated on the samples themselves; the bins serve the budget.
-	rawLoss := loss(t, h, b, s)
+	rawLoss := loss(h, b, s, -1)
+	var subLoss [nSub]float64
+	for k := range subLoss {
+		subLoss[k] = loss(h, b, s, k)
+	}
+	rawLossNoise := scatter(subLoss[:])
 	tipBand := tipFraction * (s.Hi - s.Lo)
 	tips := s.Tips(t, h, b)
 
@@ -177,7 +184,16 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 			continue
 		}
 		f := Figure{Name: name, Unit: Units[name], Value: v}
-		f.Budget.Add("noise", math.Abs(even[name]-odd[name])/2, "Type A: half the difference of the even- and odd-sample results")
+		if name == FigLossJM3 || name == FigLossJKg {
+			// The loss is integrated on the samples: so is its noise.
+			u := rawLossNoise
+			if name == FigLossJKg {
+				u /= opt.Density
+			}
+			f.Budget.Add("noise", u, "Type A: scatter of the integrals over the 4 interleaved subsets of samples, s/√4")
+		} else {
+			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the results from the 4 interleaved subsets of samples, s/√4")
+		}
 		f.Budget.Add("sampling", math.Abs(nom[name]-half[name])/math.Sqrt(3), "Type B: change at half the bin resolution taken as a rectangular half-width")
 		switch name {
 		case FigHmax:
@@ -214,6 +230,43 @@ var notes = map[string]string{
 	FigHk:         "|H| where J = 0.9·Jr on the falling branch (Jr = J at H = 0)",
 	FigSquareness: "Hk/HcJ",
 	FigMuRec:      "least-squares slope dB/dH/μ0 of the recoil pieces when recorded, else of the falling branch between H = 0 and Hk/2 (major-loop estimate)",
+}
+
+// nSub is the number of interleaved subsets of samples (index mod nSub)
+// whose results give the Type A noise estimate: with white noise, the
+// result of one subset varies nSub times as much as the result of all
+// samples, so u = s/√nSub with s the standard deviation of the subsets'
+// results (nSub − 1 degrees of freedom).
+const nSub = 4
+
+// scatter returns s/√n of the finite values, NaN with fewer than two.
+func scatter(x []float64) float64 {
+	var n, m float64
+	for _, v := range x {
+		if !math.IsNaN(v) {
+			n++
+			m += v
+		}
+	}
+	if n < 2 {
+		return nan()
+	}
+	m /= n
+	ss := 0.0
+	for _, v := range x {
+		if !math.IsNaN(v) {
+			ss += (v - m) * (v - m)
+		}
+	}
+	return math.Sqrt(ss/(n-1)) / math.Sqrt(n)
+}
+
+func subScatter(subs [nSub]vals, name string) float64 {
+	var x [nSub]float64
+	for k := range subs {
+		x[k] = subs[k][name]
+	}
+	return scatter(x[:])
 }
 
 // tipScatter returns the standard uncertainty of (mean top − mean bottom)/2
@@ -278,12 +331,13 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 		}
 		c := curve{dir: g.Dir}
 		if g.Complete {
-			c.bins[0] = make([]acc, nb)
-			c.bins[1] = make([]acc, nb)
+			for q := range c.bins {
+				c.bins[q] = make([]acc, nb)
+			}
 			for i := g.Start; i <= g.End; i++ {
 				j := int((h[i] - a.lo) * a.scale)
 				j = max(0, min(nb-1, j))
-				c.bins[i&1][j].add(h[i], b[i], tm(i))
+				c.bins[i%nSub][j].add(h[i], b[i], tm(i))
 			}
 		}
 		if g.Complete {
@@ -339,10 +393,10 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 			return h[j]-h[i] <= band
 		}
 		for j := i; j >= 0 && in(j); j-- {
-			ta.a[j&1].add(h[j], b[j], tm(j))
+			ta.a[j%nSub].add(h[j], b[j], tm(j))
 		}
 		for j := i + 1; j < len(h) && in(j); j++ {
-			ta.a[j&1].add(h[j], b[j], tm(j))
+			ta.a[j%nSub].add(h[j], b[j], tm(j))
 		}
 		a.tips = append(a.tips, ta)
 	}
@@ -370,13 +424,14 @@ func (v variant) mean(a acc) (pt, bool) {
 	return v.apply(pt{h: a.h / a.n, b: a.b / a.n, t: a.t / a.n, t2: a.t2 / a.n}), true
 }
 
-func (v variant) pick(two [2]acc, i int) acc {
-	switch v.parity {
-	case 0, 1:
-		return two[v.parity]
+func (v variant) pick(all [nSub]acc) acc {
+	if v.parity >= 0 {
+		return all[v.parity]
 	}
-	x := two[0]
-	x.merge(two[1])
+	var x acc
+	for _, a := range all {
+		x.merge(a)
+	}
 	return x
 }
 
@@ -393,7 +448,11 @@ func (c curve) points(v variant, dst []pt) []pt {
 	for j := 0; j < len(c.bins[0]); j += step {
 		var x acc
 		for k := j; k < j+step && k < len(c.bins[0]); k++ {
-			x.merge(v.pick([2]acc{c.bins[0][k], c.bins[1][k]}, k))
+			var all [nSub]acc
+			for q := range all {
+				all[q] = c.bins[q][k]
+			}
+			x.merge(v.pick(all))
 		}
 		if p, ok := v.mean(x); ok {
 			dst = append(dst, p)
@@ -415,10 +474,9 @@ func (a *analysis) eval(v variant) vals {
 	var top, bot, nt, nbt float64
 	var topB, botB float64
 	for _, ta := range a.tips {
-		x := v.pick(ta.a, 0)
-		if x.n == 0 { // one parity missing in a narrow tip: fall back to all samples
-			x = ta.a[0]
-			x.merge(ta.a[1])
+		x := v.pick(ta.a)
+		if x.n == 0 { // a narrow tip lacks this subset: fall back to all samples
+			x = variant{parity: -1}.pick(ta.a)
 		}
 		p, _ := v.mean(x)
 		if ta.top {
@@ -727,16 +785,26 @@ func polygonLoss(first, second []pt, firstDir int) float64 {
 
 // loss integrates ∮H dB with the trapezoid rule over each full cycle of the
 // samples (closing each cycle with a straight piece) and returns the mean
-// over cycles, or NaN without a full cycle.
-func loss(_ []float64, h, b []float64, s Shape) float64 {
+// over cycles, or NaN without a full cycle. parity 0..nSub−1 uses only the
+// samples of that index mod nSub (for the noise estimate), −1 all.
+func loss(h, b []float64, s Shape, parity int) float64 {
 	var w []float64
 	for _, cy := range s.Cycles() {
 		i0, i1 := cy[0].Start, cy[1].End
-		sum := 0.0
-		for i := i0; i < i1; i++ {
-			sum += (h[i] + h[i+1]) / 2 * (b[i+1] - b[i])
+		step := 1
+		if parity >= 0 {
+			i0 += ((parity-i0)%nSub + nSub) % nSub
+			step = nSub
 		}
-		sum += (h[i1] + h[i0]) / 2 * (b[i0] - b[i1])
+		if i1-i0 < 2*step {
+			continue
+		}
+		sum, last := 0.0, i0
+		for i := i0; i+step <= i1; i += step {
+			sum += (h[i] + h[i+step]) / 2 * (b[i+step] - b[i])
+			last = i + step
+		}
+		sum += (h[last] + h[i0]) / 2 * (b[i0] - b[last])
 		w = append(w, sum)
 	}
 	return meanOf(w)
@@ -746,7 +814,7 @@ func loss(_ []float64, h, b []float64, s Shape) float64 {
 func (c *rawCurve) slope(v variant) float64 {
 	var n, sh, sb, shh, shb float64
 	for i := range c.h {
-		if v.parity >= 0 && (c.start+i)&1 != v.parity {
+		if v.parity >= 0 && (c.start+i)%nSub != v.parity {
 			continue
 		}
 		p := v.apply(pt{h: c.h[i], b: c.b[i], t: c.t[i], t2: c.t[i] * c.t[i]})
@@ -789,7 +857,7 @@ func (c *rawCurve) muInitial(v variant, level float64) float64 {
 	prevB, prevH := math.NaN(), math.NaN()
 	bracket := math.NaN()
 	for i := range c.h {
-		if v.parity >= 0 && (c.start+i)&1 != v.parity {
+		if v.parity >= 0 && (c.start+i)%nSub != v.parity {
 			continue
 		}
 		p := v.apply(pt{h: c.h[i], b: c.b[i], t: c.t[i], t2: c.t[i] * c.t[i]})

@@ -127,7 +127,7 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	lo, hi := max(l.start[k], ic-m+1), min(l.end[k], ic+m)
 	ts, xs, ys := l.bt[:0], l.bx[:0], l.by[:0]
 	for i := lo; i <= hi; i++ {
-		if v.parity >= 0 && i&1 != v.parity {
+		if v.parity >= 0 && i%nSub != v.parity {
 			continue
 		}
 		tt := l.tm(i)

@@ -273,3 +273,39 @@ func TestRecoil(t *testing.T) {
 		{FigMuRec, 1.05, 1e-9}, {FigBr, 1.3, 1e-6}, {FigBHmax, 320.2e3, 1e-3},
 	})
 }
+
+// TestCoverage repeats the noisy tanh loop with 40 noise seeds: the exact
+// value must lie within the expanded uncertainty (k = 2, ≈ 95 % for a
+// normal distribution, GUM §6.2) in most runs. Noise and sampling are the
+// only budget components here, so this checks their evaluation.
+func TestCoverage(t *testing.T) {
+	exact := map[string]float64{FigBr: tanhLoop.Br(), FigHcB: tanhLoop.Hc, FigHcJ: tanhLoop.HcJ(), FigLossJM3: tanhLoop.Loss(1000)}
+	hits := map[string]int{}
+	const runs = 40
+	for seed := uint64(1); seed <= runs; seed++ {
+		sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 3000, Start: "tip", Uneven: 0.3,
+			NoiseH: 0.2, NoiseB: 1e-3, Seed: 100 + seed}
+		tt, h, b := sw.Generate(tanhLoop)
+		s, err := Detect(h)
+		if err != nil {
+			t.Fatal(err)
+		}
+		fs, err := Figures(tt, h, b, s, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, f := range fs {
+			if want, ok := exact[f.Name]; ok && math.Abs(f.Value-want) <= f.U {
+				hits[f.Name]++
+			}
+		}
+	}
+	for name := range exact {
+		// 95 % coverage gives ≥ 33 of 40 with probability > 0.99 (binomial).
+		if hits[name] < 33 {
+			t.Errorf("%s: exact value within U in %d of %d runs, want ≥ 33", name, hits[name], runs)
+		} else {
+			t.Logf("%s: covered in %d of %d runs", name, hits[name], runs)
+		}
+	}
+}
