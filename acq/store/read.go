@@ -5,6 +5,7 @@ import (
 	"database/sql"
 	"errors"
 	"fmt"
+	"math"
 	"strings"
 	"time"
 
@@ -106,36 +107,39 @@ func (s *Store) Loops(ctx context.Context, runID string) ([]record.Loop, error) 
 		}
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
-	rows, err := tx.QueryContext(ctx, `SELECT n, kind, amplitude, amp_unit, started_ns FROM loops WHERE run_id = ? ORDER BY n`, runID)
+	rows, err := tx.QueryContext(ctx, `SELECT id, n, kind, amplitude, amp_unit, started_ns FROM loops WHERE run_id = ? ORDER BY n`, runID)
 	if err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
 	var out []record.Loop
+	var ids []int64
 	for rows.Next() {
 		l := record.Loop{RunID: runID}
 		var amp sql.NullFloat64
 		var st sql.NullInt64
-		if err := rows.Scan(&l.N, &l.Kind, &amp, &l.AmpUnit, &st); err != nil {
+		var id int64
+		if err := rows.Scan(&id, &l.N, &l.Kind, &amp, &l.AmpUnit, &st); err != nil {
 			rows.Close()
 			return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 		}
 		l.Amplitude, l.Started = floatOf(amp), timeOf(st)
 		out = append(out, l)
+		ids = append(ids, id)
 	}
 	rows.Close()
 	if err := rows.Err(); err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
 	for i := range out {
-		if err := readDerived(ctx, tx, &out[i]); err != nil {
+		if err := readDerived(ctx, tx, ids[i], &out[i]); err != nil {
 			return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 		}
 	}
 	return out, nil
 }
 
-func readDerived(ctx context.Context, tx *sql.Tx, l *record.Loop) error {
-	rows, err := tx.QueryContext(ctx, `SELECT name, value, u, unit, note FROM figures WHERE run_id = ? AND loop_n = ? ORDER BY seq`, l.RunID, l.N)
+func readDerived(ctx context.Context, tx *sql.Tx, id int64, l *record.Loop) error {
+	rows, err := tx.QueryContext(ctx, `SELECT name, value, u, unit, note FROM figures WHERE loop_id = ? ORDER BY seq`, id)
 	if err != nil {
 		return err
 	}
@@ -153,7 +157,7 @@ func readDerived(ctx context.Context, tx *sql.Tx, l *record.Loop) error {
 	if err := rows.Err(); err != nil {
 		return err
 	}
-	rows, err = tx.QueryContext(ctx, `SELECT name, size, unit, note FROM corrections WHERE run_id = ? AND loop_n = ? ORDER BY seq`, l.RunID, l.N)
+	rows, err = tx.QueryContext(ctx, `SELECT name, size, unit, note FROM corrections WHERE loop_id = ? ORDER BY seq`, id)
 	if err != nil {
 		return err
 	}
@@ -190,8 +194,9 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 	var amp sql.NullFloat64
 	var st sql.NullInt64
 	var nRaw, nPts int
-	err = tx.QueryRowContext(ctx, `SELECT kind, amplitude, amp_unit, started_ns, n_raw, n_points FROM loops WHERE run_id = ? AND n = ?`,
-		runID, n).Scan(&l.Kind, &amp, &l.AmpUnit, &st, &nRaw, &nPts)
+	var id int64
+	err = tx.QueryRowContext(ctx, `SELECT id, kind, amplitude, amp_unit, started_ns, n_raw, n_points FROM loops WHERE run_id = ? AND n = ?`,
+		runID, n).Scan(&id, &l.Kind, &amp, &l.AmpUnit, &st, &nRaw, &nPts)
 	if errors.Is(err, sql.ErrNoRows) {
 		return record.Loop{}, record.ErrNotFound
 	}
@@ -201,22 +206,39 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 	l.Amplitude, l.Started = floatOf(amp), timeOf(st)
 
 	rows, err := tx.QueryContext(ctx, `SELECT t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c
-		FROM raw_samples WHERE run_id = ? AND loop_n = ? ORDER BY seq`, runID, n)
+		FROM raw_samples WHERE loop_id = ? ORDER BY seq`, id)
 	if err != nil {
 		return record.Loop{}, err
 	}
 	l.Raw = make([]record.Sample, 0, nRaw)
+	// Scanning into any skips database/sql's conversions (a large share of
+	// the read time); anyFloat and anyInt do the few that are needed.
+	var vals [9]any
+	dest := make([]any, len(vals))
+	for k := range vals {
+		dest[k] = &vals[k]
+	}
+	phases := map[string]record.Phase{}
 	for rows.Next() {
-		var r record.Sample
-		var t, tu int64
-		var ph string
-		var sp, i, v, psi, bp, tc sql.NullFloat64
-		if err := rows.Scan(&t, &tu, &ph, &sp, &i, &v, &psi, &bp, &tc); err != nil {
+		if err := rows.Scan(dest...); err != nil {
 			rows.Close()
 			return record.Loop{}, err
 		}
-		r.T, r.TUnc, r.Phase = time.Duration(t), time.Duration(tu), record.Phase(ph)
-		r.Setpoint, r.I, r.V, r.Psi, r.BProbe, r.TempC = floatOf(sp), floatOf(i), floatOf(v), floatOf(psi), floatOf(bp), floatOf(tc)
+		var r record.Sample
+		t, err1 := anyInt(vals[0])
+		tu, err2 := anyInt(vals[1])
+		if err := errors.Join(err1, err2); err != nil {
+			rows.Close()
+			return record.Loop{}, err
+		}
+		ph, ok := phases[anyString(vals[2])]
+		if !ok {
+			ph = record.Phase(anyString(vals[2]))
+			phases[string(ph)] = ph
+		}
+		r.T, r.TUnc, r.Phase = time.Duration(t), time.Duration(tu), ph
+		r.Setpoint, r.I, r.V = anyFloat(vals[3]), anyFloat(vals[4]), anyFloat(vals[5])
+		r.Psi, r.BProbe, r.TempC = anyFloat(vals[6]), anyFloat(vals[7]), anyFloat(vals[8])
 		l.Raw = append(l.Raw, r)
 	}
 	rows.Close()
@@ -224,27 +246,31 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 		return record.Loop{}, err
 	}
 
-	rows, err = tx.QueryContext(ctx, `SELECT t_ns, h_a_m, b_t, j_t, branch FROM points WHERE run_id = ? AND loop_n = ? ORDER BY seq`, runID, n)
+	rows, err = tx.QueryContext(ctx, `SELECT t_ns, h_a_m, b_t, j_t, branch FROM points WHERE loop_id = ? ORDER BY seq`, id)
 	if err != nil {
 		return record.Loop{}, err
 	}
 	l.Points = make([]record.Point, 0, nPts)
+	var pv [5]any
+	pdest := []any{&pv[0], &pv[1], &pv[2], &pv[3], &pv[4]}
 	for rows.Next() {
-		var p record.Point
-		var t int64
-		var h, b, j sql.NullFloat64
-		if err := rows.Scan(&t, &h, &b, &j, &p.Branch); err != nil {
+		if err := rows.Scan(pdest...); err != nil {
 			rows.Close()
 			return record.Loop{}, err
 		}
-		p.T, p.H, p.B, p.J = time.Duration(t), floatOf(h), floatOf(b), floatOf(j)
-		l.Points = append(l.Points, p)
+		t, err1 := anyInt(pv[0])
+		br, err2 := anyInt(pv[4])
+		if err := errors.Join(err1, err2); err != nil {
+			rows.Close()
+			return record.Loop{}, err
+		}
+		l.Points = append(l.Points, record.Point{T: time.Duration(t), H: anyFloat(pv[1]), B: anyFloat(pv[2]), J: anyFloat(pv[3]), Branch: int(br)})
 	}
 	rows.Close()
 	if err := rows.Err(); err != nil {
 		return record.Loop{}, err
 	}
-	if err := readDerived(ctx, tx, &l); err != nil {
+	if err := readDerived(ctx, tx, id, &l); err != nil {
 		return record.Loop{}, err
 	}
 	return l, nil
@@ -288,7 +314,7 @@ func (s *Store) Trend(ctx context.Context, specimen, figure string, since time.T
 	rows, err := s.r.QueryContext(ctx, `
 		SELECT l.run_id, l.n, COALESCE(l.started_ns, r.started_ns) AS at, f.value, f.u
 		FROM figures f
-		JOIN loops l ON l.run_id = f.run_id AND l.n = f.loop_n
+		JOIN loops l ON l.id = f.loop_id
 		JOIN runs r ON r.id = l.run_id
 		WHERE r.specimen = ? AND f.name = ? AND COALESCE(l.started_ns, r.started_ns, 0) >= ?
 		ORDER BY at, l.run_id, l.n, f.seq`, specimen, figure, sinceNs)
@@ -311,4 +337,36 @@ func (s *Store) Trend(ctx context.Context, specimen, figure string, since time.T
 		return nil, fmt.Errorf("store: trend of %s for %s: %w", figure, specimen, err)
 	}
 	return out, nil
+}
+
+// anyFloat converts a scanned REAL (NULL is NaN).
+func anyFloat(v any) float64 {
+	switch x := v.(type) {
+	case float64:
+		return x
+	case int64:
+		return float64(x)
+	}
+	return math.NaN()
+}
+
+// anyInt converts a scanned INTEGER.
+func anyInt(v any) (int64, error) {
+	switch x := v.(type) {
+	case int64:
+		return x, nil
+	case float64:
+		return int64(x), nil
+	}
+	return 0, fmt.Errorf("integer column holds %T", v)
+}
+
+func anyString(v any) string {
+	switch x := v.(type) {
+	case string:
+		return x
+	case []byte:
+		return string(x)
+	}
+	return ""
 }

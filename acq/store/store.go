@@ -123,7 +123,10 @@ func (s *Store) Close() error {
 // SchemaVersion is the schema version this build writes.
 func SchemaVersion() int { return len(migrations) }
 
-func (s *Store) migrate(ctx context.Context) error {
+func (s *Store) migrate(ctx context.Context) error { return s.migrateTo(ctx, len(migrations)) }
+
+// migrateTo brings the schema up to version upTo.
+func (s *Store) migrateTo(ctx context.Context, upTo int) error {
 	var mode string
 	if err := s.w.QueryRowContext(ctx, "PRAGMA journal_mode").Scan(&mode); err != nil {
 		return err
@@ -138,24 +141,47 @@ func (s *Store) migrate(ctx context.Context) error {
 	if v > len(migrations) {
 		return fmt.Errorf("schema version %d is newer than this build knows (%d): use a newer hystd", v, len(migrations))
 	}
-	for ; v < len(migrations); v++ {
-		tx, err := s.w.BeginTx(ctx, nil)
-		if err != nil {
-			return err
-		}
-		if _, err := tx.ExecContext(ctx, migrations[v]); err != nil {
-			tx.Rollback()
-			return fmt.Errorf("migration %d: %w", v+1, err)
-		}
-		if _, err := tx.ExecContext(ctx, fmt.Sprintf("PRAGMA user_version = %d", v+1)); err != nil {
-			tx.Rollback()
-			return fmt.Errorf("migration %d: %w", v+1, err)
-		}
-		if err := tx.Commit(); err != nil {
+	for ; v < upTo; v++ {
+		if err := s.apply(ctx, v); err != nil {
 			return fmt.Errorf("migration %d: %w", v+1, err)
 		}
 	}
 	return nil
+}
+
+// apply runs migration v in one transaction. Foreign keys are off while it
+// runs (tables are rebuilt) and checked before the commit.
+func (s *Store) apply(ctx context.Context, v int) error {
+	conn, err := s.w.Conn(ctx)
+	if err != nil {
+		return err
+	}
+	defer conn.Close()
+	if _, err := conn.ExecContext(ctx, "PRAGMA foreign_keys = OFF"); err != nil {
+		return err
+	}
+	defer conn.ExecContext(context.WithoutCancel(ctx), "PRAGMA foreign_keys = ON")
+	tx, err := conn.BeginTx(ctx, nil)
+	if err != nil {
+		return err
+	}
+	defer tx.Rollback()
+	if _, err := tx.ExecContext(ctx, migrations[v]); err != nil {
+		return err
+	}
+	rows, err := tx.QueryContext(ctx, "PRAGMA foreign_key_check")
+	if err != nil {
+		return err
+	}
+	bad := rows.Next()
+	rows.Close()
+	if bad {
+		return errors.New("foreign key check failed")
+	}
+	if _, err := tx.ExecContext(ctx, fmt.Sprintf("PRAGMA user_version = %d", v+1)); err != nil {
+		return err
+	}
+	return tx.Commit()
 }
 
 // nsOf stores a time as Unix nanoseconds; the zero time is NULL.

@@ -3,6 +3,7 @@ package store_test
 import (
 	"context"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -168,10 +169,10 @@ func BenchmarkAddLoop100k(b *testing.B) {
 	ctx := context.Background()
 	s := openTemp(b)
 	t0 := time.Date(2026, 3, 14, 9, 0, 0, 0, time.UTC)
-	if err := s.CreateRun(ctx, storetest.SampleRun("run-a", t0)); err != nil {
+	if err := s.CreateRun(ctx, storetest.SampleRun(benchRunID, t0)); err != nil {
 		b.Fatal(err)
 	}
-	l := storetest.SampleLoop("run-a", 1, 100_000, t0)
+	l := storetest.SampleLoop(benchRunID, 1, 100_000, t0)
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		l.N = i + 1
@@ -231,5 +232,80 @@ func TestRequeue(t *testing.T) {
 	}
 	if err := s.Requeue(ctx, id); err == nil {
 		t.Fatal("requeue of a pending entry succeeded")
+	}
+}
+
+// benchRunID has the length of the run ids the engine makes (fixture, UTC
+// time, random suffix).
+const benchRunID = "aldermoor-ring-2-20261201T230230Z-1ec464"
+
+// TestMigrateFromV1: a file written with schema 1 (samples keyed by run id
+// and loop number) is rebuilt to the current schema on Open, keeping every
+// value, and the outbox entry still points at its loop.
+func TestMigrateFromV1(t *testing.T) {
+	ctx := context.Background()
+	path := filepath.Join(t.TempDir(), "hystd.db")
+	db, err := store.CreateAtVersionForTest(ctx, path, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t0 := time.Date(2026, 3, 14, 9, 0, 0, 0, time.UTC)
+	r := storetest.SampleRun("run-old", t0)
+	stmts := []struct {
+		q    string
+		args []any
+	}{
+		{`INSERT INTO runs VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 'finished', '', ?, ?, ?)`,
+			[]any{r.ID, r.Recipe, r.RecipeText, r.Fixture, r.Specimen, r.Material, r.Config, r.ConfigHash, r.Software,
+				r.Queued.UnixNano(), r.Started.UnixNano(), t0.Add(time.Hour).UnixNano()}},
+		{`INSERT INTO loops VALUES ('run-old', 1, 'loop', 8000, 'A/m', ?, 2, 1)`, []any{t0.UnixNano()}},
+		{`INSERT INTO raw_samples VALUES ('run-old', 1, 0, 0, 1000, 'pre', 0, 0.001, NULL, 2e-7, NULL, 23.5)`, nil},
+		{`INSERT INTO raw_samples VALUES ('run-old', 1, 1, 2000000, 1000, 'sweep', 1.5, 1.5, 0.7, 3e-4, 0.01, 23.6)`, nil},
+		{`INSERT INTO points VALUES ('run-old', 1, 0, 2000000, 6000, 1.1, 1.0924601776272, -1)`, nil},
+		{`INSERT INTO figures VALUES ('run-old', 1, 0, 'Br', 0.61, 0.004, 'T', 'mean of both branches')`, nil},
+		{`INSERT INTO figures VALUES ('run-old', 1, 1, 'HcB', 12.5, NULL, 'A/m', '')`, nil},
+		{`INSERT INTO corrections VALUES ('run-old', 1, 0, 'closure', -0.004, 'T', '')`, nil},
+		{`INSERT INTO outbox (run_id, loop_n, created_ns, state, done, updated_ns) VALUES ('run-old', 1, 5, 'pending', 1, 5)`, nil},
+	}
+	for _, st := range stmts {
+		if _, err := db.Exec(st.q, st.args...); err != nil {
+			t.Fatalf("%s: %v", st.q, err)
+		}
+	}
+	db.Close()
+
+	s, err := store.Open(ctx, path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	var v int
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != store.SchemaVersion() {
+		t.Fatalf("schema version %d (%v), want %d", v, err, store.SchemaVersion())
+	}
+	l, err := s.Loop(ctx, "run-old", 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(l.Raw) != 2 || l.Raw[1].Psi != 3e-4 || !math.IsNaN(l.Raw[0].V) || l.Raw[1].T != 2*time.Millisecond ||
+		len(l.Points) != 1 || l.Points[0].H != 6000 || l.Points[0].Branch != -1 ||
+		len(l.Figures) != 2 || !math.IsNaN(l.Figures[1].U) || l.Corrections[0].Name != "closure" {
+		t.Fatalf("migrated loop %+v", l)
+	}
+	p, err := s.Pending(ctx, 0)
+	if err != nil || len(p) != 1 || p[0].Done != 1 || p[0].Loop != 1 {
+		t.Fatalf("migrated outbox %+v %v", p, err)
+	}
+	// The migrated file takes new loops as usual.
+	if err := s.AddLoop(ctx, storetest.SampleLoop("run-old", 2, 30, t0)); err != nil {
+		t.Fatal(err)
+	}
+	tr, err := s.Trend(ctx, r.Specimen, "Br", time.Time{})
+	if err != nil || len(tr) != 2 {
+		t.Fatalf("trend after migration: %+v %v", tr, err)
+	}
+	var fk int
+	if err := s.WriterForTest().QueryRow("PRAGMA foreign_keys").Scan(&fk); err != nil || fk != 1 {
+		t.Fatalf("foreign_keys after migration: %d %v", fk, err)
 	}
 }

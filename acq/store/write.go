@@ -147,39 +147,44 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	} else if !errors.Is(err, sql.ErrNoRows) {
 		return err
 	}
-	if _, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
+	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?)`,
-		l.RunID, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points)); err != nil {
+		l.RunID, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points))
+	if err != nil {
+		return err
+	}
+	id, err := res.LastInsertId()
+	if err != nil {
 		return err
 	}
 	raw := func(i int, a []any) []any {
 		r := l.Raw[i]
-		return append(a, l.RunID, l.N, i, int64(r.T), int64(r.TUnc), string(r.Phase),
+		return append(a, id, i, int64(r.T), int64(r.TUnc), string(r.Phase),
 			real(r.Setpoint), real(r.I), real(r.V), real(r.Psi), real(r.BProbe), real(r.TempC))
 	}
-	if err := insertRows(ctx, tx, "raw_samples (run_id, loop_n, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c)",
-		12, len(l.Raw), raw); err != nil {
+	if err := insertRows(ctx, tx, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c)",
+		11, len(l.Raw), raw); err != nil {
 		return fmt.Errorf("raw samples: %w", err)
 	}
 	pt := func(i int, a []any) []any {
 		p := l.Points[i]
-		return append(a, l.RunID, l.N, i, int64(p.T), real(p.H), real(p.B), real(p.J), p.Branch)
+		return append(a, id, i, int64(p.T), real(p.H), real(p.B), real(p.J), p.Branch)
 	}
-	if err := insertRows(ctx, tx, "points (run_id, loop_n, seq, t_ns, h_a_m, b_t, j_t, branch)", 8, len(l.Points), pt); err != nil {
+	if err := insertRows(ctx, tx, "points (loop_id, seq, t_ns, h_a_m, b_t, j_t, branch)", 7, len(l.Points), pt); err != nil {
 		return fmt.Errorf("points: %w", err)
 	}
 	fig := func(i int, a []any) []any {
 		f := l.Figures[i]
-		return append(a, l.RunID, l.N, i, f.Name, real(f.Value), real(f.U), f.Unit, f.Note)
+		return append(a, id, i, f.Name, real(f.Value), real(f.U), f.Unit, f.Note)
 	}
-	if err := insertRows(ctx, tx, "figures (run_id, loop_n, seq, name, value, u, unit, note)", 8, len(l.Figures), fig); err != nil {
+	if err := insertRows(ctx, tx, "figures (loop_id, seq, name, value, u, unit, note)", 7, len(l.Figures), fig); err != nil {
 		return fmt.Errorf("figures: %w", err)
 	}
 	cor := func(i int, a []any) []any {
 		c := l.Corrections[i]
-		return append(a, l.RunID, l.N, i, c.Name, real(c.Size), c.Unit, c.Note)
+		return append(a, id, i, c.Name, real(c.Size), c.Unit, c.Note)
 	}
-	if err := insertRows(ctx, tx, "corrections (run_id, loop_n, seq, name, size, unit, note)", 7, len(l.Corrections), cor); err != nil {
+	if err := insertRows(ctx, tx, "corrections (loop_id, seq, name, size, unit, note)", 6, len(l.Corrections), cor); err != nil {
 		return fmt.Errorf("corrections: %w", err)
 	}
 	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)`,
