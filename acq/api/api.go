@@ -170,6 +170,7 @@ func (s *server) routes() {
 	read("/api/v1/runs", s.listRuns)
 	read("/api/v1/runs/{id}", s.getRun)
 	read("/api/v1/runs/{id}/loops/{n}", s.getLoop)
+	read("/api/v1/runs/{id}/loops/{n}/plot", s.plotLoop)
 	read("/api/v1/trend", s.trend)
 	// The event stream has no request timeout: it lives as long as the client.
 	s.mux.Handle("GET /api/v1/events", s.wrap("/api/v1/events", s.o.ProtectReads, false, s.events))

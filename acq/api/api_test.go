@@ -509,3 +509,76 @@ func TestServeShutsDownOnCancel(t *testing.T) {
 		t.Errorf("bad address: %v", err)
 	}
 }
+
+func TestPlotEndpoint(t *testing.T) {
+	e := newEnv(t, Options{})
+	e.reader.put(record.Run{ID: "EMPTY", State: record.Failed}, record.Loop{RunID: "EMPTY", N: 1})
+	tests := []struct {
+		query string
+		code  int
+		ctype string
+		magic string
+	}{
+		{"", 200, "image/svg+xml", "<?xml"},
+		{"?format=png&y=J&units=cgs&width=640&height=480", 200, "image/png", "\x89PNG"},
+		{"?quadrant=2", 200, "image/svg+xml", "<?xml"},
+		{"?format=gif", 400, "application/json", `{"error":"format: \"gif\"`},
+		{"?width=50", 400, "application/json", `{"error":"width`},
+		{"?colour=red", 400, "application/json", `{"error":"unknown query parameter \"colour\"`},
+	}
+	for _, tc := range tests {
+		resp, err := http.Get(e.srv.URL + "/api/v1/runs/RUN-A/loops/1/plot" + tc.query)
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, _ := io.ReadAll(resp.Body)
+		resp.Body.Close()
+		if resp.StatusCode != tc.code || !strings.HasPrefix(resp.Header.Get("Content-Type"), tc.ctype) || !strings.HasPrefix(string(b), tc.magic) {
+			t.Errorf("%s: %d %s %.60q", tc.query, resp.StatusCode, resp.Header.Get("Content-Type"), b)
+		}
+	}
+	if code, m, _ := e.do(t, "GET", "/api/v1/runs/EMPTY/loops/1/plot", "", "", nil); code != 422 || !strings.Contains(m["error"].(string), "no finite points") {
+		t.Errorf("empty loop: %d %v", code, m)
+	}
+	if code, _, _ := e.do(t, "GET", "/api/v1/runs/NOPE/loops/1/plot", "", "", nil); code != 404 {
+		t.Errorf("unknown run: %d", code)
+	}
+}
+
+func TestReviewOnlyServer(t *testing.T) {
+	// Without a Runner (hystd demo --serve) the token is still checked
+	// first, then mutations answer 503.
+	h, err := New(Options{Reader: newMemReader(), Token: testToken})
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewServer(h)
+	defer srv.Close()
+	e := &env{srv: srv}
+	if code, _, _ := e.do(t, "POST", "/api/v1/runs", "", "application/yaml", strings.NewReader(goodRecipe)); code != 401 {
+		t.Errorf("no token: %d, want 401", code)
+	}
+	code, m, _ := e.do(t, "POST", "/api/v1/runs", testToken, "application/yaml", strings.NewReader(goodRecipe))
+	if code != 503 || !strings.Contains(m["error"].(string), "runs no fixture") {
+		t.Errorf("with token: %d %v, want 503", code, m)
+	}
+}
+
+func BenchmarkLoopJSON100k(b *testing.B) {
+	// Encoding a 100 k-point loop for the page (points as columns).
+	rd := newMemReader()
+	rd.put(record.Run{ID: "BIG"}, tanhLoop("BIG", 50000, 6000, 400, 900, 1.6))
+	h, err := New(Options{Reader: rd})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.ReportAllocs()
+	for b.Loop() {
+		rec := httptest.NewRecorder()
+		h.ServeHTTP(rec, httptest.NewRequest("GET", "/api/v1/runs/BIG/loops/1", nil))
+		if rec.Code != 200 {
+			b.Fatal(rec.Code)
+		}
+		b.SetBytes(int64(rec.Body.Len()))
+	}
+}

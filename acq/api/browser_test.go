@@ -405,6 +405,13 @@ func TestBrowserReview(t *testing.T) {
 		t.Errorf("figures table has %d rows", nfig)
 	}
 	b.shot("2-loop.png")
+	// The report links fetch the server-side drawing of the same loop.
+	ctx, cancel := context.WithTimeout(b.ctx, 20*time.Second)
+	ctype, err := chromedp.Run(ctx, chromedp.Evaluate[string](`fetch(document.querySelector('#dl-png').href).then(r => r.ok ? r.headers.get('Content-Type') : 'HTTP ' + r.status)`, chromedp.EvalAwaitPromise))
+	cancel()
+	if err != nil || ctype != "image/png" {
+		t.Errorf("PNG link: %q %v", ctype, err)
+	}
 	// Zoom by dragging, then back to the whole loop.
 	before := js[string](b, `document.querySelector('#loop-plot svg').dataset.xhi`)
 	b.do(chromedp.Evaluate[chromedp.Void](`(() => { const s = document.querySelector('#loop-plot svg'), r = s.getBoundingClientRect();

@@ -24,6 +24,27 @@ func (n num) MarshalJSON() ([]byte, error) {
 	return strconv.AppendFloat(nil, f, 'g', -1, 64), nil
 }
 
+// nums is a column of floats encoded in one pass (NaN and ±Inf as null);
+// a 100 k-point loop has four of them.
+type nums []float64
+
+// MarshalJSON implements json.Marshaler.
+func (ns nums) MarshalJSON() ([]byte, error) {
+	b := make([]byte, 0, 2+len(ns)*12)
+	b = append(b, '[')
+	for i, f := range ns {
+		if i > 0 {
+			b = append(b, ',')
+		}
+		if math.IsNaN(f) || math.IsInf(f, 0) {
+			b = append(b, "null"...)
+			continue
+		}
+		b = strconv.AppendFloat(b, f, 'g', -1, 64)
+	}
+	return append(b, ']'), nil
+}
+
 // stamp is a time that encodes the zero time as null.
 type stamp time.Time
 
@@ -94,23 +115,23 @@ type loopJSON struct {
 }
 
 type pointsJSON struct {
-	T      []num `json:"t_s"`
-	H      []num `json:"h_a_m"`
-	B      []num `json:"b_t"`
-	J      []num `json:"j_t"`
+	T      nums  `json:"t_s"`
+	H      nums  `json:"h_a_m"`
+	B      nums  `json:"b_t"`
+	J      nums  `json:"j_t"`
 	Branch []int `json:"branch"`
 }
 
 type rawJSON struct {
-	T        []num    `json:"t_s"`
-	TUnc     []num    `json:"t_unc_s"`
+	T        nums     `json:"t_s"`
+	TUnc     nums     `json:"t_unc_s"`
 	Phase    []string `json:"phase"`
-	Setpoint []num    `json:"setpoint"`
-	I        []num    `json:"i_a"`
-	V        []num    `json:"v_v"`
-	Psi      []num    `json:"psi_wb"`
-	BProbe   []num    `json:"b_probe_t"`
-	TempC    []num    `json:"temp_c"`
+	Setpoint nums     `json:"setpoint"`
+	I        nums     `json:"i_a"`
+	V        nums     `json:"v_v"`
+	Psi      nums     `json:"psi_wb"`
+	BProbe   nums     `json:"b_probe_t"`
+	TempC    nums     `json:"temp_c"`
 }
 
 func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
@@ -124,19 +145,19 @@ func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
 	}
 	if withPoints {
 		n := len(l.Points)
-		p := &pointsJSON{make([]num, n), make([]num, n), make([]num, n), make([]num, n), make([]int, n)}
+		p := &pointsJSON{make(nums, n), make(nums, n), make(nums, n), make(nums, n), make([]int, n)}
 		for i, q := range l.Points {
-			p.T[i], p.H[i], p.B[i], p.J[i], p.Branch[i] = num(q.T.Seconds()), num(q.H), num(q.B), num(q.J), q.Branch
+			p.T[i], p.H[i], p.B[i], p.J[i], p.Branch[i] = q.T.Seconds(), q.H, q.B, q.J, q.Branch
 		}
 		j.Points = p
 	}
 	if withRaw {
 		n := len(l.Raw)
-		r := &rawJSON{make([]num, n), make([]num, n), make([]string, n), make([]num, n), make([]num, n),
-			make([]num, n), make([]num, n), make([]num, n), make([]num, n)}
+		r := &rawJSON{make(nums, n), make(nums, n), make([]string, n), make(nums, n), make(nums, n),
+			make(nums, n), make(nums, n), make(nums, n), make(nums, n)}
 		for i, s := range l.Raw {
-			r.T[i], r.TUnc[i], r.Phase[i], r.Setpoint[i] = num(s.T.Seconds()), num(s.TUnc.Seconds()), string(s.Phase), num(s.Setpoint)
-			r.I[i], r.V[i], r.Psi[i], r.BProbe[i], r.TempC[i] = num(s.I), num(s.V), num(s.Psi), num(s.BProbe), num(s.TempC)
+			r.T[i], r.TUnc[i], r.Phase[i], r.Setpoint[i] = s.T.Seconds(), s.TUnc.Seconds(), string(s.Phase), s.Setpoint
+			r.I[i], r.V[i], r.Psi[i], r.BProbe[i], r.TempC[i] = s.I, s.V, s.Psi, s.BProbe, s.TempC
 		}
 		j.Raw = r
 	}

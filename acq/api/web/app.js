@@ -427,6 +427,11 @@ function drawLoop(keepZoom) {
   const spec = loopSpec([state.loop], segValue(bar.querySelector('[data-name="ordinate"]')),
     segValue(bar.querySelector('[data-name="units"]')), $("#q2-toggle").checked);
   loopPlot.plot.set(spec, keepZoom);
+  const q = new URLSearchParams({ y: segValue(bar.querySelector('[data-name="ordinate"]')), units: segValue(bar.querySelector('[data-name="units"]')) });
+  if ($("#q2-toggle").checked) q.set("quadrant", "2");
+  const base = `/api/v1/runs/${encodeURIComponent(state.loop.run_id)}/loops/${state.loop.n}/plot?`;
+  $("#dl-svg").href = base + q + "&format=svg";
+  $("#dl-png").href = base + q + "&format=png";
 }
 
 function cgsOf(v, unit) {

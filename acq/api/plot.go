@@ -1,0 +1,109 @@
+package api
+
+import (
+	"bytes"
+	"fmt"
+	"net/http"
+	"strconv"
+
+	"hystd/acq/plot"
+	"hystd/acq/record"
+)
+
+// plotLoop draws one loop server-side with acq/plot, the same drawing as
+// `hystd export --format svg|png`:
+// ?format=svg|png &y=B|J &units=si|cgs &quadrant=2 &width=&height= (pixels).
+// The image is drawn into memory first, so a failure is a JSON error, never
+// half an image.
+func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
+	q := r.URL.Query()
+	for k := range q {
+		switch k {
+		case "format", "y", "units", "quadrant", "width", "height":
+		default:
+			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: format, y, units, quadrant, width, height)", k)
+			return
+		}
+	}
+	var o plot.Options
+	format := q.Get("format")
+	switch format {
+	case "", "svg":
+		format = "svg"
+	case "png":
+	default:
+		writeError(w, http.StatusBadRequest, "format: %q: want svg or png", format)
+		return
+	}
+	switch v := q.Get("y"); v {
+	case "", "B":
+		o.Y = plot.FluxDensity
+	case "J":
+		o.Y = plot.Polarization
+	default:
+		writeError(w, http.StatusBadRequest, "y: %q: want B or J", v)
+		return
+	}
+	switch v := q.Get("units"); v {
+	case "", "si":
+	case "cgs":
+		o.CGS = true
+	default:
+		writeError(w, http.StatusBadRequest, "units: %q: want si or cgs", v)
+		return
+	}
+	switch v := q.Get("quadrant"); v {
+	case "":
+	case "2":
+		o.SecondQuadrant = true
+	default:
+		writeError(w, http.StatusBadRequest, "quadrant: %q: want 2 or nothing", v)
+		return
+	}
+	for _, d := range []struct {
+		key string
+		dst *int
+	}{{"width", &o.Width}, {"height", &o.Height}} {
+		if v := q.Get(d.key); v != "" {
+			n, err := strconv.Atoi(v)
+			if err != nil || n < 200 || n > 4000 {
+				writeError(w, http.StatusBadRequest, "%s: %q: want a whole number of pixels from 200 to 4000", d.key, v)
+				return
+			}
+			*d.dst = n
+		}
+	}
+	n, err := strconv.Atoi(r.PathValue("n"))
+	if err != nil || n < 1 {
+		writeError(w, http.StatusBadRequest, "loop number %q: want a whole number from 1", r.PathValue("n"))
+		return
+	}
+	id := r.PathValue("id")
+	run, err := s.o.Reader.Run(r.Context(), id)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	l, err := s.o.Reader.Loop(r.Context(), id, n)
+	if err != nil {
+		s.fail(w, r, err)
+		return
+	}
+	o.Title = fmt.Sprintf("%s loop %d — %s, %s", run.ID, l.N, run.Specimen, run.Material)
+	o.Labels = []string{fmt.Sprintf("%s #%d", run.Specimen, l.N)}
+	var buf bytes.Buffer
+	ctype := "image/svg+xml"
+	if format == "png" {
+		ctype = "image/png"
+		err = plot.PNG(&buf, []record.Loop{l}, o)
+	} else {
+		err = plot.SVG(&buf, []record.Loop{l}, o)
+	}
+	if err != nil {
+		writeError(w, http.StatusUnprocessableEntity, "%v", err)
+		return
+	}
+	w.Header().Set("Content-Type", ctype)
+	w.Header().Set("Content-Disposition", fmt.Sprintf("inline; filename=%q", fmt.Sprintf("%s-loop%d.%s", run.ID, l.N, format)))
+	_, _ = w.Write(buf.Bytes())
+}
