@@ -85,6 +85,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	defer st.Close()
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
+	RecoverRuns(ctx, cfg, st, st, log)
 
 	if w.Open == nil {
 		w.Open = FixtureOpener(log)
@@ -238,5 +239,36 @@ func ReplaySpool(ctx context.Context, dir string, w record.Writer, log *slog.Log
 		}
 		log.Info("spooled loop committed", "file", f, "run", l.RunID, "loop", l.N)
 		_ = os.Remove(f)
+	}
+}
+
+// RecoverRuns records the ending of runs a previous daemon left queued or
+// running (it was killed, or the power failed): a running one as failed,
+// interrupted; a queued one as aborted, never started. The supplies are
+// brought to zero by Start.
+func RecoverRuns(ctx context.Context, cfg *Loaded, r record.Reader, w record.Writer, log *slog.Logger) {
+	now := time.Now()
+	for _, lf := range cfg.Fixtures {
+		for _, c := range []struct {
+			from, to record.State
+			reason   string
+		}{
+			{record.Running, record.Failed, "interrupted: the daemon stopped (killed or power lost) while the run was under way; loops committed before that are kept"},
+			{record.Queued, record.Aborted, "the daemon stopped before the run started"},
+		} {
+			runs, err := r.Runs(ctx, record.RunFilter{Fixture: lf.Name, State: c.from, Limit: 10000})
+			if err != nil {
+				log.Error("cannot look for interrupted runs", "fixture", lf.Name, "err", err)
+				continue
+			}
+			for _, run := range runs {
+				if err := w.SetState(ctx, run.ID, c.to, c.reason, now); err != nil {
+					log.Error("cannot record an interrupted run", "run", run.ID, "err", err)
+					continue
+				}
+				_ = w.AddEvent(ctx, record.Event{RunID: run.ID, At: now, Level: "error", Text: "run " + string(c.to) + " at daemon start: " + c.reason})
+				log.Warn("run left "+string(c.from)+" by a previous daemon recorded "+string(c.to), "run", run.ID, "fixture", lf.Name)
+			}
+		}
 	}
 }
