@@ -134,7 +134,7 @@ func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, e
 	}
 	d.c = scpi.New(port, scpi.Options{
 		Name: p.Name, WriteTerm: p.Terminators.Write, ReadTerm: p.Terminators.Read,
-		ErrorQuery: p.ErrorQuery, Log: o.Log, Now: o.Now,
+		ErrorQuery: p.ErrorQuery, Log: o.Log, Now: o.Now, Timeout: p.LineSettings().ReadTimeout,
 	})
 	if err := d.start(ctx); err != nil {
 		return nil, err
@@ -231,9 +231,6 @@ func (d *Device) op(name string) (Operation, error) {
 	}
 	return o, nil
 }
-
-// has reports whether the profile defines the operation.
-func (d *Device) has(name string) bool { _, ok := d.p.Operations[name]; return ok }
 
 // command builds the command text of a setting for value v (nil: none).
 func (d *Device) command(name string, o Operation, v any) (string, error) {

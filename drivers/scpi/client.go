@@ -37,6 +37,10 @@ type Options struct {
 	ErrorQuery string // e.g. "SYST:ERR?"; "" when the instrument has no error queue
 	MaxReply   int    // longest reply line in bytes; default 64 KiB
 	MaxErrors  int    // most queue entries drained at once; default 32
+	// Timeout bounds each reply as a whole, from sending the query to its
+	// terminator (0: only the stream's own read timeout applies). Expiry is
+	// an error matching link.ErrTimeout.
+	Timeout time.Duration
 	// Log receives one Debug record per exchange (command, reply, round
 	// trip); nil logs nothing.
 	Log *slog.Logger
@@ -137,7 +141,10 @@ func (c *Client) QueryTimed(ctx context.Context, cmd string) (Reply, error) {
 		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "err", err)
 		return Reply{}, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
-	line, err := c.readLine(ctx)
+	rctx, cancel := c.replyCtx(ctx)
+	line, err := c.readLine(rctx)
+	cancel()
+	err = c.asTimeout(ctx, err)
 	got := c.o.Now()
 	if err != nil {
 		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "partial", string(line), "err", err)
@@ -171,6 +178,9 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 		c.stale = true
 		return nil, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
+	parent := ctx
+	ctx, cancel := c.replyCtx(ctx)
+	defer cancel()
 	for {
 		data, rest, err := ParseBlock(c.buf, c.o.ReadTerm)
 		if err == nil {
@@ -194,9 +204,26 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 			return nil, fmt.Errorf("scpi %q: block longer than %d bytes", cmd, MaxBlock)
 		}
 		if err := c.fill(ctx); err != nil {
-			return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+			return nil, fmt.Errorf("scpi %q: %w", cmd, c.asTimeout(parent, err))
 		}
 	}
+}
+
+// replyCtx bounds one reply by Options.Timeout.
+func (c *Client) replyCtx(ctx context.Context) (context.Context, context.CancelFunc) {
+	if c.o.Timeout <= 0 {
+		return ctx, func() {}
+	}
+	return context.WithTimeout(ctx, c.o.Timeout)
+}
+
+// asTimeout turns the expiry of the reply timeout into link.ErrTimeout
+// whatever the stream reported, keeping the caller's own cancellation as is.
+func (c *Client) asTimeout(parent context.Context, err error) error {
+	if err == nil || parent.Err() != nil || errors.Is(err, link.ErrTimeout) || !errors.Is(err, context.DeadlineExceeded) {
+		return err
+	}
+	return &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: fmt.Errorf("no complete reply within %v: %w", c.o.Timeout, err)}
 }
 
 // DrainErrors reads the error queue until it reports code 0 and returns
@@ -320,10 +347,15 @@ func (c *Client) resync(ctx context.Context) error {
 		return nil
 	}
 	c.buf = c.buf[:0]
+	discarded := 0
 	for {
+		if discarded > c.o.MaxReply {
+			return fmt.Errorf("scpi: the instrument keeps sending (%d bytes discarded after a broken exchange)", discarded)
+		}
 		rctx, cancel := context.WithTimeout(ctx, resyncWindow)
 		n, err := c.s.Read(rctx, c.rbuf)
 		cancel()
+		discarded += n
 		if n > 0 {
 			c.o.Log.Debug("scpi discarded late input", "instr", c.o.Name, "bytes", string(c.rbuf[:n]))
 		}

@@ -217,3 +217,40 @@ func TestDebugLogAndStamps(t *testing.T) {
 		}
 	}
 }
+
+// trickle delivers one byte per Read and never the terminator; each Read
+// honours ctx. The stream's own timeout never fires, the reply timeout must.
+type trickle struct{ wrote bool }
+
+func (s *trickle) Write(ctx context.Context, p []byte) (int, error) { s.wrote = true; return len(p), nil }
+func (s *trickle) Read(ctx context.Context, p []byte) (int, error) {
+	if err := ctx.Err(); err != nil {
+		return 0, err
+	}
+	p[0] = '1'
+	return 1, nil
+}
+
+func TestReplyTimeoutBoundsTrickle(t *testing.T) {
+	c := New(&trickle{}, Options{Timeout: 20 * time.Millisecond, MaxReply: 1 << 30})
+	_, err := c.Query(context.Background(), "MEAS:CURR?")
+	if !errors.Is(err, link.ErrTimeout) {
+		t.Fatalf("got %v, want link.ErrTimeout", err)
+	}
+	// The caller's own cancellation stays a cancellation.
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	if _, err := c.Query(ctx, "MEAS:CURR?"); errors.Is(err, link.ErrTimeout) || !errors.Is(err, context.Canceled) {
+		t.Fatalf("got %v, want context.Canceled", err)
+	}
+}
+
+func TestBabblingInstrumentAfterTimeout(t *testing.T) {
+	c := New(&trickle{}, Options{Timeout: 5 * time.Millisecond, MaxReply: 4096})
+	if _, err := c.Query(context.Background(), "A?"); err == nil {
+		t.Fatal("a reply without terminator was accepted")
+	}
+	if _, err := c.Query(context.Background(), "A?"); err == nil || !strings.Contains(err.Error(), "keeps sending") {
+		t.Fatalf("got %v", err)
+	}
+}
