@@ -222,7 +222,10 @@ func TestDebugLogAndStamps(t *testing.T) {
 // honours ctx. The stream's own timeout never fires, the reply timeout must.
 type trickle struct{ wrote bool }
 
-func (s *trickle) Write(ctx context.Context, p []byte) (int, error) { s.wrote = true; return len(p), nil }
+func (s *trickle) Write(ctx context.Context, p []byte) (int, error) {
+	s.wrote = true
+	return len(p), nil
+}
 func (s *trickle) Read(ctx context.Context, p []byte) (int, error) {
 	if err := ctx.Err(); err != nil {
 		return 0, err
