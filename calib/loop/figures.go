@@ -104,6 +104,7 @@ type pt struct{ h, b, t, t2 float64 }
 type curve struct {
 	dir  int
 	bins [nSub][]acc // by sample index mod nSub
+	all  []acc       // the sum of the subsets
 }
 
 type tipAcc struct {
@@ -339,6 +340,12 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 				j = max(0, min(nb-1, j))
 				c.bins[i%nSub][j].add(h[i], b[i], tm(i))
 			}
+			c.all = make([]acc, nb)
+			for j := range c.all {
+				for q := range c.bins {
+					c.all[j].merge(c.bins[q][j])
+				}
+			}
 		}
 		if g.Complete {
 			idxOf[k] = len(a.branches)
@@ -445,14 +452,14 @@ func (c curve) points(v variant, dst []pt) []pt {
 	if v.half {
 		step = 2
 	}
-	for j := 0; j < len(c.bins[0]); j += step {
-		var x acc
-		for k := j; k < j+step && k < len(c.bins[0]); k++ {
-			var all [nSub]acc
-			for q := range all {
-				all[q] = c.bins[q][k]
-			}
-			x.merge(v.pick(all))
+	src := c.all
+	if v.parity >= 0 {
+		src = c.bins[v.parity]
+	}
+	for j := 0; j < len(src); j += step {
+		x := src[j]
+		if step == 2 && j+1 < len(src) {
+			x.merge(src[j+1])
 		}
 		if p, ok := v.mean(x); ok {
 			dst = append(dst, p)
