@@ -42,6 +42,7 @@ type Error struct {
 	Msg    string
 }
 
+// Error prints "FILE:LINE: column C: problem".
 func (e *Error) Error() string {
 	var b strings.Builder
 	b.WriteString(e.File)

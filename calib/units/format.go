@@ -28,6 +28,9 @@ func format(v float64, sym string) string {
 	return strconv.FormatFloat(v, 'g', -1, 64) + " " + sym
 }
 
+// String prints the value in its SI unit with the shortest decimal that
+// parses back (with the matching ParseX) to exactly the same value, e.g.
+// "1.5 T"; the same holds for every quantity type below.
 func (v Ampere) String() string                { return format(float64(v), SymAmpere) }
 func (v Volt) String() string                  { return format(float64(v), SymVolt) }
 func (v AmperePerMetre) String() string        { return format(float64(v), SymAmperePerMetre) }
