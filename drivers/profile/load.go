@@ -425,12 +425,14 @@ func normalize(p Profile) Profile {
 }
 
 // LineSettings returns the profile's serial settings for drivers/link, with
-// the reply timeout as the read timeout. Modem lines are left alone.
+// the reply timeout as the read timeout. Modem lines are driven only when
+// the profile sets dtr or rts.
 func (p Profile) LineSettings() link.Settings {
 	d, _ := time.ParseDuration(p.Timeout)
 	return link.Settings{
 		Baud: p.Serial.Baud, DataBits: p.Serial.DataBits, Parity: p.Serial.Parity,
 		StopBits: p.Serial.StopBits, Flow: p.Serial.Flow, ReadTimeout: d,
+		DTR: p.Serial.DTR, RTS: p.Serial.RTS,
 	}
 }
 

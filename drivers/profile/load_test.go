@@ -6,6 +6,7 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"hystd/configs"
 )
@@ -73,5 +74,30 @@ func TestInvalidProfiles(t *testing.T) {
 				t.Fatalf("got\n%s\nwant\n%s", got, want)
 			}
 		})
+	}
+}
+
+func TestLineSettings(t *testing.T) {
+	p, err := Parse("modem.yaml", []byte(`kind: instrument-profile
+name: modem-lines
+role: thermometer
+serial: {baud: 4800, data_bits: 7, parity: odd, stop_bits: "2", dtr: true, rts: false}
+terminators: {write: "\r", read: "\r"}
+timeout: 250ms
+identity: "T"
+operations:
+  read_temperature: {query: "T?", parse: number, unit: "°C"}
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := p.LineSettings()
+	if s.Baud != 4800 || s.DataBits != 7 || s.Parity != "odd" || s.StopBits != "2" || s.Flow != "none" ||
+		s.ReadTimeout != 250*time.Millisecond || s.DTR == nil || !*s.DTR || s.RTS == nil || *s.RTS {
+		t.Fatalf("settings %+v", s)
+	}
+	q, _ := Load("sim-supply")
+	if s := q.LineSettings(); s.DTR != nil || s.RTS != nil {
+		t.Fatal("modem lines driven without being asked")
 	}
 }

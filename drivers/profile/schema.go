@@ -44,6 +44,10 @@ type SerialSettings struct {
 	Parity   string `yaml:"parity"`    // none | even | odd
 	StopBits string `yaml:"stop_bits"` // "1" | "1.5" | "2"
 	Flow     string `yaml:"flow"`      // none | rtscts
+	// DTR and RTS, when given, are driven to that level after opening
+	// (added by drivers/profile; absent: left alone, as a pty requires).
+	DTR *bool `yaml:"dtr"`
+	RTS *bool `yaml:"rts"`
 }
 
 // Terminators end every command written and every reply read.
