@@ -109,7 +109,7 @@ var soft = synth.Tanh{Bs: 1.5, Hc: 50, A: 40, Ai: 60}
 // centering. Over the ~12 s sweep the uncorrected drift is ~1.2e-4 V·s,
 // i.e. 24 mT on N2·A = 5e-3 m²·turns — far above the tolerances below.
 func TestSoftLoopWithDrift(t *testing.T) {
-	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 3000, Dt: 1e-3, Start: "tip", Uneven: 0.3, Seed: 4}
+	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 3000, Dt: 1e-3, Start: "tip", Uneven: 0.3, Draw: 4}
 	tt, h, b := sw.Generate(soft)
 	for _, tc := range []struct {
 		name string
@@ -168,7 +168,7 @@ func TestSoftLoopWithDrift(t *testing.T) {
 // H from a field meter (H = B_probe/μ0), B from the integrator with drift.
 func TestMagnetFromFieldMeter(t *testing.T) {
 	l := synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
-	sw := synth.Sweep{Hm: 2e6, Cycles: 1, PerBranch: 6000, Dt: 1e-3, Start: "tip", Seed: 2}
+	sw := synth.Sweep{Hm: 2e6, Cycles: 1, PerBranch: 6000, Dt: 1e-3, Start: "tip", Draw: 2}
 	tt, h, b := sw.Generate(l)
 	s := Setup{Area: 100e-6, N2: 50, HFrom: HFromFieldMeter, Class: ClassMagnet,
 		Field: Accuracy{Gain: 2e-3, Offset: 1e-4}}
@@ -341,7 +341,7 @@ func TestSetupFromSamples(t *testing.T) {
 // BenchmarkLoop1M runs corrections and figures on a 1 M-sample loop step
 // (two cycles, 250 k samples per branch, holds, drift, noise).
 func BenchmarkLoop1M(b *testing.B) {
-	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 250000, Dt: 1e-5, Start: "tip", Uneven: 0.2, Seed: 1}
+	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 250000, Dt: 1e-5, Start: "tip", Uneven: 0.2, Draw: 1}
 	tt, h, bb := sw.Generate(soft)
 	bn := bench{s: ringSetup(), hold: 1000, v0: 1e-5, noiseI: 1e-4, noiseP: 1e-6}
 	bn.s.Flux = Accuracy{Gain: 1e-3, Offset: 2e-7}

@@ -13,7 +13,7 @@ import (
 // and every figure with its budget (two sources).
 func BenchmarkChain1M(b *testing.B) {
 	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 250000, Dt: 1e-5, Start: "tip", Uneven: 0.2,
-		NoiseH: 0.1, NoiseB: 1e-4, Seed: 1}
+		NoiseH: 0.1, NoiseB: 1e-4, Draw: 1}
 	tt, h0, b0 := sw.Generate(tanhLoop)
 	const n1, n2, l, a = 200, 100, 0.1413716694115407, 50e-6
 	cur := make([]float64, len(h0))

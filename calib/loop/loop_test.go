@@ -79,7 +79,7 @@ func TestTanhClean(t *testing.T) {
 // the sample interval, a partial first branch from H = 0 and three cycles.
 func TestTanhNoisy(t *testing.T) {
 	sw := synth.Sweep{Hm: 1000, Cycles: 3, PerBranch: 5000, Start: "zero", Uneven: 0.5,
-		NoiseH: 0.2, NoiseB: 0.5e-3, Seed: 3}
+		NoiseH: 0.2, NoiseB: 0.5e-3, Draw: 3}
 	tt, h, b := sw.Generate(tanhLoop)
 	m := checkFigures(t, "tanh noisy", tt, h, b, Options{Density: 7650}, tanhWants(5e-3))
 	if f := m[FigLossJKg]; math.Abs(f.Value-tanhLoop.Loss(1000)/7650) > 5e-3*f.Value {
@@ -104,7 +104,7 @@ func TestParallelogram(t *testing.T) {
 	}{
 		{"clean", synth.Sweep{Hm: 600, Cycles: 1, PerBranch: 3000, Start: "tip"}, 2e-3},
 		{"noisy uneven", synth.Sweep{Hm: 600, Cycles: 2, PerBranch: 4000, Start: "zero", Uneven: 0.6,
-			NoiseH: 0.1, NoiseB: 1e-3, Seed: 11}, 5e-3},
+			NoiseH: 0.1, NoiseB: 1e-3, Draw: 11}, 5e-3},
 	} {
 		tt, h, b := tc.sw.Generate(l)
 		checkFigures(t, "parallelogram "+tc.name, tt, h, b, Options{}, []want{
@@ -129,7 +129,7 @@ func TestStraightLineMagnet(t *testing.T) {
 	}{
 		{"clean", synth.Sweep{Hm: 2e6, Cycles: 1, PerBranch: 4000, Start: "tip"}, 1e-3},
 		{"noisy", synth.Sweep{Hm: 2e6, Cycles: 2, PerBranch: 6000, Start: "zero", Uneven: 0.4,
-			NoiseH: 200, NoiseB: 1e-3, Seed: 5}, 5e-3},
+			NoiseH: 200, NoiseB: 1e-3, Draw: 5}, 5e-3},
 	} {
 		// The polarization switches between two samples; bins of H resolve
 		// that to about one bin, 2·Hm/nb = 4e6/1000 A/m (0.33 % of Hk).
@@ -189,7 +189,7 @@ func TestMuInitial(t *testing.T) {
 }
 
 func TestDetect(t *testing.T) {
-	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 1000, Start: "zero", NoiseH: 5, Seed: 1}
+	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 1000, Start: "zero", NoiseH: 5, Draw: 1}
 	_, h, _ := sw.Generate(tanhLoop)
 	s, err := Detect(h)
 	if err != nil {
@@ -274,7 +274,7 @@ func TestRecoil(t *testing.T) {
 	})
 }
 
-// TestCoverage repeats the noisy tanh loop with 40 noise seeds: the exact
+// TestCoverage repeats the noisy tanh loop with 40 noise draws: the exact
 // value must lie within the expanded uncertainty (k = 2, ≈ 95 % for a
 // normal distribution, GUM §6.2) in most runs. Noise and sampling are the
 // only budget components here, so this checks their evaluation.
@@ -282,9 +282,9 @@ func TestCoverage(t *testing.T) {
 	exact := map[string]float64{FigBr: tanhLoop.Br(), FigHcB: tanhLoop.Hc, FigHcJ: tanhLoop.HcJ(), FigLossJM3: tanhLoop.Loss(1000)}
 	hits := map[string]int{}
 	const runs = 40
-	for seed := uint64(1); seed <= runs; seed++ {
+	for draw := uint64(1); draw <= runs; draw++ {
 		sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 3000, Start: "tip", Uneven: 0.3,
-			NoiseH: 0.2, NoiseB: 1e-3, Seed: 100 + seed}
+			NoiseH: 0.2, NoiseB: 1e-3, Draw: 100 + draw}
 		tt, h, b := sw.Generate(tanhLoop)
 		s, err := Detect(h)
 		if err != nil {

@@ -27,9 +27,9 @@ const dir = "../../testdata/analyze"
 // item 12 (Br 1.30 T, μ_rec 1.05, switching at 1.2 MA/m).
 var (
 	softLoop   = synth.Tanh{Bs: 1.5, Hc: 50, A: 40, Ai: 60}
-	softSweep  = synth.Sweep{Hm: 1000, Cycles: 1, PerBranch: 600, Dt: 0.01, Start: "zero", Uneven: 0.3, NoiseH: 0.05, NoiseB: 2e-4, Seed: 21}
+	softSweep  = synth.Sweep{Hm: 1000, Cycles: 1, PerBranch: 600, Dt: 0.01, Start: "zero", Uneven: 0.3, NoiseH: 0.05, NoiseB: 2e-4, Draw: 21}
 	magnetLoop = synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
-	magSweep   = synth.Sweep{Hm: 2e6, Cycles: 1, PerBranch: 800, Start: "tip", Seed: 22}
+	magSweep   = synth.Sweep{Hm: 2e6, Cycles: 1, PerBranch: 800, Start: "tip", Draw: 22}
 )
 
 func writeInputs(t *testing.T) {

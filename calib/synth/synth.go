@@ -120,13 +120,13 @@ type Sweep struct {
 	Start          string
 	Uneven         float64 // relative jitter of the sample interval, 0..0.9
 	NoiseH, NoiseB float64 // standard deviations, A/m and T
-	Seed           uint64
+	Draw           uint64  // selects the pseudo-random noise sequence
 }
 
 // Generate samples the shape along a triangular H sweep and returns the
 // times (s), fields (A/m) and flux densities (T), with noise added.
 func (s Sweep) Generate(l Shape) (t, h, b []float64) {
-	r := rand.New(rand.NewPCG(s.Seed, 7))
+	r := rand.New(rand.NewPCG(s.Draw, 7))
 	dt := s.Dt
 	if dt == 0 {
 		dt = 1e-3
