@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"hystd/acq/config"
+	"hystd/acq/engine/enginetest"
 	"hystd/acq/live"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
@@ -17,11 +18,11 @@ import (
 )
 
 type rig struct {
-	clk   *fakeClock
-	sup   *fakeSupply
-	integ *fakeIntegrator
-	therm *fakeThermo
-	w     *memWriter
+	clk   *enginetest.Clock
+	sup   *enginetest.Supply
+	integ *enginetest.Integrator
+	therm *enginetest.Thermometer
+	w     *enginetest.Writer
 	fx    config.Fixture
 	sp    config.Specimen
 	mu    sync.Mutex
@@ -38,10 +39,10 @@ func newRig(t *testing.T) *rig {
 	if err != nil {
 		t.Fatal(err)
 	}
-	clk := newFakeClock()
-	sup := newFakeSupply(clk)
-	return &rig{clk: clk, sup: sup, integ: &fakeIntegrator{sup: sup, k: 1e-3, drift: 1e-6, zeroAt: clk.Now()},
-		therm: &fakeThermo{clk: clk, c: 24}, w: newMemWriter(), fx: fx, sp: sp}
+	clk := enginetest.NewClock()
+	sup := enginetest.NewSupply(clk)
+	return &rig{clk: clk, sup: sup, integ: &enginetest.Integrator{Sup: sup, K: 1e-3, Drift: 1e-6, ZeroAt: clk.Now()},
+		therm: &enginetest.Thermometer{Clk: clk, C: 24}, w: enginetest.NewWriter(), fx: fx, sp: sp}
 }
 
 func (r *rig) setup(t *testing.T, src string) Setup {
@@ -63,18 +64,18 @@ func (r *rig) setup(t *testing.T, src string) Setup {
 // never switched off with current flowing, never beyond the fixture limit.
 func (r *rig) assertSafe(t *testing.T) {
 	t.Helper()
-	i, on := r.sup.truth()
+	i, on := r.sup.Truth()
 	if math.Abs(i) > 1e-9 || on {
 		t.Errorf("supply left at %g A, output on = %v", i, on)
 	}
-	if r.sup.openedLive {
+	if r.sup.OpenedLive {
 		t.Error("output was switched off while the winding carried current")
 	}
-	if r.sup.halts == 0 {
+	if r.sup.Halts == 0 {
 		t.Error("supply never halted")
 	}
-	if r.sup.peak > r.fx.Limits.MaxCurrentA {
-		t.Errorf("peak %g A beyond the fixture limit", r.sup.peak)
+	if r.sup.Peak > r.fx.Limits.MaxCurrentA {
+		t.Errorf("peak %g A beyond the fixture limit", r.sup.Peak)
 	}
 }
 
@@ -95,13 +96,13 @@ func TestFinishedRun(t *testing.T) {
 	if run.State != record.Finished || run.Reason != "" {
 		t.Errorf("run %s %q", run.State, run.Reason)
 	}
-	if got := r.w.states; len(got) != 3 || got[0] != record.Queued || got[1] != record.Running || got[2] != record.Finished {
+	if got := r.w.States; len(got) != 3 || got[0] != record.Queued || got[1] != record.Running || got[2] != record.Finished {
 		t.Errorf("states %v, want queued running finished", got)
 	}
-	if len(r.w.loops) != 2 {
-		t.Fatalf("%d loops stored, want 2", len(r.w.loops))
+	if len(r.w.Loops) != 2 {
+		t.Fatalf("%d loops stored, want 2", len(r.w.Loops))
 	}
-	for k, l := range r.w.loops {
+	for k, l := range r.w.Loops {
 		if l.N != k+1 || l.Kind != "loop" || l.Amplitude != 2 || l.AmpUnit != "A" || len(l.Figures) != 1 {
 			t.Errorf("loop %d: %+v", k, l.Figures)
 		}
@@ -135,11 +136,11 @@ func TestFinishedRun(t *testing.T) {
 			t.Errorf("loop %d spans %g..%g A, want ±2", l.N, lo, hi)
 		}
 	}
-	if r.integ.resets != 2 {
-		t.Errorf("%d integrator resets, want 2", r.integ.resets)
+	if r.integ.Resets != 2 {
+		t.Errorf("%d integrator resets, want 2", r.integ.Resets)
 	}
 	var caution, progress bool
-	for _, e := range r.w.events {
+	for _, e := range r.w.Events {
 		caution = caution || strings.Contains(e.Text, "½·L·I²") && strings.Contains(e.Text, "licensed practice")
 	}
 	for _, e := range r.evs {
@@ -162,35 +163,35 @@ func TestEndings(t *testing.T) {
 		loops  int // loops stored
 	}{
 		{"abort mid-loop", func(r *rig, cancel context.CancelCauseFunc) {
-			r.sup.onRead = func(int) {
-				if r.w.loopCount() == 1 && r.integ.resets == 2 {
+			r.sup.OnRead = func(int) {
+				if r.w.LoopCount() == 1 && r.integ.Resets == 2 {
 					cancel(Abort("aborted by operator"))
 				}
 			}
 		}, record.Aborted, "aborted by operator", 1},
 		{"SIGTERM mid-loop", func(r *rig, cancel context.CancelCauseFunc) {
-			r.sup.onRead = func(n int) {
-				if r.integ.resets == 1 {
+			r.sup.OnRead = func(n int) {
+				if r.integ.Resets == 1 {
 					cancel(Abort("daemon stopping: terminated"))
 				}
 			}
 		}, record.Aborted, "daemon stopping: terminated", 0},
 		{"plain cancel", func(r *rig, cancel context.CancelCauseFunc) {
-			r.sup.onRead = func(n int) {
+			r.sup.OnRead = func(n int) {
 				if n == 50 {
 					cancel(nil)
 				}
 			}
 		}, record.Aborted, "cancelled: context canceled", 0},
-		{"supply trip", func(r *rig, _ context.CancelCauseFunc) { r.sup.tripAfter = 200 }, record.Failed, "supply tripped", 1},
-		{"integrator port hung up", func(r *rig, _ context.CancelCauseFunc) { r.integ.failAfter = 300 },
+		{"supply trip", func(r *rig, _ context.CancelCauseFunc) { r.sup.TripAfter = 200 }, record.Failed, "supply tripped", 1},
+		{"integrator port hung up", func(r *rig, _ context.CancelCauseFunc) { r.integ.FailAfter = 300 },
 			record.Failed, "lost communication with the integrator: read flux: read FETC:FLUX?: port disconnected", 1},
-		{"supply port hung up", func(r *rig, _ context.CancelCauseFunc) { r.sup.failAfter = 150 },
+		{"supply port hung up", func(r *rig, _ context.CancelCauseFunc) { r.sup.FailAfter = 150 },
 			record.Failed, "lost communication with the supply: read current: port disconnected", 0},
 		{"winding too hot", func(r *rig, _ context.CancelCauseFunc) {
-			r.sup.onRead = func(n int) {
+			r.sup.OnRead = func(n int) {
 				if n == 120 {
-					r.therm.set(81)
+					r.therm.Set(81)
 				}
 			}
 		}, record.Failed, "winding temperature 81 °C crossed the fixture limit limits.max_winding_temp_c = 80 °C", 0},
@@ -202,15 +203,15 @@ func TestEndings(t *testing.T) {
 			defer cancel(nil)
 			s := r.setup(t, twoLoops)
 			tc.arm(r, cancel)
-			if r.sup.failAfter > 0 { // a hung-up port heals for the halt, as a reconnect does
-				n := r.sup.failAfter
-				prev := r.sup.onRead
-				r.sup.onRead = func(k int) {
+			if r.sup.FailAfter > 0 { // a hung-up port heals for the halt, as a reconnect does
+				n := r.sup.FailAfter
+				prev := r.sup.OnRead
+				r.sup.OnRead = func(k int) {
 					if prev != nil {
 						prev(k)
 					}
 					if k > n {
-						r.sup.failAfter = 0
+						r.sup.FailAfter = 0
 					}
 				}
 			}
@@ -220,31 +221,25 @@ func TestEndings(t *testing.T) {
 				t.Fatalf("error %v, want a *Stop", err)
 			}
 			r.assertSafe(t)
-			got := r.w.run(run.ID)
+			got := r.w.Run(run.ID)
 			if got.State != tc.state || !strings.Contains(got.Reason, tc.reason) {
 				t.Errorf("recorded %s %q, want %s %q", got.State, got.Reason, tc.state, tc.reason)
 			}
 			if run.State != got.State || stop.State != got.State {
 				t.Errorf("returned %s / %s, recorded %s", run.State, stop.State, got.State)
 			}
-			if n := r.w.loopCount(); n != tc.loops {
+			if n := r.w.LoopCount(); n != tc.loops {
 				t.Errorf("%d loops stored, want %d", n, tc.loops)
 			}
 		})
 	}
 }
 
-func (w *memWriter) loopCount() int {
-	w.mu.Lock()
-	defer w.mu.Unlock()
-	return len(w.loops)
-}
-
 // TestStartupFindsSupplyOn: a supply left energised is brought to zero
 // before the run sends any setpoint.
 func TestStartupFindsSupplyOn(t *testing.T) {
 	r := newRig(t)
-	r.sup.on, r.sup.target, r.sup.i = true, 3, 3
+	r.sup.Energise(3)
 	if _, err := Run(context.Background(), r.setup(t, twoLoops)); err != nil {
 		t.Fatal(err)
 	}
@@ -252,17 +247,17 @@ func TestStartupFindsSupplyOn(t *testing.T) {
 	// Before the supply's Halt only the engine's ramp-down may set it: each
 	// setpoint nearer zero than the last, one slew step (50 A/s × 20 ms) apart.
 	prev := 3.0
-	for _, sp := range r.sup.setsBefore {
+	for _, sp := range r.sup.SetsBefore {
 		if math.Abs(sp) > prev || prev-math.Abs(sp) > 1+1e-9 {
-			t.Fatalf("setpoints %v before the halt are not a ramp from 3 A down to zero", r.sup.setsBefore)
+			t.Fatalf("setpoints %v before the halt are not a ramp from 3 A down to zero", r.sup.SetsBefore)
 		}
 		prev = math.Abs(sp)
 	}
-	if n := len(r.sup.setsBefore); n == 0 || r.sup.setsBefore[n-1] != 0 {
-		t.Errorf("ramp-down %v does not end at zero", r.sup.setsBefore)
+	if n := len(r.sup.SetsBefore); n == 0 || r.sup.SetsBefore[n-1] != 0 {
+		t.Errorf("ramp-down %v does not end at zero", r.sup.SetsBefore)
 	}
 	found := false
-	for _, e := range r.w.events {
+	for _, e := range r.w.Events {
 		found = found || strings.Contains(e.Text, "found with its output on")
 	}
 	if !found {
@@ -278,13 +273,13 @@ func TestRefused(t *testing.T) {
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
 			r := newRig(t)
-			r.sup.max = 5
+			r.sup.Max = 5
 			_, err := Run(context.Background(), r.setup(t, "kind: recipe\nname: big\nsteps:\n"+tc.steps))
 			var ref *Refused
 			if !errors.As(err, &ref) || !strings.Contains(err.Error(), tc.want) || !strings.Contains(err.Error(), "steps.0.record_loop") {
 				t.Fatalf("error %v, want a refusal naming steps.0.record_loop and %q", err, tc.want)
 			}
-			if len(r.w.runs) != 0 || r.sup.reads != 0 {
+			if len(r.w.Runs) != 0 || r.sup.Reads != 0 {
 				t.Error("a refused recipe touched the store or the supply")
 			}
 		})
@@ -295,7 +290,7 @@ func TestRefused(t *testing.T) {
 // intact, and the run says where they are.
 func TestStoreDown(t *testing.T) {
 	r := newRig(t)
-	r.w.loopFail = errors.New("database is locked")
+	r.w.LoopFail = errors.New("database is locked")
 	s := r.setup(t, twoLoops)
 	run, err := Run(context.Background(), s)
 	if err == nil || run.State != record.Failed {
@@ -328,7 +323,7 @@ func TestFieldControl(t *testing.T) {
 		t.Fatal(err)
 	}
 	r.fx, r.sp = fx, sp
-	probe := &fakeProbe{sup: r.sup, hSat: 500e3, i0: 10}
+	probe := &enginetest.Probe{Sup: r.sup, HSat: 500e3, I0: 10}
 	s := r.setup(t, `kind: recipe
 name: yoke-loop
 control: field
@@ -342,11 +337,11 @@ steps:
 		t.Fatal(err)
 	}
 	r.assertSafe(t)
-	if len(r.w.loops) != 1 {
-		t.Fatalf("%d loops", len(r.w.loops))
+	if len(r.w.Loops) != 1 {
+		t.Fatalf("%d loops", len(r.w.Loops))
 	}
 	worst, sum, n := 0.0, 0.0, 0.0
-	for _, smp := range r.w.loops[0].Raw {
+	for _, smp := range r.w.Loops[0].Raw {
 		if smp.Phase != record.Sweep {
 			continue
 		}
