@@ -65,14 +65,14 @@ type Setup struct {
 	RelUPath, RelUArea float64           // relative standard uncertainties of l_m and A
 	Geometry           string            // how l_m and A were obtained
 	N1, N2             int
-	HFrom              string           // HFromCurrent (default) or HFromFieldMeter
-	Probe              correct.ProbeCal // field-meter calibration (HFromFieldMeter)
-	Class              string           // ClassSoft (default) or ClassMagnet
-	Density            units.KilogramPerCubicMetre
-	Mass               units.Kilogram
-	Drift              string      // DriftCyclic (default), DriftDemagStart or DriftFromLevel
-	DemagFactor        float64     // N of an open specimen; 0: no correction
-	MuInitialB         units.Tesla // where μ_initial is read; 0: DefaultMuInitialB
+	HFrom              string                      // HFromCurrent (default) or HFromFieldMeter
+	Probe              correct.ProbeCal            // field-meter calibration (HFromFieldMeter)
+	Class              string                      // ClassSoft (default) or ClassMagnet
+	Density            units.KilogramPerCubicMetre // for the loss per kg; 0 omits it
+	Mass               units.Kilogram              // as configured, for the record
+	Drift              string                      // DriftCyclic (default), DriftDemagStart or DriftFromLevel
+	DemagFactor        float64                     // N of an open specimen; 0: no correction
+	MuInitialB         units.Tesla                 // where μ_initial is read; 0: DefaultMuInitialB
 	// StartB is B at the first sweep sample for DriftFromLevel.
 	StartB units.Tesla
 	// Accuracy of the current read-back (A), the integrator (Wb-turns) and
@@ -192,8 +192,8 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	nab := float64(s.N2) * float64(s.Area) // Wb-turns per T
 
 	corr = append(corr, record.Correction{Name: "geometry", Size: float64(s.PathLength), Unit: "m",
-		Note: fmt.Sprintf("l_m %.6g m, A %.6g m², search coil %.6g m², N1 %d, N2 %d; %s",
-			float64(s.PathLength), float64(s.Area), float64(s.CoilArea), s.N1, s.N2, s.Geometry)})
+		Note: fmt.Sprintf("l_m %.6g m, A %.6g m², search coil %.6g m², N1 %d, N2 %d, relative standard uncertainties l_m %.2g, A %.2g; %s",
+			float64(s.PathLength), float64(s.Area), float64(s.CoilArea), s.N1, s.N2, s.RelUPath, s.RelUArea, s.Geometry)})
 	if missing > 0 {
 		corr = append(corr, record.Correction{Name: "missing-samples", Size: float64(missing), Unit: "",
 			Note: fmt.Sprintf("%d of %d sweep samples without a reading left out", missing, nSweep)})
