@@ -420,3 +420,11 @@ func TestLoopConcurrent(t *testing.T) {
 		}
 	}
 }
+
+// TestFluxSpan: N2 = 100, A = 50 mm², Bmax = 1 T → 2·5 mV·s = 10 mV·s (the
+// ψ of REFERENCE §10 item 8 from −Bmax to +Bmax).
+func TestFluxSpan(t *testing.T) {
+	if got := ringSetup().FluxSpan(1); math.Abs(float64(got)-0.01) > 1e-15 {
+		t.Errorf("span %v, want 0.01 Wb", got)
+	}
+}

@@ -115,3 +115,10 @@ func (s *Setup) SetAccuracy(p *profile.Profile) {
 		}
 	}
 }
+
+// FluxSpan returns the flux-linkage span N2·A·2·Bmax (Wb-turns) that a loop
+// of tip flux density bmax sweeps through the integrator; its range must
+// hold it (REFERENCE §5, after ASTM A977).
+func (s Setup) FluxSpan(bmax units.Tesla) units.WeberTurn {
+	return units.WeberTurn(float64(s.N2) * float64(s.Area) * 2 * float64(bmax))
+}
