@@ -277,12 +277,19 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	} else {
 		off := correct.Anchor(b, 0)
 		note := "demagnetized start: B = 0 at the first sweep sample"
+		if span := shape.Hi - shape.Lo; math.Abs(h[0]) > 0.05*span {
+			note += fmt.Sprintf("; CHECK: the sweep starts at H = %.4g A/m, not near 0, so it cannot start demagnetized and the level of B is only relative (use %q with the start level)",
+				h[0], DriftFromLevel)
+		}
 		if drift == DriftFromLevel {
 			for i := range b {
 				b[i] += float64(s.StartB)
 			}
 			off -= float64(s.StartB)
 			note = fmt.Sprintf("open curve: B = %.6g T (the given start level) at the first sweep sample", float64(s.StartB))
+			if s.StartB == 0 {
+				note += "; no start level given: the level of B is relative"
+			}
 		}
 		corr = append(corr, record.Correction{Name: "anchor", Size: off, Unit: "T", Note: note})
 		if havePre || havePost {
