@@ -73,6 +73,7 @@ type Responder struct {
 	term  string
 	h     Handler
 	delay time.Duration
+	baud  int
 	wg    sync.WaitGroup
 	stop  chan struct{}
 }
@@ -81,10 +82,27 @@ type Responder struct {
 // replies ending in writeTerm; delay, when positive, is waited before each
 // reply (an instrument's processing time). Stop ends it.
 func Serve(p *PTY, readTerm, writeTerm string, delay time.Duration, h Handler) *Responder {
-	r := &Responder{pty: p, term: writeTerm, h: h, delay: delay, stop: make(chan struct{})}
+	return ServeLine(p, readTerm, writeTerm, delay, 0, h)
+}
+
+// ServeLine is Serve on an emulated serial line of baud bits per second
+// (a pty itself has no line speed): before each reply it also waits the time
+// the command and the reply, terminators included, take on the line at 10
+// bits a character (start, 8 data, stop). baud 0 emulates no line.
+func ServeLine(p *PTY, readTerm, writeTerm string, delay time.Duration, baud int, h Handler) *Responder {
+	r := &Responder{pty: p, term: writeTerm, h: h, delay: delay, baud: baud, stop: make(chan struct{})}
 	r.wg.Add(1)
 	go r.loop(readTerm)
 	return r
+}
+
+// LineTime is how long n characters take on a line of baud bits per
+// second at 10 bits a character.
+func LineTime(n, baud int) time.Duration {
+	if baud <= 0 {
+		return 0
+	}
+	return time.Duration(n) * 10 * time.Second / time.Duration(baud)
 }
 
 func (r *Responder) loop(readTerm string) {
@@ -119,8 +137,8 @@ func (r *Responder) loop(readTerm string) {
 		if !ok {
 			continue
 		}
-		if r.delay > 0 {
-			time.Sleep(r.delay)
+		if wait := r.delay + LineTime(len(cmd)+len(readTerm)+len(reply)+len(r.term), r.baud); wait > 0 {
+			time.Sleep(wait)
 		}
 		r.pty.Master.SetWriteDeadline(time.Now().Add(time.Second))
 		if _, err := r.pty.Master.Write([]byte(reply + r.term)); err != nil && !errors.Is(err, unix.EIO) {
