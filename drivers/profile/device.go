@@ -109,6 +109,9 @@ type Device struct {
 	o      Options
 	ident  string
 	failed error // set when a reconnect found the wrong instrument
+	// unverified is set when a reconnect succeeded but identification or
+	// init did not: the next operation repeats them before anything else.
+	unverified bool
 }
 
 func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, error) {
@@ -160,13 +163,32 @@ func (d *Device) start(ctx context.Context) error {
 	return nil
 }
 
+// ready returns the error that stops every operation: a wrong instrument
+// found after a reconnect, or identification and init still to be redone.
+func (d *Device) ready(ctx context.Context) error {
+	if d.failed != nil {
+		return d.failed
+	}
+	if !d.unverified {
+		return nil
+	}
+	if err := d.start(ctx); err != nil {
+		if errors.Is(err, ErrIdentity) {
+			d.failed = err
+		}
+		return d.fail(ctx, "identify", "*IDN?", err)
+	}
+	d.unverified = false
+	return nil
+}
+
 // Profile returns the (normalized) profile the device speaks.
 func (d *Device) Profile() Profile { return d.p }
 
 // Identify returns the instrument's *IDN? reply.
 func (d *Device) Identify(ctx context.Context) (string, error) {
-	if d.failed != nil {
-		return "", d.failed
+	if err := d.ready(ctx); err != nil {
+		return "", err
 	}
 	id, err := d.c.Identify(ctx)
 	if err != nil {
@@ -191,8 +213,8 @@ func (d *Device) haltSafe(ctx context.Context) error {
 
 // Halt sends the safe-state sequence. Supply overrides it with a ramp.
 func (d *Device) Halt(ctx context.Context) error {
-	if d.failed != nil {
-		return d.failed
+	if err := d.ready(ctx); err != nil {
+		return err
 	}
 	return d.haltSafe(ctx)
 }
@@ -215,10 +237,13 @@ func (d *Device) fail(ctx context.Context, op, cmd string, err error) error {
 	if serr := d.start(rctx); serr != nil {
 		if errors.Is(serr, ErrIdentity) {
 			d.failed = serr // never talk to a different instrument
+		} else {
+			d.unverified = true
 		}
 		oe.Err = errors.Join(err, fmt.Errorf("after reconnect: %w", serr))
 		return oe
 	}
+	d.unverified = false
 	d.o.Log.Info("instrument reconnected and re-identified", "profile", d.p.Name)
 	oe.Reconnected = true
 	return oe
@@ -299,8 +324,8 @@ func (d *Device) set(ctx context.Context, name string, v any) error {
 // setSent is set that also tells whether the command may have reached the
 // instrument (false: rejected before sending).
 func (d *Device) setSent(ctx context.Context, name string, v any) (sent bool, err error) {
-	if d.failed != nil {
-		return false, d.failed
+	if err := d.ready(ctx); err != nil {
+		return false, err
 	}
 	o, err := d.op(name)
 	if err != nil {
@@ -350,8 +375,8 @@ func (d *Device) finishSet(ctx context.Context, name string, o Operation, cmd st
 
 // query sends an operation's query and returns the reply with its stamps.
 func (d *Device) query(ctx context.Context, name string) (Operation, scpi.Reply, error) {
-	if d.failed != nil {
-		return Operation{}, scpi.Reply{}, d.failed
+	if err := d.ready(ctx); err != nil {
+		return Operation{}, scpi.Reply{}, err
 	}
 	o, err := d.op(name)
 	if err != nil {

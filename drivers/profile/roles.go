@@ -184,8 +184,8 @@ func HaltPlan(i0, slew float64, period time.Duration) []float64 {
 // bounded instead by the ramp time plus 10 s. Errors are returned after the
 // whole sequence was attempted.
 func (s *Supply) Halt(ctx context.Context) error {
-	if s.failed != nil {
-		return s.failed
+	if err := s.ready(context.WithoutCancel(ctx)); err != nil {
+		return err
 	}
 	period, _ := time.ParseDuration(s.p.HaltPeriod)
 	i0, known := s.last, s.haveSet

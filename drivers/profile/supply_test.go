@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/drivers/link"
 	"hystd/drivers/scpi/scpitest"
 )
 
@@ -294,5 +295,26 @@ func TestUnsupportedOperation(t *testing.T) {
 	}
 	if _, err := sup.Status(context.Background()); !errors.Is(err, ErrUnsupported) {
 		t.Fatalf("got %v", err)
+	}
+}
+
+// After a reconnect whose identification timed out, the next operation
+// identifies and initializes again before sending anything else.
+func TestReidentifyBeforeNextOperation(t *testing.T) {
+	r := newRig(t, simSupply, append(append([]ex{
+		{Send: "MEAS:CURR?", Err: scpitest.Hangup},
+		scpitest.Reconnect(),
+		{Send: "*IDN?", Err: scpitest.Timeout}}, // not ready yet
+		simSupply.startup...),
+		ex{Send: "MEAS:CURR?", Reply: "0.5"})...)
+	s := r.supply(t)
+	_, err := s.ReadCurrent(context.Background())
+	var oe *OpError
+	if !errors.As(err, &oe) || oe.Reconnected || !errors.Is(err, link.ErrTimeout) {
+		t.Fatalf("got %v, want the disconnect and the failed identification reported", err)
+	}
+	rd, err := s.ReadCurrent(context.Background())
+	if err != nil || rd.Value != 0.5 {
+		t.Fatalf("got %v, %v", rd, err)
 	}
 }
