@@ -296,10 +296,12 @@ func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]string, 
 		return nil, err
 	}
 	pts, err := Lines(r, l)
-	if errors.Is(err, ErrNoStart) {
-		return nil, &permanentError{err.Error()}
+	if err != nil {
+		// The stored loop cannot be encoded (no start time, a tag the
+		// encoder refuses): sending it again will not help.
+		return nil, &permanentError{"cannot encode: " + err.Error()}
 	}
-	return pts, err
+	return pts, nil
 }
 
 func (f *Forwarder) quarantine(ctx context.Context, e store.OutboxEntry, msg string) error {

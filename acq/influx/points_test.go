@@ -266,3 +266,42 @@ func BenchmarkLines100k(b *testing.B) {
 	}
 	b.ReportMetric(float64(len(l.Raw))*float64(b.N)/b.Elapsed().Seconds(), "points/s")
 }
+
+// FuzzLinesMatchClientEncoder: for any tag text and field values, the fast
+// encoder agrees with the client library's encoder, or both refuse.
+func FuzzLinesMatchClientEncoder(f *testing.F) {
+	f.Add("bench-ring-2", "NiFe 50/50, tape", 400.0, 0.3, 1e-300)
+	f.Add("a=b", "x\ny", -0.0, math.MaxFloat64, 5e-324)
+	f.Add(`back\slash`, "", 1e21, -1e-7, 123456789.125)
+	f.Fuzz(func(t *testing.T, fixture, material string, h, b, psi float64) {
+		r := smallRun()
+		r.Fixture, r.Material = fixture, material
+		l := record.Loop{RunID: r.ID, N: 1, Kind: "loop",
+			Raw:    []record.Sample{{T: time.Second, Phase: record.Sweep, I: h / 100, Psi: psi, V: math.NaN(), BProbe: math.NaN(), Setpoint: math.NaN(), TempC: math.NaN()}},
+			Points: []record.Point{{T: time.Second, H: h, B: b, J: b, Branch: 1}}}
+		pts, perr := Points(r, l)
+		lines, lerr := Lines(r, l)
+		if perr != nil || lerr != nil {
+			if (perr == nil) != (lerr == nil) {
+				t.Fatalf("Points error %v, Lines error %v", perr, lerr)
+			}
+			return
+		}
+		var want []string
+		for _, p := range pts {
+			var buf bytes.Buffer
+			if err := encode(&buf, p); err != nil {
+				if len(lines) > 0 {
+					// The library refuses what Lines encoded only if the
+					// prefix (made by the library) would have failed too.
+					t.Fatalf("library refuses %v: %v; Lines gave %q", p, err, lines)
+				}
+				return
+			}
+			want = append(want, strings.TrimSuffix(buf.String(), "\n"))
+		}
+		if strings.Join(lines, "\n") != strings.Join(want, "\n") {
+			t.Fatalf("Lines:\n%s\nlibrary:\n%s", strings.Join(lines, "\n"), strings.Join(want, "\n"))
+		}
+	})
+}
