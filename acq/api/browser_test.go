@@ -9,6 +9,7 @@ import (
 	"log/slog"
 	"math"
 	"net/http"
+	"net/http/httptest"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -23,6 +24,7 @@ import (
 
 	"hystd/acq/api"
 	"hystd/acq/daemon"
+	"hystd/acq/record"
 	"hystd/drivers/sim"
 )
 
@@ -496,5 +498,43 @@ func TestBrowserReview(t *testing.T) {
 			t.Fatalf("after the abort the bench has I = %g A, output %v", float64(tr.I), tr.Output)
 		}
 		time.Sleep(50 * time.Millisecond)
+	}
+}
+
+func TestBrowserMagnetQuadrant(t *testing.T) {
+	// The page's own (BH)max on a straight-line magnet against the closed
+	// form of REFERENCE.md §10 check 12 (textbook): Br = 1.30 T, μrec = 1.05
+	// → (BH)max = Br²/(4·μ0·μrec) = 320.2 kJ/m³ at B = 0.65 T; in CGS
+	// 320.2 kJ/m³ / 7957.747 J/m³ per MGOe = 40.2 MGOe (§10 check 2).
+	if testing.Short() {
+		t.Skip("browser test: skipped with -short")
+	}
+	chromium := findChromium(t)
+	rd := api.NewMemReader()
+	api.Put(rd, record.Run{ID: "MAG-1", Recipe: "magnet-demag-curve", Fixture: "yoke-demo", Specimen: "M-3",
+		Material: "sintered magnet (invented grade)", State: record.Finished, Started: time.Date(2026, 11, 30, 9, 0, 0, 0, time.UTC)},
+		api.StraightLineMagnet("MAG-1", 4000, 1.30, 1.05))
+	h, err := api.New(api.Options{Reader: rd})
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewServer(h)
+	t.Cleanup(srv.Close) // after the browser's cleanup, which ends its event stream
+	b := newBrowser(t, chromium)
+	b.do(chromedp.Navigate(srv.URL + "/"))
+	b.wait("run listed", `!!document.querySelector('#runs-list li[data-run-id="MAG-1"]')`, 20*time.Second)
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#runs-list li[data-run-id="MAG-1"]').click()`))
+	b.wait("loop plot", `document.querySelectorAll('#loop-plot polyline.trace').length > 0`, 10*time.Second)
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#q2-toggle').click()`))
+	b.wait("marker", `!!document.querySelector('#loop-plot circle.bhmax')`, 5*time.Second)
+	label := js[string](b, `document.querySelector('#loop-plot .marker-label').textContent`)
+	if !strings.Contains(label, "(BH)max 320 kJ/m³") || !strings.Contains(label, "B 0.65 T") {
+		t.Errorf("marker label %q, want (BH)max 320 kJ/m³ at B 0.65 T", label)
+	}
+	b.shot("7-magnet-quadrant.png")
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#loop-toolbar [data-name="units"] [data-v="cgs"]').click()`))
+	b.wait("CGS marker", `document.querySelector('#loop-plot .marker-label').textContent.includes('MGOe')`, 5*time.Second)
+	if label := js[string](b, `document.querySelector('#loop-plot .marker-label').textContent`); !strings.Contains(label, "(BH)max 40.2 MGOe") {
+		t.Errorf("CGS marker label %q, want (BH)max 40.2 MGOe", label)
 	}
 }
