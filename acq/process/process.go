@@ -135,7 +135,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	nSweep = len(raw) // capacity: the holds are short, one pass is cheaper than counting
 	t := make([]float64, 0, nSweep)
 	psi := make([]float64, 0, nSweep)
-	idx := make([]int, 0, nSweep)
+	td := make([]time.Duration, 0, nSweep) // time stamps of the kept samples
 	var cur, probe, temp []float64
 	if hFrom == HFromCurrent {
 		cur = make([]float64, 0, nSweep)
@@ -173,7 +173,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 				temp = append(temp, r.TempC)
 			}
 			psi = append(psi, r.Psi)
-			idx = append(idx, i)
+			td = append(td, r.T)
 		default:
 			return nil, nil, nil, fmt.Errorf("sample %d: unknown phase %q", i, r.Phase)
 		}
@@ -186,7 +186,8 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	}
 	for i := 1; i < len(t); i++ {
 		if t[i] < t[i-1] {
-			return nil, nil, nil, fmt.Errorf("sample %d: time %v runs backwards", idx[i], raw[idx[i]].T)
+			return nil, nil, nil, fmt.Errorf("sample %d: time %v runs backwards (previous sweep sample %v)",
+				rawIndex(raw, i, hFrom), td[i], td[i-1])
 		}
 	}
 	nab := float64(s.N2) * float64(s.Area) // Wb-turns per T
@@ -352,7 +353,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 
 	points = make([]record.Point, len(t))
 	for i := range t {
-		points[i] = record.Point{T: raw[idx[i]].T, H: h[i], B: b[i], J: b[i] - units.Mu0*h[i]}
+		points[i] = record.Point{T: td[i], H: h[i], B: b[i], J: b[i] - units.Mu0*h[i]}
 	}
 	shape.Label(func(i, branch int) { points[i].Branch = branch })
 	return points, figs, corr, nil
@@ -383,6 +384,29 @@ func rateText(r correct.Rate, ok bool) string {
 		return "not measured"
 	}
 	return fmt.Sprintf("%.4g ± %.2g V (%d samples)", r.Rate, r.U, r.N)
+}
+
+// rawIndex returns the index in raw of the k-th sweep sample that Loop
+// kept, for error messages.
+func rawIndex(raw []record.Sample, k int, hFrom string) int {
+	for i := range raw {
+		r := &raw[i]
+		if r.Phase != record.Sweep {
+			continue
+		}
+		hv := r.I
+		if hFrom == HFromFieldMeter {
+			hv = r.BProbe
+		}
+		if !finite(r.Psi) || !finite(hv) {
+			continue
+		}
+		if k == 0 {
+			return i
+		}
+		k--
+	}
+	return -1
 }
 
 func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }

@@ -3,6 +3,8 @@ package loop
 import (
 	"testing"
 
+	"hystd/calib/internal"
+
 	"hystd/calib/correct"
 	"hystd/calib/synth"
 )
@@ -29,6 +31,7 @@ func BenchmarkChain1M(b *testing.B) {
 	opt := Options{Sources: []Source{{Name: "path", HScale: 1e-3}, {Name: "area", BScale: 2e-3}}}
 	b.ReportAllocs()
 	b.ResetTimer()
+	cpu0 := internal.CPUTime()
 	for range b.N {
 		copy(psi, psi0)
 		correct.HFromCurrent(h, cur, n1, l)
@@ -52,5 +55,6 @@ func BenchmarkChain1M(b *testing.B) {
 			b.Fatal(err)
 		}
 	}
+	b.ReportMetric((internal.CPUTime()-cpu0)/float64(b.N), "cpu-ns/op")
 	b.ReportMetric(float64(len(h)), "samples")
 }
