@@ -131,19 +131,20 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	sec := func(d time.Duration) float64 { return float64(d) / float64(time.Second) }
 
 	var preT, preP, postT, postP []float64
-	nSweep, missing := 0, 0
-	nSweep = len(raw) // capacity: the holds are short, one pass is cheaper than counting
-	t := make([]float64, 0, nSweep)
-	psi := make([]float64, 0, nSweep)
-	td := make([]time.Duration, 0, nSweep) // time stamps of the kept samples
+	// Capacity len(raw): the holds are short, and one pass is cheaper than
+	// counting the sweep samples first.
+	n := len(raw)
+	t := make([]float64, 0, n)
+	psi := make([]float64, 0, n)
+	td := make([]time.Duration, 0, n) // time stamps of the kept samples
 	var cur, probe, temp []float64
 	if hFrom == HFromCurrent {
-		cur = make([]float64, 0, nSweep)
+		cur = make([]float64, 0, n)
 	} else {
-		probe = make([]float64, 0, nSweep)
-		temp = make([]float64, 0, nSweep)
+		probe = make([]float64, 0, n)
+		temp = make([]float64, 0, n)
 	}
-	nSweep = 0
+	nSweep, missing := 0, 0
 	for i := range raw {
 		r := &raw[i] // a Sample is 80 bytes: do not copy it
 		switch r.Phase {
