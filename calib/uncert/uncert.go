@@ -68,3 +68,15 @@ func (b Budget) Summary(unit string) string {
 	}
 	return "u(k=1) " + unit + ": " + strings.Join(parts, ", ")
 }
+
+// En returns the normalized error |x1 − x2|/√(U1² + U2²) of two results with
+// expanded uncertainties U1, U2 (ISO 13528); |En| ≤ 1 means they agree
+// within their uncertainties, e.g. Hc and Br at the full and at half the
+// sweep rate in the quasi-static check. NaN when both U are zero.
+func En(x1, u1, x2, u2 float64) float64 {
+	d := math.Hypot(u1, u2)
+	if d == 0 {
+		return math.NaN()
+	}
+	return math.Abs(x1-x2) / d
+}

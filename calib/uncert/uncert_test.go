@@ -26,3 +26,14 @@ func TestCombine(t *testing.T) {
 		t.Errorf("summary %q", s)
 	}
 }
+
+// TestEn: ISO 13528 normalized error; 10 ± 3 against 14 ± 4 gives
+// |10 − 14|/√(9 + 16) = 0.8.
+func TestEn(t *testing.T) {
+	if e := En(10, 3, 14, 4); math.Abs(e-0.8) > 1e-15 {
+		t.Errorf("En = %v, want 0.8", e)
+	}
+	if !math.IsNaN(En(1, 0, 2, 0)) {
+		t.Error("En without uncertainties is not NaN")
+	}
+}
