@@ -145,8 +145,6 @@ class Plot {
     } else {
       xa = s.xfixed ? { lo: ext.xlo, hi: ext.xhi, step: niceStep(ext.xhi - ext.xlo, 6) } : niceAxis(ext.xlo, ext.xhi, 8);
       ya = niceAxis(ext.ylo, ext.yhi, 7);
-      if (s.xlim) { xa.lo = Math.max(xa.lo, s.xlim[0]); xa.hi = Math.min(xa.hi, s.xlim[1]); }
-      if (s.ylim) { ya.lo = Math.max(ya.lo, s.ylim[0]); ya.hi = Math.min(ya.hi, s.ylim[1]); }
     }
     const px = (x) => x0 + (x - xa.lo) / (xa.hi - xa.lo) * (x1 - x0);
     const py = (y) => y1 - (y - ya.lo) / (ya.hi - ya.lo) * (y1 - y0);
@@ -221,7 +219,7 @@ class Plot {
           stroke: MARK, fill: "none", "stroke-dasharray": "2 3", "clip-path": `url(#${clipId})` }));
       }
       svg.append(sv("circle", { cx: px(m.x), cy: py(m.y), r: 6, stroke: MARK, "stroke-width": 2, fill: "none", class: m.cls || "marker" }));
-      const t = sv("text", { x: px(m.x) + 10, y: py(m.y) - 12, fill: MARK, class: "marker-label" });
+      const t = sv("text", { x: px(m.x) + 12, y: py(m.y) - 14, fill: MARK, class: "marker-label" });
       t.textContent = m.label; svg.append(t);
     }
     // Legend.
