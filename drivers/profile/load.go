@@ -15,6 +15,9 @@ import (
 	"hystd/drivers/link"
 )
 
+// maxHaltSteps bounds the ramp-down of a supply from full range.
+const maxHaltSteps = 100000
+
 // Kind is the value of the top-level kind key of every profile.
 const Kind = "instrument-profile"
 
@@ -193,6 +196,14 @@ func validate(p Profile, ef errorf) error {
 			add("halt_slew_a_per_s", "required for a supply: a positive slew rate in A/s")
 		}
 		checkDur(add, "halt_period", p.HaltPeriod, true)
+		if per, err := time.ParseDuration(p.HaltPeriod); err == nil && per > 0 && p.HaltSlew > 0 {
+			if r := p.Operations[OpSetCurrent].Range; len(r) == 2 {
+				full := math.Max(math.Abs(r[0]), math.Abs(r[1]))
+				if steps := full / (p.HaltSlew * per.Seconds()); steps > maxHaltSteps {
+					add("halt_slew_a_per_s", "%g A/s in steps of %s needs %.0f steps to ramp down from %g A; at most %d", p.HaltSlew, p.HaltPeriod, steps, full, maxHaltSteps)
+				}
+			}
+		}
 		if len(p.SafeState) == 0 {
 			add("safe_state", "required for a supply: the commands that leave it at zero current, output off")
 		}

@@ -195,6 +195,12 @@ func (s *Supply) Halt(ctx context.Context) error {
 	} else {
 		errs = append(errs, err)
 	}
+	if lim := float64(s.Limits().MaxCurrent); math.Abs(i0) > lim {
+		// An implausible reading (beyond what the supply can be set to):
+		// ramp from the limit, which takes longest and is never too fast.
+		s.o.Log.Warn("halt: current reading beyond the supply's range; ramping from the range limit", "profile", s.p.Name, "read_a", i0, "limit_a", lim)
+		i0 = math.Copysign(lim, i0)
+	}
 	slew := s.haltSlew()
 	plan := []float64{}
 	if known {

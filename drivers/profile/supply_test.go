@@ -3,6 +3,7 @@ package profile
 import (
 	"context"
 	"errors"
+	"fmt"
 	"testing"
 	"time"
 
@@ -316,5 +317,21 @@ func TestReidentifyBeforeNextOperation(t *testing.T) {
 	rd, err := s.ReadCurrent(context.Background())
 	if err != nil || rd.Value != 0.5 {
 		t.Fatalf("got %v, %v", rd, err)
+	}
+}
+
+// A finite but absurd current reading must not make Halt plan billions of
+// steps: it ramps from the range limit instead (slate: ±40 A, 10 A/s, 50 ms
+// steps → 80 steps).
+func TestSupplyHaltImplausibleReading(t *testing.T) {
+	e := slateSupply.noErr
+	steps := []ex{{Send: "READ:AMPS?", Reply: "9.8E+37 A"}}
+	for k := 1; k <= 80; k++ {
+		steps = append(steps, ex{Send: "OUT:AMPS " + fmt.Sprintf("%+.4f", 40*(1-float64(k)/80))}, e)
+	}
+	steps = append(steps, ex{Send: "OUT:AMPS 0"}, e, ex{Send: "OUT:STATE 0"}, e, ex{Send: "REMOTE:LOCK 0"}, e)
+	r := newRig(t, slateSupply, steps...)
+	if err := r.supply(t).Halt(context.Background()); err != nil {
+		t.Fatal(err)
 	}
 }
