@@ -1,31 +1,78 @@
 package main
 
 import (
+	"errors"
+	"fmt"
+	"net"
+	"os"
+	"path/filepath"
+
 	"github.com/spf13/cobra"
 
+	"hystd/acq/api"
 	"hystd/acq/demo"
+	"hystd/acq/live"
+	"hystd/acq/store"
 )
 
 func init() { register(newDemoCmd) }
 
 func newDemoCmd() *cobra.Command {
-	var dataDir string
+	var dataDir, serveAddr string
 	cmd := &cobra.Command{
 		Use:   "demo",
 		Short: "Run the whole job once on the simulated bench",
 		Long: "demo starts a simulated bench on pseudo-terminals, runs the demo recipe on the demo ring\n" +
 			"specimen through the real serial drivers, stores the run in DIR/hystd.db, writes a plot\n" +
-			"DIR/RUN.svg and prints the figures.",
+			"DIR/RUN.svg and prints the figures.\n\n" +
+			"With --serve ADDR the review page and the read-only API are served on ADDR (for example\n" +
+			"127.0.0.1:8417) from the start, so the live sweep can be watched, and after the run until\n" +
+			"SIGINT or SIGTERM.",
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			_, err := demo.Run(cmd.Context(), demo.Options{
-				DataDir:  dataDir,
-				Out:      cmd.OutOrStdout(),
-				Software: version,
-			})
-			return err
+			ctx := cmd.Context()
+			out := cmd.OutOrStdout()
+			if serveAddr == "" {
+				_, err := demo.Run(ctx, demo.Options{DataDir: dataDir, Out: out, Software: version})
+				return err
+			}
+			if err := os.MkdirAll(dataDir, 0o755); err != nil {
+				return err
+			}
+			st, err := store.Open(ctx, filepath.Join(dataDir, "hystd.db"))
+			if err != nil {
+				return err
+			}
+			defer st.Close()
+			hub := live.NewHub(0)
+			h, err := api.New(api.Options{Reader: st, Live: hub, Version: version})
+			if err != nil {
+				return err
+			}
+			ln, err := net.Listen("tcp", serveAddr)
+			if err != nil {
+				return fmt.Errorf("--serve: %w", err)
+			}
+			done := make(chan error, 1)
+			go func() { done <- api.ServeListener(ctx, ln, h) }()
+			fmt.Fprintf(out, "review page: http://%s/ (read-only)\n", ln.Addr())
+			_, runErr := demo.Run(ctx, demo.Options{DataDir: dataDir, Out: out, Software: version, Store: st, Live: hub})
+			if runErr != nil && ctx.Err() == nil {
+				fmt.Fprintln(cmd.ErrOrStderr(), "hystd: demo:", runErr)
+			}
+			if ctx.Err() == nil {
+				fmt.Fprintf(out, "serving http://%s/ until SIGINT or SIGTERM\n", ln.Addr())
+			}
+			if err := <-done; err != nil {
+				return errors.Join(runErr, err)
+			}
+			if ctx.Err() != nil {
+				return nil // stopped by a signal after (or during) the demo: a clean stop
+			}
+			return runErr
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder for hystd.db and the plots")
+	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8417) until SIGINT/SIGTERM")
 	return cmd
 }
