@@ -145,6 +145,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 		temp = make([]float64, 0, n)
 	}
 	nSweep, missing := 0, 0
+	kH := float64(s.N1) / float64(s.PathLength)
 	for i := range raw {
 		r := &raw[i] // a Sample is 80 bytes: do not copy it
 		switch r.Phase {
@@ -168,7 +169,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 			}
 			t = append(t, sec(r.T))
 			if hFrom == HFromCurrent {
-				cur = append(cur, r.I)
+				cur = append(cur, kH*r.I) // H = N1·I/l_m, computed here to save a pass
 			} else {
 				probe = append(probe, r.BProbe)
 				temp = append(temp, r.TempC)
@@ -204,7 +205,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	// H.
 	var h []float64
 	if hFrom == HFromCurrent {
-		h = correct.HFromCurrent(cur, cur, s.N1, s.PathLength)
+		h = cur // H = N1·I/l_m (correct.HFromCurrent) applied while gathering
 	} else {
 		h = correct.HFromProbe(probe, probe, temp, s.Probe)
 	}

@@ -23,8 +23,9 @@ const (
 )
 
 // windowSamples is the half-width of a fit window in samples for a branch
-// of n samples: n/400, at least 4.
-func windowSamples(n int) int { return max(6, n/200) }
+// of n samples: n/200, at least 6 and at most 500 (1000 samples average
+// the noise well enough; more only widen the piece the parabolas follow).
+func windowSamples(n int) int { return min(500, max(6, n/200)) }
 
 type local struct {
 	h, b   []float64
