@@ -6,6 +6,7 @@ import (
 	"sort"
 	"testing"
 
+	"hystd/configs"
 	"hystd/drivers/scpi"
 )
 
@@ -58,6 +59,27 @@ func FuzzParseReply(f *testing.F) {
 		}
 		if len(o.Range) == 2 && (v < o.Range[0] || v > o.Range[1]) {
 			t.Fatalf("%s %q: %v outside %v", o.Query, reply, v, o.Range)
+		}
+	})
+}
+
+// FuzzParseProfile: any YAML gives a profile or an error, never a panic,
+// and an accepted profile passes Validate again.
+func FuzzParseProfile(f *testing.F) {
+	for _, n := range Names() {
+		data, err := configs.Samples.ReadFile("instruments/" + n + ".yaml")
+		if err != nil {
+			f.Fatal(err)
+		}
+		f.Add(data)
+	}
+	f.Fuzz(func(t *testing.T, data []byte) {
+		p, err := Parse("fuzz.yaml", data)
+		if err != nil {
+			return
+		}
+		if err := Validate(p); err != nil {
+			t.Fatalf("accepted profile fails Validate: %v", err)
 		}
 	})
 }
