@@ -259,6 +259,12 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 			}
 			corr = append(corr, record.Correction{Name: "closure", Size: eps, Unit: "T",
 				Note: fmt.Sprintf("ε = B(t_b) − B(t_a) between tips at %.4g s and %.4g s, removed linearly in time", ta.T, tb.T)})
+			if ue := math.Hypot(ta.UB, tb.UB); ue > 0 {
+				// ε is the difference of two tip means: its uncertainty tilts B
+				// by u(ε)·(t − t_a)/(t_b − t_a).
+				sources = append(sources, loop.Source{Name: "closure", BT1: ue / (tb.T - ta.T), T0: ta.T,
+					Note: "Type A: the tips' B means that give ε"})
+			}
 			if havePre && havePost && post.T > pre.T {
 				// The baseline's rate slope is uncertain by δ; after closure
 				// through t_a and t_b the residual is δ/(2T)·(t − t_a)(t − t_b).

@@ -51,6 +51,10 @@ type Tip struct {
 	T     float64
 	H, B  float64
 	N     int // samples averaged
+	// UB is the standard uncertainty of B as the mean of the N samples
+	// (their standard deviation over √N); 0 for a single sample.
+	UB float64
+	b2 float64 // Σ B², while accumulating
 }
 
 // Shape is the branch structure of one recorded loop.
@@ -266,9 +270,15 @@ func tipAt(t, h, b []float64, i int, top bool, band float64) Tip {
 	for j := i + 1; j < len(h) && in(j); j++ {
 		tp.add(t, h, b, j)
 	}
-	tp.H /= float64(tp.N)
-	tp.B /= float64(tp.N)
-	tp.T /= float64(tp.N)
+	n := float64(tp.N)
+	if tp.N > 1 {
+		v := (tp.b2 - tp.B*tp.B/n) / (n - 1)
+		tp.UB = math.Sqrt(math.Max(v, 0) / n)
+	}
+	tp.H /= n
+	tp.B /= n
+	tp.T /= n
+	tp.b2 = 0
 	return tp
 }
 
@@ -276,6 +286,7 @@ func (tp *Tip) add(t, h, b []float64, j int) {
 	tp.N++
 	tp.H += h[j]
 	tp.B += b[j]
+	tp.b2 += b[j] * b[j]
 	if t != nil {
 		tp.T += t[j]
 	} else {
