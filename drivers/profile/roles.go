@@ -43,7 +43,9 @@ func attach(ctx context.Context, role string, p Profile, port Port, o Options) (
 }
 
 // NewSupply identifies the supply on port, sends its init sequence and
-// returns it. The Supply owns port and closes it in Close.
+// returns it. The Supply owns port and closes it in Close; when NewSupply
+// fails, the port stays the caller's to close. p is validated again (a
+// profile built in code gets the same checks as one loaded from a file).
 func NewSupply(ctx context.Context, p Profile, port Port, o Options) (*Supply, error) {
 	d, err := attach(ctx, RoleSupply, p, port, o)
 	if err != nil {
