@@ -26,6 +26,7 @@ import (
 	"os"
 	"strconv"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -77,6 +78,7 @@ type Options struct {
 	MaxBody        int64         // request body limit in bytes; 0: 1 MiB
 	RequestTimeout time.Duration // per non-streaming request; 0: 15 s
 	Heartbeat      time.Duration // event-stream keep-alive comment period; 0: 15 s
+	MaxStreams     int           // open event streams at once; more get 503; 0: 64
 	Version        string        // reported by /healthz
 	Logger         *slog.Logger  // nil: discard
 }
@@ -91,6 +93,8 @@ type server struct {
 	mux      *http.ServeMux
 	requests *prometheus.CounterVec
 	gather   prometheus.Gatherer
+	streams  atomic.Int64                                   // open event streams
+	ticker   func(time.Duration) (<-chan time.Time, func()) // heartbeat clock; tests inject one
 }
 
 // New builds the handler. It fails when Reader is missing or a token file
@@ -109,7 +113,10 @@ func New(o Options) (http.Handler, error) {
 	if o.Heartbeat <= 0 {
 		o.Heartbeat = 15 * time.Second
 	}
-	s := &server{o: o, log: o.Logger, mux: http.NewServeMux()}
+	if o.MaxStreams <= 0 {
+		o.MaxStreams = 64
+	}
+	s := &server{o: o, log: o.Logger, mux: http.NewServeMux(), ticker: realTicker}
 	if s.log == nil {
 		s.log = slog.New(slog.DiscardHandler)
 	}

@@ -582,3 +582,106 @@ func BenchmarkLoopJSON100k(b *testing.B) {
 		b.SetBytes(int64(rec.Body.Len()))
 	}
 }
+
+func TestLoopMaxPoints(t *testing.T) {
+	e := newEnv(t, Options{})
+	tests := []struct {
+		q          string
+		code       int
+		n, stride  int
+		wantPoints int
+	}{
+		{"", 200, 401, 0, 401},
+		{"?max_points=1000", 200, 401, 0, 401},
+		{"?max_points=101", 200, 401, 4, 101}, // 0, 4, …, 400
+		{"?max_points=100", 200, 401, 5, 81},  // 0, 5, …, 400
+		{"?max_points=2", 200, 401, 400, 2},   // first and last
+		{"?max_points=1", 400, 0, 0, 0},
+		{"?max_points=lots", 400, 0, 0, 0},
+	}
+	for _, tc := range tests {
+		code, m, _ := e.do(t, "GET", "/api/v1/runs/RUN-A/loops/1"+tc.q, "", "", nil)
+		if code != tc.code {
+			t.Errorf("%s: %d %v", tc.q, code, m)
+			continue
+		}
+		if code != 200 {
+			continue
+		}
+		l := m["loop"].(map[string]any)
+		hs := l["points"].(map[string]any)["h_a_m"].([]any)
+		stride, _ := l["points_stride"].(float64)
+		if int(l["n_points"].(float64)) != tc.n || int(stride) != tc.stride && !(tc.stride == 0 && stride == 1) || len(hs) != tc.wantPoints {
+			t.Errorf("%s: n_points %v stride %v, %d points; want %d, %d, %d", tc.q, l["n_points"], stride, len(hs), tc.n, tc.stride, tc.wantPoints)
+		}
+		if last := hs[len(hs)-1].(float64); last != 6000 { // the loop ends at +Hmax
+			t.Errorf("%s: last H %v, want 6000", tc.q, last)
+		}
+	}
+}
+
+// fakeTicker is a heartbeat clock the test fires by hand.
+type fakeTicker struct{ c chan time.Time }
+
+func (f *fakeTicker) new(time.Duration) (<-chan time.Time, func()) { return f.c, func() {} }
+
+func TestEventStreamHeartbeatAndLimit(t *testing.T) {
+	ft := &fakeTicker{c: make(chan time.Time)}
+	h, err := New(Options{Reader: newMemReader(), Live: live.NewHub(4), MaxStreams: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	h.(*server).ticker = ft.new
+	srv := httptest.NewServer(h)
+	defer srv.Close()
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	req, _ := http.NewRequestWithContext(ctx, "GET", srv.URL+"/api/v1/events", nil)
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	rd := bufio.NewReader(resp.Body)
+	for {
+		line, err := rd.ReadString('\n')
+		if err != nil {
+			t.Fatal(err)
+		}
+		if strings.HasPrefix(line, "data: ") { // end of hello
+			break
+		}
+	}
+	// A second stream over the limit is refused while the first is open.
+	resp2, err := http.Get(srv.URL + "/api/v1/events")
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp2.Body.Close()
+	if resp2.StatusCode != 503 {
+		t.Errorf("second stream: %d, want 503", resp2.StatusCode)
+	}
+	ft.c <- time.Time{}
+	for {
+		line, err := rd.ReadString('\n')
+		if err != nil {
+			t.Fatal(err)
+		}
+		if line == ": keep-alive\n" {
+			break
+		}
+	}
+}
+
+func TestThinKeepsLast(t *testing.T) {
+	ps := make([]record.Point, 10)
+	for i := range ps {
+		ps[i].H = float64(i)
+	}
+	for _, tc := range []struct{ stride, n int }{{3, 4}, {4, 4}, {9, 2}, {1, 10}} {
+		got := thin(ps, tc.stride)
+		if len(got) != tc.n || got[len(got)-1].H != 9 || got[0].H != 0 {
+			t.Errorf("stride %d: %v", tc.stride, got)
+		}
+	}
+}

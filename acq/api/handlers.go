@@ -161,12 +161,38 @@ func (s *server) getLoop(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, "raw: %q: want 1 or 0", v)
 		return
 	}
+	maxPts := 0
+	if v := r.URL.Query().Get("max_points"); v != "" {
+		if maxPts, err = strconv.Atoi(v); err != nil || maxPts < 2 {
+			writeError(w, http.StatusBadRequest, "max_points: %q: want a whole number from 2", v)
+			return
+		}
+	}
 	l, err := s.o.Reader.Loop(r.Context(), id, n)
 	if err != nil {
 		s.fail(w, r, err)
 		return
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"loop": toLoop(l, true, raw)})
+	stride, total := 1, len(l.Points)
+	if maxPts > 0 && len(l.Points) > maxPts {
+		stride = (len(l.Points) - 1 + maxPts - 2) / (maxPts - 1) // ⌈(n−1)/(max−1)⌉
+		l.Points = thin(l.Points, stride)
+	}
+	lj := toLoop(l, true, raw)
+	lj.Stride, lj.NPoints = stride, total
+	writeJSON(w, http.StatusOK, map[string]any{"loop": lj})
+}
+
+// thin keeps every stride-th point and the last one.
+func thin(ps []record.Point, stride int) []record.Point {
+	out := make([]record.Point, 0, len(ps)/stride+2)
+	for i := 0; i < len(ps); i += stride {
+		out = append(out, ps[i])
+	}
+	if (len(ps)-1)%stride != 0 {
+		out = append(out, ps[len(ps)-1])
+	}
+	return out
 }
 
 func (s *server) trend(w http.ResponseWriter, r *http.Request) {

@@ -107,7 +107,10 @@ type loopJSON struct {
 	Started     stamp            `json:"started"`
 	Figures     []figureJSON     `json:"figures"`
 	Corrections []correctionJSON `json:"corrections"`
-	NPoints     int              `json:"n_points"`
+	NPoints     int              `json:"n_points"` // points stored
+	// Stride is 1 when points holds every stored point, k when only every
+	// k-th (and the last) was sent because of ?max_points.
+	Stride int `json:"points_stride,omitempty"`
 	// Points are columns (t in s, H in A/m, B and J in T, branch) so that a
 	// 100 k-point loop stays compact.
 	Points *pointsJSON `json:"points,omitempty"`

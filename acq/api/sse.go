@@ -13,6 +13,12 @@ import (
 // a JSON "data:" line per event, a comment line every Heartbeat, and a
 // first "event: hello". ?run=ID keeps only that run's events.
 func (s *server) events(w http.ResponseWriter, r *http.Request) {
+	if n := s.streams.Add(1); n > int64(s.o.MaxStreams) {
+		s.streams.Add(-1)
+		writeError(w, http.StatusServiceUnavailable, "too many open event streams (%d); close one and retry", s.o.MaxStreams)
+		return
+	}
+	defer s.streams.Add(-1)
 	only := r.URL.Query().Get("run")
 	rc := http.NewResponseController(w)
 	// The server's write timeout must not cut a stream that lives for hours.
@@ -31,13 +37,13 @@ func (s *server) events(w http.ResponseWriter, r *http.Request) {
 		ch, cancel = s.o.Live.Subscribe()
 		defer cancel()
 	}
-	tick := time.NewTicker(s.o.Heartbeat)
-	defer tick.Stop()
+	tick, stop := s.ticker(s.o.Heartbeat)
+	defer stop()
 	for {
 		select {
 		case <-r.Context().Done():
 			return
-		case <-tick.C:
+		case <-tick:
 			if _, err := fmt.Fprint(w, ": keep-alive\n\n"); err != nil {
 				return
 			}
@@ -61,4 +67,10 @@ func (s *server) events(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
+}
+
+// realTicker is the heartbeat clock outside tests.
+func realTicker(d time.Duration) (<-chan time.Time, func()) {
+	t := time.NewTicker(d)
+	return t.C, t.Stop
 }

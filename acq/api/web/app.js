@@ -409,7 +409,7 @@ async function selectRun(id) {
 async function selectLoop(n) {
   const r = state.run.run;
   try {
-    const data = await api(`/api/v1/runs/${encodeURIComponent(r.id)}/loops/${n}`);
+    const data = await api(`/api/v1/runs/${encodeURIComponent(r.id)}/loops/${n}?max_points=200000`);
     state.loop = data.loop; state.loopN = n;
   } catch (e) { $("#loop-plot").textContent = e.message; return; }
   for (const b of document.querySelectorAll("#loop-picker button")) b.classList.toggle("on", +b.dataset.n === n);
@@ -424,6 +424,7 @@ function drawLoop(keepZoom) {
   const bar = $("#loop-toolbar");
   const spec = loopSpec([state.loop], segValue(bar.querySelector('[data-name="ordinate"]')),
     segValue(bar.querySelector('[data-name="units"]')), $("#q2-toggle").checked);
+  if (state.loop.points_stride > 1) spec.series[0].label += ` (every ${state.loop.points_stride}th of ${state.loop.n_points} points)`;
   loopPlot.plot.set(spec, keepZoom);
   const q = new URLSearchParams({ y: segValue(bar.querySelector('[data-name="ordinate"]')), units: segValue(bar.querySelector('[data-name="units"]')) });
   if ($("#q2-toggle").checked) q.set("quadrant", "2");
