@@ -707,6 +707,7 @@ async function init() {
     state.key = $("#key-input").value.trim();
     if (state.key) sessionStorage.setItem("hystd.key", state.key); else sessionStorage.removeItem("hystd.key");
     keyState();
+    loadRuns(); // a daemon that protects reads answers now
   });
   for (const b of document.querySelectorAll("#tabs .tab")) b.addEventListener("click", () => showView(b.dataset.view));
   $("#filter-form").addEventListener("submit", (ev) => { ev.preventDefault(); loadRuns(); });
