@@ -184,14 +184,24 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 	for {
 		data, rest, err := ParseBlock(c.buf, c.o.ReadTerm)
 		if err == nil {
+			definite := c.buf[1] != '0' // ParseBlock succeeded: the header is there
 			out := bytes.Clone(data)
 			c.buf = append(c.buf[:0], rest...)
-			if len(c.buf) > 0 && len(c.buf) < len(c.o.ReadTerm) && strings.HasPrefix(c.o.ReadTerm, string(c.buf)) {
-				if err := c.fill(ctx); err != nil {
-					return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+			if definite {
+				// The response terminator follows the block; wait for it so
+				// that it does not answer the next query. Without one (a
+				// timeout), keep the data and discard late bytes next time.
+				for len(c.buf) < len(c.o.ReadTerm) && strings.HasPrefix(c.o.ReadTerm, string(c.buf)) {
+					if err := c.fill(ctx); err != nil {
+						if errors.Is(c.asTimeout(parent, err), link.ErrTimeout) {
+							c.stale = true
+							break
+						}
+						return nil, fmt.Errorf("scpi %q: %w", cmd, err)
+					}
 				}
+				c.buf = bytes.TrimPrefix(c.buf, []byte(c.o.ReadTerm))
 			}
-			c.buf = bytes.TrimPrefix(c.buf, []byte(c.o.ReadTerm))
 			c.o.Log.Debug("scpi block", "instr", c.o.Name, "cmd", cmd, "bytes", len(out))
 			return out, nil
 		}

@@ -257,3 +257,46 @@ func TestBabblingInstrumentAfterTimeout(t *testing.T) {
 		t.Fatalf("got %v", err)
 	}
 }
+
+// A definite block whose terminator never comes: the data is returned and
+// the next query is not confused; a terminator arriving in a later read
+// chunk is consumed with the block.
+func TestBlockTerminator(t *testing.T) {
+	ctx := context.Background()
+	c := client(t,
+		ex{Send: "TRAC:DATA?", Raw: []byte("#15hello")},
+		ex{Send: "*OPC?", Reply: "1"},
+	)
+	got, err := c.QueryBlock(ctx, "TRAC:DATA?")
+	if err != nil || string(got) != "hello" {
+		t.Fatalf("block %q, %v", got, err)
+	}
+	if err := c.WaitComplete(ctx); err != nil {
+		t.Fatalf("next query after a block without terminator: %v", err)
+	}
+}
+
+// chunked delivers a fixed byte sequence two bytes per Read.
+type chunked struct{ data []byte }
+
+func (s *chunked) Write(ctx context.Context, p []byte) (int, error) { return len(p), nil }
+func (s *chunked) Read(ctx context.Context, p []byte) (int, error) {
+	if len(s.data) == 0 {
+		return 0, scpitest.Timeout
+	}
+	n := copy(p[:min(2, len(p))], s.data)
+	s.data = s.data[n:]
+	return n, nil
+}
+
+func TestBlockTerminatorInLaterChunk(t *testing.T) {
+	s := &chunked{data: []byte("#13abc\r\n7\r\n")}
+	c := New(s, Options{ReadTerm: "\r\n"})
+	got, err := c.QueryBlock(context.Background(), "Q?")
+	if err != nil || string(got) != "abc" {
+		t.Fatalf("block %q, %v", got, err)
+	}
+	if v, err := c.Query(context.Background(), "X?"); err != nil || v != "7" {
+		t.Fatalf("next reply %q, %v", v, err)
+	}
+}
