@@ -240,6 +240,7 @@ func validate(p Profile, ef errorf) error {
 			validateOp(add, "operations."+n, p.Operations[n], r)
 		}
 	}
+	sort.SliceStable(es, func(i, j int) bool { return es[i].Line < es[j].Line })
 	return es.Err()
 }
 
