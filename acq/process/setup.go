@@ -70,7 +70,7 @@ func SetupFrom(fx config.Fixture, sp config.Specimen) (Setup, []string, error) {
 		return Setup{}, nil, fmt.Errorf("%s: shape: %q: want ring, epstein, strip or direct", spec, sp.Shape)
 	}
 	if err != nil {
-		return Setup{}, nil, fmt.Errorf("%s: %s: %w", spec, sp.Shape, err)
+		return Setup{}, nil, fmt.Errorf("%s: %w", spec, err) // geometry errors begin with the shape block
 	}
 	s.PathLength, s.Area = g.PathLength, g.Area
 	s.RelUPath, s.RelUArea = g.RelUPath, g.RelUArea
