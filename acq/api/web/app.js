@@ -576,7 +576,9 @@ function liveEvent(kind, ev) {
   } else if (kind === "sample") {
     const n = ev.loop || 0;
     if (!L.loops[n]) L.loops[n] = { xs: [], ys: [] };
-    L.loops[n].xs.push(ev.h_a_m ?? NaN); L.loops[n].ys.push(ev.b_t ?? NaN);
+    const lp = L.loops[n];
+    if (lp.xs.length >= 100000) { lp.xs.splice(0, 10000); lp.ys.splice(0, 10000); } // bounded memory on long runs
+    lp.xs.push(ev.h_a_m ?? NaN); lp.ys.push(ev.b_t ?? NaN);
     L.count++;
     $("#live-count").textContent = L.count;
     if (!liveDrawPending) { liveDrawPending = true; requestAnimationFrame(drawLive); }
