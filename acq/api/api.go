@@ -133,7 +133,10 @@ func New(o Options) (http.Handler, error) {
 		Name: "hystd_http_requests_total",
 		Help: "HTTP requests answered by the API, by route and status code.",
 	}, []string{"route", "code"})
-	reg.MustRegister(s.requests)
+	reg.MustRegister(s.requests, prometheus.NewGaugeFunc(prometheus.GaugeOpts{
+		Name: "hystd_http_event_streams",
+		Help: "Event streams (GET /api/v1/events) open now.",
+	}, func() float64 { return float64(s.streams.Load()) }))
 	s.gather = reg
 	if o.Gatherer != nil {
 		s.gather = prometheus.Gatherers{o.Gatherer, reg}

@@ -475,6 +475,9 @@ func TestPageAndHeaders(t *testing.T) {
 	}
 	b, _ = io.ReadAll(resp.Body)
 	resp.Body.Close()
+	if !strings.Contains(string(b), "hystd_http_event_streams 0") {
+		t.Errorf("metrics lack the event stream gauge")
+	}
 	if !strings.Contains(string(b), `hystd_http_requests_total{code="200",route="/healthz"} 1`) {
 		t.Errorf("metrics lack the healthz request count:\n%s", b)
 	}

@@ -727,6 +727,20 @@ async function init() {
   $("#s-confirm").addEventListener("change", () => { $("#start-btn").disabled = !$("#s-confirm").checked; });
   $("#start-form").addEventListener("submit", startRecipe);
   armAbort($("#live-abort"), $("#live-abort-msg"), () => state.live.run);
+  for (const id of ["#dl-svg", "#dl-png"]) {
+    // With a key, fetch with the header (a daemon may protect reads) and hand over a file.
+    $(id).addEventListener("click", async (ev) => {
+      if (!state.key || !state.loop) return;
+      ev.preventDefault();
+      const a = ev.currentTarget;
+      const resp = await fetch(a.href, { headers: { Authorization: "Bearer " + state.key } });
+      if (!resp.ok) { a.title = "HTTP " + resp.status; return; }
+      const url = URL.createObjectURL(await resp.blob());
+      const tmp = el("a", { href: url, download: `${state.loop.run_id}-loop${state.loop.n}.${id === "#dl-svg" ? "svg" : "png"}` });
+      document.body.append(tmp); tmp.click(); tmp.remove();
+      setTimeout(() => URL.revokeObjectURL(url), 10000);
+    });
+  }
   document.addEventListener("click", (ev) => {
     // Picking a run also fills the trend form with its specimen.
     const li = ev.target.closest("#runs-list li");
