@@ -537,4 +537,22 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 	if label := js[string](b, `document.querySelector('#loop-plot .marker-label').textContent`); !strings.Contains(label, "(BH)max 40.2 MGOe") {
 		t.Errorf("CGS marker label %q, want (BH)max 40.2 MGOe", label)
 	}
+	// The marker's position read back through the CGS axis: H = −HcB/2 =
+	// −492.6 kA/m = −6.190 kOe (1 Oe = 79.577 4715 A/m, NBS SP 696), B =
+	// 0.65 T = 6.5 kG.
+	type pos struct {
+		CX, CY                   float64
+		Area, Xlo, Xhi, Ylo, Yhi string
+		Xlabel, Ylabel           string
+	}
+	p := js[pos](b, `(() => { const s = document.querySelector('#loop-plot svg'), c = s.querySelector('circle.bhmax');
+	  return {CX: +c.getAttribute('cx'), CY: +c.getAttribute('cy'), Area: s.dataset.area, Xlo: s.dataset.xlo, Xhi: s.dataset.xhi,
+	    Ylo: s.dataset.ylo, Yhi: s.dataset.yhi, Xlabel: s.querySelector('.xlabel').textContent, Ylabel: s.querySelector('.ylabel').textContent}; })()`)
+	f := func(s string) float64 { v, _ := strconv.ParseFloat(s, 64); return v }
+	area := strings.Split(p.Area, ",")
+	hk := f(p.Xlo) + (p.CX-f(area[0]))/(f(area[1])-f(area[0]))*(f(p.Xhi)-f(p.Xlo))
+	bk := f(p.Ylo) + (f(area[3])-p.CY)/(f(area[3])-f(area[2]))*(f(p.Yhi)-f(p.Ylo))
+	if p.Xlabel != "H (kOe)" || !strings.Contains(p.Ylabel, "(kG)") || math.Abs(hk+6.190) > 0.005 || math.Abs(bk-6.5) > 0.005 {
+		t.Errorf("CGS marker at %.4f (%s), %.4f (%s); want −6.190 kOe, 6.5 kG", hk, p.Xlabel, bk, p.Ylabel)
+	}
 }
