@@ -427,6 +427,17 @@ func (w *Writer) AddEvent(ctx context.Context, e record.Event) error {
 	return nil
 }
 
+// RunList returns a copy of the stored runs.
+func (w *Writer) RunList() []record.Run {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	out := make([]record.Run, 0, len(w.Runs))
+	for _, r := range w.Runs {
+		out = append(out, r)
+	}
+	return out
+}
+
 // LoopCount returns the number of loops added.
 func (w *Writer) LoopCount() int {
 	w.mu.Lock()
