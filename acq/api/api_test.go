@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"errors"
 	"io"
+	"math"
 	"net"
 	"net/http"
 	"net/http/httptest"
@@ -15,6 +16,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
 )
@@ -685,6 +687,36 @@ func TestThinKeepsLast(t *testing.T) {
 		got := thin(ps, tc.stride)
 		if len(got) != tc.n || got[len(got)-1].H != 9 || got[0].H != 0 {
 			t.Errorf("stride %d: %v", tc.stride, got)
+		}
+	}
+}
+
+type listingRunner struct{ *fakeRunner }
+
+func (listingRunner) Status() []daemon.FixtureStatus {
+	return []daemon.FixtureStatus{{Name: "ring-bench", ActiveRun: "RUN-X"}}
+}
+
+func TestInfo(t *testing.T) {
+	for _, tc := range []struct {
+		name     string
+		runner   Runner
+		fixtures int
+	}{{"plain runner", nil, 0}, {"daemon-like runner", listingRunner{&fakeRunner{}}, 1}} {
+		e := newEnv(t, Options{Runner: tc.runner, Token: testToken})
+		code, m, _ := e.do(t, "GET", "/api/v1/info", "", "", nil)
+		if code != 200 {
+			t.Fatal(code, m)
+		}
+		if fx := m["fixtures"].([]any); len(fx) != tc.fixtures {
+			t.Errorf("%s: fixtures %v", tc.name, fx)
+		}
+		// CGS factors from calib/units: 1 Oe = 79.577 4715 A/m (NBS SP 696).
+		if oe := m["cgs"].(map[string]any)["oe_per_a_m"].(float64); math.Abs(79.5774715*oe-1) > 1e-9 {
+			t.Errorf("oe_per_a_m %v", oe)
+		}
+		if m["can_submit"] != true {
+			t.Errorf("%s: can_submit %v", tc.name, m["can_submit"])
 		}
 	}
 }

@@ -360,6 +360,9 @@ func TestBrowserReview(t *testing.T) {
 	b := newBrowser(t, chromium)
 	b.do(chromedp.Navigate(bs.base + "/"))
 	b.wait("page ready", `document.body.dataset.ready === "1"`, 20*time.Second)
+	if v := js[string](b, `document.querySelector('#s-fixture').value`); v != bs.fixture {
+		t.Errorf("start form fixture %q, want the daemon's only fixture %q", v, bs.fixture)
+	}
 
 	// 1. The finished runs appear in the runs list.
 	for _, id := range ids {

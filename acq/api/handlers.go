@@ -31,7 +31,12 @@ func (s *server) health(w http.ResponseWriter, r *http.Request) {
 // one definition in calib/units, so the page converts nothing on its own.
 func (s *server) info(w http.ResponseWriter, r *http.Request) {
 	oe, g, mgoe := plot.CGSFactors()
+	fixtures := []daemon.FixtureStatus{}
+	if st, ok := s.o.Runner.(fixtureLister); ok {
+		fixtures = append(fixtures, st.Status()...)
+	}
 	writeJSON(w, http.StatusOK, map[string]any{
+		"fixtures":      fixtures,
 		"version":       s.o.Version,
 		"can_submit":    s.o.Runner != nil && s.token != nil,
 		"token_set":     s.token != nil,
@@ -42,6 +47,11 @@ func (s *server) info(w http.ResponseWriter, r *http.Request) {
 			"mgoe_per_j_m3": mgoe,
 		},
 	})
+}
+
+// fixtureLister is a Runner that can list its fixtures (the daemon does).
+type fixtureLister interface {
+	Status() []daemon.FixtureStatus
 }
 
 // parseTime accepts RFC 3339 or a date YYYY-MM-DD (UTC). For an end bound a

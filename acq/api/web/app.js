@@ -701,6 +701,13 @@ async function init() {
   comparePlot.plot.set({ series: [], empty: "no loop added yet" });
   livePlot.plot.set({ series: [], empty: "no sweep running since this page opened" });
   try { state.info = await api("/api/v1/info"); } catch (e) { /* defaults */ }
+  const fx = state.info.fixtures || [];
+  for (const f of fx) $("#fixture-names").append(el("option", { value: f.name }));
+  if (fx.length === 1) $("#s-fixture").value = fx[0].name;
+  $("#s-fixtures-note").textContent = fx.length ? "fixtures: " + fx.map(f => f.name + (f.active_run ? " (busy)" : "")).join(", ") : "";
+  // A run already active when the page opens can be followed and aborted.
+  const busy = fx.find(f => f.active_run);
+  if (busy) liveEvent("state", { run_id: busy.active_run, state: "running" });
   $("#key-input").value = state.key;
   const keyState = () => { $("#key-state").textContent = state.key ? "key kept" : (state.info.token_set ? "" : "this daemon accepts no changes"); };
   keyState();
