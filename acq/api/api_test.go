@@ -6,12 +6,14 @@ import (
 	"encoding/json"
 	"errors"
 	"io"
+	"io/fs"
 	"math"
 	"net"
 	"net/http"
 	"net/http/httptest"
 	"os"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -717,6 +719,27 @@ func TestInfo(t *testing.T) {
 		}
 		if m["can_submit"] != true {
 			t.Errorf("%s: can_submit %v", tc.name, m["can_submit"])
+		}
+	}
+}
+
+func TestPageNeedsNoNetwork(t *testing.T) {
+	// Every file of the page is embedded; none refers to another host (the
+	// SVG namespace is a name, never fetched).
+	re := regexp.MustCompile(`(?i)(https?:)?//[a-z0-9.-]+\.[a-z]{2,}`)
+	entries, err := fs.ReadDir(webFS, "web")
+	if err != nil || len(entries) < 3 {
+		t.Fatalf("embedded page: %v, %d files", err, len(entries))
+	}
+	for _, e := range entries {
+		b, err := fs.ReadFile(webFS, "web/"+e.Name())
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, m := range re.FindAllString(string(b), -1) {
+			if m != "http://www.w3.org" {
+				t.Errorf("%s refers to %s", e.Name(), m)
+			}
 		}
 	}
 }
