@@ -24,6 +24,7 @@ import (
 
 	"hystd/acq/api"
 	"hystd/acq/daemon"
+	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/drivers/sim"
 )
@@ -558,4 +559,32 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 	if p.Xlabel != "H (kOe)" || !strings.Contains(p.Ylabel, "(kG)") || math.Abs(hk+6.190) > 0.005 || math.Abs(bk-6.5) > 0.005 {
 		t.Errorf("CGS marker at %.4f (%s), %.4f (%s); want −6.190 kOe, 6.5 kG", hk, p.Xlabel, bk, p.Ylabel)
 	}
+}
+
+func TestBrowserProtectedReads(t *testing.T) {
+	// A daemon that protects reads: the page says why it shows nothing,
+	// and with the key it lists runs and opens the event stream (sent with
+	// the Authorization header, not in the URL).
+	if testing.Short() {
+		t.Skip("browser test: skipped with -short")
+	}
+	chromium := findChromium(t)
+	rd := api.NewMemReader()
+	api.Put(rd, record.Run{ID: "RUN-P", Recipe: "r", Fixture: "fx", Specimen: "S-1", Material: "m", State: record.Finished,
+		Started: time.Date(2026, 11, 30, 9, 0, 0, 0, time.UTC)})
+	h, err := api.New(api.Options{Reader: rd, Token: browserToken, ProtectReads: true, Live: live.NewHub(4)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewServer(h)
+	t.Cleanup(srv.Close)
+	b := newBrowser(t, chromium)
+	b.do(chromedp.Navigate(srv.URL + "/"))
+	b.wait("refusal shown", `document.querySelector('#runs-msg').textContent.includes('bearer token')`, 20*time.Second)
+	if n := js[int](b, `document.querySelectorAll('#runs-list li').length`); n != 0 {
+		t.Errorf("%d runs listed without the key", n)
+	}
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#key-input').value = %q; document.querySelector('#key-save').click()`, browserToken)))
+	b.wait("runs with the key", `!!document.querySelector('#runs-list li[data-run-id="RUN-P"]')`, 10*time.Second)
+	b.wait("event stream with the key", `document.querySelector('#stream-state').textContent === 'stream: live'`, 30*time.Second)
 }
