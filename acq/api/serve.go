@@ -10,8 +10,9 @@ import (
 	"hystd/acq/daemon"
 )
 
-// DefaultAddr is where the API listens unless configured: loopback only.
-const DefaultAddr = "127.0.0.1:8417"
+// DefaultAddr is where the API listens unless configured: loopback only,
+// the same default as the daemon's http.addr.
+const DefaultAddr = daemon.DefaultAddr
 
 // Serve listens on addr ("" means DefaultAddr) and serves h until ctx is
 // cancelled, then shuts down: new connections are refused, requests in
