@@ -26,7 +26,7 @@ func newDemoCmd() *cobra.Command {
 			"specimen through the real serial drivers, stores the run in DIR/hystd.db, writes a plot\n" +
 			"DIR/RUN.svg and prints the figures.\n\n" +
 			"With --serve ADDR the review page and the read-only API are served on ADDR (for example\n" +
-			"127.0.0.1:8417) from the start, so the live sweep can be watched, and after the run until\n" +
+			"127.0.0.1:8740) from the start, so the live sweep can be watched, and after the run until\n" +
 			"SIGINT or SIGTERM.",
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
@@ -73,6 +73,6 @@ func newDemoCmd() *cobra.Command {
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder for hystd.db and the plots")
-	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8417) until SIGINT/SIGTERM")
+	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8740) until SIGINT/SIGTERM")
 	return cmd
 }
