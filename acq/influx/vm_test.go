@@ -15,6 +15,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/demo"
 	"hystd/acq/influx"
 	"hystd/acq/influx/vmtest"
 	"hystd/acq/record"
@@ -199,6 +200,37 @@ func TestVMEverySampleOnce(t *testing.T) {
 		t.Fatalf("second DeliverAll: %d points, %v", n, err)
 	}
 	checkOnce(t, srv, []string{"demo-1"}, want)
+}
+
+// TestVMDemoRun: the demo (simulated bench over pseudo-terminals, the real
+// engine and store) records a run; every sample and figure of it reads
+// back from the server exactly once.
+func TestVMDemoRun(t *testing.T) {
+	srv := vmtest.Start(t)
+	ctx, cancel := context.WithTimeout(context.Background(), 3*time.Minute)
+	defer cancel()
+	res, err := demo.Run(ctx, demo.Options{DataDir: t.TempDir(), Software: "test"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := openStore(t, res.DB)
+	n, err := influx.DeliverAll(ctx, st, vmConfig(srv.URL))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(res.Loops) == 0 {
+		t.Fatal("the demo recorded no loop")
+	}
+	samples := 0
+	for _, l := range res.Loops {
+		samples += len(l.Raw)
+	}
+	t.Logf("demo run %s: %d loops, %d raw samples, %d points sent", res.Run.ID, len(res.Loops), samples, n)
+	r, err := st.Run(ctx, res.Run.ID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkOnce(t, srv, []string{r.ID}, expected(t, r, res.Loops))
 }
 
 // TestVMServerDown: the server is down while five runs are recorded; the
