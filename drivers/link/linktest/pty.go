@@ -76,6 +76,7 @@ type Responder struct {
 	baud  int
 	wg    sync.WaitGroup
 	stop  chan struct{}
+	once  sync.Once
 }
 
 // Serve starts answering lines ending in readTerm on p's master with h,
@@ -147,9 +148,10 @@ func (r *Responder) loop(readTerm string) {
 	}
 }
 
-// Stop ends the responder and waits for it.
+// Stop ends the responder and waits for it. It is safe to call more than
+// once, also from a test's cleanup while a hang-up hook is stopping it.
 func (r *Responder) Stop() {
-	close(r.stop)
+	r.once.Do(func() { close(r.stop) })
 	r.wg.Wait()
 }
 
