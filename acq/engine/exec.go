@@ -117,6 +117,14 @@ func (x *exec) steps(ctx context.Context) error {
 		}
 	}
 
+	if rg := x.s.Recipe.IntegratorRange; rg > 0 && x.s.Instruments.Integrator != nil {
+		cctx, cancel := context.WithTimeout(ctx, x.comm)
+		err := x.s.Instruments.Integrator.SetRange(cctx, units.WeberTurn(rg))
+		cancel()
+		if err != nil {
+			return safety.Comm("integrator", fmt.Errorf("set range %g Wb-turns: %w", rg, err))
+		}
+	}
 	peak := 0.0
 	for _, s := range x.p.Steps {
 		if !math.IsNaN(s.PeakCurrent) {

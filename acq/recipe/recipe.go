@@ -58,6 +58,10 @@ type Recipe struct {
 	// once per period (control: field). 0: l_m/N1 when the fixture takes H
 	// from the current, otherwise required.
 	FieldGain float64 `yaml:"field_gain_a_per_a_m"`
+	// IntegratorRange is the integrator's full scale in Wb-turns (V·s), set
+	// before the first step; 0 leaves the instrument's range. It must hold
+	// N2·A·(B swing) of the largest loop (REFERENCE: N2·A·2·Bmax).
+	IntegratorRange float64 `yaml:"integrator_range_wb"`
 	// Period is the setpoint period of steps that record nothing; default 50ms.
 	Period configs.Duration `yaml:"period"`
 	Steps  []StepSpec       `yaml:"steps"`

@@ -44,6 +44,9 @@ func (r *Recipe) validate() error {
 	if r.FieldGain < 0 || math.IsNaN(r.FieldGain) {
 		c.add("field_gain_a_per_a_m", "must be positive, got %g", r.FieldGain)
 	}
+	if r.IntegratorRange < 0 || r.IntegratorRange > 100 || math.IsNaN(r.IntegratorRange) {
+		c.add("integrator_range_wb", "must be a full scale in Wb-turns above 0 and at most 100, got %g", r.IntegratorRange)
+	}
 	if r.Period != 0 && (r.Period.D() < time.Millisecond || r.Period.D() > 10*time.Second) {
 		c.add("period", "must be between 1ms and 10s, got %s", r.Period.D())
 	}
