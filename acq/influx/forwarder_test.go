@@ -451,3 +451,55 @@ func TestTooLargeHalvesBatch(t *testing.T) {
 		t.Fatalf("server got %d lines, waits %v", len(got), sl.d)
 	}
 }
+
+// TestRunWakesOnKick: an idle Run waits its poll interval (the injected
+// sleep never returns on its own) and a Kick makes it send a new loop at once.
+func TestRunWakesOnKick(t *testing.T) {
+	got := make(chan string, 16)
+	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		b, _ := io.ReadAll(r.Body)
+		got <- string(b)
+		w.WriteHeader(http.StatusNoContent)
+	}))
+	defer srv.Close()
+	ms := memstore.New(nil)
+	ctx := context.Background()
+	if err := ms.CreateRun(ctx, smallRun()); err != nil {
+		t.Fatal(err)
+	}
+	waits := make(chan time.Duration, 16)
+	sleep := func(ctx context.Context, d time.Duration) error {
+		waits <- d
+		<-ctx.Done() // only a Kick or the end of Run ends the wait
+		return ctx.Err()
+	}
+	cfg := testConfig(srv.URL)
+	cfg.BatchSize = 100
+	f, err := New(cfg, ms, Options{Sleep: sleep, Log: slog.New(slog.NewTextHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	rctx, cancel := context.WithCancel(ctx)
+	done := make(chan error, 1)
+	go func() { done <- f.Run(rctx) }()
+	if d := <-waits; d != DefaultPollInterval {
+		t.Fatalf("idle wait %v, want the poll interval %v", d, DefaultPollInterval)
+	}
+	if err := ms.AddLoop(ctx, loopN(1)); err != nil {
+		t.Fatal(err)
+	}
+	f.Kick()
+	body := <-got
+	if n := strings.Count(strings.TrimSpace(body), "\n") + 1; n != 5 {
+		t.Fatalf("sent %d lines, want 5", n)
+	}
+	<-waits // idle again
+	cancel()
+	if err := <-done; !errors.Is(err, context.Canceled) {
+		t.Fatalf("Run returned %v", err)
+	}
+	if b, _ := ms.Backlog(ctx); b.Pending != 0 {
+		t.Fatalf("backlog %+v", b)
+	}
+}
