@@ -281,6 +281,8 @@ func TestParseErrors(t *testing.T) {
 			"x.yaml:4: steps.0.wait.duration: duration \"5\" has no unit"},
 		{"positive demag curve end", "kind: recipe\nname: x\ncontrol: field\nfield_gain_a_per_a_m: 1e-5\nsteps:\n  - demag_curve: {saturate: 1 MA/m, to: 100 kA/m, rate: 10 kA/m/s, points: 100}\n",
 			"x.yaml:6: steps.0.demag_curve.to: must be negative"},
+		{"integrator range", "kind: recipe\nname: x\nintegrator_range_wb: -1\nsteps:\n  - wait: {duration: 1s}\n",
+			"x.yaml:3: integrator_range_wb: must be a full scale in Wb-turns above 0"},
 		{"wrong kind", "kind: fixture\nname: x\nsteps:\n  - wait: {duration: 1s}\n", "x.yaml:1: kind: must be \"recipe\""},
 	}
 	for _, tc := range tests {
