@@ -17,6 +17,7 @@ import (
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/drivers/profile"
 	"hystd/drivers/sim"
 )
 
@@ -52,8 +53,9 @@ func (s *syncBuf) String() string {
 	return s.b.String()
 }
 
-// startBench starts the demo bench (with faults added) and a daemon on it.
-func startBench(t *testing.T, faults ...sim.Fault) *benchDaemon {
+// startBench starts the demo bench (with faults added) and a daemon on it;
+// before, when not nil, is called with the bench before the daemon starts.
+func startBench(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
 	if testing.Short() {
 		t.Skip("simulated bench: skipped with -short")
@@ -101,6 +103,9 @@ log: {level: info}
 fixtures:
   - {fixture: fixture.yaml, specimen: specimen.yaml, watch: inbox, poll: 100ms}
 `, bd.db)))
+	if before != nil {
+		before(b)
+	}
 	ready := make(chan struct{})
 	var once sync.Once
 	go func() {
@@ -200,7 +205,7 @@ steps:
 // one goes to failed/ with the reason, and a recipe beyond a fixture limit
 // is refused naming the step and the limit.
 func TestWatchedFolderRun(t *testing.T) {
-	bd := startBench(t)
+	bd := startBench(t, nil)
 	drop := func(name, body string) {
 		tmp := filepath.Join(bd.dir, name+".part")
 		if err := os.WriteFile(tmp, []byte(body), 0o644); err != nil {
@@ -265,7 +270,7 @@ func TestEndingsOnBench(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			bd := startBench(t, tc.faults...)
+			bd := startBench(t, nil, tc.faults...)
 			evs, cancel := bd.hub.Subscribe()
 			defer cancel()
 			id, err := bd.runner.Submit(context.Background(), "aldermoor-ring-2", []byte(shortLoop))
@@ -312,4 +317,64 @@ func TestEndingsOnBench(t *testing.T) {
 			}
 		})
 	}
+}
+
+// TestStartupHaltsEnergisedSupply: a supply left at 2 A with its output on
+// (by a program that died) is brought to zero when the daemon starts,
+// before anything else.
+func TestStartupHaltsEnergisedSupply(t *testing.T) {
+	bd := startBench(t, func(b *sim.Bench) {
+		ctx := context.Background()
+		sup, err := profile.OpenSupply(ctx, profile.Spec{Port: b.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer sup.Close()
+		if err := sup.SetCurrent(ctx, 2); err != nil {
+			t.Fatal(err)
+		}
+		if err := sup.SetOutput(ctx, true); err != nil {
+			t.Fatal(err)
+		}
+		waitFor(t, "the bench at 2 A", 10*time.Second, func() bool { return math.Abs(float64(b.Truth().I)-2) < 0.01 })
+	})
+	waitFor(t, "the supply at zero", 10*time.Second, func() bool {
+		tr := bd.bench.Truth()
+		return math.Abs(float64(tr.I)) < 1e-3 && !tr.Output
+	})
+	bd.assertZero(t)
+	if !strings.Contains(bd.logs.String(), "supply found with its output on at start-up") {
+		t.Errorf("no log line says the supply was found on:\n%s", bd.logs)
+	}
+}
+
+// TestSIGHUP: a bad config file is refused on SIGHUP and the config in force
+// stays; a good one is swapped in.
+func TestSIGHUP(t *testing.T) {
+	bd := startBench(t, nil)
+	path := filepath.Join(bd.dir, "daemon.yaml")
+	good, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, append(append([]byte{}, good...), "bogus: 1\n"...), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	bd.sigs <- syscall.SIGHUP
+	waitFor(t, "the refused reload", 10*time.Second, func() bool { return strings.Contains(bd.logs.String(), "config reload refused") })
+	if !strings.Contains(bd.logs.String(), "daemon.yaml:7: bogus: unknown key") {
+		t.Errorf("the log does not say why:\n%s", bd.logs)
+	}
+	id, err := bd.runner.Submit(context.Background(), "aldermoor-ring-2", []byte(shortLoop))
+	if err != nil {
+		t.Fatalf("the old config no longer works: %v", err)
+	}
+	if err := bd.runner.Abort(context.Background(), id); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, good, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	bd.sigs <- syscall.SIGHUP
+	waitFor(t, "the reload", 10*time.Second, func() bool { return strings.Contains(bd.logs.String(), "msg=\"config reloaded\"") })
 }

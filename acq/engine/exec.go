@@ -9,11 +9,13 @@ import (
 	"strings"
 	"time"
 
+	"hystd/acq/config"
 	"hystd/acq/live"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/safety"
 	"hystd/calib/units"
+	"hystd/drivers/instr"
 )
 
 // Timeouts of the engine's own bookkeeping, independent of the run's context.
@@ -417,12 +419,70 @@ const (
 	settleMax  = 5 * time.Second
 )
 
-// zeroTol is the read-back current taken as zero, A.
-func (x *exec) zeroTol() float64 { return 0.005 + 0.002*x.s.Fixture.Limits.MaxCurrentA }
+// zeroTol is the read-back current taken as zero, A: 5 mA + 0.2 % of the
+// fixture's max current.
+func zeroTol(fx config.Fixture) float64 { return 0.005 + 0.002*fx.Limits.MaxCurrentA }
 
-func (x *exec) rampDown(ctx context.Context, slew float64) {
-	sup := x.s.Instruments.Supply
-	i0 := x.lastI
+// SafeHalt brings a fixture's supply to zero and its output off the safe
+// way, as every run's ending does: the current ramped to zero at the lower
+// of the supply's and the fixture's slew limit, the read-back awaited near
+// zero, then the supply's Halt (output off), then the other roles halted,
+// then the read-back checked. lastI (A, NaN: unknown) is where the ramp
+// starts when the current cannot be read. It uses a context of its own
+// derived from ctx without its cancellation, so it also works after an
+// abort. clock nil means RealClock.
+func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, clock Clock, log *slog.Logger) (float64, error) {
+	if clock == nil {
+		clock = RealClock{}
+	}
+	if log == nil {
+		log = slog.Default()
+	}
+	sup := in.Supply
+	slew := float64(sup.Limits().MaxSlew)
+	if f := fx.Limits.MaxSlewAPerS; f > 0 && (slew <= 0 || f < slew) {
+		slew = f
+	}
+	d := HaltMargin
+	if i := math.Abs(lastI); slew > 0 && !math.IsNaN(i) {
+		d += time.Duration(i / slew * 2 * float64(time.Second))
+	} else if m := fx.Limits.MaxCurrentA; slew > 0 && m > 0 {
+		d += time.Duration(m / slew * 2 * float64(time.Second))
+	}
+	hctx, cancel := bg(ctx, d)
+	defer cancel()
+	rampDown(hctx, sup, fx, lastI, slew, clock, log)
+	err := sup.Halt(hctx)
+	if err != nil {
+		log.Error("supply halt failed; trying again", "err", err)
+		err = sup.Halt(hctx)
+	}
+	for _, r := range []interface {
+		Halt(context.Context) error
+	}{in.Integrator, in.FieldMeter, in.Thermometer} {
+		if r == nil {
+			continue
+		}
+		if herr := r.Halt(hctx); herr != nil {
+			log.Warn("instrument halt failed", "err", herr)
+		}
+	}
+	if err != nil {
+		return lastI, err
+	}
+	i, ierr := sup.ReadCurrent(hctx)
+	st, serr := sup.Status(hctx)
+	if e := errors.Join(ierr, serr); e != nil {
+		return lastI, fmt.Errorf("halted, but the read-back failed: %w", e)
+	}
+	if tol := 2 * zeroTol(fx); math.Abs(i.Value) > tol || st.OutputOn {
+		return i.Value, fmt.Errorf("after the halt the supply reads %.4g A with output on = %v", i.Value, st.OutputOn)
+	}
+	log.Info("supply at zero, output off", "current_a", i.Value)
+	return i.Value, nil
+}
+
+func rampDown(ctx context.Context, sup instr.Supply, fx config.Fixture, i0 float64, slew float64, clock Clock, log *slog.Logger) {
 	if r, err := sup.ReadCurrent(ctx); err == nil {
 		i0 = r.Value
 	}
@@ -430,7 +490,7 @@ func (x *exec) rampDown(ctx context.Context, slew float64) {
 		return
 	}
 	step := slew * rampPeriod.Seconds()
-	next := x.s.Clock.Now()
+	next := clock.Now()
 	for i := i0; ; {
 		switch {
 		case math.Abs(i) <= step:
@@ -441,78 +501,42 @@ func (x *exec) rampDown(ctx context.Context, slew float64) {
 			i += step
 		}
 		if err := sup.SetCurrent(ctx, units.Ampere(i)); err != nil {
-			x.log.Error("ramp-down setpoint refused; leaving it to the supply's halt", "err", err)
+			log.Error("ramp-down setpoint refused; leaving it to the supply's halt", "err", err)
 			return
 		}
 		if i == 0 {
 			break
 		}
 		next = next.Add(rampPeriod)
-		if x.s.Clock.SleepUntil(ctx, next) != nil {
+		if clock.SleepUntil(ctx, next) != nil {
 			return
 		}
 	}
-	deadline := x.s.Clock.Now().Add(settleMax)
+	deadline := clock.Now().Add(settleMax)
 	for {
 		r, err := sup.ReadCurrent(ctx)
-		if err != nil || math.Abs(r.Value) <= x.zeroTol() {
+		if err != nil || math.Abs(r.Value) <= zeroTol(fx) {
 			return
 		}
-		if x.s.Clock.Now().After(deadline) {
-			x.log.Error("current did not settle at zero after the ramp-down", "current_a", r.Value)
+		if clock.Now().After(deadline) {
+			log.Error("current did not settle at zero after the ramp-down", "current_a", r.Value)
 			return
 		}
-		next = x.s.Clock.Now().Add(rampPeriod)
-		if x.s.Clock.SleepUntil(ctx, next) != nil {
+		next = clock.Now().Add(rampPeriod)
+		if clock.SleepUntil(ctx, next) != nil {
 			return
 		}
 	}
 }
 
-// halt ramps the supply to zero at its slew limit and turns it off, with a
-// context of its own, then reads back that it did; other roles are halted too.
+// halt ramps the supply to zero at its slew limit and turns it off (SafeHalt).
 func (x *exec) halt(ctx context.Context) error {
-	sup := x.s.Instruments.Supply
-	// the lower of the supply's slew and the fixture's limit
-	slew := float64(sup.Limits().MaxSlew)
-	if f := x.s.Fixture.Limits.MaxSlewAPerS; f > 0 && (slew <= 0 || f < slew) {
-		slew = f
+	i, err := SafeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.s.Clock, x.log)
+	if !math.IsNaN(i) {
+		x.lastI = i
 	}
-	d := HaltMargin
-	if i := math.Abs(x.lastI); slew > 0 && !math.IsNaN(i) {
-		d += time.Duration(i / slew * 2 * float64(time.Second))
+	if err == nil {
+		x.energd = false
 	}
-	hctx, cancel := bg(ctx, d)
-	defer cancel()
-	x.rampDown(hctx, slew)
-	err := sup.Halt(hctx)
-	if err != nil {
-		x.log.Error("supply halt failed; trying again", "err", err)
-		err = sup.Halt(hctx)
-	}
-	for _, r := range []interface {
-		Halt(context.Context) error
-	}{x.s.Instruments.Integrator, x.s.Instruments.FieldMeter, x.s.Instruments.Thermometer} {
-		if r == nil {
-			continue
-		}
-		if herr := r.Halt(hctx); herr != nil {
-			x.log.Warn("instrument halt failed", "err", herr)
-		}
-	}
-	if err != nil {
-		return err
-	}
-	i, ierr := sup.ReadCurrent(hctx)
-	st, serr := sup.Status(hctx)
-	if e := errors.Join(ierr, serr); e != nil {
-		return fmt.Errorf("halted, but the read-back failed: %w", e)
-	}
-	x.lastI = i.Value
-	if tol := 2 * x.zeroTol(); math.Abs(i.Value) > tol || st.OutputOn {
-		return fmt.Errorf("after the halt the supply reads %.4g A with output on = %v", i.Value, st.OutputOn)
-	}
-	x.energd = false
-	x.log.Info("supply at zero, output off", "current_a", i.Value)
-	return nil
+	return err
 }
