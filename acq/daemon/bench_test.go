@@ -3,6 +3,7 @@ package daemon
 import (
 	"bytes"
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"net/http"
@@ -14,6 +15,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/engine"
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
@@ -33,6 +35,7 @@ type benchDaemon struct {
 	addr   string
 	sigs   chan os.Signal
 	done   chan error
+	ctx    context.Context
 	logs   *syncBuf
 }
 
@@ -56,6 +59,15 @@ func (s *syncBuf) String() string {
 // startBench starts the demo bench (with faults added) and a daemon on it;
 // before, when not nil, is called with the bench before the daemon starts.
 func startBench(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *benchDaemon {
+	t.Helper()
+	bd := benchFiles(t, before, faults...)
+	bd.serve(t)
+	return bd
+}
+
+// benchFiles starts the bench and writes the fixture, specimen and daemon
+// config for it, without starting a daemon.
+func benchFiles(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
 	if testing.Short() {
 		t.Skip("simulated bench: skipped with -short")
@@ -106,6 +118,13 @@ fixtures:
 	if before != nil {
 		before(b)
 	}
+	bd.ctx = ctx
+	return bd
+}
+
+func (bd *benchDaemon) serve(t *testing.T) {
+	t.Helper()
+	ctx := bd.ctx
 	ready := make(chan struct{})
 	var once sync.Once
 	go func() {
@@ -141,7 +160,6 @@ fixtures:
 			t.Logf("daemon log:\n%s", bd.logs)
 		}
 	})
-	return bd
 }
 
 // waitFor polls cond (the bench runs in real time) until it holds or the
@@ -377,4 +395,54 @@ func TestSIGHUP(t *testing.T) {
 	}
 	bd.sigs <- syscall.SIGHUP
 	waitFor(t, "the reload", 10*time.Second, func() bool { return strings.Contains(bd.logs.String(), "msg=\"config reloaded\"") })
+}
+
+// TestRunOnce is `hystd run`: one recipe in the foreground to a stored run;
+// then SIGINT mid-loop aborts it with the winding ramped down.
+func TestRunOnce(t *testing.T) {
+	bd := benchFiles(t, nil)
+	rp := filepath.Join(bd.dir, "short.yaml")
+	if err := os.WriteFile(rp, []byte(shortLoop), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	o := RunOptions{ConfigPath: filepath.Join(bd.dir, "daemon.yaml"), RecipePath: rp, Out: &syncBuf{},
+		Wiring: Wiring{Software: "test", Stderr: bd.logs, Signals: make(chan os.Signal)}}
+	run, err := RunOnce(context.Background(), o)
+	if err != nil || run.State != record.Finished {
+		t.Fatalf("run %s %q: %v", run.State, run.Reason, err)
+	}
+	if out := o.Out.(*syncBuf).String(); !strings.Contains(out, "run "+run.ID+" finished") || !strings.Contains(out, "step 1/2 record (steps.0.record_loop)") {
+		t.Errorf("progress:\n%s", out)
+	}
+	bd.assertZero(t)
+	if r, loops := bd.run(t, run.ID); r.State != record.Finished || len(loops) != 1 {
+		t.Errorf("stored %s with %d loops", r.State, len(loops))
+	}
+
+	sigs := make(chan os.Signal, 1)
+	o.Wiring.Signals = sigs
+	o.Out = &triggerWriter{trigger: "step 1/2 record", fire: func() { sigs <- syscall.SIGINT }}
+	run, err = RunOnce(context.Background(), o)
+	var stop *engine.Stop
+	if !errors.As(err, &stop) || run.State != record.Aborted || run.Reason != "interrupt received" {
+		t.Fatalf("after SIGINT: %s %q, %v", run.State, run.Reason, err)
+	}
+	bd.assertZero(t)
+}
+
+// triggerWriter calls fire once when a written line contains trigger and
+// the run is at least 30 % through.
+type triggerWriter struct {
+	trigger string
+	fire    func()
+	once    sync.Once
+}
+
+func (w *triggerWriter) Write(p []byte) (int, error) {
+	line := string(p)
+	var pct float64
+	if _, err := fmt.Sscanf(strings.TrimSpace(line), "%g %%", &pct); err == nil && pct >= 30 && strings.Contains(line, w.trigger) {
+		w.once.Do(w.fire)
+	}
+	return len(p), nil
 }
