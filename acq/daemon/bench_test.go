@@ -283,8 +283,10 @@ func TestEndingsOnBench(t *testing.T) {
 		}, record.Aborted, "aborted on request"},
 		{"SIGTERM", nil, func(bd *benchDaemon, id string) { bd.sigs <- syscall.SIGTERM }, record.Aborted, "daemon stopping: terminated received"},
 		{"supply trip", []sim.Fault{{Role: "supply", Kind: sim.FaultTrip, AfterCommands: 700}}, nil, record.Failed, "supply tripped"},
-		{"integrator port hung up", []sim.Fault{{Role: "integrator", Kind: sim.FaultHangup, AfterCommands: 250}}, nil, record.Failed, "integrator"},
-		{"supply port hung up", []sim.Fault{{Role: "supply", Kind: sim.FaultHangup, AfterCommands: 700}}, nil, record.Failed, "supply"},
+		{"integrator port hung up", []sim.Fault{{Role: "integrator", Kind: sim.FaultHangup, AfterCommands: 250}}, nil, record.Failed, "lost communication with the integrator"},
+		{"supply port hung up", []sim.Fault{{Role: "supply", Kind: sim.FaultHangup, AfterCommands: 700}}, nil, record.Failed, "lost communication with the supply"},
+		{"supply reports an error", []sim.Fault{{Role: "supply", Kind: sim.FaultError, AfterCommands: 700, Code: -222, Message: "Data out of range"}},
+			nil, record.Failed, "the supply reported an error"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

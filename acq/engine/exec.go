@@ -7,6 +7,7 @@ import (
 	"log/slog"
 	"math"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"hystd/acq/config"
@@ -53,6 +54,7 @@ type exec struct {
 	lastLevel float64
 	haveLevel bool
 	failed    []record.Loop // loops the writer refused
+	retries   atomic.Int64  // late replies read again in the current step
 	notes     []string      // added to the final reason
 }
 
@@ -239,7 +241,7 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if err != nil {
 			return err
 		}
-		cctx, cancel := context.WithTimeout(ctx, x.comm)
+		cctx, cancel := context.WithTimeout(context.WithValue(ctx, retriesKey{}, &x.retries), x.comm)
 		rd, err := sampleAll(cctx, in, &set)
 		cancel()
 		if err != nil {
@@ -274,6 +276,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if err := x.s.Clock.SleepUntil(ctx, next); err != nil {
 			return err
 		}
+	}
+	if n := x.retries.Swap(0); n > 0 {
+		x.event(ctx, "warn", "step %d: %d late replies were read again within limits.comm_timeout", st.N, n)
 	}
 	if st.Loop != nil {
 		x.storeLoop(ctx, st, raw, loopStart)

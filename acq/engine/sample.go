@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"hystd/acq/record"
@@ -25,8 +26,14 @@ func retry[T any](ctx context.Context, f func(context.Context) (T, error)) (T, e
 		if err == nil || !errors.Is(err, link.ErrTimeout) || ctx.Err() != nil {
 			return v, err
 		}
+		if n, ok := ctx.Value(retriesKey{}).(*atomic.Int64); ok {
+			n.Add(1)
+		}
 	}
 }
+
+// retriesKey carries the counter of re-read replies in a sample's context.
+type retriesKey struct{}
 
 // Instruments are the opened roles of one fixture. Supply is required; the
 // others may be nil when the fixture lacks them. The engine uses each from
@@ -179,8 +186,14 @@ func firstRole(err error) (string, error) {
 	return "instruments", err
 }
 
-// violationOf turns a sampling error into the safety violation the run ends with.
+// violationOf turns a sampling error into the safety violation the run ends
+// with: lost communication (no reply within comm_timeout, a hang-up, an
+// unplugged port) or an error the instrument reported.
 func violationOf(err error) *safety.Violation {
 	role, e := firstRole(err)
-	return safety.Comm(role, e)
+	if errors.Is(e, link.ErrTimeout) || errors.Is(e, link.ErrDisconnected) || errors.Is(e, link.ErrClosed) ||
+		errors.Is(e, link.ErrNotFound) || errors.Is(e, context.DeadlineExceeded) {
+		return safety.Comm(role, e)
+	}
+	return safety.Instrument(role, e)
 }

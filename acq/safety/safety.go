@@ -252,3 +252,14 @@ func Comm(role string, err error) *Violation {
 	}
 	return &Violation{Limit: "comm." + role, Value: math.NaN(), Text: text}
 }
+
+// Instrument turns an error an instrument reported (its error queue, a
+// refused setting, a reply that does not parse) into the Violation a run
+// ends with.
+func Instrument(role string, err error) *Violation {
+	var v *Violation
+	if errors.As(err, &v) {
+		return v
+	}
+	return &Violation{Limit: "instrument." + role, Value: math.NaN(), Text: fmt.Sprintf("the %s reported an error: %v", role, err)}
+}

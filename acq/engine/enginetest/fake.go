@@ -7,7 +7,6 @@ package enginetest
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"math"
 	"sync"
@@ -16,6 +15,7 @@ import (
 	"hystd/acq/record"
 	"hystd/calib/units"
 	"hystd/drivers/instr"
+	"hystd/drivers/link"
 )
 
 // Clock advances only when the engine waits or an instrument answers:
@@ -179,7 +179,9 @@ func (f *Supply) SetCurrent(ctx context.Context, i units.Ampere) error {
 	return nil
 }
 
-var ErrDisconnected = errors.New("port disconnected")
+// ErrDisconnected is what a fake port returns after its FailAfter: a
+// disconnect as the link layer reports it.
+var ErrDisconnected = link.ErrDisconnected
 
 // ReadCurrent reads the true current.
 func (f *Supply) ReadCurrent(ctx context.Context) (instr.Reading, error) {
