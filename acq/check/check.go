@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"hystd/acq/config"
+	"hystd/acq/influx"
 	"hystd/configs"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
@@ -26,6 +27,7 @@ var kinds = map[string]Validator{
 	"specimen":           func(doc *configs.Doc) error { _, err := config.SpecimenFrom(doc); return err },
 	"instrument-profile": func(doc *configs.Doc) error { _, err := profile.FromDoc(doc); return err },
 	"bench":              func(doc *configs.Doc) error { _, err := sim.BenchFrom(doc); return err },
+	"influx":             func(doc *configs.Doc) error { _, err := influx.ConfigFrom(doc); return err },
 }
 
 // File validates the file at path. The error lists every problem found, one

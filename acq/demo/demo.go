@@ -20,6 +20,7 @@ import (
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/fixture"
+	"hystd/acq/influx"
 	"hystd/acq/live"
 	"hystd/acq/plot"
 	"hystd/acq/recipe"
@@ -48,6 +49,11 @@ type Options struct {
 	// Store, when set, is used instead of opening DataDir/hystd.db; the
 	// caller keeps ownership.
 	Store *store.Store
+	// Influx, when set, also sends the stored loops to that InfluxDB v2
+	// write API and waits (up to InfluxWait, default 1 min) until the server
+	// acknowledged them. Loops it could not send stay in the store's outbox.
+	Influx     *influx.Config
+	InfluxWait time.Duration
 }
 
 // Result is what a demo run produced.
@@ -141,7 +147,6 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		Software:    o.Software,
 		SpoolDir:    o.DataDir,
 	})
-	pub.done()
 	res := Result{Run: run, DB: db, Truth: bench.History()}
 	if run.ID != "" {
 		// Read back what was committed, whatever the ending.
@@ -173,6 +178,19 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		fmt.Fprintf(out, "plot: %s\n", p)
 	}
 	PrintFigures(out, res.Loops)
+	if o.Influx != nil {
+		wait := o.InfluxWait
+		if wait <= 0 {
+			wait = time.Minute
+		}
+		dctx, cancel := context.WithTimeout(ctx, wait)
+		defer cancel()
+		n, err := influx.DeliverAll(dctx, st, *o.Influx)
+		if err != nil {
+			return res, fmt.Errorf("sending to %s: %w (%d points acknowledged; the rest stay in the outbox of %s)", o.Influx.URL, err, n, db)
+		}
+		fmt.Fprintf(out, "\nsent %d points to %s (bucket %s)\n", n, o.Influx.URL, o.Influx.Bucket)
+	}
 	return res, nil
 }
 
@@ -290,5 +308,3 @@ func (p *progress) Publish(ev live.Event) {
 		}
 	}
 }
-
-func (p *progress) done() {}

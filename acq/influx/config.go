@@ -163,6 +163,11 @@ func LoadConfig(file string, data []byte) (Config, error) {
 	if err != nil {
 		return Config{}, err
 	}
+	return ConfigFrom(doc)
+}
+
+// ConfigFrom decodes, completes and validates a parsed influx document.
+func ConfigFrom(doc *configs.Doc) (Config, error) {
 	var c Config
 	if err := doc.Decode(&c); err != nil {
 		return Config{}, err

@@ -203,20 +203,22 @@ func TestVMEverySampleOnce(t *testing.T) {
 }
 
 // TestVMDemoRun: the demo (simulated bench over pseudo-terminals, the real
-// engine and store) records a run; every sample and figure of it reads
-// back from the server exactly once.
+// engine and store) records a run and sends it, as `hystd demo --influx-url`
+// does; every sample and figure of it reads back from the server exactly
+// once, and a second delivery sends nothing more.
 func TestVMDemoRun(t *testing.T) {
 	srv := vmtest.Start(t)
 	ctx, cancel := context.WithTimeout(context.Background(), 3*time.Minute)
 	defer cancel()
-	res, err := demo.Run(ctx, demo.Options{DataDir: t.TempDir(), Software: "test"})
+	cfg := vmConfig(srv.URL)
+	res, err := demo.Run(ctx, demo.Options{DataDir: t.TempDir(), Software: "test", Influx: &cfg})
 	if err != nil {
 		t.Fatal(err)
 	}
 	st := openStore(t, res.DB)
-	n, err := influx.DeliverAll(ctx, st, vmConfig(srv.URL))
-	if err != nil {
-		t.Fatal(err)
+	n, err := influx.DeliverAll(ctx, st, cfg)
+	if err != nil || n != 0 {
+		t.Fatalf("after the demo delivered: %d more points, %v", n, err)
 	}
 	if len(res.Loops) == 0 {
 		t.Fatal("the demo recorded no loop")

@@ -11,6 +11,7 @@ import (
 
 	"hystd/acq/api"
 	"hystd/acq/demo"
+	"hystd/acq/influx"
 	"hystd/acq/live"
 	"hystd/acq/store"
 )
@@ -19,6 +20,7 @@ func init() { register(newDemoCmd) }
 
 func newDemoCmd() *cobra.Command {
 	var dataDir, serveAddr string
+	var ic influx.Config
 	cmd := &cobra.Command{
 		Use:   "demo",
 		Short: "Run the whole job once on the simulated bench",
@@ -32,8 +34,17 @@ func newDemoCmd() *cobra.Command {
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
 			out := cmd.OutOrStdout()
+			opts := demo.Options{DataDir: dataDir, Out: out, Software: version}
+			if ic.URL != "" || ic.Bucket != "" {
+				ic.Kind = "influx"
+				ic = ic.WithDefaults()
+				if err := ic.Validate(); err != nil {
+					return &exitError{code: 2, err: fmt.Errorf("--influx-*: %w", err)}
+				}
+				opts.Influx = &ic
+			}
 			if serveAddr == "" {
-				_, err := demo.Run(ctx, demo.Options{DataDir: dataDir, Out: out, Software: version})
+				_, err := demo.Run(ctx, opts)
 				return err
 			}
 			if err := os.MkdirAll(dataDir, 0o755); err != nil {
@@ -56,7 +67,8 @@ func newDemoCmd() *cobra.Command {
 			done := make(chan error, 1)
 			go func() { done <- api.ServeListener(ctx, ln, h) }()
 			fmt.Fprintf(out, "review page: http://%s/ (read-only)\n", ln.Addr())
-			_, runErr := demo.Run(ctx, demo.Options{DataDir: dataDir, Out: out, Software: version, Store: st, Live: hub})
+			opts.Store, opts.Live = st, hub
+			_, runErr := demo.Run(ctx, opts)
 			if runErr != nil && ctx.Err() == nil {
 				fmt.Fprintln(cmd.ErrOrStderr(), "hystd: demo:", runErr)
 			}
@@ -73,6 +85,10 @@ func newDemoCmd() *cobra.Command {
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder for hystd.db and the plots")
+	cmd.Flags().StringVar(&ic.URL, "influx-url", "", "also send the loops to this InfluxDB v2 write API (e.g. http://127.0.0.1:8086)")
+	cmd.Flags().StringVar(&ic.Org, "influx-org", "", "organization for --influx-url")
+	cmd.Flags().StringVar(&ic.Bucket, "influx-bucket", "", "bucket for --influx-url")
+	cmd.Flags().StringVar(&ic.TokenFile, "influx-token-file", "", "file holding the API token (else $"+influx.DefaultTokenEnv+")")
 	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8740) until SIGINT/SIGTERM")
 	return cmd
 }
