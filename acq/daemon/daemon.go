@@ -96,7 +96,8 @@ type fixtureRunner struct {
 }
 
 type job struct {
-	plan    *engine.Plan
+	plan    *engine.Plan // Run() only before Execute or after it returned
+	id      string
 	fixture string
 	fx      config.Fixture
 	sp      config.Specimen
@@ -288,8 +289,8 @@ func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, 
 	if done == nil {
 		done = func(record.Run, error) {}
 	}
-	j := &job{plan: plan, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done}
 	id := plan.Run().ID
+	j := &job{plan: plan, id: id, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done}
 	d.mu.Lock()
 	d.runs[id] = j
 	d.mu.Unlock()
@@ -368,7 +369,7 @@ func causeText(ctx context.Context) string {
 func (d *Daemon) dropQueued(j *job, reason string) {
 	d.mu.Lock()
 	skip := j.aborted
-	delete(d.runs, j.plan.Run().ID)
+	delete(d.runs, j.id)
 	d.mu.Unlock()
 	if skip {
 		return
@@ -379,7 +380,7 @@ func (d *Daemon) dropQueued(j *job, reason string) {
 }
 
 func (d *Daemon) execute(fr *fixtureRunner, j *job) {
-	id := j.plan.Run().ID
+	id := j.id
 	ctx, cancel := context.WithCancelCause(d.ctx)
 	defer cancel(nil)
 	d.mu.Lock()
@@ -459,7 +460,7 @@ func (d *Daemon) Status() []FixtureStatus {
 		if fr := d.fixtures[lf.Name]; fr != nil {
 			fs.Queued = len(fr.queue)
 			if j := fr.active.Load(); j != nil {
-				fs.ActiveRun = j.plan.Run().ID
+				fs.ActiveRun = j.id
 			}
 		}
 		out = append(out, fs)

@@ -109,7 +109,9 @@ type Plan struct {
 	total time.Duration
 }
 
-// Run returns the run record as prepared.
+// Run returns the run record as prepared, or as ended once Execute or End
+// returned. It must not be called while Execute runs (use the run ID taken
+// before).
 func (p *Plan) Run() record.Run { return p.run }
 
 // Run prepares and executes a recipe; see Prepare and Plan.Execute.
