@@ -185,3 +185,66 @@ func TestReloadAndSchedule(t *testing.T) {
 		t.Errorf("after a refused reload the fixture no longer takes runs: %v", err)
 	}
 }
+
+// TestTwoFixtures: one daemon drives two fixtures, each with its own queue
+// and instruments; runs on different fixtures proceed independently.
+func TestTwoFixtures(t *testing.T) {
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nfixtures:\n"+
+		"  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"+
+		"  - {fixture: second.yaml, specimen: specimen-ring-r17.yaml}\n")
+	dir := filepath.Dir(p)
+	b, err := os.ReadFile(filepath.Join(dir, "fixture-ring-bench.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	b = []byte(strings.Replace(string(b), "name: aldermoor-ring-2", "name: aldermoor-ring-3", 1))
+	if err := os.WriteFile(filepath.Join(dir, "second.yaml"), b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cfg, err := Load(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	clk := &schedClock{enginetest.NewClock()}
+	var mu sync.Mutex
+	sups := map[string]*enginetest.Supply{}
+	open := func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error) {
+		mu.Lock()
+		defer mu.Unlock()
+		s := sups[fx.Name]
+		if s == nil {
+			s = enginetest.NewSupply(clk.Clock)
+			sups[fx.Name] = s
+		}
+		return Opened{Instruments: engine.Instruments{Supply: s, Integrator: &enginetest.Integrator{Sup: s, K: 1e-3, ZeroAt: clk.Now()}}}, nil
+	}
+	w := enginetest.NewWriter()
+	d, err := New(cfg, Deps{Open: open, Writer: w, Clock: clk, Log: slog.New(slog.DiscardHandler)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	d.Start(context.Background())
+	defer d.Stop("test over")
+	ends := make(chan ending, 2)
+	for _, fx := range []string{"aldermoor-ring-2", "aldermoor-ring-3"} {
+		if _, err := d.SubmitNamed(context.Background(), fx, "q.yaml", []byte(quickLoop), "test", func(r record.Run, err error) { ends <- ending{r, err} }); err != nil {
+			t.Fatal(err)
+		}
+	}
+	seen := map[string]bool{}
+	for range 2 {
+		e := <-ends
+		if e.run.State != record.Finished {
+			t.Errorf("%s on %s: %s %q", e.run.ID, e.run.Fixture, e.run.State, e.run.Reason)
+		}
+		seen[e.run.Fixture] = true
+	}
+	if !seen["aldermoor-ring-2"] || !seen["aldermoor-ring-3"] || len(d.Status()) != 2 {
+		t.Errorf("fixtures seen %v, status %+v", seen, d.Status())
+	}
+	for name, s := range sups {
+		if i, on := s.Truth(); i != 0 || on || s.Halts == 0 {
+			t.Errorf("%s: supply at %g A, on %v, %d halts", name, i, on, s.Halts)
+		}
+	}
+}
