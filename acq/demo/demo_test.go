@@ -21,9 +21,6 @@ import (
 // within its stated uncertainty plus a small margin for the part of the
 // chain the budget does not hold (2 % for Br, 3 % for HcB).
 func TestDemoRecoversTheSpecimensTruth(t *testing.T) {
-	if testing.Short() {
-		t.Skip("runs the ~20 s demo on the simulated bench")
-	}
 	dir := t.TempDir()
 	var out strings.Builder
 	res, err := Run(context.Background(), Options{DataDir: dir, Out: &out, Software: "test"})
