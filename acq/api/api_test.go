@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"io"
 	"io/fs"
 	"math"
@@ -741,5 +742,37 @@ func TestPageNeedsNoNetwork(t *testing.T) {
 				t.Errorf("%s refers to %s", e.Name(), m)
 			}
 		}
+	}
+}
+
+// fixtureRunner answers Submit as a daemon with two fixtures does when none
+// is named, and records the fixture names it was given.
+type fixtureRunner struct{ got []string }
+
+func (f *fixtureRunner) Submit(ctx context.Context, fixture string, data []byte) (string, error) {
+	f.got = append(f.got, fixture)
+	if fixture == "" {
+		return "", fmt.Errorf("%w: this daemon drives ring-bench, yoke-9; name one (?fixture=NAME)", daemon.ErrFixtureNeeded)
+	}
+	return "RUN-1", nil
+}
+
+func (f *fixtureRunner) Abort(ctx context.Context, id string) error { return nil }
+
+// TestSubmitWithoutFixture: the fixture parameter may be left out and reaches
+// the runner as ""; a runner that cannot choose answers 400 with its
+// fixtures named.
+func TestSubmitWithoutFixture(t *testing.T) {
+	fr := &fixtureRunner{}
+	e := newEnv(t, Options{Token: testToken, Runner: fr})
+	code, m, _ := e.do(t, "POST", "/api/v1/runs", testToken, "application/yaml", strings.NewReader(goodRecipe))
+	if msg, _ := m["error"].(string); code != 400 || !strings.Contains(msg, "ring-bench, yoke-9") {
+		t.Errorf("no fixture on two: %d %q", code, msg)
+	}
+	if code, m, _ := e.do(t, "POST", "/api/v1/runs?fixture=yoke-9", testToken, "application/yaml", strings.NewReader(goodRecipe)); code != 202 {
+		t.Errorf("named fixture: %d %v", code, m)
+	}
+	if len(fr.got) != 2 || fr.got[0] != "" || fr.got[1] != "yoke-9" {
+		t.Errorf("runner got fixtures %q", fr.got)
 	}
 }

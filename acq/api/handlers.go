@@ -303,8 +303,9 @@ type badRequest interface{ BadRequest() bool }
 
 // fail maps an error from the Reader or the Runner to a status code. Besides
 // this package's markers it knows the daemon's and the engine's errors: a
-// refused recipe or an unknown fixture is the client's (400), a full queue
-// or a run that is no longer active a conflict (409), a stopping daemon 503.
+// refused recipe, an unknown fixture or no fixture named on a daemon with
+// several is the client's (400), a full queue or a run that is no longer
+// active a conflict (409), a stopping daemon 503.
 func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	var ce *configs.Error
 	var br badRequest
@@ -313,7 +314,8 @@ func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	case errors.Is(err, record.ErrNotFound):
 		writeError(w, http.StatusNotFound, "%v", err)
 	case errors.Is(err, ErrInvalid), errors.As(err, &ce), errors.As(err, &refused),
-		errors.Is(err, daemon.ErrUnknownFixture), errors.As(err, &br) && br.BadRequest():
+		errors.Is(err, daemon.ErrUnknownFixture), errors.Is(err, daemon.ErrFixtureNeeded),
+		errors.As(err, &br) && br.BadRequest():
 		writeError(w, http.StatusBadRequest, "%v", err)
 	case errors.Is(err, daemon.ErrNotActive):
 		// Unknown to the store as well: 404; a run that has ended: 409.

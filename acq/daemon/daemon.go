@@ -37,6 +37,9 @@ var (
 	ErrNotActive      = errors.New("run is not queued or running")
 	ErrStopping       = errors.New("daemon is stopping")
 	ErrQueueFull      = errors.New("queue full")
+	// ErrFixtureNeeded: Submit was given no fixture name and the daemon
+	// drives more than one (or none), so it cannot choose.
+	ErrFixtureNeeded = errors.New("no fixture named")
 )
 
 // Opened is a fixture's instruments opened for one run, with the loop
@@ -233,7 +236,9 @@ func (d *Daemon) Reload(cfg *Loaded) {
 
 // Submit validates a recipe against a fixture and queues it; the error is a
 // *engine.Refused or a configs error naming file, line, key and problem for
-// a recipe that cannot run, and nothing is queued then.
+// a recipe that cannot run, and nothing is queued then. A fixture of ""
+// means the daemon's only fixture; with several, the error wraps
+// ErrFixtureNeeded and names them.
 func (d *Daemon) Submit(ctx context.Context, fixture string, recipeYAML []byte) (string, error) {
 	return d.submit(ctx, fixture, "submitted recipe", recipeYAML, "api", nil)
 }
@@ -248,6 +253,12 @@ func (d *Daemon) SubmitNamed(ctx context.Context, fixture, name string, data []b
 
 func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, source string, done func(record.Run, error)) (string, error) {
 	cfg := d.cfg.Load()
+	if fixture == "" {
+		if len(cfg.Fixtures) != 1 {
+			return "", fmt.Errorf("%w: this daemon drives %s; name one (?fixture=NAME)", ErrFixtureNeeded, fixtureNames(cfg))
+		}
+		fixture = cfg.Fixtures[0].Name
+	}
 	lf, ok := cfg.Fixture(fixture)
 	d.mu.Lock()
 	fr := d.fixtures[fixture]
@@ -257,12 +268,7 @@ func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, 
 		return "", fmt.Errorf("fixture %q: the daemon has not started it yet", fixture)
 	}
 	if !ok || fr == nil {
-		names := make([]string, 0, len(cfg.Fixtures))
-		for _, f := range cfg.Fixtures {
-			names = append(names, f.Name)
-		}
-		sort.Strings(names)
-		return "", fmt.Errorf("%w %q; this daemon drives %s", ErrUnknownFixture, fixture, strings.Join(names, ", "))
+		return "", fmt.Errorf("%w %q; this daemon drives %s", ErrUnknownFixture, fixture, fixtureNames(cfg))
 	}
 	if stopping {
 		return "", ErrStopping
@@ -306,6 +312,19 @@ func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, 
 	d.metrics.queued.WithLabelValues(fixture).Inc()
 	d.log.Info("run queued", "run", id, "fixture", fixture, "recipe", r.Name, "source", source)
 	return id, nil
+}
+
+// fixtureNames lists cfg's fixtures, sorted, for error messages.
+func fixtureNames(cfg *Loaded) string {
+	names := make([]string, 0, len(cfg.Fixtures))
+	for _, f := range cfg.Fixtures {
+		names = append(names, f.Name)
+	}
+	if len(names) == 0 {
+		return "no fixture"
+	}
+	sort.Strings(names)
+	return strings.Join(names, ", ")
 }
 
 // Abort ends a queued or running run: a running one is ramped down and

@@ -248,3 +248,51 @@ func TestTwoFixtures(t *testing.T) {
 		}
 	}
 }
+
+// TestSubmitWithoutFixtureName: with one fixture an empty name means that
+// fixture; with two the submission is refused naming both, and nothing is
+// queued or recorded.
+func TestSubmitWithoutFixtureName(t *testing.T) {
+	d, _, w := newFakeDaemon(t, "kind: daemon\nstore: {path: x.db}\n"+fixtures)
+	d.Start(context.Background())
+	defer d.Stop("test over")
+	ends := make(chan ending, 1)
+	id, err := d.SubmitNamed(context.Background(), "", "q.yaml", []byte(quickLoop), "test", func(r record.Run, err error) { ends <- ending{r, err} })
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := <-ends
+	if e.run.ID != id || e.run.Fixture != "aldermoor-ring-2" || e.run.State != record.Finished {
+		t.Errorf("run %s on %q: %s %q", e.run.ID, e.run.Fixture, e.run.State, e.run.Reason)
+	}
+
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nfixtures:\n"+
+		"  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"+
+		"  - {fixture: second.yaml, specimen: specimen-ring-r17.yaml}\n")
+	b, err := os.ReadFile(filepath.Join(filepath.Dir(p), "fixture-ring-bench.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	b = []byte(strings.Replace(string(b), "name: aldermoor-ring-2", "name: aldermoor-ring-3", 1))
+	if err := os.WriteFile(filepath.Join(filepath.Dir(p), "second.yaml"), b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cfg, err := Load(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	d.Reload(cfg)
+	before := len(w.RunList())
+	_, err = d.Submit(context.Background(), "", []byte(quickLoop))
+	if !errors.Is(err, ErrFixtureNeeded) || !strings.Contains(err.Error(), "aldermoor-ring-2, aldermoor-ring-3") {
+		t.Errorf("Submit without a fixture on two fixtures: %v", err)
+	}
+	if n := len(w.RunList()); n != before {
+		t.Errorf("a refused submission recorded %d runs", n-before)
+	}
+	for _, fs := range d.Status() {
+		if fs.Queued != 0 || fs.ActiveRun != "" {
+			t.Errorf("fixture %s: %+v after a refused submission", fs.Name, fs)
+		}
+	}
+}
