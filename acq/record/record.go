@@ -57,9 +57,20 @@ const (
 
 // Sample is one concurrent read of every channel, in SI units, uncorrected.
 // Channels a fixture does not have are NaN.
+//
+// Each channel keeps its own time: T is the midpoint (request to reply) of
+// the flux reading — of the current reading on a fixture without an
+// integrator — and DtI and DtB are the offsets of the current's and the
+// field meter's midpoints from T (positive: read later). The current of a
+// sample was therefore read at T+DtI, the probe field at T+DtB. Samples
+// stored before these offsets existed read back with zero offsets. V and
+// TempC are not aligned (V shares the supply's round trip; temperature
+// changes slowly).
 type Sample struct {
-	T        time.Duration // since the run started, monotonic clock
-	TUnc     time.Duration // timing uncertainty (half the largest round trip)
+	T        time.Duration // since the run started, monotonic clock; the flux reading's midpoint
+	TUnc     time.Duration // timing uncertainty of each channel's own time: the largest half round trip
+	DtI      time.Duration // current reading's midpoint − T
+	DtB      time.Duration // field-meter reading's midpoint − T (0 without a field meter)
 	Phase    Phase
 	Setpoint float64 // A, or A/m when sweeping in closed loop on H
 	I        float64 // A, supply current read back

@@ -3,14 +3,17 @@ package sampler
 import (
 	"context"
 	"errors"
+	"fmt"
 	"math"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
 	"hystd/calib/units"
 	"hystd/drivers/instr"
+	"hystd/drivers/link"
 )
 
 var t0 = time.Unix(1_000, 0)
@@ -140,7 +143,7 @@ func TestMissingAndFailedChannels(t *testing.T) {
 	}
 	defer s.Close()
 	got, err := s.Read(context.Background())
-	if err == nil || !strings.Contains(err.Error(), "integrator: no reply") {
+	if err == nil || !strings.Contains(err.Error(), "integrator: read flux: no reply") {
 		t.Fatalf("got %v, want the integrator named", err)
 	}
 	if got.I != 1 || !math.IsNaN(got.Psi) || !math.IsNaN(got.BProbe) || !math.IsNaN(got.TempC) {
@@ -153,7 +156,107 @@ func TestMissingAndFailedChannels(t *testing.T) {
 }
 
 func TestRequiredRoles(t *testing.T) {
-	if _, err := New(Roles{Supply: &fake{}}, t0); err == nil {
-		t.Fatal("no integrator accepted")
+	if _, err := New(Roles{Integrator: &fake{}}, t0); err == nil {
+		t.Fatal("no supply accepted")
+	}
+}
+
+// TestChannelTimes: T is the flux reading's midpoint and each other
+// channel keeps its offset from it; TUnc is the largest half round trip.
+// Worked by hand: flux at 20 ms, current at 14 ms (voltage read after it at
+// 14 ms too: the fake stamps both alike), field at 23 ms → T 20 ms, DtI
+// −6 ms, DtB +3 ms; half round trips 1, 2, 4 ms → TUnc 4 ms. Without an
+// integrator T is the current's midpoint and DtI is 0.
+func TestChannelTimes(t *testing.T) {
+	ms := time.Millisecond
+	tests := []struct {
+		name          string
+		roles         Roles
+		t, dtI, dtB   time.Duration
+		unc           time.Duration
+		psiNaN, bvNaN bool
+	}{
+		{"all channels", Roles{
+			Supply:     &fake{value: 1, at: 14 * ms, unc: 2 * ms},
+			Integrator: &fake{value: 1e-4, at: 20 * ms, unc: 1 * ms},
+			FieldMeter: fieldFake{&fake{value: 0.2, at: 23 * ms, unc: 4 * ms}},
+		}, 20 * ms, -6 * ms, 3 * ms, 4 * ms, false, false},
+		{"supply and integrator", Roles{
+			Supply:     &fake{value: 1, at: 30 * ms, unc: 1 * ms},
+			Integrator: &fake{value: 1e-4, at: 25 * ms, unc: 1 * ms},
+		}, 25 * ms, 5 * ms, 0, 1 * ms, false, true},
+		{"supply only", Roles{
+			Supply: &fake{value: 1, at: 7 * ms, unc: 1 * ms},
+		}, 7 * ms, 0, 0, 1 * ms, true, true},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			s, err := New(tc.roles, t0)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer s.Close()
+			got, err := s.Read(context.Background())
+			if err != nil {
+				t.Fatal(err)
+			}
+			if got.T != tc.t || got.DtI != tc.dtI || got.DtB != tc.dtB || got.TUnc != tc.unc {
+				t.Errorf("T %v DtI %v DtB %v TUnc %v; want %v %v %v %v", got.T, got.DtI, got.DtB, got.TUnc, tc.t, tc.dtI, tc.dtB, tc.unc)
+			}
+			if math.IsNaN(got.Psi) != tc.psiNaN || math.IsNaN(got.BProbe) != tc.bvNaN {
+				t.Errorf("sample %+v", got)
+			}
+		})
+	}
+}
+
+// lateFake times out its first n flux reads (a late reply on a live line),
+// then answers; its status and overload are fixed.
+type lateFake struct {
+	*fake
+	late int
+	st   instr.SupplyStatus
+	ov   bool
+}
+
+func (f *lateFake) ReadFlux(ctx context.Context) (instr.Reading, error) {
+	if f.late > 0 {
+		f.late--
+		return instr.Reading{}, fmt.Errorf("read: %w", link.ErrTimeout)
+	}
+	return f.fake.reading(ctx)
+}
+func (f *lateFake) Status(context.Context) (instr.SupplyStatus, error) { return f.st, nil }
+func (f *lateFake) Overloaded(context.Context) (bool, error)           { return f.ov, nil }
+
+// TestReadAllStatusAndRetry: with Options.Status the supply's status and the
+// integrator's overload come with the sample; two late replies are read
+// again and counted; a hang-up is not retried.
+func TestReadAllStatusAndRetry(t *testing.T) {
+	sup := &lateFake{fake: &fake{value: 2}, st: instr.SupplyStatus{OutputOn: true, Compliance: true}}
+	integ := &lateFake{fake: &fake{value: 3e-4}, late: 2, ov: true}
+	s, err := NewWith(Roles{Supply: sup, Integrator: integ}, t0, Options{Status: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	var n atomic.Int64
+	got, err := s.ReadAll(WithRetryCounter(context.Background(), &n))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !got.Status.OutputOn || !got.Status.Compliance || !got.Overload || got.Sample.Psi != 3e-4 || n.Load() != 2 {
+		t.Fatalf("reading %+v, %d re-reads", got, n.Load())
+	}
+	hung := &fake{err: fmt.Errorf("read: %w", link.ErrDisconnected)}
+	s2, err := New(Roles{Supply: sup, Integrator: hung}, t0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s2.Close()
+	_, err = s2.Read(context.Background())
+	var re *RoleError
+	if !errors.As(err, &re) || re.Role != "integrator" || !errors.Is(err, link.ErrDisconnected) {
+		t.Fatalf("got %v, want the integrator's hang-up", err)
 	}
 }
