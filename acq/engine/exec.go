@@ -15,6 +15,7 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/safety"
+	"hystd/acq/sampler"
 	"hystd/calib/units"
 	"hystd/drivers/instr"
 )
@@ -53,9 +54,10 @@ type exec struct {
 	// lastLevel is the previous closed-loop setpoint, A/m.
 	lastLevel float64
 	haveLevel bool
-	failed    []record.Loop // loops the writer refused
-	retries   atomic.Int64  // late replies read again in the current step
-	notes     []string      // added to the final reason
+	failed    []record.Loop    // loops the writer refused
+	retries   atomic.Int64     // late replies read again in the current step
+	smp       *sampler.Sampler // the run's concurrent reader
+	notes     []string         // added to the final reason
 }
 
 func newExec(p *Plan) *exec {
@@ -106,6 +108,13 @@ func (x *exec) steps(ctx context.Context) error {
 	x.p.run.State, x.p.run.Started = record.Running, x.start
 	x.setState(ctx, record.Running, "", x.start)
 	sup := x.s.Instruments.Supply
+	in := x.s.Instruments
+	smp, err := sampler.NewWith(sampler.Roles{Supply: in.Supply, Integrator: in.Integrator, FieldMeter: in.FieldMeter,
+		Thermometer: in.Thermometer}, x.start, sampler.Options{Status: true})
+	if err != nil {
+		return err
+	}
+	x.smp = smp
 
 	// A supply found energised is brought to zero before anything else.
 	cctx, cancel := context.WithTimeout(ctx, x.comm)
@@ -241,21 +250,18 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if err != nil {
 			return err
 		}
-		cctx, cancel := context.WithTimeout(context.WithValue(ctx, retriesKey{}, &x.retries), x.comm)
-		rd, err := sampleAll(cctx, in, &set)
+		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
+		rd, err := setThenRead(cctx, in.Supply, x.smp, set)
 		cancel()
 		if err != nil {
 			return x.stopErr(ctx, violationOf(err))
 		}
-		at := rd.at
-		if at.IsZero() {
-			at = x.s.Clock.Now()
-		}
-		s := rd.s
-		s.T, s.Phase, s.Setpoint = at.Sub(x.start), phase, level
+		s := rd.Sample
+		s.Phase, s.Setpoint = phase, level
 		x.lastI, x.lastH = s.I, x.hOf(s)
-		if v := x.check.Check(safety.Observation{T: s.T, TUnc: s.TUnc, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
-			Status: rd.status, HaveStatus: true, Energised: x.energd, Overload: rd.overload}); v != nil {
+		// The checks on I and V (slew, resistance) go by the current's own time.
+		if v := x.check.Check(safety.Observation{T: s.T + s.DtI, TUnc: s.TUnc, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
+			Status: rd.Status, HaveStatus: true, Energised: x.energd, Overload: rd.Overload}); v != nil {
 			return v
 		}
 		if st.Loop != nil && phase != "" {
@@ -369,6 +375,9 @@ func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sampl
 // and returns the run.
 func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	state, reason := classify(ctx, err)
+	if x.smp != nil {
+		x.smp.Close() // no Read is pending: the steps have returned
+	}
 	if herr := x.halt(ctx); herr != nil {
 		state = record.Failed
 		x.notes = append(x.notes, fmt.Sprintf("RAMP-DOWN FAILED: %v — the winding may still carry current; bring the supply to zero by hand before touching the fixture", herr))

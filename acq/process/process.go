@@ -73,8 +73,9 @@ type Setup struct {
 	Drift              string                      // DriftCyclic (default), DriftDemagStart or DriftFromLevel
 	DemagFactor        float64                     // N of an open specimen; 0: no correction
 	MuInitialB         units.Tesla                 // where μ_initial is read; 0: DefaultMuInitialB
-	// StartB is B at the first sweep sample for DriftFromLevel.
-	StartB units.Tesla
+	// StartB is B at the first sweep sample for DriftFromLevel; UStartB is
+	// its standard uncertainty, a shift of the whole curve in the budget.
+	StartB, UStartB units.Tesla
 	// Accuracy of the current read-back (A), the integrator (Wb-turns) and
 	// the field meter (T).
 	Current, Flux, Field Accuracy
@@ -146,8 +147,17 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	}
 	nSweep, missing := 0, 0
 	kH := float64(s.N1) / float64(s.PathLength)
+	// The current (or the probe field) of a sample was read at T+DtI (T+DtB),
+	// not at the flux reading's time T: bring it to T first.
+	var hAt []float64
+	var hSkew time.Duration
+	if hFrom == HFromCurrent {
+		hAt, hSkew = alignTo(raw, func(r *record.Sample) (float64, time.Duration) { return r.I, r.DtI })
+	} else {
+		hAt, hSkew = alignTo(raw, func(r *record.Sample) (float64, time.Duration) { return r.BProbe, r.DtB })
+	}
 	for i := range raw {
-		r := &raw[i] // a Sample is 80 bytes: do not copy it
+		r := &raw[i] // a Sample is 96 bytes: do not copy it
 		switch r.Phase {
 		case record.PreHold:
 			if finite(r.Psi) {
@@ -159,19 +169,16 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 			}
 		case record.Sweep:
 			nSweep++
-			hv := r.I
-			if hFrom == HFromFieldMeter {
-				hv = r.BProbe
-			}
+			hv := hAt[i]
 			if !finite(r.Psi) || !finite(hv) {
 				missing++
 				continue
 			}
 			t = append(t, sec(r.T))
 			if hFrom == HFromCurrent {
-				cur = append(cur, kH*r.I) // H = N1·I/l_m, computed here to save a pass
+				cur = append(cur, kH*hv) // H = N1·I/l_m, computed here to save a pass
 			} else {
-				probe = append(probe, r.BProbe)
+				probe = append(probe, hv)
 				temp = append(temp, r.TempC)
 			}
 			psi = append(psi, r.Psi)
@@ -197,6 +204,14 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	corr = append(corr, record.Correction{Name: "geometry", Size: float64(s.PathLength), Unit: "m",
 		Note: fmt.Sprintf("l_m %.6g m, A %.6g m², search coil %.6g m², N1 %d, N2 %d, relative standard uncertainties l_m %.2g, A %.2g; %s",
 			float64(s.PathLength), float64(s.Area), float64(s.CoilArea), s.N1, s.N2, s.RelUPath, s.RelUArea, s.Geometry)})
+	if hSkew != 0 {
+		what := "current read-back"
+		if hFrom == HFromFieldMeter {
+			what = "field-meter reading"
+		}
+		corr = append(corr, record.Correction{Name: "time-alignment", Size: hSkew.Seconds(), Unit: "s",
+			Note: fmt.Sprintf("%s brought to the flux reading's time: values between samples are interpolated linearly in time; largest offset between the readings", what)})
+	}
 	if missing > 0 {
 		corr = append(corr, record.Correction{Name: "missing-samples", Size: float64(missing), Unit: "",
 			Note: fmt.Sprintf("%d of %d sweep samples without a reading left out", missing, nSweep)})
@@ -298,6 +313,10 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 			note = fmt.Sprintf("open curve: B = %.6g T (the given start level) at the first sweep sample", float64(s.StartB))
 			if s.StartB == 0 {
 				note += "; no start level given: the level of B is relative"
+			}
+			if s.UStartB > 0 {
+				sources = append(sources, loop.Source{Name: "start level", BShift: float64(s.UStartB),
+					Note: "Type A: standard error of the level the curve starts from"})
 			}
 		}
 		corr = append(corr, record.Correction{Name: "anchor", Size: off, Unit: "T", Note: note})
@@ -415,6 +434,62 @@ func rawIndex(raw []record.Sample, k int, hFrom string) int {
 		k--
 	}
 	return -1
+}
+
+// alignTo returns, for every raw sample, the value of one channel at the
+// sample's time T, and the largest |offset| met. ch gives the channel's
+// value and the offset of its reading from T (the reading was taken at
+// T+offset). Values between samples are interpolated linearly in time from
+// the channel's neighbouring readings (its own times T+offset, over all
+// phases, in order); before the first or after the last reading the
+// nearest two are extrapolated. A sample whose channel is not finite stays
+// NaN. With every offset zero, or fewer than two finite readings, or
+// reading times that do not increase, the values are returned as read.
+func alignTo(raw []record.Sample, ch func(*record.Sample) (float64, time.Duration)) ([]float64, time.Duration) {
+	out := make([]float64, len(raw))
+	var skew time.Duration
+	n := 0
+	ok := true
+	var last time.Duration
+	for i := range raw {
+		v, dt := ch(&raw[i])
+		out[i] = v
+		if !finite(v) {
+			out[i] = math.NaN()
+			continue
+		}
+		skew = max(skew, dt, -dt)
+		at := raw[i].T + dt
+		if n > 0 && at <= last {
+			ok = false
+		}
+		last = at
+		n++
+	}
+	if skew == 0 || n < 2 || !ok {
+		return out, skew
+	}
+	// The finite readings, at their own times.
+	ts := make([]time.Duration, 0, n)
+	vs := make([]float64, 0, n)
+	for i := range raw {
+		if v, dt := ch(&raw[i]); finite(v) {
+			ts, vs = append(ts, raw[i].T+dt), append(vs, v)
+		}
+	}
+	j := 0 // segment [j, j+1] of the readings
+	for i := range raw {
+		if !finite(out[i]) {
+			continue
+		}
+		at := raw[i].T
+		for j < len(ts)-2 && ts[j+1] < at {
+			j++
+		}
+		f := float64(at-ts[j]) / float64(ts[j+1]-ts[j])
+		out[i] = vs[j] + f*(vs[j+1]-vs[j])
+	}
+	return out, skew
 }
 
 func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }
