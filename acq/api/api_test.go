@@ -776,3 +776,75 @@ func TestSubmitWithoutFixture(t *testing.T) {
 		t.Errorf("runner got fixtures %q", fr.got)
 	}
 }
+
+// TestEventStreamOutlivesServerTimeouts: on the daemon's server (here with
+// 150 ms read, write and idle timeouts) an event stream stays open well past
+// every one of them and still delivers events, while a client that never
+// finishes its request headers is cut off. Socket deadlines run on the wall
+// clock, so this test takes about a second of real time.
+func TestEventStreamOutlivesServerTimeouts(t *testing.T) {
+	const limit = 150 * time.Millisecond
+	hub := live.NewHub(4)
+	h, err := New(Options{Reader: newMemReader(), Live: hub, Heartbeat: limit / 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() {
+		done <- serveListener(ctx, ln, h, daemon.HTTPTimeouts{ReadHeader: limit, Read: limit, Write: limit, Idle: limit})
+	}()
+	defer func() {
+		cancel()
+		if err := <-done; err != nil {
+			t.Errorf("serve: %v", err)
+		}
+	}()
+	base := "http://" + ln.Addr().String()
+	resp, err := http.Get(base + "/api/v1/events")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	rd := bufio.NewReader(resp.Body)
+	opened := time.Now()
+	beats := 0
+	for time.Since(opened) < 5*limit {
+		line, err := rd.ReadString('\n')
+		if err != nil {
+			t.Fatalf("stream cut after %v (%d keep-alives): %v", time.Since(opened).Round(time.Millisecond), beats, err)
+		}
+		if line == ": keep-alive\n" {
+			beats++
+		}
+	}
+	hub.Publish(live.Event{Kind: live.KindState, RunID: "RUN-LATE", State: record.Running, At: t0})
+	for {
+		line, err := rd.ReadString('\n')
+		if err != nil {
+			t.Fatalf("event after %v: %v", time.Since(opened), err)
+		}
+		if strings.HasPrefix(line, "data: ") && strings.Contains(line, "RUN-LATE") {
+			break
+		}
+	}
+
+	// A request whose headers never end is closed after ReadHeader.
+	c, err := net.Dial("tcp", ln.Addr().String())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	if _, err := io.WriteString(c, "GET /healthz HTTP/1.1\r\nHost: x\r\n"); err != nil {
+		t.Fatal(err)
+	}
+	_ = c.SetReadDeadline(time.Now().Add(20 * limit)) // the test's own guard
+	b, err := io.ReadAll(c)
+	if ne, ok := err.(net.Error); ok && ne.Timeout() {
+		t.Fatalf("a client with unfinished headers was kept open (%q)", b)
+	}
+}

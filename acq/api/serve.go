@@ -29,17 +29,15 @@ func Serve(ctx context.Context, addr string, h http.Handler) error {
 	return ServeListener(ctx, ln, h)
 }
 
-// ServeListener is Serve on an open listener, which it closes.
+// ServeListener is Serve on an open listener, which it closes. The server
+// is daemon.NewHTTPServer with daemon.DefaultHTTPTimeouts; the event stream
+// lifts the read and write timeouts for itself.
 func ServeListener(ctx context.Context, ln net.Listener, h http.Handler) error {
-	srv := &http.Server{
-		Handler:           h,
-		ReadHeaderTimeout: 5 * time.Second,
-		ReadTimeout:       30 * time.Second,
-		WriteTimeout:      60 * time.Second, // the event stream lifts it for itself
-		IdleTimeout:       120 * time.Second,
-		MaxHeaderBytes:    32 << 10,
-		BaseContext:       func(net.Listener) context.Context { return ctx },
-	}
+	return serveListener(ctx, ln, h, daemon.DefaultHTTPTimeouts)
+}
+
+func serveListener(ctx context.Context, ln net.Listener, h http.Handler, t daemon.HTTPTimeouts) error {
+	srv := daemon.NewHTTPServer(ctx, h, t)
 	done := make(chan error, 1)
 	go func() { done <- srv.Serve(ln) }()
 	select {

@@ -21,7 +21,10 @@ func (s *server) events(w http.ResponseWriter, r *http.Request) {
 	defer s.streams.Add(-1)
 	only := r.URL.Query().Get("run")
 	rc := http.NewResponseController(w)
-	// The server's write timeout must not cut a stream that lives for hours.
+	// The server's write timeout must not cut a stream that lives for hours:
+	// an expired write deadline fails the next write. (The read deadline
+	// is already lifted by net/http for a request without a body, while it
+	// watches the connection for the client going away.)
 	_ = rc.SetWriteDeadline(time.Time{})
 	w.Header().Set("Content-Type", "text/event-stream")
 	w.Header().Set("Cache-Control", "no-cache")

@@ -133,7 +133,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		d.Stop("http.addr unusable")
 		return fmt.Errorf("%s: http.addr: %w", configPath, err)
 	}
-	srv := &http.Server{Handler: d.Handler(h), ReadHeaderTimeout: 10 * time.Second}
+	srv := NewHTTPServer(context.WithoutCancel(ctx), d.Handler(h), DefaultHTTPTimeouts)
 	go func() {
 		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
 			log.Error("http server stopped", "err", err)
