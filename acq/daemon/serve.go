@@ -225,7 +225,10 @@ func reload(d *Daemon, path string, log *slog.Logger) {
 }
 
 // ReplaySpool commits loops spooled by runs whose store was down, removing
-// each file once committed. Files that still fail are kept.
+// each file once committed. A loop the store already holds (the store
+// came back before the spool was replayed, or a previous replay committed
+// it and was stopped before removing the file) counts as committed: its
+// file is removed too. Files that still fail, or cannot be read, are kept.
 func ReplaySpool(ctx context.Context, dir string, w record.Writer, log *slog.Logger) {
 	files, _ := filepath.Glob(filepath.Join(dir, "*.gob"))
 	for _, f := range files {
@@ -233,12 +236,18 @@ func ReplaySpool(ctx context.Context, dir string, w record.Writer, log *slog.Log
 		if err == nil {
 			err = w.AddLoop(ctx, l)
 		}
-		if err != nil {
+		switch {
+		case errors.Is(err, store.ErrExists):
+			log.Info("spooled loop already in the store; spool file removed", "file", f, "run", l.RunID, "loop", l.N)
+		case err != nil:
 			log.Error("spooled loop not committed; kept", "file", f, "err", err)
 			continue
+		default:
+			log.Info("spooled loop committed", "file", f, "run", l.RunID, "loop", l.N)
 		}
-		log.Info("spooled loop committed", "file", f, "run", l.RunID, "loop", l.N)
-		_ = os.Remove(f)
+		if err := os.Remove(f); err != nil {
+			log.Warn("spool file not removed; the next replay will find the loop stored", "file", f, "err", err)
+		}
 	}
 }
 
