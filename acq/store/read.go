@@ -205,7 +205,7 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 	}
 	l.Amplitude, l.Started = floatOf(amp), timeOf(st)
 
-	rows, err := tx.QueryContext(ctx, `SELECT t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c
+	rows, err := tx.QueryContext(ctx, `SELECT t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns
 		FROM raw_samples WHERE loop_id = ? ORDER BY seq`, id)
 	if err != nil {
 		return record.Loop{}, err
@@ -213,7 +213,7 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 	l.Raw = make([]record.Sample, 0, nRaw)
 	// Scanning into any skips database/sql's conversions (a large share of
 	// the read time); anyFloat and anyInt do the few that are needed.
-	var vals [9]any
+	var vals [11]any
 	dest := make([]any, len(vals))
 	for k := range vals {
 		dest[k] = &vals[k]
@@ -227,7 +227,9 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 		var r record.Sample
 		t, err1 := anyInt(vals[0])
 		tu, err2 := anyInt(vals[1])
-		if err := errors.Join(err1, err2); err != nil {
+		di, err3 := anyInt(vals[9])
+		db, err4 := anyInt(vals[10])
+		if err := errors.Join(err1, err2, err3, err4); err != nil {
 			rows.Close()
 			return record.Loop{}, err
 		}
@@ -237,6 +239,7 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 			phases[string(ph)] = ph
 		}
 		r.T, r.TUnc, r.Phase = time.Duration(t), time.Duration(tu), ph
+		r.DtI, r.DtB = time.Duration(di), time.Duration(db)
 		r.Setpoint, r.I, r.V = anyFloat(vals[3]), anyFloat(vals[4]), anyFloat(vals[5])
 		r.Psi, r.BProbe, r.TempC = anyFloat(vals[6]), anyFloat(vals[7]), anyFloat(vals[8])
 		l.Raw = append(l.Raw, r)

@@ -204,4 +204,11 @@ ALTER TABLE corrections_v2 RENAME TO corrections;
 CREATE INDEX figures_by_name ON figures(name);
 CREATE INDEX loops_by_run ON loops(run_id, n);
 `,
+	// 3: each channel's own time: the offsets of the current's and the
+	// field meter's readings from the flux reading's midpoint t_ns
+	// (record.Sample.DtI, DtB). Samples written before read back with 0.
+	`
+ALTER TABLE raw_samples ADD COLUMN dt_i_ns INTEGER NOT NULL DEFAULT 0;
+ALTER TABLE raw_samples ADD COLUMN dt_b_ns INTEGER NOT NULL DEFAULT 0;
+`,
 }

@@ -309,3 +309,64 @@ func TestMigrateFromV1(t *testing.T) {
 		t.Fatalf("foreign_keys after migration: %d %v", fk, err)
 	}
 }
+
+// TestMigrateFromV2: a file written with schema 2 (samples without the
+// channels' time offsets) gains the offset columns on Open; its samples read
+// back with zero offsets and every other value kept, and new loops keep
+// their offsets.
+func TestMigrateFromV2(t *testing.T) {
+	ctx := context.Background()
+	path := filepath.Join(t.TempDir(), "hystd.db")
+	db, err := store.CreateAtVersionForTest(ctx, path, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t0 := time.Date(2026, 3, 14, 9, 0, 0, 0, time.UTC)
+	r := storetest.SampleRun("run-v2", t0)
+	stmts := []struct {
+		q    string
+		args []any
+	}{
+		{`INSERT INTO runs VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 'finished', '', ?, ?, ?)`,
+			[]any{r.ID, r.Recipe, r.RecipeText, r.Fixture, r.Specimen, r.Material, r.Config, r.ConfigHash, r.Software,
+				r.Queued.UnixNano(), r.Started.UnixNano(), t0.Add(time.Hour).UnixNano()}},
+		{`INSERT INTO loops (id, run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points) VALUES (7, 'run-v2', 1, 'loop', 8000, 'A/m', ?, 2, 0)`, []any{t0.UnixNano()}},
+		{`INSERT INTO raw_samples VALUES (7, 0, 0, 1000, 'pre', 0, 0.001, NULL, 2e-7, NULL, 23.5)`, nil},
+		{`INSERT INTO raw_samples VALUES (7, 1, 2000000, 1000, 'sweep', 1.5, 1.5, 0.7, 3e-4, 0.01, 23.6)`, nil},
+	}
+	for _, st := range stmts {
+		if _, err := db.Exec(st.q, st.args...); err != nil {
+			t.Fatalf("%s: %v", st.q, err)
+		}
+	}
+	db.Close()
+
+	s, err := store.Open(ctx, path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	var v int
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != store.SchemaVersion() || v != 3 {
+		t.Fatalf("schema version %d (%v), want 3", v, err)
+	}
+	l, err := s.Loop(ctx, "run-v2", 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(l.Raw) != 2 || l.Raw[1].Psi != 3e-4 || l.Raw[1].I != 1.5 || l.Raw[1].BProbe != 0.01 || l.Raw[1].T != 2*time.Millisecond ||
+		l.Raw[0].DtI != 0 || l.Raw[0].DtB != 0 || l.Raw[1].DtI != 0 || l.Raw[1].DtB != 0 {
+		t.Fatalf("migrated samples %+v", l.Raw)
+	}
+	want := storetest.SampleLoop("run-v2", 2, 30, t0)
+	if err := s.AddLoop(ctx, want); err != nil {
+		t.Fatal(err)
+	}
+	got, err := s.Loop(ctx, "run-v2", 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := storetest.SameLoop(got, want); d != "" {
+		t.Fatal(d)
+	}
+}

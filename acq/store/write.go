@@ -160,10 +160,10 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	raw := func(i int, a []any) []any {
 		r := l.Raw[i]
 		return append(a, id, i, int64(r.T), int64(r.TUnc), string(r.Phase),
-			real(r.Setpoint), real(r.I), real(r.V), real(r.Psi), real(r.BProbe), real(r.TempC))
+			real(r.Setpoint), real(r.I), real(r.V), real(r.Psi), real(r.BProbe), real(r.TempC), int64(r.DtI), int64(r.DtB))
 	}
-	if err := insertRows(ctx, tx, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c)",
-		11, len(l.Raw), raw); err != nil {
+	if err := insertRows(ctx, tx, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
+		13, len(l.Raw), raw); err != nil {
 		return fmt.Errorf("raw samples: %w", err)
 	}
 	pt := func(i int, a []any) []any {

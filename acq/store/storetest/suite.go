@@ -91,8 +91,10 @@ func SampleLoop(runID string, n, nRaw int, started time.Time) record.Loop {
 			Setpoint: 2 * math.Sin(2*math.Pi*x), I: 2*math.Sin(2*math.Pi*x) + 1e-4, V: 0.5 * math.Cos(2*math.Pi*x),
 			Psi: 1e-3 * math.Tanh(3*math.Sin(2*math.Pi*x)), BProbe: math.NaN(), TempC: 23.5 + x,
 		}
+		s.DtI = -time.Duration(400+i%7) * time.Microsecond // the current read before the flux
 		if i%3 != 0 {
 			s.BProbe = 0.01 * x
+			s.DtB = time.Duration(250+i%5) * time.Microsecond
 		}
 		l.Raw = append(l.Raw, s)
 		if ph == record.Sweep {
@@ -148,7 +150,7 @@ func SameLoop(got, want record.Loop) string {
 	}
 	for i, w := range want.Raw {
 		g := got.Raw[i]
-		if g.T != w.T || g.TUnc != w.TUnc || g.Phase != w.Phase || !same(g.Setpoint, w.Setpoint) || !same(g.I, w.I) ||
+		if g.T != w.T || g.TUnc != w.TUnc || g.DtI != w.DtI || g.DtB != w.DtB || g.Phase != w.Phase || !same(g.Setpoint, w.Setpoint) || !same(g.I, w.I) ||
 			!same(g.V, w.V) || !same(g.Psi, w.Psi) || !same(g.BProbe, w.BProbe) || !same(g.TempC, w.TempC) {
 			return fmt.Sprintf("raw %d: got %+v, want %+v", i, g, w)
 		}
