@@ -145,9 +145,11 @@ func load(ctx context.Context, rd record.Reader, id string, n int) ([]record.Loo
 // CSVHeader is the header row of the CSV export; H, B and t are the columns
 // `hystd analyze` reads. Units: t s (since the run
 // started), setpoint A or A/m (the loop's amplitude unit), I A, V V, psi
-// Wb-turns, B_probe T, temp °C, H A/m, B T, J T. A missing value is an
+// Wb-turns, B_probe T, temp °C, H A/m, B T, J T, dt_I and dt_B_probe s
+// (when the current and the probe field were read, minus t, which is the
+// flux reading's time). A missing value is an
 // empty cell.
-var CSVHeader = []string{"run", "loop", "t", "phase", "branch", "setpoint", "I", "V", "psi", "B_probe", "temp", "H", "B", "J"}
+var CSVHeader = []string{"run", "loop", "t", "phase", "branch", "setpoint", "I", "V", "psi", "B_probe", "temp", "H", "B", "J", "dt_I", "dt_B_probe"}
 
 // writeCSV writes one row per corrected point joined with the raw sample of
 // the same T, ordered by T within each loop; with all, the raw samples
@@ -189,6 +191,17 @@ func writeCSV(w io.Writer, r record.Run, loops []record.Loop, all bool) error {
 				rec = append(rec, num(p.H), num(p.B), num(p.J))
 			} else {
 				rec = append(rec, "", "", "")
+			}
+			// The current's and the probe's read times minus t (the flux
+			// reading's), s; the probe's is empty where there is no probe.
+			if s := row.raw; s != nil {
+				dtB := ""
+				if !math.IsNaN(s.BProbe) {
+					dtB = num(s.DtB.Seconds())
+				}
+				rec = append(rec, num(s.DtI.Seconds()), dtB)
+			} else {
+				rec = append(rec, "", "")
 			}
 			if err := cw.Write(rec); err != nil {
 				return err

@@ -91,6 +91,8 @@ type jsonSample struct {
 	Psi      num    `json:"psi_wb"`
 	BProbe   num    `json:"b_probe_t"`
 	TempC    num    `json:"temp_c"`
+	DtI      num    `json:"dt_i_s"`       // current read time − t_s
+	DtB      num    `json:"dt_b_probe_s"` // field-meter read time − t_s
 }
 
 type jsonPoint struct {
@@ -127,7 +129,7 @@ func writeJSON(w io.Writer, r record.Run, loops []record.Loop, evs []record.Even
 		}
 		for _, s := range l.Raw {
 			jl.Raw = append(jl.Raw, jsonSample{num(s.T.Seconds()), num(s.TUnc.Seconds()), string(s.Phase), num(s.Setpoint),
-				num(s.I), num(s.V), num(s.Psi), num(s.BProbe), num(s.TempC)})
+				num(s.I), num(s.V), num(s.Psi), num(s.BProbe), num(s.TempC), num(s.DtI.Seconds()), num(s.DtB.Seconds())})
 		}
 		for _, p := range l.Points {
 			jl.Points = append(jl.Points, jsonPoint{num(p.T.Seconds()), num(p.H), num(p.B), num(p.J), p.Branch})
