@@ -531,6 +531,9 @@ func TestPlotEndpoint(t *testing.T) {
 		{"?format=png&y=J&units=cgs&width=640&height=480", 200, "image/png", "\x89PNG"},
 		{"?quadrant=2", 200, "image/svg+xml", "<?xml"},
 		{"?format=gif", 400, "application/json", `{"error":"format: \"gif\"`},
+		{"?y=H", 400, "application/json", `{"error":"y: \"H\": want B or J"`},
+		{"?units=imperial", 400, "application/json", `{"error":"units: \"imperial\": want si or cgs"`},
+		{"?quadrant=3", 400, "application/json", `{"error":"quadrant: \"3\": want 2 or nothing"`},
 		{"?width=50", 400, "application/json", `{"error":"width`},
 		{"?colour=red", 400, "application/json", `{"error":"unknown query parameter \"colour\"`},
 	}

@@ -6,6 +6,7 @@ import (
 	"net/http"
 	"strconv"
 
+	"hystd/acq/export"
 	"hystd/acq/plot"
 	"hystd/acq/record"
 )
@@ -25,7 +26,6 @@ func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	var o plot.Options
 	format := q.Get("format")
 	switch format {
 	case "", "svg":
@@ -35,29 +35,9 @@ func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, "format: %q: want svg or png", format)
 		return
 	}
-	switch v := q.Get("y"); v {
-	case "", "B":
-		o.Y = plot.FluxDensity
-	case "J":
-		o.Y = plot.Polarization
-	default:
-		writeError(w, http.StatusBadRequest, "y: %q: want B or J", v)
-		return
-	}
-	switch v := q.Get("units"); v {
-	case "", "si":
-	case "cgs":
-		o.CGS = true
-	default:
-		writeError(w, http.StatusBadRequest, "units: %q: want si or cgs", v)
-		return
-	}
-	switch v := q.Get("quadrant"); v {
-	case "":
-	case "2":
-		o.SecondQuadrant = true
-	default:
-		writeError(w, http.StatusBadRequest, "quadrant: %q: want 2 or nothing", v)
+	o, err := export.PlotStyle{Y: q.Get("y"), Units: q.Get("units"), Quadrant: q.Get("quadrant")}.Options()
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
 		return
 	}
 	for _, d := range []struct {

@@ -25,6 +25,7 @@ func newExportCmd() *cobra.Command {
 		dataDir, format, out string
 		loop                 int
 		all                  bool
+		style                export.PlotStyle
 	)
 	names := make([]string, 0, 5)
 	for _, f := range export.Formats() {
@@ -42,6 +43,9 @@ func newExportCmd() *cobra.Command {
 			"  lp    line protocol, the same points the forwarder sends to the time-series database\n" +
 			"  svg   the B–H plot\n" +
 			"  png   the B–H plot as an image\n" +
+			"        --y J plots J = B − μ0·H, --units cgs labels H in Oe and B, J in G or kG,\n" +
+			"        --quadrant 2 shows the demagnetization curve (H ≤ 0, B ≥ 0) with B, J and (BH)max;\n" +
+			"        the same choices as the API's plot query (?y=&units=&quadrant=)\n" +
 			"The store is only read. With -o the file appears only when the export succeeded.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -52,12 +56,24 @@ func newExportCmd() *cobra.Command {
 			if loop < 0 {
 				return &exitError{code: 2, err: fmt.Errorf("--loop %d: loops are numbered from 1", loop)}
 			}
+			var o export.Options
+			o.Loop, o.AllSamples = loop, all
+			if o.Plot, err = style.Options(); err != nil {
+				return &exitError{code: 2, err: fmt.Errorf("--%w", err)}
+			}
+			if f != export.SVG && f != export.PNG {
+				for _, name := range []string{"y", "units", "quadrant"} {
+					if cmd.Flags().Changed(name) {
+						return &exitError{code: 2, err: fmt.Errorf("--%s: applies to --format svg or png, not %s", name, f)}
+					}
+				}
+			}
 			if out == "" && f == export.PNG {
 				if fd, ok := cmd.OutOrStdout().(*os.File); ok && term.IsTerminal(int(fd.Fd())) {
 					return &exitError{code: 2, err: errors.New("--format png: refusing to write an image to the terminal; use -o FILE")}
 				}
 			}
-			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, args[0], f, export.Options{Loop: loop, AllSamples: all}, out)
+			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, args[0], f, o, out)
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder holding hystd.db")
@@ -65,6 +81,9 @@ func newExportCmd() *cobra.Command {
 	cmd.Flags().IntVar(&loop, "loop", 0, "export only loop N (1-based); 0: every loop")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "write to FILE instead of standard output")
 	cmd.Flags().BoolVar(&all, "all-samples", false, "csv: include the drift-hold samples without H, B, J")
+	cmd.Flags().StringVar(&style.Y, "y", "B", "svg, png: ordinate, B or J")
+	cmd.Flags().StringVar(&style.Units, "units", "si", "svg, png: si (A/m, T) or cgs (Oe, G)")
+	cmd.Flags().StringVar(&style.Quadrant, "quadrant", "", "svg, png: 2 for the second quadrant only")
 	return cmd
 }
 
