@@ -17,7 +17,6 @@ import (
 	"hystd/acq/safety"
 	"hystd/acq/sampler"
 	"hystd/calib/units"
-	"hystd/drivers/instr"
 )
 
 // Timeouts of the engine's own bookkeeping, independent of the run's context.
@@ -424,31 +423,22 @@ func orDash(s string) string {
 	return s
 }
 
-// Ramp-down of the engine's own, before the supply's Halt: setpoints every
-// rampPeriod at the slew limit, then the read-back awaited near zero, so the
-// output is never switched off while the winding still carries current
-// (whatever the driver's Halt does).
-const (
-	rampPeriod = 20 * time.Millisecond
-	settleMax  = 5 * time.Second
-)
-
 // zeroTol is the read-back current taken as zero, A: 5 mA + 0.2 % of the
 // fixture's max current.
 func zeroTol(fx config.Fixture) float64 { return 0.005 + 0.002*fx.Limits.MaxCurrentA }
 
 // SafeHalt brings a fixture's supply to zero and its output off the safe
-// way, as every run's ending does: the current ramped to zero at the lower
-// of the supply's and the fixture's slew limit, the read-back awaited near
-// zero, then the supply's Halt (output off), then the other roles halted,
-// then the read-back checked. lastI (A, NaN: unknown) is where the ramp
-// starts when the current cannot be read. It uses a context of its own
-// derived from ctx without its cancellation, so it also works after an
-// abort. clock nil means RealClock.
+// way, as every run's ending does: the supply's Halt (instr.Supply's
+// contract: ramp to zero at its slew limit — profile.Supply uses the lower of
+// the profile's and the fixture's, acq/fixture passes the fixture's — wait
+// for the read-back near zero, then output off), tried twice if it fails,
+// then the other roles halted, then the read-back checked against
+// 2·zeroTol. The ramp-down is the driver's alone: one mechanism, the one
+// that knows every setpoint it sent. lastI (A, NaN: unknown) sizes the time
+// bound. It uses a context of its own derived from ctx without its
+// cancellation, so it also works after an abort. clock is not used any
+// more (the driver's Halt waits on its own); it stays for the callers.
 func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, clock Clock, log *slog.Logger) (float64, error) {
-	if clock == nil {
-		clock = RealClock{}
-	}
 	if log == nil {
 		log = slog.Default()
 	}
@@ -465,7 +455,6 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 	}
 	hctx, cancel := bg(ctx, d)
 	defer cancel()
-	rampDown(hctx, sup, fx, lastI, slew, clock, log)
 	err := sup.Halt(hctx)
 	if err != nil {
 		log.Error("supply halt failed; trying again", "err", err)
@@ -494,53 +483,6 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 	}
 	log.Info("supply at zero, output off", "current_a", i.Value)
 	return i.Value, nil
-}
-
-func rampDown(ctx context.Context, sup instr.Supply, fx config.Fixture, i0 float64, slew float64, clock Clock, log *slog.Logger) {
-	if r, err := sup.ReadCurrent(ctx); err == nil {
-		i0 = r.Value
-	}
-	if math.IsNaN(i0) || !(slew > 0) {
-		return
-	}
-	step := slew * rampPeriod.Seconds()
-	next := clock.Now()
-	for i := i0; ; {
-		switch {
-		case math.Abs(i) <= step:
-			i = 0
-		case i > 0:
-			i -= step
-		default:
-			i += step
-		}
-		if err := sup.SetCurrent(ctx, units.Ampere(i)); err != nil {
-			log.Error("ramp-down setpoint refused; leaving it to the supply's halt", "err", err)
-			return
-		}
-		if i == 0 {
-			break
-		}
-		next = next.Add(rampPeriod)
-		if clock.SleepUntil(ctx, next) != nil {
-			return
-		}
-	}
-	deadline := clock.Now().Add(settleMax)
-	for {
-		r, err := sup.ReadCurrent(ctx)
-		if err != nil || math.Abs(r.Value) <= zeroTol(fx) {
-			return
-		}
-		if clock.Now().After(deadline) {
-			log.Error("current did not settle at zero after the ramp-down", "current_a", r.Value)
-			return
-		}
-		next = clock.Now().Add(rampPeriod)
-		if clock.SleepUntil(ctx, next) != nil {
-			return
-		}
-	}
 }
 
 // halt ramps the supply to zero at its slew limit and turns it off (SafeHalt).

@@ -87,6 +87,12 @@ type Options struct {
 	// HaltSlew, when positive and below the profile's, is the ramp rate
 	// Halt uses (the fixture's limit).
 	HaltSlew float64 // A/s
+	// HaltSettle bounds how long Halt waits, after its last ramp setpoint,
+	// for the read-back current to fall near zero; 0: DefaultHaltSettle.
+	HaltSettle time.Duration
+	// HaltZero is the read-back current, A, Halt takes as zero; 0: 5 mA
+	// plus 0.2 % of the set_current range.
+	HaltZero float64
 	// Log receives warnings (reconnects, halts) and, at Debug level, every
 	// SCPI exchange. nil: slog.Default().
 	Log *slog.Logger

@@ -169,10 +169,27 @@ func HaltPlan(i0, slew float64, period time.Duration) []float64 {
 	return out
 }
 
+// DefaultHaltSettle bounds Halt's wait for the current to fall near zero
+// after its last ramp setpoint, unless Options.HaltSettle says otherwise.
+const DefaultHaltSettle = 5 * time.Second
+
+// haltZero is the read-back current, A, that Halt takes as zero.
+func (s *Supply) haltZero() float64 {
+	if s.o.HaltZero > 0 {
+		return s.o.HaltZero
+	}
+	return 0.005 + 0.002*float64(s.Limits().MaxCurrent)
+}
+
 // Halt brings the supply to zero current and output off: it reads the
 // current (or, failing that, uses the last setpoint sent), ramps it to zero
 // at the halt slew (the profile's halt_slew_a_per_s, or Options.HaltSlew if
-// lower) in steps of halt_period, then sends the safe-state sequence.
+// lower) in steps of halt_period, then reads the current back every
+// halt_period until it is within Options.HaltZero of zero (the winding's
+// current lags the setpoint by its L/R time), for at most
+// Options.HaltSettle, and only then sends the safe-state sequence. If the
+// current never gets there, or cannot be read back, the safe state is sent
+// all the same and the error says so, with the last current read.
 //
 // Caution: the magnetizing winding stores ½·L·I²; switching the output off
 // or breaking the circuit at full current drives a high voltage across the
@@ -214,19 +231,27 @@ func (s *Supply) Halt(ctx context.Context) error {
 	if known && i0 != 0 {
 		s.o.Log.Warn("halting supply: ramping to zero", "profile", s.p.Name, "from_a", i0, "slew_a_per_s", slew, "steps", len(plan))
 	}
+	ramped := known
 	for k, i := range plan {
 		if err := s.SetCurrent(hctx, units.Ampere(i)); err != nil {
 			errs = append(errs, fmt.Errorf("halt step %d/%d (%g A): %w", k+1, len(plan), i, err))
 			var oe *OpError
 			if !errors.As(err, &oe) || !oe.Reconnected {
+				ramped = false
 				break // the line is gone or the supply refuses: go to the safe state
 			}
 		}
 		if k < len(plan)-1 {
 			if err := s.o.Sleep(hctx, period); err != nil {
 				errs = append(errs, err)
+				ramped = false
 				break
 			}
+		}
+	}
+	if ramped {
+		if err := s.settle(hctx, period); err != nil {
+			errs = append(errs, err)
 		}
 	}
 	if err := s.haltSafe(hctx); err != nil {
@@ -240,6 +265,33 @@ func (s *Supply) Halt(ctx context.Context) error {
 		return &OpError{Profile: s.p.Name, Op: "halt", Err: errors.Join(errs...)}
 	}
 	return nil
+}
+
+// settle reads the current back every period until it is within haltZero
+// of zero, for at most Options.HaltSettle (DefaultHaltSettle).
+func (s *Supply) settle(ctx context.Context, period time.Duration) error {
+	limit := s.o.HaltSettle
+	if limit <= 0 {
+		limit = DefaultHaltSettle
+	}
+	tol := s.haltZero()
+	var waited time.Duration
+	for {
+		r, err := s.ReadCurrent(ctx)
+		if err != nil {
+			return fmt.Errorf("halt: reading the current back after the ramp (output switched off without knowing it reached zero): %w", err)
+		}
+		if math.Abs(r.Value) <= tol {
+			return nil
+		}
+		if waited >= limit || !(period > 0) {
+			return fmt.Errorf("halt: the current still read %.4g A, beyond %.3g A of zero, %v after the last ramp setpoint; output switched off all the same — check the winding and its discharge path before touching the fixture", r.Value, tol, waited)
+		}
+		if err := s.o.Sleep(ctx, period); err != nil {
+			return fmt.Errorf("halt: waiting for the current (%.4g A) to fall: %w", r.Value, err)
+		}
+		waited += period
+	}
 }
 
 // Reset zeroes the integrated flux (reset operation, with its poll).

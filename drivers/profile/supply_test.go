@@ -192,6 +192,7 @@ func TestSupplyHaltRamps(t *testing.T) {
 		ex{Send: "SOUR:CURR 8.000000E-01"}, e,
 		ex{Send: "SOUR:CURR 4.000000E-01"}, e,
 		ex{Send: "SOUR:CURR 0.000000E+00"}, e,
+		ex{Send: "MEAS:CURR?", Reply: "0.001"}, // already within 45 mA of zero: no wait
 		ex{Send: "SOUR:CURR 0"}, e,
 		ex{Send: "OUTP OFF"}, e,
 	)
@@ -220,6 +221,7 @@ func TestSupplyHaltUsesLowerFixtureSlew(t *testing.T) {
 		ex{Send: "I=500.0"}, e,
 		ex{Send: "I=250.0"}, e,
 		ex{Send: "I=0.0"}, e,
+		ex{Send: "I?", Reply: "0,2.0"}, // 2 mA: zero
 		ex{Send: "I=0"}, e, ex{Send: "O=0"}, e, ex{Send: "LCL"}, e,
 	)
 	r.opts.HaltSlew = 2.5 // A/s, below the profile's 5: 0.25 A per 100 ms step
@@ -329,9 +331,46 @@ func TestSupplyHaltImplausibleReading(t *testing.T) {
 	for k := 1; k <= 80; k++ {
 		steps = append(steps, ex{Send: "OUT:AMPS " + fmt.Sprintf("%+.4f", 40*(1-float64(k)/80))}, e)
 	}
-	steps = append(steps, ex{Send: "OUT:AMPS 0"}, e, ex{Send: "OUT:STATE 0"}, e, ex{Send: "REMOTE:LOCK 0"}, e)
+	steps = append(steps, ex{Send: "READ:AMPS?", Reply: "+0.0020 A"},
+		ex{Send: "OUT:AMPS 0"}, e, ex{Send: "OUT:STATE 0"}, e, ex{Send: "REMOTE:LOCK 0"}, e)
 	r := newRig(t, slateSupply, steps...)
 	if err := r.supply(t).Halt(context.Background()); err != nil {
 		t.Fatal(err)
+	}
+}
+
+// TestSupplyHaltWaitsForZero: after its last ramp setpoint Halt reads the
+// current back every halt_period (20 ms) and sends the safe state only once
+// it is within 45 mA (5 mA + 0.2 % of the 20 A range) of zero — the winding's
+// current lags its setpoint by L/R (common practice: never switch a
+// magnetizing winding's supply off while it still carries current). When the
+// current does not fall within HaltSettle the safe state is still sent and
+// the error says how much was left; a failed read-back is reported too.
+func TestSupplyHaltWaitsForZero(t *testing.T) {
+	e := simSupply.noErr
+	ramp := []ex{{Send: "MEAS:CURR?", Reply: "0.4"}, {Send: "SOUR:CURR 0.000000E+00"}, e} // 0.4 A: one 20 ms step at 20 A/s
+	safe := []ex{{Send: "SOUR:CURR 0"}, e, {Send: "OUTP OFF"}, e}
+	read := func(a string) ex { return ex{Send: "MEAS:CURR?", Reply: a} }
+	tests := []struct {
+		name  string
+		reads []ex
+		waits int
+		check check
+	}{
+		{"falls within three periods", []ex{read("0.17"), read("0.08"), read("0.03")}, 2, noError},
+		{"falls exactly to the threshold", []ex{read("-0.045")}, 0, noError},
+		{"never falls", []ex{read("0.2"), read("0.19"), read("0.18"), read("0.17"), read("0.16"), read("0.15")}, 5, isText("still read 0.15 A, beyond 0.045 A of zero")},
+		{"read-back lost", []ex{read("0.2"), {Send: "MEAS:CURR?", Err: scpitest.Timeout}}, 1, isText("reading the current back after the ramp")},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			steps := append(append(append([]ex{}, ramp...), tc.reads...), safe...)
+			r := newRig(t, simSupply, steps...)
+			r.opts.HaltSettle = 100 * time.Millisecond // 5 periods
+			tc.check(t, r.supply(t).Halt(context.Background()))
+			if len(r.sleeps.d) != tc.waits {
+				t.Fatalf("waits %v, want %d × 20ms", r.sleeps.d, tc.waits)
+			}
+		})
 	}
 }
