@@ -131,7 +131,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	}
 	sec := func(d time.Duration) float64 { return float64(d) / float64(time.Second) }
 
-	var preT, preP, postT, postP []float64
+	var preT, preP, preX, postT, postP, postX []float64
 	// Capacity len(raw): the holds are short, and one pass is cheaper than
 	// counting the sweep samples first.
 	n := len(raw)
@@ -161,11 +161,11 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 		switch r.Phase {
 		case record.PreHold:
 			if finite(r.Psi) {
-				preT, preP = append(preT, sec(r.T)), append(preP, r.Psi)
+				preT, preP, preX = append(preT, sec(r.T)), append(preP, r.Psi), append(preX, hAt[i])
 			}
 		case record.PostHold:
 			if finite(r.Psi) {
-				postT, postP = append(postT, sec(r.T)), append(postP, r.Psi)
+				postT, postP, postX = append(postT, sec(r.T)), append(postP, r.Psi), append(postX, hAt[i])
 			}
 		case record.Sweep:
 			nSweep++
@@ -228,10 +228,10 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	// Drift baseline on ψ.
 	var pre, post correct.Rate
 	var havePre, havePost bool
-	if r, err := correct.DriftRate(preT, preP); err == nil {
+	if r, err := holdRate(preT, preP, preX); err == nil {
 		pre, havePre = r, true
 	}
-	if r, err := correct.DriftRate(postT, postP); err == nil {
+	if r, err := holdRate(postT, postP, postX); err == nil {
 		post, havePost = r, true
 	}
 	switch {
@@ -243,7 +243,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	if havePre || havePost {
 		m := correct.Baseline(t, psi, t[0], pre, post)
 		corr = append(corr, record.Correction{Name: "drift-baseline", Size: m / nab, Unit: "T",
-			Note: fmt.Sprintf("rates pre %s, post %s; rate interpolated linearly in time, largest baseline %.3g Wb-turns",
+			Note: fmt.Sprintf("rates pre %s, post %s; each hold fitted as ψ = a + r·t + c·H (flux of a field still settling taken up by c); rate interpolated linearly in time, largest baseline %.3g Wb-turns",
 				rateText(pre, havePre), rateText(post, havePost), m)})
 	} else {
 		corr = append(corr, record.Correction{Name: "drift-baseline", Size: 0, Unit: "T",
