@@ -3,6 +3,7 @@ package daemon
 import (
 	"context"
 	"errors"
+	"io"
 	"log/slog"
 	"os"
 	"path/filepath"
@@ -266,18 +267,7 @@ func TestSubmitWithoutFixtureName(t *testing.T) {
 		t.Errorf("run %s on %q: %s %q", e.run.ID, e.run.Fixture, e.run.State, e.run.Reason)
 	}
 
-	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nfixtures:\n"+
-		"  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"+
-		"  - {fixture: second.yaml, specimen: specimen-ring-r17.yaml}\n")
-	b, err := os.ReadFile(filepath.Join(filepath.Dir(p), "fixture-ring-bench.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	b = []byte(strings.Replace(string(b), "name: aldermoor-ring-2", "name: aldermoor-ring-3", 1))
-	if err := os.WriteFile(filepath.Join(filepath.Dir(p), "second.yaml"), b, 0o644); err != nil {
-		t.Fatal(err)
-	}
-	cfg, err := Load(p)
+	cfg, err := Load(twoFixtureConfig(t))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -294,5 +284,42 @@ func TestSubmitWithoutFixtureName(t *testing.T) {
 		if fs.Queued != 0 || (fs.ActiveRun != "" && fs.ActiveRun != id) {
 			t.Errorf("fixture %s: %+v after a refused submission", fs.Name, fs)
 		}
+	}
+}
+
+// twoFixtureConfig writes a daemon config driving aldermoor-ring-2 and
+// aldermoor-ring-3 and returns its path.
+func twoFixtureConfig(t *testing.T) string {
+	t.Helper()
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nfixtures:\n"+
+		"  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"+
+		"  - {fixture: second.yaml, specimen: specimen-ring-r17.yaml}\n")
+	b, err := os.ReadFile(filepath.Join(filepath.Dir(p), "fixture-ring-bench.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	b = []byte(strings.Replace(string(b), "name: aldermoor-ring-2", "name: aldermoor-ring-3", 1))
+	if err := os.WriteFile(filepath.Join(filepath.Dir(p), "second.yaml"), b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+// TestRunOnceNeedsFixtureName: `hystd run` on a config with two fixtures
+// and no --fixture is refused naming them, before any store or port is
+// opened.
+func TestRunOnceNeedsFixtureName(t *testing.T) {
+	p := twoFixtureConfig(t)
+	opened := false
+	_, err := RunOnce(context.Background(), RunOptions{ConfigPath: p, RecipePath: "none.yaml",
+		Wiring: Wiring{Stderr: io.Discard, Open: func(context.Context, config.Fixture, config.Specimen) (Opened, error) {
+			opened = true
+			return Opened{}, errors.New("not here")
+		}}})
+	if !errors.Is(err, ErrFixtureNeeded) || !strings.Contains(err.Error(), "aldermoor-ring-2, aldermoor-ring-3; name one with --fixture") {
+		t.Errorf("RunOnce: %v", err)
+	}
+	if _, serr := os.Stat(filepath.Join(filepath.Dir(p), "x.db")); !os.IsNotExist(serr) || opened {
+		t.Errorf("a refused run opened the store (%v) or the instruments (%v)", serr, opened)
 	}
 }

@@ -7,7 +7,6 @@ import (
 	"io"
 	"os"
 	"os/signal"
-	"strings"
 	"sync"
 	"syscall"
 
@@ -56,11 +55,7 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	case len(cfg.Fixtures) == 1:
 		lf = cfg.Fixtures[0]
 	default:
-		var names []string
-		for _, f := range cfg.Fixtures {
-			names = append(names, f.Name)
-		}
-		return record.Run{}, fmt.Errorf("%s drives %d fixtures (%s): name one with --fixture", o.ConfigPath, len(names), strings.Join(names, ", "))
+		return record.Run{}, fmt.Errorf("%w: %s drives %s; name one with --fixture", ErrFixtureNeeded, o.ConfigPath, fixtureNames(cfg))
 	}
 	rc, err := recipe.Load(o.RecipePath)
 	if err != nil {

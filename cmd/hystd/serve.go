@@ -1,8 +1,6 @@
 package main
 
 import (
-	"net/http"
-
 	"github.com/spf13/cobra"
 
 	"hystd/acq/api"
@@ -26,10 +24,7 @@ func newServeCmd() *cobra.Command {
 			return daemon.Serve(cmd.Context(), cfgPath, daemon.Wiring{
 				Software: version,
 				Stderr:   cmd.ErrOrStderr(),
-				API: func(p daemon.APIParts) (http.Handler, error) {
-					return api.New(api.Options{Reader: p.Reader, Runner: p.Runner, Live: p.Live, Gatherer: p.Metrics,
-						Token: p.Token, Version: p.Version, Logger: p.Log})
-				},
+				API:      api.ForDaemon,
 			})
 		},
 	}
