@@ -4,6 +4,7 @@ import (
 	"math"
 
 	"hystd/calib/correct"
+	"hystd/calib/loop"
 )
 
 // holdRate is the integrator's drift rate over a hold: ψ = a + r·t +
@@ -57,4 +58,65 @@ func holdRate(t, psi, x []float64) (correct.Rate, error) {
 	}
 	u := math.Sqrt(ss / float64(n-3) * sxx / det)
 	return correct.Rate{Rate: r, U: u, T: mt, N: n}, nil
+}
+
+// tipSlope is dB/dH (T per A/m) at the tip at sample i: a least-squares
+// line over the contiguous samples around i whose H lies within band (A/m)
+// of h[i]. ok is false with fewer than 5 such samples or no spread in H.
+func tipSlope(h, b []float64, i int, band float64) (slope float64, ok bool) {
+	if i < 0 || i >= len(h) || len(b) != len(h) {
+		return 0, false
+	}
+	lo, hi := i, i
+	for lo > 0 && math.Abs(h[lo-1]-h[i]) <= band {
+		lo--
+	}
+	for hi+1 < len(h) && math.Abs(h[hi+1]-h[i]) <= band {
+		hi++
+	}
+	n := hi - lo + 1
+	if n < 5 {
+		return 0, false
+	}
+	var mh, mb float64
+	for j := lo; j <= hi; j++ {
+		mh += h[j]
+		mb += b[j]
+	}
+	mh, mb = mh/float64(n), mb/float64(n)
+	var shh, shb float64
+	for j := lo; j <= hi; j++ {
+		shh += (h[j] - mh) * (h[j] - mh)
+		shb += (h[j] - mh) * (b[j] - mb)
+	}
+	if !(shh > 0) {
+		return 0, false
+	}
+	return shb / shh, true
+}
+
+// tipAsymmetry returns H_top + H_bottom (A/m, the mean H of the top tips
+// plus that of the bottom tips: 0 for a loop whose tips are at ±the same
+// field) and the mean slope dB/dH at the tips (tipSlope with band). ok is
+// false when a kind of tip is missing or no slope could be fitted.
+func tipAsymmetry(t, h, b []float64, tips []loop.Tip, band float64) (sumH, slope float64, ok bool) {
+	var ht, hb, ks float64
+	var nt, nb, nk int
+	for _, tp := range tips {
+		if tp.Top {
+			ht += tp.H
+			nt++
+		} else {
+			hb += tp.H
+			nb++
+		}
+		if k, ok := tipSlope(h, b, tp.Index, band); ok {
+			ks += k
+			nk++
+		}
+	}
+	if nt == 0 || nb == 0 || nk == 0 {
+		return 0, 0, false
+	}
+	return ht/float64(nt) + hb/float64(nb), ks / float64(nk), true
 }

@@ -3,9 +3,11 @@ package process
 import (
 	"errors"
 	"math"
+	"strings"
 	"testing"
 
 	"hystd/acq/record"
+	"hystd/calib/loop"
 	"hystd/calib/synth"
 	"hystd/calib/units"
 )
@@ -79,4 +81,49 @@ func TestTopOfRefuses(t *testing.T) {
 	if _, _, err := (TopLevel{}).At(0); !errors.Is(err, ErrNoTop) {
 		t.Errorf("zero TopLevel: %v", err)
 	}
+}
+
+// TestTipsShortOfTheField: under closed-loop field control the tips of a
+// recorded loop miss ±H_m by some kA/m (the yoke's field lags the ramp).
+// The straight-line magnet of REFERENCE §10 item 12 swept +2 MA/m →
+// −1.99 MA/m → +1.985 MA/m is still a symmetric loop, so its centred level
+// at the top must be the line B = Br + μ0·μ_rec·H (synth.Magnet) there;
+// centering on the raw tip B alone would put it off by
+// μ0·μ_rec·(H_top + H_bottom)/2 ≈ 3.3 mT, and closing on the raw tips would
+// tilt it by another μ0·μ_rec·15 kA/m ≈ 20 mT over the loop.
+func TestTipsShortOfTheField(t *testing.T) {
+	l := synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
+	var tt, h, b []float64
+	add := func(from, to float64, n, dir int) {
+		for i := range n {
+			hv := from + (to-from)*float64(i)/float64(n)
+			tt, h, b = append(tt, float64(len(tt))*1e-3), append(h, hv), append(b, l.B(hv, dir))
+		}
+	}
+	add(2e6, -1.99e6, 6000, -1)
+	add(-1.99e6, 1.985e6, 6001, 1)
+	s := Setup{Area: 100e-6, N2: 50, HFrom: HFromFieldMeter, Class: ClassMagnet}
+	bn := bench{s: s, hold: 300, v0: -5e-6, noiseI: 1e-5, noiseP: 1e-7, probe: true}
+	pts, fs, cs, err := Loop(bn.raw(tt, h, b, 1e-3), bn.s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := corrs(cs)
+	if !strings.Contains(c["centering"].Note, "differing") || !strings.Contains(c["closure"].Note, "less dB/dH") {
+		t.Errorf("corrections do not say the tips' H differ: %q, %q", c["centering"].Note, c["closure"].Note)
+	}
+	top, err := TopOf(pts)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, hv := range []float64{1.985e6, 2e6} {
+		got, _, err := top.At(hv)
+		want := 1.3 + units.Mu0*1.05*hv
+		// 0.3 mT: the integrator noise (20 µT per sample) averaged, plus
+		// what a straight-line tip slope leaves of the 5 mT closure error.
+		if err != nil || math.Abs(float64(got)-want) > 3e-4 {
+			t.Errorf("level at %g A/m: %.5f T (%v), want %.5f T", hv, float64(got), err, want)
+		}
+	}
+	within(t, "short tips", loop.FigBr, figs(fs), 1.3, 1e-3)
 }

@@ -268,12 +268,21 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	if drift == DriftCyclic {
 		tips := shape.Tips(t, h, b)
 		if ta, tb, ok := loop.ClosurePair(tips); ok {
-			eps := tb.B - ta.B
+			// The two tips are the same state only at the same H: under
+			// closed-loop field control the last tip may stop short of the
+			// first, so the B that the H difference accounts for (slope of
+			// B on H at the first tip) is not closure error.
+			eps, dh := tb.B-ta.B, tb.H-ta.H
+			hNote := ""
+			if k, ok := tipSlope(h, b, ta.Index, TopFraction*(shape.Hi-shape.Lo)); ok && dh != 0 {
+				eps -= k * dh
+				hNote = fmt.Sprintf(", less dB/dH·ΔH = %.4g T for the tips' H differing by %.4g A/m", k*dh, dh)
+			}
 			if err := correct.Closure(t, b, ta.T, tb.T, eps); err != nil {
 				return nil, nil, nil, err
 			}
 			corr = append(corr, record.Correction{Name: "closure", Size: eps, Unit: "T",
-				Note: fmt.Sprintf("ε = B(t_b) − B(t_a) between tips at %.4g s and %.4g s, removed linearly in time", ta.T, tb.T)})
+				Note: fmt.Sprintf("ε = B(t_b) − B(t_a) between tips at %.4g s and %.4g s%s, removed linearly in time", ta.T, tb.T, hNote)})
 			if ue := math.Hypot(ta.UB, tb.UB); ue > 0 {
 				// ε is the difference of two tip means: its uncertainty tilts B
 				// by u(ε)·(t − t_a)/(t_b − t_a).
@@ -294,9 +303,16 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 		}
 		tips = shape.Tips(t, h, b)
 		if top, bot, ok := loop.TipLevels(tips); ok {
+			// A symmetric loop has B_top = −B_bottom only at H_top = −H_bottom;
+			// under closed-loop control the tips may miss that by some kA/m.
+			sumH, k, ok := tipAsymmetry(t, h, b, tips, TopFraction*(shape.Hi-shape.Lo))
+			note := "offset (B_top + B_bottom)/2 subtracted"
+			if ok && sumH != 0 {
+				top -= k * sumH
+				note = fmt.Sprintf("offset (B_top + B_bottom − dB/dH·(H_top + H_bottom))/2 subtracted, the tips' H differing in magnitude by %.4g A/m (dB/dH·ΔH = %.4g T)", sumH, k*sumH)
+			}
 			off := correct.Center(b, top, bot)
-			corr = append(corr, record.Correction{Name: "centering", Size: off, Unit: "T",
-				Note: "offset (B_top + B_bottom)/2 subtracted"})
+			corr = append(corr, record.Correction{Name: "centering", Size: off, Unit: "T", Note: note})
 		}
 	} else {
 		off := correct.Anchor(b, 0)
