@@ -91,7 +91,7 @@ type Options struct {
 	// for the read-back current to fall near zero; 0: DefaultHaltSettle.
 	HaltSettle time.Duration
 	// HaltZero is the read-back current, A, Halt takes as zero; 0: 5 mA
-	// plus 0.2 % of the set_current range.
+	// plus the offset of the read_current accuracy.
 	HaltZero float64
 	// Log receives warnings (reconnects, halts) and, at Debug level, every
 	// SCPI exchange. nil: slog.Default().

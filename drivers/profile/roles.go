@@ -173,12 +173,18 @@ func HaltPlan(i0, slew float64, period time.Duration) []float64 {
 // after its last ramp setpoint, unless Options.HaltSettle says otherwise.
 const DefaultHaltSettle = 5 * time.Second
 
-// haltZero is the read-back current, A, that Halt takes as zero.
+// haltZero is the read-back current, A, that Halt takes as zero:
+// Options.HaltZero, or 5 mA plus the read_current accuracy's offset (its
+// 95 % zero error), so that a read-back at zero is never taken for current.
 func (s *Supply) haltZero() float64 {
 	if s.o.HaltZero > 0 {
 		return s.o.HaltZero
 	}
-	return 0.005 + 0.002*float64(s.Limits().MaxCurrent)
+	tol := 0.005
+	if a := s.p.Operations[OpReadCurrent].Accuracy; a != nil {
+		tol += a.Offset
+	}
+	return tol
 }
 
 // Halt brings the supply to zero current and output off: it reads the

@@ -68,7 +68,7 @@ func TestSupplySets(t *testing.T) {
 		sleeps []time.Duration
 	}{
 		{"sim set current", simSupply, func(s *Supply) error { return s.SetCurrent(context.Background(), 2.5) },
-			[]ex{{Send: "SOUR:CURR 2.500000E+00"}, simSupply.noErr}, noError, nil},
+			[]ex{{Send: "SOUR:CURR 2.500000E+00"}, simSupply.noErr}, noError, []time.Duration{4 * time.Millisecond}},
 		{"sim set beyond range rejected, nothing sent", simSupply, func(s *Supply) error { return s.SetCurrent(context.Background(), 20.5) },
 			nil, isRange, nil},
 		{"sim set below range rejected", simSupply, func(s *Supply) error { return s.SetCurrent(context.Background(), -21) },
@@ -192,7 +192,7 @@ func TestSupplyHaltRamps(t *testing.T) {
 		ex{Send: "SOUR:CURR 8.000000E-01"}, e,
 		ex{Send: "SOUR:CURR 4.000000E-01"}, e,
 		ex{Send: "SOUR:CURR 0.000000E+00"}, e,
-		ex{Send: "MEAS:CURR?", Reply: "0.001"}, // already within 45 mA of zero: no wait
+		ex{Send: "MEAS:CURR?", Reply: "0.001"}, // already within 6 mA of zero: no wait
 		ex{Send: "SOUR:CURR 0"}, e,
 		ex{Send: "OUTP OFF"}, e,
 	)
@@ -202,14 +202,22 @@ func TestSupplyHaltRamps(t *testing.T) {
 	if err := s.Halt(ctx); err != nil {
 		t.Fatal(err)
 	}
-	if len(r.sleeps.d) != 4 {
-		t.Fatalf("waits %v, want 4 × 20ms", r.sleeps.d)
+	// Between the 5 setpoints 4 halt periods; after each setting the
+	// profile's 4 ms settle.
+	if n := count(r.sleeps.d, 20*time.Millisecond); n != 4 || count(r.sleeps.d, 4*time.Millisecond) != 5 {
+		t.Fatalf("waits %v, want 4 × 20ms between 5 settings of 4ms settle each", r.sleeps.d)
 	}
-	for _, d := range r.sleeps.d {
-		if d != 20*time.Millisecond {
-			t.Fatalf("waits %v, want 4 × 20ms", r.sleeps.d)
+}
+
+// count is how many of ds equal d.
+func count(ds []time.Duration, d time.Duration) int {
+	n := 0
+	for _, x := range ds {
+		if x == d {
+			n++
 		}
 	}
+	return n
 }
 
 func TestSupplyHaltUsesLowerFixtureSlew(t *testing.T) {
@@ -341,11 +349,12 @@ func TestSupplyHaltImplausibleReading(t *testing.T) {
 
 // TestSupplyHaltWaitsForZero: after its last ramp setpoint Halt reads the
 // current back every halt_period (20 ms) and sends the safe state only once
-// it is within 45 mA (5 mA + 0.2 % of the 20 A range) of zero — the winding's
+// it is within 6 mA of zero — the winding's
 // current lags its setpoint by L/R (common practice: never switch a
 // magnetizing winding's supply off while it still carries current). When the
 // current does not fall within HaltSettle the safe state is still sent and
 // the error says how much was left; a failed read-back is reported too.
+// Threshold: 5 mA plus the sim-supply read_current offset of 1 mA.
 func TestSupplyHaltWaitsForZero(t *testing.T) {
 	e := simSupply.noErr
 	ramp := []ex{{Send: "MEAS:CURR?", Reply: "0.4"}, {Send: "SOUR:CURR 0.000000E+00"}, e} // 0.4 A: one 20 ms step at 20 A/s
@@ -357,9 +366,9 @@ func TestSupplyHaltWaitsForZero(t *testing.T) {
 		waits int
 		check check
 	}{
-		{"falls within three periods", []ex{read("0.17"), read("0.08"), read("0.03")}, 2, noError},
-		{"falls exactly to the threshold", []ex{read("-0.045")}, 0, noError},
-		{"never falls", []ex{read("0.2"), read("0.19"), read("0.18"), read("0.17"), read("0.16"), read("0.15")}, 5, isText("still read 0.15 A, beyond 0.045 A of zero")},
+		{"falls within three periods", []ex{read("0.17"), read("0.03"), read("0.004")}, 2, noError},
+		{"falls exactly to the threshold", []ex{read("-0.006")}, 0, noError},
+		{"never falls", []ex{read("0.2"), read("0.19"), read("0.18"), read("0.17"), read("0.16"), read("0.15")}, 5, isText("still read 0.15 A, beyond 0.006 A of zero")},
 		{"read-back lost", []ex{read("0.2"), {Send: "MEAS:CURR?", Err: scpitest.Timeout}}, 1, isText("reading the current back after the ramp")},
 	}
 	for _, tc := range tests {
@@ -368,8 +377,8 @@ func TestSupplyHaltWaitsForZero(t *testing.T) {
 			r := newRig(t, simSupply, steps...)
 			r.opts.HaltSettle = 100 * time.Millisecond // 5 periods
 			tc.check(t, r.supply(t).Halt(context.Background()))
-			if len(r.sleeps.d) != tc.waits {
-				t.Fatalf("waits %v, want %d × 20ms", r.sleeps.d, tc.waits)
+			if count(r.sleeps.d, 20*time.Millisecond) != tc.waits {
+				t.Fatalf("waits %v, want %d × 20ms (besides the setting's settle)", r.sleeps.d, tc.waits)
 			}
 		})
 	}
