@@ -76,6 +76,11 @@ type Setup struct {
 	// StartB is B at the first sweep sample for DriftFromLevel; UStartB is
 	// its standard uncertainty, a shift of the whole curve in the budget.
 	StartB, UStartB units.Tesla
+	// StartLevel, when set, replaces StartB and UStartB for DriftFromLevel:
+	// Loop calls it once with H (A/m, before any demagnetizing correction)
+	// at the first sweep sample, and an error from it is Loop's error. It
+	// lets a caller place an open curve by its start field in one pass.
+	StartLevel func(h0 float64) (b, u units.Tesla, err error)
 	// Accuracy of the current read-back (A), the integrator (Wb-turns) and
 	// the field meter (T).
 	Current, Flux, Field Accuracy
@@ -151,10 +156,11 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	// not at the flux reading's time T: bring it to T first.
 	var hAt []float64
 	var hSkew time.Duration
+	var hMoved int
 	if hFrom == HFromCurrent {
-		hAt, hSkew = alignTo(raw, func(r *record.Sample) (float64, time.Duration) { return r.I, r.DtI })
+		hAt, hSkew, hMoved = alignTo(raw, func(r *record.Sample) (float64, time.Duration) { return r.I, r.DtI })
 	} else {
-		hAt, hSkew = alignTo(raw, func(r *record.Sample) (float64, time.Duration) { return r.BProbe, r.DtB })
+		hAt, hSkew, hMoved = alignTo(raw, func(r *record.Sample) (float64, time.Duration) { return r.BProbe, r.DtB })
 	}
 	for i := range raw {
 		r := &raw[i] // a Sample is 96 bytes: do not copy it
@@ -210,7 +216,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 			what = "field-meter reading"
 		}
 		corr = append(corr, record.Correction{Name: "time-alignment", Size: hSkew.Seconds(), Unit: "s",
-			Note: fmt.Sprintf("%s brought to the flux reading's time: values between samples are interpolated linearly in time; largest offset between the readings", what)})
+			Note: fmt.Sprintf("%s brought to the flux reading's time: values between samples are interpolated linearly in time within one setpoint (%d of %d samples moved; across a setpoint step a sample keeps its own reading, both read after the setting completed); size: largest offset between the readings", what, hMoved, len(raw))})
 	}
 	if missing > 0 {
 		corr = append(corr, record.Correction{Name: "missing-samples", Size: float64(missing), Unit: "",
@@ -322,6 +328,13 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 				h[0], DriftFromLevel)
 		}
 		if drift == DriftFromLevel {
+			if s.StartLevel != nil {
+				sb, su, err := s.StartLevel(h[0])
+				if err != nil {
+					return nil, nil, nil, err
+				}
+				s.StartB, s.UStartB = sb, su
+			}
 			for i := range b {
 				b[i] += float64(s.StartB)
 			}
@@ -453,15 +466,24 @@ func rawIndex(raw []record.Sample, k int, hFrom string) int {
 }
 
 // alignTo returns, for every raw sample, the value of one channel at the
-// sample's time T, and the largest |offset| met. ch gives the channel's
-// value and the offset of its reading from T (the reading was taken at
-// T+offset). Values between samples are interpolated linearly in time from
-// the channel's neighbouring readings (its own times T+offset, over all
-// phases, in order); before the first or after the last reading the
-// nearest two are extrapolated. A sample whose channel is not finite stays
-// NaN. With every offset zero, or fewer than two finite readings, or
+// sample's time T, the largest |offset| met and how many values it moved.
+// ch gives the channel's value and the offset of its reading from T (the
+// reading was taken at T+offset).
+//
+// Values between samples are interpolated linearly in time from the
+// channel's neighbouring readings (its own times T+offset, over all phases,
+// in order) — within one setpoint only. The engine completes each setting
+// before it reads the channels of a tick, so a step of the setpoint never
+// lies between the readings of one sample: the current after a step is
+// that of the new level, not a ramp from the previous sample's. Where the
+// two readings around T belong to different setpoints the sample keeps its
+// own reading (interpolating across the step would pull the value towards
+// the previous level by offset/period of a step, narrowing the loop).
+// Before the first or after the last reading the nearest two are
+// extrapolated, under the same rule. A sample whose channel is not finite
+// stays NaN. With every offset zero, or fewer than two finite readings, or
 // reading times that do not increase, the values are returned as read.
-func alignTo(raw []record.Sample, ch func(*record.Sample) (float64, time.Duration)) ([]float64, time.Duration) {
+func alignTo(raw []record.Sample, ch func(*record.Sample) (float64, time.Duration)) ([]float64, time.Duration, int) {
 	out := make([]float64, len(raw))
 	var skew time.Duration
 	n := 0
@@ -483,16 +505,18 @@ func alignTo(raw []record.Sample, ch func(*record.Sample) (float64, time.Duratio
 		n++
 	}
 	if skew == 0 || n < 2 || !ok {
-		return out, skew
+		return out, skew, 0
 	}
-	// The finite readings, at their own times.
+	// The finite readings, at their own times, with their setpoints.
 	ts := make([]time.Duration, 0, n)
 	vs := make([]float64, 0, n)
+	sp := make([]float64, 0, n)
 	for i := range raw {
 		if v, dt := ch(&raw[i]); finite(v) {
-			ts, vs = append(ts, raw[i].T+dt), append(vs, v)
+			ts, vs, sp = append(ts, raw[i].T+dt), append(vs, v), append(sp, raw[i].Setpoint)
 		}
 	}
+	moved := 0
 	j := 0 // segment [j, j+1] of the readings
 	for i := range raw {
 		if !finite(out[i]) {
@@ -502,10 +526,16 @@ func alignTo(raw []record.Sample, ch func(*record.Sample) (float64, time.Duratio
 		for j < len(ts)-2 && ts[j+1] < at {
 			j++
 		}
+		if sp[j] != sp[j+1] || sp[j] != raw[i].Setpoint {
+			continue // a setpoint step between the readings: keep the sample's own
+		}
 		f := float64(at-ts[j]) / float64(ts[j+1]-ts[j])
-		out[i] = vs[j] + f*(vs[j+1]-vs[j])
+		if v := vs[j] + f*(vs[j+1]-vs[j]); v != out[i] {
+			out[i] = v
+			moved++
+		}
 	}
-	return out, skew
+	return out, skew, moved
 }
 
 func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }
