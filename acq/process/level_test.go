@@ -127,3 +127,35 @@ func TestTipsShortOfTheField(t *testing.T) {
 	}
 	within(t, "short tips", loop.FigBr, figs(fs), 1.3, 1e-3)
 }
+
+// TestStartLevel: Loop asks the callback for the level at the curve's first
+// field and uses what it returns as StartB; its error is Loop's error.
+func TestStartLevel(t *testing.T) {
+	l := synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
+	var tt, h, b []float64
+	for i := range 3000 {
+		hv := 2e6 - 3e6*float64(i)/3000
+		tt, h, b = append(tt, float64(i)*1e-3), append(h, hv), append(b, l.B(hv, -1))
+	}
+	s := Setup{Area: 100e-6, N2: 50, HFrom: HFromFieldMeter, Class: ClassMagnet, Drift: DriftFromLevel}
+	bn := bench{s: s, hold: 100, probe: true}
+	raw := bn.raw(tt, h, b, 1e-3)
+	var asked float64
+	bn.s.StartLevel = func(h0 float64) (units.Tesla, units.Tesla, error) {
+		asked = h0
+		return units.Tesla(l.B(h0, -1)), 1e-4, nil
+	}
+	_, fs, _, err := Loop(raw, bn.s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if math.Abs(asked-2e6) > 1 {
+		t.Errorf("asked at H = %g A/m, want the first sweep sample's 2e6", asked)
+	}
+	within(t, "start level", loop.FigBr, figs(fs), 1.3, 1e-3)
+	refused := errors.New("no level here")
+	bn.s.StartLevel = func(float64) (units.Tesla, units.Tesla, error) { return 0, 0, refused }
+	if _, _, _, err := Loop(raw, bn.s); !errors.Is(err, refused) {
+		t.Errorf("err %v, want the callback's", err)
+	}
+}
