@@ -19,9 +19,9 @@ import (
 // drift, gain error (0.2 %) and noise, Hall-probe errors, sampling and the
 // drift, closure and centering corrections, so it must agree with the truth
 // within its stated uncertainty plus a small margin for the part of the
-// chain the budget does not hold (0.5 % for Br, 0.75 % for HcB). Over six
-// runs on a shared 2-core machine Br was 0.36–0.79 % low, always within U;
-// HcB was −0.02 to +1.3 % off, beyond U by at most 0.1 A/m (0.2 %).
+// chain the budget does not hold (0.5 % for Br, 0.75 % for HcB). Over nine
+// runs on a shared 2-core machine Br was 0.33–0.79 % low, always within U;
+// HcB was −0.02 to +1.3 % off, beyond U by at most 0.13 A/m (0.26 %).
 func TestDemoRecoversTheSpecimensTruth(t *testing.T) {
 	dir := t.TempDir()
 	var out strings.Builder
