@@ -363,6 +363,12 @@ func TestRunAndLoopJSON(t *testing.T) {
 	if v := raw["b_probe_t"].([]any)[0]; v != nil {
 		t.Errorf("NaN channel encoded as %v, want null", v)
 	}
+	// Each channel's read-time offset comes with every raw sample.
+	for _, k := range []string{"dt_i_s", "dt_b_probe_s"} {
+		if d, ok := raw[k].([]any); !ok || len(d) != len(raw["t_s"].([]any)) || d[0] != 0.0 {
+			t.Errorf("raw %s: %v", k, raw[k])
+		}
+	}
 	figs := l["figures"].([]any)
 	if u := figs[2].(map[string]any)["u"]; u != nil {
 		t.Errorf("NaN uncertainty encoded as %v", u)

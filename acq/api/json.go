@@ -135,6 +135,8 @@ type rawJSON struct {
 	Psi      nums     `json:"psi_wb"`
 	BProbe   nums     `json:"b_probe_t"`
 	TempC    nums     `json:"temp_c"`
+	DtI      nums     `json:"dt_i_s"`       // current read time − t_s
+	DtB      nums     `json:"dt_b_probe_s"` // field-meter read time − t_s
 }
 
 func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
@@ -157,10 +159,11 @@ func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
 	if withRaw {
 		n := len(l.Raw)
 		r := &rawJSON{make(nums, n), make(nums, n), make([]string, n), make(nums, n), make(nums, n),
-			make(nums, n), make(nums, n), make(nums, n), make(nums, n)}
+			make(nums, n), make(nums, n), make(nums, n), make(nums, n), make(nums, n), make(nums, n)}
 		for i, s := range l.Raw {
 			r.T[i], r.TUnc[i], r.Phase[i], r.Setpoint[i] = s.T.Seconds(), s.TUnc.Seconds(), string(s.Phase), s.Setpoint
 			r.I[i], r.V[i], r.Psi[i], r.BProbe[i], r.TempC[i] = s.I, s.V, s.Psi, s.BProbe, s.TempC
+			r.DtI[i], r.DtB[i] = s.DtI.Seconds(), s.DtB.Seconds()
 		}
 		j.Raw = r
 	}
