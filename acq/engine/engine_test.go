@@ -7,6 +7,7 @@ import (
 	"math"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"testing"
 
 	"hystd/acq/config"
@@ -15,6 +16,7 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/calib/units"
+	"hystd/drivers/instr"
 )
 
 type rig struct {
@@ -348,5 +350,60 @@ steps:
 	// At the reversals the supply's own slew adds up to one more period.
 	if worst > 6e3 || sum/n > 2.5e3 {
 		t.Errorf("measured H strays up to %.0f A/m (mean %.0f A/m) from the setpoint", worst, sum/n)
+	}
+}
+
+// setWatch is a supply that remembers the last setpoint whose setting
+// completed, and fluxOfSet an integrator whose "flux" is that setpoint at
+// the moment it is read: a sample whose channels were read after its own
+// setting has Psi equal to its Setpoint.
+type setWatch struct {
+	*enginetest.Supply
+	last atomic.Uint64 // math.Float64bits of the last completed setpoint
+}
+
+func (s *setWatch) SetCurrent(ctx context.Context, i units.Ampere) error {
+	err := s.Supply.SetCurrent(ctx, i)
+	if err == nil {
+		s.last.Store(math.Float64bits(float64(i)))
+	}
+	return err
+}
+
+type fluxOfSet struct {
+	*enginetest.Integrator
+	sup *setWatch
+}
+
+func (f fluxOfSet) ReadFlux(ctx context.Context) (instr.Reading, error) {
+	r, err := f.Integrator.ReadFlux(ctx)
+	r.Value = math.Float64frombits(f.sup.last.Load())
+	return r, err
+}
+
+// TestSetThenRead: within a tick the setting completes before any channel
+// is read, so every recorded sample's flux was read under its own setpoint
+// (current control: the setpoint is the current set); and every sample
+// keeps its current reading's offset from the flux reading's time.
+func TestSetThenRead(t *testing.T) {
+	r := newRig(t)
+	sw := &setWatch{Supply: r.sup}
+	s := r.setup(t, twoLoops)
+	s.Instruments.Supply = sw
+	s.Instruments.Integrator = fluxOfSet{Integrator: r.integ, sup: sw}
+	if _, err := Run(context.Background(), s); err != nil {
+		t.Fatal(err)
+	}
+	n := 0
+	for _, l := range r.w.Loops {
+		for j, smp := range l.Raw {
+			n++
+			if smp.Psi != smp.Setpoint {
+				t.Fatalf("loop %d sample %d: flux read under setpoint %g, the sample's is %g", l.N, j, smp.Psi, smp.Setpoint)
+			}
+		}
+	}
+	if n == 0 {
+		t.Fatal("no samples recorded")
 	}
 }
