@@ -36,6 +36,13 @@ type TopLevel struct {
 	S   float64
 	Sxx float64 // Σ(H − HRef)², (A/m)²
 	N   int     // points fitted
+	// Gap is the mean B of the falling-branch points less that of the
+	// rising-branch points in the window, about the common line (T), and
+	// UGap its standard error (0 when a branch has no points there). A
+	// saturated specimen is reversible near the tip, so its two branches
+	// coincide there: a gap beyond the noise says the loop may not saturate,
+	// and the level read from the common line may be off by about Gap/2.
+	Gap, UGap float64
 }
 
 // ErrNoTop is returned by TopOf for points that give no usable top tip.
@@ -81,14 +88,29 @@ func TopOf(points []record.Point) (TopLevel, error) {
 		return TopLevel{}, fmt.Errorf("%w: the %d points near the tip all have H = %.6g A/m", ErrNoTop, l.N, l.HRef)
 	}
 	l.Slope = sxy / l.Sxx
-	var ss float64
+	var ss, rf, rr float64
+	var nf, nr int
 	for _, p := range points {
 		if p.H >= edge {
 			r := p.B - l.B0 - l.Slope*(p.H-l.HRef)
 			ss += r * r
+			switch p.Branch {
+			case -1:
+				rf, nf = rf+r, nf+1
+			case 1:
+				rr, nr = rr+r, nr+1
+			}
 		}
 	}
 	l.S = math.Sqrt(ss / float64(l.N-2))
+	if nf > 0 && nr > 0 && l.N > 3 {
+		mf, mr := rf/float64(nf), rr/float64(nr)
+		l.Gap = mf - mr
+		// Scatter about each branch's own level, so that the gap itself
+		// does not inflate its uncertainty.
+		sep := math.Sqrt(math.Max(0, ss-float64(nf)*mf*mf-float64(nr)*mr*mr) / float64(l.N-3))
+		l.UGap = sep * math.Sqrt(1/float64(nf)+1/float64(nr))
+	}
 	return l, nil
 }
 

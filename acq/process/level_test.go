@@ -31,6 +31,12 @@ func TestTopOfStraightLineMagnet(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// Saturated: both branches are the same line near the tip; what is left
+	// (0.2 mT here, 5e-5 of B) is far below the 2 mT at which acq/fixture
+	// flags a start level.
+	if !(top.UGap > 0) || math.Abs(top.Gap) > 5e-4 {
+		t.Errorf("saturated loop: branches differ by %.3g ± %.2g T near the tip", top.Gap, top.UGap)
+	}
 	for _, tc := range []struct {
 		name string
 		h    float64
@@ -157,5 +163,36 @@ func TestStartLevel(t *testing.T) {
 	bn.s.StartLevel = func(float64) (units.Tesla, units.Tesla, error) { return 0, 0, refused }
 	if _, _, _, err := Loop(raw, bn.s); !errors.Is(err, refused) {
 		t.Errorf("err %v, want the callback's", err)
+	}
+}
+
+// TestTopOfGap: near the tip of a loop that does not saturate, the falling
+// branch lies above the rising one (a lens opening below the tip); here
+// made as B = k·H ± c·(H_m − H), so over the window of the top 5 % of the
+// range the mean gap is 2c times the mean distance from the tip. A
+// reversible tip (c = 0) has no gap.
+func TestTopOfGap(t *testing.T) {
+	const hm, k = 3e5, 2e-6
+	for _, c := range []float64{0, 1e-7, 5e-7} {
+		var pts []record.Point
+		var want float64
+		n := 0
+		for i := 0; i <= 4000; i++ {
+			h := hm - 2*hm*float64(i)/4000
+			pts = append(pts, record.Point{H: h, B: k*h + c*(hm-h), Branch: -1},
+				record.Point{H: h, B: k*h - c*(hm-h), Branch: 1})
+			if h >= hm-TopFraction*2*hm {
+				want += 2 * c * (hm - h)
+				n++
+			}
+		}
+		want /= float64(n)
+		l, err := TopOf(pts)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if math.Abs(l.Gap-want) > 1e-9+1e-3*want || !(l.UGap >= 0) {
+			t.Errorf("c = %g: gap %.6g ± %.2g T, want %.6g T", c, l.Gap, l.UGap, want)
+		}
 	}
 }
