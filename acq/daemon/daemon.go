@@ -411,13 +411,16 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 	d.mu.Unlock()
 	fr.active.Store(j)
 	d.metrics.active.WithLabelValues(fr.name).Set(1)
-	defer func() {
+	// The run stops being active before anyone is told it ended, so a
+	// watcher reacting to the ending sees the fixture free.
+	release := sync.OnceFunc(func() {
 		fr.active.Store(nil)
 		d.metrics.active.WithLabelValues(fr.name).Set(0)
 		d.mu.Lock()
 		delete(d.runs, id)
 		d.mu.Unlock()
-	}()
+	})
+	defer release()
 	var run record.Run
 	var err error
 	op, oerr := d.deps.Open(ctx, j.fx, j.sp)
@@ -443,6 +446,7 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 	}
 	d.metrics.ended.WithLabelValues(fr.name, string(run.State)).Inc()
 	d.log.Info("run ended", "run", id, "fixture", fr.name, "state", run.State, "reason", run.Reason)
+	release()
 	j.done(run, err)
 }
 
