@@ -69,9 +69,6 @@ func startBench(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *ben
 // config for it, without starting a daemon.
 func benchFiles(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
-	if testing.Short() {
-		t.Skip("simulated bench: skipped with -short")
-	}
 	cfg, err := sim.DefaultBench()
 	if err != nil {
 		t.Fatal(err)

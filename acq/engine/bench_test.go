@@ -134,9 +134,6 @@ const maxTUnc = 5 * time.Millisecond
 // (H_eddy = σ·d²/12 · dB/dt, σ = 2.2 MS/m) the coercivity at the faster
 // rate is detectably larger.
 func TestQuasiStatic(t *testing.T) {
-	if testing.Short() {
-		t.Skip("simulated bench: skipped with -short")
-	}
 	tests := []struct {
 		name string
 		eddy *physics.EddyParams
@@ -180,8 +177,13 @@ func TestQuasiStatic(t *testing.T) {
 // zero. (The figures of open curves need the absolute level of B at the
 // start, which the processing takes from elsewhere; they are logged only.)
 func TestMagnetOnYoke(t *testing.T) {
-	if testing.Short() {
-		t.Skip("simulated bench: skipped with -short")
+	if raceDetector {
+		// The closed loop corrects the current every period from the last
+		// measured H; slowed down several times by the race detector it lags
+		// the programmed ramp beyond the test's tolerance. The normal run
+		// (go test ./...) covers it; the race run covers the same code paths
+		// in the other bench tests.
+		t.Skip("closed-loop field control in real time: not run under the race detector")
 	}
 	cfg, err := sim.LoadBench("../../configs/bench-magnet.yaml")
 	if err != nil {
