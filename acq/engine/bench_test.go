@@ -1,11 +1,9 @@
 package engine_test
 
 import (
-	"bytes"
 	"context"
 	"log/slog"
 	"math"
-	"os"
 	"slices"
 	"strings"
 	"sync"
@@ -15,6 +13,7 @@ import (
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/fixture"
+	"hystd/acq/fixture/fixturetest"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/calib/units"
@@ -185,41 +184,10 @@ func TestMagnetOnYoke(t *testing.T) {
 		// in the other bench tests.
 		t.Skip("closed-loop field control in real time: not run under the race detector")
 	}
-	cfg, err := sim.LoadBench("../../configs/bench-magnet.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
 	ctx := context.Background()
-	b, err := sim.Start(ctx, cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer b.Close()
-	data, err := os.ReadFile("testdata/fixture-yoke-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for _, role := range []string{"supply", "integrator", "field_meter"} {
-		data = bytes.ReplaceAll(data, []byte(strings.ToUpper(role)), []byte(b.Ports()[role]))
-	}
-	fx, err := config.ParseFixture("fixture-yoke-bench.yaml", data)
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.LoadSpecimen("testdata/specimen-k9.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	y := fixturetest.StartYoke(t, 0)
+	b, fx, sp, op, proc := y.Bench, y.Fixture, y.Specimen, y.Opened, y.Process
 	log := slog.New(slog.DiscardHandler)
-	op, err := fixture.Open(ctx, fx, log)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer op.Close()
-	proc, _, err := op.Processor(fx, sp)
-	if err != nil {
-		t.Fatal(err)
-	}
 	// H = 0.9·N1·I/gap = 90 kA/m per A on this yoke: the gain is about 1/90000 A per A/m.
 	rc, err := recipe.Parse("yoke.yaml", []byte(`kind: recipe
 name: yoke-demag
