@@ -172,7 +172,7 @@ func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 		if st.OutputOn {
 			log.Warn("supply found with its output on at start-up: ramping it to zero")
 		}
-		if _, herr := engine.SafeHalt(ctx, in, lf.Fixture, math.NaN(), d.deps.Clock, log); herr != nil {
+		if _, herr := engine.SafeHalt(ctx, in, lf.Fixture, math.NaN(), log); herr != nil {
 			log.Error("supply halt at start-up failed: check the supply by hand before touching the fixture", "err", herr)
 		}
 	}

@@ -436,9 +436,8 @@ func zeroTol(fx config.Fixture) float64 { return 0.005 + 0.002*fx.Limits.MaxCurr
 // 2·zeroTol. The ramp-down is the driver's alone: one mechanism, the one
 // that knows every setpoint it sent. lastI (A, NaN: unknown) sizes the time
 // bound. It uses a context of its own derived from ctx without its
-// cancellation, so it also works after an abort. clock is not used any
-// more (the driver's Halt waits on its own); it stays for the callers.
-func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, clock Clock, log *slog.Logger) (float64, error) {
+// cancellation, so it also works after an abort.
+func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, log *slog.Logger) (float64, error) {
 	if log == nil {
 		log = slog.Default()
 	}
@@ -487,7 +486,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 
 // halt ramps the supply to zero at its slew limit and turns it off (SafeHalt).
 func (x *exec) halt(ctx context.Context) error {
-	i, err := SafeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.s.Clock, x.log)
+	i, err := SafeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.log)
 	if !math.IsNaN(i) {
 		x.lastI = i
 	}
