@@ -39,10 +39,12 @@ func Open(ctx context.Context, s Spec, o Options) (instr.Resource, error) {
 	if err != nil {
 		return nil, err
 	}
-	return openLoaded(ctx, p, s, o)
+	return OpenProfile(ctx, p, s, o)
 }
 
-func openLoaded(ctx context.Context, p Profile, s Spec, o Options) (instr.Resource, error) {
+// OpenProfile is Open with the profile already loaded (s.Profile is not
+// read again): for callers that also need the profile, e.g. its accuracies.
+func OpenProfile(ctx context.Context, p Profile, s Spec, o Options) (instr.Resource, error) {
 	addr := link.Address{Path: s.Port, USB: s.USB}
 	if err := addr.Check(); err != nil {
 		return nil, fmt.Errorf("instrument with profile %s: %w", p.Name, err)
@@ -81,7 +83,7 @@ func openAs[T instr.Resource](ctx context.Context, role string, s Spec, o Option
 	if p.Role != role {
 		return zero, fmt.Errorf("profile %s is a %s profile, not a %s", p.Name, p.Role, role)
 	}
-	r, err := openLoaded(ctx, p, s, o)
+	r, err := OpenProfile(ctx, p, s, o)
 	if err != nil {
 		return zero, err
 	}
