@@ -7,7 +7,6 @@ package check
 import (
 	"errors"
 	"fmt"
-	"os"
 	"sort"
 	"strings"
 
@@ -33,7 +32,7 @@ var kinds = map[string]Validator{
 // File validates the file at path. The error lists every problem found, one
 // per line, as FILE:LINE: key: problem.
 func File(path string) error {
-	data, err := os.ReadFile(path)
+	data, err := configs.ReadFile(path)
 	if err != nil {
 		return err
 	}

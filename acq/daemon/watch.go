@@ -2,16 +2,20 @@ package daemon
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"io/fs"
 	"log/slog"
 	"os"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"time"
 
 	"go.yaml.in/yaml/v3"
 
 	"hystd/acq/record"
+	"hystd/configs"
 )
 
 // Subfolders of a watched folder.
@@ -39,6 +43,13 @@ type Result struct {
 // taken once its size and modification time stayed the same over one poll
 // (so a file being copied in is not read half-written), moved to active/,
 // submitted, and moved on to done/ or failed/ when its run ends.
+//
+// Only regular files of at most configs.MaxFileSize (1 MiB) are taken. A symlink,
+// FIFO, device, socket or larger file is moved to failed/ unopened, with a
+// result file that says why and nothing of its content; the file taken is
+// opened with O_NOFOLLOW|O_NONBLOCK and checked again with fstat, so a file
+// swapped for a FIFO or a link between the listing and the open cannot block
+// the watcher (nor, through it, SIGTERM) or be followed out of the folder.
 type watcher struct {
 	d       *Daemon
 	fixture string
@@ -102,8 +113,12 @@ func (w *watcher) scan(ctx context.Context) {
 		if e.IsDir() || !isRecipe(e.Name()) {
 			continue
 		}
-		fi, err := e.Info()
+		fi, err := e.Info() // lstat: a symlink is seen as a symlink
 		if err != nil {
+			continue
+		}
+		if why := configs.NotRegular(fi.Mode(), fi.Size()); why != "" {
+			w.reject(e.Name(), why)
 			continue
 		}
 		sig := fileSig{fi.Size(), fi.ModTime()}
@@ -124,8 +139,10 @@ func (w *watcher) take(ctx context.Context, name string) {
 		w.log.Error("cannot move recipe file to active/", "file", name, "err", err)
 		return
 	}
-	data, err := os.ReadFile(act)
+	data, err := configs.ReadFileNoFollow(act)
 	if err != nil {
+		w.d.metrics.files.WithLabelValues(w.fixture, "refused").Inc()
+		w.log.Warn("recipe file refused", "file", name, "err", err)
 		w.finish(act, Result{State: "refused", Reason: err.Error()})
 		return
 	}
@@ -140,6 +157,14 @@ func (w *watcher) take(ctx context.Context, name string) {
 	}
 	w.d.metrics.files.WithLabelValues(w.fixture, "queued").Inc()
 	w.log.Info("recipe file queued", "file", name, "run", id)
+}
+
+// reject moves a file the folder does not take to failed/, unopened, with a
+// result file giving the reason.
+func (w *watcher) reject(name, why string) {
+	w.d.metrics.files.WithLabelValues(w.fixture, "refused").Inc()
+	w.log.Warn("file in the watched folder refused", "file", name, "reason", why)
+	w.finish(filepath.Join(w.dir, name), Result{State: "refused", Reason: why})
 }
 
 func resultOf(run record.Run, err error) Result {
@@ -203,9 +228,15 @@ func unique(path string) string {
 	}
 }
 
+// writeFileSync writes data to path through a temporary file, synced, then
+// renamed. The temporary file is created afresh without following links, so
+// a link planted under its name cannot redirect the write.
 func writeFileSync(path string, data []byte) error {
 	tmp := path + ".tmp"
-	f, err := os.Create(tmp)
+	if err := os.Remove(tmp); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return err
+	}
+	f, err := os.OpenFile(tmp, os.O_WRONLY|os.O_CREATE|os.O_EXCL|syscall.O_NOFOLLOW, 0o644)
 	if err != nil {
 		return err
 	}

@@ -21,7 +21,6 @@ package recipe
 
 import (
 	"fmt"
-	"os"
 	"time"
 
 	"hystd/configs"
@@ -155,7 +154,7 @@ type Wait struct {
 
 // Load reads and parses a recipe file.
 func Load(path string) (*Recipe, error) {
-	data, err := os.ReadFile(path)
+	data, err := configs.ReadFile(path)
 	if err != nil {
 		return nil, err
 	}
