@@ -156,6 +156,21 @@ func (d *Doc) Line(path string) int {
 	return d.root.Line
 }
 
+// Items returns the number of items of the list at path and the line of
+// its key; 0, 0 when there is no list there. It looks at the parsed document
+// only, so a caller can refuse an oversized list before decoding it.
+func (d *Doc) Items(path string) (n, line int) {
+	v, k := d.lookup(strings.Split(path, "."))
+	if v == nil || v.Kind != yaml.SequenceNode {
+		return 0, 0
+	}
+	line = v.Line
+	if k != nil {
+		line = k.Line
+	}
+	return len(v.Content), line
+}
+
 func (d *Doc) node(path string) *yaml.Node {
 	n, _ := d.lookup(strings.Split(path, "."))
 	return n

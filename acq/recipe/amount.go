@@ -43,7 +43,7 @@ func fmtSI(v float64, unit string) string {
 		return strconv.FormatFloat(v/1e6, 'g', 6, 64) + " M" + unit
 	case a >= 1e3:
 		return strconv.FormatFloat(v/1e3, 'g', 6, 64) + " k" + unit
-	case a > 0 && a < 1:
+	case a >= 1e-3 && a < 1:
 		return strconv.FormatFloat(v*1e3, 'g', 6, 64) + " m" + unit
 	}
 	return strconv.FormatFloat(v, 'g', 6, 64) + " " + unit

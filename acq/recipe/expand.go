@@ -174,13 +174,38 @@ func Expand(r *Recipe, fx config.Fixture, g Geometry) ([]Step, error) {
 		return nil, x.c.es
 	}
 	for i, s := range r.Steps {
+		if x.full {
+			break
+		}
 		x.step(i, s)
 	}
-	if x.level != 0 {
+	if x.level != 0 && !x.full {
 		x.push(Step{Source: "end", Kind: KindReturn, Period: r.PeriodOr(),
 			Segments: []Segment{{To: 0, Dur: x.ramp(x.level, 0, x.lastRate)}}}, "", x.lastRate)
 	}
+	x.checkPlan()
 	return x.out, x.c.es.Err()
+}
+
+// checkPlan refuses a plan longer than MaxPlan.
+func (x *expander) checkPlan() {
+	var total float64 // seconds, summed in float64 so that nothing overflows
+	for _, st := range x.out {
+		for _, g := range st.Segments {
+			total += g.Dur.Seconds()
+		}
+	}
+	if total > MaxPlan.Seconds() {
+		x.c.add("steps", "the plan lasts %s, longer than the %s a recipe may take; split it", fmtSeconds(total), fmtDur(MaxPlan))
+	}
+}
+
+// fmtSeconds prints a span that may exceed time.Duration.
+func fmtSeconds(s float64) string {
+	if s < MaxPlan.Seconds()*100 {
+		return time.Duration(s * float64(time.Second)).Round(time.Second).String()
+	}
+	return fmt.Sprintf("%.3g h", s/3600)
 }
 
 type expander struct {
@@ -195,6 +220,22 @@ type expander struct {
 	level    float64 // plan level at the end of the last step
 	lastRate float64 // plan unit per second
 	out      []Step
+	src      string // key of the step being expanded, for bounds
+	segs     int    // segments so far
+	full     bool   // MaxSegments reached: expansion stopped
+	bad      map[string]bool
+}
+
+// refuse adds a bound's error once per key.
+func (x *expander) refuse(path, format string, args ...any) {
+	if x.bad == nil {
+		x.bad = map[string]bool{}
+	}
+	if x.bad[path] {
+		return
+	}
+	x.bad[path] = true
+	x.c.add(path, format, args...)
 }
 
 func (x *expander) init() {
@@ -250,11 +291,20 @@ func (x *expander) recipeUnit() string {
 func (x *expander) lv(l Level) float64 { return l.Value * x.conv }
 func (x *expander) rt(r Rate) float64  { return r.Value * x.conv }
 
+// ramp is the time from one level to another at rate. A ramp longer than
+// MaxSegment (or with no finite length) is refused and given MaxSegment, so
+// that no duration overflows.
 func (x *expander) ramp(from, to, rate float64) time.Duration {
 	if from == to {
 		return 0
 	}
-	return time.Duration(math.Abs(to-from) / rate * float64(time.Second)).Round(time.Microsecond)
+	sec := math.Abs(to-from) / rate
+	if !(sec <= MaxSegment.Seconds()) {
+		x.refuse(x.src+"rate", "step %s ramps from %s to %s at %s: %s, longer than the %s one ramp may take; use a faster rate",
+			strings.TrimSuffix(x.src, "."), fmtSI(from, x.unit), fmtSI(to, x.unit), fmtSI(rate, x.unit)+"/s", fmtSeconds(sec), fmtDur(MaxSegment))
+		return MaxSegment
+	}
+	return time.Duration(sec * float64(time.Second)).Round(time.Microsecond)
 }
 
 // program builds segments through the given levels at rate, starting at
@@ -287,6 +337,23 @@ func (x *expander) push(s Step, path string, rate float64) {
 		s.PeakCurrent, s.PeakSlew = peak*x.toAmp, rate*x.toAmp
 	}
 	x.checkLimits(s, path, peak)
+	if s.Kind == KindRecord && s.Period > 0 {
+		var rec time.Duration // holds and sweep
+		for _, g := range s.Segments {
+			if g.Phase != "" {
+				rec += g.Dur
+			}
+		}
+		if n := rec.Seconds() / s.Period.Seconds(); n > MaxLoopSamples {
+			x.refuse(s.Source, "step %d (%s) records %.3g samples (%s every %s), more than the %d one loop may hold; sample less densely or sweep faster",
+				s.N, s.Source, n, rec, s.Period, MaxLoopSamples)
+		}
+	}
+	x.segs += len(s.Segments)
+	if x.segs > MaxSegments {
+		x.refuse("steps", "the plan expands to more than %d ramps and holds; use fewer cycles or steps", MaxSegments)
+		x.full = true
+	}
 	x.level = s.End()
 	x.lastRate = rate
 	x.out = append(x.out, s)
@@ -330,10 +397,16 @@ func period(s Sampling, sweep time.Duration) time.Duration {
 func (x *expander) step(i int, s StepSpec) {
 	kind, _ := s.kindOf()
 	src := stepPath(i, kind)
+	x.src = src + "."
 	switch {
 	case s.Demagnetize != nil:
 		d := s.Demagnetize
 		rate := x.rt(d.Rate)
+		if n := math.Log(d.DownTo.Value/d.From.Value)/math.Log(d.Ratio) + 1; !(n <= MaxReversals) {
+			x.refuse(src+".down_to", "step %s: from %s down to %s at ratio %g takes %.3g reversals, more than %d; raise down_to or lower ratio",
+				src, d.From, d.DownTo, d.Ratio, n, MaxReversals)
+			return
+		}
 		var levels []float64
 		for a, sign := x.lv(d.From), 1.0; a >= x.lv(d.DownTo); a, sign = a*d.Ratio, -sign {
 			levels = append(levels, sign*a)

@@ -164,6 +164,9 @@ func Load(path string) (*Recipe, error) {
 // Parse decodes and validates a recipe on its own (no fixture yet); file
 // names it in errors. Every problem is returned as configs.Errors.
 func Parse(file string, data []byte) (*Recipe, error) {
+	if len(data) > configs.MaxFileSize {
+		return nil, &configs.Error{File: file, Problem: fmt.Sprintf("%d bytes, larger than the %d bytes (1 MiB) a recipe may have", len(data), configs.MaxFileSize)}
+	}
 	doc, err := configs.Parse(file, data)
 	if err != nil {
 		return nil, err
@@ -171,9 +174,47 @@ func Parse(file string, data []byte) (*Recipe, error) {
 	return FromDoc(doc, data)
 }
 
+// Bounds of a recipe, so that no recipe can make the daemon plan for ever,
+// run out of memory or overflow a duration. A recipe beyond one is refused
+// with its file, line and step.
+const (
+	// MaxSteps is the most steps a recipe may list.
+	MaxSteps = 1000
+	// MaxLevel bounds every level, in A or A/m (100 MA/m is μ0·H ≈ 126 T).
+	MaxLevel = 1e8
+	// MinRate and MaxRate bound every rate, in A/s or A/m per second.
+	MinRate, MaxRate = 1e-6, 1e9
+	// MaxHold bounds the pre and post holds of a recorded sweep.
+	MaxHold = time.Hour
+	// MaxSampleInterval bounds the sample interval of a recorded sweep.
+	MaxSampleInterval = time.Minute
+	// MaxDriftHold bounds a drift_hold.
+	MaxDriftHold = 24 * time.Hour
+	// MaxWait bounds a wait.
+	MaxWait = 7 * 24 * time.Hour
+	// MaxSegment bounds one ramp of the expanded plan (|ΔI|/rate).
+	MaxSegment = 24 * time.Hour
+	// MaxPlan bounds the whole expanded plan.
+	MaxPlan = 7 * 24 * time.Hour
+	// MaxPoints bounds the points per sweep.
+	MaxPoints = 1_000_000
+	// MaxLoopSamples bounds the samples of one recorded step (holds and
+	// sweep), which the engine keeps in memory until the loop is stored.
+	MaxLoopSamples = 2_500_000
+	// MaxReversals bounds the reversals of one demagnetize step.
+	MaxReversals = 1000
+	// MaxSegments bounds the ramps and holds of the whole expanded plan.
+	MaxSegments = 200_000
+)
+
 // FromDoc decodes and validates a parsed recipe document; data is kept as the
 // recipe text for the run record.
 func FromDoc(doc *configs.Doc, data []byte) (*Recipe, error) {
+	// Refuse an oversized step list before decoding it.
+	if n, line := doc.Items("steps"); n > MaxSteps {
+		return nil, &configs.Error{File: doc.File, Line: line, Key: "steps",
+			Problem: fmt.Sprintf("%d steps, more than the %d a recipe may have", n, MaxSteps)}
+	}
 	r := &Recipe{}
 	if err := doc.Decode(r); err != nil {
 		return nil, err

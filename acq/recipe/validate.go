@@ -2,6 +2,7 @@ package recipe
 
 import (
 	"math"
+	"strings"
 	"regexp"
 	"time"
 
@@ -56,6 +57,9 @@ func (r *Recipe) validate() error {
 	var levels []levelAt // every level, for the unit check
 	var tests []levelAt  // test levels, for the demagnetize check
 	lv := func(path string, l Level, test bool) {
+		if math.Abs(l.Value) > MaxLevel {
+			c.add(path, "%s is beyond the %g %s any level may have", l, MaxLevel, l.Unit)
+		}
 		levels = append(levels, levelAt{path, l})
 		if test {
 			tests = append(tests, levelAt{path, Level{math.Abs(l.Value), l.Unit}})
@@ -65,6 +69,9 @@ func (r *Recipe) validate() error {
 		if !(rt.Value > 0) {
 			c.add(path, "required: a positive rate such as \"1 kA/m/s\" or \"2 A/s\"")
 			return
+		}
+		if rt.Value < MinRate || rt.Value > MaxRate {
+			c.add(path, "%s is outside %g to %g %s/s", rt, MinRate, MaxRate, rt.Unit)
 		}
 		levels = append(levels, levelAt{path, Level{rt.Value, rt.Unit}})
 	}
@@ -191,8 +198,8 @@ func (r *Recipe) validate() error {
 			}
 		case s.DriftHold != nil:
 			d := s.DriftHold
-			if d.Duration.D() < 100*time.Millisecond {
-				c.add(p+".duration", "required: at least 100ms, got %s", d.Duration.D())
+			if d.Duration.D() < 100*time.Millisecond || d.Duration.D() > MaxDriftHold {
+				c.add(p+".duration", "required: 100ms to %s, got %s", fmtDur(MaxDriftHold), d.Duration.D())
 			}
 			if d.At != nil {
 				lv(p+".at", *d.At, true)
@@ -207,6 +214,8 @@ func (r *Recipe) validate() error {
 		case s.Wait != nil:
 			if s.Wait.Duration.D() <= 0 {
 				c.add(p+".duration", "required: a positive duration such as \"30s\"")
+			} else if s.Wait.Duration.D() > MaxWait {
+				c.add(p+".duration", "%s is longer than the %s a wait may last", s.Wait.Duration.D(), fmtDur(MaxWait))
 			}
 		}
 	}
@@ -248,12 +257,12 @@ func (c *checker) sampling(p string, s *Sampling) {
 	case s.Points != 0 && s.Interval != 0:
 		c.add(p+".points", "give points or sample_interval, not both")
 	case s.Points != 0:
-		if s.Points < 10 || s.Points > 10_000_000 {
-			c.add(p+".points", "must be 10 to 10000000 per sweep, got %d", s.Points)
+		if s.Points < 10 || s.Points > MaxPoints {
+			c.add(p+".points", "must be 10 to %d per sweep, got %d", MaxPoints, s.Points)
 		}
 	case s.Interval != 0:
-		if s.Interval.D() < time.Millisecond {
-			c.add(p+".sample_interval", "must be at least 1ms, got %s", s.Interval.D())
+		if s.Interval.D() < time.Millisecond || s.Interval.D() > MaxSampleInterval {
+			c.add(p+".sample_interval", "must be 1ms to %s, got %s", fmtDur(MaxSampleInterval), s.Interval.D())
 		}
 	default:
 		c.add(p, "required: points (per sweep) or sample_interval")
@@ -261,9 +270,14 @@ func (c *checker) sampling(p string, s *Sampling) {
 	if s.Hold == 0 {
 		s.Hold = configs.Duration(DefaultHold)
 	}
-	if s.Hold.D() < 100*time.Millisecond {
-		c.add(p+".hold", "must be at least 100ms (the drift rate is measured during it), got %s", s.Hold.D())
+	if s.Hold.D() < 100*time.Millisecond || s.Hold.D() > MaxHold {
+		c.add(p+".hold", "must be 100ms to %s (the drift rate is measured during it), got %s", fmtDur(MaxHold), s.Hold.D())
 	}
+}
+
+// fmtDur prints a bound as a duration a recipe can use ("168h", "1m").
+func fmtDur(d time.Duration) string {
+	return strings.TrimSuffix(strings.TrimSuffix(d.String(), "0s"), "0m")
 }
 
 func itoa(i int) string {
