@@ -2,8 +2,8 @@ package recipe
 
 import (
 	"math"
-	"strings"
 	"regexp"
+	"strings"
 	"time"
 
 	"hystd/configs"
