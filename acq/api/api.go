@@ -94,6 +94,7 @@ type server struct {
 	requests *prometheus.CounterVec
 	gather   prometheus.Gatherer
 	streams  atomic.Int64                                   // open event streams
+	renders  chan struct{}                                  // semaphore of plot drawings
 	ticker   func(time.Duration) (<-chan time.Time, func()) // heartbeat clock; tests inject one
 }
 
@@ -116,7 +117,7 @@ func New(o Options) (http.Handler, error) {
 	if o.MaxStreams <= 0 {
 		o.MaxStreams = 64
 	}
-	s := &server{o: o, log: o.Logger, mux: http.NewServeMux(), ticker: realTicker}
+	s := &server{o: o, log: o.Logger, mux: http.NewServeMux(), ticker: realTicker, renders: make(chan struct{}, MaxRenders)}
 	if s.log == nil {
 		s.log = slog.New(slog.DiscardHandler)
 	}

@@ -262,6 +262,11 @@ func TestMalformedRecipe(t *testing.T) {
 		{"empty body", "  \n", "application/yaml", 400, []string{"empty body"}},
 		{"bad amplitude", strings.Replace(goodRecipe, "1 kA/m", "1 parsec", 1), "application/yaml", 400, []string{"parsec"}},
 		{"json sent", `{"kind":"recipe"}`, "application/json", 415, []string{"application/yaml"}},
+		{"no content type", goodRecipe, "", 415, []string{"no Content-Type", "application/yaml"}},
+		{"form (curl's default)", goodRecipe, "application/x-www-form-urlencoded", 415, []string{"application/yaml"}},
+		{"plain text", goodRecipe, "text/plain", 415, []string{"application/yaml"}},
+		{"octet stream", goodRecipe, "application/octet-stream", 415, []string{"application/yaml"}},
+		{"bad media type", goodRecipe, "yaml;;", 415, []string{"application/yaml"}},
 	}
 	for _, tc := range tests {
 		code, m, _ := e.do(t, "POST", "/api/v1/runs", testToken, tc.ctype, strings.NewReader(tc.body))
@@ -302,6 +307,12 @@ func TestListRunsFilters(t *testing.T) {
 		{"?state=finished&fixture=ring-bench", 200, []string{"RUN-C", "RUN-B", "RUN-A"}, ""},
 		{"?state=done", 400, nil, "state"},
 		{"?since=yesterday", 400, nil, "since"},
+		// Unix nanoseconds end at 2262-04-11T23:47:16Z (int64, Go's time.UnixNano).
+		{"?since=2300-01-01", 400, nil, "since: \"2300-01-01\": beyond the times a run can have (1677-09-21 to 2262-04-11)"},
+		{"?until=9999-12-31", 400, nil, "until"},
+		{"?until=2262-04-11", 400, nil, "until"}, // the end of that day is past the last nanosecond
+		{"?until=2262-04-10", 200, []string{"RUN-C", "RUN-B", "RUN-A"}, ""},
+		{"?since=1500-01-01T00:00:00Z", 400, nil, "since"},
 		{"?limit=-4", 400, nil, "limit"},
 		{"?specimn=R-17", 400, nil, "specimn"},
 	}
@@ -541,6 +552,8 @@ func TestPlotEndpoint(t *testing.T) {
 		{"?units=imperial", 400, "application/json", `{"error":"units: \"imperial\": want si or cgs"`},
 		{"?quadrant=3", 400, "application/json", `{"error":"quadrant: \"3\": want 2 or nothing"`},
 		{"?width=50", 400, "application/json", `{"error":"width`},
+		{"?format=png&width=4000&height=4000", 400, "application/json", `{"error":"width: \"4000\": want a whole number of pixels from 200 to 2000"`},
+		{"?format=png&width=2000&height=2000", 200, "image/png", "\x89PNG"},
 		{"?colour=red", 400, "application/json", `{"error":"unknown query parameter \"colour\"`},
 	}
 	for _, tc := range tests {

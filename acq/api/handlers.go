@@ -2,7 +2,9 @@ package api
 
 import (
 	"errors"
+	"fmt"
 	"io"
+	"math"
 	"mime"
 	"net/http"
 	"net/url"
@@ -58,7 +60,7 @@ type fixtureLister interface {
 // bare date means the end of that day.
 func parseTime(v string, end bool) (time.Time, error) {
 	if t, err := time.Parse(time.RFC3339, v); err == nil {
-		return t, nil
+		return t, inRange(t)
 	}
 	t, err := time.Parse(time.DateOnly, v)
 	if err != nil {
@@ -67,7 +69,21 @@ func parseTime(v string, end bool) (time.Time, error) {
 	if end {
 		t = t.AddDate(0, 0, 1)
 	}
-	return t, nil
+	return t, inRange(t)
+}
+
+// Times are stored as Unix nanoseconds, which reach from 1677-09-21 to
+// 2262-04-11 (the range of int64 nanoseconds, Go's time.Time.UnixNano).
+var (
+	minTime = time.Unix(0, math.MinInt64).UTC()
+	maxTime = time.Unix(0, math.MaxInt64).UTC()
+)
+
+func inRange(t time.Time) error {
+	if t.Before(minTime) || t.After(maxTime) {
+		return fmt.Errorf("beyond the times a run can have (%s to %s)", minTime.Format(time.DateOnly), maxTime.Format(time.DateOnly))
+	}
+	return nil
 }
 
 func runFilter(q url.Values) (record.RunFilter, error) {
@@ -233,9 +249,9 @@ func (s *server) trend(w http.ResponseWriter, r *http.Request) {
 }
 
 // recipeTypes are the content types a recipe may be sent as.
+// recipeTypes are the media types a submitted recipe may be sent as.
 var recipeTypes = map[string]bool{
-	"application/yaml": true, "application/x-yaml": true, "text/yaml": true,
-	"text/x-yaml": true, "text/plain": true, "application/octet-stream": true,
+	"application/yaml": true, "application/x-yaml": true, "text/yaml": true, "text/x-yaml": true,
 }
 
 func (s *server) submit(w http.ResponseWriter, r *http.Request) {
@@ -243,12 +259,14 @@ func (s *server) submit(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusServiceUnavailable, "this server only reviews a store; it runs no fixture")
 		return
 	}
-	if ct := r.Header.Get("Content-Type"); ct != "" {
-		mt, _, err := mime.ParseMediaType(ct)
-		if err != nil || !recipeTypes[mt] {
-			writeError(w, http.StatusUnsupportedMediaType, "Content-Type %q: send the recipe as application/yaml", ct)
-			return
-		}
+	ct := r.Header.Get("Content-Type")
+	if ct == "" {
+		writeError(w, http.StatusUnsupportedMediaType, "no Content-Type: send the recipe with Content-Type: application/yaml")
+		return
+	}
+	if mt, _, err := mime.ParseMediaType(ct); err != nil || !recipeTypes[mt] {
+		writeError(w, http.StatusUnsupportedMediaType, "Content-Type %q: send the recipe as application/yaml", ct)
+		return
 	}
 	for k := range r.URL.Query() {
 		if k != "fixture" {

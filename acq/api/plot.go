@@ -11,6 +11,14 @@ import (
 	"hystd/acq/record"
 )
 
+// Bounds of a drawing: each side in pixels, and drawings at once. A PNG of
+// 2000×2000 holds 16 MB of pixels; 2 at once bound the memory plots take.
+const (
+	MinPlotSide = 200
+	MaxPlotSide = 2000
+	MaxRenders  = 2
+)
+
 // plotLoop draws one loop server-side with acq/plot, the same drawing as
 // `hystd export --format svg|png`:
 // ?format=svg|png &y=B|J &units=si|cgs &quadrant=2 &width=&height= (pixels).
@@ -46,8 +54,8 @@ func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
 	}{{"width", &o.Width}, {"height", &o.Height}} {
 		if v := q.Get(d.key); v != "" {
 			n, err := strconv.Atoi(v)
-			if err != nil || n < 200 || n > 4000 {
-				writeError(w, http.StatusBadRequest, "%s: %q: want a whole number of pixels from 200 to 4000", d.key, v)
+			if err != nil || n < MinPlotSide || n > MaxPlotSide {
+				writeError(w, http.StatusBadRequest, "%s: %q: want a whole number of pixels from %d to %d", d.key, v, MinPlotSide, MaxPlotSide)
 				return
 			}
 			*d.dst = n
@@ -71,6 +79,15 @@ func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
 	}
 	o.Title = fmt.Sprintf("%s loop %d — %s, %s", run.ID, l.N, run.Specimen, run.Material)
 	o.Labels = []string{fmt.Sprintf("%s #%d", run.Specimen, l.N)}
+	// At most MaxRenders drawings at once; a request waits for its turn
+	// until its own timeout, then gets 503.
+	select {
+	case s.renders <- struct{}{}:
+		defer func() { <-s.renders }()
+	case <-r.Context().Done():
+		writeError(w, http.StatusServiceUnavailable, "too many plots being drawn at once (%d); try again", cap(s.renders))
+		return
+	}
 	var buf bytes.Buffer
 	ctype := "image/svg+xml"
 	if format == "png" {

@@ -37,7 +37,9 @@ func ServeListener(ctx context.Context, ln net.Listener, h http.Handler) error {
 }
 
 func serveListener(ctx context.Context, ln net.Listener, h http.Handler, t daemon.HTTPTimeouts) error {
-	srv := daemon.NewHTTPServer(ctx, h, t)
+	// Only requests naming this address (or localhost on a loopback) are
+	// served: a re-pointed name (DNS rebinding) is refused.
+	srv := daemon.NewHTTPServer(ctx, daemon.HostGuard(h, ln.Addr().String(), nil), t)
 	done := make(chan error, 1)
 	go func() { done <- srv.Serve(ln) }()
 	select {

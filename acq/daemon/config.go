@@ -35,6 +35,13 @@ type Config struct {
 		// TokenFile holds the bearer token that mutations (submit, abort)
 		// need; empty: mutations are refused.
 		TokenFile string `yaml:"token_file"`
+		// Hosts are names (besides the bound address) the API may be reached
+		// by; a request with any other Host header is refused (DNS rebinding).
+		Hosts []string `yaml:"hosts"`
+		// OpenWithoutToken must be true to listen on an address other
+		// machines reach without a token_file: everything stored (raw
+		// samples, config snapshots) is then readable from the network.
+		OpenWithoutToken bool `yaml:"open_without_token"`
 	} `yaml:"http"`
 	Store struct {
 		Path string `yaml:"path"` // SQLite file, the record of truth
@@ -161,6 +168,14 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			ce.add("http.token_file", "%s must hold one token of at least 16 characters and no spaces", c.HTTP.TokenFile)
 		default:
 			l.token, l.TokenSet = tok, true
+		}
+	}
+	if !IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && !c.HTTP.OpenWithoutToken {
+		ce.add("http.addr", "%s is reachable from other machines and no http.token_file is set: every stored run (raw samples, config snapshots) would be readable from the network; set http.token_file, listen on 127.0.0.1, or set http.open_without_token: true to accept that", c.HTTP.Addr)
+	}
+	for i, h := range c.HTTP.Hosts {
+		if h == "" || strings.ContainsAny(h, ":/ \t") {
+			ce.add(fmt.Sprintf("http.hosts.%d", i), "%q: want a host name without port or scheme, e.g. hystd.lab.example", h)
 		}
 	}
 	if c.Store.Path == "" {

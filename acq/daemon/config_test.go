@@ -1,11 +1,15 @@
 package daemon
 
 import (
+	"bytes"
 	"os"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
+
+	"hystd/acq/engine/enginetest"
 )
 
 func TestSampleConfig(t *testing.T) {
@@ -49,7 +53,7 @@ const fixtures = "fixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: sp
 
 func TestConfigErrors(t *testing.T) {
 	tests := []struct{ name, body, want string }{
-		{"unknown key", "kind: daemon\nstore: {path: x.db}\nhttp: {adress: 1}\n" + fixtures, "d.yaml:3: http.adress: unknown key (known keys: addr, token_file)"},
+		{"unknown key", "kind: daemon\nstore: {path: x.db}\nhttp: {adress: 1}\n" + fixtures, "d.yaml:3: http.adress: unknown key (known keys: addr, hosts, open_without_token, token_file)"},
 		{"bad addr", "kind: daemon\nstore: {path: x.db}\nhttp: {addr: localhost}\n" + fixtures, "d.yaml:3: http.addr: \"localhost\" is not host:port"},
 		{"no store", "kind: daemon\n" + fixtures, "store.path: required"},
 		{"bad level", "kind: daemon\nstore: {path: x.db}\nlog: {level: loud}\n" + fixtures, "d.yaml:3: log.level: must be debug, info, warn or error"},
@@ -61,6 +65,12 @@ func TestConfigErrors(t *testing.T) {
 		{"poll without unit", "kind: daemon\nstore: {path: x.db}\nfixtures:\n  - fixture: fixture-ring-bench.yaml\n    specimen: specimen-ring-r17.yaml\n    poll: 2\n",
 			"d.yaml:6: fixtures.0.poll: duration \"2\" has no unit"},
 		{"short token", "kind: daemon\nstore: {path: x.db}\nhttp: {token_file: tok}\n" + fixtures, "http.token_file:"},
+		{"all addresses without token", "kind: daemon\nstore: {path: x.db}\nhttp: {addr: \"0.0.0.0:8740\"}\n" + fixtures,
+			"d.yaml:3: http.addr: 0.0.0.0:8740 is reachable from other machines and no http.token_file is set"},
+		{"lab address without token", "kind: daemon\nstore: {path: x.db}\nhttp: {addr: \"192.0.2.10:8740\"}\n" + fixtures,
+			"http.open_without_token: true to accept that"},
+		{"host with port", "kind: daemon\nstore: {path: x.db}\nhttp: {hosts: [\"hystd.lab.example:8740\"]}\n" + fixtures,
+			"d.yaml:3: http.hosts.0: \"hystd.lab.example:8740\": want a host name without port or scheme"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -132,5 +142,36 @@ func TestScheduleNext(t *testing.T) {
 				t.Errorf("Next(%s) = %s, want %s", tc.now, got, tc.want)
 			}
 		})
+	}
+}
+
+// TestOpenWithoutToken: a non-loopback address without a token is accepted
+// only with http.open_without_token, and the daemon then logs a warning.
+func TestOpenWithoutToken(t *testing.T) {
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nhttp: {addr: \"0.0.0.0:0\", open_without_token: true}\n"+fixtures)
+	if _, err := Load(p); err != nil {
+		t.Fatal(err)
+	}
+	clk := &schedClock{enginetest.NewClock()}
+	fb := &fakeBench{clk: clk, sup: enginetest.NewSupply(clk.Clock)}
+	sigs := make(chan os.Signal, 1)
+	var log bytes.Buffer
+	listening := make(chan string, 1)
+	served := make(chan error, 1)
+	go func() {
+		served <- Serve(t.Context(), p, Wiring{Open: fb.open, Signals: sigs, Stderr: &syncWriter{w: &log},
+			Listening: func(a string) { listening <- a }})
+	}()
+	select {
+	case <-listening:
+	case err := <-served:
+		t.Fatalf("Serve: %v", err)
+	}
+	sigs <- syscall.SIGTERM
+	if err := <-served; err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(log.String(), "without a token (http.open_without_token): every stored run") {
+		t.Errorf("no warning in the log:\n%s", log.String())
 	}
 }

@@ -133,7 +133,11 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		d.Stop("http.addr unusable")
 		return fmt.Errorf("%s: http.addr: %w", configPath, err)
 	}
-	srv := NewHTTPServer(context.WithoutCancel(ctx), d.Handler(h), DefaultHTTPTimeouts)
+	if !IsLoopback(cfg.Config.HTTP.Addr) && !cfg.TokenSet {
+		log.Warn("listening on an address other machines reach, without a token (http.open_without_token): every stored run, with raw samples and config snapshots, is readable from the network",
+			"http", ln.Addr().String())
+	}
+	srv := NewHTTPServer(context.WithoutCancel(ctx), HostGuard(d.Handler(h), ln.Addr().String(), cfg.Config.HTTP.Hosts), DefaultHTTPTimeouts)
 	go func() {
 		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
 			log.Error("http server stopped", "err", err)

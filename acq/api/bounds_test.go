@@ -1,0 +1,122 @@
+package api
+
+import (
+	"context"
+	"io"
+	"net"
+	"net/http"
+	"net/http/httptest"
+	"strings"
+	"testing"
+	"time"
+
+	"hystd/acq/daemon"
+	"hystd/acq/record"
+)
+
+// TestPlotSemaphore: while MaxRenders drawings are under way, another waits
+// for its turn until its request timeout and then gets 503; once a turn is
+// free it is drawn.
+func TestPlotSemaphore(t *testing.T) {
+	rd := newMemReader()
+	rd.put(record.Run{ID: "RUN-A", State: record.Finished}, tanhLoop("RUN-A", 200, 6000, 400, 900, 1.6))
+	h, err := New(Options{Reader: rd, RequestTimeout: 200 * time.Millisecond})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := h.(*server)
+	for range MaxRenders {
+		s.renders <- struct{}{} // drawings under way
+	}
+	srv := httptest.NewServer(h)
+	defer srv.Close()
+	get := func() (int, string) {
+		resp, err := http.Get(srv.URL + "/api/v1/runs/RUN-A/loops/1/plot?format=png")
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		return resp.StatusCode, string(b)
+	}
+	if code, body := get(); code != http.StatusServiceUnavailable || !strings.Contains(body, "too many plots being drawn at once (2)") {
+		t.Errorf("with every turn taken: %d %.100s", code, body)
+	}
+	<-s.renders
+	if code, body := get(); code != http.StatusOK || !strings.HasPrefix(body, "\x89PNG") {
+		t.Errorf("with a turn free: %d %.40q", code, body)
+	}
+}
+
+// TestHostGuard: requests naming another host (a re-pointed name, DNS
+// rebinding) are refused with 403; the bound address, localhost on a
+// loopback, configured names and, on a wildcard bind, IP literals pass.
+func TestHostGuard(t *testing.T) {
+	ok := http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { _, _ = io.WriteString(w, "ok") })
+	tests := []struct {
+		bound string
+		names []string
+		host  string
+		want  int
+	}{
+		{"127.0.0.1:8740", nil, "127.0.0.1:8740", 200},
+		{"127.0.0.1:8740", nil, "localhost:8740", 200},
+		{"127.0.0.1:8740", nil, "LOCALHOST", 200},
+		{"127.0.0.1:8740", nil, "attacker.example:8740", 403},
+		{"127.0.0.1:8740", nil, "127.0.0.2:8740", 403},
+		{"127.0.0.1:8740", nil, "", 403},
+		{"[::1]:8740", nil, "[::1]:8740", 200},
+		{"[::1]:8740", nil, "localhost:8740", 200},
+		{"192.0.2.10:8740", []string{"hystd-bay2.lab.example"}, "hystd-bay2.lab.example:8740", 200},
+		{"192.0.2.10:8740", []string{"hystd-bay2.lab.example"}, "HYSTD-BAY2.lab.example.", 200},
+		{"192.0.2.10:8740", nil, "192.0.2.10:8740", 200},
+		{"192.0.2.10:8740", nil, "localhost:8740", 403},
+		{"192.0.2.10:8740", []string{"hystd-bay2.lab.example"}, "rebind.attacker.example:8740", 403},
+		{"0.0.0.0:8740", nil, "192.0.2.10:8740", 200},
+		{"0.0.0.0:8740", nil, "localhost:8740", 200},
+		{"0.0.0.0:8740", nil, "rebind.attacker.example:8740", 403},
+		{"[::]:8740", nil, "[2001:db8::1]:8740", 200},
+	}
+	for _, tc := range tests {
+		h := daemon.HostGuard(ok, tc.bound, tc.names)
+		req := httptest.NewRequest("GET", "/api/v1/runs", nil)
+		req.Host = tc.host
+		rec := httptest.NewRecorder()
+		h.ServeHTTP(rec, req)
+		if rec.Code != tc.want {
+			t.Errorf("bound %s, names %v, Host %q: %d %s, want %d", tc.bound, tc.names, tc.host, rec.Code, rec.Body, tc.want)
+		}
+		if tc.want == 403 && !strings.Contains(rec.Body.String(), "is not this daemon's address") {
+			t.Errorf("Host %q: refusal %q does not say why", tc.host, rec.Body)
+		}
+	}
+}
+
+// TestServeRefusesForeignHost: the API's own server applies the guard.
+func TestServeRefusesForeignHost(t *testing.T) {
+	rd := newMemReader()
+	h, err := New(Options{Reader: rd})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- ServeListener(ctx, ln, h) }()
+	defer func() { cancel(); <-done }()
+	for host, want := range map[string]int{ln.Addr().String(): 200, "rebind.attacker.example": 403} {
+		req, _ := http.NewRequest("GET", "http://"+ln.Addr().String()+"/api/v1/runs", nil)
+		req.Host = host
+		resp, err := http.DefaultClient.Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		if resp.StatusCode != want {
+			t.Errorf("Host %q: %d, want %d", host, resp.StatusCode, want)
+		}
+	}
+}
