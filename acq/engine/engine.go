@@ -27,6 +27,7 @@ import (
 
 	"hystd/acq/config"
 	"hystd/acq/live"
+	"hystd/acq/process"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/safety"
@@ -180,11 +181,32 @@ func Prepare(ctx context.Context, s Setup) (*Plan, error) {
 		return nil, fmt.Errorf("record run %s: %w", run.ID, err)
 	}
 	p := &Plan{Steps: steps, run: run, s: s}
+	p.geometryWarnings(ctx)
 	for _, st := range steps {
 		p.total += st.Duration()
 	}
 	p.publish(live.Event{Kind: live.KindState, State: record.Queued, Steps: len(steps)})
 	return p, nil
+}
+
+// geometryWarnings records the specimen geometry's warnings (a strip length
+// outside what IEC 60404-2 assumes, a ring too wide for IEC 60404-4) as
+// events of the run, so that they show with it and not only in the log.
+func (p *Plan) geometryWarnings(ctx context.Context) {
+	_, warns, err := process.SetupFrom(p.s.Fixture, p.s.Specimen)
+	if err != nil {
+		return // a fixture with H from its field meter may run without a geometry
+	}
+	at := p.s.Clock.Now()
+	for _, w := range warns {
+		text := fmt.Sprintf("geometry of specimen %s: %s", p.s.Specimen.ID, w)
+		p.s.Log.Warn(text, "run", p.run.ID)
+		wctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), WriteTimeout)
+		if err := p.s.Writer.AddEvent(wctx, record.Event{RunID: p.run.ID, At: at, Level: "warn", Text: text}); err != nil {
+			p.s.Log.Error("event not stored", "run", p.run.ID, "err", err)
+		}
+		cancel()
+	}
 }
 
 // checkSupply refuses steps beyond the supply's range (when a supply is given).

@@ -12,6 +12,7 @@ import (
 
 	"hystd/acq/config"
 	"hystd/acq/live"
+	"hystd/acq/process"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/safety"
@@ -359,6 +360,10 @@ func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sampl
 		x.event(ctx, "warn", "loop %d stored raw only: processing failed: %v", l.N, err)
 	} else {
 		l.Points, l.Figures, l.Corrections = pr.Points, pr.Figures, pr.Corrections
+		// Stored all the same (the raw samples are right), but flagged.
+		for _, f := range process.Implausible(l) {
+			x.event(ctx, "warn", "loop %d: %s", l.N, f)
+		}
 	}
 	wctx, cancel := bg(ctx, WriteTimeout)
 	defer cancel()

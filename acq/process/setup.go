@@ -30,48 +30,17 @@ func SetupFrom(fx config.Fixture, sp config.Specimen) (Setup, []string, error) {
 	if s.Class == "" {
 		s.Class = ClassSoft
 	}
-	spec := fmt.Sprintf("specimen %s", sp.ID)
-	var g geometry.Result
-	var err error
-	switch sp.Shape {
-	case "ring":
-		r := sp.Ring
-		if r == nil {
-			return Setup{}, nil, fmt.Errorf("%s: ring: shape is ring but the ring block is missing", spec)
-		}
-		g, err = geometry.Ring(units.Metre(r.OuterMM*mm), units.Metre(r.InnerMM*mm), units.Metre(r.HeightMM*mm),
-			r.StackingFactor, r.Path, geometry.DefaultTol)
-	case "epstein":
-		e := sp.Epstein
-		if e == nil {
-			return Setup{}, nil, fmt.Errorf("%s: epstein: shape is epstein but the epstein block is missing", spec)
-		}
-		g, err = geometry.Epstein(units.Kilogram(sp.MassKg), units.Metre(e.StripLengthM),
-			units.KilogramPerCubicMetre(sp.DensityKgM3), e.Strips, geometry.DefaultTol)
-	case "strip":
-		st := sp.Strip
-		if st == nil {
-			return Setup{}, nil, fmt.Errorf("%s: strip: shape is strip but the strip block is missing", spec)
-		}
-		g, err = geometry.Strip(units.Kilogram(sp.MassKg), units.Metre(st.LengthM),
-			units.KilogramPerCubicMetre(sp.DensityKgM3), units.Metre(st.PathLengthM), geometry.DefaultTol)
-		s.DemagFactor = st.DemagFactor
-	case "direct":
-		d := sp.Direct
-		if d == nil {
-			return Setup{}, nil, fmt.Errorf("%s: direct: shape is direct but the direct block is missing", spec)
-		}
-		g, err = geometry.Direct(units.Metre(d.PathLengthMM*mm), units.SquareMetre(d.AreaMM2*mm*mm), 0, 0)
-		s.DemagFactor = d.DemagFactor
-		if err == nil {
-			g.Warnings = append(g.Warnings, "direct geometry: no tolerance given, path length and area are not in the budget")
-		}
-	default:
-		return Setup{}, nil, fmt.Errorf("%s: shape: %q: want ring, epstein, strip or direct", spec, sp.Shape)
-	}
+	g, err := SpecimenGeometry(sp)
 	if err != nil {
-		return Setup{}, nil, fmt.Errorf("%s: %w", spec, err) // geometry errors begin with the shape block
+		return Setup{}, nil, err
 	}
+	switch sp.Shape {
+	case "strip":
+		s.DemagFactor = sp.Strip.DemagFactor
+	case "direct":
+		s.DemagFactor = sp.Direct.DemagFactor
+	}
+	spec := fmt.Sprintf("specimen %s", sp.ID)
 	s.PathLength, s.Area = g.PathLength, g.Area
 	s.RelUPath, s.RelUArea = g.RelUPath, g.RelUArea
 	s.Geometry = g.Method
@@ -121,4 +90,53 @@ func (s *Setup) SetAccuracy(p *profile.Profile) {
 // hold it (REFERENCE §5, after ASTM A977).
 func (s Setup) FluxSpan(bmax units.Tesla) units.WeberTurn {
 	return units.WeberTurn(float64(s.N2) * float64(s.Area) * 2 * float64(bmax))
+}
+
+// SpecimenGeometry returns the magnetic path length, area and method of a
+// specimen from its shape block (geometry.DefaultTol for the budget), with
+// the geometry's warnings (a strip length outside what IEC 60404-2 assumes,
+// a ring wider than IEC 60404-4 admits). It needs no fixture, so
+// `hystd check` can warn about a specimen file on its own.
+func SpecimenGeometry(sp config.Specimen) (geometry.Result, error) {
+	spec := fmt.Sprintf("specimen %s", sp.ID)
+	var g geometry.Result
+	var err error
+	switch sp.Shape {
+	case "ring":
+		r := sp.Ring
+		if r == nil {
+			return geometry.Result{}, fmt.Errorf("%s: ring: shape is ring but the ring block is missing", spec)
+		}
+		g, err = geometry.Ring(units.Metre(r.OuterMM*mm), units.Metre(r.InnerMM*mm), units.Metre(r.HeightMM*mm),
+			r.StackingFactor, r.Path, geometry.DefaultTol)
+	case "epstein":
+		e := sp.Epstein
+		if e == nil {
+			return geometry.Result{}, fmt.Errorf("%s: epstein: shape is epstein but the epstein block is missing", spec)
+		}
+		g, err = geometry.Epstein(units.Kilogram(sp.MassKg), units.Metre(e.StripLengthM),
+			units.KilogramPerCubicMetre(sp.DensityKgM3), e.Strips, geometry.DefaultTol)
+	case "strip":
+		st := sp.Strip
+		if st == nil {
+			return geometry.Result{}, fmt.Errorf("%s: strip: shape is strip but the strip block is missing", spec)
+		}
+		g, err = geometry.Strip(units.Kilogram(sp.MassKg), units.Metre(st.LengthM),
+			units.KilogramPerCubicMetre(sp.DensityKgM3), units.Metre(st.PathLengthM), geometry.DefaultTol)
+	case "direct":
+		d := sp.Direct
+		if d == nil {
+			return geometry.Result{}, fmt.Errorf("%s: direct: shape is direct but the direct block is missing", spec)
+		}
+		g, err = geometry.Direct(units.Metre(d.PathLengthMM*mm), units.SquareMetre(d.AreaMM2*mm*mm), 0, 0)
+		if err == nil {
+			g.Warnings = append(g.Warnings, "direct geometry: no tolerance given, path length and area are not in the budget")
+		}
+	default:
+		return geometry.Result{}, fmt.Errorf("%s: shape: %q: want ring, epstein, strip or direct", spec, sp.Shape)
+	}
+	if err != nil {
+		return geometry.Result{}, fmt.Errorf("%s: %w", spec, err) // geometry errors begin with the shape block
+	}
+	return g, nil
 }
