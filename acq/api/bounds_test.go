@@ -120,3 +120,38 @@ func TestServeRefusesForeignHost(t *testing.T) {
 		}
 	}
 }
+
+// TestImplausibleFlags: a run whose loop reads |J| = 1802 T (an Epstein
+// strip length written as 305 m for 0.305 m) carries the flag on the loop
+// and on the run, with the geometry warning the engine recorded as an event;
+// a plausible loop carries none.
+func TestImplausibleFlags(t *testing.T) {
+	e := newEnv(t, Options{})
+	e.reader.put(record.Run{ID: "E-305", State: record.Finished, Specimen: "E-305"},
+		record.Loop{RunID: "E-305", N: 1, Kind: "loop", Figures: []record.Figure{
+			{Name: "Bmax", Value: 1802, Unit: "T"}, {Name: "Hmax", Value: 1000, Unit: "A/m"}, {Name: "mu_a", Value: 1.43e6}},
+			Points: []record.Point{{H: 1000, B: 1802, J: 1802}}})
+	e.reader.events["E-305"] = []record.Event{{RunID: "E-305", At: t0, Level: "warn",
+		Text: "geometry of specimen E-305: epstein: strip length 305.000 m is outside 0.28–0.32 m; the 0.94 m path convention assumes that range"}}
+	code, m, _ := e.do(t, "GET", "/api/v1/runs/E-305", "", "", nil)
+	if code != 200 {
+		t.Fatalf("%d %v", code, m)
+	}
+	flags, _ := m["flags"].([]any)
+	if len(flags) != 2 || !strings.HasPrefix(flags[0].(string), "geometry of specimen E-305: epstein: strip length 305.000 m") ||
+		!strings.HasPrefix(flags[1].(string), "loop 1: implausible — check geometry and turns: |J| reaches 1802 T") {
+		t.Errorf("run flags %q", flags)
+	}
+	code, m, _ = e.do(t, "GET", "/api/v1/runs/E-305/loops/1", "", "", nil)
+	lf, _ := m["loop"].(map[string]any)["flags"].([]any)
+	if code != 200 || len(lf) != 1 || !strings.Contains(lf[0].(string), "|J| reaches 1802 T") {
+		t.Errorf("loop flags %d %q", code, lf)
+	}
+	code, m, _ = e.do(t, "GET", "/api/v1/runs/RUN-A", "", "", nil)
+	if flags, ok := m["flags"].([]any); code != 200 || !ok || len(flags) != 0 {
+		t.Errorf("plausible run: %d flags %v", code, m["flags"])
+	}
+	if lf, ok := m["loops"].([]any)[0].(map[string]any)["flags"].([]any); !ok || len(lf) != 0 {
+		t.Errorf("plausible loop flags %v", lf)
+	}
+}

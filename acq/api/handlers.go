@@ -160,15 +160,25 @@ func (s *server) getRun(w http.ResponseWriter, r *http.Request) {
 		s.fail(w, r, err)
 		return
 	}
-	lj := make([]loopJSON, 0, len(loops))
-	for _, l := range loops {
-		lj = append(lj, toLoop(l, false, false))
-	}
+	// flags: what a reviewer must see first — the specimen geometry's
+	// warnings (events the engine recorded) and every implausible loop.
+	flags := []string{}
 	ej := make([]eventJSON, 0, len(evs))
 	for _, e := range evs {
 		ej = append(ej, eventJSON{stamp(e.At), e.Level, e.Text})
+		if e.Level == "warn" && strings.HasPrefix(e.Text, "geometry of specimen ") {
+			flags = append(flags, e.Text)
+		}
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"run": toRun(run, true), "loops": lj, "events": ej})
+	lj := make([]loopJSON, 0, len(loops))
+	for _, l := range loops {
+		j := toLoop(l, false, false)
+		for _, f := range j.Flags {
+			flags = append(flags, fmt.Sprintf("loop %d: %s", l.N, f))
+		}
+		lj = append(lj, j)
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"run": toRun(run, true), "loops": lj, "events": ej, "flags": flags})
 }
 
 func (s *server) getLoop(w http.ResponseWriter, r *http.Request) {

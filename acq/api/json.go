@@ -8,6 +8,7 @@ import (
 	"strconv"
 	"time"
 
+	"hystd/acq/process"
 	"hystd/acq/record"
 )
 
@@ -108,6 +109,9 @@ type loopJSON struct {
 	Figures     []figureJSON     `json:"figures"`
 	Corrections []correctionJSON `json:"corrections"`
 	NPoints     int              `json:"n_points"` // points stored
+	// Flags are plausibility findings ("implausible — check geometry and
+	// turns: …", acq/process.Implausible); empty for a plausible loop.
+	Flags []string `json:"flags"`
 	// Stride is 1 when points holds every stored point, k when only every
 	// k-th (and the last) was sent because of ?max_points.
 	Stride int `json:"points_stride,omitempty"`
@@ -141,7 +145,11 @@ type rawJSON struct {
 
 func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
 	j := loopJSON{RunID: l.RunID, N: l.N, Kind: l.Kind, Amplitude: num(l.Amplitude), AmpUnit: l.AmpUnit,
-		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, NPoints: len(l.Points)}
+		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, NPoints: len(l.Points),
+		Flags: process.Implausible(l)}
+	if j.Flags == nil {
+		j.Flags = []string{}
+	}
 	for _, f := range l.Figures {
 		j.Figures = append(j.Figures, figureJSON{f.Name, num(f.Value), num(f.U), f.Unit, f.Note})
 	}

@@ -386,6 +386,11 @@ async function selectRun(id) {
   if (r.reason) item("reason", r.reason);
   const st = el("span", { class: "state state-" + r.state, text: r.state, id: "run-state" });
   head.append(el("h2", { text: r.id }, " ", st), meta);
+  if ((state.run.flags || []).length) {
+    const fl = el("ul", { class: "flags", id: "run-flags" });
+    for (const f of state.run.flags) fl.append(el("li", { text: f }));
+    head.append(fl);
+  }
   if (r.state === "queued" || r.state === "running") {
     const b = el("button", { class: "danger", id: "run-abort" , text: "Abort run" });
     const m = el("span", { class: "muted", id: "run-abort-msg" });
@@ -448,6 +453,7 @@ function fillTables(loop) {
   const fb = $("#figures tbody"), cb = $("#corrections tbody");
   fb.textContent = ""; cb.textContent = "";
   if (!loop) return;
+  for (const f of loop.flags || []) fb.append(el("tr", { class: "flag" }, el("td", { colspan: "6", text: f })));
   for (const f of loop.figures) {
     fb.append(el("tr", { "data-figure": f.name }, el("td", { text: f.name }), el("td", { class: "num", text: fmt(f.value) }),
       el("td", { class: "num", text: f.u === null ? "not evaluated" : fmt(f.u, 3) }), el("td", { text: f.unit }),
