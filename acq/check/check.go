@@ -12,6 +12,7 @@ import (
 
 	"hystd/acq/config"
 	"hystd/acq/influx"
+	"hystd/acq/process"
 	"hystd/configs"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
@@ -19,6 +20,16 @@ import (
 
 // Validator validates one parsed document of a kind.
 type Validator func(doc *configs.Doc) error
+
+// Warner returns the warnings of a document of a kind that validated:
+// settings that are allowed but probably wrong (a strip length in m that
+// looks like one in mm). Each is an Error whose Problem starts "warning: ".
+type Warner func(doc *configs.Doc) configs.Errors
+
+// warners maps a document kind to its warner.
+var warners = map[string]Warner{
+	"specimen": specimenWarnings,
+}
 
 // kinds maps a document kind to its validator.
 var kinds = map[string]Validator{
@@ -32,18 +43,31 @@ var kinds = map[string]Validator{
 // File validates the file at path. The error lists every problem found, one
 // per line, as FILE:LINE: key: problem.
 func File(path string) error {
+	_, err := Report(path)
+	return err
+}
+
+// Report validates the file at path like File and, when it is valid,
+// returns its warnings as FILE:LINE: key: warning: problem.
+func Report(path string) (configs.Errors, error) {
 	data, err := configs.ReadFile(path)
 	if err != nil {
-		return err
+		return nil, err
 	}
-	return Bytes(path, data)
+	return BytesReport(path, data)
 }
 
 // Bytes validates data as if read from file.
 func Bytes(file string, data []byte) error {
+	_, err := BytesReport(file, data)
+	return err
+}
+
+// BytesReport is Report on data as if read from file.
+func BytesReport(file string, data []byte) (configs.Errors, error) {
 	doc, err := configs.Parse(file, data)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	k := doc.Kind()
 	v, ok := kinds[k]
@@ -54,11 +78,60 @@ func Bytes(file string, data []byte) error {
 		}
 		sort.Strings(names)
 		if k == "" {
-			return doc.Errorf("kind", "missing; one of %s", strings.Join(names, ", "))
+			return nil, doc.Errorf("kind", "missing; one of %s", strings.Join(names, ", "))
 		}
-		return doc.Errorf("kind", "unknown kind %q; one of %s", k, strings.Join(names, ", "))
+		return nil, doc.Errorf("kind", "unknown kind %q; one of %s", k, strings.Join(names, ", "))
 	}
-	return v(doc)
+	if err := v(doc); err != nil {
+		return nil, err
+	}
+	if w := warners[k]; w != nil {
+		return w(doc), nil
+	}
+	return nil, nil
+}
+
+// Warning builds a warning for the key at path of doc.
+func Warning(doc *configs.Doc, path, format string, args ...any) *configs.Error {
+	e := doc.Errorf(path, format, args...)
+	e.Problem = "warning: " + e.Problem
+	return e
+}
+
+// specimenWarnings are the geometry's warnings of a specimen on its own.
+func specimenWarnings(doc *configs.Doc) configs.Errors {
+	sp, err := config.SpecimenFrom(doc)
+	if err != nil {
+		return nil
+	}
+	return SpecimenWarnings(doc, "", sp)
+}
+
+// SpecimenWarnings returns a specimen's geometry warnings located in doc:
+// at the key they concern under prefix (the specimen's own file: ""), or at
+// prefix itself when the specimen is named from another file.
+func SpecimenWarnings(doc *configs.Doc, prefix string, sp config.Specimen) configs.Errors {
+	g, err := process.SpecimenGeometry(sp)
+	if err != nil {
+		return nil
+	}
+	var ws configs.Errors
+	for _, w := range g.Warnings {
+		key := sp.Shape
+		switch {
+		case sp.Shape == "epstein" && strings.Contains(w, "strip length"):
+			key = "epstein.strip_length_m"
+		case sp.Shape == "ring" && strings.Contains(w, "OD/ID"):
+			key = "ring.outer_diameter_mm"
+		}
+		text := strings.TrimPrefix(w, sp.Shape+": ")
+		if prefix != "" {
+			ws = append(ws, Warning(doc, prefix, "specimen %s: %s", sp.ID, w))
+			continue
+		}
+		ws = append(ws, Warning(doc, key, "%s", text))
+	}
+	return ws
 }
 
 func validateFixture(doc *configs.Doc) error {
@@ -99,6 +172,14 @@ func Files(paths []string) error {
 		}
 	}
 	return errors.Join(all...)
+}
+
+// RegisterWarner adds the warner of a kind registered with Register.
+func RegisterWarner(kind string, w Warner) {
+	if _, dup := warners[kind]; dup {
+		panic(fmt.Sprintf("check: warner of kind %q registered twice", kind))
+	}
+	warners[kind] = w
 }
 
 // Register adds the validator of a kind. Packages of acq that define a kind

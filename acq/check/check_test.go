@@ -99,3 +99,33 @@ func lineOf(text, sub string) int {
 	}
 	return strings.Count(text[:i], "\n") + 1
 }
+
+// TestWarnings: a valid file can still look wrong. An Epstein strip length
+// of 305 m (for 0.305 m) is outside the 0.28–0.32 m the 0.94 m path length
+// of IEC 60404-2 assumes: a warning at the key, no error.
+func TestWarnings(t *testing.T) {
+	tests := []struct {
+		file string
+		want []string
+	}{
+		{"testdata/specimen-epstein-305m.yaml", []string{"testdata/specimen-epstein-305m.yaml:12: epstein.strip_length_m: warning: strip length 305.000 m is outside 0.28–0.32 m"}},
+		{"testdata/specimen-epstein-ok.yaml", nil},
+		{"../../configs/specimen-ring-r17.yaml", nil},
+	}
+	for _, tc := range tests {
+		ws, err := check.Report(tc.file)
+		if err != nil {
+			t.Errorf("%s: %v", tc.file, err)
+			continue
+		}
+		if len(ws) != len(tc.want) {
+			t.Errorf("%s: warnings %v, want %d", tc.file, ws, len(tc.want))
+			continue
+		}
+		for i, w := range tc.want {
+			if !strings.HasPrefix(ws[i].Error(), w) {
+				t.Errorf("%s: warning %q, want it to start %q", tc.file, ws[i], w)
+			}
+		}
+	}
+}

@@ -1,6 +1,8 @@
 package daemon
 
 import (
+	"fmt"
+
 	"hystd/acq/check"
 	"hystd/configs"
 )
@@ -11,5 +13,17 @@ func init() {
 	check.Register(Kind, func(doc *configs.Doc) error {
 		_, err := FromDoc(doc)
 		return err
+	})
+	// Warnings: the geometry of each fixture's specimen.
+	check.RegisterWarner(Kind, func(doc *configs.Doc) configs.Errors {
+		l, err := FromDoc(doc)
+		if err != nil {
+			return nil
+		}
+		var ws configs.Errors
+		for i, lf := range l.Fixtures {
+			ws = append(ws, check.SpecimenWarnings(doc, fmt.Sprintf("fixtures.%d.specimen", i), lf.Specimen)...)
+		}
+		return ws
 	})
 }

@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/check"
 	"hystd/acq/engine/enginetest"
 )
 
@@ -173,5 +174,26 @@ func TestOpenWithoutToken(t *testing.T) {
 	}
 	if !strings.Contains(log.String(), "without a token (http.open_without_token): every stored run") {
 		t.Errorf("no warning in the log:\n%s", log.String())
+	}
+}
+
+// TestCheckWarnsSpecimen: `hystd check` on a daemon config warns about the
+// geometry of a fixture's specimen (an Epstein strip length of 305 m, see
+// acq/check's TestWarnings), at the key naming the specimen file.
+func TestCheckWarnsSpecimen(t *testing.T) {
+	p := writeConfig(t, "kind: daemon\nstore: {path: x.db}\nfixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: e305.yaml}\n")
+	b, err := os.ReadFile("../check/testdata/specimen-epstein-305m.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(filepath.Dir(p), "e305.yaml"), b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	ws, err := check.Report(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(ws) != 1 || !strings.Contains(ws[0].Error(), "d.yaml:4: fixtures.0.specimen: warning: specimen E-305: epstein: strip length 305.000 m") {
+		t.Errorf("warnings %v", ws)
 	}
 }
