@@ -155,3 +155,31 @@ func TestImplausibleFlags(t *testing.T) {
 		t.Errorf("plausible loop flags %v", lf)
 	}
 }
+
+// BenchmarkPlotPNG: one PNG of the largest size allowed (2000×2000) beside
+// its peer, the default size, through the handler. With MaxRenders = 2 the
+// memory plots hold at once is at most twice the largest one's.
+func BenchmarkPlotPNG(b *testing.B) {
+	rd := newMemReader()
+	rd.put(record.Run{ID: "RUN-A", State: record.Finished}, tanhLoop("RUN-A", 2000, 6000, 400, 900, 1.6))
+	h, err := New(Options{Reader: rd})
+	if err != nil {
+		b.Fatal(err)
+	}
+	for _, size := range []string{"", "&width=2000&height=2000"} {
+		name := "default"
+		if size != "" {
+			name = "2000x2000"
+		}
+		b.Run(name, func(b *testing.B) {
+			b.ReportAllocs()
+			for b.Loop() {
+				rec := httptest.NewRecorder()
+				h.ServeHTTP(rec, httptest.NewRequest("GET", "/api/v1/runs/RUN-A/loops/1/plot?format=png"+size, nil))
+				if rec.Code != 200 {
+					b.Fatalf("%d %s", rec.Code, rec.Body)
+				}
+			}
+		})
+	}
+}
