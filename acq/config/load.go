@@ -3,7 +3,6 @@ package config
 import (
 	"fmt"
 	"math"
-	"os"
 	"regexp"
 
 	"hystd/configs"
@@ -11,7 +10,7 @@ import (
 
 // LoadFixture reads and validates a fixture file.
 func LoadFixture(path string) (Fixture, error) {
-	data, err := os.ReadFile(path)
+	data, err := configs.ReadFile(path)
 	if err != nil {
 		return Fixture{}, err
 	}
@@ -41,7 +40,7 @@ func FixtureFrom(doc *configs.Doc) (Fixture, error) {
 
 // LoadSpecimen reads and validates a specimen file.
 func LoadSpecimen(path string) (Specimen, error) {
-	data, err := os.ReadFile(path)
+	data, err := configs.ReadFile(path)
 	if err != nil {
 		return Specimen{}, err
 	}

@@ -113,7 +113,7 @@ var envKeys = []string{"http.addr", "http.token_file", "store.path", "log.level"
 // Load reads, overrides from the environment and validates a daemon config
 // and every file it names. Every problem is reported as FILE:LINE: key: problem.
 func Load(path string) (*Loaded, error) {
-	data, err := os.ReadFile(path)
+	data, err := configs.ReadFile(path)
 	if err != nil {
 		return nil, err
 	}
