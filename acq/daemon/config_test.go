@@ -156,11 +156,11 @@ func TestOpenWithoutToken(t *testing.T) {
 	clk := &schedClock{enginetest.NewClock()}
 	fb := &fakeBench{clk: clk, sup: enginetest.NewSupply(clk.Clock)}
 	sigs := make(chan os.Signal, 1)
-	var log bytes.Buffer
+	log := &syncWriter{w: &bytes.Buffer{}}
 	listening := make(chan string, 1)
 	served := make(chan error, 1)
 	go func() {
-		served <- Serve(t.Context(), p, Wiring{Open: fb.open, Signals: sigs, Stderr: &syncWriter{w: &log},
+		served <- Serve(t.Context(), p, Wiring{Open: fb.open, Signals: sigs, Stderr: log,
 			Listening: func(a string) { listening <- a }})
 	}()
 	select {
