@@ -35,6 +35,8 @@ type Run struct {
 	Fixture    string
 	Specimen   string // specimen id
 	Material   string
+	Grade      string // material grade the specimen is judged against; "" for none
+	Operator   string // who started the run, as given; "" when not given
 	Config     string // snapshot of fixture + specimen + recipe config (YAML)
 	ConfigHash string // hex SHA-256 of Config
 	Software   string // hystd version
