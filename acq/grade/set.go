@@ -3,7 +3,9 @@ package grade
 import (
 	"context"
 	"fmt"
+	"io"
 	"io/fs"
+	"math"
 	"os"
 	"path"
 	"sort"
@@ -96,4 +98,38 @@ func (w Writer) AddLoop(ctx context.Context, l record.Loop) error {
 		l.Verdicts = w.Grade.Judge(l, w.Rule)
 	}
 	return w.Writer.AddLoop(ctx, l)
+}
+
+// Print writes each loop's verdicts, one line per limit, and the loop's
+// overall outcome (fail if any failed, else undecided if any is, else pass).
+// Loops without verdicts are skipped; nothing is written when none has any.
+func Print(w io.Writer, loops []record.Loop) {
+	for _, l := range loops {
+		if len(l.Verdicts) == 0 {
+			continue
+		}
+		v0 := l.Verdicts[0]
+		fmt.Fprintf(w, "\nloop %d against grade %s (rule %s): %s\n", l.N, v0.Grade, v0.Rule, strings.ToUpper(string(record.Worst(l.Verdicts))))
+		for _, v := range l.Verdicts {
+			vs, us := FormatU(v.Value, v.U)
+			fmt.Fprintf(w, "  %-10s %-9s %s ± %s %s, limit %s", v.Figure, v.Outcome, vs, us, v.Unit, Bounds(v))
+			if v.Note != "" {
+				fmt.Fprintf(w, "  (%s)", v.Note)
+			}
+			fmt.Fprintln(w)
+		}
+	}
+}
+
+// Bounds formats a verdict's limits, e.g. "≤ 52", "≥ 1.45", "0.9 … 1.1".
+func Bounds(v record.Verdict) string {
+	switch {
+	case !math.IsNaN(v.Min) && !math.IsNaN(v.Max):
+		return fmt.Sprintf("%g … %g", v.Min, v.Max)
+	case !math.IsNaN(v.Min):
+		return fmt.Sprintf("≥ %g", v.Min)
+	case !math.IsNaN(v.Max):
+		return fmt.Sprintf("≤ %g", v.Max)
+	}
+	return "none"
 }
