@@ -251,8 +251,8 @@ func (s *server) submit(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	for k := range r.URL.Query() {
-		if k != "fixture" {
-			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: fixture)", k)
+		if k != "fixture" && k != "specimen" {
+			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: fixture, specimen)", k)
 			return
 		}
 	}
@@ -265,7 +265,7 @@ func (s *server) submit(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, "empty body: send the recipe file (YAML, kind: recipe)")
 		return
 	}
-	id, err := s.o.Runner.Submit(r.Context(), r.URL.Query().Get("fixture"), body)
+	id, err := s.submitRecipe(r, body)
 	if err != nil {
 		s.fail(w, r, err)
 		return
@@ -314,7 +314,7 @@ func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	case errors.Is(err, record.ErrNotFound):
 		writeError(w, http.StatusNotFound, "%v", err)
 	case errors.Is(err, ErrInvalid), errors.As(err, &ce), errors.As(err, &refused),
-		errors.Is(err, daemon.ErrUnknownFixture), errors.Is(err, daemon.ErrFixtureNeeded),
+		errors.Is(err, daemon.ErrUnknownFixture), errors.Is(err, daemon.ErrFixtureNeeded), errors.Is(err, daemon.ErrUnknownSpecimen),
 		errors.As(err, &br) && br.BadRequest():
 		writeError(w, http.StatusBadRequest, "%v", err)
 	case errors.Is(err, daemon.ErrNotActive):
@@ -324,7 +324,7 @@ func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 			return
 		}
 		writeError(w, http.StatusConflict, "%v", err)
-	case errors.Is(err, ErrConflict), errors.Is(err, daemon.ErrQueueFull):
+	case errors.Is(err, ErrConflict), errors.Is(err, daemon.ErrQueueFull), errors.Is(err, daemon.ErrNotWaiting):
 		writeError(w, http.StatusConflict, "%v", err)
 	case errors.Is(err, daemon.ErrStopping):
 		writeError(w, http.StatusServiceUnavailable, "%v", err)

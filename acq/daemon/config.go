@@ -55,7 +55,11 @@ type Config struct {
 	// one of them, and every loop is judged against it. Optional.
 	Grades string `yaml:"grades"`
 	// DecisionRule overrides the grades' own decision rule: guarded-U or simple. Optional.
-	DecisionRule string         `yaml:"decision_rule"`
+	DecisionRule string `yaml:"decision_rule"`
+	// ConfirmMount makes a queued run whose specimen differs from the one on
+	// the fixture wait until someone confirms the specimen mounted (API
+	// POST /api/v1/runs/{id}/mount, or the review page). Default false.
+	ConfirmMount bool           `yaml:"confirm_mount"`
 	Fixtures     []FixtureEntry `yaml:"fixtures"`
 }
 

@@ -1,6 +1,7 @@
 package daemon
 
 import (
+	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -11,6 +12,9 @@ import (
 	"hystd/acq/grade"
 	"hystd/configs"
 )
+
+// ErrUnknownSpecimen: a specimen reference is neither a registered id nor a file.
+var ErrUnknownSpecimen = errors.New("unknown specimen")
 
 // Registry is the daemon's specimen registry and material grades, loaded
 // from the folders its config names. It is immutable once loaded.
@@ -122,9 +126,9 @@ func (r Registry) Specimen(ref string) (config.Specimen, error) {
 		return sp, nil
 	}
 	if r.SpecimenDir == "" {
-		return config.Specimen{}, fmt.Errorf("specimen %q: no such file, and the config names no specimens folder", ref)
+		return config.Specimen{}, fmt.Errorf("%w %q: no such file, and the config names no specimens folder", ErrUnknownSpecimen, ref)
 	}
-	return config.Specimen{}, fmt.Errorf("specimen %q: no such file, and not among the specimens of %s %v", ref, r.SpecimenDir, r.IDs())
+	return config.Specimen{}, fmt.Errorf("%w %q: no such file, and not among the specimens of %s %v", ErrUnknownSpecimen, ref, r.SpecimenDir, r.IDs())
 }
 
 // GradeOf returns the grade sp is judged against, nil when none applies,
