@@ -189,6 +189,7 @@ func (s *server) routes() {
 	write("/api/v1/runs/{id}/mount", s.confirmMount)
 	read("/api/v1/mounts", s.listMounts)
 	read("/api/v1/specimens", s.listSpecimens)
+	read("/api/v1/runs/{id}/report", s.report)
 	s.mux.Handle("/api/", s.wrap("/api/", false, true, func(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, "no such API endpoint: %s %s", r.Method, r.URL.Path)
 	}))

@@ -146,6 +146,7 @@ func (x *exec) steps(ctx context.Context) error {
 		}
 	}
 	x.event(ctx, "warn", "%s", Caution(x.s.Fixture, peak))
+	x.identities(ctx)
 
 	cctx, cancel = context.WithTimeout(ctx, x.comm)
 	err = sup.SetCurrent(cctx, 0)
@@ -494,4 +495,25 @@ func (x *exec) halt(ctx context.Context) error {
 		x.energd = false
 	}
 	return err
+}
+
+// IdentityPrefix starts the event that records an instrument's identity
+// as read when it was opened: "instrument ROLE: REPLY".
+const IdentityPrefix = "instrument "
+
+// identities records each instrument's *IDN? reply, as read when it was
+// identified, for the run's provenance (instruments that can tell it).
+func (x *exec) identities(ctx context.Context) {
+	type idn interface{ IdentityRead() string }
+	in := x.s.Instruments
+	for _, r := range []struct {
+		role string
+		dev  any
+	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field_meter", in.FieldMeter}, {"thermometer", in.Thermometer}} {
+		if d, ok := r.dev.(idn); ok && d != nil {
+			if id := d.IdentityRead(); id != "" {
+				x.event(ctx, "info", "%s%s: %s", IdentityPrefix, r.role, id)
+			}
+		}
+	}
 }
