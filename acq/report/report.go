@@ -358,7 +358,7 @@ func (d *doc) loop(run record.Run, sp config.Specimen, l record.Loop) error {
 	d.title(fmt.Sprintf("Loop %d — %s at ±%s %s", l.N, l.Kind, trim(l.Amplitude), l.AmpUnit))
 	magnet := sp.Class == "magnet" || l.Kind == "demag-curve" || l.Kind == "recoil"
 	plots := []plot.Options{{Width: 900, Height: 600, Title: fmt.Sprintf("%s — loop %d", run.Specimen, l.N),
-		Labels: []string{fmt.Sprintf("loop %d, ±%s %s", l.N, trim(l.Amplitude), l.AmpUnit)}}}
+		Labels: []string{fmt.Sprintf("loop %d, amplitude %s %s", l.N, trim(l.Amplitude), l.AmpUnit)}}}
 	if magnet {
 		plots = append(plots, plot.Options{Width: 900, Height: 600, SecondQuadrant: true,
 			Title: fmt.Sprintf("%s — loop %d, second quadrant", run.Specimen, l.N), Labels: plots[0].Labels})
@@ -386,8 +386,8 @@ func (d *doc) loop(run record.Run, sp config.Specimen, l record.Loop) error {
 		p.AddPage()
 	}
 	p.SetFont(font, "B", 9)
-	cols := []float64{40, 45, 35, 20}
-	rest := d.w - 140
+	cols := []float64{38, 26, 22, 14}
+	rest := d.w - 100
 	for i, h := range []string{"figure", "value", "U (k = 2)", "unit", "how obtained"} {
 		w := rest
 		if i < len(cols) {
@@ -399,7 +399,7 @@ func (d *doc) loop(run record.Run, sp config.Specimen, l record.Loop) error {
 	p.SetFont(font, "", 8.5)
 	for _, f := range l.Figures {
 		vs, us := grade.FormatU(f.Value, f.U)
-		note := clip(strings.ReplaceAll(f.Note, "∮", "∫"), 48)
+		note := clip(strings.ReplaceAll(f.Note, "∮", "∫"), 62)
 		p.CellFormat(cols[0], lineH, figName(f.Name), "", 0, "L", false, 0, "")
 		p.CellFormat(cols[1], lineH, vs, "", 0, "L", false, 0, "")
 		p.CellFormat(cols[2], lineH, us, "", 0, "L", false, 0, "")
