@@ -220,14 +220,23 @@ func (s *server) trend(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
+	tf, err := parseTrendFilter(q)
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
 	pts, err := s.o.Reader.Trend(r.Context(), spec, fig, since)
 	if err != nil {
 		s.fail(w, r, err)
 		return
 	}
+	if tf.active() {
+		s.filteredTrend(w, r, spec, fig, tf, pts)
+		return
+	}
 	out := make([]trendJSON, 0, len(pts))
 	for _, p := range pts {
-		out = append(out, trendJSON{p.RunID, p.Loop, stamp(p.At), num(p.Value), num(p.U)})
+		out = append(out, trendJSON{RunID: p.RunID, Loop: p.Loop, At: stamp(p.At), Value: num(p.Value), U: num(p.U)})
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"specimen": spec, "figure": fig, "points": out})
 }

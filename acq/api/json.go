@@ -182,6 +182,13 @@ type trendJSON struct {
 	At    stamp  `json:"at"`
 	Value num    `json:"value"`
 	U     num    `json:"u"`
+	// Filled when the trend is filtered or judged (see trend.go).
+	Kind      string `json:"kind,omitempty"`
+	Amplitude *num   `json:"amplitude,omitempty"`
+	AmpUnit   string `json:"amplitude_unit,omitempty"`
+	Recipe    string `json:"recipe,omitempty"`
+	Fixture   string `json:"fixture,omitempty"`
+	Verdict   string `json:"verdict,omitempty"`
 }
 
 // writeJSON writes v with status code c.
