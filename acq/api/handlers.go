@@ -122,7 +122,15 @@ func (s *server) listRuns(w http.ResponseWriter, r *http.Request) {
 	}
 	out := make([]runJSON, 0, len(runs))
 	for _, run := range runs {
-		out = append(out, toRun(run, false))
+		j := toRun(run, false)
+		if ls, err := s.o.Reader.Loops(r.Context(), run.ID); err == nil {
+			var vs []record.Verdict
+			for _, l := range ls {
+				vs = append(vs, l.Verdicts...)
+			}
+			j.Verdict = string(record.Worst(vs))
+		}
+		out = append(out, j)
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"runs": out})
 }

@@ -71,12 +71,17 @@ type runJSON struct {
 	Ended      stamp        `json:"ended"`
 	RecipeText string       `json:"recipe_text,omitempty"`
 	Config     string       `json:"config,omitempty"`
+	Grade      string       `json:"grade,omitempty"`
+	Operator   string       `json:"operator,omitempty"`
+	// Verdict is the worst verdict over the run's loops (fail, undecided,
+	// pass); "" when none was judged. Filled in the runs list.
+	Verdict string `json:"verdict,omitempty"`
 }
 
 func toRun(r record.Run, full bool) runJSON {
 	j := runJSON{ID: r.ID, Recipe: r.Recipe, Fixture: r.Fixture, Specimen: r.Specimen, Material: r.Material,
 		State: r.State, Reason: r.Reason, Software: r.Software, ConfigHash: r.ConfigHash,
-		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended)}
+		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended), Grade: r.Grade, Operator: r.Operator}
 	if full {
 		j.RecipeText, j.Config = r.RecipeText, r.Config
 	}
@@ -98,6 +103,20 @@ type correctionJSON struct {
 	Note string `json:"note"`
 }
 
+// verdictJSON is one figure judged against a grade's limit (acq/grade).
+type verdictJSON struct {
+	Grade   string `json:"grade"`
+	Figure  string `json:"figure"`
+	Value   num    `json:"value"`
+	U       num    `json:"u"`
+	Min     num    `json:"min"` // null: no lower limit
+	Max     num    `json:"max"` // null: no upper limit
+	Unit    string `json:"unit"`
+	Rule    string `json:"rule"`
+	Outcome string `json:"outcome"` // pass, fail, undecided
+	Note    string `json:"note"`
+}
+
 type loopJSON struct {
 	RunID       string           `json:"run_id"`
 	N           int              `json:"n"`
@@ -107,6 +126,7 @@ type loopJSON struct {
 	Started     stamp            `json:"started"`
 	Figures     []figureJSON     `json:"figures"`
 	Corrections []correctionJSON `json:"corrections"`
+	Verdicts    []verdictJSON    `json:"verdicts"`
 	NPoints     int              `json:"n_points"` // points stored
 	// Stride is 1 when points holds every stored point, k when only every
 	// k-th (and the last) was sent because of ?max_points.
@@ -141,7 +161,10 @@ type rawJSON struct {
 
 func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
 	j := loopJSON{RunID: l.RunID, N: l.N, Kind: l.Kind, Amplitude: num(l.Amplitude), AmpUnit: l.AmpUnit,
-		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, NPoints: len(l.Points)}
+		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, Verdicts: []verdictJSON{}, NPoints: len(l.Points)}
+	for _, v := range l.Verdicts {
+		j.Verdicts = append(j.Verdicts, verdictJSON{v.Grade, v.Figure, num(v.Value), num(v.U), num(v.Min), num(v.Max), v.Unit, v.Rule, string(v.Outcome), v.Note})
+	}
 	for _, f := range l.Figures {
 		j.Figures = append(j.Figures, figureJSON{f.Name, num(f.Value), num(f.U), f.Unit, f.Note})
 	}
