@@ -408,7 +408,7 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			level = "warn"
 		}
 	}
-	x.event(ctx, level, "run %s after %s: %s", state, at.Sub(x.start).Round(time.Millisecond), orDash(reason))
+	x.event(ctx, level, "%s", endingText(state, at.Sub(x.start), reason))
 	x.setState(ctx, state, reason, at)
 	x.p.run.State, x.p.run.Reason, x.p.run.Ended = state, reason, at
 	if state == record.Finished {
@@ -417,11 +417,18 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	return x.p.run, &Stop{State: state, Reason: reason}
 }
 
-func orDash(s string) string {
-	if s == "" {
-		return "—"
+// endingText is the run's last log line: how it ended, after how long, and
+// why when it did not simply finish ("run finished normally after 2m29.6s: every step done",
+// "run aborted after 12.3s: SIGTERM received").
+func endingText(state record.State, d time.Duration, reason string) string {
+	d = d.Round(100 * time.Millisecond)
+	if reason == "" {
+		if state == record.Finished {
+			return fmt.Sprintf("run finished normally after %s: every step done", d)
+		}
+		return fmt.Sprintf("run %s after %s (no reason recorded)", state, d)
 	}
-	return s
+	return fmt.Sprintf("run %s after %s: %s", state, d, reason)
 }
 
 // zeroTol is the read-back current taken as zero, A: 5 mA + 0.2 % of the

@@ -4,7 +4,11 @@
 "use strict";
 
 const SVGNS = "http://www.w3.org/2000/svg";
-const COLOURS = ["#1b6f7a", "#b5531f", "#5c6e12", "#7a3b6e", "#35478f", "#a88414"];
+// Trace colours, our own pick: neighbours differ in hue and in lightness so
+// that they stay apart for readers with red-green or blue-yellow colour
+// vision deficiency and in greyscale print (dark blue, light orange, mid
+// bluish green, dark reddish purple, light sky blue, dark brown).
+const COLOURS = ["#174f8c", "#e69a2e", "#23907a", "#8e2d5c", "#7fb8e0", "#5a3a12"];
 const MARK = "#c01c28";
 
 const state = {
@@ -291,14 +295,15 @@ function loopSpec(loops, ordinate, units, q2) {
   const num = (v) => (v === null || v === undefined) ? NaN : v;
   loops.forEach((l, i) => {
     const p = l.points, col = COLOURS[i % COLOURS.length], key = `${l.run_id}#${l.n}`;
+    const name = `${l.run_id.replace(/^.*-(\d{8}T\d{4})\d*Z-.*$/, "$1")} #${l.n} ${l.kind} ±${fmt(l.amplitude, 4)} ${l.amplitude_unit}`;
     const xs = p.h_a_m.map(v => num(v) * sc.hMul);
     if (q2) {
       const keep = (arr) => arr.map((v, k) => (num(p.h_a_m[k]) <= 0 && num(v) >= 0) ? num(v) * sc.yMul : NaN);
-      spec.series.push({ label: `${key} B`, colour: col, xs, ys: keep(p.b_t), key, cls: "b" });
-      spec.series.push({ label: `${key} J`, colour: col, xs, ys: keep(p.j_t), key, dashed: true, cls: "j" });
+      spec.series.push({ label: `${name} B`, colour: col, xs, ys: keep(p.b_t), key, cls: "b" });
+      spec.series.push({ label: `${name} J`, colour: col, xs, ys: keep(p.j_t), key, dashed: true, cls: "j" });
     } else {
       const src = ordinate === "J" ? p.j_t : p.b_t;
-      spec.series.push({ label: key, colour: col, xs, ys: src.map(v => num(v) * sc.yMul), key });
+      spec.series.push({ label: name, colour: col, xs, ys: src.map(v => num(v) * sc.yMul), key });
     }
   });
   if (q2) {
@@ -640,12 +645,23 @@ function drawLive() {
     hmax = Math.max(hmax, Math.abs(L.loops[k].xs[i]) || 0); ymax = Math.max(ymax, Math.abs(L.loops[k].ys[i]) || 0);
   }
   const sc = scaleFor("si", hmax, ymax);
-  const series = keys.map((k, i) => ({
-    label: k ? `loop ${k}` : "not in a loop", key: "live-" + k, cls: "live", width: i === keys.length - 1 ? 2 : 1.2,
-    colour: i === keys.length - 1 ? COLOURS[0] : "#a9b7b3",
-    xs: L.loops[k].xs.map(v => v * sc.hMul), ys: L.loops[k].ys.map(v => v * sc.yMul),
-  }));
-  livePlot.plot.set({ series, xlabel: `H (${sc.hUnit}), live estimate`, ylabel: `B (${sc.yUnit}), live estimate`, empty: "waiting for samples" }, true);
+  // The live B estimate starts from the integrator's zero, not from the
+  // specimen's state: each trace is drawn centred on the midpoint of its
+  // own extremes, as a symmetric cyclic loop is centred after storing.
+  const centre = (ys) => {
+    let lo = Infinity, hi = -Infinity;
+    for (const y of ys) if (isFinite(y)) { lo = Math.min(lo, y); hi = Math.max(hi, y); }
+    return isFinite(lo) ? (lo + hi) / 2 : 0;
+  };
+  const series = keys.map((k, i) => {
+    const c = centre(L.loops[k].ys);
+    return {
+      label: k ? `loop ${k}` : "demagnetize, condition and other steps", key: "live-" + k, cls: "live", width: i === keys.length - 1 ? 2 : 1.2,
+      colour: i === keys.length - 1 ? COLOURS[0] : "#a9b7b3",
+      xs: L.loops[k].xs.map(v => v * sc.hMul), ys: L.loops[k].ys.map(v => (v - c) * sc.yMul),
+    };
+  });
+  livePlot.plot.set({ series, xlabel: `H (${sc.hUnit}), live estimate`, ylabel: `B (${sc.yUnit}), live estimate, centred`, empty: "waiting for samples" }, true);
 }
 
 async function streamEvents() {
@@ -750,7 +766,7 @@ async function init() {
   livePlot.plot = new Plot($("#live-plot"));
   loopPlot.plot.set({ series: [], empty: "pick a run on the left" });
   comparePlot.plot.set({ series: [], empty: "no loop added yet" });
-  livePlot.plot.set({ series: [], empty: "no sweep running since this page opened" });
+  livePlot.plot.set({ series: [], empty: "no run under way since this page opened" });
   try { state.info = await api("/api/v1/info"); } catch (e) { /* defaults */ }
   const fx = state.info.fixtures || [];
   for (const f of fx) $("#fixture-names").append(el("option", { value: f.name }));
