@@ -268,7 +268,7 @@ func writePlot(path string, run record.Run, loops []record.Loop) error {
 // uncertainties (k = 2) and units.
 func PrintFigures(w io.Writer, loops []record.Loop) {
 	for _, l := range loops {
-		fmt.Fprintf(w, "\nloop %d (%s, ±%g %s)\n", l.N, l.Kind, l.Amplitude, l.AmpUnit)
+		fmt.Fprintf(w, "\nloop %d (%s, ±%.6g %s)\n", l.N, l.Kind, l.Amplitude, l.AmpUnit)
 		tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "figure\tvalue\t± U (k=2)\tunit\t")
 		for _, f := range l.Figures {
