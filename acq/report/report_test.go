@@ -188,3 +188,37 @@ func TestReportRendersAPage(t *testing.T) {
 		t.Logf("%d coloured pixels", coloured)
 	}
 }
+
+// TestReportPlotsPerLoop: a soft loop gets one plot; a magnet's curve gets
+// the second-quadrant plot too (counted with poppler's pdfimages).
+func TestReportPlotsPerLoop(t *testing.T) {
+	pdfimages := poppler(t, "pdfimages")
+	for _, tc := range []struct {
+		kind string
+		want int
+	}{{"loop", 1}, {"demag-curve", 2}} {
+		in := sampleInput(t)
+		in.Loops[0].Kind = tc.kind
+		var buf bytes.Buffer
+		if err := Write(&buf, in); err != nil {
+			t.Fatal(err)
+		}
+		pdf := filepath.Join(t.TempDir(), "r.pdf")
+		if err := os.WriteFile(pdf, buf.Bytes(), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		out, err := exec.Command(pdfimages, "-list", pdf).CombinedOutput()
+		if err != nil {
+			t.Fatalf("pdfimages: %v\n%s", err, out)
+		}
+		n := 0
+		for _, ln := range strings.Split(string(out), "\n") {
+			if f := strings.Fields(ln); len(f) > 3 && f[2] == "image" {
+				n++
+			}
+		}
+		if n != tc.want {
+			t.Errorf("%s: %d images, want %d\n%s", tc.kind, n, tc.want, out)
+		}
+	}
+}
