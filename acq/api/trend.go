@@ -29,6 +29,7 @@ type trendFilter struct {
 	lo, hi                float64 // NaN: none
 	rule                  string
 	given                 bool // lo or hi given
+	judge                 bool // tol given: the caller asks for the filtered, judged form
 }
 
 func parseTrendFilter(q url.Values) (trendFilter, error) {
@@ -67,18 +68,23 @@ func parseTrendFilter(q url.Values) (trendFilter, error) {
 		return f, fmt.Errorf("rule: %q: want %s or %s", f.rule, grade.RuleGuarded, grade.RuleSimple)
 	}
 	f.given = !math.IsNaN(f.lo) || !math.IsNaN(f.hi)
+	f.judge = q.Has("tol") || q.Has("rule")
 	return f, nil
 }
 
 // active reports whether the filter asks for anything beyond the plain trend.
 func (f trendFilter) active() bool {
-	return f.kind != "" || f.recipe != "" || f.fixture != "" || !math.IsNaN(f.amp) || f.given
+	return f.kind != "" || f.recipe != "" || f.fixture != "" || !math.IsNaN(f.amp) || f.given || f.judge
 }
 
 func (s *server) filteredTrend(w http.ResponseWriter, r *http.Request, spec, fig string, f trendFilter, pts []record.TrendPoint) {
 	runs := map[string]record.Run{}
 	loops := map[string][]record.Loop{}
 	out := []trendJSON{}
+	// Limits of the grade, from the verdicts stored with the points' loops:
+	// drawn when no limits are given and all those verdicts agree on them.
+	var gradeLim *record.Verdict
+	gradeSame := true
 	for _, p := range pts {
 		run, ok := runs[p.RunID]
 		if !ok {
@@ -116,14 +122,25 @@ func (s *server) filteredTrend(w http.ResponseWriter, r *http.Request, spec, fig
 			for _, v := range l.Verdicts {
 				if v.Figure == fig {
 					tp.Verdict = string(v.Outcome)
+					if gradeLim == nil {
+						vv := v
+						gradeLim = &vv
+					} else if !sameNum(gradeLim.Min, v.Min) || !sameNum(gradeLim.Max, v.Max) || gradeLim.Rule != v.Rule || gradeLim.Grade != v.Grade {
+						gradeSame = false
+					}
 				}
 			}
 		}
 		out = append(out, tp)
 	}
 	resp := map[string]any{"specimen": spec, "figure": fig, "points": out}
-	if f.given {
-		resp["limits"] = map[string]any{"lo": num(f.lo), "hi": num(f.hi), "rule": f.rule}
+	switch {
+	case f.given:
+		resp["limits"] = map[string]any{"lo": num(f.lo), "hi": num(f.hi), "rule": f.rule, "source": "given"}
+	case gradeLim != nil && gradeSame:
+		resp["limits"] = map[string]any{"lo": num(gradeLim.Min), "hi": num(gradeLim.Max), "rule": gradeLim.Rule, "source": "grade " + gradeLim.Grade}
 	}
 	writeJSON(w, http.StatusOK, resp)
 }
+
+func sameNum(a, b float64) bool { return a == b || (math.IsNaN(a) && math.IsNaN(b)) }

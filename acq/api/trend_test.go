@@ -76,6 +76,23 @@ func TestTrendFiltered(t *testing.T) {
 			t.Errorf("%s: %d %v, want %s", tc.q, code, got, tc.want)
 		}
 	}
+	// Without given limits, the grade's limits come from the stored verdicts.
+	resp, err := http.Get(e.srv.URL + "/api/v1/trend?" + base + "&amplitude=6000&tol=0.05")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var lim struct {
+		Limits struct {
+			Hi     float64 `json:"hi"`
+			Rule   string  `json:"rule"`
+			Source string  `json:"source"`
+		} `json:"limits"`
+	}
+	err = json.NewDecoder(resp.Body).Decode(&lim)
+	resp.Body.Close()
+	if err != nil || lim.Limits.Hi != 405 || lim.Limits.Source != "grade G" || lim.Limits.Rule != "guarded-U" {
+		t.Errorf("grade limits %+v %v", lim, err)
+	}
 	for _, q := range []string{base + "&tol=2", base + "&amplitude=big", base + "&lo=5&hi=1", base + "&rule=lenient", base + "&colour=red"} {
 		if code, _ := trendOf(t, e, q); code != 400 {
 			t.Errorf("%s: %d, want 400", q, code)

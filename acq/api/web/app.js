@@ -586,7 +586,8 @@ async function drawTrend(ev) {
   trendPlot.plot.set({
     series: [{ xs: times, ys: pts.map(p => p.value), colour: "#9fb8b4", width: 1 }],
     points: pts.map((p, i) => ({ x: times[i], y: p.value, u: p.u, cls: judged(p) === "fail" ? "out" : judged(p) === "undecided" ? "undecided" : "in", title: `${p.run_id} #${p.loop}: ${withU(p.value, p.u)} ${judged(p)}` })),
-    hlines: [{ y: lo }, { y: hi }],
+    hlines: isFinite(lo) || isFinite(hi) || !data.limits ? [{ y: lo }, { y: hi }] :
+      [{ y: data.limits.lo ?? NaN, label: data.limits.source }, { y: data.limits.hi ?? NaN, label: data.limits.source }],
     xlabel: "started (UTC)", ylabel: fig + (unit ? ` (${unit})` : ""), xlim, xfixed: true, xticks: timeTicks,
     empty: "no values to draw",
   });
