@@ -266,7 +266,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		}
 		if st.Loop != nil && phase != "" {
 			raw = append(raw, s)
-			x.liveSample(s)
+			x.liveSample(s, x.loopN+1)
+		} else {
+			x.liveSample(s, 0) // demagnetize, condition, approach, return: shown live too
 		}
 		if st.Kind == recipe.KindDriftHold && phase == record.PreHold {
 			drift = append(drift, s)
@@ -315,7 +317,9 @@ func (x *exec) progress(st recipe.Step, t time.Duration) {
 		StepName: fmt.Sprintf("%s (%s)", st.Kind, st.Source), Fraction: frac})
 }
 
-func (x *exec) liveSample(s record.Sample) {
+// liveSample publishes s as a live sample of loop n (0: a step that records
+// no loop).
+func (x *exec) liveSample(s record.Sample, n int) {
 	if x.s.Live == nil {
 		return
 	}
@@ -323,7 +327,7 @@ func (x *exec) liveSample(s record.Sample) {
 	if a := float64(x.s.Area); a > 0 && x.s.Fixture.Winding.N2 > 0 {
 		b = s.Psi / (float64(x.s.Fixture.Winding.N2) * a)
 	}
-	x.p.publish(live.Event{Kind: live.KindSample, Loop: x.loopN + 1, T: s.T.Seconds(),
+	x.p.publish(live.Event{Kind: live.KindSample, Loop: n, T: s.T.Seconds(),
 		H: finite(x.hOf(s)), B: finite(b), I: finite(s.I)})
 }
 
