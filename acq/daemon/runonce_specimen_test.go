@@ -3,6 +3,7 @@ package daemon
 import (
 	"bytes"
 	"context"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -52,11 +53,31 @@ func TestRunOnceOnAChosenSpecimen(t *testing.T) {
 	}
 	bd.assertZero(t)
 	r, loops := bd.run(t, run.ID)
-	if r.Specimen != "R17-009" || r.Grade != "NO-R470" || r.Operator != "bay-2 night shift" || len(loops) != 1 || len(loops[0].Verdicts) != 3 {
-		t.Fatalf("stored run %+v with %d loops", r, len(loops))
+	if r.Specimen != "R17-009" || r.Grade != "NO-R470" || r.Operator != "bay-2 night shift" || len(loops) != 1 {
+		t.Fatalf("stored run %s: specimen %q grade %q operator %q, %d loops", r.ID, r.Specimen, r.Grade, r.Operator, len(loops))
+	}
+	// The grade's limits apply to loops whose measured Hmax is within 5 % of
+	// 1 kA/m; on a loaded machine the real-time sweep may fall short of it,
+	// and then no limit applies.
+	hmax := -1.0
+	for _, f := range loops[0].Figures {
+		if f.Name == "Hmax" {
+			hmax = f.Value
+		}
+	}
+	want := []string{"specimen R17-009", "HcB"}
+	if math.Abs(hmax-1000) <= 50 {
+		if len(loops[0].Verdicts) != 3 {
+			t.Fatalf("Hmax %g A/m: %d verdicts, want 3", hmax, len(loops[0].Verdicts))
+		}
+		want = append(want, "loop 1 against grade NO-R470 (rule guarded-U): "+strings.ToUpper(string(record.Worst(loops[0].Verdicts))))
+	} else if len(loops[0].Verdicts) != 0 {
+		t.Fatalf("Hmax %g A/m is off the grade's amplitude, yet %d verdicts", hmax, len(loops[0].Verdicts))
+	} else {
+		t.Logf("Hmax %g A/m: off the grade's 1 kA/m ± 5 %%, no verdict (machine under load)", hmax)
 	}
 	text := out.String()
-	for _, want := range []string{"specimen R17-009", "HcB", "loop 1 against grade NO-R470 (rule guarded-U): " + strings.ToUpper(string(record.Worst(loops[0].Verdicts)))} {
+	for _, want := range want {
 		if !strings.Contains(text, want) {
 			t.Errorf("terminal output lacks %q:\n%s", want, text)
 		}
