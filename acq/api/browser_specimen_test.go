@@ -121,6 +121,9 @@ fixtures:
 // specimen; the runs list and the loop view show its verdict against the
 // grade; the trend filtered by amplitude keeps only like loops.
 func TestBrowserSpecimenMountVerdicts(t *testing.T) {
+	if testing.Short() {
+		t.Skip("browser test on the real-time bench: not in -short")
+	}
 	chromium := findChromium(t)
 	bs := startRegistryServer(t)
 	b := newBrowser(t, chromium)
