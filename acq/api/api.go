@@ -187,6 +187,10 @@ func (s *server) routes() {
 	s.mux.Handle("GET /api/v1/events", s.wrap("/api/v1/events", s.o.ProtectReads, false, s.events))
 	write("/api/v1/runs", s.submit)
 	write("/api/v1/runs/{id}/abort", s.abort)
+	write("/api/v1/runs/{id}/mount", s.confirmMount)
+	read("/api/v1/mounts", s.listMounts)
+	read("/api/v1/specimens", s.listSpecimens)
+	read("/api/v1/runs/{id}/report", s.report)
 	s.mux.Handle("/api/", s.wrap("/api/", false, true, func(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, "no such API endpoint: %s %s", r.Method, r.URL.Path)
 	}))

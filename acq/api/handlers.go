@@ -138,7 +138,15 @@ func (s *server) listRuns(w http.ResponseWriter, r *http.Request) {
 	}
 	out := make([]runJSON, 0, len(runs))
 	for _, run := range runs {
-		out = append(out, toRun(run, false))
+		j := toRun(run, false)
+		if ls, err := s.o.Reader.Loops(r.Context(), run.ID); err == nil {
+			var vs []record.Verdict
+			for _, l := range ls {
+				vs = append(vs, l.Verdicts...)
+			}
+			j.Verdict = string(record.Worst(vs))
+		}
+		out = append(out, j)
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"runs": out})
 }
@@ -246,14 +254,23 @@ func (s *server) trend(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
+	tf, err := parseTrendFilter(q)
+	if err != nil {
+		writeError(w, http.StatusBadRequest, "%v", err)
+		return
+	}
 	pts, err := s.o.Reader.Trend(r.Context(), spec, fig, since)
 	if err != nil {
 		s.fail(w, r, err)
 		return
 	}
+	if tf.active() {
+		s.filteredTrend(w, r, spec, fig, tf, pts)
+		return
+	}
 	out := make([]trendJSON, 0, len(pts))
 	for _, p := range pts {
-		out = append(out, trendJSON{p.RunID, p.Loop, stamp(p.At), num(p.Value), num(p.U)})
+		out = append(out, trendJSON{RunID: p.RunID, Loop: p.Loop, At: stamp(p.At), Value: num(p.Value), U: num(p.U)})
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"specimen": spec, "figure": fig, "points": out})
 }
@@ -279,8 +296,8 @@ func (s *server) submit(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	for k := range r.URL.Query() {
-		if k != "fixture" {
-			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: fixture)", k)
+		if k != "fixture" && k != "specimen" {
+			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: fixture, specimen)", k)
 			return
 		}
 	}
@@ -293,7 +310,7 @@ func (s *server) submit(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, "empty body: send the recipe file (YAML, kind: recipe)")
 		return
 	}
-	id, err := s.o.Runner.Submit(r.Context(), r.URL.Query().Get("fixture"), body)
+	id, err := s.submitRecipe(r, body)
 	if err != nil {
 		s.fail(w, r, err)
 		return
@@ -342,7 +359,7 @@ func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	case errors.Is(err, record.ErrNotFound):
 		writeError(w, http.StatusNotFound, "%v", err)
 	case errors.Is(err, ErrInvalid), errors.As(err, &ce), errors.As(err, &refused),
-		errors.Is(err, daemon.ErrUnknownFixture), errors.Is(err, daemon.ErrFixtureNeeded),
+		errors.Is(err, daemon.ErrUnknownFixture), errors.Is(err, daemon.ErrFixtureNeeded), errors.Is(err, daemon.ErrUnknownSpecimen),
 		errors.As(err, &br) && br.BadRequest():
 		writeError(w, http.StatusBadRequest, "%v", err)
 	case errors.Is(err, daemon.ErrNotActive):
@@ -352,7 +369,7 @@ func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 			return
 		}
 		writeError(w, http.StatusConflict, "%v", err)
-	case errors.Is(err, ErrConflict), errors.Is(err, daemon.ErrQueueFull):
+	case errors.Is(err, ErrConflict), errors.Is(err, daemon.ErrQueueFull), errors.Is(err, daemon.ErrNotWaiting):
 		writeError(w, http.StatusConflict, "%v", err)
 	case errors.Is(err, daemon.ErrStopping):
 		writeError(w, http.StatusServiceUnavailable, "%v", err)

@@ -72,12 +72,17 @@ type runJSON struct {
 	Ended      stamp        `json:"ended"`
 	RecipeText string       `json:"recipe_text,omitempty"`
 	Config     string       `json:"config,omitempty"`
+	Grade      string       `json:"grade,omitempty"`
+	Operator   string       `json:"operator,omitempty"`
+	// Verdict is the worst verdict over the run's loops (fail, undecided,
+	// pass); "" when none was judged. Filled in the runs list.
+	Verdict string `json:"verdict,omitempty"`
 }
 
 func toRun(r record.Run, full bool) runJSON {
 	j := runJSON{ID: r.ID, Recipe: r.Recipe, Fixture: r.Fixture, Specimen: r.Specimen, Material: r.Material,
 		State: r.State, Reason: r.Reason, Software: r.Software, ConfigHash: r.ConfigHash,
-		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended)}
+		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended), Grade: r.Grade, Operator: r.Operator}
 	if full {
 		j.RecipeText, j.Config = r.RecipeText, r.Config
 	}
@@ -99,6 +104,20 @@ type correctionJSON struct {
 	Note string `json:"note"`
 }
 
+// verdictJSON is one figure judged against a grade's limit (acq/grade).
+type verdictJSON struct {
+	Grade   string `json:"grade"`
+	Figure  string `json:"figure"`
+	Value   num    `json:"value"`
+	U       num    `json:"u"`
+	Min     num    `json:"min"` // null: no lower limit
+	Max     num    `json:"max"` // null: no upper limit
+	Unit    string `json:"unit"`
+	Rule    string `json:"rule"`
+	Outcome string `json:"outcome"` // pass, fail, undecided
+	Note    string `json:"note"`
+}
+
 type loopJSON struct {
 	RunID       string           `json:"run_id"`
 	N           int              `json:"n"`
@@ -108,6 +127,7 @@ type loopJSON struct {
 	Started     stamp            `json:"started"`
 	Figures     []figureJSON     `json:"figures"`
 	Corrections []correctionJSON `json:"corrections"`
+	Verdicts    []verdictJSON    `json:"verdicts"`
 	NPoints     int              `json:"n_points"` // points stored
 	// Flags are plausibility findings ("implausible — check geometry and
 	// turns: …", acq/process.Implausible); empty for a plausible loop.
@@ -145,10 +165,13 @@ type rawJSON struct {
 
 func toLoop(l record.Loop, withPoints, withRaw bool) loopJSON {
 	j := loopJSON{RunID: l.RunID, N: l.N, Kind: l.Kind, Amplitude: num(l.Amplitude), AmpUnit: l.AmpUnit,
-		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, NPoints: len(l.Points),
+		Started: stamp(l.Started), Figures: []figureJSON{}, Corrections: []correctionJSON{}, Verdicts: []verdictJSON{}, NPoints: len(l.Points),
 		Flags: process.Implausible(l)}
 	if j.Flags == nil {
 		j.Flags = []string{}
+	}
+	for _, v := range l.Verdicts {
+		j.Verdicts = append(j.Verdicts, verdictJSON{v.Grade, v.Figure, num(v.Value), num(v.U), num(v.Min), num(v.Max), v.Unit, v.Rule, string(v.Outcome), v.Note})
 	}
 	for _, f := range l.Figures {
 		j.Figures = append(j.Figures, figureJSON{f.Name, num(f.Value), num(f.U), f.Unit, f.Note})
@@ -190,6 +213,13 @@ type trendJSON struct {
 	At    stamp  `json:"at"`
 	Value num    `json:"value"`
 	U     num    `json:"u"`
+	// Filled when the trend is filtered or judged (see trend.go).
+	Kind      string `json:"kind,omitempty"`
+	Amplitude *num   `json:"amplitude,omitempty"`
+	AmpUnit   string `json:"amplitude_unit,omitempty"`
+	Recipe    string `json:"recipe,omitempty"`
+	Fixture   string `json:"fixture,omitempty"`
+	Verdict   string `json:"verdict,omitempty"`
 }
 
 // writeJSON writes v with status code c.

@@ -11,6 +11,7 @@ import (
 	"strings"
 
 	"hystd/acq/config"
+	"hystd/acq/grade"
 	"hystd/acq/influx"
 	"hystd/acq/process"
 	"hystd/configs"
@@ -38,6 +39,7 @@ var kinds = map[string]Validator{
 	"instrument-profile": func(doc *configs.Doc) error { _, err := profile.FromDoc(doc); return err },
 	"bench":              func(doc *configs.Doc) error { _, err := sim.BenchFrom(doc); return err },
 	"influx":             func(doc *configs.Doc) error { _, err := influx.ConfigFrom(doc); return err },
+	"grade":              func(doc *configs.Doc) error { _, err := grade.FromDoc(doc); return err },
 }
 
 // File validates the file at path. The error lists every problem found, one

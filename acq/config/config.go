@@ -82,6 +82,9 @@ type Specimen struct {
 	// Class is "soft" or "magnet": which figures are reported.
 	Class string `yaml:"class"`
 	Note  string `yaml:"note"`
+	// Grade names the material grade (a `kind: grade` file) the specimen is
+	// judged against; "" for none.
+	Grade string `yaml:"grade"`
 	// Shape is one of ring, epstein, strip, direct; the matching block below is required.
 	Shape   string   `yaml:"shape"`
 	Ring    *Ring    `yaml:"ring"`

@@ -244,6 +244,11 @@ func TestWatchedFolderRun(t *testing.T) {
 	if !strings.Contains(res, "state: finished") || !strings.Contains(res, "run_id: aldermoor-ring-2-") {
 		t.Fatalf("result:\n%s", res)
 	}
+	// The result file holds the stored figures (and verdicts, when the specimen's grade is known).
+	if !strings.Contains(res, "specimen: R17-003") || !strings.Contains(res, "loops:") || !strings.Contains(res, "- name: HcB") ||
+		!strings.Contains(res, "unit: A/m") {
+		t.Errorf("result without figures:\n%s", res)
+	}
 	if _, err := os.Stat(filepath.Join(bd.watch, DoneDir, "loop.yaml")); err != nil {
 		t.Error("recipe not moved to done/")
 	}

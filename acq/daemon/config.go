@@ -53,8 +53,21 @@ type Config struct {
 		Format string `yaml:"format"` // text (default) | json
 	} `yaml:"log"`
 	// SpoolDir keeps loops the store refused during a run; default: beside the store.
-	SpoolDir string         `yaml:"spool_dir"`
-	Fixtures []FixtureEntry `yaml:"fixtures"`
+	SpoolDir string `yaml:"spool_dir"`
+	// Specimens is a folder of `kind: specimen` files: the registry from
+	// which a run names its specimen by id (run --specimen, POST
+	// ?specimen=, a recipe's specimen: key). Optional.
+	Specimens string `yaml:"specimens"`
+	// Grades is a folder of `kind: grade` files; a specimen's grade: names
+	// one of them, and every loop is judged against it. Optional.
+	Grades string `yaml:"grades"`
+	// DecisionRule overrides the grades' own decision rule: guarded-U or simple. Optional.
+	DecisionRule string `yaml:"decision_rule"`
+	// ConfirmMount makes a queued run whose specimen differs from the one on
+	// the fixture wait until someone confirms the specimen mounted (API
+	// POST /api/v1/runs/{id}/mount, or the review page). Default false.
+	ConfirmMount bool           `yaml:"confirm_mount"`
+	Fixtures     []FixtureEntry `yaml:"fixtures"`
 }
 
 // FixtureEntry is one fixture this daemon drives.
@@ -82,6 +95,8 @@ type Loaded struct {
 	Config   Config
 	Fixtures []LoadedFixture
 	TokenSet bool // a token file was given and read
+	// Registry holds the specimens and grades the config names.
+	Registry Registry
 	token    string
 	LoadedAt time.Time
 }
@@ -209,6 +224,7 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 		}
 		c.Influx = &ic
 	}
+	l.Registry = loadRegistry(ce, abs(c.Specimens), abs(c.Grades), c.DecisionRule)
 	if len(c.Fixtures) == 0 {
 		ce.add("fixtures", "required: at least one fixture with its fixture and specimen files")
 	}
@@ -232,6 +248,7 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			ce.add(p+".specimen", "%v", err)
 			continue
 		}
+		l.Registry.checkGrade(ce, p+".specimen", sp)
 		lf.Name, lf.Fixture, lf.Specimen = fx.Name, fx, sp
 		if prev, dup := names[fx.Name]; dup {
 			ce.add(p+".fixture", "fixture %q is already driven by %s", fx.Name, prev)

@@ -94,6 +94,7 @@ type Daemon struct {
 type fixtureRunner struct {
 	name      string
 	queue     chan *job
+	mounted   string // id of the specimen on the fixture as far as the daemon knows; guarded by Daemon.mu
 	active    atomic.Pointer[job]
 	stopAside context.CancelFunc // ends the watcher and scheduler
 }
@@ -109,6 +110,7 @@ type job struct {
 	// guarded by Daemon.mu
 	cancel  context.CancelCauseFunc // set while running
 	aborted bool                    // ended while queued
+	mount   chan struct{}           // set while waiting for its specimen to be mounted; closed by ConfirmMount
 }
 
 // New returns a daemon for cfg; Start begins its work.
@@ -182,7 +184,7 @@ func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 func (d *Daemon) startFixture(lf LoadedFixture) {
 	fr := d.fixtures[lf.Name]
 	if fr == nil {
-		fr = &fixtureRunner{name: lf.Name, queue: make(chan *job, QueueLength)}
+		fr = &fixtureRunner{name: lf.Name, queue: make(chan *job, QueueLength), mounted: lf.Specimen.ID}
 		d.fixtures[lf.Name] = fr
 		d.wg.Add(1)
 		go func() {
@@ -240,7 +242,7 @@ func (d *Daemon) Reload(cfg *Loaded) {
 // means the daemon's only fixture; with several, the error wraps
 // ErrFixtureNeeded and names them.
 func (d *Daemon) Submit(ctx context.Context, fixture string, recipeYAML []byte) (string, error) {
-	return d.submit(ctx, fixture, "submitted recipe", recipeYAML, "api", nil)
+	return d.submit(ctx, fixture, "", "submitted recipe", recipeYAML, "api", nil)
 }
 
 // SubmitNamed is Submit with the file name used in error messages, the
@@ -248,10 +250,10 @@ func (d *Daemon) Submit(ctx context.Context, fixture string, recipeYAML []byte) 
 // called once with the run's final record (never called when an error is
 // returned).
 func (d *Daemon) SubmitNamed(ctx context.Context, fixture, name string, data []byte, source string, done func(record.Run, error)) (string, error) {
-	return d.submit(ctx, fixture, name, data, source, done)
+	return d.submit(ctx, fixture, "", name, data, source, done)
 }
 
-func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, source string, done func(record.Run, error)) (string, error) {
+func (d *Daemon) submit(ctx context.Context, fixture, specimen, name string, data []byte, source string, done func(record.Run, error)) (string, error) {
 	cfg := d.cfg.Load()
 	if fixture == "" {
 		if len(cfg.Fixtures) != 1 {
@@ -281,8 +283,13 @@ func (d *Daemon) submit(ctx context.Context, fixture, name string, data []byte, 
 		d.metrics.refused.WithLabelValues(fixture, source).Inc()
 		return "", err
 	}
+	lf, gr, err := d.chooseSpecimen(cfg, lf, specimen, r)
+	if err != nil {
+		d.metrics.refused.WithLabelValues(fixture, source).Inc()
+		return "", err
+	}
 	s := engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: r, Geometry: lf.Geometry,
-		Writer: d.deps.Writer, Live: d.deps.Live, Clock: d.deps.Clock, Log: d.log.With("source", source),
+		Writer: gradeWriter(d.deps.Writer, gr, cfg), Live: d.deps.Live, Clock: d.deps.Clock, Log: d.log.With("source", source),
 		Software: d.deps.Software, SpoolDir: cfg.Config.SpoolDir}
 	if d.deps.Area != nil {
 		s.Area = d.deps.Area(lf.Fixture, lf.Specimen)
@@ -423,7 +430,11 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 	defer release()
 	var run record.Run
 	var err error
-	op, oerr := d.deps.Open(ctx, j.fx, j.sp)
+	var op Opened
+	oerr := d.awaitMount(ctx, fr, j)
+	if oerr == nil {
+		op, oerr = d.deps.Open(ctx, j.fx, j.sp)
+	}
 	switch {
 	case oerr != nil && ctx.Err() != nil:
 		run = j.plan.End(ctx, record.Aborted, causeText(ctx))

@@ -10,7 +10,9 @@ import (
 	"sync"
 	"syscall"
 
+	"hystd/acq/demo"
 	"hystd/acq/engine"
+	"hystd/acq/grade"
 	"hystd/acq/live"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
@@ -22,8 +24,12 @@ type RunOptions struct {
 	ConfigPath string // daemon config: fixtures, store, log
 	Fixture    string // fixture name; "" when the config has one fixture
 	RecipePath string
-	Out        io.Writer // progress lines; nil: discarded
-	Wiring     Wiring    // Open, Area, Software, Stderr, Signals
+	// Specimen, when not "", replaces the fixture's mounted specimen: an id
+	// of the config's specimen registry or a specimen file.
+	Specimen string
+	Operator string    // recorded with the run; may be ""
+	Out      io.Writer // progress lines; nil: discarded
+	Wiring   Wiring    // Open, Area, Software, Stderr, Signals
 }
 
 // RunOnce runs one recipe in the foreground on one fixture of a daemon
@@ -60,6 +66,22 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	rc, err := recipe.Load(o.RecipePath)
 	if err != nil {
 		return record.Run{}, err
+	}
+	if o.Specimen != "" {
+		sp, err := cfg.Registry.Specimen(o.Specimen)
+		if err != nil {
+			return record.Run{}, fmt.Errorf("--specimen: %w", err)
+		}
+		lf.Specimen = sp
+		if g, err := recipe.GeometryOf(lf.Fixture, sp); err == nil {
+			lf.Geometry = g
+		} else if lf.Fixture.HFrom == "current" {
+			return record.Run{}, &engine.Refused{Err: fmt.Errorf("specimen %s: %w", sp.ID, err)}
+		}
+	}
+	gr, gradeNote := cfg.Registry.GradeOf(lf.Specimen)
+	if gradeNote != "" {
+		fmt.Fprintln(o.Out, "note:", gradeNote)
 	}
 	// Refuse before touching any instrument.
 	if _, err := recipe.Expand(rc, lf.Fixture, lf.Geometry); err != nil {
@@ -107,8 +129,9 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	defer op.Close()
 	p := &printer{out: o.Out}
 	run, err := engine.Run(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
-		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Writer: st, Process: op.Process,
-		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir})
+		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments,
+		Writer: grade.Writer{Writer: st, Grade: gr, Rule: cfg.Registry.Rule}, Process: op.Process,
+		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir, Operator: o.Operator})
 	var ref *engine.Refused
 	if errors.As(err, &ref) {
 		return run, err
@@ -118,6 +141,13 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		fmt.Fprintf(o.Out, ": %s", run.Reason)
 	}
 	fmt.Fprintf(o.Out, "\nstored in %s\n", st.Path())
+	if run.ID != "" {
+		if loops, lerr := st.Loops(ctx, run.ID); lerr == nil {
+			fmt.Fprintf(o.Out, "specimen %s (%s)\n", lf.Specimen.ID, lf.Specimen.Material)
+			demo.PrintFigures(o.Out, loops)
+			grade.Print(o.Out, loops)
+		}
+	}
 	return run, err
 }
 

@@ -14,6 +14,7 @@ import (
 
 	"go.yaml.in/yaml/v3"
 
+	"hystd/acq/grade"
 	"hystd/acq/record"
 	"hystd/configs"
 )
@@ -37,6 +38,40 @@ type Result struct {
 	Queued  string `yaml:"queued,omitempty"`
 	Started string `yaml:"started,omitempty"`
 	Ended   string `yaml:"ended,omitempty"`
+	// Specimen and Grade are the run's; Loops its stored loops with their
+	// figures (U expanded, k = 2) and verdicts.
+	Specimen string       `yaml:"specimen,omitempty"`
+	Grade    string       `yaml:"grade,omitempty"`
+	Verdict  string       `yaml:"verdict,omitempty"` // worst over all loops: fail, undecided, pass
+	Loops    []ResultLoop `yaml:"loops,omitempty"`
+}
+
+// ResultLoop is one stored loop in a result file.
+type ResultLoop struct {
+	N         int             `yaml:"n"`
+	Kind      string          `yaml:"kind"`
+	Amplitude float64         `yaml:"amplitude"`
+	AmpUnit   string          `yaml:"amplitude_unit"`
+	Figures   []ResultFigure  `yaml:"figures"`
+	Verdicts  []ResultVerdict `yaml:"verdicts,omitempty"`
+}
+
+// ResultFigure is one figure: value and expanded uncertainty (k = 2) in unit; U is .nan when not evaluated.
+type ResultFigure struct {
+	Name  string  `yaml:"name"`
+	Value float64 `yaml:"value"`
+	U     float64 `yaml:"u"`
+	Unit  string  `yaml:"unit"`
+}
+
+// ResultVerdict is one figure judged against a grade's limit.
+type ResultVerdict struct {
+	Figure  string `yaml:"figure"`
+	Outcome string `yaml:"outcome"`
+	Limit   string `yaml:"limit"`
+	Grade   string `yaml:"grade"`
+	Rule    string `yaml:"rule"`
+	Note    string `yaml:"note,omitempty"`
 }
 
 // watcher polls one folder for new recipe files (*.yaml, *.yml). A file is
@@ -198,6 +233,7 @@ func (w *watcher) finish(act string, r Result) {
 		dst = act
 	}
 	r.Kind, r.Recipe, r.Fixture = "run-result", filepath.Base(dst), w.fixture
+	w.addLoops(&r)
 	out, _ := yaml.Marshal(r)
 	res := strings.TrimSuffix(strings.TrimSuffix(dst, ".yaml"), ".yml") + ".result.yaml"
 	if err := writeFileSync(res, out); err != nil {
@@ -252,4 +288,40 @@ func writeFileSync(path string, data []byte) error {
 		return err
 	}
 	return os.Rename(tmp, path)
+}
+
+// addLoops fills a result's specimen, grade, loops, figures and verdicts
+// from the store, when the daemon's writer can read back (the SQLite store does).
+func (w *watcher) addLoops(r *Result) {
+	rd, ok := w.d.deps.Writer.(interface {
+		Run(ctx context.Context, id string) (record.Run, error)
+		Loops(ctx context.Context, runID string) ([]record.Loop, error)
+	})
+	if !ok || r.RunID == "" {
+		return
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	defer cancel()
+	if run, err := rd.Run(ctx, r.RunID); err == nil {
+		r.Specimen, r.Grade = run.Specimen, run.Grade
+	}
+	loops, err := rd.Loops(ctx, r.RunID)
+	if err != nil {
+		w.log.Warn("result file without figures", "run", r.RunID, "err", err)
+		return
+	}
+	var all []record.Verdict
+	for _, l := range loops {
+		rl := ResultLoop{N: l.N, Kind: l.Kind, Amplitude: l.Amplitude, AmpUnit: l.AmpUnit}
+		for _, f := range l.Figures {
+			rl.Figures = append(rl.Figures, ResultFigure{Name: f.Name, Value: f.Value, U: f.U, Unit: f.Unit})
+		}
+		for _, v := range l.Verdicts {
+			rl.Verdicts = append(rl.Verdicts, ResultVerdict{Figure: v.Figure, Outcome: string(v.Outcome),
+				Limit: grade.Bounds(v) + " " + v.Unit, Grade: v.Grade, Rule: v.Rule, Note: v.Note})
+		}
+		all = append(all, l.Verdicts...)
+		r.Loops = append(r.Loops, rl)
+	}
+	r.Verdict = string(record.Worst(all))
 }

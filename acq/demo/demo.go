@@ -20,6 +20,7 @@ import (
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/fixture"
+	"hystd/acq/grade"
 	"hystd/acq/influx"
 	"hystd/acq/live"
 	"hystd/acq/plot"
@@ -133,6 +134,15 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		fmt.Fprintln(out, "warning:", w)
 	}
 
+	// The demo specimen's grade comes from the shipped sample grades.
+	grades, err := grade.LoadFS(configs.Samples, ".", "configs")
+	if err != nil {
+		return Result{}, err
+	}
+	gr, err := grades.Lookup(sp.Grade)
+	if err != nil {
+		return Result{}, fmt.Errorf("demo specimen %s: %w", sp.ID, err)
+	}
 	pub := &progress{out: out, hub: o.Live}
 	fmt.Fprintf(out, "running recipe %q on specimen %s (%s)\n", rc.Name, sp.ID, sp.Material)
 	run, runErr := engine.Run(ctx, engine.Setup{
@@ -140,7 +150,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		Specimen:    sp,
 		Recipe:      rc,
 		Instruments: opened.Instruments,
-		Writer:      st,
+		Writer:      grade.Writer{Writer: st, Grade: gr},
 		Process:     proc,
 		Live:        pub,
 		Log:         log,
@@ -178,6 +188,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		fmt.Fprintf(out, "plot: %s\n", p)
 	}
 	PrintFigures(out, res.Loops)
+	grade.Print(out, res.Loops)
 	if o.Influx != nil {
 		wait := o.InfluxWait
 		if wait <= 0 {
@@ -257,7 +268,7 @@ func writePlot(path string, run record.Run, loops []record.Loop) error {
 // uncertainties (k = 2) and units.
 func PrintFigures(w io.Writer, loops []record.Loop) {
 	for _, l := range loops {
-		fmt.Fprintf(w, "\nloop %d (%s, ±%g %s)\n", l.N, l.Kind, l.Amplitude, l.AmpUnit)
+		fmt.Fprintf(w, "\nloop %d (%s, ±%.6g %s)\n", l.N, l.Kind, l.Amplitude, l.AmpUnit)
 		tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "figure\tvalue\t± U (k=2)\tunit\t")
 		for _, f := range l.Figures {

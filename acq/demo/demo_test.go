@@ -2,6 +2,7 @@ package demo
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -53,6 +54,23 @@ func TestDemoRecoversTheSpecimensTruth(t *testing.T) {
 	for _, want := range []string{"Br", "HcB", "Bmax", "mu_a", "loss_j_m3", "A/m", "J/m3"} {
 		if !strings.Contains(out.String(), want) {
 			t.Errorf("printed figures lack %q:\n%s", want, out.String())
+		}
+	}
+	// Each loop is judged against the demo ring's grade (configs/grade-no-r470.yaml):
+	// its three limits apply to ±1 kA/m loops; the verdicts are stored and printed.
+	for _, l := range res.Loops {
+		var figs []string
+		for _, v := range l.Verdicts {
+			figs = append(figs, v.Figure)
+			if v.Grade != "NO-R470" || v.Rule != "guarded-U" || (v.Outcome != record.Pass && v.Outcome != record.Fail && v.Outcome != record.Undecided) {
+				t.Errorf("loop %d verdict %+v", l.N, v)
+			}
+		}
+		if strings.Join(figs, " ") != "HcB Bmax loss_j_kg" {
+			t.Errorf("loop %d judged on %v", l.N, figs)
+		}
+		if want := fmt.Sprintf("loop %d against grade NO-R470 (rule guarded-U): %s", l.N, strings.ToUpper(string(record.Worst(l.Verdicts)))); !strings.Contains(out.String(), want) {
+			t.Errorf("output lacks %q:\n%s", want, out.String())
 		}
 	}
 

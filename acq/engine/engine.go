@@ -92,6 +92,7 @@ type Setup struct {
 	Clock       Clock         // nil: RealClock
 	Log         *slog.Logger  // nil: slog.Default()
 	Software    string        // hystd version for the run record
+	Operator    string        // who started the run, recorded with it; may be ""
 	// Config is the config snapshot stored with the run; "" builds one from
 	// the fixture, the specimen and the recipe text.
 	Config string
@@ -174,6 +175,7 @@ func Prepare(ctx context.Context, s Setup) (*Plan, error) {
 	run := record.Run{
 		ID: s.RunID, Recipe: s.Recipe.Name, RecipeText: string(s.Recipe.Text()),
 		Fixture: s.Fixture.Name, Specimen: s.Specimen.ID, Material: s.Specimen.Material,
+		Grade: s.Specimen.Grade, Operator: s.Operator,
 		Config: s.Config, ConfigHash: hex.EncodeToString(sum[:]), Software: s.Software,
 		State: record.Queued, Queued: s.Queued,
 	}

@@ -147,6 +147,7 @@ func (x *exec) steps(ctx context.Context) error {
 		}
 	}
 	x.event(ctx, "warn", "%s", Caution(x.s.Fixture, peak))
+	x.identities(ctx)
 
 	cctx, cancel = context.WithTimeout(ctx, x.comm)
 	err = sup.SetCurrent(cctx, 0)
@@ -266,7 +267,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		}
 		if st.Loop != nil && phase != "" {
 			raw = append(raw, s)
-			x.liveSample(s)
+			x.liveSample(s, x.loopN+1)
+		} else {
+			x.liveSample(s, 0) // demagnetize, condition, approach, return: shown live too
 		}
 		if st.Kind == recipe.KindDriftHold && phase == record.PreHold {
 			drift = append(drift, s)
@@ -315,7 +318,9 @@ func (x *exec) progress(st recipe.Step, t time.Duration) {
 		StepName: fmt.Sprintf("%s (%s)", st.Kind, st.Source), Fraction: frac})
 }
 
-func (x *exec) liveSample(s record.Sample) {
+// liveSample publishes s as a live sample of loop n (0: a step that records
+// no loop).
+func (x *exec) liveSample(s record.Sample, n int) {
 	if x.s.Live == nil {
 		return
 	}
@@ -323,7 +328,7 @@ func (x *exec) liveSample(s record.Sample) {
 	if a := float64(x.s.Area); a > 0 && x.s.Fixture.Winding.N2 > 0 {
 		b = s.Psi / (float64(x.s.Fixture.Winding.N2) * a)
 	}
-	x.p.publish(live.Event{Kind: live.KindSample, Loop: x.loopN + 1, T: s.T.Seconds(),
+	x.p.publish(live.Event{Kind: live.KindSample, Loop: n, T: s.T.Seconds(),
 		H: finite(x.hOf(s)), B: finite(b), I: finite(s.I)})
 }
 
@@ -412,7 +417,7 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			level = "warn"
 		}
 	}
-	x.event(ctx, level, "run %s after %s: %s", state, at.Sub(x.start).Round(time.Millisecond), orDash(reason))
+	x.event(ctx, level, "%s", endingText(state, at.Sub(x.start), reason))
 	x.setState(ctx, state, reason, at)
 	x.p.run.State, x.p.run.Reason, x.p.run.Ended = state, reason, at
 	if state == record.Finished {
@@ -421,11 +426,18 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	return x.p.run, &Stop{State: state, Reason: reason}
 }
 
-func orDash(s string) string {
-	if s == "" {
-		return "—"
+// endingText is the run's last log line: how it ended, after how long, and
+// why when it did not simply finish ("run finished normally after 2m29.6s: every step done",
+// "run aborted after 12.3s: SIGTERM received").
+func endingText(state record.State, d time.Duration, reason string) string {
+	d = d.Round(100 * time.Millisecond)
+	if reason == "" {
+		if state == record.Finished {
+			return fmt.Sprintf("run finished normally after %s: every step done", d)
+		}
+		return fmt.Sprintf("run %s after %s (no reason recorded)", state, d)
 	}
-	return s
+	return fmt.Sprintf("run %s after %s: %s", state, d, reason)
 }
 
 // zeroTol is the read-back current taken as zero, A: 5 mA + 0.2 % of the
@@ -499,4 +511,25 @@ func (x *exec) halt(ctx context.Context) error {
 		x.energd = false
 	}
 	return err
+}
+
+// IdentityPrefix starts the event that records an instrument's identity
+// as read when it was opened: "instrument ROLE: REPLY".
+const IdentityPrefix = "instrument "
+
+// identities records each instrument's *IDN? reply, as read when it was
+// identified, for the run's provenance (instruments that can tell it).
+func (x *exec) identities(ctx context.Context) {
+	type idn interface{ IdentityRead() string }
+	in := x.s.Instruments
+	for _, r := range []struct {
+		role string
+		dev  any
+	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field_meter", in.FieldMeter}, {"thermometer", in.Thermometer}} {
+		if d, ok := r.dev.(idn); ok && d != nil {
+			if id := d.IdentityRead(); id != "" {
+				x.event(ctx, "info", "%s%s: %s", IdentityPrefix, r.role, id)
+			}
+		}
+	}
 }

@@ -24,7 +24,10 @@ const (
 	// setpoint, b_probe (T), temp (°C) and t (s since the run started).
 	SampleMeasurement = "hyst_sample"
 	// FigureMeasurement holds one point per loop with one field per figure
-	// (its SI value) and NAME_u (its expanded uncertainty, k = 2).
+	// (its SI value) and NAME_u (its expanded uncertainty, k = 2). A loop
+	// judged against a material grade also carries the tags grade, rule and
+	// verdict (the loop's worst outcome: pass, undecided or fail) and, per
+	// judged figure, the float field NAME_verdict: 1 pass, 0 undecided, −1 fail.
 	FigureMeasurement = "hyst_figure"
 )
 
@@ -261,6 +264,12 @@ func figurePoint(sp *samplePlan, l record.Loop) *write.Point {
 	}
 	if l.Kind != "" {
 		ft["kind"] = l.Kind
+	}
+	if len(l.Verdicts) > 0 {
+		ft["grade"], ft["rule"], ft["verdict"] = l.Verdicts[0].Grade, l.Verdicts[0].Rule, string(record.Worst(l.Verdicts))
+		for _, v := range l.Verdicts {
+			ff[v.Figure+"_verdict"] = map[record.Outcome]float64{record.Pass: 1, record.Undecided: 0, record.Fail: -1}[v.Outcome]
+		}
 	}
 	at := l.Started
 	if at.IsZero() {

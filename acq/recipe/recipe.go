@@ -63,7 +63,11 @@ type Recipe struct {
 	IntegratorRange float64 `yaml:"integrator_range_wb"`
 	// Period is the setpoint period of steps that record nothing; default 50ms.
 	Period configs.Duration `yaml:"period"`
-	Steps  []StepSpec       `yaml:"steps"`
+	// Specimen names the specimen the recipe is meant for (an id of the
+	// daemon's specimen registry, or a specimen file); "" runs on the
+	// fixture's mounted specimen. A submission's own choice takes precedence.
+	Specimen string     `yaml:"specimen"`
+	Steps    []StepSpec `yaml:"steps"`
 
 	doc  *configs.Doc
 	text []byte

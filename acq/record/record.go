@@ -35,6 +35,8 @@ type Run struct {
 	Fixture    string
 	Specimen   string // specimen id
 	Material   string
+	Grade      string // material grade the specimen is judged against; "" for none
+	Operator   string // who started the run, as given; "" when not given
 	Config     string // snapshot of fixture + specimen + recipe config (YAML)
 	ConfigHash string // hex SHA-256 of Config
 	Software   string // hystd version
@@ -119,6 +121,51 @@ type Loop struct {
 	Points      []Point
 	Figures     []Figure
 	Corrections []Correction
+	// Verdicts are the loop's figures judged against the specimen's
+	// material grade (package acq/grade); empty when no grade applies.
+	Verdicts []Verdict
+}
+
+// Outcome is a conformity verdict.
+type Outcome string
+
+// Outcomes of a conformity decision.
+const (
+	Pass      Outcome = "pass"
+	Fail      Outcome = "fail"
+	Undecided Outcome = "undecided"
+)
+
+// Verdict is one figure of a loop judged against one limit of a material
+// grade under a named decision rule (see acq/grade for the rules).
+type Verdict struct {
+	Grade   string  // grade name
+	Figure  string  // figure name, as in Figure.Name
+	Value   float64 // the figure's value
+	U       float64 // its expanded uncertainty (k = 2); NaN if not evaluated
+	Min     float64 // lower limit; NaN: none
+	Max     float64 // upper limit; NaN: none
+	Unit    string
+	Rule    string // decision rule name, e.g. "guarded-U"
+	Outcome Outcome
+	Note    string // the conditions that made the limit apply, and why undecided
+}
+
+// Worst returns the loop-level outcome of vs: fail if any failed, else
+// undecided if any is undecided, else pass; "" when vs is empty.
+func Worst(vs []Verdict) Outcome {
+	var o Outcome
+	for _, v := range vs {
+		switch {
+		case v.Outcome == Fail:
+			return Fail
+		case v.Outcome == Undecided:
+			o = Undecided
+		case o == "":
+			o = Pass
+		}
+	}
+	return o
 }
 
 // Event is a timestamped note on a run: step started, limit crossed, reconnect.

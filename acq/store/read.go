@@ -15,14 +15,14 @@ import (
 // DefaultRunLimit is how many runs Runs returns when the filter sets no limit.
 const DefaultRunLimit = 100
 
-const runCols = `id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns`
+const runCols = `id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns, grade, operator`
 
 func scanRun(sc interface{ Scan(...any) error }) (record.Run, error) {
 	var r record.Run
 	var st string
 	var q, s, e sql.NullInt64
 	err := sc.Scan(&r.ID, &r.Recipe, &r.RecipeText, &r.Fixture, &r.Specimen, &r.Material, &r.Config, &r.ConfigHash,
-		&r.Software, &st, &r.Reason, &q, &s, &e)
+		&r.Software, &st, &r.Reason, &q, &s, &e, &r.Grade, &r.Operator)
 	r.State, r.Queued, r.Started, r.Ended = record.State(st), timeOf(q), timeOf(s), timeOf(e)
 	return r, err
 }
@@ -152,6 +152,25 @@ func readDerived(ctx context.Context, tx *sql.Tx, id int64, l *record.Loop) erro
 		}
 		f.Value, f.U = floatOf(v), floatOf(u)
 		l.Figures = append(l.Figures, f)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return err
+	}
+	rows, err = tx.QueryContext(ctx, `SELECT grade, figure, value, u, lo, hi, unit, rule, outcome, note FROM verdicts WHERE loop_id = ? ORDER BY seq`, id)
+	if err != nil {
+		return err
+	}
+	for rows.Next() {
+		var v record.Verdict
+		var val, u, lo, hi sql.NullFloat64
+		var o string
+		if err := rows.Scan(&v.Grade, &v.Figure, &val, &u, &lo, &hi, &v.Unit, &v.Rule, &o, &v.Note); err != nil {
+			rows.Close()
+			return err
+		}
+		v.Value, v.U, v.Min, v.Max, v.Outcome = floatOf(val), floatOf(u), floatOf(lo), floatOf(hi), record.Outcome(o)
+		l.Verdicts = append(l.Verdicts, v)
 	}
 	rows.Close()
 	if err := rows.Err(); err != nil {

@@ -211,4 +211,27 @@ CREATE INDEX loops_by_run ON loops(run_id, n);
 ALTER TABLE raw_samples ADD COLUMN dt_i_ns INTEGER NOT NULL DEFAULT 0;
 ALTER TABLE raw_samples ADD COLUMN dt_b_ns INTEGER NOT NULL DEFAULT 0;
 `,
+	// 4: the material grade and operator of each run, and the verdicts of
+	// each loop against the grade (acq/grade). Runs stored before read back
+	// with no grade, no operator and no verdicts.
+	`
+ALTER TABLE runs ADD COLUMN grade TEXT NOT NULL DEFAULT '';
+ALTER TABLE runs ADD COLUMN operator TEXT NOT NULL DEFAULT '';
+CREATE TABLE verdicts (
+	loop_id INTEGER NOT NULL REFERENCES loops(id),
+	seq     INTEGER NOT NULL,
+	grade   TEXT NOT NULL,
+	figure  TEXT NOT NULL,
+	value   REAL,
+	u       REAL,
+	lo      REAL,
+	hi      REAL,
+	unit    TEXT NOT NULL,
+	rule    TEXT NOT NULL,
+	outcome TEXT NOT NULL CHECK (outcome IN ('pass', 'fail', 'undecided')),
+	note    TEXT NOT NULL,
+	PRIMARY KEY (loop_id, seq)
+) WITHOUT ROWID;
+CREATE INDEX runs_by_recipe ON runs(recipe, started_ns);
+`,
 }

@@ -2,6 +2,7 @@ package store_test
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"os"
@@ -10,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/acq/store/storetest"
 )
@@ -347,8 +349,8 @@ func TestMigrateFromV2(t *testing.T) {
 	}
 	defer s.Close()
 	var v int
-	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != store.SchemaVersion() || v != 3 {
-		t.Fatalf("schema version %d (%v), want 3", v, err)
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != store.SchemaVersion() {
+		t.Fatalf("schema version %d (%v), want %d", v, err, store.SchemaVersion())
 	}
 	l, err := s.Loop(ctx, "run-v2", 1)
 	if err != nil {
@@ -368,5 +370,74 @@ func TestMigrateFromV2(t *testing.T) {
 	}
 	if d := storetest.SameLoop(got, want); d != "" {
 		t.Fatal(d)
+	}
+}
+
+// TestMigrateFromV3File: testdata/v3.db is a real store file written by
+// hystd with schema 3 (one finished run, one loop). Opened by this build it
+// is migrated to schema 4 keeping every value; its run reads back without
+// grade or operator and its loop without verdicts; a new loop with verdicts
+// is stored beside it.
+func TestMigrateFromV3File(t *testing.T) {
+	ctx := context.Background()
+	src, err := os.ReadFile("testdata/v3.db")
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(t.TempDir(), "hystd.db")
+	if err := os.WriteFile(path, src, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	s, err := store.Open(ctx, path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	var v int
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 4 || v != store.SchemaVersion() {
+		t.Fatalf("schema version %d (%v), want 4", v, err)
+	}
+	r, err := s.Run(ctx, "ring-v3-run")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Specimen != "OLD-1" || r.State != record.Finished || r.Grade != "" || r.Operator != "" || r.Software != "v3" {
+		t.Fatalf("migrated run %+v", r)
+	}
+	l, err := s.Loop(ctx, r.ID, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(l.Raw) != 2 || l.Raw[1].Psi != 2e-3 || len(l.Points) != 2 || l.Points[1].B != 0.9 ||
+		len(l.Figures) != 2 || l.Figures[0].Name != "HcB" || l.Figures[0].Value != 50 || len(l.Corrections) != 1 || len(l.Verdicts) != 0 {
+		t.Fatalf("migrated loop %+v", l)
+	}
+	t0 := time.Date(2026, 12, 1, 9, 0, 0, 0, time.UTC)
+	nr := storetest.SampleRun("run-v4", t0)
+	if err := s.CreateRun(ctx, nr); err != nil {
+		t.Fatal(err)
+	}
+	want := storetest.SampleLoop("run-v4", 1, 30, t0)
+	if err := s.AddLoop(ctx, want); err != nil {
+		t.Fatal(err)
+	}
+	got, err := s.Loop(ctx, "run-v4", 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := storetest.SameLoop(got, want); d != "" {
+		t.Fatal(d)
+	}
+	if gr, err := s.Run(ctx, "run-v4"); err != nil || gr.Grade != "TAPE-50" || gr.Operator != "bay 2" {
+		t.Fatalf("new run %+v %v", gr, err)
+	}
+	// A verdict with an unknown outcome is refused and nothing of its loop is kept.
+	bad := storetest.SampleLoop("run-v4", 2, 30, t0)
+	bad.Verdicts[0].Outcome = "maybe"
+	if err := s.AddLoop(ctx, bad); err == nil || !strings.Contains(err.Error(), "unknown outcome") {
+		t.Fatalf("bad verdict: %v", err)
+	}
+	if _, err := s.Loop(ctx, "run-v4", 2); !errors.Is(err, record.ErrNotFound) {
+		t.Fatalf("loop with a bad verdict was kept: %v", err)
 	}
 }

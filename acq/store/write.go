@@ -33,10 +33,10 @@ func (s *Store) CreateRun(ctx context.Context, r record.Run) error {
 		return fmt.Errorf("store: create run %s: %w", r.ID, err)
 	}
 	_, err := s.w.ExecContext(ctx, `INSERT INTO runs
-		(id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+		(id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns, grade, operator)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
 		r.ID, r.Recipe, r.RecipeText, r.Fixture, r.Specimen, r.Material, r.Config, r.ConfigHash, r.Software,
-		string(r.State), r.Reason, nsOf(r.Queued), nsOf(r.Started), nsOf(r.Ended))
+		string(r.State), r.Reason, nsOf(r.Queued), nsOf(r.Started), nsOf(r.Ended), r.Grade, r.Operator)
 	if err != nil {
 		if isConstraint(err) {
 			return fmt.Errorf("store: create run %s: %w", r.ID, ErrExists)
@@ -186,6 +186,20 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	}
 	if err := insertRows(ctx, tx, "corrections (loop_id, seq, name, size, unit, note)", 6, len(l.Corrections), cor); err != nil {
 		return fmt.Errorf("corrections: %w", err)
+	}
+	ver := func(i int, a []any) []any {
+		v := l.Verdicts[i]
+		return append(a, id, i, v.Grade, v.Figure, real(v.Value), real(v.U), real(v.Min), real(v.Max), v.Unit, v.Rule, string(v.Outcome), v.Note)
+	}
+	for i, v := range l.Verdicts {
+		switch v.Outcome {
+		case record.Pass, record.Fail, record.Undecided:
+		default:
+			return fmt.Errorf("verdict %d (%s): unknown outcome %q", i, v.Figure, v.Outcome)
+		}
+	}
+	if err := insertRows(ctx, tx, "verdicts (loop_id, seq, grade, figure, value, u, lo, hi, unit, rule, outcome, note)", 12, len(l.Verdicts), ver); err != nil {
+		return fmt.Errorf("verdicts: %w", err)
 	}
 	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)`,
 		l.RunID, l.N, now.UnixNano(), now.UnixNano()); err != nil {

@@ -7,7 +7,6 @@ import (
 	"fmt"
 	"io"
 	"os"
-	"path/filepath"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -22,10 +21,10 @@ func init() { register(newExportCmd) }
 
 func newExportCmd() *cobra.Command {
 	var (
-		dataDir, format, out string
-		loop                 int
-		all                  bool
-		style                export.PlotStyle
+		dataDir, cfgPath, format, out string
+		loop                          int
+		all                           bool
+		style                         export.PlotStyle
 	)
 	names := make([]string, 0, 5)
 	for _, f := range export.Formats() {
@@ -34,7 +33,7 @@ func newExportCmd() *cobra.Command {
 	cmd := &cobra.Command{
 		Use:   "export RUN",
 		Short: "Write a stored run as " + strings.Join(names, ", "),
-		Long: "export reads run RUN from DIR/hystd.db and writes it to standard output, or to FILE with -o:\n" +
+		Long: "export reads run RUN from DIR/hystd.db (or the store of a daemon config, --config FILE) and writes it to standard output, or to FILE with -o:\n" +
 			"  csv   one row per point of the loop: " + strings.Join(export.CSVHeader, ",") + "\n" +
 			"        (t s, setpoint A or A/m, I A, V V, psi Wb, B_probe T, temp °C, H A/m, B T, J T;\n" +
 			"        a missing channel is an empty cell); readable by hystd analyze. --all-samples adds\n" +
@@ -73,10 +72,11 @@ func newExportCmd() *cobra.Command {
 					return &exitError{code: 2, err: errors.New("--format png: refusing to write an image to the terminal; use -o FILE")}
 				}
 			}
-			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, args[0], f, o, out)
+			return runExport(cmd.Context(), cmd.OutOrStdout(), dataDir, cfgPath, args[0], f, o, out)
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder holding hystd.db")
+	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config (kind: daemon) whose store.path to read, instead of --data")
 	cmd.Flags().StringVar(&format, "format", "csv", "output format: "+strings.Join(names, ", "))
 	cmd.Flags().IntVar(&loop, "loop", 0, "export only loop N (1-based); 0: every loop")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "write to FILE instead of standard output")
@@ -87,10 +87,10 @@ func newExportCmd() *cobra.Command {
 	return cmd
 }
 
-func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f export.Format, o export.Options, out string) error {
-	db := filepath.Join(dataDir, "hystd.db")
-	if _, err := os.Stat(db); err != nil {
-		return fmt.Errorf("no store at %s (use --data DIR): %w", db, err)
+func runExport(ctx context.Context, stdout io.Writer, dataDir, cfgPath, run string, f export.Format, o export.Options, out string) error {
+	db, err := storePath(dataDir, cfgPath)
+	if err != nil {
+		return err
 	}
 	st, err := store.Open(ctx, db)
 	if err != nil {
@@ -109,22 +109,5 @@ func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f exp
 		_, err := stdout.Write(buf.Bytes())
 		return err
 	}
-	tmp, err := os.CreateTemp(filepath.Dir(out), "."+filepath.Base(out)+".*")
-	if err != nil {
-		return err
-	}
-	if _, err := tmp.Write(buf.Bytes()); err != nil {
-		tmp.Close()
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := tmp.Close(); err != nil {
-		os.Remove(tmp.Name())
-		return err
-	}
-	if err := os.Rename(tmp.Name(), out); err != nil {
-		os.Remove(tmp.Name())
-		return err
-	}
-	return nil
+	return writeAtomic(out, buf.Bytes())
 }

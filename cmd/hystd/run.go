@@ -13,17 +13,19 @@ import (
 func init() { register(newRunCmd) }
 
 func newRunCmd() *cobra.Command {
-	var cfgPath, fixture string
+	var cfgPath, fixture, specimen, operator string
 	cmd := &cobra.Command{
 		Use:   "run --config FILE RECIPE",
 		Short: "Run one recipe in the foreground on a fixture of a daemon config",
 		Long: "run validates RECIPE against the fixture's limits, runs it with the daemon's engine and\n" +
 			"store, and prints progress. Ctrl-C or SIGTERM aborts with a safe ramp-down to zero.\n" +
+			"At the end it prints the figures and, when the specimen names a grade, the verdicts.\n" +
 			"Exit status: 0 finished, 1 refused or bad input, 2 aborted, 3 failed.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			_, err := daemon.RunOnce(cmd.Context(), daemon.RunOptions{
 				ConfigPath: cfgPath, Fixture: fixture, RecipePath: args[0], Out: cmd.OutOrStdout(),
+				Specimen: specimen, Operator: operator,
 				Wiring: daemon.Wiring{Software: version, Stderr: cmd.ErrOrStderr()},
 			})
 			var stop *engine.Stop
@@ -39,6 +41,8 @@ func newRunCmd() *cobra.Command {
 	}
 	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config file (kind: daemon)")
 	cmd.Flags().StringVar(&fixture, "fixture", "", "fixture name, when the config drives several")
+	cmd.Flags().StringVar(&specimen, "specimen", "", "specimen to run on instead of the mounted one: an id of the config's specimens folder, or a specimen file")
+	cmd.Flags().StringVar(&operator, "operator", "", "who runs it, recorded with the run and on its report")
 	_ = cmd.MarkFlagRequired("config")
 	return cmd
 }

@@ -114,7 +114,8 @@ type Device struct {
 	c      *scpi.Client
 	o      Options
 	ident  string
-	failed error // set when a reconnect found the wrong instrument
+	idn    string // the last *IDN? reply, as read at identification
+	failed error  // set when a reconnect found the wrong instrument
 	// unverified is set when a reconnect succeeded but identification or
 	// init did not: the next operation repeats them before anything else.
 	unverified bool
@@ -161,6 +162,7 @@ func (d *Device) start(ctx context.Context) error {
 		return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?",
 			Err: fmt.Errorf("%w: *IDN? replied %q, expected it to contain %q", ErrIdentity, id, d.ident)}
 	}
+	d.idn = id
 	for _, cmd := range d.p.Init {
 		if err := d.c.Set(ctx, cmd); err != nil {
 			return &OpError{Profile: d.p.Name, Op: "init", Command: cmd, Err: err}
@@ -190,6 +192,10 @@ func (d *Device) ready(ctx context.Context) error {
 
 // Profile returns the (normalized) profile the device speaks.
 func (d *Device) Profile() Profile { return d.p }
+
+// IdentityRead returns the *IDN? reply read when the device was last
+// identified (at open or after a reconnect), without any I/O.
+func (d *Device) IdentityRead() string { return d.idn }
 
 // Identify returns the instrument's *IDN? reply.
 func (d *Device) Identify(ctx context.Context) (string, error) {

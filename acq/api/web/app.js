@@ -4,7 +4,11 @@
 "use strict";
 
 const SVGNS = "http://www.w3.org/2000/svg";
-const COLOURS = ["#1b6f7a", "#b5531f", "#5c6e12", "#7a3b6e", "#35478f", "#a88414"];
+// Trace colours, our own pick: neighbours differ in hue and in lightness so
+// that they stay apart for readers with red-green or blue-yellow colour
+// vision deficiency and in greyscale print (dark blue, light orange, mid
+// bluish green, dark reddish purple, light sky blue, dark brown).
+const COLOURS = ["#174f8c", "#e69a2e", "#23907a", "#8e2d5c", "#7fb8e0", "#5a3a12"];
 const MARK = "#c01c28";
 
 const state = {
@@ -291,14 +295,15 @@ function loopSpec(loops, ordinate, units, q2) {
   const num = (v) => (v === null || v === undefined) ? NaN : v;
   loops.forEach((l, i) => {
     const p = l.points, col = COLOURS[i % COLOURS.length], key = `${l.run_id}#${l.n}`;
+    const name = `${l.run_id.replace(/^.*-(\d{8}T\d{4})\d*Z-.*$/, "$1")} #${l.n} ${l.kind} ±${fmt(l.amplitude, 4)} ${l.amplitude_unit}`;
     const xs = p.h_a_m.map(v => num(v) * sc.hMul);
     if (q2) {
       const keep = (arr) => arr.map((v, k) => (num(p.h_a_m[k]) <= 0 && num(v) >= 0) ? num(v) * sc.yMul : NaN);
-      spec.series.push({ label: `${key} B`, colour: col, xs, ys: keep(p.b_t), key, cls: "b" });
-      spec.series.push({ label: `${key} J`, colour: col, xs, ys: keep(p.j_t), key, dashed: true, cls: "j" });
+      spec.series.push({ label: `${name} B`, colour: col, xs, ys: keep(p.b_t), key, cls: "b" });
+      spec.series.push({ label: `${name} J`, colour: col, xs, ys: keep(p.j_t), key, dashed: true, cls: "j" });
     } else {
       const src = ordinate === "J" ? p.j_t : p.b_t;
-      spec.series.push({ label: key, colour: col, xs, ys: src.map(v => num(v) * sc.yMul), key });
+      spec.series.push({ label: name, colour: col, xs, ys: src.map(v => num(v) * sc.yMul), key });
     }
   });
   if (q2) {
@@ -347,10 +352,12 @@ async function loadRuns() {
     const list = $("#runs-list");
     list.textContent = "";
     for (const r of data.runs) {
-      const li = el("li", { "data-run-id": r.id, "data-state": r.state },
+      const li = el("li", { "data-run-id": r.id, "data-state": r.state, "data-verdict": r.verdict || "" },
         el("span", { class: "state state-" + r.state, text: r.state }),
+        r.verdict ? el("span", { class: "verdict verdict-" + r.verdict, text: r.verdict, title: "worst verdict against grade " + (r.grade || "") }) : "",
+        el("div", { class: "r-recipe", text: r.recipe }),
+        el("div", { class: "r-meta", text: `${r.specimen} · ${r.material} · ${r.fixture}` + (r.grade ? ` · grade ${r.grade}` : "") }),
         el("div", { class: "r-id", text: r.id }),
-        el("div", { class: "r-meta", text: `${r.specimen} · ${r.material} · ${r.fixture}` }),
         el("div", { class: "r-meta", text: when(r.started || r.queued) }));
       if (state.run && state.run.run.id === r.id) li.classList.add("sel");
       li.addEventListener("click", () => selectRun(r.id));
@@ -455,14 +462,48 @@ function fillTables(loop) {
   if (!loop) return;
   for (const f of loop.flags || []) fb.append(el("tr", { class: "flag" }, el("td", { colspan: "6", text: f })));
   for (const f of loop.figures) {
-    fb.append(el("tr", { "data-figure": f.name }, el("td", { text: f.name }), el("td", { class: "num", text: fmt(f.value) }),
-      el("td", { class: "num", text: f.u === null ? "not evaluated" : fmt(f.u, 3) }), el("td", { text: f.unit }),
-      el("td", { class: "num cgs-col", text: cgsOf(f.value, f.unit) }), el("td", { class: "muted", text: f.note })));
+    const how = f.note ? el("details", { class: "how" }, el("summary", { text: "how" }), el("p", { text: f.note })) : "";
+    fb.append(el("tr", { "data-figure": f.name }, el("td", { text: f.name }),
+      el("td", { class: "num vu", text: withU(f.value, f.u) + (f.unit ? " " + f.unit : "") }),
+      el("td", { class: "num cgs-col", text: cgsOf(f.value, f.unit) }), el("td", {}, how)));
   }
+  fillVerdicts(loop);
   for (const c of loop.corrections) {
     cb.append(el("tr", {}, el("td", { text: c.name }), el("td", { class: "num", text: fmt(c.size, 4) }), el("td", { text: c.unit }), el("td", { class: "muted", text: c.note })));
   }
   if (!loop.corrections.length) cb.append(el("tr", {}, el("td", { text: "none recorded" })));
+}
+
+// withU writes value ± U as a result is reported: U to two significant
+// digits, the value to the same decimal place (GUM 7.2.6). Without U the
+// value keeps 5 significant digits.
+function withU(v, u) {
+  if (v === null || v === undefined || !isFinite(v)) return "—";
+  if (u === null || u === undefined || !isFinite(u) || u <= 0) return fmt(v) + " (U not evaluated)";
+  let dec = 1 - Math.floor(Math.log10(u));
+  const ur = (d) => Math.round(u * Math.pow(10, d)) / Math.pow(10, d);
+  if (1 - Math.floor(Math.log10(ur(dec))) !== dec) dec -= 1;
+  const fix = (x) => (dec >= 0 ? x.toFixed(dec) : String(Math.round(x / Math.pow(10, -dec)) * Math.pow(10, -dec))).replace("-", "−");
+  return `${fix(v)} ± ${fix(dec >= 0 ? u : ur(dec))}`;
+}
+
+function fillVerdicts(loop) {
+  const box = $("#verdicts");
+  box.textContent = "";
+  const vs = (loop && loop.verdicts) || [];
+  if (!vs.length) { box.append(el("p", { class: "muted", text: "No grade applies to this loop." })); return; }
+  const worst = vs.some(v => v.outcome === "fail") ? "fail" : vs.some(v => v.outcome === "undecided") ? "undecided" : "pass";
+  box.append(el("p", { class: "verdict-head" }, el("span", { class: "verdict verdict-" + worst, id: "loop-verdict", text: worst }),
+    ` against grade ${vs[0].grade}, rule ${vs[0].rule}`));
+  const tb = el("tbody");
+  for (const v of vs) {
+    const lim = v.min !== null && v.max !== null ? `${fmt(v.min)} … ${fmt(v.max)}` : v.min !== null ? `≥ ${fmt(v.min)}` : `≤ ${fmt(v.max)}`;
+    tb.append(el("tr", { "data-verdict": v.outcome }, el("td", { text: v.figure }), el("td", { class: "num", text: withU(v.value, v.u) + " " + v.unit }),
+      el("td", { class: "num", text: lim + " " + v.unit }), el("td", {}, el("span", { class: "verdict verdict-" + v.outcome, text: v.outcome })),
+      el("td", { class: "muted", text: v.note })));
+  }
+  box.append(el("table", { class: "grid" }, el("thead", {}, el("tr", {}, el("th", { text: "figure" }), el("th", { text: "value ± U" }),
+    el("th", { text: "limit" }), el("th", { text: "verdict" }), el("th", { text: "conditions" }))), tb));
 }
 
 // ---------- compare ----------
@@ -524,13 +565,23 @@ async function drawTrend(ev) {
   const msg = $("#trend-msg");
   const q = new URLSearchParams({ specimen: spec, figure: fig });
   if (since) q.set("since", since);
+  for (const [id, key] of [["#t-kind", "kind"], ["#t-amp", "amplitude"], ["#t-tol", "tol"], ["#t-recipe", "recipe"], ["#t-fixture", "fixture"], ["#t-rule", "rule"]]) {
+    const v = $(id).value.trim();
+    if (v) q.set(key, key === "tol" ? String(parseFloat(v) / 100) : v);
+  }
+  if (isFinite(lo)) q.set("lo", lo);
+  if (isFinite(hi)) q.set("hi", hi);
   let data;
   try { data = await api("/api/v1/trend?" + q); } catch (e) { msg.textContent = e.message; msg.className = "msg-err"; return; }
   const pts = data.points.filter(p => p.value !== null);
-  const inside = (v) => (!isFinite(lo) || v >= lo) && (!isFinite(hi) || v <= hi);
-  const outN = pts.filter(p => !inside(p.value)).length;
+  // Each point is judged with its U by the decision rule (on the server).
+  const judged = (p) => p.verdict || "";
+  const inside = (v, p) => !p || judged(p) !== "fail";
+  const count = (o) => pts.filter(p => judged(p) === o).length;
+  const outN = count("fail"), undN = count("undecided");
   msg.className = outN ? "msg-err" : "muted";
-  msg.textContent = pts.length ? `${pts.length} value(s) of ${fig} for ${spec}` + (outN ? `, ${outN} outside the limits` : "") : `no stored ${fig} for ${spec}`;
+  msg.textContent = pts.length ? `${pts.length} value(s) of ${fig} for ${spec}` + (outN ? `, ${outN} fail` : "") + (undN ? `, ${undN} undecided` : "") +
+    (data.limits ? ` (rule ${data.limits.rule})` : "") : `no stored ${fig} for ${spec} matching the filter`;
   const times = pts.map(p => Date.parse(p.at));
   let xlim = null;
   if (pts.length) {
@@ -540,16 +591,18 @@ async function drawTrend(ev) {
   const unit = pts.length ? (state.run && state.loop && (state.loop.figures.find(f => f.name === fig) || {}).unit) || "" : "";
   trendPlot.plot.set({
     series: [{ xs: times, ys: pts.map(p => p.value), colour: "#9fb8b4", width: 1 }],
-    points: pts.map((p, i) => ({ x: times[i], y: p.value, u: p.u, cls: inside(p.value) ? "in" : "out", title: `${p.run_id} #${p.loop}: ${fmt(p.value)}` })),
-    hlines: [{ y: lo }, { y: hi }],
+    points: pts.map((p, i) => ({ x: times[i], y: p.value, u: p.u, cls: judged(p) === "fail" ? "out" : judged(p) === "undecided" ? "undecided" : "in", title: `${p.run_id} #${p.loop}: ${withU(p.value, p.u)} ${judged(p)}` })),
+    hlines: isFinite(lo) || isFinite(hi) || !data.limits ? [{ y: lo }, { y: hi }] :
+      [{ y: data.limits.lo ?? NaN, label: data.limits.source }, { y: data.limits.hi ?? NaN, label: data.limits.source }],
     xlabel: "started (UTC)", ylabel: fig + (unit ? ` (${unit})` : ""), xlim, xfixed: true, xticks: timeTicks,
     empty: "no values to draw",
   });
   const tb = $("#trend-table tbody");
   tb.textContent = "";
-  pts.forEach((p) => tb.append(el("tr", { class: inside(p.value) ? "" : "out" }, el("td", { text: when(p.at) }), el("td", { text: p.run_id }),
-    el("td", { text: p.loop }), el("td", { class: "num", text: fmt(p.value) }), el("td", { class: "num", text: fmt(p.u, 3) }),
-    el("td", { text: inside(p.value) ? "yes" : "no" }))));
+  pts.forEach((p) => tb.append(el("tr", { class: judged(p) === "fail" ? "out" : "", "data-verdict": judged(p) }, el("td", { text: when(p.at) }), el("td", { text: p.run_id }),
+    el("td", { text: p.loop }), el("td", { text: p.kind ? `${p.kind} ±${fmt(p.amplitude, 4)} ${p.amplitude_unit}` : "" }),
+    el("td", { class: "num", text: withU(p.value, p.u) }),
+    el("td", {}, judged(p) ? el("span", { class: "verdict verdict-" + judged(p), text: judged(p) }) : "—"))));
 }
 
 // ---------- live ----------
@@ -599,12 +652,23 @@ function drawLive() {
     hmax = Math.max(hmax, Math.abs(L.loops[k].xs[i]) || 0); ymax = Math.max(ymax, Math.abs(L.loops[k].ys[i]) || 0);
   }
   const sc = scaleFor("si", hmax, ymax);
-  const series = keys.map((k, i) => ({
-    label: k ? `loop ${k}` : "not in a loop", key: "live-" + k, cls: "live", width: i === keys.length - 1 ? 2 : 1.2,
-    colour: i === keys.length - 1 ? COLOURS[0] : "#a9b7b3",
-    xs: L.loops[k].xs.map(v => v * sc.hMul), ys: L.loops[k].ys.map(v => v * sc.yMul),
-  }));
-  livePlot.plot.set({ series, xlabel: `H (${sc.hUnit}), live estimate`, ylabel: `B (${sc.yUnit}), live estimate`, empty: "waiting for samples" }, true);
+  // The live B estimate starts from the integrator's zero, not from the
+  // specimen's state: each trace is drawn centred on the midpoint of its
+  // own extremes, as a symmetric cyclic loop is centred after storing.
+  const centre = (ys) => {
+    let lo = Infinity, hi = -Infinity;
+    for (const y of ys) if (isFinite(y)) { lo = Math.min(lo, y); hi = Math.max(hi, y); }
+    return isFinite(lo) ? (lo + hi) / 2 : 0;
+  };
+  const series = keys.map((k, i) => {
+    const c = centre(L.loops[k].ys);
+    return {
+      label: k ? `loop ${k}` : "demagnetize, condition and other steps", key: "live-" + k, cls: "live", width: i === keys.length - 1 ? 2 : 1.2,
+      colour: i === keys.length - 1 ? COLOURS[0] : "#a9b7b3",
+      xs: L.loops[k].xs.map(v => v * sc.hMul), ys: L.loops[k].ys.map(v => (v - c) * sc.yMul),
+    };
+  });
+  livePlot.plot.set({ series, xlabel: `H (${sc.hUnit}), live estimate`, ylabel: `B (${sc.yUnit}), live estimate, centred`, empty: "waiting for samples" }, true);
 }
 
 async function streamEvents() {
@@ -669,12 +733,16 @@ function armAbort(b, msg, idOf) {
 async function startRecipe(ev) {
   ev.preventDefault();
   const msg = $("#start-msg");
-  const fx = $("#s-fixture").value.trim();
+  const fx = $("#s-fixture").value.trim(), sp = $("#s-specimen").value;
+  const q = new URLSearchParams();
+  if (fx) q.set("fixture", fx);
+  if (sp) q.set("specimen", sp);
   try {
-    const res = await api("/api/v1/runs" + (fx ? "?fixture=" + encodeURIComponent(fx) : ""), {
+    const res = await api("/api/v1/runs" + (q.toString() ? "?" + q : ""), {
       method: "POST", headers: { "Content-Type": "application/yaml" }, body: $("#s-recipe").value });
-    msg.textContent = `run ${res.run_id} queued — follow it under Live`; msg.className = "msg-ok";
+    msg.textContent = `run ${res.run_id} queued` + (sp ? ` on specimen ${sp}` : "") + ` — follow it under Live`; msg.className = "msg-ok";
     loadRuns();
+    loadMounts();
   } catch (e) {
     msg.textContent = (e.status === 401 || e.status === 403 ? "not allowed: " : "refused: ") + e.message; msg.className = "msg-err";
   }
@@ -705,7 +773,7 @@ async function init() {
   livePlot.plot = new Plot($("#live-plot"));
   loopPlot.plot.set({ series: [], empty: "pick a run on the left" });
   comparePlot.plot.set({ series: [], empty: "no loop added yet" });
-  livePlot.plot.set({ series: [], empty: "no sweep running since this page opened" });
+  livePlot.plot.set({ series: [], empty: "no run under way since this page opened" });
   try { state.info = await api("/api/v1/info"); } catch (e) { /* defaults */ }
   const fx = state.info.fixtures || [];
   for (const f of fx) $("#fixture-names").append(el("option", { value: f.name }));
@@ -763,8 +831,50 @@ async function init() {
     }
   });
   await loadRuns();
+  await loadSpecimens();
+  await loadMounts();
+  setInterval(loadMounts, 3000);
   streamEvents();
   document.body.dataset.ready = "1";
 }
 
 document.addEventListener("DOMContentLoaded", init);
+
+// ---------- specimens and mounting ----------
+
+async function loadSpecimens() {
+  let ids = [];
+  try { ids = await api("/api/v1/specimens"); } catch (e) { return; }
+  const sel = $("#s-specimen");
+  for (const id of ids) sel.append(el("option", { value: id, text: id }));
+}
+
+// loadMounts lists the queued runs waiting for their specimen to be mounted,
+// each with a button that confirms the mount (needs the access key).
+async function loadMounts() {
+  let ws = [];
+  try { ws = await api("/api/v1/mounts"); } catch (e) { return; }
+  const box = $("#mounts");
+  const shown = [...box.querySelectorAll("li")].map(li => li.dataset.runId).join(",");
+  if (shown === ws.map(w => w.run_id).join(",")) return;
+  box.textContent = "";
+  box.hidden = !ws.length;
+  if (!ws.length) return;
+  box.append(el("h3", { text: "Waiting for a specimen" }));
+  const ul = el("ul");
+  for (const w of ws) {
+    const b = el("button", { class: "mount-ok", text: `${w.specimen} is mounted` });
+    const m = el("span", { class: "muted" });
+    b.addEventListener("click", async () => {
+      try {
+        await api(`/api/v1/runs/${encodeURIComponent(w.run_id)}/mount`, { method: "POST" });
+        m.textContent = "confirmed; the run starts"; m.className = "msg-ok";
+        setTimeout(loadMounts, 500);
+      } catch (e) { m.textContent = e.message; m.className = "msg-err"; }
+    });
+    ul.append(el("li", { "data-run-id": w.run_id },
+      el("div", { text: `Fixture ${w.fixture}: take out ${w.mounted || "the specimen"}, mount ${w.specimen}, with the supply at zero.` }),
+      el("div", { class: "r-id", text: w.run_id }), b, " ", m));
+  }
+  box.append(ul);
+}

@@ -128,6 +128,7 @@ func (s *Store) AddEvent(_ context.Context, e record.Event) error {
 func copyLoop(l record.Loop, samples bool) record.Loop {
 	l.Figures = slices.Clone(l.Figures)
 	l.Corrections = slices.Clone(l.Corrections)
+	l.Verdicts = slices.Clone(l.Verdicts)
 	if samples {
 		l.Raw = slices.Clone(l.Raw)
 		l.Points = slices.Clone(l.Points)

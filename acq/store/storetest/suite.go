@@ -66,7 +66,7 @@ func SampleRun(id string, started time.Time) record.Run {
 	sum := sha256.Sum256([]byte(cfg))
 	return record.Run{
 		ID: id, Recipe: "ring-loop-1k", RecipeText: "kind: recipe\nname: ring-loop-1k\n",
-		Fixture: "bench-ring-2", Specimen: "R-17", Material: "NiFe 50/50 tape",
+		Fixture: "bench-ring-2", Specimen: "R-17", Material: "NiFe 50/50 tape", Grade: "TAPE-50", Operator: "bay 2",
 		Config: cfg, ConfigHash: hex.EncodeToString(sum[:]), Software: "0.1.0-test",
 		State: record.Queued, Queued: started.Add(-time.Second), Started: started,
 	}
@@ -112,6 +112,12 @@ func SampleLoop(runID string, n, nRaw int, started time.Time) record.Loop {
 		{Name: "HcB", Value: 12.5, U: math.NaN(), Unit: "A/m", Note: "interpolated"},
 	}
 	l.Corrections = []record.Correction{{Name: "drift-baseline", Size: -2.5e-7, Unit: "Wb", Note: "linear"}}
+	l.Verdicts = []record.Verdict{
+		{Grade: "TAPE-50", Figure: "Br", Value: l.Figures[0].Value, U: 0.004, Min: 0.5, Max: math.NaN(), Unit: "T",
+			Rule: "guarded-U", Outcome: record.Pass, Note: "loop"},
+		{Grade: "TAPE-50", Figure: "HcB", Value: 12.5, U: math.NaN(), Min: math.NaN(), Max: 20, Unit: "A/m",
+			Rule: "guarded-U", Outcome: record.Undecided, Note: "U not evaluated"},
+	}
 	return l
 }
 
@@ -187,6 +193,16 @@ func sameDerived(got, want record.Loop) string {
 		g := got.Corrections[i]
 		if g.Name != w.Name || !same(g.Size, w.Size) || g.Unit != w.Unit || g.Note != w.Note {
 			return fmt.Sprintf("correction %d: got %+v, want %+v", i, g, w)
+		}
+	}
+	if len(got.Verdicts) != len(want.Verdicts) {
+		return fmt.Sprintf("verdicts: %d, want %d", len(got.Verdicts), len(want.Verdicts))
+	}
+	for i, w := range want.Verdicts {
+		g := got.Verdicts[i]
+		if g.Grade != w.Grade || g.Figure != w.Figure || !same(g.Value, w.Value) || !same(g.U, w.U) || !same(g.Min, w.Min) ||
+			!same(g.Max, w.Max) || g.Unit != w.Unit || g.Rule != w.Rule || g.Outcome != w.Outcome || g.Note != w.Note {
+			return fmt.Sprintf("verdict %d: got %+v, want %+v", i, g, w)
 		}
 	}
 	return ""

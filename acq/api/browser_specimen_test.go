@@ -1,0 +1,202 @@
+package api_test
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"hystd/acq/api"
+	"hystd/acq/daemon"
+	"hystd/drivers/sim"
+)
+
+// startRegistryServer is startBenchServer with a specimen registry (R17-003,
+// the mounted ring, and R17-004, a second ring of the same size), the
+// shipped grade NO-R470 and confirm_mount: true.
+func startRegistryServer(t *testing.T) *benchServer {
+	t.Helper()
+	cfg, err := sim.DefaultBench()
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	b, err := sim.Start(ctx, cfg)
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { cancel(); b.Close() })
+	dir := t.TempDir()
+	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
+		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
+	}
+	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	gr, err := os.ReadFile("../../configs/grade-no-r470.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, d := range []string{"specimens", "grades"} {
+		if err := os.Mkdir(filepath.Join(dir, d), 0o755); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write := func(name string, data []byte) {
+		if err := os.WriteFile(filepath.Join(dir, name), data, 0o600); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write("fixture.yaml", fx)
+	write("specimen.yaml", sp)
+	write("specimens/r17-003.yaml", sp)
+	write("specimens/r17-004.yaml", bytes.Replace(sp, []byte("id: R17-003"), []byte("id: R17-004"), 1))
+	write("grades/no-r470.yaml", gr)
+	write("token", []byte(browserToken+"\n"))
+	write("daemon.yaml", []byte(fmt.Sprintf(`kind: daemon
+http: {addr: "127.0.0.1:0", token_file: %s}
+store: {path: %s}
+log: {level: info}
+specimens: specimens
+grades: grades
+confirm_mount: true
+fixtures:
+  - {fixture: fixture.yaml, specimen: specimen.yaml}
+`, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"))))
+	bs := &benchServer{bench: b, logs: &logBuf{}}
+	for _, line := range strings.Split(string(fx), "\n") {
+		if v, ok := strings.CutPrefix(line, "name:"); ok {
+			bs.fixture = strings.TrimSpace(v)
+		}
+	}
+	sigs := make(chan os.Signal, 1)
+	done := make(chan error, 1)
+	ready := make(chan string, 1)
+	go func() {
+		done <- daemon.Serve(ctx, filepath.Join(dir, "daemon.yaml"), daemon.Wiring{
+			Open: daemon.FixtureOpener(slog.New(slog.NewTextHandler(bs.logs, nil))), Area: daemon.SpecimenArea,
+			Software: "browser-test", Stderr: bs.logs, Signals: sigs, API: api.ForDaemon,
+			Listening: func(addr string) { ready <- addr },
+		})
+	}()
+	select {
+	case addr := <-ready:
+		bs.base = "http://" + addr
+	case err := <-done:
+		t.Fatalf("serve: %v\n%s", err, bs.logs)
+	case <-time.After(30 * time.Second):
+		t.Fatalf("daemon not listening\n%s", bs.logs)
+	}
+	t.Cleanup(func() {
+		sigs <- syscall.SIGTERM
+		select {
+		case <-done:
+		case <-time.After(30 * time.Second):
+			t.Error("daemon did not stop")
+		}
+		if t.Failed() {
+			t.Logf("daemon log:\n%s", bs.logs)
+		}
+	})
+	return bs
+}
+
+// TestBrowserSpecimenMountVerdicts: on the review page a recipe is started
+// on a specimen chosen from the registry; the run waits until the mount is
+// confirmed on the page, runs on the bench, and is stored with that
+// specimen; the runs list and the loop view show its verdict against the
+// grade; the trend filtered by amplitude keeps only like loops.
+func TestBrowserSpecimenMountVerdicts(t *testing.T) {
+	if testing.Short() {
+		t.Skip("browser test on the real-time bench: not in -short")
+	}
+	chromium := findChromium(t)
+	bs := startRegistryServer(t)
+	b := newBrowser(t, chromium)
+	b.do(chromedp.Navigate(bs.base + "/"))
+	b.wait("page ready", `document.body.dataset.ready === '1'`, 20*time.Second)
+	b.wait("specimen choices", `[...document.querySelectorAll('#s-specimen option')].map(o => o.value).join(',') === ',R17-003,R17-004'`, 10*time.Second)
+
+	// 1. Start a 1 kA/m loop on R17-004, chosen in the start form.
+	rc := loopRecipe("batch-loop", "1 kA/m", "1 kA/m/s", 300)
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#key-input').value = %q; document.querySelector('#key-save').click();
+	  document.querySelector('[data-view="start"]').click(); document.querySelector('#s-recipe').value = %q;
+	  document.querySelector('#s-specimen').value = 'R17-004';
+	  document.querySelector('#s-confirm').click(); document.querySelector('#start-btn').click()`, browserToken, rc)))
+	b.wait("run queued on R17-004", `document.querySelector('#start-msg').textContent.includes('on specimen R17-004')`, 10*time.Second)
+	id := strings.Fields(strings.TrimPrefix(js[string](b, `document.querySelector('#start-msg').textContent`), "run "))[0]
+
+	// 2. It waits for the mount, shown on the page; the run stays queued until confirmed.
+	b.wait("mount request", fmt.Sprintf(`!!document.querySelector('#mounts li[data-run-id=%q]') && document.querySelector('#mounts').textContent.includes('mount R17-004')`, id), 15*time.Second)
+	if st := bs.waitRun(t, id, time.Second, "queued"); st != "queued" {
+		t.Fatalf("run %s is %s before the mount was confirmed", id, st)
+	}
+	b.shot("specimen-1-mount.png")
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#mounts li[data-run-id=%q] button.mount-ok').click()`, id)))
+	bs.waitRun(t, id, 90*time.Second, "finished")
+	var rb runBody
+	bs.call(t, "GET", "/api/v1/runs/"+id, "", "", &rb)
+	if rb.Run.Specimen != "R17-004" {
+		t.Fatalf("run stored with specimen %q", rb.Run.Specimen)
+	}
+
+	// 3. The runs list shows recipe, specimen and the verdict the API has.
+	var list struct {
+		Runs []struct{ ID, Verdict, Recipe string }
+	}
+	bs.call(t, "GET", "/api/v1/runs", "", "", &list)
+	want := ""
+	for _, r := range list.Runs {
+		if r.ID == id {
+			want = r.Verdict
+		}
+	}
+	if want != "pass" && want != "fail" && want != "undecided" {
+		t.Fatalf("API verdict of %s: %q", id, want)
+	}
+	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#filter-apply').click()`))
+	b.wait("verdict in the runs list", fmt.Sprintf(`(() => { const li = document.querySelector('#runs-list li[data-run-id=%q]');
+	  return !!li && li.dataset.verdict === %q && li.querySelector('.verdict').textContent === %q &&
+	    li.querySelector('.r-recipe').textContent === 'batch-loop' && li.textContent.includes('R17-004'); })()`, id, want, want), 10*time.Second)
+	// The loop view lists each judged figure with its limit.
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, id)))
+	b.wait("verdicts of the loop", fmt.Sprintf(`document.querySelector('#loop-verdict') && document.querySelector('#loop-verdict').textContent === %q &&
+	  [...document.querySelectorAll('#verdicts tr[data-verdict]')].some(tr => tr.textContent.includes('HcB') && tr.textContent.includes('≤ 52'))`, want), 15*time.Second)
+	b.shot("specimen-2-verdicts.png")
+
+	// 4. A second run on the same specimen at 500 A/m (no mount needed now).
+	var sub struct {
+		RunID string `json:"run_id"`
+	}
+	if code := bs.call(t, "POST", "/api/v1/runs?specimen=R17-004", browserToken, loopRecipe("half-loop", "500 A/m", "1 kA/m/s", 200), &sub); code != 202 {
+		t.Fatalf("submit: %d", code)
+	}
+	bs.waitRun(t, sub.RunID, 90*time.Second, "finished")
+	trend := func(amp string) {
+		b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('[data-view="trend"]').click();
+		  document.querySelector('#t-specimen').value = 'R17-004'; document.querySelector('#t-figure').value = 'HcB';
+		  document.querySelector('#t-amp').value = %q; document.querySelector('#t-hi').value = '52';
+		  document.querySelector('#trend-draw').click()`, amp)))
+	}
+	trend("")
+	b.wait("unfiltered trend: both runs", `document.querySelectorAll('#trend-plot circle.trend-pt').length === 2 && document.querySelectorAll('#trend-table tbody tr').length === 2`, 10*time.Second)
+	trend("1000")
+	b.wait("trend at 1 kA/m only", fmt.Sprintf(`document.querySelectorAll('#trend-plot circle.trend-pt').length === 1 &&
+	  document.querySelectorAll('#trend-table tbody tr').length === 1 && document.querySelector('#trend-table tbody tr').textContent.includes(%q) &&
+	  ['pass', 'fail', 'undecided'].includes(document.querySelector('#trend-table tbody tr').dataset.verdict)`, id), 10*time.Second)
+	b.shot("specimen-3-trend.png")
+}

@@ -1,0 +1,313 @@
+// Package grade holds material grades (`kind: grade` files: limits per
+// figure and the conditions under which they apply) and judges stored loops
+// against them under a named decision rule that uses the expanded
+// uncertainty U (k = 2) of each figure.
+//
+// Decision rules (ILAC-G8:09/2019 and ISO 14253-1:2017 describe guarded
+// acceptance; the wording here is ours, the content of those documents is
+// from memory). With a guard band w, a lower limit L and an upper limit T:
+//
+//	pass       when L ≤ value − w and value + w ≤ T   (the whole interval inside the closed limits)
+//	fail       when value + w < L or value − w > T     (the whole interval strictly outside)
+//	undecided  otherwise                               (the interval touches or straddles a limit)
+//
+// "guarded-U" takes w = U: a pass is a pass with at least about 97.5 %
+// confidence for a normal distribution (k = 2, one-sided); a value whose U
+// was not evaluated is undecided. "simple" takes w = 0 and compares the
+// value alone (no undecided zone; the risk of a wrong decision near a limit
+// is up to 50 %, which the report says beside the verdict).
+package grade
+
+import (
+	"fmt"
+	"math"
+	"os"
+	"strings"
+
+	"hystd/acq/record"
+	"hystd/configs"
+)
+
+// Kind is the value of `kind:` in a grade file.
+const Kind = "grade"
+
+// Rule names.
+const (
+	RuleGuarded = "guarded-U"
+	RuleSimple  = "simple"
+)
+
+// Rules lists the decision rules by name with what they mean (for reports).
+var Rules = map[string]string{
+	RuleGuarded: "guarded acceptance, guard band w = U (k = 2): pass only when value ± U lies within the limits, " +
+		"fail only when value ± U lies wholly outside, undecided when it touches or straddles a limit (ILAC-G8, ISO 14253-1)",
+	RuleSimple: "simple acceptance, w = 0: the value alone is compared with the limits; near a limit the risk of a " +
+		"wrong decision is up to 50 %",
+}
+
+// DefaultTolerance is the relative tolerance of an amplitude condition.
+const DefaultTolerance = 0.05
+
+// Grade is a material grade: limits on figures and when each applies.
+type Grade struct {
+	Kind        string `yaml:"kind"`
+	Name        string `yaml:"name"`
+	Description string `yaml:"description"`
+	// Rule is the decision rule: "guarded-U" (default) or "simple".
+	Rule   string  `yaml:"decision_rule"`
+	Limits []Limit `yaml:"limits"`
+}
+
+// Limit bounds one figure (in its SI unit, as stored) under conditions.
+type Limit struct {
+	Figure string   `yaml:"figure"`
+	Min    *float64 `yaml:"min"`
+	Max    *float64 `yaml:"max"`
+	Unit   string   `yaml:"unit"` // optional; when given it must be the figure's stored unit
+	When   When     `yaml:"when"`
+}
+
+// When are the conditions under which a limit applies; empty fields match anything.
+type When struct {
+	// LoopKind is the loop's kind ("loop", "normal-curve", "demag-curve", "recoil").
+	LoopKind string `yaml:"loop_kind"`
+	// HAmplitude is the loop's peak field in A/m (measured Hmax), within Tolerance.
+	HAmplitude float64 `yaml:"h_amplitude_a_m"`
+	// BPeak is the loop's peak flux density in T (measured Bmax), within Tolerance.
+	BPeak float64 `yaml:"b_peak_t"`
+	// Tolerance is relative, e.g. 0.05 for ±5 %; 0 means DefaultTolerance.
+	Tolerance float64 `yaml:"tolerance"`
+	// TempMinC and TempMaxC bound the specimen temperature (mean of the
+	// sweep's readings); a loop without temperature readings is undecided.
+	TempMinC *float64 `yaml:"temp_min_c"`
+	TempMaxC *float64 `yaml:"temp_max_c"`
+}
+
+// Load reads and validates a grade file.
+func Load(path string) (Grade, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return Grade{}, err
+	}
+	return Parse(path, data)
+}
+
+// Parse decodes and validates a grade document; file names it in errors.
+func Parse(file string, data []byte) (Grade, error) {
+	doc, err := configs.Parse(file, data)
+	if err != nil {
+		return Grade{}, err
+	}
+	return FromDoc(doc)
+}
+
+// knownFigures are the figures a limit may name, with their stored units
+// (calib/loop.Units; repeated here so that this package stays on the acq side).
+var knownFigures = map[string]string{
+	"Hmax": "A/m", "Bmax": "T", "Br": "T", "HcB": "A/m", "HcJ": "A/m", "mu_a": "",
+	"mu_initial": "", "mu_max": "", "loss_j_m3": "J/m3", "loss_j_kg": "J/kg", "BHmax": "J/m3",
+	"BHmax_B": "T", "BHmax_H": "A/m", "Hk": "A/m", "squareness": "", "mu_rec": "",
+}
+
+// FromDoc decodes and validates a parsed grade document.
+func FromDoc(doc *configs.Doc) (Grade, error) {
+	var g Grade
+	if err := doc.Decode(&g); err != nil {
+		return Grade{}, err
+	}
+	var es configs.Errors
+	add := func(path, f string, a ...any) { es = append(es, doc.Errorf(path, f, a...)) }
+	if g.Kind != Kind {
+		add("kind", "want %q, got %q", Kind, g.Kind)
+	}
+	if strings.TrimSpace(g.Name) == "" {
+		add("name", "required")
+	}
+	switch g.Rule {
+	case "":
+		g.Rule = RuleGuarded
+	case RuleGuarded, RuleSimple:
+	default:
+		add("decision_rule", "%q is not one of [%s %s]", g.Rule, RuleGuarded, RuleSimple)
+	}
+	if len(g.Limits) == 0 {
+		add("limits", "required: at least one limit")
+	}
+	finite := func(p string, v *float64) {
+		if v != nil && (math.IsNaN(*v) || math.IsInf(*v, 0)) {
+			add(p, "must be a finite number")
+		}
+	}
+	for i, l := range g.Limits {
+		p := fmt.Sprintf("limits.%d", i)
+		unit, ok := knownFigures[l.Figure]
+		switch {
+		case l.Figure == "":
+			add(p+".figure", "required")
+		case !ok:
+			add(p+".figure", "unknown figure %q", l.Figure)
+		case l.Unit != "" && l.Unit != unit:
+			add(p+".unit", "%s is stored in %q, not %q (limits are in the stored SI unit)", l.Figure, unit, l.Unit)
+		}
+		if l.Min == nil && l.Max == nil {
+			add(p, "needs min, max or both")
+		}
+		finite(p+".min", l.Min)
+		finite(p+".max", l.Max)
+		if l.Min != nil && l.Max != nil && *l.Min > *l.Max {
+			add(p+".min", "min %g is above max %g", *l.Min, *l.Max)
+		}
+		w := l.When
+		if w.HAmplitude < 0 || math.IsInf(w.HAmplitude, 0) || math.IsNaN(w.HAmplitude) {
+			add(p+".when.h_amplitude_a_m", "must be a positive number")
+		}
+		if w.BPeak < 0 || math.IsInf(w.BPeak, 0) || math.IsNaN(w.BPeak) {
+			add(p+".when.b_peak_t", "must be a positive number")
+		}
+		if !(w.Tolerance >= 0 && w.Tolerance < 1) {
+			add(p+".when.tolerance", "must be a fraction in [0, 1), e.g. 0.05")
+		}
+		finite(p+".when.temp_min_c", w.TempMinC)
+		finite(p+".when.temp_max_c", w.TempMaxC)
+		if w.TempMinC != nil && w.TempMaxC != nil && *w.TempMinC > *w.TempMaxC {
+			add(p+".when.temp_min_c", "above temp_max_c")
+		}
+		switch w.LoopKind {
+		case "", "loop", "normal-curve", "demag-curve", "recoil":
+		default:
+			add(p+".when.loop_kind", "%q is not one of [loop normal-curve demag-curve recoil]", w.LoopKind)
+		}
+	}
+	if len(es) > 0 {
+		return Grade{}, es
+	}
+	return g, nil
+}
+
+// Decide applies the decision rule to value ± u against the limits lo and hi
+// (NaN: no such limit). It also returns why the outcome is undecided, when it is.
+func Decide(rule string, value, u, lo, hi float64) (record.Outcome, string) {
+	if math.IsNaN(value) {
+		return record.Undecided, "no value"
+	}
+	w := 0.0
+	if rule != RuleSimple {
+		if math.IsNaN(u) || u < 0 {
+			return record.Undecided, "U not evaluated"
+		}
+		w = u
+	}
+	if (!math.IsNaN(lo) && value+w < lo) || (!math.IsNaN(hi) && value-w > hi) {
+		return record.Fail, ""
+	}
+	if (math.IsNaN(lo) || value-w >= lo) && (math.IsNaN(hi) || value+w <= hi) {
+		return record.Pass, ""
+	}
+	return record.Undecided, "value ± U straddles a limit"
+}
+
+// Judge returns the verdicts of loop l under every limit of g whose
+// conditions it meets, with the grade's own rule, or with rule when not "".
+func (g Grade) Judge(l record.Loop, rule string) []record.Verdict {
+	if rule == "" {
+		rule = g.Rule
+	}
+	if rule == "" {
+		rule = RuleGuarded
+	}
+	figs := map[string]record.Figure{}
+	for _, f := range l.Figures {
+		figs[f.Name] = f
+	}
+	var out []record.Verdict
+	temp, haveTemp := meanTemp(l.Raw)
+	for _, lim := range g.Limits {
+		note, ok := lim.When.matches(l, figs)
+		if !ok {
+			continue
+		}
+		v := record.Verdict{Grade: g.Name, Figure: lim.Figure, Value: math.NaN(), U: math.NaN(),
+			Min: math.NaN(), Max: math.NaN(), Unit: knownFigures[lim.Figure], Rule: rule}
+		if lim.Min != nil {
+			v.Min = *lim.Min
+		}
+		if lim.Max != nil {
+			v.Max = *lim.Max
+		}
+		if f, ok := figs[lim.Figure]; ok {
+			v.Value, v.U = f.Value, f.U
+		}
+		why := ""
+		if lim.When.TempMinC != nil || lim.When.TempMaxC != nil {
+			switch {
+			case !haveTemp:
+				why = "temperature not measured"
+			case lim.When.TempMinC != nil && temp < *lim.When.TempMinC, lim.When.TempMaxC != nil && temp > *lim.When.TempMaxC:
+				continue // outside the temperature range: the limit does not apply
+			default:
+				note = append(note, fmt.Sprintf("%.1f °C", temp))
+			}
+		}
+		if why == "" {
+			v.Outcome, why = Decide(rule, v.Value, v.U, v.Min, v.Max)
+		} else {
+			v.Outcome = record.Undecided
+		}
+		if why != "" {
+			note = append(note, why)
+		}
+		v.Note = strings.Join(note, "; ")
+		out = append(out, v)
+	}
+	return out
+}
+
+func (w When) matches(l record.Loop, figs map[string]record.Figure) ([]string, bool) {
+	var note []string
+	if w.LoopKind != "" {
+		if l.Kind != w.LoopKind {
+			return nil, false
+		}
+		note = append(note, l.Kind)
+	}
+	tol := w.Tolerance
+	if tol == 0 {
+		tol = DefaultTolerance
+	}
+	if w.HAmplitude > 0 {
+		h := math.NaN()
+		if f, ok := figs["Hmax"]; ok {
+			h = f.Value
+		} else if l.AmpUnit == "A/m" {
+			h = l.Amplitude
+		}
+		if !(math.Abs(h-w.HAmplitude) <= tol*w.HAmplitude) {
+			return nil, false
+		}
+		note = append(note, fmt.Sprintf("Hmax %.4g A/m within %g %% of %g A/m", h, 100*tol, w.HAmplitude))
+	}
+	if w.BPeak > 0 {
+		f, ok := figs["Bmax"]
+		if !ok || !(math.Abs(f.Value-w.BPeak) <= tol*w.BPeak) {
+			return nil, false
+		}
+		note = append(note, fmt.Sprintf("Bmax %.4g T within %g %% of %g T", f.Value, 100*tol, w.BPeak))
+	}
+	return note, true
+}
+
+// meanTemp is the mean of the sweep's temperature readings that are numbers.
+func meanTemp(raw []record.Sample) (float64, bool) {
+	var s float64
+	n := 0
+	for _, r := range raw {
+		if r.Phase == record.Sweep && !math.IsNaN(r.TempC) && !math.IsInf(r.TempC, 0) {
+			s += r.TempC
+			n++
+		}
+	}
+	if n == 0 {
+		return 0, false
+	}
+	return s / float64(n), true
+}
