@@ -1,0 +1,190 @@
+package loop
+
+import "math"
+
+// Reading a value between samples: plain linear interpolation of the two
+// samples around the point is exact to second order in the sample spacing
+// and is what smooth (noise-free) data deserve. A local least-squares
+// parabola only pays where the data scatter by more than the parabola's own
+// model error: the decision compares the two. The scatter is estimated from
+// the residual of every sample from the straight line through its two
+// neighbours (normalized so that white noise of variance σ² gives σ²: the
+// residual of sample i has variance σ²·(1 + wa² + wb²) with wa, wb the
+// interpolation weights); curvature adds only O(Δ⁴) to it. A parabola over
+// a window of samples is accepted while its residual variance stays within
+// the statistical scatter of that noise estimate; the widest accepted window
+// is used, so the window is never wider than the curvature allows. With no
+// accepted window the samples are interpolated.
+
+// interpNoise returns the estimate of the noise variance of v(u) described
+// above, over all inner points; 0 with fewer than 3 points.
+func interpNoise(u, v []float64) float64 {
+	var s, n float64
+	for i := 1; i+1 < len(u); i++ {
+		d := u[i+1] - u[i-1]
+		if !(d > 0) {
+			continue
+		}
+		wb := (u[i] - u[i-1]) / d
+		wa := 1 - wb
+		e := v[i] - (wa*v[i-1] + wb*v[i+1])
+		s += e * e / (1 + wa*wa + wb*wb)
+		n++
+	}
+	if n == 0 {
+		return 0
+	}
+	return s / n
+}
+
+// quad is a least-squares parabola c0 + c1·x + c2·x² in x = (u − uc)/scale.
+type quad struct {
+	c         [3]float64
+	uc, scale float64
+	s2        float64 // residual variance ss/(n − 3)
+	n         int
+	lo, hi    float64 // range of u fitted
+}
+
+func (q quad) at(u float64) float64 {
+	x := (u - q.uc) / q.scale
+	return q.c[0] + x*(q.c[1]+x*q.c[2])
+}
+
+// fitQuad fits the parabola to (u[i], v[i]) for lo ≤ i ≤ hi.
+func fitQuad(u, v []float64, lo, hi int) (quad, bool) {
+	n := hi - lo + 1
+	if n < 4 {
+		return quad{}, false
+	}
+	q := quad{uc: (u[lo] + u[hi]) / 2, scale: (u[hi] - u[lo]) / 2, n: n, lo: u[lo], hi: u[hi]}
+	if !(q.scale > 0) {
+		return quad{}, false
+	}
+	var s [5]float64
+	var r [3]float64
+	for i := lo; i <= hi; i++ {
+		x := (u[i] - q.uc) / q.scale
+		xp := 1.0
+		for k := 0; k < 5; k++ {
+			s[k] += xp
+			if k < 3 {
+				r[k] += v[i] * xp
+			}
+			xp *= x
+		}
+	}
+	c, ok := solve3([3][3]float64{{s[0], s[1], s[2]}, {s[1], s[2], s[3]}, {s[2], s[3], s[4]}}, r)
+	if !ok {
+		return quad{}, false
+	}
+	q.c = c
+	ss := 0.0
+	for i := lo; i <= hi; i++ {
+		e := v[i] - q.at(u[i])
+		ss += e * e
+	}
+	q.s2 = ss / float64(n-3)
+	return q, true
+}
+
+// accepts reports whether a fit's residual variance is consistent with the
+// noise variance s2 alone: within twice the relative standard deviation
+// √(2/(n−3)) of a variance estimated from n − 3 degrees of freedom.
+func accepts(q quad, s2 float64) bool {
+	return q.s2 <= s2*(1+2*math.Sqrt(2/float64(q.n-3)))
+}
+
+// minWindow is the smallest half-width (in samples) of a local fit: a
+// parabola through fewer samples averages too little noise to beat the
+// interpolation.
+const minWindow = 4
+
+// localFit returns the widest accepted parabola of v(u) centred on index c
+// (half-widths minWindow, ×1.5, … up to the data), or ok = false when the
+// data are smooth at this point (no window accepted, or no noise).
+func localFit(u, v []float64, c int, s2 float64) (best quad, ok bool) {
+	if !(s2 > 0) {
+		return quad{}, false
+	}
+	for m := minWindow; ; m = m*3/2 + 1 {
+		lo, hi := c-m, c+m
+		if lo < 0 || hi >= len(u) {
+			// Use what is left on the short side once, then stop.
+			lo, hi = max(lo, 0), min(hi, len(u)-1)
+			if hi-lo < 2*minWindow {
+				return best, ok
+			}
+			q, fit := fitQuad(u, v, lo, hi)
+			if fit && accepts(q, s2) {
+				best, ok = q, true
+			}
+			return best, ok
+		}
+		q, fit := fitQuad(u, v, lo, hi)
+		if !fit || !accepts(q, s2) {
+			return best, ok
+		}
+		best, ok = q, true
+	}
+}
+
+// interpAt interpolates v linearly at u0 between the samples around it
+// (u ascending), clamped to the ends.
+func interpAt(u, v []float64, u0 float64) float64 {
+	n := len(u)
+	if n == 0 {
+		return nan()
+	}
+	if u0 <= u[0] {
+		return v[0]
+	}
+	lo, hi := 0, n-1
+	for hi-lo > 1 {
+		mid := (lo + hi) / 2
+		if u[mid] <= u0 {
+			lo = mid
+		} else {
+			hi = mid
+		}
+	}
+	if u0 >= u[hi] {
+		return v[hi]
+	}
+	d := u[hi] - u[lo]
+	if !(d > 0) {
+		return v[lo]
+	}
+	f := (u0 - u[lo]) / d
+	return v[lo] + f*(v[hi]-v[lo])
+}
+
+// quadRoot returns u where the parabola reaches x0, the root nearest uNear
+// within the fitted range, or NaN.
+func quadRoot(q quad, x0, uNear float64) float64 {
+	c0, c1, c2 := q.c[0]-x0, q.c[1], q.c[2]
+	var roots []float64
+	if math.Abs(c2) < 1e-12*math.Abs(c1) {
+		if c1 != 0 {
+			roots = append(roots, -c0/c1)
+		}
+	} else if d := c1*c1 - 4*c2*c0; d >= 0 {
+		sq := math.Sqrt(d)
+		qq := -0.5 * (c1 + math.Copysign(sq, c1))
+		roots = append(roots, qq/c2)
+		if qq != 0 {
+			roots = append(roots, c0/qq)
+		}
+	}
+	best := nan()
+	for _, x := range roots {
+		u := q.uc + x*q.scale
+		if u < q.lo || u > q.hi {
+			continue
+		}
+		if math.IsNaN(best) || math.Abs(u-uNear) < math.Abs(best-uNear) {
+			best = u
+		}
+	}
+	return best
+}

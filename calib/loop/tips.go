@@ -1,0 +1,242 @@
+package loop
+
+import "math"
+
+// Tips returns the tips at the ends of complete segments, in time order.
+// Each tip is the apex of the sweep H(t): the intersection of straight
+// lines through the samples on both sides of the extreme sample (through
+// the two samples nearest the tip on each side when the data are smooth, a
+// least-squares line over a window sized from the noise when they scatter),
+// with B read on each side at the apex time and averaged. A triangular sweep
+// thus gives its true tip even when no sample falls on it. t may be nil
+// (index used as time).
+func (s Shape) Tips(t, h, b []float64) []Tip {
+	tm := func(i int) float64 {
+		if t == nil {
+			return float64(i)
+		}
+		return t[i]
+	}
+	get := func(i int) (float64, float64) { return h[i], b[i] }
+	all := func(int) bool { return true }
+	var out []Tip
+	for _, r := range s.tipRefs() {
+		out = append(out, readTip(r, tm, get, all))
+	}
+	return out
+}
+
+// tipRefs returns the extreme samples at the ends of complete segments, in
+// time order, with the range of samples their sides may use (the adjacent
+// segments).
+func (s Shape) tipRefs() []tipRef {
+	seen := map[int]bool{}
+	var out []tipRef
+	for k, g := range s.Segments {
+		if !g.Complete {
+			continue
+		}
+		for _, i := range []int{g.Start, g.End} {
+			if seen[i] {
+				continue
+			}
+			seen[i] = true
+			top := i == g.End && g.Dir == Rising || i == g.Start && g.Dir == Falling
+			r := tipRef{index: i, top: top}
+			if i == g.Start {
+				r.hi = g.End
+				if k > 0 {
+					r.lo = s.Segments[k-1].Start
+				}
+			} else {
+				r.lo = g.Start
+				r.hi = s.N - 1
+				if k+1 < len(s.Segments) {
+					r.hi = s.Segments[k+1].End
+				}
+			}
+			out = append(out, r)
+		}
+	}
+	for i := 1; i < len(out); i++ {
+		for j := i; j > 0 && out[j].index < out[j-1].index; j-- {
+			out[j], out[j-1] = out[j-1], out[j]
+		}
+	}
+	return out
+}
+
+// tipSide is at most this many samples: the sweep near a tip is straight
+// over far fewer, and the noise is averaged enough.
+const tipSide = 400
+
+// line is v = a + b·(u − u0).
+type line struct{ a, b, u0, s2 float64 }
+
+func (l line) at(u float64) float64 { return l.a + l.b*(u-l.u0) }
+
+// fitLine fits a least-squares line to the first n points.
+func fitLine(u, v []float64, n int) line {
+	u0 := u[0]
+	var su, sv, suu, suv float64
+	for i := 0; i < n; i++ {
+		x := u[i] - u0
+		su += x
+		sv += v[i]
+		suu += x * x
+		suv += x * v[i]
+	}
+	fn := float64(n)
+	den := fn*suu - su*su
+	if !(den > 0) {
+		return line{a: sv / fn, u0: u0}
+	}
+	b := (fn*suv - su*sv) / den
+	l := line{a: (sv - b*su) / fn, b: b, u0: u0}
+	ss := 0.0
+	for i := 0; i < n; i++ {
+		e := v[i] - l.at(u[i])
+		ss += e * e
+	}
+	if n > 2 {
+		l.s2 = ss / float64(n-2)
+	}
+	return l
+}
+
+// sideLine returns the line of v(u) on one side of a tip, the points
+// ordered from the tip outwards: through the two nearest points when the
+// data are smooth, else the least-squares line over the widest window whose
+// residual variance the noise alone explains (as in smooth.go). noisy
+// reports which.
+func sideLine(u, v []float64) (l line, noisy bool) {
+	n := len(u)
+	if n == 1 {
+		return line{a: v[0], u0: u[0]}, false
+	}
+	two := fitLine(u, v, 2)
+	s2 := interpNoiseAny(u, v)
+	if !(s2 > 0) {
+		return two, false
+	}
+	for m := 2 * minWindow; m <= n; m = m*3/2 + 1 {
+		q := fitLine(u, v, m)
+		if q.s2 > s2*(1+2*math.Sqrt(2/float64(m-2))) {
+			break
+		}
+		l, noisy = q, true
+	}
+	if !noisy {
+		return two, false
+	}
+	return l, true
+}
+
+// interpNoiseAny is interpNoise for points ordered either way in u.
+func interpNoiseAny(u, v []float64) float64 {
+	if len(u) > 1 && u[1] < u[0] {
+		nu := make([]float64, len(u))
+		for i := range u {
+			nu[i] = -u[i]
+		}
+		return interpNoise(nu, v)
+	}
+	return interpNoise(u, v)
+}
+
+// readTip finds the apex of the tip r (see Tips) among the samples that
+// keep accepts; get returns H and B of sample i, tm its time.
+func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), keep func(int) bool) Tip {
+	e := r.index
+	he, be := get(e)
+	tp := Tip{Index: e, Top: r.top, T: tm(e), H: he, B: be, N: 1}
+	sgn := 1.0
+	if !r.top {
+		sgn = -1
+	}
+	var lu, lh, lb, ru, rh, rb []float64 // ordered from the tip outwards
+	for i := e - 1; i >= r.lo && len(lu) < tipSide; i-- {
+		if keep(i) {
+			h, b := get(i)
+			lu, lh, lb = append(lu, tm(i)), append(lh, h), append(lb, b)
+		}
+	}
+	for i := e + 1; i <= r.hi && len(ru) < tipSide; i++ {
+		if keep(i) {
+			h, b := get(i)
+			ru, rh, rb = append(ru, tm(i)), append(rh, h), append(rb, b)
+		}
+	}
+	if len(lu) < 2 && len(ru) < 2 {
+		return tp
+	}
+	if len(lu) < 2 || len(ru) < 2 {
+		// A tip at the start or end of the record: its own sample, or the
+		// line of the one side at its time when that side is noisy.
+		u, hh, bb := lu, lh, lb
+		if len(ru) >= 2 {
+			u, hh, bb = ru, rh, rb
+		}
+		u = append([]float64{tm(e)}, u...)
+		hh = append([]float64{he}, hh...)
+		bb = append([]float64{be}, bb...)
+		if lH, noisy := sideLine(u, hh); noisy {
+			tp.H = lH.at(tm(e))
+		}
+		if lB, noisy := sideLine(u, bb); noisy {
+			tp.B = lB.at(tm(e))
+		}
+		return tp
+	}
+	lH, nl := sideLine(lu, lh)
+	rH, nr := sideLine(ru, rh)
+	smooth := !nl && !nr
+	if smooth && keep(e) {
+		// The extreme sample joins the side whose line it continues; the
+		// apex is recomputed with it.
+		if ta := apex(lH, rH); !math.IsNaN(ta) {
+			if tm(e) <= ta {
+				lu = append([]float64{tm(e)}, lu...)
+				lh = append([]float64{he}, lh...)
+				lb = append([]float64{be}, lb...)
+				lH = fitLine(lu, lh, 2)
+			} else {
+				ru = append([]float64{tm(e)}, ru...)
+				rh = append([]float64{he}, rh...)
+				rb = append([]float64{be}, rb...)
+				rH = fitLine(ru, rh, 2)
+			}
+		}
+	}
+	ta := apex(lH, rH)
+	// The apex must lie between the samples next to the extreme one, and on
+	// smooth data beyond the extreme sample's H; otherwise the extreme
+	// sample is the tip.
+	if math.IsNaN(ta) || ta < lu[min(1, len(lu)-1)] || ta > ru[min(1, len(ru)-1)] {
+		return tp
+	}
+	ha := (lH.at(ta) + rH.at(ta)) / 2
+	if smooth && sgn*(ha-he) < 0 {
+		return tp
+	}
+	tp.T, tp.H, tp.N = ta, ha, len(lu)+len(ru)
+	if smooth && keep(e) && math.Abs(tm(e)-ta) <= 1e-6*math.Abs(ru[0]-lu[0]) {
+		tp.T, tp.H, tp.B = tm(e), he, be // the extreme sample is the apex
+		return tp
+	}
+	lB, _ := sideLine(lu, lb)
+	rB, _ := sideLine(ru, rb)
+	bl, br := lB.at(ta), rB.at(ta)
+	tp.B = (bl + br) / 2
+	tp.UB = math.Abs(bl-br) / 2
+	return tp
+}
+
+// apex returns the time where two lines of H(t) meet, NaN if parallel.
+func apex(l, r line) float64 {
+	d := l.b - r.b
+	if d == 0 {
+		return nan()
+	}
+	return (r.a - l.a + l.b*l.u0 - r.b*r.u0) / d
+}
