@@ -508,7 +508,7 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 		us, ps, hs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h)
 	}
 	a.loc.bt, a.loc.bx, a.loc.by = us, ps, hs
-	q, ok := localFit(us, ps, jm, interpNoise(us, ps))
+	q, ok := localFit(us, ps, jm)
 	if !ok || !(q.c[2] < 0) {
 		return m, atB, atH
 	}
@@ -519,7 +519,7 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 	}
 	pv := q.at(uv)
 	hv := interpAt(us, hs, uv)
-	if f, ok := localFit(us, hs, jm, interpNoise(us, hs)); ok {
+	if f, ok := localFit(us, hs, jm); ok {
 		hv = f.at(uv)
 	}
 	if !(hv < 0) {

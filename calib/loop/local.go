@@ -156,7 +156,7 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	}
 	f := (x0 - xs[js-1]) / (xs[js] - xs[js-1])
 	u := ts[js-1] + f*(ts[js]-ts[js-1])
-	if q, ok := localFit(ts, xs, js, interpNoise(ts, xs)); ok {
+	if q, ok := localFit(ts, xs, js); ok {
 		if r := quadRoot(q, x0, u); !math.IsNaN(r) {
 			u = r
 		}
@@ -168,7 +168,7 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	for jy+1 < n && ts[jy] < u {
 		jy++
 	}
-	if q, ok := localFit(ts, ys, jy, interpNoise(ts, ys)); ok {
+	if q, ok := localFit(ts, ys, jy); ok {
 		return q.at(u)
 	}
 	return interpAt(ts, ys, u)

@@ -8,30 +8,42 @@ import "math"
 // parabola only pays where the data scatter by more than the parabola's own
 // model error: the decision compares the two. The scatter is estimated from
 // the residual of every sample from the straight line through its two
-// neighbours (normalized so that white noise of variance σ² gives σ²: the
-// residual of sample i has variance σ²·(1 + wa² + wb²) with wa, wb the
-// interpolation weights); curvature adds only O(Δ⁴) to it. A parabola over
+// neighbours (see interpNoise); a smooth curve adds only its third-order
+// term to it. A parabola over
 // a window of samples is accepted while its residual variance stays within
 // the statistical scatter of that noise estimate; the widest accepted window
 // is used, so the window is never wider than the curvature allows. With no
 // accepted window the samples are interpolated.
 
-// interpNoise returns the estimate of the noise variance of v(u) described
-// above, over all inner points; 0 with fewer than 3 points.
+// roundOff is the relative scatter below which data count as smooth: the
+// residuals of exact values written with 15–17 digits, or of sums of them.
+const roundOff = 1e-11
+
+// interpNoise returns the estimate of the noise variance of v(u): the mean
+// square residual of each sample from the parabola through its neighbours
+// i−1, i+1 and i+2, divided by the residual's variance factor for white
+// noise (1 + Σ w², w the Lagrange weights), so that white noise of
+// variance σ² gives σ² while a smooth curve gives only its third-order
+// term, O(Δ³), far below its curvature. 0 with fewer than 4 points or when
+// the scatter is at the level of round-off.
 func interpNoise(u, v []float64) float64 {
-	var s, n float64
-	for i := 1; i+1 < len(u); i++ {
-		d := u[i+1] - u[i-1]
-		if !(d > 0) {
+	var s, n, vmax float64
+	for _, x := range v {
+		vmax = math.Max(vmax, math.Abs(x))
+	}
+	for i := 1; i+2 < len(u); i++ {
+		a, b, c, x := u[i-1], u[i+1], u[i+2], u[i]
+		if !(a < x && x < b && b < c) {
 			continue
 		}
-		wb := (u[i] - u[i-1]) / d
-		wa := 1 - wb
-		e := v[i] - (wa*v[i-1] + wb*v[i+1])
-		s += e * e / (1 + wa*wa + wb*wb)
+		wa := (x - b) * (x - c) / ((a - b) * (a - c))
+		wb := (x - a) * (x - c) / ((b - a) * (b - c))
+		wc := (x - a) * (x - b) / ((c - a) * (c - b))
+		e := v[i] - (wa*v[i-1] + wb*v[i+1] + wc*v[i+2])
+		s += e * e / (1 + wa*wa + wb*wb + wc*wc)
 		n++
 	}
-	if n == 0 {
+	if n == 0 || s/n <= (roundOff*vmax)*(roundOff*vmax) {
 		return 0
 	}
 	return s / n
@@ -101,24 +113,22 @@ func accepts(q quad, s2 float64) bool {
 const minWindow = 4
 
 // localFit returns the widest accepted parabola of v(u) centred on index c
-// (half-widths minWindow, ×1.5, … up to the data), or ok = false when the
+// (half-widths minWindow, ×1.5, … up to the data), each window judged
+// against the noise estimated over that same window, or ok = false when the
 // data are smooth at this point (no window accepted, or no noise).
-func localFit(u, v []float64, c int, s2 float64) (best quad, ok bool) {
-	if !(s2 > 0) {
-		return quad{}, false
-	}
+func localFit(u, v []float64, c int) (best quad, ok bool) {
 	for m := minWindow; ; m = m*3/2 + 1 {
 		lo, hi := c-m, c+m
-		if lo < 0 || hi >= len(u) {
+		last := lo < 0 || hi >= len(u)
+		if last {
 			// Use what is left on the short side once, then stop.
 			lo, hi = max(lo, 0), min(hi, len(u)-1)
 			if hi-lo < 2*minWindow {
 				return best, ok
 			}
-			q, fit := fitQuad(u, v, lo, hi)
-			if fit && accepts(q, s2) {
-				best, ok = q, true
-			}
+		}
+		s2 := interpNoise(u[lo:hi+1], v[lo:hi+1])
+		if !(s2 > 0) {
 			return best, ok
 		}
 		q, fit := fitQuad(u, v, lo, hi)
@@ -126,6 +136,9 @@ func localFit(u, v []float64, c int, s2 float64) (best quad, ok bool) {
 			return best, ok
 		}
 		best, ok = q, true
+		if last {
+			return best, ok
+		}
 	}
 }
 

@@ -115,11 +115,11 @@ func sideLine(u, v []float64) (l line, noisy bool) {
 		return line{a: v[0], u0: u[0]}, false
 	}
 	two := fitLine(u, v, 2)
-	s2 := interpNoiseAny(u, v)
-	if !(s2 > 0) {
-		return two, false
-	}
 	for m := 2 * minWindow; m <= n; m = m*3/2 + 1 {
+		s2 := interpNoiseAny(u[:m], v[:m])
+		if !(s2 > 0) {
+			break
+		}
 		q := fitLine(u, v, m)
 		if q.s2 > s2*(1+2*math.Sqrt(2/float64(m-2))) {
 			break
