@@ -106,7 +106,8 @@ type branch struct {
 type tipRef struct {
 	index  int
 	top    bool
-	lo, hi int // samples that may belong to this tip's sides
+	lo, hi int  // samples that may belong to this tip's sides
+	last   bool // hi is the last sample of the record
 }
 
 type analysis struct {
@@ -495,7 +496,7 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 		return 0, 0, 0
 	}
 	// Pass 2: a local fit around it where noise dominates.
-	us, ps, hs := a.loc.bt[:0], a.loc.bx[:0], a.loc.by[:0]
+	us, ps, hs, bs := a.loc.bt[:0], a.loc.bx[:0], a.loc.by[:0], a.loc.bb[:0]
 	jm := 0
 	for i := max(lo, im-w); i <= min(hi, im+w); i++ {
 		if !v.keep(i) {
@@ -505,11 +506,32 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 			jm = len(us)
 		}
 		p := a.sample(v, i)
-		us, ps, hs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h)
+		us, ps, hs, bs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h), append(bs, p.b)
 	}
-	a.loc.bt, a.loc.bx, a.loc.by = us, ps, hs
+	a.loc.bt, a.loc.bx, a.loc.by, a.loc.bb = us, ps, hs, bs
 	q, ok := localFit(us, ps, jm)
-	if !ok || !(q.c[2] < 0) {
+	if !ok {
+		// Smooth data: the cubics of H(t) and B(t) through four samples
+		// refine the straight pieces around the maximum (smooth.go).
+		for j := jm - 2; j <= jm; j++ {
+			if j < 1 || j+2 >= len(us) {
+				continue
+			}
+			f := func(x float64) float64 {
+				hv, bv := cubic4(us, hs, j, x), cubic4(us, bs, j, x)
+				if hv > 0 || bv < 0 {
+					return 0
+				}
+				return -hv * bv
+			}
+			x := goldenMax(f, us[j], us[j+1])
+			if pv := f(x); pv > m {
+				m, atH, atB = pv, cubic4(us, hs, j, x), cubic4(us, bs, j, x)
+			}
+		}
+		return m, atB, atH
+	}
+	if !(q.c[2] < 0) {
 		return m, atB, atH
 	}
 	xv := -q.c[1] / (2 * q.c[2])
@@ -526,6 +548,26 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 		return m, atB, atH
 	}
 	return pv, pv / -hv, hv
+}
+
+// goldenMax returns where f is largest on [a, b], by golden-section search
+// (f unimodal there; a straight piece's neighbourhood of a maximum is).
+func goldenMax(f func(float64) float64, a, b float64) float64 {
+	const g = 0.6180339887498949
+	c, d := b-g*(b-a), a+g*(b-a)
+	fc, fd := f(c), f(d)
+	for range 60 {
+		if fc < fd {
+			a, c, fc = c, d, fd
+			d = a + g*(b-a)
+			fd = f(d)
+		} else {
+			b, d, fd = d, c, fc
+			c = b - g*(b-a)
+			fc = f(c)
+		}
+	}
+	return (a + b) / 2
 }
 
 // slopeNearBr returns the least-squares slope dB/dH/μ0 of the samples of

@@ -34,7 +34,7 @@ type local struct {
 	jr0    []float64     // nominal Jr per branch, for the Hk level
 	window []int
 	// scratch buffers of read
-	bt, bx, by []float64
+	bt, bx, by, bb []float64
 }
 
 // medianCrossing returns the index i (start ≤ i < end) of the median sign
@@ -156,8 +156,9 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	}
 	f := (x0 - xs[js-1]) / (xs[js] - xs[js-1])
 	u := ts[js-1] + f*(ts[js]-ts[js-1])
-	if q, ok := localFit(ts, xs, js); ok {
-		if r := quadRoot(q, x0, u); !math.IsNaN(r) {
+	qx, noisyX := localFit(ts, xs, js)
+	if noisyX {
+		if r := quadRoot(qx, x0, u); !math.IsNaN(r) {
 			u = r
 		}
 	}
@@ -170,6 +171,13 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	}
 	if q, ok := localFit(ts, ys, jy); ok {
 		return q.at(u)
+	}
+	if !noisyX {
+		// Smooth data: the cubics through the four samples around the
+		// crossing refine the straight line.
+		if _, yc, ok := cubicCross(ts, xs, ys, js-1, x0); ok {
+			return yc
+		}
 	}
 	return interpAt(ts, ys, u)
 }

@@ -117,7 +117,8 @@ const minWindow = 4
 // against the noise estimated over that same window, or ok = false when the
 // data are smooth at this point (no window accepted, or no noise).
 func localFit(u, v []float64, c int) (best quad, ok bool) {
-	for m := minWindow; ; m = m*3/2 + 1 {
+	miss := 0 // windows rejected in a row: two end the search (one may be chance)
+	for m := minWindow; miss < 2; m = m*3/2 + 1 {
 		lo, hi := c-m, c+m
 		last := lo < 0 || hi >= len(u)
 		if last {
@@ -132,14 +133,16 @@ func localFit(u, v []float64, c int) (best quad, ok bool) {
 			return best, ok
 		}
 		q, fit := fitQuad(u, v, lo, hi)
-		if !fit || !accepts(q, s2) {
-			return best, ok
+		if fit && accepts(q, s2) {
+			best, ok, miss = q, true, 0
+		} else {
+			miss++
 		}
-		best, ok = q, true
 		if last {
 			return best, ok
 		}
 	}
+	return best, ok
 }
 
 // interpAt interpolates v linearly at u0 between the samples around it
@@ -200,4 +203,67 @@ func quadRoot(q quad, x0, uNear float64) float64 {
 		}
 	}
 	return best
+}
+
+// Between two samples of smooth data, the cubic through the four samples
+// around them (Lagrange, in time) follows the curve to fourth order in the
+// spacing where the straight line follows it to second order; it is used to
+// refine a linear reading on smooth data only, and never leaves the range
+// of the two samples where the four are monotone.
+
+// cubic4 evaluates at x the Lagrange cubic through (u[k], v[k]), k = j−1..j+2.
+func cubic4(u, v []float64, j int, x float64) float64 {
+	s := 0.0
+	for k := j - 1; k <= j+2; k++ {
+		w := 1.0
+		for m := j - 1; m <= j+2; m++ {
+			if m != k {
+				w *= (x - u[m]) / (u[k] - u[m])
+			}
+		}
+		s += w * v[k]
+	}
+	return s
+}
+
+// monotone4 reports whether v[j−1..j+2] is strictly monotone.
+func monotone4(v []float64, j int) bool {
+	up := v[j] > v[j-1] && v[j+1] > v[j] && v[j+2] > v[j+1]
+	down := v[j] < v[j-1] && v[j+1] < v[j] && v[j+2] < v[j+1]
+	return up || down
+}
+
+// cubicCross refines the crossing of x through x0 between samples j and
+// j+1 (which bracket it) on the cubics of x(u) and y(u), returning u and y;
+// ok is false when the four samples of x are not monotone or not all
+// present.
+func cubicCross(u, x, y []float64, j int, x0 float64) (float64, float64, bool) {
+	if j < 1 || j+2 >= len(u) || !monotone4(x, j) {
+		return 0, 0, false
+	}
+	a, b := u[j], u[j+1]
+	fa := x[j] - x0
+	if fa == 0 {
+		return a, y[j], true
+	}
+	for range 60 {
+		m := (a + b) / 2
+		fm := cubic4(u, x, j, m) - x0
+		if fm == 0 {
+			a, b = m, m
+			break
+		}
+		if (fm < 0) == (fa < 0) {
+			a, fa = m, fm
+		} else {
+			b = m
+		}
+	}
+	um := (a + b) / 2
+	yv := cubic4(u, y, j, um)
+	if monotone4(y, j) {
+		lo, hi := math.Min(y[j], y[j+1]), math.Max(y[j], y[j+1])
+		yv = math.Max(lo, math.Min(hi, yv))
+	}
+	return um, yv, true
 }

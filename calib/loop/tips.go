@@ -51,8 +51,10 @@ func (s Shape) tipRefs() []tipRef {
 			} else {
 				r.lo = g.Start
 				r.hi = s.N - 1
+				r.last = true
 				if k+1 < len(s.Segments) {
 					r.hi = s.Segments[k+1].End
+					r.last = r.hi == s.N-1
 				}
 			}
 			out = append(out, r)
@@ -115,16 +117,18 @@ func sideLine(u, v []float64) (l line, noisy bool) {
 		return line{a: v[0], u0: u[0]}, false
 	}
 	two := fitLine(u, v, 2)
-	for m := 2 * minWindow; m <= n; m = m*3/2 + 1 {
+	miss := 0 // windows rejected in a row: two end the search (one may be chance)
+	for m := 2 * minWindow; m <= n && miss < 2; m = m*3/2 + 1 {
 		s2 := interpNoiseAny(u[:m], v[:m])
 		if !(s2 > 0) {
 			break
 		}
 		q := fitLine(u, v, m)
 		if q.s2 > s2*(1+2*math.Sqrt(2/float64(m-2))) {
-			break
+			miss++
+			continue
 		}
-		l, noisy = q, true
+		l, noisy, miss = q, true, 0
 	}
 	if !noisy {
 		return two, false
@@ -153,6 +157,36 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 	sgn := 1.0
 	if !r.top {
 		sgn = -1
+	}
+	// A tip within a few samples of the start or end of the record (a
+	// sweep that starts or ends at the tip): noise may have put the extreme
+	// sample a little inside, so the samples before it belong to the same
+	// side; with noise, the line through all of them is read at the
+	// record's end.
+	if cutL, cutR := r.lo == 0 && e < 2*minWindow, r.last && r.hi-e < 2*minWindow; cutL || cutR {
+		var u, hh, bb []float64
+		if cutL {
+			for i := r.lo; i <= r.hi && len(u) < tipSide; i++ {
+				if keep(i) {
+					h, b := get(i)
+					u, hh, bb = append(u, tm(i)), append(hh, h), append(bb, b)
+				}
+			}
+		} else {
+			for i := r.hi; i >= r.lo && len(u) < tipSide; i-- {
+				if keep(i) {
+					h, b := get(i)
+					u, hh, bb = append(u, tm(i)), append(hh, h), append(bb, b)
+				}
+			}
+		}
+		if len(u) >= 2 {
+			if lH, noisy := sideLine(u, hh); noisy {
+				lB, _ := sideLine(u, bb)
+				tp.T, tp.H, tp.B = u[0], lH.at(u[0]), lB.at(u[0])
+				return tp
+			}
+		}
 	}
 	var lu, lh, lb, ru, rh, rb []float64 // ordered from the tip outwards
 	for i := e - 1; i >= r.lo && len(lu) < tipSide; i-- {
@@ -209,10 +243,11 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 		}
 	}
 	ta := apex(lH, rH)
-	// The apex must lie between the samples next to the extreme one, and on
-	// smooth data beyond the extreme sample's H; otherwise the extreme
-	// sample is the tip.
-	if math.IsNaN(ta) || ta < lu[min(1, len(lu)-1)] || ta > ru[min(1, len(ru)-1)] {
+	// The apex must lie between the samples next to the extreme one (with
+	// noise: within the samples fitted), and on smooth data beyond the
+	// extreme sample's H; otherwise the extreme sample is the tip.
+	if math.IsNaN(ta) || smooth && (ta < lu[min(1, len(lu)-1)] || ta > ru[min(1, len(ru)-1)]) ||
+		ta < lu[len(lu)-1] || ta > ru[len(ru)-1] {
 		return tp
 	}
 	ha := (lH.at(ta) + rH.at(ta)) / 2

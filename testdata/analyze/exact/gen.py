@@ -142,7 +142,16 @@ def sweep(m, per_cycle, cycles, start="tip-fall", uneven=0.0, noise=(0.0, 0.0), 
     u, t = u0, 0.0
     end = u0 + 2 * cycles
     Hm = float(m.Hm)
-    while u <= end + 1e-9:
+    while True:
+        if u > end + 1e-9:
+            # the sweep stops at its programmed end: a last sample there
+            # when the uneven steps overshot it
+            if uneven and rows and abs(u_prev - end) > 1e-9:
+                t = t_prev + (end - u_prev) / du * 1e-3
+                u = end
+            else:
+                break
+        u_prev, t_prev = u, t
         k = math.floor(u + 1e-12)
         f = u - k
         if f < 1e-12:
@@ -153,6 +162,8 @@ def sweep(m, per_cycle, cycles, start="tip-fall", uneven=0.0, noise=(0.0, 0.0), 
         hn = float(h) + (rnd.gauss(0, noise[0]) if noise[0] else 0.0)
         bn = float(b) + offset + (rnd.gauss(0, noise[1]) if noise[1] else 0.0)
         rows.append((t, hn, bn))
+        if u == end:
+            break
         j = 1 + uneven * (2 * rnd.random() - 1) if uneven else 1.0
         u += du * j
         t += 1e-3 * j
