@@ -91,10 +91,32 @@ type variant struct {
 	src    *Source
 }
 
+// step is the index step between the variant's samples.
+func (v variant) step() int {
+	switch {
+	case v.parity >= 0:
+		return nSub
+	case v.half:
+		return 2
+	}
+	return 1
+}
+
+// from returns the variant's first sample index at or after i.
+func (v variant) from(i int) int {
+	for !v.keep(i) {
+		i++
+	}
+	return i
+}
+
 // keep reports whether sample i belongs to the variant.
 func (v variant) keep(i int) bool {
 	if v.parity >= 0 {
 		return i%nSub == v.parity
+	}
+	if v.src != nil {
+		return true
 	}
 	return !v.half || i%2 == 0
 }
@@ -121,6 +143,9 @@ type analysis struct {
 	loc      local
 	recoil   *rawCurve // recoil pieces after a complete falling branch
 	opt      Options
+	loss0    *float64 // the loss of all samples, once computed
+	nomVar   vals     // noise variances of the nominal readings
+	bhVar    float64  // noise variance of the last bhMax
 }
 
 // Figures computes every figure the data allow, in a fixed order (see the
@@ -157,10 +182,13 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 			continue
 		}
 		f := Figure{Name: name, Unit: Units[name], Value: v}
-		if name == FigLossJM3 || name == FigLossJKg {
-			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the integrals over the 4 interleaved subsets of samples, s/√4")
-		} else {
-			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the results from the 4 interleaved subsets of samples, s/√4")
+		switch vr, ok := a.nomVar[name]; {
+		case ok && !math.IsNaN(vr):
+			f.Budget.Add("noise", math.Sqrt(vr), "Type A: standard error of the local fits (or of the interpolation, with the noise of the samples near the reading), propagated")
+		case name == FigLossJM3 || name == FigLossJKg:
+			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the integrals over the 16 interleaved subsets of samples, s/√16")
+		default:
+			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the results from the 16 interleaved subsets of samples, s/√16")
 		}
 		f.Budget.Add("estimator", math.Abs(nom[name]-half[name])/math.Sqrt(3),
 			"Type B: change when every other sample is left out (interpolation error grows 4-fold, a local fit's noise 2-fold), rectangular")
@@ -169,6 +197,10 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 			f.Budget.Add("tip scatter", tipScatter(tips, func(tp Tip) float64 { return tp.H }), "Type A: scatter of the tips about their mean")
 		case FigBmax:
 			f.Budget.Add("tip scatter", tipScatter(tips, func(tp Tip) float64 { return tp.B }), "Type A: scatter of the tips about their mean")
+		case FigMuA:
+			uh := tipScatter(tips, func(tp Tip) float64 { return tp.H }) / nom[FigHmax]
+			ub := tipScatter(tips, func(tp Tip) float64 { return tp.B }) / nom[FigBmax]
+			f.Budget.Add("tip scatter", v*math.Hypot(uh, ub), "Type A: from the scatter of the tips' H and B, propagated")
 		}
 		for i, src := range opt.Sources {
 			f.Budget.Add(src.Name, math.Abs(srcs[i][name]-nom[name]), src.Note)
@@ -202,8 +234,10 @@ var notes = map[string]string{
 // whose results give the Type A noise estimate: with white noise, the
 // result of one subset varies nSub times as much as the result of all
 // samples, so u = s/√nSub with s the standard deviation of the subsets'
-// results (nSub − 1 degrees of freedom).
-const nSub = 4
+// results (nSub − 1 degrees of freedom). 16 subsets give 15 degrees of
+// freedom, for which k = 2 covers about 94 % (t distribution, GUM G.3);
+// 4 subsets (3 degrees of freedom) covered only about 86 %.
+const nSub = 16
 
 // scatter returns s/√n of the finite values, NaN with fewer than two.
 func scatter(x []float64) float64 {
@@ -364,41 +398,50 @@ func (a *analysis) eval(v variant) vals {
 	for _, n := range order {
 		out[n] = nan()
 	}
+	// nv collects the noise variances of the nominal readings (from the
+	// local fits and the noise near each reading).
+	nv := vals{}
 	// Tips.
-	var top, bot, topB, botB, nt, nbt float64
+	var top, bot, topB, botB, nt, nbt, vt, vb, vtB, vbB float64
 	for _, tp := range a.tipsOf(v) {
 		if tp.Top {
-			top, topB, nt = top+tp.H, topB+tp.B, nt+1
+			top, topB, nt, vt, vtB = top+tp.H, topB+tp.B, nt+1, vt+tp.vH, vtB+tp.vB
 		} else {
-			bot, botB, nbt = bot+tp.H, botB+tp.B, nbt+1
+			bot, botB, nbt, vb, vbB = bot+tp.H, botB+tp.B, nbt+1, vb+tp.vH, vbB+tp.vB
 		}
 	}
 	if nt > 0 && nbt > 0 {
 		out[FigHmax] = (top/nt - bot/nbt) / 2
 		out[FigBmax] = (topB/nt - botB/nbt) / 2
 		out[FigMuA] = out[FigBmax] / (units.Mu0 * out[FigHmax])
+		nv[FigHmax] = (vt/(nt*nt) + vb/(nbt*nbt)) / 4
+		nv[FigBmax] = (vtB/(nt*nt) + vbB/(nbt*nbt)) / 4
+		nv[FigMuA] = out[FigMuA] * out[FigMuA] * (nv[FigBmax]/(out[FigBmax]*out[FigBmax]) + nv[FigHmax]/(out[FigHmax]*out[FigHmax]))
 	}
 	var br, hcb, hcj []float64
 	var bh, bhB, bhH, hk, murec []float64
+	var vbr, vhcb, vhcj, vbh, vhk []float64
 	for k, c := range a.branches {
 		xbr, xhcb, xhcj, xhk := a.loc.crossings(k, v, c.dir == Falling)
+		cv := a.loc.crossVar
 		if !math.IsNaN(xbr) {
-			br = append(br, math.Abs(xbr))
+			br, vbr = append(br, math.Abs(xbr)), append(vbr, cv[crBr])
 		}
 		if !math.IsNaN(xhcb) {
-			hcb = append(hcb, math.Abs(xhcb))
+			hcb, vhcb = append(hcb, math.Abs(xhcb)), append(vhcb, cv[crHcB])
 		}
 		if !math.IsNaN(xhcj) {
-			hcj = append(hcj, math.Abs(xhcj))
+			hcj, vhcj = append(hcj, math.Abs(xhcj)), append(vhcj, cv[crHcJ])
 		}
 		if c.dir != Falling {
 			continue
 		}
 		if m, mb, mh := a.bhMax(k, v); m > 0 {
 			bh, bhB, bhH = append(bh, m), append(bhB, mb), append(bhH, math.Abs(mh))
+			vbh = append(vbh, a.bhVar)
 		}
 		if !math.IsNaN(xhk) && xhk < 0 {
-			hk = append(hk, -xhk)
+			hk, vhk = append(hk, -xhk), append(vhk, cv[crHk])
 		}
 		reach := -xhk / 2
 		if !(reach > 0) && !math.IsNaN(xhcb) {
@@ -411,8 +454,15 @@ func (a *analysis) eval(v variant) vals {
 	out[FigBr], out[FigHcB], out[FigHcJ] = meanOf(br), meanOf(hcb), meanOf(hcj)
 	out[FigBHmax], out[FigBHmaxB], out[FigBHmaxH] = meanOf(bh), meanOf(bhB), meanOf(bhH)
 	out[FigHk], out[FigMuRec] = meanOf(hk), meanOf(murec)
+	nv[FigBr], nv[FigHcB], nv[FigHcJ] = varOfMean(vbr), varOfMean(vhcb), varOfMean(vhcj)
+	nv[FigBHmax], nv[FigHk] = varOfMean(vbh), varOfMean(vhk)
 	if len(hk) > 0 && out[FigHcJ] > 0 {
 		out[FigSquareness] = out[FigHk] / out[FigHcJ]
+		sq := out[FigSquareness]
+		nv[FigSquareness] = sq * sq * (nv[FigHk]/(out[FigHk]*out[FigHk]) + nv[FigHcJ]/(out[FigHcJ]*out[FigHcJ]))
+	}
+	if v.parity < 0 && !v.half && v.src == nil {
+		a.nomVar = nv
 	}
 	out[FigLossJM3] = a.loss(v)
 	if a.opt.Density > 0 {
@@ -427,6 +477,18 @@ func (a *analysis) eval(v variant) vals {
 		}
 	}
 	return out
+}
+
+// varOfMean is the variance of the mean of readings of variances x.
+func varOfMean(x []float64) float64 {
+	if len(x) == 0 {
+		return nan()
+	}
+	s := 0.0
+	for _, v := range x {
+		s += v
+	}
+	return s / float64(len(x)*len(x))
 }
 
 func meanOf(x []float64) float64 {
@@ -463,10 +525,7 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 	im := -1
 	var prev pt
 	first := true
-	for i := lo; i <= hi; i++ {
-		if !v.keep(i) {
-			continue
-		}
+	for i := v.from(lo); i <= hi; i += v.step() {
 		p := a.sample(v, i)
 		if first {
 			prev, first = p, false
@@ -509,6 +568,7 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 		us, ps, hs, bs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h), append(bs, p.b)
 	}
 	a.loc.bt, a.loc.bx, a.loc.by, a.loc.bb = us, ps, hs, bs
+	a.bhVar = 0
 	q, ok := localFit(us, ps, jm)
 	if !ok {
 		// Smooth data: the cubics of H(t) and B(t) through four samples
@@ -540,6 +600,7 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 		return m, atB, atH
 	}
 	pv := q.at(uv)
+	a.bhVar = q.se2(uv)
 	hv := interpAt(us, hs, uv)
 	if f, ok := localFit(us, hs, jm); ok {
 		hv = f.at(uv)
@@ -579,10 +640,7 @@ func (a *analysis) slopeNearBr(k int, v variant, reach float64) float64 {
 	}
 	var n, sh, sb, shh, shb float64
 	stop := -reach - 0.05*a.span
-	for i := max(a.loc.start[k], ic-a.loc.window[k]); i <= a.loc.end[k]; i++ {
-		if !v.keep(i) {
-			continue
-		}
+	for i := v.from(max(a.loc.start[k], ic-a.loc.window[k])); i <= a.loc.end[k]; i += v.step() {
 		p := a.sample(v, i)
 		if p.h < stop {
 			break
@@ -638,8 +696,11 @@ func (a *analysis) loss(v variant) float64 {
 		step, parity = 2, 0
 	}
 	if v.src != nil && v.src.BT1 == 0 && v.src.BT2 == 0 {
-		w := loss(a.h, a.b, a.s, -1, 1)
-		return w * (1 + v.src.HScale) * (1 + v.src.BScale)
+		if a.loss0 == nil {
+			w := loss(a.h, a.b, a.s, -1, 1)
+			a.loss0 = &w
+		}
+		return *a.loss0 * (1 + v.src.HScale) * (1 + v.src.BScale)
 	}
 	if v.src != nil {
 		var w []float64

@@ -21,9 +21,9 @@ const (
 )
 
 // windowSamples is the half-width of a fit window in samples for a branch
-// of n samples: n/20, at least 24 and at most 500 (1000 samples average
+// of n samples: n/20, at least 24 and at most 250 (500 samples average
 // the noise well enough; more only widen the piece the parabolas follow).
-func windowSamples(n int) int { return min(500, max(24, n/20)) }
+func windowSamples(n int) int { return min(250, max(24, n/20)) }
 
 type local struct {
 	h, b   []float64
@@ -35,6 +35,9 @@ type local struct {
 	window []int
 	// scratch buffers of read
 	bt, bx, by, bb []float64
+	// lastVar is the noise variance of the last reading of read.
+	lastVar  float64
+	crossVar [nCross]float64
 }
 
 // medianCrossing returns the index i (start ≤ i < end) of the median sign
@@ -156,10 +159,19 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 	}
 	f := (x0 - xs[js-1]) / (xs[js] - xs[js-1])
 	u := ts[js-1] + f*(ts[js]-ts[js-1])
+	// Noise near the crossing, for the standard error of a reading by
+	// interpolation (weights f and 1 − f).
+	nlo, nhi := max(0, js-2*minWindow), min(n, js+2*minWindow)
+	w2 := f*f + (1-f)*(1-f)
+	dxdu := (xs[js] - xs[js-1]) / (ts[js] - ts[js-1])
+	varU := interpNoise(ts[nlo:nhi], xs[nlo:nhi]) * w2 / (dxdu * dxdu)
 	qx, noisyX := localFit(ts, xs, js)
 	if noisyX {
 		if r := quadRoot(qx, x0, u); !math.IsNaN(r) {
 			u = r
+			if sl := qx.slope(u); sl != 0 {
+				varU = qx.se2(u) / (sl * sl)
+			}
 		}
 	}
 	jy := js
@@ -170,8 +182,13 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 		jy++
 	}
 	if q, ok := localFit(ts, ys, jy); ok {
+		sl := q.slope(u)
+		l.lastVar = q.se2(u) + sl*sl*varU
 		return q.at(u)
 	}
+	j0 := max(jy, 1)
+	dydu := (ys[j0] - ys[j0-1]) / (ts[j0] - ts[j0-1])
+	l.lastVar = interpNoise(ts[nlo:nhi], ys[nlo:nhi])*w2 + dydu*dydu*varU
 	if !noisyX {
 		// Smooth data: the cubics through the four samples around the
 		// crossing refine the straight line.
@@ -184,18 +201,25 @@ func (l *local) read(k int, v variant, cr int, get func(pt) (x, y float64), x0 f
 
 // crossings reads Br, HcB, HcJ and (falling branches) Hk of branch k for a
 // variant, as signed values; NaN where not found.
+// The noise variances of the readings are left in l.crossVar (Br, HcB,
+// HcJ, Hk).
 func (l *local) crossings(k int, v variant, falling bool) (br, hcb, hcj, hk float64) {
 	hb := func(p pt) (float64, float64) { return p.h, p.b }                 // B at H = x0
 	hj := func(p pt) (float64, float64) { return p.h, p.b - units.Mu0*p.h } // J at H = x0
 	bh := func(p pt) (float64, float64) { return p.b, p.h }                 // H at B = x0
 	jh := func(p pt) (float64, float64) { return p.b - units.Mu0*p.h, p.h } // H at J = x0
+	l.crossVar = [nCross]float64{}
 	br = l.read(k, v, crBr, hb, 0)
+	l.crossVar[crBr] = l.lastVar
 	hcb = l.read(k, v, crHcB, bh, 0)
+	l.crossVar[crHcB] = l.lastVar
 	hcj = l.read(k, v, crHcJ, jh, 0)
+	l.crossVar[crHcJ] = l.lastVar
 	hk = nan()
 	if falling {
 		if jr := l.read(k, v, crBr, hj, 0); jr > 0 {
 			hk = l.read(k, v, crHk, jh, 0.9*jr)
+			l.crossVar[crHk] = l.lastVar
 		}
 	}
 	return

@@ -46,9 +46,13 @@ type Tip struct {
 	T     float64
 	H, B  float64
 	N     int // samples used on both sides
-	// UB is a standard uncertainty of B at the tip: half the difference of
-	// B read at the apex on the two sides; 0 when the tip is a sample.
+	// UB is a standard uncertainty of B at the tip: the standard error of
+	// the lines at the apex combined with half the difference of B read on
+	// the two sides; 0 when the tip is a sample of smooth data.
 	UB float64
+	// vH, vB are the noise variances of H and B from the line fits (0 on
+	// smooth data).
+	vH, vB float64
 }
 
 // Shape is the branch structure of one recorded loop.

@@ -19,7 +19,8 @@ import "math"
 // residuals of exact values written with 15–17 digits, or of sums of them.
 const roundOff = 1e-11
 
-// interpNoise returns the estimate of the noise variance of v(u): the mean
+// interpNoise returns the estimate of the noise variance of v(u) (u
+// ascending or descending): the mean
 // square residual of each sample from the parabola through its neighbours
 // i−1, i+1 and i+2, divided by the residual's variance factor for white
 // noise (1 + Σ w², w the Lagrange weights), so that white noise of
@@ -33,7 +34,7 @@ func interpNoise(u, v []float64) float64 {
 	}
 	for i := 1; i+2 < len(u); i++ {
 		a, b, c, x := u[i-1], u[i+1], u[i+2], u[i]
-		if !(a < x && x < b && b < c) {
+		if !(a < x && x < b && b < c) && !(a > x && x > b && b > c) {
 			continue
 		}
 		wa := (x - b) * (x - c) / ((a - b) * (a - c))
@@ -52,6 +53,7 @@ func interpNoise(u, v []float64) float64 {
 // quad is a least-squares parabola c0 + c1·x + c2·x² in x = (u − uc)/scale.
 type quad struct {
 	c         [3]float64
+	inv       [3][3]float64 // inverse of the normal matrix, for the standard error
 	uc, scale float64
 	s2        float64 // residual variance ss/(n − 3)
 	n         int
@@ -61,6 +63,26 @@ type quad struct {
 func (q quad) at(u float64) float64 {
 	x := (u - q.uc) / q.scale
 	return q.c[0] + x*(q.c[1]+x*q.c[2])
+}
+
+// slope returns dv/du of the parabola at u.
+func (q quad) slope(u float64) float64 {
+	x := (u - q.uc) / q.scale
+	return (q.c[1] + 2*q.c[2]*x) / q.scale
+}
+
+// se2 returns the variance of the fitted value at u from the residual
+// scatter: s²·xᵀ(XᵀX)⁻¹x with x = (1, x, x²).
+func (q quad) se2(u float64) float64 {
+	x := (u - q.uc) / q.scale
+	z := [3]float64{1, x, x * x}
+	g := 0.0
+	for i := range 3 {
+		for j := range 3 {
+			g += z[i] * q.inv[i][j] * z[j]
+		}
+	}
+	return q.s2 * math.Max(g, 0)
 }
 
 // fitQuad fits the parabola to (u[i], v[i]) for lo ≤ i ≤ hi.
@@ -86,11 +108,20 @@ func fitQuad(u, v []float64, lo, hi int) (quad, bool) {
 			xp *= x
 		}
 	}
-	c, ok := solve3([3][3]float64{{s[0], s[1], s[2]}, {s[1], s[2], s[3]}, {s[2], s[3], s[4]}}, r)
+	nm := [3][3]float64{{s[0], s[1], s[2]}, {s[1], s[2], s[3]}, {s[2], s[3], s[4]}}
+	c, ok := solve3(nm, r)
 	if !ok {
 		return quad{}, false
 	}
 	q.c = c
+	for k := range 3 {
+		var e [3]float64
+		e[k] = 1
+		col, _ := solve3(nm, e)
+		for i := range 3 {
+			q.inv[i][k] = col[i]
+		}
+	}
 	ss := 0.0
 	for i := lo; i <= hi; i++ {
 		e := v[i] - q.at(u[i])
@@ -104,7 +135,7 @@ func fitQuad(u, v []float64, lo, hi int) (quad, bool) {
 // noise variance s2 alone: within twice the relative standard deviation
 // √(2/(n−3)) of a variance estimated from n − 3 degrees of freedom.
 func accepts(q quad, s2 float64) bool {
-	return q.s2 <= s2*(1+2*math.Sqrt(2/float64(q.n-3)))
+	return q.s2 <= s2*(1+1*math.Sqrt(2/float64(q.n-3)))
 }
 
 // minWindow is the smallest half-width (in samples) of a local fit: a
@@ -226,6 +257,15 @@ func cubic4(u, v []float64, j int, x float64) float64 {
 	return s
 }
 
+// jump reports whether the step of v between samples j and j+1 is out of
+// proportion with the steps on either side (more than 4 times the larger,
+// or 16 times the smaller): a jump, such as J switching in a square loop,
+// which no cubic through the four samples follows.
+func jump(v []float64, j int) bool {
+	d1, d2, d3 := math.Abs(v[j]-v[j-1]), math.Abs(v[j+1]-v[j]), math.Abs(v[j+2]-v[j+1])
+	return d2 > 4*math.Max(d1, d3) || d2 > 16*math.Min(d1, d3)
+}
+
 // monotone4 reports whether v[j−1..j+2] is strictly monotone.
 func monotone4(v []float64, j int) bool {
 	up := v[j] > v[j-1] && v[j+1] > v[j] && v[j+2] > v[j+1]
@@ -238,7 +278,7 @@ func monotone4(v []float64, j int) bool {
 // ok is false when the four samples of x are not monotone or not all
 // present.
 func cubicCross(u, x, y []float64, j int, x0 float64) (float64, float64, bool) {
-	if j < 1 || j+2 >= len(u) || !monotone4(x, j) {
+	if j < 1 || j+2 >= len(u) || !monotone4(x, j) || jump(x, j) || jump(y, j) {
 		return 0, 0, false
 	}
 	a, b := u[j], u[j+1]

@@ -70,12 +70,23 @@ func (s Shape) tipRefs() []tipRef {
 
 // tipSide is at most this many samples: the sweep near a tip is straight
 // over far fewer, and the noise is averaged enough.
-const tipSide = 400
+const tipSide = 200
 
-// line is v = a + b·(u − u0).
-type line struct{ a, b, u0, s2 float64 }
+// line is v = a + b·(u − u0), fitted to n points of mean ū and
+// Σ(u − ū)² = sxx with residual variance s2.
+type line struct{ a, b, u0, s2, n, ubar, sxx, bias2 float64 }
 
 func (l line) at(u float64) float64 { return l.a + l.b*(u-l.u0) }
+
+// se2 returns the variance of the fitted value at u, with the square of
+// the curvature bias the window may leave (estimator error).
+func (l line) se2(u float64) float64 {
+	if l.n < 3 || !(l.sxx > 0) {
+		return 0
+	}
+	d := u - l.ubar
+	return l.s2*(1/l.n+d*d/l.sxx) + l.bias2
+}
 
 // fitLine fits a least-squares line to the first n points.
 func fitLine(u, v []float64, n int) line {
@@ -94,7 +105,7 @@ func fitLine(u, v []float64, n int) line {
 		return line{a: sv / fn, u0: u0}
 	}
 	b := (fn*suv - su*sv) / den
-	l := line{a: (sv - b*su) / fn, b: b, u0: u0}
+	l := line{a: (sv - b*su) / fn, b: b, u0: u0, n: fn, ubar: u0 + su/fn, sxx: suu - su*su/fn}
 	ss := 0.0
 	for i := 0; i < n; i++ {
 		e := v[i] - l.at(u[i])
@@ -119,15 +130,17 @@ func sideLine(u, v []float64) (l line, noisy bool) {
 	two := fitLine(u, v, 2)
 	miss := 0 // windows rejected in a row: two end the search (one may be chance)
 	for m := 2 * minWindow; m <= n && miss < 2; m = m*3/2 + 1 {
-		s2 := interpNoiseAny(u[:m], v[:m])
+		s2 := interpNoise(u[:m], v[:m])
 		if !(s2 > 0) {
 			break
 		}
 		q := fitLine(u, v, m)
-		if q.s2 > s2*(1+2*math.Sqrt(2/float64(m-2))) {
+		bent, bias := curved(u, v, m)
+		if q.s2 > s2*(1+2*math.Sqrt(2/float64(m-2))) || bent {
 			miss++
 			continue
 		}
+		q.bias2 = bias * bias
 		l, noisy, miss = q, true, 0
 	}
 	if !noisy {
@@ -136,16 +149,22 @@ func sideLine(u, v []float64) (l line, noisy bool) {
 	return l, true
 }
 
-// interpNoiseAny is interpNoise for points ordered either way in u.
-func interpNoiseAny(u, v []float64) float64 {
-	if len(u) > 1 && u[1] < u[0] {
-		nu := make([]float64, len(u))
-		for i := range u {
-			nu[i] = -u[i]
-		}
-		return interpNoise(nu, v)
+// curved reports whether a parabola through the first m points has a
+// quadratic term more than twice its standard error: the line would be
+// biased at the tip by more than its own noise.
+// bias is the size of the line's error at the tip that the quadratic term
+// would cause: a line fitted to c·x² over 0 ≤ x ≤ L misses it at x = 0 by
+// c·L²/6, which is 2/3 of the term in the parabola's scaled coordinate.
+func curved(u, v []float64, m int) (bool, float64) {
+	x := make([]float64, m)
+	for i := range x {
+		x[i] = math.Abs(u[i] - u[0])
 	}
-	return interpNoise(u, v)
+	q, ok := fitQuad(x, v, 0, m-1)
+	if !ok {
+		return false, 0
+	}
+	return math.Abs(q.c[2]) > 2*math.Sqrt(q.s2*math.Max(q.inv[2][2], 0)), 2 * math.Abs(q.c[2]) / 3
 }
 
 // readTip finds the apex of the tip r (see Tips) among the samples that
@@ -184,6 +203,8 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 			if lH, noisy := sideLine(u, hh); noisy {
 				lB, _ := sideLine(u, bb)
 				tp.T, tp.H, tp.B = u[0], lH.at(u[0]), lB.at(u[0])
+				tp.vH, tp.vB = lH.se2(u[0]), lB.se2(u[0])
+				tp.UB = math.Sqrt(tp.vB)
 				return tp
 			}
 		}
@@ -255,6 +276,11 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 		return tp
 	}
 	tp.T, tp.H, tp.N = ta, ha, len(lu)+len(ru)
+	// H at the intersection of y1 = a1 + b1·t and y2 = a2 + b2·t varies as
+	// (b2²·var y1 + b1²·var y2)/(b2 − b1)² at the apex.
+	if d := rH.b - lH.b; d != 0 {
+		tp.vH = (rH.b*rH.b*lH.se2(ta) + lH.b*lH.b*rH.se2(ta)) / (d * d)
+	}
 	if smooth && keep(e) && math.Abs(tm(e)-ta) <= 1e-6*math.Abs(ru[0]-lu[0]) {
 		tp.T, tp.H, tp.B = tm(e), he, be // the extreme sample is the apex
 		return tp
@@ -263,7 +289,8 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 	rB, _ := sideLine(ru, rb)
 	bl, br := lB.at(ta), rB.at(ta)
 	tp.B = (bl + br) / 2
-	tp.UB = math.Abs(bl-br) / 2
+	tp.vB = (lB.se2(ta) + rB.se2(ta)) / 4
+	tp.UB = math.Sqrt(tp.vB + (bl-br)*(bl-br)/4)
 	return tp
 }
 

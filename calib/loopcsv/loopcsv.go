@@ -252,6 +252,18 @@ func (n Num) MarshalJSON() ([]byte, error) {
 	return []byte(strconv.FormatFloat(float64(n), 'g', 7, 64)), nil
 }
 
+// UNum is an expanded uncertainty for JSON: two significant digits (GUM
+// 7.2.6), null when not available.
+type UNum float64
+
+// MarshalJSON implements json.Marshaler.
+func (n UNum) MarshalJSON() ([]byte, error) {
+	if math.IsNaN(float64(n)) || math.IsInf(float64(n), 0) {
+		return []byte("null"), nil
+	}
+	return []byte(strconv.FormatFloat(float64(n), 'g', 2, 64)), nil
+}
+
 // Summary holds the figures `hystd analyze --json` prints, in SI units.
 // Negative-branch values are magnitudes averaged over both branches;
 // BHmax is the 2nd-quadrant maximum of |B·H|. Each key has a twin ending in
@@ -267,14 +279,14 @@ type Summary struct {
 	MuA       Num  `json:"mu_a"`
 	LossJM3   Num  `json:"loss_j_m3"`
 	BHmaxJM3  Num  `json:"bhmax_j_m3"`
-	HmaxAMU   Num  `json:"hmax_a_m_u"`
-	BmaxTU    Num  `json:"bmax_t_u"`
-	BrTU      Num  `json:"br_t_u"`
-	HcBAMU    Num  `json:"hcb_a_m_u"`
-	HcJAMU    Num  `json:"hcj_a_m_u"`
-	MuAU      Num  `json:"mu_a_u"`
-	LossJM3U  Num  `json:"loss_j_m3_u"`
-	BHmaxJM3U Num  `json:"bhmax_j_m3_u"`
+	HmaxAMU   UNum `json:"hmax_a_m_u"`
+	BmaxTU    UNum `json:"bmax_t_u"`
+	BrTU      UNum `json:"br_t_u"`
+	HcBAMU    UNum `json:"hcb_a_m_u"`
+	HcJAMU    UNum `json:"hcj_a_m_u"`
+	MuAU      UNum `json:"mu_a_u"`
+	LossJM3U  UNum `json:"loss_j_m3_u"`
+	BHmaxJM3U UNum `json:"bhmax_j_m3_u"`
 	Centred   bool `json:"centred"`
 	BOffsetT  Num  `json:"b_offset_t"`
 }
@@ -348,13 +360,13 @@ func Analyze(d Data, name string, opts ...AnalyzeOptions) (Result, error) {
 	if err != nil {
 		return Result{}, &Error{File: name, Msg: err.Error()}
 	}
-	get := func(n string) (Num, Num) {
+	get := func(n string) (Num, UNum) {
 		for _, f := range fs {
 			if f.Name == n {
-				return Num(f.Value), Num(f.U)
+				return Num(f.Value), UNum(f.U)
 			}
 		}
-		return Num(math.NaN()), Num(math.NaN())
+		return Num(math.NaN()), UNum(math.NaN())
 	}
 	var sm Summary
 	sm.HmaxAM, sm.HmaxAMU = get(loop.FigHmax)
