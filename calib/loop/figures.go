@@ -143,9 +143,11 @@ type analysis struct {
 	loc      local
 	recoil   *rawCurve // recoil pieces after a complete falling branch
 	opt      Options
-	loss0    *float64 // the loss of all samples, once computed
-	nomVar   vals     // noise variances of the nominal readings
-	bhVar    float64  // noise variance of the last bhMax
+	loss0    *float64        // the loss of all samples, once computed
+	nomVar   vals            // noise variances of the nominal readings
+	reach    map[int]float64 // nominal recoil range per falling branch
+	lossPar  *[nSub]float64  // the loss of each subset, once computed
+	bhVar    float64         // noise variance of the last bhMax
 }
 
 // Figures computes every figure the data allow, in a fixed order (see the
@@ -305,7 +307,7 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 	if len(comp) == 0 {
 		return nil, ErrNoBranch
 	}
-	a := &analysis{span: s.Hi - s.Lo, t: t, h: h, b: b, s: s, opt: opt}
+	a := &analysis{span: s.Hi - s.Lo, t: t, h: h, b: b, s: s, opt: opt, reach: map[int]float64{}}
 	if t != nil {
 		a.t0 = t[0]
 	}
@@ -403,7 +405,15 @@ func (a *analysis) eval(v variant) vals {
 	nv := vals{}
 	// Tips.
 	var top, bot, topB, botB, nt, nbt, vt, vb, vtB, vbB float64
-	for _, tp := range a.tipsOf(v) {
+	// A subset of samples (parity) serves only the figures whose noise is
+	// not evaluated from the nominal reading's own fit: the tips and the
+	// crossings are skipped for it.
+	lite := v.parity >= 0
+	var tips []Tip
+	if !lite {
+		tips = a.tipsOf(v)
+	}
+	for _, tp := range tips {
 		if tp.Top {
 			top, topB, nt, vt, vtB = top+tp.H, topB+tp.B, nt+1, vt+tp.vH, vtB+tp.vB
 		} else {
@@ -422,7 +432,10 @@ func (a *analysis) eval(v variant) vals {
 	var bh, bhB, bhH, hk, murec []float64
 	var vbr, vhcb, vhcj, vbh, vhk []float64
 	for k, c := range a.branches {
-		xbr, xhcb, xhcj, xhk := a.loc.crossings(k, v, c.dir == Falling)
+		xbr, xhcb, xhcj, xhk := nan(), nan(), nan(), nan()
+		if !lite {
+			xbr, xhcb, xhcj, xhk = a.loc.crossings(k, v, c.dir == Falling)
+		}
 		cv := a.loc.crossVar
 		if !math.IsNaN(xbr) {
 			br, vbr = append(br, math.Abs(xbr)), append(vbr, cv[crBr])
@@ -446,6 +459,11 @@ func (a *analysis) eval(v variant) vals {
 		reach := -xhk / 2
 		if !(reach > 0) && !math.IsNaN(xhcb) {
 			reach = math.Abs(xhcb) / 4
+		}
+		if lite {
+			reach = a.reach[k]
+		} else if v.src == nil && !v.half {
+			a.reach[k] = reach
 		}
 		if mu := a.slopeNearBr(k, v, reach); !math.IsNaN(mu) {
 			murec = append(murec, mu)
@@ -691,7 +709,11 @@ func (a *analysis) loss(v variant) float64 {
 	step, parity := 1, -1
 	switch {
 	case v.parity >= 0:
-		step, parity = nSub, v.parity
+		if a.lossPar == nil {
+			lp := lossSubsets(a.h, a.b, a.s)
+			a.lossPar = &lp
+		}
+		return a.lossPar[v.parity]
 	case v.half:
 		step, parity = 2, 0
 	}
@@ -723,6 +745,37 @@ func (a *analysis) loss(v variant) float64 {
 		return meanOf(w)
 	}
 	return loss(a.h, a.b, a.s, parity, step)
+}
+
+// lossSubsets returns loss(h, b, s, p, nSub) for every subset p, in one
+// pass over the samples.
+func lossSubsets(h, b []float64, s Shape) [nSub]float64 {
+	var sum, n [nSub]float64
+	for _, cy := range s.Cycles() {
+		i0, i1 := cy[0].Start, cy[1].End
+		var w [nSub]float64
+		for i := i0; i+nSub <= i1; i++ {
+			w[i%nSub] += (h[i] + h[i+nSub]) / 2 * (b[i+nSub] - b[i])
+		}
+		for p := range nSub {
+			first := i0 + ((p-i0)%nSub+nSub)%nSub
+			if i1-first < 2*nSub {
+				continue
+			}
+			last := first + (i1-first)/nSub*nSub
+			w[p] += (h[last] + h[first]) / 2 * (b[first] - b[last])
+			sum[p] += w[p]
+			n[p]++
+		}
+	}
+	var out [nSub]float64
+	for p := range out {
+		out[p] = sum[p] / n[p]
+		if n[p] == 0 {
+			out[p] = nan()
+		}
+	}
+	return out
 }
 
 // loss integrates ∮H dB with the trapezoid rule over each full cycle of the
