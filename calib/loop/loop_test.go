@@ -277,6 +277,21 @@ func TestRecoil(t *testing.T) {
 	checkFigures(t, "recoil", tt, h, b, Options{}, []want{
 		{FigMuRec, 1.05, 1e-9}, {FigBr, 1.3, 1e-6}, {FigBHmax, 320.2e3, 1e-3},
 	})
+	// B stays above 0.51 T down to −0.6 MA/m (1.3 T − μ0·1.05·0.6 MA/m):
+	// no coercivity may be reported.
+	s, err := Detect(h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fs, err := Figures(tt, h, b, s, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range fs {
+		if f.Name == FigHcB || f.Name == FigHcJ {
+			t.Errorf("recoil: %s = %g reported, but B and J never reach 0", f.Name, f.Value)
+		}
+	}
 }
 
 // TestCoverage repeats the noisy tanh loop with 40 noise draws: the exact
