@@ -143,10 +143,10 @@ type analysis struct {
 	loc      local
 	recoil   *rawCurve // recoil pieces after a complete falling branch
 	opt      Options
-	loss0    *float64        // the loss of all samples, once computed
 	nomVar   vals            // noise variances of the nominal readings
 	reach    map[int]float64 // nominal recoil range per falling branch
 	lossPar  *[nSub]float64  // the loss of each subset, once computed
+	lossT    *[3]float64     // ∮h db, ∮h dt, ∮h d(t²) over the cycles (means)
 	bhVar    float64         // noise variance of the last bhMax
 }
 
@@ -717,34 +717,50 @@ func (a *analysis) loss(v variant) float64 {
 	case v.half:
 		step, parity = 2, 0
 	}
-	if v.src != nil && v.src.BT1 == 0 && v.src.BT2 == 0 {
-		if a.loss0 == nil {
-			w := loss(a.h, a.b, a.s, -1, 1)
-			a.loss0 = &w
-		}
-		return *a.loss0 * (1 + v.src.HScale) * (1 + v.src.BScale)
-	}
 	if v.src != nil {
-		var w []float64
-		for _, cy := range a.s.Cycles() {
-			i0, i1 := cy[0].Start, cy[1].End
-			if i1-i0 < 2 {
-				continue
-			}
-			sum := 0.0
-			p0 := a.sample(v, i0)
-			prev := p0
-			for i := i0 + 1; i <= i1; i++ {
-				p := a.sample(v, i)
-				sum += (prev.h + p.h) / 2 * (p.b - prev.b)
-				prev = p
-			}
-			sum += (prev.h + p0.h) / 2 * (p0.b - prev.b)
-			w = append(w, sum)
+		// The loss is linear in each perturbation: with b' = b·(1+BScale) +
+		// BShift + BT1·(t−T0) + BT2·(t−T0)² and h' = h·(1+HScale) + HShift,
+		// ∮h' db' = (1+HScale)·[(1+BScale)·∮h db + BT1·∮h dt +
+		// BT2·(∮h d(t²) − 2·T0·∮h dt)] around each closed cycle (∮db' = 0).
+		if a.lossT == nil {
+			w0, l1, l2 := lossMoments(a.h, a.b, a.loc.tm, a.s)
+			a.lossT = &[3]float64{w0, l1, l2}
 		}
-		return meanOf(w)
+		w0, l1, l2 := a.lossT[0], a.lossT[1], a.lossT[2]
+		src := v.src
+		return (1 + src.HScale) * ((1+src.BScale)*w0 + src.BT1*l1 + src.BT2*(l2-2*src.T0*l1))
 	}
 	return loss(a.h, a.b, a.s, parity, step)
+}
+
+// lossMoments returns the means over full cycles of ∮h db, ∮h dt and
+// ∮h d(t²), each with the trapezoid rule and the closing straight piece.
+func lossMoments(h, b []float64, tm func(int) float64, s Shape) (w, l1, l2 float64) {
+	n := 0.0
+	for _, cy := range s.Cycles() {
+		i0, i1 := cy[0].Start, cy[1].End
+		if i1-i0 < 2 {
+			continue
+		}
+		var a0, a1, a2 float64
+		for i := i0; i < i1; i++ {
+			hm := (h[i] + h[i+1]) / 2
+			t0, t1 := tm(i), tm(i+1)
+			a0 += hm * (b[i+1] - b[i])
+			a1 += hm * (t1 - t0)
+			a2 += hm * (t1*t1 - t0*t0)
+		}
+		hm := (h[i1] + h[i0]) / 2
+		t0, t1 := tm(i1), tm(i0)
+		a0 += hm * (b[i0] - b[i1])
+		a1 += hm * (t1 - t0)
+		a2 += hm * (t1*t1 - t0*t0)
+		w, l1, l2, n = w+a0, l1+a1, l2+a2, n+1
+	}
+	if n == 0 {
+		return nan(), nan(), nan()
+	}
+	return w / n, l1 / n, l2 / n
 }
 
 // lossSubsets returns loss(h, b, s, p, nSub) for every subset p, in one

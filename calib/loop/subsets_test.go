@@ -25,3 +25,32 @@ func TestLossSubsets(t *testing.T) {
 		}
 	}
 }
+
+// TestLossOfPerturbation: the loss of a perturbed loop from the moments
+// (∮h db, ∮h dt, ∮h d(t²)) equals the loss integrated on the perturbed
+// samples themselves.
+func TestLossOfPerturbation(t *testing.T) {
+	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 3001, Start: "zero", Uneven: 0.3, NoiseH: 0.2, NoiseB: 1e-3, Draw: 5}
+	tt, h, b := sw.Generate(tanhLoop)
+	s, err := Detect(h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	src := Source{HScale: 1e-3, HShift: 0.7, BScale: -2e-3, BShift: 0.01, BT1: 3e-4, BT2: -2e-5, T0: 0.8}
+	a, err := build(tt, h, b, s, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := a.loss(variant{parity: -1, src: &src})
+	hp := make([]float64, len(h))
+	bp := make([]float64, len(b))
+	for i := range h {
+		d := tt[i] - tt[0] - src.T0
+		hp[i] = h[i]*(1+src.HScale) + src.HShift
+		bp[i] = b[i]*(1+src.BScale) + src.BShift + src.BT1*d + src.BT2*d*d
+	}
+	want := loss(hp, bp, s, -1, 1)
+	if math.Abs(got-want) > 1e-9*math.Abs(want) {
+		t.Errorf("loss of the perturbed loop %.12g from the moments, %.12g on the samples", got, want)
+	}
+}
