@@ -167,6 +167,21 @@ func TestBadInputMessages(t *testing.T) {
 	if _, err := run("soft-si.csv", Options{HUnit: "furlong"}, true); err == nil || !strings.Contains(err.Error(), "--h-unit") {
 		t.Errorf("bad unit: %v", err)
 	}
+	for _, tc := range []struct {
+		data string
+		opt  Options
+		want string
+	}{
+		{"H (furlong),B\n1,1\n", Options{}, `x.csv: line 1: column H: unit "furlong"`},
+		{"H (Oe);B [T]\n1;1\n", Options{HUnit: "A/m"}, `x.csv:1: column H: the header says "Oe", the option --h-unit "A/m"`},
+		{"t (h),H,B\n1,1,1\n", Options{}, `x.csv:1: column t: unit "h": want s or ms`},
+		{"H;B\n1;abc\n", Options{}, `x.csv:2: column B: "abc" is not a finite number`},
+	} {
+		_, err := Read(strings.NewReader(tc.data), "x.csv", tc.opt)
+		if err == nil || !strings.Contains(err.Error(), tc.want) {
+			t.Errorf("%q: %v, want %q", tc.data, err, tc.want)
+		}
+	}
 }
 
 // TestAgainstAnalytic checks the golden JSON outputs (what analyze prints)
@@ -262,6 +277,27 @@ func TestAgainstAnalytic(t *testing.T) {
 			t.Errorf("%s = %.7g, want %.7g (rel err %.2g > %.2g)", c.key, c.got, c.want, e, c.tol)
 		} else {
 			t.Logf("%s = %.7g, exact %.7g (rel err %.2g)", c.key, c.got, c.want, e)
+		}
+	}
+}
+
+// TestRounded: U to two significant digits and the value to the same
+// decimal place (GUM, JCGM 100:2008, 7.2.6).
+func TestRounded(t *testing.T) {
+	for _, tc := range []struct {
+		v, u         float64
+		wantV, wantU string
+	}{
+		{1.2717561, 0.0028477, "1.2718", "0.0028"},
+		{999.6952, 1.068, "999.7", "1.1"},
+		{320204.6, 2834, "320200", "2800"},
+		{0.5, 0.0996, "0.50", "0.10"},
+		{-50.0116, 0.0198, "-50.012", "0.020"},
+		{12345.678, 0, "12345.7", "0"},
+	} {
+		v, u := Rounded(tc.v, tc.u)
+		if v != tc.wantV || u != tc.wantU {
+			t.Errorf("Rounded(%g, %g) = %s, %s; want %s, %s", tc.v, tc.u, v, u, tc.wantV, tc.wantU)
 		}
 	}
 }
