@@ -321,7 +321,7 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 	for _, g := range s.Segments {
 		if g.Complete {
 			a.branches = append(a.branches, branch{start: g.Start, end: g.End, dir: g.Dir})
-			a.loc.addBranch(g.Start, g.End)
+			a.loc.addBranch(g.Start, g.End, g.Dir)
 		} else if g.Initial && opt.InitialCurve {
 			rc := &rawCurve{dir: g.Dir, h: h[g.Start : g.End+1], b: b[g.Start : g.End+1], start: g.Start}
 			rc.t = make([]float64, len(rc.h))

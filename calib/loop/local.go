@@ -61,21 +61,28 @@ func medianCrossing(start, end int, q func(int) float64, ok func(int) bool) int 
 
 // zeroCrossings returns, in one pass, the median index of the sign changes
 // of H, of B and of J = B − μ0·H between consecutive samples in
-// [start, end], each −1 when there is none (see medianCrossing).
-func zeroCrossings(h, b []float64, start, end int) (ih, ib, ij int) {
+// [start, end], each −1 when there is none (see medianCrossing). B and J
+// count only where they cross on the side of H = 0 a coercivity lies on:
+// H ≤ 0 on a falling branch (dir −1), H ≥ 0 on a rising one, so that a
+// curve whose level puts B = 0 near its start tip reports no coercivity.
+func zeroCrossings(h, b []float64, start, end, dir int) (ih, ib, ij int) {
 	var xh, xb, xj []int
 	ph, pb := h[start], b[start]
 	pj := pb - units.Mu0*ph
 	for i := start; i < end; i++ {
 		nh, nb := h[i+1], b[i+1]
 		nj := nb - units.Mu0*nh
+		side := float64(dir)*ph >= 0 || float64(dir)*nh >= 0 // H on the coercive side
+		if dir == 0 {
+			side = true
+		}
 		if (ph <= 0 && nh > 0) || (ph >= 0 && nh < 0) {
 			xh = append(xh, i)
 		}
-		if (pb <= 0 && nb > 0) || (pb >= 0 && nb < 0) {
+		if side && ((pb <= 0 && nb > 0) || (pb >= 0 && nb < 0)) {
 			xb = append(xb, i)
 		}
-		if (pj <= 0 && nj > 0) || (pj >= 0 && nj < 0) {
+		if side && ((pj <= 0 && nj > 0) || (pj >= 0 && nj < 0)) {
 			xj = append(xj, i)
 		}
 		ph, pb, pj = nh, nb, nj
@@ -89,13 +96,13 @@ func zeroCrossings(h, b []float64, start, end int) (ih, ib, ij int) {
 	return med(xh), med(xb), med(xj)
 }
 
-func (l *local) addBranch(start, end int) {
+func (l *local) addBranch(start, end, dir int) {
 	k := len(l.start)
 	l.start, l.end = append(l.start, start), append(l.end, end)
 	l.window = append(l.window, windowSamples(end-start+1))
 	var c [nCross]int
 	h, b := l.h, l.b
-	c[crBr], c[crHcB], c[crHcJ] = zeroCrossings(h, b, start, end)
+	c[crBr], c[crHcB], c[crHcJ] = zeroCrossings(h, b, start, end, dir)
 	c[crHk] = -1
 	l.cross = append(l.cross, c)
 	l.jr0 = append(l.jr0, nan())

@@ -54,3 +54,34 @@ func TestLossOfPerturbation(t *testing.T) {
 		t.Errorf("loss of the perturbed loop %.12g from the moments, %.12g on the samples", got, want)
 	}
 }
+
+// TestNoCoercivityOnTheWrongSide: a demagnetization curve of the
+// straight-line magnet (REFERENCE §10 item 12) anchored at B = 0 at its
+// start tip (a level from a demagnetized start applied to a curve that did
+// not start demagnetized) has B = 0 only at H = +2 MA/m, in the first
+// quadrant: no HcB or HcJ may be read there.
+func TestNoCoercivityOnTheWrongSide(t *testing.T) {
+	l := synth.Magnet{Br: 1.3, MuRec: 1.05, Hsw: 1.2e6}
+	var tt, h, b []float64
+	for i := 0; i <= 2600; i++ {
+		hv := 2e6 - 1e3*float64(i)
+		tt, h, b = append(tt, float64(i)*1e-3), append(h, hv), append(b, l.B(hv, -1)-l.B(2e6, -1))
+	}
+	for i := 1; i <= 600; i++ { // recoil towards H = 0
+		hv := -0.6e6 + 1e3*float64(i)
+		tt, h, b = append(tt, float64(2600+i)*1e-3), append(h, hv), append(b, b[2600]+1.05*1.25663706212e-6*1e3*float64(i))
+	}
+	s, err := Detect(h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fs, err := Figures(tt, h, b, s, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range fs {
+		if f.Name == FigHcB || f.Name == FigHcJ {
+			t.Errorf("%s = %g read where H > 0", f.Name, f.Value)
+		}
+	}
+}
