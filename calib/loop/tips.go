@@ -202,7 +202,7 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 		if len(u) >= 2 {
 			if lH, noisy := sideLine(u, hh); noisy {
 				lB, _ := sideLine(u, bb)
-				tp.T, tp.H, tp.B = u[0], lH.at(u[0]), lB.at(u[0])
+				tp.T, tp.H, tp.B, tp.N = u[0], lH.at(u[0]), lB.at(u[0]), len(u)
 				tp.vH, tp.vB = lH.se2(u[0]), lB.se2(u[0])
 				tp.UB = math.Sqrt(tp.vB)
 				return tp
@@ -267,8 +267,21 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 	// The apex must lie between the samples next to the extreme one (with
 	// noise: within the samples fitted), and on smooth data beyond the
 	// extreme sample's H; otherwise the extreme sample is the tip.
+	// With noise, each side must climb to the tip by more than three
+	// standard errors of its slope (left rising to a top, right falling
+	// from it): flat sides have no apex.
+	steep := func(l line, want float64) bool {
+		return want*l.b > 0 && (l.s2 == 0 || l.b*l.b*l.sxx > 9*l.s2)
+	}
 	if math.IsNaN(ta) || smooth && (ta < lu[min(1, len(lu)-1)] || ta > ru[min(1, len(ru)-1)]) ||
-		ta < lu[len(lu)-1] || ta > ru[len(ru)-1] {
+		ta < lu[len(lu)-1] || ta > ru[len(ru)-1] || !smooth && (!steep(lH, sgn) || !steep(rH, -sgn)) {
+		if !smooth {
+			// No apex (a tip held flat, e.g. under closed-loop control):
+			// the extreme sample would pick the largest noise; the mean of
+			// the samples around it within two noise deviations of its H
+			// is the tip instead.
+			return plateau(tp, lu[:max(int(lH.n), 1)], lh, lb, ru[:max(int(rH.n), 1)], rh, rb)
+		}
 		return tp
 	}
 	ha := (lH.at(ta) + rH.at(ta)) / 2
@@ -291,6 +304,32 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 	tp.B = (bl + br) / 2
 	tp.vB = (lB.se2(ta) + rB.se2(ta)) / 4
 	tp.UB = math.Sqrt(tp.vB + (bl-br)*(bl-br)/4)
+	return tp
+}
+
+// plateau returns the tip as the mean of the extreme sample and the
+// samples of both sides' flat windows (lu and ru cut to the windows' length;
+// chosen by position, not by value, so the mean is unbiased), with the
+// standard errors of the means.
+func plateau(tp Tip, lu, lh, lb, ru, rh, rb []float64) Tip {
+	var n, sh, shh, sb, sbb, st float64
+	add := func(u, h, b float64) {
+		n, sh, shh, sb, sbb, st = n+1, sh+h, shh+h*h, sb+b, sbb+b*b, st+u
+	}
+	add(tp.T, tp.H, tp.B)
+	for i := range lu {
+		add(lu[i], lh[i], lb[i])
+	}
+	for i := range ru {
+		add(ru[i], rh[i], rb[i])
+	}
+	tp.T, tp.H, tp.B, tp.N = st/n, sh/n, sb/n, int(n)
+	if n > 1 {
+		vh := math.Max(shh/n-tp.H*tp.H, 0) * n / (n - 1)
+		vb := math.Max(sbb/n-tp.B*tp.B, 0) * n / (n - 1)
+		tp.vH, tp.vB = vh/n, vb/n
+		tp.UB = math.Sqrt(tp.vB)
+	}
 	return tp
 }
 
