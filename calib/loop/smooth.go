@@ -143,6 +143,10 @@ func accepts(q quad, s2 float64) bool {
 // interpolation.
 const minWindow = 4
 
+// noiseSpan is the least half-width (in samples) over which the noise is
+// estimated to judge a window.
+const noiseSpan = 8
+
 // localFit returns the widest accepted parabola of v(u) centred on index c
 // (half-widths minWindow, ×1.5, … up to the data), each window judged
 // against the noise estimated over that same window, or ok = false when the
@@ -159,7 +163,10 @@ func localFit(u, v []float64, c int) (best quad, ok bool) {
 				return best, ok
 			}
 		}
-		s2 := interpNoise(u[lo:hi+1], v[lo:hi+1])
+		// The noise over at least ±noiseSpan samples: fewer give too
+		// uncertain an estimate to judge a window by.
+		nlo, nhi := max(0, min(lo, c-noiseSpan)), min(len(u)-1, max(hi, c+noiseSpan))
+		s2 := interpNoise(u[nlo:nhi+1], v[nlo:nhi+1])
 		if !(s2 > 0) {
 			return best, ok
 		}

@@ -82,7 +82,7 @@ func (l line) at(u float64) float64 { return l.a + l.b*(u-l.u0) }
 // the curvature bias the window may leave (estimator error).
 func (l line) se2(u float64) float64 {
 	if l.n < 3 || !(l.sxx > 0) {
-		return 0
+		return l.bias2
 	}
 	d := u - l.ubar
 	return l.s2*(1/l.n+d*d/l.sxx) + l.bias2
@@ -130,7 +130,10 @@ func sideLine(u, v []float64) (l line, noisy bool) {
 	two := fitLine(u, v, 2)
 	miss := 0 // windows rejected in a row: two end the search (one may be chance)
 	for m := 2 * minWindow; m <= n && miss < 2; m = m*3/2 + 1 {
-		s2 := interpNoise(u[:m], v[:m])
+		// The noise over at least 32 points: fewer give too uncertain an
+		// estimate to judge a window by.
+		k := min(n, max(m, 4*noiseSpan))
+		s2 := interpNoise(u[:k], v[:k])
 		if !(s2 > 0) {
 			break
 		}
@@ -144,6 +147,11 @@ func sideLine(u, v []float64) (l line, noisy bool) {
 		l, noisy, miss = q, true, 0
 	}
 	if !noisy {
+		// No window passed, but the samples may still scatter: the line
+		// through the two nearest then carries their noise (a sample's
+		// variance, as a floor).
+		k := min(n, 4*noiseSpan)
+		two.bias2 = interpNoise(u[:k], v[:k])
 		return two, false
 	}
 	return l, true
@@ -200,11 +208,16 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 			}
 		}
 		if len(u) >= 2 {
-			if lH, noisy := sideLine(u, hh); noisy {
-				lB, _ := sideLine(u, bb)
+			lH, noisy := sideLine(u, hh)
+			lB, _ := sideLine(u, bb)
+			if noisy {
 				tp.T, tp.H, tp.B, tp.N = u[0], lH.at(u[0]), lB.at(u[0]), len(u)
-				tp.vH, tp.vB = lH.se2(u[0]), lB.se2(u[0])
-				tp.UB = math.Sqrt(tp.vB)
+			}
+			// Without an accepted window the tip is its sample, with the
+			// samples' noise.
+			tp.vH, tp.vB = lH.se2(u[0]), lB.se2(u[0])
+			tp.UB = math.Sqrt(tp.vB)
+			if noisy {
 				return tp
 			}
 		}
@@ -235,12 +248,16 @@ func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), k
 		u = append([]float64{tm(e)}, u...)
 		hh = append([]float64{he}, hh...)
 		bb = append([]float64{be}, bb...)
-		if lH, noisy := sideLine(u, hh); noisy {
+		lH, nH := sideLine(u, hh)
+		if nH {
 			tp.H = lH.at(tm(e))
 		}
-		if lB, noisy := sideLine(u, bb); noisy {
+		lB, nB := sideLine(u, bb)
+		if nB {
 			tp.B = lB.at(tm(e))
 		}
+		tp.vH, tp.vB = lH.se2(tm(e)), lB.se2(tm(e))
+		tp.UB = math.Sqrt(tp.vB)
 		return tp
 	}
 	lH, nl := sideLine(lu, lh)
