@@ -586,7 +586,9 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 		us, ps, hs, bs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h), append(bs, p.b)
 	}
 	a.loc.bt, a.loc.bx, a.loc.by, a.loc.bb = us, ps, hs, bs
-	a.bhVar = 0
+	// Without an accepted fit the maximum is read between samples and
+	// carries their noise (the product's scatter near the maximum).
+	a.bhVar = interpNoise(us[max(0, jm-noiseSpan):min(len(us), jm+noiseSpan+1)], ps[max(0, jm-noiseSpan):min(len(ps), jm+noiseSpan+1)])
 	q, ok := localFit(us, ps, jm)
 	if !ok {
 		// Smooth data: the cubics of H(t) and B(t) through four samples
