@@ -1,6 +1,7 @@
 package loop
 
 import (
+	"math"
 	"testing"
 
 	"hystd/calib/internal"
@@ -57,4 +58,32 @@ func BenchmarkChain1M(b *testing.B) {
 	}
 	b.ReportMetric((internal.CPUTime()-cpu0)/float64(b.N), "cpu-ns/op")
 	b.ReportMetric(float64(len(h)), "samples")
+}
+
+// BenchmarkPeerTrapezoid1M is the peer of BenchmarkChain1M: the least any
+// script does with the same 1 M samples (copy them, then one trapezoid pass
+// of ∮H dB). The ratio of the two, measured side by side, is the figure
+// to compare across loads (DEVELOPERS.md).
+func BenchmarkPeerTrapezoid1M(b *testing.B) {
+	sw := synth.Sweep{Hm: 1000, Cycles: 2, PerBranch: 250000, Dt: 1e-5, Start: "tip", Uneven: 0.2,
+		NoiseH: 0.1, NoiseB: 1e-4, Draw: 1}
+	_, h0, b0 := sw.Generate(tanhLoop)
+	h := make([]float64, len(h0))
+	bb := make([]float64, len(b0))
+	b.ReportAllocs()
+	b.ResetTimer()
+	cpu0 := internal.CPUTime()
+	w := 0.0
+	for range b.N {
+		copy(h, h0)
+		copy(bb, b0)
+		w = 0
+		for i := 0; i+1 < len(h); i++ {
+			w += (h[i] + h[i+1]) / 2 * (bb[i+1] - bb[i])
+		}
+	}
+	b.ReportMetric((internal.CPUTime()-cpu0)/float64(b.N), "cpu-ns/op")
+	if math.IsNaN(w) {
+		b.Fatal("NaN loss")
+	}
 }

@@ -81,56 +81,73 @@ type Figure struct {
 // ErrNoBranch is returned when no complete branch (tip to tip) exists.
 var ErrNoBranch = errors.New("no complete branch from one tip to the other")
 
-type acc struct{ n, h, b, t, t2 float64 }
-
-func (a *acc) add(h, b, t float64) {
-	a.n++
-	a.h += h
-	a.b += b
-	a.t += t
-	a.t2 += t * t
-}
-
-func (a *acc) merge(o acc) {
-	a.n += o.n
-	a.h += o.h
-	a.b += o.b
-	a.t += o.t
-	a.t2 += o.t2
-}
-
 type pt struct{ h, b, t, t2 float64 }
 
-type curve struct {
-	dir  int
-	bins [nSub][]acc // by sample index mod nSub
-	all  []acc       // the sum of the subsets
-}
-
-type tipAcc struct {
-	top bool
-	a   [nSub]acc
-}
-
-// variant says how a curve is read: all samples or one parity, full or half
-// bin resolution, with or without a perturbation.
+// variant says how the samples are read: all samples or one parity, all or
+// every other sample, with or without a perturbation.
 type variant struct {
 	parity int // -1: all; 0..nSub-1: the samples of that index mod nSub
 	half   bool
 	src    *Source
 }
 
+// step is the index step between the variant's samples.
+func (v variant) step() int {
+	switch {
+	case v.parity >= 0:
+		return nSub
+	case v.half:
+		return 2
+	}
+	return 1
+}
+
+// from returns the variant's first sample index at or after i.
+func (v variant) from(i int) int {
+	for !v.keep(i) {
+		i++
+	}
+	return i
+}
+
+// keep reports whether sample i belongs to the variant.
+func (v variant) keep(i int) bool {
+	if v.parity >= 0 {
+		return i%nSub == v.parity
+	}
+	if v.src != nil {
+		return true
+	}
+	return !v.half || i%2 == 0
+}
+
+type branch struct {
+	start, end, dir int
+}
+
+type tipRef struct {
+	index  int
+	top    bool
+	lo, hi int  // samples that may belong to this tip's sides
+	last   bool // hi is the last sample of the record
+}
+
 type analysis struct {
-	lo, scale float64
-	nb        int
-	t0        float64
-	branches  []curve
-	cycles    [][2]int // indices into branches
-	tips      []tipAcc
-	initial   *rawCurve
-	loc       local
-	recoil    *rawCurve // recoil pieces after a complete falling branch
-	opt       Options
+	t0       float64
+	span     float64
+	t, h, b  []float64
+	s        Shape
+	branches []branch
+	tips     []tipRef
+	initial  *rawCurve
+	loc      local
+	recoil   *rawCurve // recoil pieces after a complete falling branch
+	opt      Options
+	nomVar   vals            // noise variances of the nominal readings
+	reach    map[int]float64 // nominal recoil range per falling branch
+	lossPar  *[nSub]float64  // the loss of each subset, once computed
+	lossT    *[3]float64     // ∮h db, ∮h dt, ∮h d(t²) over the cycles (means)
+	bhVar    float64         // noise variance of the last bhMax
 }
 
 // Figures computes every figure the data allow, in a fixed order (see the
@@ -155,55 +172,37 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 	srcs := make([]vals, len(opt.Sources))
 	for i := range opt.Sources {
 		src := opt.Sources[i]
-		src.T0 -= a.t0 // the bins keep times relative to the first sample
+		src.T0 -= a.t0 // times are kept relative to the first sample
 		srcs[i] = a.eval(variant{parity: -1, src: &src})
 	}
-	// The loss is integrated on the samples themselves; the bins serve the budget.
-	rawLoss := loss(h, b, s, -1)
-	var subLoss [nSub]float64
-	for k := range subLoss {
-		subLoss[k] = loss(h, b, s, k)
-	}
-	rawLossNoise := scatter(subLoss[:])
-	tipBand := tipFraction * (s.Hi - s.Lo)
-	tips := s.Tips(t, h, b)
+	tips := a.tipsOf(variant{parity: -1})
 
 	var out []Figure
 	for _, name := range order {
 		v := nom[name]
-		if name == FigLossJM3 || name == FigLossJKg {
-			if math.IsNaN(v) || math.IsNaN(rawLoss) {
-				continue
-			}
-			if name == FigLossJM3 {
-				v = rawLoss
-			} else {
-				v = rawLoss / opt.Density
-			}
-		}
 		if math.IsNaN(v) {
 			continue
 		}
 		f := Figure{Name: name, Unit: Units[name], Value: v}
-		if name == FigLossJM3 || name == FigLossJKg {
-			// The loss is integrated on the samples: so is its noise.
-			u := rawLossNoise
-			if name == FigLossJKg {
-				u /= opt.Density
-			}
-			f.Budget.Add("noise", u, "Type A: scatter of the integrals over the 4 interleaved subsets of samples, s/√4")
-		} else {
-			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the results from the 4 interleaved subsets of samples, s/√4")
+		switch vr, ok := a.nomVar[name]; {
+		case ok && !math.IsNaN(vr):
+			f.Budget.Add("noise", math.Sqrt(vr), "Type A: standard error of the local fits (or of the interpolation, with the noise of the samples near the reading), propagated")
+		case name == FigLossJM3 || name == FigLossJKg:
+			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the integrals over the 16 interleaved subsets of samples, s/√16")
+		default:
+			f.Budget.Add("noise", subScatter(subs, name), "Type A: scatter of the results from the 16 interleaved subsets of samples, s/√16")
 		}
-		f.Budget.Add("sampling", math.Abs(nom[name]-half[name])/math.Sqrt(3), "Type B: change at half the bin resolution taken as a rectangular half-width")
+		f.Budget.Add("estimator", math.Abs(nom[name]-half[name])/math.Sqrt(3),
+			"Type B: change when every other sample is left out (interpolation error grows 4-fold, a local fit's noise 2-fold), rectangular")
 		switch name {
 		case FigHmax:
-			f.Budget.Add("tip averaging", tipBand/(2*math.Sqrt(3)), "Type B: H band averaged at each tip, rectangular")
 			f.Budget.Add("tip scatter", tipScatter(tips, func(tp Tip) float64 { return tp.H }), "Type A: scatter of the tips about their mean")
 		case FigBmax:
 			f.Budget.Add("tip scatter", tipScatter(tips, func(tp Tip) float64 { return tp.B }), "Type A: scatter of the tips about their mean")
 		case FigMuA:
-			f.Budget.Add("tip averaging", v*tipBand/(2*math.Sqrt(3))/nom[FigHmax], "Type B: from the Hmax tip band")
+			uh := tipScatter(tips, func(tp Tip) float64 { return tp.H }) / nom[FigHmax]
+			ub := tipScatter(tips, func(tp Tip) float64 { return tp.B }) / nom[FigBmax]
+			f.Budget.Add("tip scatter", v*math.Hypot(uh, ub), "Type A: from the scatter of the tips' H and B, propagated")
 		}
 		for i, src := range opt.Sources {
 			f.Budget.Add(src.Name, math.Abs(srcs[i][name]-nom[name]), src.Note)
@@ -216,29 +215,31 @@ func Figures(t, h, b []float64, s Shape, opt Options) ([]Figure, error) {
 }
 
 var notes = map[string]string{
-	FigHmax:       "mean of |H| at the tips (samples within 0.02 % of the H range of each tip)",
-	FigBmax:       "half the difference of B at the top and bottom tips",
-	FigBr:         "B at H = 0, interpolated, magnitudes averaged over both branches",
-	FigHcB:        "H at B = 0, interpolated, magnitudes averaged over both branches",
-	FigHcJ:        "H at J = B − μ0·H = 0, interpolated, magnitudes averaged over both branches",
+	FigHmax:       "half the difference of H at the top and bottom tips, each the apex of the sweep H(t) (lines on both sides of the tip)",
+	FigBmax:       "half the difference of B at the top and bottom tips, read at each apex",
+	FigBr:         "B at H = 0 between the samples (interpolated; a local fit where noise dominates), magnitudes averaged over all complete branches",
+	FigHcB:        "H at B = 0 between the samples (interpolated; a local fit where noise dominates), magnitudes averaged over all complete branches",
+	FigHcJ:        "H at J = B − μ0·H = 0 between the samples (interpolated; a local fit where noise dominates), magnitudes averaged over all complete branches",
 	FigMuA:        "Bmax/(μ0·Hmax)",
 	FigMuInitial:  "B/(μ0·H) on the initial curve at the configured B",
 	FigLossJM3:    "∮H dB per full cycle on the samples (trapezoid), mean over cycles",
 	FigLossJKg:    "loss per cycle divided by the density",
-	FigBHmax:      "2nd-quadrant maximum of −B·H on the falling branches, interpolated between bins",
+	FigBHmax:      "2nd-quadrant maximum of −B·H on the falling branches: exact maximum along the straight pieces between samples (a local fit where noise dominates), mean over complete falling branches",
 	FigBHmaxB:     "B at the (BH)max point",
 	FigBHmaxH:     "|H| at the (BH)max point",
 	FigHk:         "|H| where J = 0.9·Jr on the falling branch (Jr = J at H = 0)",
 	FigSquareness: "Hk/HcJ",
-	FigMuRec:      "least-squares slope dB/dH/μ0 of the recoil pieces when recorded, else of the falling branch between H = 0 and Hk/2 (major-loop estimate)",
+	FigMuRec:      "least-squares slope dB/dH/μ0 of the recoil pieces when recorded, else of the samples of the falling branch between H = 0 and Hk/2 (major-loop estimate)",
 }
 
 // nSub is the number of interleaved subsets of samples (index mod nSub)
 // whose results give the Type A noise estimate: with white noise, the
 // result of one subset varies nSub times as much as the result of all
 // samples, so u = s/√nSub with s the standard deviation of the subsets'
-// results (nSub − 1 degrees of freedom).
-const nSub = 4
+// results (nSub − 1 degrees of freedom). 16 subsets give 15 degrees of
+// freedom, for which k = 2 covers about 94 % (t distribution, GUM G.3);
+// 4 subsets (3 degrees of freedom) covered only about 86 %.
+const nSub = 16
 
 // scatter returns s/√n of the finite values, NaN with fewer than two.
 func scatter(x []float64) float64 {
@@ -306,15 +307,7 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 	if len(comp) == 0 {
 		return nil, ErrNoBranch
 	}
-	span := s.Hi - s.Lo
-	total := 0
-	for _, g := range comp {
-		total += g.End - g.Start + 1
-	}
-	nb := total / len(comp) / 4
-	nb = max(8, min(4096, nb))
-	nb += nb % 2
-	a := &analysis{lo: s.Lo, scale: float64(nb) / span, nb: nb, opt: opt}
+	a := &analysis{span: s.Hi - s.Lo, t: t, h: h, b: b, s: s, opt: opt, reach: map[int]float64{}}
 	if t != nil {
 		a.t0 = t[0]
 	}
@@ -325,33 +318,11 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 		return t[i] - a.t0
 	}
 	a.loc = local{h: h, b: b, tm: tm}
-	idxOf := map[int]int{}
-	for k, g := range s.Segments {
-		if !g.Complete && !(g.Initial && opt.InitialCurve) {
-			continue
-		}
-		c := curve{dir: g.Dir}
+	for _, g := range s.Segments {
 		if g.Complete {
-			for q := range c.bins {
-				c.bins[q] = make([]acc, nb)
-			}
-			for i := g.Start; i <= g.End; i++ {
-				j := int((h[i] - a.lo) * a.scale)
-				j = max(0, min(nb-1, j))
-				c.bins[i%nSub][j].add(h[i], b[i], tm(i))
-			}
-			c.all = make([]acc, nb)
-			for j := range c.all {
-				for q := range c.bins {
-					c.all[j].merge(c.bins[q][j])
-				}
-			}
-		}
-		if g.Complete {
-			idxOf[k] = len(a.branches)
-			a.branches = append(a.branches, c)
-			a.loc.addBranch(g.Start, g.End)
-		} else {
+			a.branches = append(a.branches, branch{start: g.Start, end: g.End, dir: g.Dir})
+			a.loc.addBranch(g.Start, g.End, g.Dir)
+		} else if g.Initial && opt.InitialCurve {
 			rc := &rawCurve{dir: g.Dir, h: h[g.Start : g.End+1], b: b[g.Start : g.End+1], start: g.Start}
 			rc.t = make([]float64, len(rc.h))
 			for i := range rc.t {
@@ -382,35 +353,11 @@ func build(t, h, b []float64, s Shape, opt Options) (*analysis, error) {
 		}
 		break
 	}
-	for k := 0; k+1 < len(s.Segments); k++ {
-		x, y := s.Segments[k], s.Segments[k+1]
-		if x.Complete && y.Complete && x.Dir != y.Dir {
-			a.cycles = append(a.cycles, [2]int{idxOf[k], idxOf[k+1]})
-			k++
-		}
-	}
-	band := tipFraction * span
-	for _, tp := range s.Tips(t, h, b) {
-		ta := tipAcc{top: tp.Top}
-		i := tp.Index
-		in := func(j int) bool {
-			if tp.Top {
-				return h[i]-h[j] <= band
-			}
-			return h[j]-h[i] <= band
-		}
-		for j := i; j >= 0 && in(j); j-- {
-			ta.a[j%nSub].add(h[j], b[j], tm(j))
-		}
-		for j := i + 1; j < len(h) && in(j); j++ {
-			ta.a[j%nSub].add(h[j], b[j], tm(j))
-		}
-		a.tips = append(a.tips, ta)
-	}
+	a.tips = s.tipRefs()
 	return a, nil
 }
 
-// apply maps bin means through a variant's perturbation.
+// apply maps a sample through a variant's perturbation.
 func (v variant) apply(p pt) pt {
 	s := v.src
 	if s == nil {
@@ -424,136 +371,118 @@ func (v variant) apply(p pt) pt {
 	return pt{h: h, b: b, t: p.t, t2: p.t2}
 }
 
-func (v variant) mean(a acc) (pt, bool) {
-	if a.n == 0 {
-		return pt{}, false
-	}
-	return v.apply(pt{h: a.h / a.n, b: a.b / a.n, t: a.t / a.n, t2: a.t2 / a.n}), true
-}
-
-func (v variant) pick(all [nSub]acc) acc {
-	if v.parity >= 0 {
-		return all[v.parity]
-	}
-	var x acc
-	for _, a := range all {
-		x.merge(a)
-	}
-	return x
-}
-
-// points returns the curve's bin means in ascending H.
-func (c curve) points(v variant, dst []pt) []pt {
-	if cap(dst) < len(c.bins[0]) {
-		dst = make([]pt, 0, len(c.bins[0]))
-	}
-	dst = dst[:0]
-	step := 1
-	if v.half {
-		step = 2
-	}
-	src := c.all
-	if v.parity >= 0 {
-		src = c.bins[v.parity]
-	}
-	for j := 0; j < len(src); j += step {
-		x := src[j]
-		if step == 2 && j+1 < len(src) {
-			x.merge(src[j+1])
-		}
-		if p, ok := v.mean(x); ok {
-			dst = append(dst, p)
-		}
-	}
-	return dst
-}
-
 type vals map[string]float64
 
 func nan() float64 { return math.NaN() }
+
+// sample returns sample i through the variant, with its time.
+func (a *analysis) sample(v variant, i int) pt {
+	tt := a.loc.tm(i)
+	return v.apply(pt{h: a.h[i], b: a.b[i], t: tt, t2: tt * tt})
+}
+
+// tipsOf reads every tip for a variant.
+func (a *analysis) tipsOf(v variant) []Tip {
+	out := make([]Tip, 0, len(a.tips))
+	for _, r := range a.tips {
+		tp := readTip(r, a.loc.tm, func(i int) (float64, float64) { p := a.sample(v, i); return p.h, p.b }, v.keep)
+		tp.T += a.t0
+		if a.t == nil {
+			tp.T = a.loc.tm(r.index) // index time
+		}
+		out = append(out, tp)
+	}
+	return out
+}
 
 func (a *analysis) eval(v variant) vals {
 	out := vals{}
 	for _, n := range order {
 		out[n] = nan()
 	}
+	// nv collects the noise variances of the nominal readings (from the
+	// local fits and the noise near each reading).
+	nv := vals{}
 	// Tips.
-	var top, bot, nt, nbt float64
-	var topB, botB float64
-	for _, ta := range a.tips {
-		x := v.pick(ta.a)
-		if x.n == 0 { // a narrow tip lacks this subset: fall back to all samples
-			x = variant{parity: -1}.pick(ta.a)
-		}
-		p, _ := v.mean(x)
-		if ta.top {
-			top += p.h
-			topB += p.b
-			nt++
+	var top, bot, topB, botB, nt, nbt, vt, vb, vtB, vbB float64
+	// A subset of samples (parity) serves only the figures whose noise is
+	// not evaluated from the nominal reading's own fit: the tips and the
+	// crossings are skipped for it.
+	lite := v.parity >= 0
+	var tips []Tip
+	if !lite {
+		tips = a.tipsOf(v)
+	}
+	for _, tp := range tips {
+		if tp.Top {
+			top, topB, nt, vt, vtB = top+tp.H, topB+tp.B, nt+1, vt+tp.vH, vtB+tp.vB
 		} else {
-			bot += p.h
-			botB += p.b
-			nbt++
+			bot, botB, nbt, vb, vbB = bot+tp.H, botB+tp.B, nbt+1, vb+tp.vH, vbB+tp.vB
 		}
 	}
 	if nt > 0 && nbt > 0 {
 		out[FigHmax] = (top/nt - bot/nbt) / 2
 		out[FigBmax] = (topB/nt - botB/nbt) / 2
 		out[FigMuA] = out[FigBmax] / (units.Mu0 * out[FigHmax])
+		nv[FigHmax] = (vt/(nt*nt) + vb/(nbt*nbt)) / 4
+		nv[FigBmax] = (vtB/(nt*nt) + vbB/(nbt*nbt)) / 4
+		nv[FigMuA] = out[FigMuA] * out[FigMuA] * (nv[FigBmax]/(out[FigBmax]*out[FigBmax]) + nv[FigHmax]/(out[FigHmax]*out[FigHmax]))
 	}
 	var br, hcb, hcj []float64
 	var bh, bhB, bhH, hk, murec []float64
-	pts := make([][]pt, len(a.branches))
+	var vbr, vhcb, vhcj, vbh, vhk []float64
 	for k, c := range a.branches {
-		p := c.points(v, nil)
-		pts[k] = p
-		// Crossings on the samples; the bins are the fallback.
-		xbr, xhcb, xhcj, xhk := a.loc.crossings(k, v, c.dir == Falling)
-		if math.IsNaN(xbr) {
-			xbr = interpH0(p)
+		xbr, xhcb, xhcj, xhk := nan(), nan(), nan(), nan()
+		if !lite {
+			xbr, xhcb, xhcj, xhk = a.loc.crossings(k, v, c.dir == Falling)
 		}
-		if math.IsNaN(xhcb) {
-			xhcb = crossB(p, func(q pt) float64 { return q.b })
-		}
-		if math.IsNaN(xhcj) {
-			xhcj = crossB(p, func(q pt) float64 { return q.b - units.Mu0*q.h })
-		}
+		cv := a.loc.crossVar
 		if !math.IsNaN(xbr) {
-			br = append(br, math.Abs(xbr))
+			br, vbr = append(br, math.Abs(xbr)), append(vbr, cv[crBr])
 		}
 		if !math.IsNaN(xhcb) {
-			hcb = append(hcb, math.Abs(xhcb))
+			hcb, vhcb = append(hcb, math.Abs(xhcb)), append(vhcb, cv[crHcB])
 		}
 		if !math.IsNaN(xhcj) {
-			hcj = append(hcj, math.Abs(xhcj))
+			hcj, vhcj = append(hcj, math.Abs(xhcj)), append(vhcj, cv[crHcJ])
 		}
-		if c.dir == Falling {
-			if m, mb, mh := bhMax(p); m > 0 {
-				bh, bhB, bhH = append(bh, m), append(bhB, mb), append(bhH, math.Abs(mh))
-			}
-			kb, mu := kneeAndRecoil(p, xhk)
-			if !math.IsNaN(xhk) && xhk < 0 {
-				kb = -xhk
-			}
-			if !math.IsNaN(kb) {
-				hk = append(hk, kb)
-			}
-			if !math.IsNaN(mu) {
-				murec = append(murec, mu)
-			}
+		if c.dir != Falling {
+			continue
+		}
+		if m, mb, mh := a.bhMax(k, v); m > 0 {
+			bh, bhB, bhH = append(bh, m), append(bhB, mb), append(bhH, math.Abs(mh))
+			vbh = append(vbh, a.bhVar)
+		}
+		if !math.IsNaN(xhk) && xhk < 0 {
+			hk, vhk = append(hk, -xhk), append(vhk, cv[crHk])
+		}
+		reach := -xhk / 2
+		if !(reach > 0) && !math.IsNaN(xhcb) {
+			reach = math.Abs(xhcb) / 4
+		}
+		if lite {
+			reach = a.reach[k]
+		} else if v.src == nil && !v.half {
+			a.reach[k] = reach
+		}
+		if mu := a.slopeNearBr(k, v, reach); !math.IsNaN(mu) {
+			murec = append(murec, mu)
 		}
 	}
 	out[FigBr], out[FigHcB], out[FigHcJ] = meanOf(br), meanOf(hcb), meanOf(hcj)
 	out[FigBHmax], out[FigBHmaxB], out[FigBHmaxH] = meanOf(bh), meanOf(bhB), meanOf(bhH)
 	out[FigHk], out[FigMuRec] = meanOf(hk), meanOf(murec)
+	nv[FigBr], nv[FigHcB], nv[FigHcJ] = varOfMean(vbr), varOfMean(vhcb), varOfMean(vhcj)
+	nv[FigBHmax], nv[FigHk] = varOfMean(vbh), varOfMean(vhk)
 	if len(hk) > 0 && out[FigHcJ] > 0 {
 		out[FigSquareness] = out[FigHk] / out[FigHcJ]
+		sq := out[FigSquareness]
+		nv[FigSquareness] = sq * sq * (nv[FigHk]/(out[FigHk]*out[FigHk]) + nv[FigHcJ]/(out[FigHcJ]*out[FigHcJ]))
 	}
-	var w []float64
-	for _, cy := range a.cycles {
-		w = append(w, polygonLoss(pts[cy[0]], pts[cy[1]], a.branches[cy[0]].dir))
+	if v.parity < 0 && !v.half && v.src == nil {
+		a.nomVar = nv
 	}
-	out[FigLossJM3] = meanOf(w)
+	out[FigLossJM3] = a.loss(v)
 	if a.opt.Density > 0 {
 		out[FigLossJKg] = out[FigLossJM3] / a.opt.Density
 	}
@@ -568,6 +497,18 @@ func (a *analysis) eval(v variant) vals {
 	return out
 }
 
+// varOfMean is the variance of the mean of readings of variances x.
+func varOfMean(x []float64) float64 {
+	if len(x) == 0 {
+		return nan()
+	}
+	s := 0.0
+	for _, v := range x {
+		s += v
+	}
+	return s / float64(len(x)*len(x))
+}
+
 func meanOf(x []float64) float64 {
 	if len(x) == 0 {
 		return nan()
@@ -579,103 +520,165 @@ func meanOf(x []float64) float64 {
 	return s / float64(len(x))
 }
 
-// interpH0 returns B at H = 0 on points in ascending H.
-func interpH0(p []pt) float64 {
-	for i := 0; i+1 < len(p); i++ {
-		if p[i].h <= 0 && p[i+1].h > 0 {
-			f := -p[i].h / (p[i+1].h - p[i].h)
-			return p[i].b + f*(p[i+1].b-p[i].b)
-		}
+// bhMax maximizes −B·H over the 2nd quadrant (H ≤ 0, B ≥ 0) of falling
+// branch k, on the samples between its H = 0 and B = 0 crossings (with the
+// crossing window as margin). Along the straight piece between two samples
+// the product is a quadratic in the piece parameter, maximized exactly.
+// Where the product scatters by more than a local parabola's model error
+// (smooth.go), the vertex of a local least-squares parabola of the product
+// in time is taken instead, with H and B read at its time.
+func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
+	c := a.loc.cross[k]
+	if c[crBr] < 0 {
+		return 0, 0, 0
 	}
-	return nan()
-}
-
-// crossB returns H where y(p) crosses 0 (median crossing when noise makes
-// several), interpolated linearly between points.
-func crossB(p []pt, y func(pt) float64) float64 {
-	var xs []float64
-	for i := 0; i+1 < len(p); i++ {
-		y0, y1 := y(p[i]), y(p[i+1])
-		if y0 <= 0 && y1 > 0 || y0 >= 0 && y1 < 0 {
-			if y0 == y1 {
-				continue
-			}
-			f := y0 / (y0 - y1)
-			xs = append(xs, p[i].h+f*(p[i+1].h-p[i].h))
-		}
+	w := a.loc.window[k]
+	lo := max(a.loc.start[k], c[crBr]-w)
+	hi := a.loc.end[k] // a demagnetization curve may stop before B = 0
+	if c[crHcB] >= 0 {
+		lo = max(a.loc.start[k], min(c[crBr], c[crHcB])-w)
+		hi = min(a.loc.end[k], max(c[crBr], c[crHcB])+w)
 	}
-	if len(xs) == 0 {
-		return nan()
-	}
-	return xs[len(xs)/2]
-}
-
-// bhMax maximizes −B·H over the piecewise-linear curve in the 2nd quadrant
-// (H ≤ 0, B ≥ 0): on each piece the product is a quadratic in the piece
-// parameter, maximized exactly. The maximum is then refined by a
-// least-squares parabola of the product against H over the points within
-// 5 % of it, which locates the operating point without following the noise.
-func bhMax(p []pt) (m, atB, atH float64) {
-	for i := 0; i+1 < len(p); i++ {
-		h0, b0 := p[i].h, p[i].b
-		dh, db := p[i+1].h-h0, p[i+1].b-b0
-		if h0 > 0 && p[i+1].h > 0 {
-			break
+	// Pass 1: the exact maximum along the straight pieces.
+	im := -1
+	var prev pt
+	first := true
+	for i := v.from(lo); i <= hi; i += v.step() {
+		p := a.sample(v, i)
+		if first {
+			prev, first = p, false
+			continue
 		}
+		h0, b0 := prev.h, prev.b
+		dh, db := p.h-h0, p.b-b0
+		prev = p
 		// f(s) = −(h0 + s·dh)(b0 + s·db) = −h0·b0 − s(h0·db + b0·dh) − s²·dh·db
-		cand := []float64{0, 1}
+		cand := [3]float64{0, 1, -1}
 		if q := dh * db; q != 0 {
 			if s := -(h0*db + b0*dh) / (2 * q); s > 0 && s < 1 {
-				cand = append(cand, s)
+				cand[2] = s
 			}
 		}
 		for _, s := range cand {
+			if s < 0 {
+				continue
+			}
 			h, b := h0+s*dh, b0+s*db
 			if h <= 0 && b >= 0 && -h*b > m {
-				m, atB, atH = -h*b, b, h
+				m, atB, atH, im = -h*b, b, h, i
 			}
 		}
 	}
-	if m <= 0 {
-		return m, atB, atH
+	if im < 0 {
+		return 0, 0, 0
 	}
-	// Parabola P = c0 + c1·x + c2·x² in x = H/|atH| over the top 5 %.
-	var s [5]float64 // Σx⁰..x⁴
-	var r [3]float64 // ΣP·x⁰..x²
-	lo, hi, n := math.Inf(1), math.Inf(-1), 0
-	for _, q := range p {
-		if q.h > 0 || q.b < 0 {
+	// Pass 2: a local fit around it where noise dominates.
+	us, ps, hs, bs := a.loc.bt[:0], a.loc.bx[:0], a.loc.by[:0], a.loc.bb[:0]
+	jm := 0
+	for i := max(lo, im-w); i <= min(hi, im+w); i++ {
+		if !v.keep(i) {
 			continue
 		}
-		pv := -q.h * q.b
-		if pv < 0.95*m {
-			continue
+		if i <= im {
+			jm = len(us)
 		}
-		x := q.h / -atH
-		xp := 1.0
-		for k := 0; k < 5; k++ {
-			s[k] += xp
-			if k < 3 {
-				r[k] += pv * xp
+		p := a.sample(v, i)
+		us, ps, hs, bs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h), append(bs, p.b)
+	}
+	a.loc.bt, a.loc.bx, a.loc.by, a.loc.bb = us, ps, hs, bs
+	// Without an accepted fit the maximum is read between samples and
+	// carries their noise (the product's scatter near the maximum).
+	a.bhVar = interpNoise(us[max(0, jm-noiseSpan):min(len(us), jm+noiseSpan+1)], ps[max(0, jm-noiseSpan):min(len(ps), jm+noiseSpan+1)])
+	q, ok := localFit(us, ps, jm)
+	if !ok {
+		// Smooth data: the cubics of H(t) and B(t) through four samples
+		// refine the straight pieces around the maximum (smooth.go).
+		for j := jm - 2; j <= jm; j++ {
+			if j < 1 || j+2 >= len(us) {
+				continue
 			}
-			xp *= x
+			f := func(x float64) float64 {
+				hv, bv := cubic4(us, hs, j, x), cubic4(us, bs, j, x)
+				if hv > 0 || bv < 0 {
+					return 0
+				}
+				return -hv * bv
+			}
+			x := goldenMax(f, us[j], us[j+1])
+			if pv := f(x); pv > m {
+				m, atH, atB = pv, cubic4(us, hs, j, x), cubic4(us, bs, j, x)
+			}
 		}
-		lo, hi, n = math.Min(lo, x), math.Max(hi, x), n+1
-	}
-	if n < 5 {
 		return m, atB, atH
 	}
-	c, ok := solve3([3][3]float64{{s[0], s[1], s[2]}, {s[1], s[2], s[3]}, {s[2], s[3], s[4]}}, r)
-	if !ok || !(c[2] < 0) {
+	if !(q.c[2] < 0) {
 		return m, atB, atH
 	}
-	xv := -c[1] / (2 * c[2])
-	if xv < lo || xv > hi {
+	xv := -q.c[1] / (2 * q.c[2])
+	uv := q.uc + xv*q.scale
+	if uv < q.lo || uv > q.hi {
 		return m, atB, atH
 	}
-	pv := c[0] + c[1]*xv + c[2]*xv*xv
-	hv := xv * -atH
+	pv := q.at(uv)
+	a.bhVar = q.se2(uv)
+	hv := interpAt(us, hs, uv)
+	if f, ok := localFit(us, hs, jm); ok {
+		hv = f.at(uv)
+	}
+	if !(hv < 0) {
+		return m, atB, atH
+	}
 	return pv, pv / -hv, hv
+}
+
+// goldenMax returns where f is largest on [a, b], by golden-section search
+// (f unimodal there; a straight piece's neighbourhood of a maximum is).
+func goldenMax(f func(float64) float64, a, b float64) float64 {
+	const g = 0.6180339887498949
+	c, d := b-g*(b-a), a+g*(b-a)
+	fc, fd := f(c), f(d)
+	for range 60 {
+		if fc < fd {
+			a, c, fc = c, d, fd
+			d = a + g*(b-a)
+			fd = f(d)
+		} else {
+			b, d, fd = d, c, fc
+			c = b - g*(b-a)
+			fc = f(c)
+		}
+	}
+	return (a + b) / 2
+}
+
+// slopeNearBr returns the least-squares slope dB/dH/μ0 of the samples of
+// falling branch k with −reach ≤ H ≤ 0 (NaN with fewer than 3).
+func (a *analysis) slopeNearBr(k int, v variant, reach float64) float64 {
+	ic := a.loc.cross[k][crBr]
+	if ic < 0 || !(reach > 0) {
+		return nan()
+	}
+	var n, sh, sb, shh, shb float64
+	stop := -reach - 0.05*a.span
+	for i := v.from(max(a.loc.start[k], ic-a.loc.window[k])); i <= a.loc.end[k]; i += v.step() {
+		p := a.sample(v, i)
+		if p.h < stop {
+			break
+		}
+		if p.h > 0 || p.h < -reach {
+			continue
+		}
+		n++
+		sh += p.h
+		sb += p.b
+		shh += p.h * p.h
+		shb += p.h * p.b
+	}
+	den := n*shh - sh*sh
+	if n < 3 || !(den > 0) {
+		return nan()
+	}
+	return (n*shb - sh*sb) / den / units.Mu0
 }
 
 // solve3 solves a 3×3 linear system by Cramer's rule.
@@ -699,109 +702,110 @@ func solve3(a [3][3]float64, r [3]float64) ([3]float64, bool) {
 	return out, true
 }
 
-// kneeAndRecoil reads Hk (|H| where J falls to 0.9·Jr, going from H = 0
-// towards negative H) and the relative slope of B near Br from a falling
-// branch in ascending H.
-func kneeAndRecoil(p []pt, hkSamples float64) (hk, murec float64) {
-	hk, murec = nan(), nan()
-	i0 := -1
-	for i := 0; i+1 < len(p); i++ {
-		if p[i].h <= 0 && p[i+1].h > 0 {
-			i0 = i
-			break
+// loss integrates ∮H dB with the trapezoid rule over each full cycle of the
+// samples of the variant (closing each cycle with a straight piece) and
+// returns the mean over cycles, or NaN without a full cycle. A perturbation
+// by scales and shifts only scales the integral (∮dB = ∮dH = 0 around a
+// closed path); one with time terms is integrated sample by sample.
+func (a *analysis) loss(v variant) float64 {
+	step, parity := 1, -1
+	switch {
+	case v.parity >= 0:
+		if a.lossPar == nil {
+			lp := lossSubsets(a.h, a.b, a.s)
+			a.lossPar = &lp
 		}
+		return a.lossPar[v.parity]
+	case v.half:
+		step, parity = 2, 0
 	}
-	if i0 < 0 {
-		return
-	}
-	j := func(q pt) float64 { return q.b - units.Mu0*q.h }
-	f := -p[i0].h / (p[i0+1].h - p[i0].h)
-	jr := j(p[i0]) + f*(j(p[i0+1])-j(p[i0]))
-	if !(jr > 0) {
-		return
-	}
-	lvl := 0.9 * jr
-	for i := i0; i > 0; i-- {
-		a, b := j(p[i]), j(p[i-1])
-		if a >= lvl && b < lvl {
-			g := (a - lvl) / (a - b)
-			hk = -(p[i].h + g*(p[i-1].h-p[i].h))
-			break
+	if v.src != nil {
+		// The loss is linear in each perturbation: with b' = b·(1+BScale) +
+		// BShift + BT1·(t−T0) + BT2·(t−T0)² and h' = h·(1+HScale) + HShift,
+		// ∮h' db' = (1+HScale)·[(1+BScale)·∮h db + BT1·∮h dt +
+		// BT2·(∮h d(t²) − 2·T0·∮h dt)] around each closed cycle (∮db' = 0).
+		if a.lossT == nil {
+			w0, l1, l2 := lossMoments(a.h, a.b, a.loc.tm, a.s)
+			a.lossT = &[3]float64{w0, l1, l2}
 		}
+		w0, l1, l2 := a.lossT[0], a.lossT[1], a.lossT[2]
+		src := v.src
+		return (1 + src.HScale) * ((1+src.BScale)*w0 + src.BT1*l1 + src.BT2*(l2-2*src.T0*l1))
 	}
-	if hkSamples < 0 {
-		hk = -hkSamples
-	}
-	// Least-squares slope of B on H over H in [−reach, 0].
-	reach := hk / 2
-	if math.IsNaN(reach) {
-		if hc := crossB(p, func(q pt) float64 { return q.b }); !math.IsNaN(hc) {
-			reach = math.Abs(hc) / 4
-		} else {
-			return
-		}
-	}
-	var n, sh, sb, shh, shb float64
-	for i := i0 + 1; i >= 0; i-- {
-		if p[i].h > 0 {
-			continue
-		}
-		if p[i].h < -reach {
-			break
-		}
-		n++
-		sh += p[i].h
-		sb += p[i].b
-		shh += p[i].h * p[i].h
-		shb += p[i].h * p[i].b
-	}
-	if n >= 3 {
-		den := n*shh - sh*sh
-		if den > 0 {
-			murec = (n*shb - sh*sb) / den / units.Mu0
-		}
-	}
-	return
+	return loss(a.h, a.b, a.s, parity, step)
 }
 
-// polygonLoss is ∮H dB around the closed polygon of one cycle: the first
-// branch traversed in its own direction, then the second, then closed.
-func polygonLoss(first, second []pt, firstDir int) float64 {
-	path := make([]pt, 0, len(first)+len(second)+1)
-	appendDir := func(p []pt, dir int) {
-		if dir == Rising {
-			path = append(path, p...)
-		} else {
-			for i := len(p) - 1; i >= 0; i-- {
-				path = append(path, p[i])
+// lossMoments returns the means over full cycles of ∮h db, ∮h dt and
+// ∮h d(t²), each with the trapezoid rule and the closing straight piece.
+func lossMoments(h, b []float64, tm func(int) float64, s Shape) (w, l1, l2 float64) {
+	n := 0.0
+	for _, cy := range s.Cycles() {
+		i0, i1 := cy[0].Start, cy[1].End
+		if i1-i0 < 2 {
+			continue
+		}
+		var a0, a1, a2 float64
+		for i := i0; i < i1; i++ {
+			hm := (h[i] + h[i+1]) / 2
+			t0, t1 := tm(i), tm(i+1)
+			a0 += hm * (b[i+1] - b[i])
+			a1 += hm * (t1 - t0)
+			a2 += hm * (t1*t1 - t0*t0)
+		}
+		hm := (h[i1] + h[i0]) / 2
+		t0, t1 := tm(i1), tm(i0)
+		a0 += hm * (b[i0] - b[i1])
+		a1 += hm * (t1 - t0)
+		a2 += hm * (t1*t1 - t0*t0)
+		w, l1, l2, n = w+a0, l1+a1, l2+a2, n+1
+	}
+	if n == 0 {
+		return nan(), nan(), nan()
+	}
+	return w / n, l1 / n, l2 / n
+}
+
+// lossSubsets returns loss(h, b, s, p, nSub) for every subset p, in one
+// pass over the samples.
+func lossSubsets(h, b []float64, s Shape) [nSub]float64 {
+	var sum, n [nSub]float64
+	for _, cy := range s.Cycles() {
+		i0, i1 := cy[0].Start, cy[1].End
+		var w [nSub]float64
+		for i := i0; i+nSub <= i1; i++ {
+			w[i%nSub] += (h[i] + h[i+nSub]) / 2 * (b[i+nSub] - b[i])
+		}
+		for p := range nSub {
+			first := i0 + ((p-i0)%nSub+nSub)%nSub
+			if i1-first < 2*nSub {
+				continue
 			}
+			last := first + (i1-first)/nSub*nSub
+			w[p] += (h[last] + h[first]) / 2 * (b[first] - b[last])
+			sum[p] += w[p]
+			n[p]++
 		}
 	}
-	appendDir(first, firstDir)
-	appendDir(second, -firstDir)
-	if len(path) < 3 {
-		return nan()
+	var out [nSub]float64
+	for p := range out {
+		out[p] = sum[p] / n[p]
+		if n[p] == 0 {
+			out[p] = nan()
+		}
 	}
-	path = append(path, path[0])
-	w := 0.0
-	for i := 0; i+1 < len(path); i++ {
-		w += (path[i].h + path[i+1].h) / 2 * (path[i+1].b - path[i].b)
-	}
-	return w
+	return out
 }
 
 // loss integrates ∮H dB with the trapezoid rule over each full cycle of the
 // samples (closing each cycle with a straight piece) and returns the mean
-// over cycles, or NaN without a full cycle. parity 0..nSub−1 uses only the
-// samples of that index mod nSub (for the noise estimate), −1 all.
-func loss(h, b []float64, s Shape, parity int) float64 {
+// over cycles, or NaN without a full cycle. With parity ≥ 0 only the samples
+// of index ≡ parity (mod step) are used.
+func loss(h, b []float64, s Shape, parity, step int) float64 {
 	var w []float64
 	for _, cy := range s.Cycles() {
 		i0, i1 := cy[0].Start, cy[1].End
-		step := 1
 		if parity >= 0 {
-			i0 += ((parity-i0)%nSub + nSub) % nSub
-			step = nSub
+			i0 += ((parity-i0)%step + step) % step
 		}
 		if i1-i0 < 2*step {
 			continue

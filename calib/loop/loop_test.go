@@ -55,6 +55,11 @@ func checkFigures(t *testing.T, label string, tt, h, b []float64, opt Options, w
 // fixed point, W = 2·Bs·A·(lncosh(26.25) − lncosh(23.75)) ≈ 4·Bs·Hc = 300 J/m³.
 var tanhLoop = synth.Tanh{Bs: 1.5, Hc: 50, A: 40, Ai: 60}
 
+// tanhBHmax is the (BH)max of tanhLoop: the maximum of −H·1.5·tanh((H+50)/40)
+// on −50 ≤ H ≤ 0, at H = −27.52060 A/m (root of the derivative, computed with
+// mpmath at 30 digits, outside this project).
+const tanhBHmax = 21.03050232058938
+
 func tanhWants(tol float64) []want {
 	l := tanhLoop
 	bmax := l.Bs * math.Tanh((1000-l.Hc)/l.A)
@@ -272,6 +277,21 @@ func TestRecoil(t *testing.T) {
 	checkFigures(t, "recoil", tt, h, b, Options{}, []want{
 		{FigMuRec, 1.05, 1e-9}, {FigBr, 1.3, 1e-6}, {FigBHmax, 320.2e3, 1e-3},
 	})
+	// B stays above 0.51 T down to −0.6 MA/m (1.3 T − μ0·1.05·0.6 MA/m):
+	// no coercivity may be reported.
+	s, err := Detect(h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fs, err := Figures(tt, h, b, s, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range fs {
+		if f.Name == FigHcB || f.Name == FigHcJ {
+			t.Errorf("recoil: %s = %g reported, but B and J never reach 0", f.Name, f.Value)
+		}
+	}
 }
 
 // TestCoverage repeats the noisy tanh loop with 40 noise draws: the exact
@@ -279,7 +299,8 @@ func TestRecoil(t *testing.T) {
 // normal distribution, GUM §6.2) in most runs. Noise and sampling are the
 // only budget components here, so this checks their evaluation.
 func TestCoverage(t *testing.T) {
-	exact := map[string]float64{FigBr: tanhLoop.Br(), FigHcB: tanhLoop.Hc, FigHcJ: tanhLoop.HcJ(), FigLossJM3: tanhLoop.Loss(1000)}
+	exact := map[string]float64{FigBr: tanhLoop.Br(), FigHcB: tanhLoop.Hc, FigHcJ: tanhLoop.HcJ(), FigLossJM3: tanhLoop.Loss(1000),
+		FigHmax: 1000, FigBmax: tanhLoop.B(1000, -1), FigMuA: tanhLoop.B(1000, -1) / (units.Mu0 * 1000), FigBHmax: tanhBHmax}
 	hits := map[string]int{}
 	const runs = 40
 	for draw := uint64(1); draw <= runs; draw++ {
@@ -302,6 +323,7 @@ func TestCoverage(t *testing.T) {
 	}
 	for name := range exact {
 		// 95 % coverage gives ≥ 33 of 40 with probability > 0.99 (binomial).
+		t.Logf("%s: covered in %d of %d", name, hits[name], runs)
 		if hits[name] < 33 {
 			t.Errorf("%s: exact value within U in %d of %d runs, want ≥ 33", name, hits[name], runs)
 		} else {

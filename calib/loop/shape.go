@@ -31,10 +31,6 @@ const ReversalFraction = 0.1
 // start and end to the two tips to count as complete.
 const completeFraction = 0.05
 
-// tipFraction is the H band below a tip (fraction of the range) whose
-// samples are averaged into the tip's H and B.
-const tipFraction = 2e-4
-
 // Segment is a run of samples between two reversals of H, inclusive.
 type Segment struct {
 	Start, End int
@@ -43,18 +39,20 @@ type Segment struct {
 	Initial    bool // the first piece, starting near H = 0
 }
 
-// Tip is a reversal of H at a loop tip, with H and B averaged over the
-// samples within tipFraction of the range of the extremum.
+// Tip is a reversal of H at a loop tip: the apex of the sweep (see Tips).
 type Tip struct {
 	Index int
 	Top   bool // maximum of H (else minimum)
 	T     float64
 	H, B  float64
-	N     int // samples averaged
-	// UB is the standard uncertainty of B as the mean of the N samples
-	// (their standard deviation over √N); 0 for a single sample.
+	N     int // samples used on both sides
+	// UB is a standard uncertainty of B at the tip: the standard error of
+	// the lines at the apex combined with half the difference of B read on
+	// the two sides; 0 when the tip is a sample of smooth data.
 	UB float64
-	b2 float64 // Σ B², while accumulating
+	// vH, vB are the noise variances of H and B from the line fits (0 on
+	// smooth data).
+	vH, vB float64
 }
 
 // Shape is the branch structure of one recorded loop.
@@ -230,68 +228,6 @@ func (s Shape) Cycles() [][2]Segment {
 		}
 	}
 	return out
-}
-
-// Tips returns the tips at the ends of complete segments, in time order,
-// with H and B averaged over the samples next to each extremum whose H lies
-// within tipFraction of the range of it. t may be nil (index used as time).
-func (s Shape) Tips(t, h, b []float64) []Tip {
-	band := tipFraction * (s.Hi - s.Lo)
-	seen := map[int]bool{}
-	var out []Tip
-	for _, g := range s.Segments {
-		if !g.Complete {
-			continue
-		}
-		for _, i := range []int{g.Start, g.End} {
-			if seen[i] {
-				continue
-			}
-			seen[i] = true
-			top := i == g.End && g.Dir == Rising || i == g.Start && g.Dir == Falling
-			out = append(out, tipAt(t, h, b, i, top, band))
-		}
-	}
-	sortTips(out)
-	return out
-}
-
-func tipAt(t, h, b []float64, i int, top bool, band float64) Tip {
-	in := func(j int) bool {
-		if top {
-			return h[i]-h[j] <= band
-		}
-		return h[j]-h[i] <= band
-	}
-	tp := Tip{Index: i, Top: top}
-	for j := i; j >= 0 && in(j); j-- {
-		tp.add(t, h, b, j)
-	}
-	for j := i + 1; j < len(h) && in(j); j++ {
-		tp.add(t, h, b, j)
-	}
-	n := float64(tp.N)
-	if tp.N > 1 {
-		v := (tp.b2 - tp.B*tp.B/n) / (n - 1)
-		tp.UB = math.Sqrt(math.Max(v, 0) / n)
-	}
-	tp.H /= n
-	tp.B /= n
-	tp.T /= n
-	tp.b2 = 0
-	return tp
-}
-
-func (tp *Tip) add(t, h, b []float64, j int) {
-	tp.N++
-	tp.H += h[j]
-	tp.B += b[j]
-	tp.b2 += b[j] * b[j]
-	if t != nil {
-		tp.T += t[j]
-	} else {
-		tp.T += float64(j)
-	}
 }
 
 func sortTips(a []Tip) {

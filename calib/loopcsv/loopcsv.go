@@ -1,18 +1,21 @@
 // Package loopcsv reads a B–H loop from CSV and reports its figures, for
 // `hystd analyze`. The CSV has a header row naming the columns H (A/m) and B
-// (T), optionally t (s); other columns are ignored, lines starting with '#'
-// are comments. H and B may be given in other units (Options). Every problem
-// is reported with the file, line and column.
+// (T), optionally t (s); a name may carry its unit in brackets ("H (Oe)",
+// "B [T]", "t (s)"); other columns are ignored, lines starting with '#' are
+// comments; fields are separated by ',' or, when the header has ';' and no
+// ',', by ';'. H and B may also be given in other units by Options. Every
+// problem is reported with the file, line and column.
 package loopcsv
 
 import (
-	"bufio"
+	"bytes"
 	"encoding/csv"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
 	"math"
+	"regexp"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -21,11 +24,16 @@ import (
 	"hystd/calib/units"
 )
 
-// Options say which units the H and B columns are in; empty means SI.
+// Options say which units the H and B columns are in; empty means the unit
+// named in the header, else SI. A unit given here and a different one in
+// the header is an error.
 type Options struct {
-	HUnit string // "A/m" (default), "kA/m", "Oe", "kOe", or any unit ParseAmperePerMetre knows
-	BUnit string // "T" (default), "mT", "G", "kG", or any unit ParseTesla knows
+	HUnit string // "A/m", "kA/m", "Oe", "kOe", or any unit ParseAmperePerMetre knows
+	BUnit string // "T", "mT", "G", "kG", or any unit ParseTesla knows
 }
+
+// headerName splits a header field into its name and the unit in brackets.
+var headerName = regexp.MustCompile(`^\s*([^\s(\[]+)\s*(?:[(\[]\s*([^)\]]*?)\s*[)\]])?\s*$`)
 
 // Data is a loop read from CSV, in SI units.
 type Data struct {
@@ -70,15 +78,12 @@ func factor(unit, si string, parse func(string) (float64, error)) (float64, erro
 
 // Read parses a loop from r; name is used in errors.
 func Read(r io.Reader, name string, opt Options) (Data, error) {
-	hf, err := factor(opt.HUnit, "A/m", func(s string) (float64, error) { v, err := units.ParseAmperePerMetre(s); return float64(v), err })
+	raw, err := io.ReadAll(r)
 	if err != nil {
-		return Data{}, &Error{File: name, Msg: "--h-unit: " + err.Error()}
+		return Data{}, &Error{File: name, Msg: err.Error()}
 	}
-	bf, err := factor(opt.BUnit, "T", func(s string) (float64, error) { v, err := units.ParseTesla(s); return float64(v), err })
-	if err != nil {
-		return Data{}, &Error{File: name, Msg: "--b-unit: " + err.Error()}
-	}
-	cr := csv.NewReader(bufio.NewReader(r))
+	cr := csv.NewReader(bytes.NewReader(raw))
+	cr.Comma = sniffComma(raw)
 	cr.Comment = '#'
 	cr.FieldsPerRecord = -1
 	cr.TrimLeadingSpace = true
@@ -92,20 +97,67 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 	}
 	hl, _ := cr.FieldPos(0)
 	col := map[string]int{}
+	unit := map[string]string{}
 	var names []string
 	for i, c := range header {
 		c = strings.TrimSpace(strings.TrimPrefix(c, "\ufeff"))
 		names = append(names, c)
+		u := ""
+		if m := headerName.FindStringSubmatch(c); m != nil {
+			c, u = m[1], m[2]
+		}
 		if _, dup := col[c]; dup && (c == "H" || c == "B" || c == "t") {
 			return Data{}, &Error{File: name, Line: hl, Column: c, Msg: "named twice in the header"}
 		}
 		col[c] = i
+		unit[c] = u
 	}
 	for _, need := range []string{"H", "B"} {
 		if _, ok := col[need]; !ok {
 			return Data{}, &Error{File: name, Line: hl, Msg: fmt.Sprintf("header has no column %q (columns: %s); want H in A/m and B in T, t in s optional",
 				need, strings.Join(names, ", "))}
 		}
+	}
+	pick := func(c, flag, header string) (string, error) {
+		if flag != "" && header != "" && flag != header {
+			return "", &Error{File: name, Line: hl, Column: c, Msg: fmt.Sprintf("the header says %q, the option --%s-unit %q", header, strings.ToLower(c), flag)}
+		}
+		if flag != "" {
+			return flag, nil
+		}
+		return header, nil
+	}
+	hu, err := pick("H", opt.HUnit, unit["H"])
+	if err != nil {
+		return Data{}, err
+	}
+	bu, err := pick("B", opt.BUnit, unit["B"])
+	if err != nil {
+		return Data{}, err
+	}
+	hf, err := factor(hu, "A/m", func(s string) (float64, error) { v, err := units.ParseAmperePerMetre(s); return float64(v), err })
+	if err != nil {
+		where := "--h-unit: "
+		if opt.HUnit == "" {
+			where = fmt.Sprintf("line %d: column H: ", hl)
+		}
+		return Data{}, &Error{File: name, Msg: where + err.Error()}
+	}
+	bf, err := factor(bu, "T", func(s string) (float64, error) { v, err := units.ParseTesla(s); return float64(v), err })
+	if err != nil {
+		where := "--b-unit: "
+		if opt.BUnit == "" {
+			where = fmt.Sprintf("line %d: column B: ", hl)
+		}
+		return Data{}, &Error{File: name, Msg: where + err.Error()}
+	}
+	tf := 1.0
+	switch unit["t"] {
+	case "", "s":
+	case "ms":
+		tf = 1e-3
+	default:
+		return Data{}, &Error{File: name, Line: hl, Column: "t", Msg: fmt.Sprintf("unit %q: want s or ms", unit["t"])}
 	}
 	ti, hasT := col["t"]
 	var d Data
@@ -143,10 +195,10 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 			if err != nil {
 				return Data{}, err
 			}
-			if n := len(d.T); n > 0 && t < d.T[n-1] {
-				return Data{}, &Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t, d.T[n-1])}
+			if n := len(d.T); n > 0 && t*tf < d.T[n-1] {
+				return Data{}, &Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t*tf, d.T[n-1])}
 			}
-			d.T = append(d.T, t)
+			d.T = append(d.T, t*tf)
 		}
 		d.H = append(d.H, h*hf)
 		d.B = append(d.B, b*bf)
@@ -156,6 +208,28 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 		return Data{}, &Error{File: name, Msg: "no data rows after the header"}
 	}
 	return d, nil
+}
+
+// sniffComma returns ';' when the first line that is not a comment has a
+// ';' and no ',', else ','.
+func sniffComma(raw []byte) rune {
+	for len(raw) > 0 {
+		line := raw
+		if i := bytes.IndexByte(raw, '\n'); i >= 0 {
+			line, raw = raw[:i], raw[i+1:]
+		} else {
+			raw = nil
+		}
+		t := bytes.TrimSpace(line)
+		if len(t) == 0 || t[0] == '#' {
+			continue
+		}
+		if bytes.IndexByte(t, ';') >= 0 && bytes.IndexByte(t, ',') < 0 {
+			return ';'
+		}
+		return ','
+	}
+	return ','
 }
 
 func csvError(name string, err error) error {
@@ -178,32 +252,79 @@ func (n Num) MarshalJSON() ([]byte, error) {
 	return []byte(strconv.FormatFloat(float64(n), 'g', 7, 64)), nil
 }
 
+// UNum is an expanded uncertainty for JSON: two significant digits (GUM
+// 7.2.6), null when not available.
+type UNum float64
+
+// MarshalJSON implements json.Marshaler.
+func (n UNum) MarshalJSON() ([]byte, error) {
+	if math.IsNaN(float64(n)) || math.IsInf(float64(n), 0) {
+		return []byte("null"), nil
+	}
+	return []byte(strconv.FormatFloat(float64(n), 'g', 2, 64)), nil
+}
+
 // Summary holds the figures `hystd analyze --json` prints, in SI units.
 // Negative-branch values are magnitudes averaged over both branches;
-// BHmax is the 2nd-quadrant maximum of |B·H|.
+// BHmax is the 2nd-quadrant maximum of |B·H|. Each key has a twin ending in
+// _u: its expanded uncertainty (k = 2) from noise and the estimator (what
+// the samples alone tell). BOffsetT is the B offset removed by centring (0
+// when the loop was not centred).
 type Summary struct {
-	HmaxAM   Num `json:"hmax_a_m"`
-	BmaxT    Num `json:"bmax_t"`
-	BrT      Num `json:"br_t"`
-	HcBAM    Num `json:"hcb_a_m"`
-	HcJAM    Num `json:"hcj_a_m"`
-	MuA      Num `json:"mu_a"`
-	LossJM3  Num `json:"loss_j_m3"`
-	BHmaxJM3 Num `json:"bhmax_j_m3"`
+	HmaxAM    Num  `json:"hmax_a_m"`
+	BmaxT     Num  `json:"bmax_t"`
+	BrT       Num  `json:"br_t"`
+	HcBAM     Num  `json:"hcb_a_m"`
+	HcJAM     Num  `json:"hcj_a_m"`
+	MuA       Num  `json:"mu_a"`
+	LossJM3   Num  `json:"loss_j_m3"`
+	BHmaxJM3  Num  `json:"bhmax_j_m3"`
+	HmaxAMU   UNum `json:"hmax_a_m_u"`
+	BmaxTU    UNum `json:"bmax_t_u"`
+	BrTU      UNum `json:"br_t_u"`
+	HcBAMU    UNum `json:"hcb_a_m_u"`
+	HcJAMU    UNum `json:"hcj_a_m_u"`
+	MuAU      UNum `json:"mu_a_u"`
+	LossJM3U  UNum `json:"loss_j_m3_u"`
+	BHmaxJM3U UNum `json:"bhmax_j_m3_u"`
+	Centred   bool `json:"centred"`
+	BOffsetT  Num  `json:"b_offset_t"`
+}
+
+// AnalyzeOptions select how a loop is taken.
+type AnalyzeOptions struct {
+	// NoCentre keeps B as given. By default a symmetric cyclic loop (tips
+	// at ±Hmax within 5 % of the H range) is centred: the mean of B at its
+	// top and bottom tips is subtracted (REFERENCE §5), since the
+	// integrator's start level is arbitrary. Keep B as given for loops with
+	// an absolute level (from a demagnetized start).
+	NoCentre bool
 }
 
 // Result is the analysis of one file: the summary and the figures with
-// their budgets (noise and sampling only: analyze knows no geometry or
+// their budgets (noise and estimator only: analyze knows no geometry or
 // instruments).
 type Result struct {
 	Summary Summary
 	Figures []loop.Figure
 	Cycles  int
+	// Offset is the B offset in T removed by centring; Centred says
+	// whether it was.
+	Offset  float64
+	Centred bool
 }
 
+// symmetricFraction is how far (as a fraction of the H range) the top and
+// bottom tips may be from symmetric about H = 0 for a loop to be centred.
+const symmetricFraction = 0.05
+
 // Analyze computes the figures of d. It needs at least one full cycle
-// (tip to tip and back); name is used in errors.
-func Analyze(d Data, name string) (Result, error) {
+// (tip to tip and back); name is used in errors. d.B is not modified.
+func Analyze(d Data, name string, opts ...AnalyzeOptions) (Result, error) {
+	var ao AnalyzeOptions
+	if len(opts) > 0 {
+		ao = opts[0]
+	}
 	s, err := loop.Detect(d.H)
 	if err != nil {
 		return Result{}, &Error{File: name, Column: "H", Msg: err.Error()}
@@ -214,25 +335,51 @@ func Analyze(d Data, name string) (Result, error) {
 			"fewer than one full cycle: H must run from one tip to the other and back (found %d complete branch(es) in %d rows)",
 			len(s.Complete()), len(d.H))}
 	}
-	fs, err := loop.Figures(d.T, d.H, d.B, s, loop.Options{})
+	b := d.B
+	var res Result
+	if !ao.NoCentre {
+		tips := s.Tips(d.T, d.H, d.B)
+		var ht, hb, nt, nb float64
+		for _, tp := range tips {
+			if tp.Top {
+				ht, nt = ht+tp.H, nt+1
+			} else {
+				hb, nb = hb+tp.H, nb+1
+			}
+		}
+		top, bot, ok := loop.TipLevels(tips)
+		if ok && math.Abs(ht/nt+hb/nb) <= symmetricFraction*(s.Hi-s.Lo) {
+			res.Offset, res.Centred = (top+bot)/2, true
+			b = make([]float64, len(d.B))
+			for i, v := range d.B {
+				b[i] = v - res.Offset
+			}
+		}
+	}
+	fs, err := loop.Figures(d.T, d.H, b, s, loop.Options{})
 	if err != nil {
 		return Result{}, &Error{File: name, Msg: err.Error()}
 	}
-	get := func(n string) Num {
+	get := func(n string) (Num, UNum) {
 		for _, f := range fs {
 			if f.Name == n {
-				return Num(f.Value)
+				return Num(f.Value), UNum(f.U)
 			}
 		}
-		return Num(math.NaN())
+		return Num(math.NaN()), UNum(math.NaN())
 	}
-	return Result{
-		Summary: Summary{
-			HmaxAM: get(loop.FigHmax), BmaxT: get(loop.FigBmax), BrT: get(loop.FigBr), HcBAM: get(loop.FigHcB),
-			HcJAM: get(loop.FigHcJ), MuA: get(loop.FigMuA), LossJM3: get(loop.FigLossJM3), BHmaxJM3: get(loop.FigBHmax),
-		},
-		Figures: fs, Cycles: len(cy),
-	}, nil
+	var sm Summary
+	sm.HmaxAM, sm.HmaxAMU = get(loop.FigHmax)
+	sm.BmaxT, sm.BmaxTU = get(loop.FigBmax)
+	sm.BrT, sm.BrTU = get(loop.FigBr)
+	sm.HcBAM, sm.HcBAMU = get(loop.FigHcB)
+	sm.HcJAM, sm.HcJAMU = get(loop.FigHcJ)
+	sm.MuA, sm.MuAU = get(loop.FigMuA)
+	sm.LossJM3, sm.LossJM3U = get(loop.FigLossJM3)
+	sm.BHmaxJM3, sm.BHmaxJM3U = get(loop.FigBHmax)
+	sm.Centred, sm.BOffsetT = res.Centred, Num(res.Offset)
+	res.Summary, res.Figures, res.Cycles = sm, fs, len(cy)
+	return res, nil
 }
 
 // WriteJSON writes the summary as one JSON object and a newline.
@@ -251,8 +398,31 @@ var tableRows = []struct{ name, label string }{
 	{loop.FigHcJ, "HcJ"}, {loop.FigMuA, "mu_a"}, {loop.FigLossJM3, "loss per cycle"}, {loop.FigBHmax, "(BH)max"},
 }
 
+// Rounded returns v and U (expanded) as text rounded after GUM (JCGM
+// 100:2008) 7.2.6: U to two significant digits, v to the same decimal
+// place. A zero or non-finite U leaves v at 6 significant digits and U "0".
+func Rounded(v, u float64) (string, string) {
+	if !(u > 0) || math.IsInf(u, 0) || math.IsNaN(v) {
+		return strconv.FormatFloat(v, 'g', 6, 64), "0"
+	}
+	e := int(math.Floor(math.Log10(u))) - 1 // decimal exponent of U's second digit
+	q := math.Pow(10, float64(e))
+	ur := math.Round(u/q) * q
+	if ur >= 100*q { // 99.6 → 100: three digits, one place up
+		e++
+		q *= 10
+		ur = math.Round(u/q) * q
+	}
+	vr := math.Round(v/q) * q
+	if e < 0 {
+		return strconv.FormatFloat(vr, 'f', -e, 64), strconv.FormatFloat(ur, 'f', -e, 64)
+	}
+	return strconv.FormatFloat(vr, 'f', 0, 64), strconv.FormatFloat(ur, 'f', 0, 64)
+}
+
 // WriteTable writes the figures as an aligned table with units and the
-// expanded uncertainty (k = 2) of noise and sampling.
+// expanded uncertainty (k = 2) of noise and the estimator, values rounded
+// to their uncertainty (GUM 7.2.6).
 func (r Result) WriteTable(w io.Writer) error {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "figure\tvalue\tU (k=2)\tunit")
@@ -275,11 +445,17 @@ func (r Result) WriteTable(w io.Writer) error {
 		if u < 1e-9*math.Abs(f.Value) {
 			u = 0 // round-off, not an uncertainty
 		}
-		fmt.Fprintf(tw, "%s\t%.6g\t%.2g\t%s\n", row.label, f.Value, u, unit)
+		vs, us := Rounded(f.Value, u)
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\n", row.label, vs, us, unit)
 	}
 	if err := tw.Flush(); err != nil {
 		return err
 	}
-	_, err := fmt.Fprintf(w, "%d full cycle(s); U covers noise and sampling only (geometry and instruments are not known here).\n", r.Cycles)
+	if r.Centred {
+		if _, err := fmt.Fprintf(w, "B centred: offset %.6g T removed (mean of B at the top and bottom tips).\n", r.Offset); err != nil {
+			return err
+		}
+	}
+	_, err := fmt.Fprintf(w, "%d full cycle(s); U covers noise and the estimator only (geometry and instruments are not known here).\n", r.Cycles)
 	return err
 }

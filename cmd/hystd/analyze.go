@@ -14,14 +14,17 @@ func init() { register(newAnalyzeCmd) }
 // newAnalyzeCmd builds `hystd analyze FILE.csv [--json]`: the figures of a
 // loop given as CSV (columns H in A/m and B in T, optional t in s).
 func newAnalyzeCmd() *cobra.Command {
-	var asJSON bool
+	var asJSON, noCentre bool
 	var opt loopcsv.Options
 	c := &cobra.Command{
 		Use:   "analyze FILE.csv",
 		Short: "Figures of a B–H loop given as CSV (columns H, B, optional t)",
-		Long: "Reads a loop from CSV with a header naming the columns H (A/m) and B (T), optionally t (s),\n" +
-			"and prints Hmax, Bmax, Br, HcB, HcJ, mu_a, loss per cycle and (BH)max. The loop is taken as\n" +
-			"already corrected; at least one full cycle is needed.",
+		Long: "Reads a loop from CSV with a header naming the columns H (A/m) and B (T), optionally t (s);\n" +
+			"a name may carry its unit (\"H (Oe)\", \"B [kG]\"), fields may be separated by ',' or ';'.\n" +
+			"Prints Hmax, Bmax, Br, HcB, HcJ, mu_a, loss per cycle and (BH)max with their expanded\n" +
+			"uncertainty (k = 2, noise and estimator), rounded to it (GUM 7.2.6); --json prints full precision.\n" +
+			"A symmetric cyclic loop is centred (the mean of B at its tips is removed and reported);\n" +
+			"--keep-level keeps B as given. At least one full cycle is needed.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			f, err := os.Open(args[0])
@@ -33,7 +36,7 @@ func newAnalyzeCmd() *cobra.Command {
 			if err != nil {
 				return err
 			}
-			r, err := loopcsv.Analyze(d, args[0])
+			r, err := loopcsv.Analyze(d, args[0], loopcsv.AnalyzeOptions{NoCentre: noCentre})
 			if err != nil {
 				return err
 			}
@@ -47,7 +50,8 @@ func newAnalyzeCmd() *cobra.Command {
 		},
 	}
 	c.Flags().BoolVar(&asJSON, "json", false, "print one JSON object with SI keys")
-	c.Flags().StringVar(&opt.HUnit, "h-unit", "A/m", "unit of the H column: A/m, kA/m, Oe, kOe")
-	c.Flags().StringVar(&opt.BUnit, "b-unit", "T", "unit of the B column: T, mT, G, kG")
+	c.Flags().StringVar(&opt.HUnit, "h-unit", "", "unit of the H column: A/m, kA/m, Oe, kOe (default: from the header, else A/m)")
+	c.Flags().StringVar(&opt.BUnit, "b-unit", "", "unit of the B column: T, mT, G, kG (default: from the header, else T)")
+	c.Flags().BoolVar(&noCentre, "keep-level", false, "do not centre B (for loops with an absolute level, e.g. from a demagnetized start)")
 	return c
 }
