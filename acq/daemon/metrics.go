@@ -5,6 +5,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
 	"hystd/acq/live"
+	"hystd/buildinfo"
 )
 
 // Metrics are the daemon's Prometheus collectors, in a registry of their own
@@ -31,7 +32,11 @@ func newMetrics(d *Daemon, version string) *Metrics {
 		files:    prometheus.NewCounterVec(prometheus.CounterOpts{Name: "hystd_watch_files_total", Help: "Recipe files picked up from watched folders, by outcome."}, []string{"fixture", "outcome"}),
 		samples:  prometheus.NewCounter(prometheus.CounterOpts{Name: "hystd_live_samples_total", Help: "Samples recorded in loops, all fixtures."}),
 	}
-	info := prometheus.NewGauge(prometheus.GaugeOpts{Name: "hystd_build_info", Help: "Always 1; the version is a label.", ConstLabels: prometheus.Labels{"version": version}})
+	labels := prometheus.Labels(buildinfo.Read().Labels())
+	if version != "" {
+		labels["software"] = version
+	}
+	info := prometheus.NewGauge(prometheus.GaugeOpts{Name: "hystd_build_info", Help: "Always 1; version, VCS revision, modified flag, Go version and the recorded software text are labels.", ConstLabels: labels})
 	info.Set(1)
 	m.Registry.MustRegister(m.queued, m.active, m.ended, m.refused, m.reloads, m.files, m.samples, info,
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))

@@ -13,10 +13,14 @@ import (
 	"syscall"
 
 	"github.com/spf13/cobra"
+
+	"hystd/buildinfo"
 )
 
-// version is set at build time with -ldflags "-X main.version=...".
-var version = "0.1.0-dev"
+// version is what the program records as its software: version, VCS
+// revision, modified flag and Go version (package buildinfo; releases set
+// them with -ldflags "-X hystd/buildinfo.Version=...").
+var version = buildinfo.Read().Software()
 
 // commands holds the constructors registered by the command files.
 var commands []func() *cobra.Command
