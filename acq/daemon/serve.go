@@ -11,6 +11,7 @@ import (
 	"os"
 	"os/signal"
 	"path/filepath"
+	"reflect"
 	"strings"
 	"sync"
 	"syscall"
@@ -24,6 +25,7 @@ import (
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/buildinfo"
 	"hystd/calib/units"
 )
 
@@ -79,6 +81,8 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	cfg.LoadedAt = time.Now()
 	log := NewLogger(cfg, w.Stderr)
+	bi := buildinfo.Read()
+	log.Info("hystd starting", "version", bi.Version, "revision", bi.Revision, "modified", bi.Modified, "go", bi.GoVersion, "software", w.Software)
 	st, err := store.Open(ctx, cfg.Config.Store.Path)
 	if err != nil {
 		return err
@@ -208,7 +212,7 @@ func reload(d *Daemon, path string, log *slog.Logger) {
 	if nc.Store.Path != old.Store.Path {
 		restart = append(restart, "store.path")
 	}
-	if (nc.Influx == nil) != (old.Influx == nil) || (nc.Influx != nil && *nc.Influx != *old.Influx) {
+	if (nc.Influx == nil) != (old.Influx == nil) || (nc.Influx != nil && !reflect.DeepEqual(*nc.Influx, *old.Influx)) {
 		restart = append(restart, "influx")
 	}
 	if nc.Log != old.Log {
