@@ -23,6 +23,7 @@ import (
 	"hystd/acq/engine"
 	"hystd/acq/influx"
 	"hystd/acq/live"
+	"hystd/acq/outbox"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/buildinfo"
@@ -36,6 +37,7 @@ type APIParts struct {
 	Live    *live.Hub
 	Token   string              // bearer token for mutations; "": mutations refused
 	Metrics prometheus.Gatherer // the daemon's metrics, for the API's /metrics
+	Outbox  outbox.Store        // quarantined loops, for the API's /api/v1/outbox
 	Version string
 	Log     *slog.Logger
 }
@@ -122,7 +124,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	var h http.Handler
 	if w.API != nil {
-		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Metrics: d.metrics.Registry,
+		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Metrics: d.metrics.Registry, Outbox: st,
 			Version: w.Software, Log: log.With("part", "api")})
 		if err != nil {
 			d.Stop("the HTTP API could not be built")

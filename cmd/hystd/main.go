@@ -10,6 +10,7 @@ import (
 	"os"
 	"os/signal"
 	"sort"
+	"strings"
 	"syscall"
 
 	"github.com/spf13/cobra"
@@ -42,7 +43,35 @@ func newRoot() *cobra.Command {
 	}
 	sort.Slice(subs, func(i, j int) bool { return subs[i].Name() < subs[j].Name() })
 	root.AddCommand(subs...)
+	usageExits(root)
 	return root
+}
+
+// Exit statuses shared by every command (README "Exit status"); commands
+// name their own from 3 on.
+const (
+	exitOK     = 0
+	exitFailed = 1
+	exitUsage  = 2
+)
+
+// usageExits makes every flag or argument error of c and its subcommands exit
+// with status 2.
+func usageExits(c *cobra.Command) {
+	c.SetFlagErrorFunc(func(_ *cobra.Command, err error) error {
+		return &exitError{code: exitUsage, err: err}
+	})
+	if args := c.Args; args != nil {
+		c.Args = func(cmd *cobra.Command, a []string) error {
+			if err := args(cmd, a); err != nil {
+				return &exitError{code: exitUsage, err: err}
+			}
+			return nil
+		}
+	}
+	for _, s := range c.Commands() {
+		usageExits(s)
+	}
 }
 
 // exitError carries a process exit code through cobra.
@@ -66,5 +95,8 @@ func main() {
 	if errors.As(err, &ee) {
 		os.Exit(ee.code)
 	}
-	os.Exit(1)
+	if strings.HasPrefix(err.Error(), "unknown command") || strings.HasPrefix(err.Error(), "required flag") {
+		os.Exit(exitUsage)
+	}
+	os.Exit(exitFailed)
 }
