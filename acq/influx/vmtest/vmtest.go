@@ -194,6 +194,13 @@ func (s *Server) start() error {
 	case a := <-addrc:
 		s.addr = a
 		s.URL = "http://" + a
+		// With -http.pathPrefix every request, writes and exports alike,
+		// goes under the prefix; URL includes it.
+		for _, f := range s.args {
+			if p, ok := strings.CutPrefix(f, "-http.pathPrefix="); ok {
+				s.URL += strings.TrimSuffix(p, "/")
+			}
+		}
 	case <-done:
 		tailMu.Lock()
 		defer tailMu.Unlock()
