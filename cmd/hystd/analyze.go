@@ -49,5 +49,7 @@ func newAnalyzeCmd() *cobra.Command {
 	c.Flags().BoolVar(&asJSON, "json", false, "print one JSON object with SI keys")
 	c.Flags().StringVar(&opt.HUnit, "h-unit", "A/m", "unit of the H column: A/m, kA/m, Oe, kOe")
 	c.Flags().StringVar(&opt.BUnit, "b-unit", "T", "unit of the B column: T, mT, G, kG")
+	_ = c.RegisterFlagCompletionFunc("h-unit", fixedValues("A/m", "kA/m", "Oe", "kOe"))
+	_ = c.RegisterFlagCompletionFunc("b-unit", fixedValues("T", "mT", "G", "kG"))
 	return c
 }
