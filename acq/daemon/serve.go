@@ -85,6 +85,9 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	log := NewLogger(cfg, w.Stderr)
 	bi := buildinfo.Read()
 	log.Info("hystd starting", "version", bi.Version, "revision", bi.Revision, "modified", bi.Modified, "go", bi.GoVersion, "software", w.Software)
+	for _, name := range UnknownEnv(os.Environ(), cfg.Config) {
+		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
+	}
 	st, err := store.Open(ctx, cfg.Config.Store.Path)
 	if err != nil {
 		return err
