@@ -5,6 +5,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
 	"hystd/acq/live"
+	"hystd/acq/record"
 	"hystd/buildinfo"
 )
 
@@ -41,6 +42,22 @@ func newMetrics(d *Daemon, version string) *Metrics {
 	m.Registry.MustRegister(m.queued, m.active, m.ended, m.refused, m.reloads, m.files, m.samples, info,
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	return m
+}
+
+// initFixture creates every per-fixture series at zero, so that a fixture
+// shows in /metrics (and rate() has a start) before its first run.
+func (m *Metrics) initFixture(name string) {
+	m.queued.WithLabelValues(name)
+	m.active.WithLabelValues(name)
+	for _, st := range []record.State{record.Finished, record.Aborted, record.Failed} {
+		m.ended.WithLabelValues(name, string(st))
+	}
+	for _, src := range []string{"api", "watch", "schedule", "cli"} {
+		m.refused.WithLabelValues(name, src)
+	}
+	for _, o := range []string{"queued", "refused", DoneDir, FailedDir} {
+		m.files.WithLabelValues(name, o)
+	}
 }
 
 // ReloadFailed counts a reload refused because the new config was invalid.
