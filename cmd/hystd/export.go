@@ -107,7 +107,7 @@ func runExport(ctx context.Context, stdout io.Writer, dataDir, run string, f exp
 	var buf bytes.Buffer
 	if err := export.Write(ctx, &buf, st, run, f, o); err != nil {
 		if errors.Is(err, record.ErrNotFound) {
-			return &exitError{code: 3, err: err}
+			return &exitError{code: exitNotFound, err: err}
 		}
 		return err
 	}

@@ -47,12 +47,15 @@ func newRoot() *cobra.Command {
 	return root
 }
 
-// Exit statuses shared by every command (README "Exit status"); commands
-// name their own from 3 on.
+// Exit statuses (README "Exit status"): 0, 1 and 2 mean the same in every
+// command; 3 and up are named per command.
 const (
-	exitOK     = 0
-	exitFailed = 1
-	exitUsage  = 2
+	exitOK        = 0
+	exitFailed    = 1 // an error: bad input file, I/O, refused
+	exitUsage     = 2 // unknown command or flag, wrong arguments, bad flag value
+	exitRunFailed = 3 // run: the run failed
+	exitAborted   = 4 // run: the run was aborted (signal or API)
+	exitNotFound  = 3 // export: no such run or loop
 )
 
 // usageExits makes every flag or argument error of c and its subcommands exit
