@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"testing"
 	"time"
 
@@ -26,7 +27,8 @@ import (
 func TestInfluxV1(t *testing.T) {
 	srv := influxv1test.Start(t, "hystd")
 	st := openStore(t, filepath.Join(t.TempDir(), "hystd.db"))
-	demoRun(t, st, "v1-run-1", t0, 2, 1500)
+	// Recorded two hours ago, so that the README's time windows hold it.
+	demoRun(t, st, "v1-run-1", time.Now().Add(-2*time.Hour), 2, 1500)
 	tok := filepath.Join(t.TempDir(), "token")
 	if err := os.WriteFile(tok, []byte(influxv1test.User+":"+influxv1test.Password+"\n"), 0o600); err != nil {
 		t.Fatal(err)
@@ -46,6 +48,16 @@ func TestInfluxV1(t *testing.T) {
 	}
 	t.Logf("%d points acknowledged by InfluxDB 1.x", n)
 	compareWithStore(t, ctx, srv, "hystd", st, "v1-run-1", cfg.Tags)
+
+	// README.md's InfluxQL examples answer on this server.
+	fix := strings.NewReplacer("aldermoor-ring-2-20261201T230230Z-1ec464", "v1-run-1", "R17-003", "R-17")
+	for _, q := range readmeBlock(t, "sql", true) {
+		q = fix.Replace(q)
+		series, err := srv.Query(ctx, "hystd", q)
+		if err != nil || len(series) == 0 || len(series[0].Values) == 0 {
+			t.Errorf("README query %s: %v, %d series", q, err, len(series))
+		}
+	}
 
 	// A wrong password is refused by the server (HTTP 401) and nothing is
 	// marked delivered.
