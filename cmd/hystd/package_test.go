@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"compress/gzip"
+	"encoding/json"
 	"io"
 	"os"
 	"os/exec"
@@ -80,11 +81,41 @@ func TestPackage(t *testing.T) {
 		t.Fatalf("%s version: %v\n%s", bin, err, out)
 	}
 	t.Logf("installed hystd version:\n%s", out)
-	if rev, err := exec.Command("git", "rev-parse", "HEAD").Output(); err == nil {
-		if r := strings.TrimSpace(string(rev)); !strings.Contains(string(out), "revision: "+r) {
-			t.Errorf("hystd version does not name the checkout's revision %s:\n%s", r, out)
-		}
+	rev, err := exec.Command("git", "rev-parse", "HEAD").Output()
+	if err != nil {
+		t.Fatalf("git rev-parse HEAD: %v", err)
 	}
+	r := strings.TrimSpace(string(rev))
+	if !strings.Contains(string(out), "revision: "+r) {
+		t.Errorf("hystd version does not name the checkout's revision %s:\n%s", r, out)
+	}
+	// A run recorded by the installed binary stores the same revision as its
+	// software (the demo on the simulated bench, ~25 s).
+	data := t.TempDir()
+	demoOut, err := exec.Command(bin, "demo", "--data", data).Output()
+	if err != nil {
+		t.Fatalf("installed hystd demo: %v\n%s", err, demoOut)
+	}
+	m := regexp.MustCompile(`run (\S+) finished; stored in`).FindSubmatch(demoOut)
+	if m == nil {
+		t.Fatalf("no finished run in the demo's output:\n%s", demoOut)
+	}
+	js, err := exec.Command(bin, "export", string(m[1]), "--data", data, "--format", "json").Output()
+	if err != nil {
+		t.Fatalf("installed hystd export: %v", err)
+	}
+	var exp struct {
+		Run struct {
+			Software string `json:"software"`
+		} `json:"run"`
+	}
+	if err := json.Unmarshal(js, &exp); err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(exp.Run.Software, "rev "+r[:12]) {
+		t.Errorf("stored software %q does not name revision %s", exp.Run.Software, r[:12])
+	}
+	t.Logf("stored run %s: software %q", m[1], exp.Run.Software)
 	sysusers, _ := os.ReadFile(filepath.Join(root, "usr/lib/sysusers.d/hystd.conf"))
 	if !regexp.MustCompile(`(?m)^u hystd `).Match(sysusers) || !regexp.MustCompile(`(?m)^m hystd dialout$`).Match(sysusers) {
 		t.Errorf("sysusers entry does not create hystd in dialout:\n%s", sysusers)
@@ -94,7 +125,7 @@ func TestPackage(t *testing.T) {
 	sa := needTool(t, "systemd-analyze", "systemd")
 	unit := filepath.Join(root, "usr/lib/systemd/system/hystd.service")
 	sec, err := exec.Command(sa, "security", "--offline=true", unit).CombinedOutput()
-	m := regexp.MustCompile(`Overall exposure level for hystd.service: ([0-9.]+)`).FindSubmatch(sec)
+	m = regexp.MustCompile(`Overall exposure level for hystd.service: ([0-9.]+)`).FindSubmatch(sec)
 	if m == nil {
 		t.Fatalf("systemd-analyze security: %v\n%s", err, sec)
 	}
