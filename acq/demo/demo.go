@@ -130,7 +130,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	for _, w := range warnings {
-		fmt.Fprintln(out, "warning:", w)
+		log.Warn(w) // a log line: stderr under hystd demo
 	}
 
 	pub := &progress{out: out, hub: o.Live}
