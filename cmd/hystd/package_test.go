@@ -122,6 +122,35 @@ func TestPackage(t *testing.T) {
 	}
 	checkManPages(t, root, bin)
 
+	// What the postinst does, done by systemd's own tools in the scratch
+	// root: the user hystd in group dialout, /var/lib/hystd owned by it.
+	if sysusersBin, err := exec.LookPath("systemd-sysusers"); err == nil {
+		for _, f := range []string{"passwd", "group"} {
+			b, err := os.ReadFile("/etc/" + f)
+			if err != nil {
+				t.Fatal(err)
+			}
+			os.MkdirAll(filepath.Join(root, "etc"), 0o755)
+			if err := os.WriteFile(filepath.Join(root, "etc", f), b, 0o644); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if out, err := exec.Command(sysusersBin, "--root="+root, filepath.Join(root, "usr/lib/sysusers.d/hystd.conf")).CombinedOutput(); err != nil {
+			t.Fatalf("systemd-sysusers: %v\n%s", err, out)
+		}
+		group, _ := os.ReadFile(filepath.Join(root, "etc/group"))
+		if !regexp.MustCompile(`(?m)^dialout:[^:]*:[0-9]+:(.*,)?hystd(,|$)`).Match(group) {
+			t.Errorf("after systemd-sysusers, hystd is not in dialout:\n%s", group)
+		}
+		if out, err := exec.Command("systemd-tmpfiles", "--root="+root, "--create", filepath.Join(root, "usr/lib/tmpfiles.d/hystd.conf")).CombinedOutput(); err != nil {
+			t.Errorf("systemd-tmpfiles: %v\n%s", err, out)
+		} else if fi, err := os.Stat(filepath.Join(root, "var/lib/hystd/inbox")); err != nil || !fi.IsDir() {
+			t.Errorf("systemd-tmpfiles did not create /var/lib/hystd/inbox: %v", err)
+		}
+	} else if os.Getenv("CI") == "true" {
+		t.Errorf("systemd-sysusers not found (Debian package systemd)")
+	}
+
 	sa := needTool(t, "systemd-analyze", "systemd")
 	unit := filepath.Join(root, "usr/lib/systemd/system/hystd.service")
 	sec, err := exec.Command(sa, "security", "--offline=true", unit).CombinedOutput()
