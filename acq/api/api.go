@@ -33,6 +33,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
 	"hystd/acq/live"
+	"hystd/acq/outbox"
 	"hystd/acq/record"
 )
 
@@ -65,6 +66,9 @@ type Options struct {
 	Runner   Runner
 	Live     live.Source
 	Gatherer prometheus.Gatherer // served at /metrics with the API's own metrics; nil: API metrics only
+	// Outbox, when set, serves GET /api/v1/outbox (quarantined loops) and
+	// POST /api/v1/outbox/requeue (token).
+	Outbox outbox.Store
 
 	// Token is the bearer token for mutations. When empty, TokenFile (first
 	// line, surrounding spaces trimmed) and then the environment variable
@@ -191,6 +195,8 @@ func (s *server) routes() {
 	read("/api/v1/mounts", s.listMounts)
 	read("/api/v1/specimens", s.listSpecimens)
 	read("/api/v1/runs/{id}/report", s.report)
+	read("/api/v1/outbox", s.outboxList)
+	write("/api/v1/outbox/requeue", s.outboxRequeue)
 	s.mux.Handle("/api/", s.wrap("/api/", false, true, func(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, "no such API endpoint: %s %s", r.Method, r.URL.Path)
 	}))

@@ -5,6 +5,7 @@ import (
 	"net"
 	"os"
 	"path/filepath"
+	"sort"
 	"strconv"
 	"strings"
 	"time"
@@ -151,7 +152,7 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 	if err := doc.Decode(&c); err != nil {
 		return nil, err
 	}
-	ce := &cerr{doc: doc}
+	ce := &cerr{doc: doc, env: map[string]string{}}
 	overrideFromEnv(&c, ce)
 	base := filepath.Dir(doc.File)
 	abs := func(p string) string {
@@ -308,10 +309,53 @@ func (l *Loaded) Fixture(name string) (LoadedFixture, bool) {
 type cerr struct {
 	doc *configs.Doc
 	es  configs.Errors
+	env map[string]string // setting → the HYSTD_* variable that overrode it
 }
 
+// add records a problem of the setting at path. A setting an environment
+// variable overrode is blamed on the variable, not on the file's line.
 func (c *cerr) add(path, format string, args ...any) {
+	if name, ok := c.env[path]; ok {
+		c.es = append(c.es, &configs.Error{File: "environment", Key: name,
+			Problem: fmt.Sprintf("overrides %s of %s: ", path, c.doc.File) + fmt.Sprintf(format, args...)})
+		return
+	}
 	c.es = append(c.es, c.doc.Errorf(path, format, args...))
+}
+
+// EnvName is the environment variable that overrides a setting:
+// HYSTD_ + the key in upper case with dots as underscores.
+func EnvName(key string) string {
+	return "HYSTD_" + strings.ToUpper(strings.ReplaceAll(key, ".", "_"))
+}
+
+// otherEnv are HYSTD_* variables read elsewhere: the default token variable
+// of the forwarder and the developers' test and build switches
+// (DEVELOPERS.md).
+var otherEnv = map[string]bool{influx.DefaultTokenEnv: true, "HYSTD_VM_DIR": true, "HYSTD_LONG_BENCH": true,
+	"HYSTD_INFLUXD": true, "HYSTD_DEB": true, "HYSTD_VERSION": true, "HYSTD_TOOLS_DIR": true,
+	"HYSTD_CHROMIUM": true, "HYSTD_SCREENSHOTS": true}
+
+// UnknownEnv lists the HYSTD_* variables of environ (os.Environ's form) that
+// no setting, token or tool reads: most likely misspelt overrides. Names
+// given as a token_env of the config are not reported.
+func UnknownEnv(environ []string, c Config) []string {
+	known := map[string]bool{}
+	for _, k := range envKeys {
+		known[EnvName(k)] = true
+	}
+	if c.Influx != nil && c.Influx.TokenEnv != "" {
+		known[c.Influx.TokenEnv] = true
+	}
+	var out []string
+	for _, kv := range environ {
+		name, _, _ := strings.Cut(kv, "=")
+		if strings.HasPrefix(name, "HYSTD_") && !known[name] && !otherEnv[name] {
+			out = append(out, name)
+		}
+	}
+	sort.Strings(out)
+	return out
 }
 
 // overrideFromEnv applies HYSTD_* variables through viper: one fresh
@@ -328,6 +372,7 @@ func overrideFromEnv(c *Config, ce *cerr) {
 	set := func(k string, dst *string) {
 		if v.IsSet(k) {
 			*dst = v.GetString(k)
+			ce.env[k] = EnvName(k)
 		}
 	}
 	set("http.addr", &c.HTTP.Addr)

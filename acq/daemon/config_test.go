@@ -2,6 +2,8 @@ package daemon
 
 import (
 	"bytes"
+	"hystd/acq/influx"
+
 	"os"
 	"path/filepath"
 	"strings"
@@ -117,8 +119,31 @@ func TestEnvOverride(t *testing.T) {
 		t.Errorf("overrides not applied: %+v", l.Config)
 	}
 	t.Setenv("HYSTD_LOG_LEVEL", "loud")
-	if _, err := Load(p); err == nil || !strings.Contains(err.Error(), "log.level: must be") {
+	_, err = Load(p)
+	if err == nil || !strings.Contains(err.Error(), "log.level of "+p+": must be") {
 		t.Errorf("bad override accepted: %v", err)
+	}
+	// The variable is named, not a line of the file (which has no log.level).
+	if err == nil || !strings.HasPrefix(err.Error(), "environment: HYSTD_LOG_LEVEL: ") {
+		t.Errorf("error does not name the variable: %v", err)
+	}
+}
+
+func TestUnknownEnv(t *testing.T) {
+	env := []string{"HYSTD_HTTP_ADRR=0.0.0.0:1", "HYSTD_HTTP_ADDR=127.0.0.1:1", "HOME=/root", "HYSTD_INFLUX_TOKEN=x",
+		"HYSTD_SITE_TOKEN=y", "HYSTD_VM_DIR=/tmp", "HYSTD_LOG_LEVL=debug"}
+	tests := []struct {
+		name string
+		cfg  Config
+		want string
+	}{
+		{"no influx", Config{}, "HYSTD_HTTP_ADRR HYSTD_LOG_LEVL HYSTD_SITE_TOKEN"},
+		{"token_env names one", Config{Influx: &influx.Config{TokenEnv: "HYSTD_SITE_TOKEN"}}, "HYSTD_HTTP_ADRR HYSTD_LOG_LEVL"},
+	}
+	for _, tc := range tests {
+		if got := strings.Join(UnknownEnv(env, tc.cfg), " "); got != tc.want {
+			t.Errorf("%s: %q, want %q", tc.name, got, tc.want)
+		}
 	}
 }
 

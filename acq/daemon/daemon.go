@@ -182,6 +182,7 @@ func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 
 // startFixture starts (or restarts the side tasks of) one fixture; d.mu held.
 func (d *Daemon) startFixture(lf LoadedFixture) {
+	d.metrics.initFixture(lf.Name)
 	fr := d.fixtures[lf.Name]
 	if fr == nil {
 		fr = &fixtureRunner{name: lf.Name, queue: make(chan *job, QueueLength), mounted: lf.Specimen.ID}

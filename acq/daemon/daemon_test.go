@@ -323,3 +323,49 @@ func TestRunOnceNeedsFixtureName(t *testing.T) {
 		t.Errorf("a refused run opened the store (%v) or the instruments (%v)", serr, opened)
 	}
 }
+
+// TestMetricsAtStart: every per-fixture series exists, at zero, before the
+// first run; hystd_build_info carries the build's labels.
+func TestMetricsAtStart(t *testing.T) {
+	d, _, _ := newFakeDaemon(t, "kind: daemon\nstore: {path: x.db}\n"+fixtures)
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	d.Start(ctx)
+	defer d.Stop("test over")
+	mfs, err := d.Metrics().Registry.Gather()
+	if err != nil {
+		t.Fatal(err)
+	}
+	seen := map[string]string{}
+	for _, mf := range mfs {
+		for _, m := range mf.GetMetric() {
+			var ls []string
+			for _, lp := range m.GetLabel() {
+				ls = append(ls, lp.GetName()+"="+lp.GetValue())
+			}
+			seen[mf.GetName()+"{"+strings.Join(ls, ",")+"}"] = m.String()
+		}
+	}
+	fx := d.Config().Fixtures[0].Name
+	for _, want := range []string{
+		"hystd_runs_queued{fixture=" + fx + "}",
+		"hystd_run_active{fixture=" + fx + "}",
+		"hystd_runs_ended_total{fixture=" + fx + ",state=finished}",
+		"hystd_runs_ended_total{fixture=" + fx + ",state=failed}",
+		"hystd_recipes_refused_total{fixture=" + fx + ",source=api}",
+		"hystd_watch_files_total{fixture=" + fx + ",outcome=done}",
+	} {
+		if _, ok := seen[want]; !ok {
+			t.Errorf("%s missing at start", want)
+		}
+	}
+	found := false
+	for k := range seen {
+		if strings.HasPrefix(k, "hystd_build_info{") && strings.Contains(k, "revision=") && strings.Contains(k, "goversion=go") && strings.Contains(k, "software=test") {
+			found = true
+		}
+	}
+	if !found {
+		t.Error("hystd_build_info lacks revision, goversion or software labels")
+	}
+}

@@ -5,6 +5,8 @@ import (
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
 	"hystd/acq/live"
+	"hystd/acq/record"
+	"hystd/buildinfo"
 )
 
 // Metrics are the daemon's Prometheus collectors, in a registry of their own
@@ -31,11 +33,31 @@ func newMetrics(d *Daemon, version string) *Metrics {
 		files:    prometheus.NewCounterVec(prometheus.CounterOpts{Name: "hystd_watch_files_total", Help: "Recipe files picked up from watched folders, by outcome."}, []string{"fixture", "outcome"}),
 		samples:  prometheus.NewCounter(prometheus.CounterOpts{Name: "hystd_live_samples_total", Help: "Samples recorded in loops, all fixtures."}),
 	}
-	info := prometheus.NewGauge(prometheus.GaugeOpts{Name: "hystd_build_info", Help: "Always 1; the version is a label.", ConstLabels: prometheus.Labels{"version": version}})
+	labels := prometheus.Labels(buildinfo.Read().Labels())
+	if version != "" {
+		labels["software"] = version
+	}
+	info := prometheus.NewGauge(prometheus.GaugeOpts{Name: "hystd_build_info", Help: "Always 1; version, VCS revision, modified flag, Go version and the recorded software text are labels.", ConstLabels: labels})
 	info.Set(1)
 	m.Registry.MustRegister(m.queued, m.active, m.ended, m.refused, m.reloads, m.files, m.samples, info,
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	return m
+}
+
+// initFixture creates every per-fixture series at zero, so that a fixture
+// shows in /metrics (and rate() has a start) before its first run.
+func (m *Metrics) initFixture(name string) {
+	m.queued.WithLabelValues(name)
+	m.active.WithLabelValues(name)
+	for _, st := range []record.State{record.Finished, record.Aborted, record.Failed} {
+		m.ended.WithLabelValues(name, string(st))
+	}
+	for _, src := range []string{"api", "watch", "schedule", "cli"} {
+		m.refused.WithLabelValues(name, src)
+	}
+	for _, o := range []string{"queued", "refused", DoneDir, FailedDir} {
+		m.files.WithLabelValues(name, o)
+	}
 }
 
 // ReloadFailed counts a reload refused because the new config was invalid.

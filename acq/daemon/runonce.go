@@ -50,6 +50,9 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		return record.Run{}, err
 	}
 	log := NewLogger(cfg, w.Stderr)
+	for _, name := range UnknownEnv(os.Environ(), cfg.Config) {
+		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
+	}
 	var lf LoadedFixture
 	switch {
 	case o.Fixture != "":

@@ -11,6 +11,7 @@ import (
 	"os"
 	"os/signal"
 	"path/filepath"
+	"reflect"
 	"strings"
 	"sync"
 	"syscall"
@@ -22,8 +23,10 @@ import (
 	"hystd/acq/engine"
 	"hystd/acq/influx"
 	"hystd/acq/live"
+	"hystd/acq/outbox"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/buildinfo"
 	"hystd/calib/units"
 )
 
@@ -34,6 +37,7 @@ type APIParts struct {
 	Live    *live.Hub
 	Token   string              // bearer token for mutations; "": mutations refused
 	Metrics prometheus.Gatherer // the daemon's metrics, for the API's /metrics
+	Outbox  outbox.Store        // quarantined loops, for the API's /api/v1/outbox
 	Version string
 	Log     *slog.Logger
 }
@@ -79,6 +83,11 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	cfg.LoadedAt = time.Now()
 	log := NewLogger(cfg, w.Stderr)
+	bi := buildinfo.Read()
+	log.Info("hystd starting", "version", bi.Version, "revision", bi.Revision, "modified", bi.Modified, "go", bi.GoVersion, "software", w.Software)
+	for _, name := range UnknownEnv(os.Environ(), cfg.Config) {
+		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
+	}
 	st, err := store.Open(ctx, cfg.Config.Store.Path)
 	if err != nil {
 		return err
@@ -118,7 +127,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	var h http.Handler
 	if w.API != nil {
-		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Metrics: d.metrics.Registry,
+		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Metrics: d.metrics.Registry, Outbox: st,
 			Version: w.Software, Log: log.With("part", "api")})
 		if err != nil {
 			d.Stop("the HTTP API could not be built")
@@ -212,7 +221,7 @@ func reload(d *Daemon, path string, log *slog.Logger) {
 	if nc.Store.Path != old.Store.Path {
 		restart = append(restart, "store.path")
 	}
-	if (nc.Influx == nil) != (old.Influx == nil) || (nc.Influx != nil && *nc.Influx != *old.Influx) {
+	if (nc.Influx == nil) != (old.Influx == nil) || (nc.Influx != nil && !reflect.DeepEqual(*nc.Influx, *old.Influx)) {
 		restart = append(restart, "influx")
 	}
 	if nc.Log != old.Log {

@@ -131,7 +131,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	for _, w := range warnings {
-		fmt.Fprintln(out, "warning:", w)
+		log.Warn(w) // a log line: stderr under hystd demo
 	}
 
 	// The demo specimen's grade comes from the shipped sample grades.
@@ -198,7 +198,12 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		defer cancel()
 		n, err := influx.DeliverAll(dctx, st, *o.Influx)
 		if err != nil {
-			return res, fmt.Errorf("sending to %s: %w (%d points acknowledged; the rest stay in the outbox of %s)", o.Influx.URL, err, n, db)
+			return res, &ForwardError{URL: o.Influx.URL, Sent: n, Err: fmt.Errorf("%w (the rest stay in the outbox of %s)", err, db)}
+		}
+		if q, err := quarantinedOf(ctx, st, res.Run.ID); err != nil {
+			return res, err
+		} else if len(q) > 0 || n == 0 && len(res.Loops) > 0 {
+			return res, &ForwardError{URL: o.Influx.URL, Sent: n, Quarantined: q, DB: db}
 		}
 		fmt.Fprintf(out, "\nsent %d points to %s (bucket %s)\n", n, o.Influx.URL, o.Influx.Bucket)
 	}
@@ -318,4 +323,43 @@ func (p *progress) Publish(ev live.Event) {
 			fmt.Fprintf(p.out, "  run %s: %s\n", ev.State, ev.Reason)
 		}
 	}
+}
+
+// ForwardError says that a forward the demo was asked for did not deliver
+// the run: the server refused loops (quarantined, with its reason), or
+// nothing was acknowledged. The run itself is stored.
+type ForwardError struct {
+	URL         string
+	Sent        int                 // points acknowledged
+	Quarantined []store.OutboxEntry // loops of the run the server refused
+	DB          string
+	Err         error // why the delivery gave up, if it did
+}
+
+func (e *ForwardError) Error() string {
+	switch {
+	case e.Err != nil:
+		return fmt.Sprintf("sending to %s: %v (%d points acknowledged)", e.URL, e.Err, e.Sent)
+	case len(e.Quarantined) > 0:
+		return fmt.Sprintf("sending to %s: the server refused %d loop(s) (%d points acknowledged): %s; they stay in %s: fix the URL or bucket, then hystd outbox requeue %s",
+			e.URL, len(e.Quarantined), e.Sent, e.Quarantined[0].LastError, e.DB, e.Quarantined[0].RunID)
+	}
+	return fmt.Sprintf("sending to %s: no point was acknowledged", e.URL)
+}
+
+func (e *ForwardError) Unwrap() error { return e.Err }
+
+// quarantinedOf lists the quarantined outbox entries of one run.
+func quarantinedOf(ctx context.Context, st *store.Store, runID string) ([]store.OutboxEntry, error) {
+	q, err := st.Quarantined(ctx, 0)
+	if err != nil {
+		return nil, err
+	}
+	var out []store.OutboxEntry
+	for _, e := range q {
+		if e.RunID == runID {
+			out = append(out, e)
+		}
+	}
+	return out, nil
 }

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"net/url"
 	"os"
+	"sort"
 	"strings"
 	"time"
 
@@ -23,14 +24,26 @@ const DefaultTokenEnv = "HYSTD_INFLUX_TOKEN"
 type Config struct {
 	Kind string `yaml:"kind"` // "influx"
 	// URL is the server's base URL, e.g. http://127.0.0.1:8086; the client
-	// appends /api/v2/write.
+	// appends /api/v2/write (api v2) or /write (api v1). A path in the URL
+	// is kept in front of it: a cluster's tenant path such as
+	// http://vminsert:8480/insert/42/influx, or a reverse proxy's prefix.
 	URL string `yaml:"url"`
-	// Org and Bucket name the destination. InfluxDB 1.8: org is ignored,
-	// bucket is "database/retention-policy". VictoriaMetrics ignores both.
+	// API is the write protocol: "v2" (default: /api/v2/write, for InfluxDB
+	// 2.x, 3, 1.8+ and VictoriaMetrics) or "v1" (/write?db=&rp=&precision=ns,
+	// for InfluxDB 1.x before 1.8, which has no v2 write endpoint).
+	API string `yaml:"api"`
+	// Org and Bucket name the destination. InfluxDB 1.x (api v1, or 1.8 with
+	// api v2): org is ignored, bucket is "database" or
+	// "database/retention-policy". VictoriaMetrics ignores both.
 	Org    string `yaml:"org"`
 	Bucket string `yaml:"bucket"`
+	// Tags are static tags put on every point (site, bay, host …), so that
+	// many daemons can write to one database with the same fixture names.
+	// They may not reuse a tag hystd sets itself (see ReservedTags).
+	Tags map[string]string `yaml:"tags"`
 	// TokenFile is a file holding the token (surrounding white space is
-	// removed). InfluxDB 1.8 takes "user:password" as its token.
+	// removed). InfluxDB 1.x takes "user:password" as its token (api v1
+	// sends it as HTTP basic authentication).
 	TokenFile string `yaml:"token_file"`
 	// TokenEnv names the environment variable holding the token when
 	// TokenFile is empty; "" means DefaultTokenEnv. No token at all is
@@ -60,6 +73,16 @@ type TLS struct {
 	InsecureSkipVerify bool `yaml:"insecure_skip_verify"`
 }
 
+// Write protocols (Config.API).
+const (
+	APIv2 = "v2"
+	APIv1 = "v1"
+)
+
+// ReservedTags are the tags the encoder sets itself; static tags may not use
+// them.
+var ReservedTags = []string{"branch", "fixture", "kind", "loop", "material", "run", "software", "specimen"}
+
 // Defaults of Config.
 const (
 	DefaultBatchSize    = 5000
@@ -74,6 +97,9 @@ const (
 func (c Config) WithDefaults() Config {
 	if c.Kind == "" {
 		c.Kind = "influx"
+	}
+	if c.API == "" {
+		c.API = APIv2
 	}
 	if c.TokenEnv == "" {
 		c.TokenEnv = DefaultTokenEnv
@@ -113,8 +139,18 @@ func (c Config) Problems() []Problem {
 	} else if u.User != nil {
 		add("url", "must not carry credentials; use token_file or token_env")
 	}
+	if c.API != APIv2 && c.API != APIv1 {
+		add("api", "want v2 or v1, got %q", c.API)
+	}
 	if strings.TrimSpace(c.Bucket) == "" {
 		add("bucket", "required")
+	} else if c.API == APIv1 && strings.Count(c.Bucket, "/") > 1 {
+		add("bucket", "api v1 takes \"database\" or \"database/retention-policy\", got %q", c.Bucket)
+	}
+	for _, k := range sortedKeys(c.Tags) {
+		if msg := tagProblem(k, c.Tags[k]); msg != "" {
+			add("tags."+k, "%s", msg)
+		}
 	}
 	if c.BatchSize < 1 || c.BatchSize > MaxBatchSize {
 		add("batch_size", "%d is outside 1…%d", c.BatchSize, MaxBatchSize)
@@ -141,6 +177,61 @@ func (c Config) Problems() []Problem {
 		}
 	}
 	return ps
+}
+
+// tagProblem says what is wrong with a static tag, or "".
+func tagProblem(k, v string) string {
+	if !validTagKey(k) {
+		return "a tag name is a letter followed by letters, digits, _ or -"
+	}
+	for _, r := range ReservedTags {
+		if k == r {
+			return "hystd sets this tag itself; choose another name (e.g. site, bay, host)"
+		}
+	}
+	if strings.TrimSpace(v) == "" {
+		return "empty value"
+	}
+	if strings.ContainsAny(v, "\r\n\\") {
+		return "a value may not hold a line break or a backslash"
+	}
+	return ""
+}
+
+func validTagKey(k string) bool {
+	if k == "" || len(k) > 64 {
+		return false
+	}
+	for i, r := range k {
+		switch {
+		case r >= 'a' && r <= 'z', r >= 'A' && r <= 'Z':
+		case i > 0 && (r >= '0' && r <= '9' || r == '_' || r == '-'):
+		default:
+			return false
+		}
+	}
+	return true
+}
+
+func sortedKeys(m map[string]string) []string {
+	ks := make([]string, 0, len(m))
+	for k := range m {
+		ks = append(ks, k)
+	}
+	sort.Strings(ks)
+	return ks
+}
+
+// ParseTag parses a static tag given as NAME=VALUE (the demo's --influx-tag).
+func ParseTag(s string) (k, v string, err error) {
+	k, v, ok := strings.Cut(s, "=")
+	if !ok {
+		return "", "", fmt.Errorf("%q: want NAME=VALUE, e.g. site=north-lab", s)
+	}
+	if msg := tagProblem(k, v); msg != "" {
+		return "", "", fmt.Errorf("%q: %s", s, msg)
+	}
+	return k, v, nil
 }
 
 // Validate returns the problems of c as one error, or nil.

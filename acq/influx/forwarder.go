@@ -22,7 +22,6 @@ import (
 	"time"
 
 	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
-	"github.com/influxdata/influxdb-client-go/v2/api"
 	ihttp "github.com/influxdata/influxdb-client-go/v2/api/http"
 
 	"hystd/acq/record"
@@ -50,7 +49,8 @@ type Forwarder struct {
 	cfg    Config
 	ob     store.Outbox
 	client influxdb2.Client
-	w      api.WriteAPIBlocking
+	w      lineWriter
+	enc    Encoding
 	o      Options
 	m      *metrics
 	kick   chan struct{}
@@ -90,10 +90,23 @@ func New(cfg Config, ob store.Outbox, o Options) (*Forwarder, error) {
 	if tc != nil {
 		opts.SetTLSConfig(tc)
 	}
-	client := influxdb2.NewClientWithOptions(cfg.URL, tok, opts)
+	var w lineWriter
+	var client influxdb2.Client
+	switch cfg.API {
+	case APIv1:
+		auth, err := v1Auth(tok)
+		if err != nil {
+			return nil, fmt.Errorf("influx config: %w", err)
+		}
+		client = influxdb2.NewClientWithOptions(cfg.URL, "", opts)
+		w = newV1Writer(client.HTTPService(), cfg, auth)
+	default:
+		client = influxdb2.NewClientWithOptions(cfg.URL, tok, opts)
+		w = client.WriteAPIBlocking(cfg.Org, cfg.Bucket)
+	}
 	f := &Forwarder{
-		cfg: cfg, ob: ob, client: client, o: o,
-		w:    client.WriteAPIBlocking(cfg.Org, cfg.Bucket),
+		cfg: cfg, ob: ob, client: client, o: o, w: w,
+		enc:  Encoding{Tags: cfg.Tags},
 		m:    newMetrics(ob, o.Now),
 		kick: make(chan struct{}, 1),
 	}
@@ -295,7 +308,7 @@ func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]string, 
 	if err != nil {
 		return nil, err
 	}
-	pts, err := Lines(r, l)
+	pts, err := f.enc.Lines(r, l)
 	if err != nil {
 		// The stored loop cannot be encoded (no start time, a tag the
 		// encoder refuses): sending it again will not help.

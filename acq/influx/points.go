@@ -67,7 +67,20 @@ func Base(r record.Run) (time.Time, error) {
 // NaN and ±Inf values have no line-protocol form and are left out; a sample
 // with no finite value at all is left out too.
 func Points(r record.Run, l record.Loop) ([]*write.Point, error) {
-	sp, err := plan(r, l)
+	return Encoding{}.Points(r, l)
+}
+
+// Encoding adds deployment facts to what Points and Lines derive from the
+// stored run and loop.
+type Encoding struct {
+	// Tags are static tags (site, bay, host …) put on every point. Names in
+	// ReservedTags are refused.
+	Tags map[string]string
+}
+
+// Points is Points with e's tags on every point.
+func (e Encoding) Points(r record.Run, l record.Loop) ([]*write.Point, error) {
+	sp, err := e.plan(r, l)
 	if err != nil {
 		return nil, err
 	}
@@ -100,7 +113,12 @@ func Points(r record.Run, l record.Loop) ([]*write.Point, error) {
 // without the trailing newline, byte for byte what the client's encoder
 // makes of Points (nanosecond timestamps). It is the forwarder's fast path.
 func Lines(r record.Run, l record.Loop) ([]string, error) {
-	sp, err := plan(r, l)
+	return Encoding{}.Lines(r, l)
+}
+
+// Lines is Lines with e's tags on every point.
+func (e Encoding) Lines(r record.Run, l record.Loop) ([]string, error) {
+	sp, err := e.plan(r, l)
 	if err != nil {
 		return nil, err
 	}
@@ -179,17 +197,24 @@ type plannedRow struct {
 }
 
 type samplePlan struct {
-	base time.Time
-	tags map[string]string // without branch
-	rows []plannedRow
+	base     time.Time
+	tags     map[string]string // without branch
+	software string            // the run's software, a tag of the figure point
+	rows     []plannedRow
 }
 
-func plan(r record.Run, l record.Loop) (*samplePlan, error) {
+func (e Encoding) plan(r record.Run, l record.Loop) (*samplePlan, error) {
 	base, err := Base(r)
 	if err != nil {
 		return nil, err
 	}
-	sp := &samplePlan{base: base, tags: map[string]string{}}
+	sp := &samplePlan{base: base, tags: map[string]string{}, software: r.Software}
+	for _, k := range sortedKeys(e.Tags) {
+		if msg := tagProblem(k, e.Tags[k]); msg != "" {
+			return nil, fmt.Errorf("static tag %s: %s", k, msg)
+		}
+		sp.tags[k] = e.Tags[k]
+	}
 	put := func(k, v string) {
 		if v != "" {
 			sp.tags[k] = v
@@ -241,7 +266,9 @@ func plan(r record.Run, l record.Loop) (*samplePlan, error) {
 	return sp, nil
 }
 
-// figurePoint is the loop's figure point, or nil when it has no finite figure.
+// figurePoint is the loop's figure point, or nil when it has no finite
+// figure. Besides the sample points' tags it carries kind and software (the
+// build that recorded the run, see package buildinfo).
 func figurePoint(sp *samplePlan, l record.Loop) *write.Point {
 	ff := map[string]any{}
 	for _, f := range l.Figures {
@@ -270,6 +297,9 @@ func figurePoint(sp *samplePlan, l record.Loop) *write.Point {
 		for _, v := range l.Verdicts {
 			ff[v.Figure+"_verdict"] = map[record.Outcome]float64{record.Pass: 1, record.Undecided: 0, record.Fail: -1}[v.Outcome]
 		}
+	}
+	if sp.software != "" {
+		ft["software"] = sp.software
 	}
 	at := l.Started
 	if at.IsZero() {

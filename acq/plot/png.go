@@ -1,35 +1,43 @@
 package plot
 
 import (
+	"fmt"
 	"image"
 	"image/color"
 	"image/png"
 	"io"
 	"math"
-	"strings"
+	"sync"
 
 	"golang.org/x/image/font"
-	"golang.org/x/image/font/basicfont"
+	"golang.org/x/image/font/gofont/goregular"
+	"golang.org/x/image/font/opentype"
 	"golang.org/x/image/math/fixed"
 
 	"hystd/acq/record"
 )
 
 // PNG writes loops as a PNG image to w: the same scene as SVG, rasterized
-// with anti-aliased lines and a 7×13 pixel bitmap font (ASCII; symbols such
-// as "−", "³" and "μ" are spelled "-", "^3" and "u"). It returns ErrNoPoints
+// with anti-aliased lines and text in an outline font (Go Regular, 12 px,
+// with the labels' symbols "−", "³", "μ", "±", "·"). It returns ErrNoPoints
 // when no loop holds a finite point, or a write error; w is not closed.
 func PNG(w io.Writer, loops []record.Loop, o Options) error {
 	s, err := build(loops, o)
 	if err != nil {
 		return err
 	}
-	img := s.raster()
+	img, err := s.raster()
+	if err != nil {
+		return err
+	}
 	return (&png.Encoder{CompressionLevel: png.BestSpeed}).Encode(w, img)
 }
 
-// canvas is an RGBA image with blending helpers.
-type canvas struct{ *image.RGBA }
+// canvas is an RGBA image with blending helpers and the label font.
+type canvas struct {
+	*image.RGBA
+	face font.Face
+}
 
 // blend mixes colour c into pixel (x, y) with coverage a in [0, 1].
 func (cv canvas) blend(x, y int, c rgb, a float64) {
@@ -107,19 +115,37 @@ func (cv canvas) ring(at pt, r, wd float64, c rgb) {
 	}
 }
 
-// asciiText replaces the symbols the bitmap font lacks.
-var asciiText = strings.NewReplacer("−", "-", "–", "-", "³", "^3", "²", "^2", "μ", "u", "·", "*", "×", "x", "…", "...")
+// labelSize is the PNG's text size in pixels (the SVG's 12 px).
+const labelSize = 12
 
-const glyphW, glyphH, glyphAscent = 7, 13, 11
+var (
+	faceOnce sync.Once
+	face     font.Face
+	faceErr  error
+)
+
+// labelFace is Go Regular (golang.org/x/image/font/gofont, an outline font
+// with the Latin-1, Greek and mathematical minus glyphs the labels use:
+// μ, −, ², ³, ±, ·) at labelSize pixels.
+func labelFace() (font.Face, error) {
+	faceOnce.Do(func() {
+		f, err := opentype.Parse(goregular.TTF)
+		if err != nil {
+			faceErr = fmt.Errorf("plot: Go Regular font: %w", err)
+			return
+		}
+		face, faceErr = opentype.NewFace(f, &opentype.FaceOptions{Size: labelSize, DPI: 72, Hinting: font.HintingFull})
+	})
+	return face, faceErr
+}
 
 // text draws s with its baseline at y; anchor is 0 for start, 0.5 middle, 1 end.
 func (cv canvas) text(x, y float64, s string, anchor float64, c rgb) {
-	s = asciiText.Replace(s)
-	w := float64(len(s) * glyphW)
+	w := float64(font.MeasureString(cv.face, s).Round())
 	d := font.Drawer{
 		Dst:  cv.RGBA,
 		Src:  image.NewUniform(color.RGBA{c.r, c.g, c.b, 255}),
-		Face: basicfont.Face7x13,
+		Face: cv.face,
 		Dot:  fixed.P(int(math.Round(x-anchor*w)), int(math.Round(y))),
 	}
 	d.DrawString(s)
@@ -127,13 +153,14 @@ func (cv canvas) text(x, y float64, s string, anchor float64, c rgb) {
 
 // textUp draws s rotated a quarter turn anticlockwise, centred on (x, y).
 func (cv canvas) textUp(x, y float64, s string, c rgb) {
-	s = asciiText.Replace(s)
-	w := len(s) * glyphW
-	tmp := image.NewAlpha(image.Rect(0, 0, w, glyphH))
-	d := font.Drawer{Dst: tmp, Src: image.Opaque, Face: basicfont.Face7x13, Dot: fixed.P(0, glyphAscent)}
+	m := cv.face.Metrics()
+	asc, h := m.Ascent.Ceil(), (m.Ascent + m.Descent).Ceil()
+	w := font.MeasureString(cv.face, s).Ceil()
+	tmp := image.NewAlpha(image.Rect(0, 0, w, h))
+	d := font.Drawer{Dst: tmp, Src: image.Opaque, Face: cv.face, Dot: fixed.P(0, asc)}
 	d.DrawString(s)
-	ox, oy := int(x)-glyphH/2, int(y)+w/2
-	for ty := 0; ty < glyphH; ty++ {
+	ox, oy := int(x)-h/2, int(y)+w/2
+	for ty := 0; ty < h; ty++ {
 		for tx := 0; tx < w; tx++ {
 			if a := tmp.AlphaAt(tx, ty).A; a > 0 {
 				cv.blend(ox+ty, oy-tx, c, float64(a)/255)
@@ -142,8 +169,12 @@ func (cv canvas) textUp(x, y float64, s string, c rgb) {
 	}
 }
 
-func (s *scene) raster() *image.RGBA {
-	cv := canvas{image.NewRGBA(image.Rect(0, 0, s.w, s.h))}
+func (s *scene) raster() (*image.RGBA, error) {
+	fc, err := labelFace()
+	if err != nil {
+		return nil, err
+	}
+	cv := canvas{image.NewRGBA(image.Rect(0, 0, s.w, s.h)), fc}
 	for i := range cv.Pix {
 		cv.Pix[i] = 255
 	}
@@ -174,7 +205,7 @@ func (s *scene) raster() *image.RGBA {
 	cv.textUp(18, (s.y0+s.y1)/2, s.ylabel, colInk)
 
 	// Traces are clipped to the plot area by drawing on a sub-image.
-	area := canvas{cv.SubImage(image.Rect(int(s.x0), int(s.y0), int(s.x1)+1, int(s.y1)+1)).(*image.RGBA)}
+	area := canvas{cv.SubImage(image.Rect(int(s.x0), int(s.y0), int(s.x1)+1, int(s.y1)+1)).(*image.RGBA), fc}
 	for _, t := range s.traces {
 		for _, seg := range t.segs {
 			phase := 0.0
@@ -204,5 +235,5 @@ func (s *scene) raster() *image.RGBA {
 		cv.text(lx+28, ly, t.label, 0, colInk)
 		ly += 16
 	}
-	return cv.RGBA
+	return cv.RGBA, nil
 }

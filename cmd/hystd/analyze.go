@@ -53,5 +53,7 @@ func newAnalyzeCmd() *cobra.Command {
 	c.Flags().StringVar(&opt.HUnit, "h-unit", "", "unit of the H column: A/m, kA/m, Oe, kOe (default: from the header, else A/m)")
 	c.Flags().StringVar(&opt.BUnit, "b-unit", "", "unit of the B column: T, mT, G, kG (default: from the header, else T)")
 	c.Flags().BoolVar(&noCentre, "keep-level", false, "do not centre B (for loops with an absolute level, e.g. from a demagnetized start)")
+	_ = c.RegisterFlagCompletionFunc("h-unit", fixedValues("A/m", "kA/m", "Oe", "kOe"))
+	_ = c.RegisterFlagCompletionFunc("b-unit", fixedValues("T", "mT", "G", "kG"))
 	return c
 }

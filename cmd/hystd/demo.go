@@ -3,6 +3,7 @@ package main
 import (
 	"errors"
 	"fmt"
+	"log/slog"
 	"net"
 	"os"
 	"path/filepath"
@@ -18,9 +19,22 @@ import (
 
 func init() { register(newDemoCmd) }
 
+// exitForward is the demo's exit status when the forward it was asked for
+// delivered nothing or the server refused loops.
+const exitForward = 3
+
+func demoExit(err error) error {
+	var fe *demo.ForwardError
+	if errors.As(err, &fe) {
+		return &exitError{code: exitForward, err: err}
+	}
+	return err
+}
+
 func newDemoCmd() *cobra.Command {
 	var dataDir, serveAddr string
 	var ic influx.Config
+	var tags []string
 	cmd := &cobra.Command{
 		Use:   "demo",
 		Short: "Run the whole job once on the simulated bench",
@@ -29,14 +43,30 @@ func newDemoCmd() *cobra.Command {
 			"DIR/RUN.svg and prints the figures.\n\n" +
 			"With --serve ADDR the review page and the read-only API are served on ADDR (for example\n" +
 			"127.0.0.1:8740) from the start, so the live sweep can be watched, and after the run until\n" +
-			"SIGINT or SIGTERM.",
+			"SIGINT or SIGTERM.\n\n" +
+			"With --influx-url the loops are also sent to a time-series database (--influx-api v2 or v1,\n" +
+			"--influx-tag NAME=VALUE for static tags). Progress and figures go to stdout, logs to stderr.\n" +
+			"Exit status: 0 ok, 1 failed, 2 usage, 3 the forward asked for delivered nothing or the\n" +
+			"server refused loops (the run is stored; see hystd outbox).",
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
 			out := cmd.OutOrStdout()
-			opts := demo.Options{DataDir: dataDir, Out: out, Software: version}
+			opts := demo.Options{DataDir: dataDir, Out: out, Software: version,
+				Log: slog.New(slog.NewTextHandler(cmd.ErrOrStderr(), &slog.HandlerOptions{Level: slog.LevelWarn}))}
+			slog.SetDefault(opts.Log) // the forwarder logs through the default logger: stderr
 			if ic.URL != "" || ic.Bucket != "" {
 				ic.Kind = "influx"
+				for _, t := range tags {
+					k, v, err := influx.ParseTag(t)
+					if err != nil {
+						return &exitError{code: exitUsage, err: fmt.Errorf("--influx-tag %w", err)}
+					}
+					if ic.Tags == nil {
+						ic.Tags = map[string]string{}
+					}
+					ic.Tags[k] = v
+				}
 				ic = ic.WithDefaults()
 				if err := ic.Validate(); err != nil {
 					return &exitError{code: 2, err: fmt.Errorf("--influx-*: %w", err)}
@@ -45,7 +75,7 @@ func newDemoCmd() *cobra.Command {
 			}
 			if serveAddr == "" {
 				_, err := demo.Run(ctx, opts)
-				return err
+				return demoExit(err)
 			}
 			if err := os.MkdirAll(dataDir, 0o755); err != nil {
 				return err
@@ -81,11 +111,14 @@ func newDemoCmd() *cobra.Command {
 			if ctx.Err() != nil {
 				return nil // stopped by a signal after (or during) the demo: a clean stop
 			}
-			return runErr
+			return demoExit(runErr)
 		},
 	}
 	cmd.Flags().StringVar(&dataDir, "data", "hystd-data", "folder for hystd.db and the plots")
-	cmd.Flags().StringVar(&ic.URL, "influx-url", "", "also send the loops to this InfluxDB v2 write API (e.g. http://127.0.0.1:8086)")
+	cmd.Flags().StringVar(&ic.URL, "influx-url", "", "also send the loops to this time-series database (e.g. http://127.0.0.1:8086; a path is kept, e.g. a cluster's /insert/0/influx)")
+	cmd.Flags().StringVar(&ic.API, "influx-api", "v2", "write protocol: v2 (/api/v2/write) or v1 (InfluxDB 1.x /write)")
+	cmd.Flags().StringArrayVar(&tags, "influx-tag", nil, "static tag NAME=VALUE on every point (repeatable), e.g. site=north-lab")
+	_ = cmd.RegisterFlagCompletionFunc("influx-api", fixedValues("v2", "v1"))
 	cmd.Flags().StringVar(&ic.Org, "influx-org", "", "organization for --influx-url")
 	cmd.Flags().StringVar(&ic.Bucket, "influx-bucket", "", "bucket for --influx-url")
 	cmd.Flags().StringVar(&ic.TokenFile, "influx-token-file", "", "file holding the API token (else $"+influx.DefaultTokenEnv+")")

@@ -81,9 +81,15 @@ func newExportCmd() *cobra.Command {
 	cmd.Flags().IntVar(&loop, "loop", 0, "export only loop N (1-based); 0: every loop")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "write to FILE instead of standard output")
 	cmd.Flags().BoolVar(&all, "all-samples", false, "csv: include the drift-hold samples without H, B, J")
-	cmd.Flags().StringVar(&style.Y, "y", "B", "svg, png: ordinate, B or J")
+	// -y as well: cobra's completion looks a one-letter flag up by its shorthand.
+	cmd.Flags().StringVarP(&style.Y, "y", "y", "B", "svg, png: ordinate, B or J")
 	cmd.Flags().StringVar(&style.Units, "units", "si", "svg, png: si (A/m, T) or cgs (Oe, G)")
 	cmd.Flags().StringVar(&style.Quadrant, "quadrant", "", "svg, png: 2 for the second quadrant only")
+	cmd.ValidArgsFunction = completeRunIDs(&dataDir)
+	_ = cmd.RegisterFlagCompletionFunc("format", fixedValues(names...))
+	_ = cmd.RegisterFlagCompletionFunc("y", fixedValues("B", "J"))
+	_ = cmd.RegisterFlagCompletionFunc("units", fixedValues("si", "cgs"))
+	_ = cmd.RegisterFlagCompletionFunc("quadrant", fixedValues("2"))
 	return cmd
 }
 
@@ -101,7 +107,7 @@ func runExport(ctx context.Context, stdout io.Writer, dataDir, cfgPath, run stri
 	var buf bytes.Buffer
 	if err := export.Write(ctx, &buf, st, run, f, o); err != nil {
 		if errors.Is(err, record.ErrNotFound) {
-			return &exitError{code: 3, err: err}
+			return &exitError{code: exitNotFound, err: err}
 		}
 		return err
 	}

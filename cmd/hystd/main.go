@@ -10,13 +10,18 @@ import (
 	"os"
 	"os/signal"
 	"sort"
+	"strings"
 	"syscall"
 
 	"github.com/spf13/cobra"
+
+	"hystd/buildinfo"
 )
 
-// version is set at build time with -ldflags "-X main.version=...".
-var version = "0.1.0-dev"
+// version is what the program records as its software: version, VCS
+// revision, modified flag and Go version (package buildinfo; releases set
+// them with -ldflags "-X hystd/buildinfo.Version=...").
+var version = buildinfo.Read().Software()
 
 // commands holds the constructors registered by the command files.
 var commands []func() *cobra.Command
@@ -38,7 +43,38 @@ func newRoot() *cobra.Command {
 	}
 	sort.Slice(subs, func(i, j int) bool { return subs[i].Name() < subs[j].Name() })
 	root.AddCommand(subs...)
+	usageExits(root)
 	return root
+}
+
+// Exit statuses (README "Exit status"): 0, 1 and 2 mean the same in every
+// command; 3 and up are named per command.
+const (
+	exitOK        = 0
+	exitFailed    = 1 // an error: bad input file, I/O, refused
+	exitUsage     = 2 // unknown command or flag, wrong arguments, bad flag value
+	exitRunFailed = 3 // run: the run failed
+	exitAborted   = 4 // run: the run was aborted (signal or API)
+	exitNotFound  = 3 // export: no such run or loop
+)
+
+// usageExits makes every flag or argument error of c and its subcommands exit
+// with status 2.
+func usageExits(c *cobra.Command) {
+	c.SetFlagErrorFunc(func(_ *cobra.Command, err error) error {
+		return &exitError{code: exitUsage, err: err}
+	})
+	if args := c.Args; args != nil {
+		c.Args = func(cmd *cobra.Command, a []string) error {
+			if err := args(cmd, a); err != nil {
+				return &exitError{code: exitUsage, err: err}
+			}
+			return nil
+		}
+	}
+	for _, s := range c.Commands() {
+		usageExits(s)
+	}
 }
 
 // exitError carries a process exit code through cobra.
@@ -62,5 +98,8 @@ func main() {
 	if errors.As(err, &ee) {
 		os.Exit(ee.code)
 	}
-	os.Exit(1)
+	if strings.HasPrefix(err.Error(), "unknown command") || strings.HasPrefix(err.Error(), "required flag") {
+		os.Exit(exitUsage)
+	}
+	os.Exit(exitFailed)
 }

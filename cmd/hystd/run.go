@@ -20,7 +20,7 @@ func newRunCmd() *cobra.Command {
 		Long: "run validates RECIPE against the fixture's limits, runs it with the daemon's engine and\n" +
 			"store, and prints progress. Ctrl-C or SIGTERM aborts with a safe ramp-down to zero.\n" +
 			"At the end it prints the figures and, when the specimen names a grade, the verdicts.\n" +
-			"Exit status: 0 finished, 1 refused or bad input, 2 aborted, 3 failed.",
+			"Exit status: 0 finished, 1 refused or bad input, 2 usage, 3 failed, 4 aborted.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			_, err := daemon.RunOnce(cmd.Context(), daemon.RunOptions{
@@ -30,9 +30,9 @@ func newRunCmd() *cobra.Command {
 			})
 			var stop *engine.Stop
 			if errors.As(err, &stop) {
-				code := 3
+				code := exitRunFailed
 				if stop.State == "aborted" {
-					code = 2
+					code = exitAborted
 				}
 				return &exitError{code: code, err: fmt.Errorf("%s", stop.Error())}
 			}

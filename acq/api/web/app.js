@@ -370,6 +370,21 @@ async function loadRuns() {
   }
 }
 
+// Loops the forwarder quarantined, with the server's reason.
+async function loadOutbox() {
+  try {
+    const data = await api("/api/v1/outbox");
+    const list = $("#outbox-list");
+    list.textContent = "";
+    for (const q of data.quarantined || []) {
+      list.append(el("li", { "data-run-id": q.run_id },
+        el("div", { class: "r-id", text: `${q.run_id} · loop ${q.loop}` }),
+        el("div", { class: "r-meta", text: q.reason })));
+    }
+    $("#outbox-box").hidden = !(data.quarantined && data.quarantined.length);
+  } catch (e) { /* an older daemon without the endpoint: nothing to show */ }
+}
+
 // ---------- one run ----------
 
 const loopPlot = { plot: null };
@@ -775,6 +790,7 @@ async function init() {
   comparePlot.plot.set({ series: [], empty: "no loop added yet" });
   livePlot.plot.set({ series: [], empty: "no run under way since this page opened" });
   try { state.info = await api("/api/v1/info"); } catch (e) { /* defaults */ }
+  loadOutbox();
   const fx = state.info.fixtures || [];
   for (const f of fx) $("#fixture-names").append(el("option", { value: f.name }));
   if (fx.length === 1) $("#s-fixture").value = fx[0].name;

@@ -194,6 +194,13 @@ func (s *Server) start() error {
 	case a := <-addrc:
 		s.addr = a
 		s.URL = "http://" + a
+		// With -http.pathPrefix every request, writes and exports alike,
+		// goes under the prefix; URL includes it.
+		for _, f := range s.args {
+			if p, ok := strings.CutPrefix(f, "-http.pathPrefix="); ok {
+				s.URL += strings.TrimSuffix(p, "/")
+			}
+		}
 	case <-done:
 		tailMu.Lock()
 		defer tailMu.Unlock()
@@ -310,4 +317,37 @@ func (s *Server) get(ctx context.Context, path string, read func(io.Reader) erro
 		return err
 	}
 	return read(resp.Body)
+}
+
+// QueryResult is one series of an instant query's answer: a vector element
+// (Value) or, for a range selector, a matrix element (Values).
+type QueryResult struct {
+	Metric map[string]string `json:"metric"`
+	Value  []any             `json:"value"`
+	Values [][]any           `json:"values"`
+}
+
+// Query evaluates a PromQL/MetricsQL expression at time at through
+// /api/v1/query (after flushing the server's buffers) and returns the
+// result's series.
+func (s *Server) Query(ctx context.Context, expr string, at time.Time) ([]QueryResult, error) {
+	if err := s.get(ctx, "/internal/force_flush", nil); err != nil {
+		return nil, err
+	}
+	var ans struct {
+		Status string `json:"status"`
+		Error  string `json:"error"`
+		Data   struct {
+			Result []QueryResult `json:"result"`
+		} `json:"data"`
+	}
+	q := url.Values{"query": {expr}, "time": {fmt.Sprintf("%.3f", float64(at.UnixMilli())/1e3)}}
+	err := s.get(ctx, "/api/v1/query?"+q.Encode(), func(r io.Reader) error { return json.NewDecoder(r).Decode(&ans) })
+	if err != nil {
+		return nil, err
+	}
+	if ans.Status != "success" {
+		return nil, fmt.Errorf("vmtest: query %s: %s", expr, ans.Error)
+	}
+	return ans.Data.Result, nil
 }
