@@ -15,6 +15,7 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/drivers/clock"
 )
 
 // RunOptions are the inputs of `hystd run`.
@@ -71,8 +72,11 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}
 	defer st.Close()
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
+	if w.Clock == nil {
+		w.Clock = clock.Real{}
+	}
 	if w.Open == nil {
-		w.Open = FixtureOpener(log)
+		w.Open = FixtureOpenerClock(log, w.Clock)
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
@@ -107,7 +111,7 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	defer op.Close()
 	p := &printer{out: o.Out}
 	run, err := engine.Run(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
-		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Writer: st, Process: op.Process,
+		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Writer: st, Process: op.Process, Clock: w.Clock,
 		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir})
 	var ref *engine.Refused
 	if errors.As(err, &ref) {

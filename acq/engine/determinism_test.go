@@ -50,7 +50,7 @@ func busy(n int) (stop func()) {
 					return
 				default:
 				}
-				for range 10000 {
+				for range 1000 {
 					x = x*1.0000001 + 1e-9
 				}
 				runtime.Gosched() // CPU-bound, but not hogging the Go scheduler

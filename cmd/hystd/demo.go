@@ -6,6 +6,7 @@ import (
 	"net"
 	"os"
 	"path/filepath"
+	"time"
 
 	"github.com/spf13/cobra"
 
@@ -14,12 +15,13 @@ import (
 	"hystd/acq/influx"
 	"hystd/acq/live"
 	"hystd/acq/store"
+	"hystd/drivers/clock"
 )
 
 func init() { register(newDemoCmd) }
 
 func newDemoCmd() *cobra.Command {
-	var dataDir, serveAddr string
+	var dataDir, serveAddr, speed string
 	var ic influx.Config
 	cmd := &cobra.Command{
 		Use:   "demo",
@@ -29,12 +31,23 @@ func newDemoCmd() *cobra.Command {
 			"DIR/RUN.svg and prints the figures.\n\n" +
 			"With --serve ADDR the review page and the read-only API are served on ADDR (for example\n" +
 			"127.0.0.1:8740) from the start, so the live sweep can be watched, and after the run until\n" +
-			"SIGINT or SIGTERM.",
+			"SIGINT or SIGTERM.\n\n" +
+			"--speed real (the default) paces the sweep as a real bench would; --speed max runs the bench,\n" +
+			"the drivers and the engine in simulated time: the same bytes through the same ports, but time\n" +
+			"jumps to each next setpoint, so the run takes as long as the computer needs and, for the same\n" +
+			"bench, stores the same samples every time.",
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
 			out := cmd.OutOrStdout()
 			opts := demo.Options{DataDir: dataDir, Out: out, Software: version}
+			switch speed {
+			case "real":
+			case "max":
+				opts.Clock = clock.NewSim(time.Now())
+			default:
+				return &exitError{code: 2, err: fmt.Errorf("--speed %q: want real or max", speed)}
+			}
 			if ic.URL != "" || ic.Bucket != "" {
 				ic.Kind = "influx"
 				ic = ic.WithDefaults()
@@ -89,6 +102,7 @@ func newDemoCmd() *cobra.Command {
 	cmd.Flags().StringVar(&ic.Org, "influx-org", "", "organization for --influx-url")
 	cmd.Flags().StringVar(&ic.Bucket, "influx-bucket", "", "bucket for --influx-url")
 	cmd.Flags().StringVar(&ic.TokenFile, "influx-token-file", "", "file holding the API token (else $"+influx.DefaultTokenEnv+")")
+	cmd.Flags().StringVar(&speed, "speed", "real", "real: the sweep's own pace; max: simulated time, as fast as the computer allows")
 	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8740) until SIGINT/SIGTERM")
 	return cmd
 }
