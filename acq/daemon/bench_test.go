@@ -29,7 +29,7 @@ import (
 type benchDaemon struct {
 	bench  *sim.Bench
 	clock  *clock.Sim // the bench's, the drivers' and the engine's time
-	dir    string // config folder
+	dir    string     // config folder
 	watch  string
 	db     string
 	runner Runner
