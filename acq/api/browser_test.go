@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -53,12 +54,19 @@ func findChromium(t *testing.T) string {
 	return ""
 }
 
+var updateShots = flag.Bool("update", false, "write the browser test's screenshots to testdata/screenshots (committed)")
+
 // screenshotDir is where the browser test writes its PNG screenshots:
-// $HYSTD_SCREENSHOTS, or testdata/screenshots in this package.
+// $HYSTD_SCREENSHOTS, testdata/screenshots in this package with -update,
+// else a temporary folder (the checkout stays clean).
 func screenshotDir(t *testing.T) string {
 	d := os.Getenv("HYSTD_SCREENSHOTS")
-	if d == "" {
+	switch {
+	case d != "":
+	case *updateShots:
 		d = filepath.Join("testdata", "screenshots")
+	default:
+		d = t.TempDir()
 	}
 	if err := os.MkdirAll(d, 0o755); err != nil {
 		t.Fatal(err)
@@ -383,7 +391,7 @@ func TestBrowserReview(t *testing.T) {
 		}
 	}
 	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, ids[1])))
-	b.wait("loop plot", `document.querySelectorAll('#loop-plot polyline.trace').length > 0 && !!document.querySelector('#figures tbody tr')`, 15*time.Second)
+	b.wait("loop plot", fmt.Sprintf(`document.body.dataset.loop === %q`, ids[1]+"#1"), 15*time.Second)
 	h, bv, count := plotVertices(b, "#loop-plot")
 	if count != finite || len(h) != finite {
 		t.Errorf("loop plot draws %d vertices (data-count %d), the loop has %d finite points", len(h), count, finite)
@@ -441,8 +449,16 @@ func TestBrowserReview(t *testing.T) {
 
 	// 3. Overlay of loops from two runs.
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#compare-add').click()`))
-	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, ids[0])))
-	b.wait("first run's loop", fmt.Sprintf(`document.querySelector('#run-head h2') && document.querySelector('#run-head h2').textContent.startsWith(%q) && document.querySelectorAll('#loop-plot polyline.trace').length > 0`, ids[0]), 15*time.Second)
+	// Picking another run withdraws the previous run's loop at once: no
+	// "Add to compare", download link or figure of it stays while the new
+	// one loads.
+	withdrawn := js[bool](b, fmt.Sprintf(`(() => { document.querySelector('#runs-list li[data-run-id=%q]').click();
+	  return document.querySelector('#compare-add').disabled && !document.querySelector('#dl-png').hasAttribute('href') &&
+	    !document.querySelector('#figures tbody tr') && document.body.dataset.loop === undefined; })()`, ids[0]))
+	if !withdrawn {
+		t.Error("right after picking another run, the previous run's loop is still offered (compare, links or figures)")
+	}
+	b.wait("first run's loop", fmt.Sprintf(`document.body.dataset.loop === %q`, ids[0]+"#1"), 15*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#compare-add').click(); document.querySelector('[data-view="compare"]').click()`))
 	b.wait("overlay of two runs", `new Set([...document.querySelectorAll('#compare-plot polyline.trace')].map(p => p.dataset.key)).size === 2`, 10*time.Second)
 	keys := js[[]string](b, `[...new Set([...document.querySelectorAll('#compare-plot polyline.trace')].map(p => p.dataset.key))]`)
@@ -528,7 +544,7 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 	b.do(chromedp.Navigate(srv.URL + "/"))
 	b.wait("run listed", `!!document.querySelector('#runs-list li[data-run-id="MAG-1"]')`, 20*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#runs-list li[data-run-id="MAG-1"]').click()`))
-	b.wait("loop plot", `document.querySelectorAll('#loop-plot polyline.trace').length > 0`, 10*time.Second)
+	b.wait("loop plot", `document.body.dataset.loop === "MAG-1#1"`, 10*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#q2-toggle').click()`))
 	b.wait("marker", `!!document.querySelector('#loop-plot circle.bhmax')`, 5*time.Second)
 	label := js[string](b, `document.querySelector('#loop-plot .marker-label').textContent`)
