@@ -36,7 +36,12 @@ func TestDemoRecoversTheSpecimensTruth(t *testing.T) {
 		{"real time", func() clock.Clock { return nil }},
 		{"simulated time", func() clock.Clock { return clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC)) }},
 	} {
-		t.Run(tc.name, func(t *testing.T) { demoAgainstTruth(t, tc.clock()) })
+		t.Run(tc.name, func(t *testing.T) {
+			if tc.name == "real time" && testing.Short() {
+				t.Skip("the real-time demo (about 25 s) is left out with -short")
+			}
+			demoAgainstTruth(t, tc.clock())
+		})
 	}
 }
 

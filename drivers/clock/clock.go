@@ -60,10 +60,11 @@ func (Real) SleepUntil(ctx context.Context, t time.Time) error {
 	}
 }
 
-// IsSimulated reports whether c runs in simulated time (a *Sim), where a
-// wait on the wall clock says nothing about the clock's progress.
+// IsSimulated reports whether c runs in simulated time (a *Sim, or a
+// *Remote served from one), where a wait on the wall clock says nothing
+// about the clock's progress.
 func IsSimulated(c Clock) bool {
-	_, ok := c.(*Sim)
+	_, ok := c.(interface{ simulated() })
 	return ok
 }
 

@@ -2,6 +2,7 @@ package clock
 
 import (
 	"context"
+	"net/http/httptest"
 	"sync"
 	"sync/atomic"
 	"testing"
@@ -162,5 +163,61 @@ func TestManual(t *testing.T) {
 	m.SleepUntil(context.Background(), t0.Add(2*time.Second))
 	if got := <-ch; !got.Equal(t0.Add(2 * time.Second)) {
 		t.Fatalf("woke at %v", got)
+	}
+}
+
+// TestRemote: another process's actor sleeps on the served clock and reads
+// its present; a sleep whose request is dropped (the process killed) is
+// withdrawn and time does not move for it.
+func TestRemote(t *testing.T) {
+	s := NewSim(t0)
+	srv := httptest.NewServer(Handler(s))
+	defer srv.Close()
+	ctx := context.Background()
+	r, err := Dial(ctx, srv.URL)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !IsSimulated(r) || !r.Now().Equal(t0) {
+		t.Fatalf("remote now %v", r.Now())
+	}
+	if err := Sleep(ctx, r, 25*time.Second); err != nil {
+		t.Fatal(err)
+	}
+	if want := t0.Add(25 * time.Second); !s.Now().Equal(want) || !r.Now().Equal(want) {
+		t.Fatalf("served %v, remote %v, want %v", s.Now(), r.Now(), want)
+	}
+	leave := s.Join() // a second actor keeps time still: the sleep below stays pending
+	cctx, cancel := context.WithCancel(ctx)
+	errc := make(chan error, 1)
+	go func() { errc <- r.SleepUntil(cctx, t0.Add(time.Hour)) }()
+	for {
+		s.mu.Lock()
+		n := s.sleeping
+		s.mu.Unlock()
+		if n == 1 {
+			break
+		}
+		time.Sleep(time.Millisecond)
+	}
+	cancel()
+	if err := <-errc; err != context.Canceled {
+		t.Fatalf("cancelled remote sleep: %v", err)
+	}
+	for {
+		s.mu.Lock()
+		n := s.sleeping
+		s.mu.Unlock()
+		if n == 0 {
+			break
+		}
+		time.Sleep(time.Millisecond)
+	}
+	leave()
+	if !s.Now().Equal(t0.Add(25 * time.Second)) {
+		t.Fatalf("time moved for a withdrawn sleep: %v", s.Now())
+	}
+	if _, err := Dial(ctx, "ftp://x"); err == nil {
+		t.Error("a non-http clock address was accepted")
 	}
 }

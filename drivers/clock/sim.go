@@ -54,6 +54,8 @@ func NewSim(start time.Time) *Sim {
 	return &Sim{now: start, actors: 1, quiet: map[int]func() bool{}}
 }
 
+func (*Sim) simulated() {}
+
 // Now returns the simulated present.
 func (s *Sim) Now() time.Time {
 	s.mu.Lock()
