@@ -200,14 +200,16 @@ func (b *Bench) Close() error {
 // quiet reports whether the bench has nothing left to do at the present
 // instant: no command line unread on any master, none being executed or
 // answered. Bytes the bench wrote and nobody read yet do not count (a late
-// reply nobody waits for must not stop time). A *clock.Sim calls it before
+// reply nobody waits for must not stop time), nor do lines written to an
+// instrument that holds a delayed reply (it reads them once the reply is
+// out, when the clock has reached its time). A *clock.Sim calls it before
 // moving time.
 func (b *Bench) quiet() bool {
 	for _, in := range b.insts {
 		b.mu.Lock()
-		busy := in.busy
+		busy, holding := in.busy, in.holding
 		b.mu.Unlock()
-		if busy || in.pty.unread() > 0 {
+		if busy || (!holding && in.pty.unread() > 0) {
 			return false
 		}
 	}

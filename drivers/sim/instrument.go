@@ -32,8 +32,9 @@ type instrument struct {
 	hangupDue bool
 	noise     *rand.Rand // this role's reading noise, seeded from the bench's seed
 	// busy is set while a command line received is being executed and
-	// answered, and while bytes of an unfinished line are held.
-	busy bool
+	// answered, and while bytes of an unfinished line are held; holding
+	// while a delayed reply waits for its time.
+	busy, holding bool
 }
 
 func newInstrument(role string, p profile.Profile, pt *pty, serial int) *instrument {
@@ -69,6 +70,7 @@ func (b *Bench) serve(ctx context.Context, in *instrument) {
 		if due {
 			in.pty.hangup()
 			line = line[:0]
+			b.setBusy(in, false)
 		}
 		in.pty.master.SetReadDeadline(time.Now().Add(50 * time.Millisecond))
 		n, err := in.pty.master.Read(buf)
@@ -115,10 +117,16 @@ func (b *Bench) serve(ctx context.Context, in *instrument) {
 // It reports false when the bench is stopping.
 func (b *Bench) act(ctx context.Context, in *instrument, a action) bool {
 	if a.delay > 0 {
-		// The line is idle while the reply is held; the clock wakes it.
-		b.setBusy(in, false)
+		// The line is idle while the reply is held, and what clients
+		// write meanwhile waits unread (as on a busy instrument) without
+		// holding time back; the clock wakes the line.
+		b.mu.Lock()
+		in.busy, in.holding = false, true
+		b.mu.Unlock()
 		done, err := clock.Passive(ctx, b.clock, b.clock.Now().Add(a.delay))
-		b.setBusy(in, true)
+		b.mu.Lock()
+		in.busy, in.holding = true, false
+		b.mu.Unlock()
 		done()
 		if err != nil {
 			return false
