@@ -19,6 +19,7 @@ import (
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/configs"
 	"hystd/drivers/clock"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
@@ -290,6 +291,13 @@ func TestEndingsOnBench(t *testing.T) {
 		{"supply port hung up", []sim.Fault{{Role: "supply", Kind: sim.FaultHangup, AfterCommands: 700}}, nil, record.Failed, "lost communication with the supply"},
 		{"supply reports an error", []sim.Fault{{Role: "supply", Kind: sim.FaultError, AfterCommands: 700, Code: -222, Message: "Data out of range"}},
 			nil, record.Failed, "the supply reported an error"},
+		// In simulated time a held reply comes only once the engine sleeps
+		// again, so it is lost for the sample (after the real-time bounds,
+		// fixture.SimReadTimeout and engine.SimCommTimeout): the ending must
+		// still ramp down, time moving although the thermometer's line
+		// holds unread retries.
+		{"thermometer reply delayed", []sim.Fault{{Role: "thermometer", Kind: sim.FaultDelay, Delay: configs.Duration(2 * time.Second), AfterCommands: 300}},
+			nil, record.Failed, "no reply from the thermometer within limits.comm_timeout"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
