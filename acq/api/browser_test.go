@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -26,6 +27,7 @@ import (
 	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
+	"hystd/drivers/clock"
 	"hystd/drivers/sim"
 )
 
@@ -53,12 +55,19 @@ func findChromium(t *testing.T) string {
 	return ""
 }
 
+var updateShots = flag.Bool("update", false, "write the browser test's screenshots to testdata/screenshots (committed)")
+
 // screenshotDir is where the browser test writes its PNG screenshots:
-// $HYSTD_SCREENSHOTS, or testdata/screenshots in this package.
+// $HYSTD_SCREENSHOTS, testdata/screenshots in this package with -update,
+// else a temporary folder (the checkout stays clean).
 func screenshotDir(t *testing.T) string {
 	d := os.Getenv("HYSTD_SCREENSHOTS")
-	if d == "" {
+	switch {
+	case d != "":
+	case *updateShots:
 		d = filepath.Join("testdata", "screenshots")
+	default:
+		d = t.TempDir()
 	}
 	if err := os.MkdirAll(d, 0o755); err != nil {
 		t.Fatal(err)
@@ -89,7 +98,26 @@ type benchServer struct {
 	base    string
 	fixture string
 	bench   *sim.Bench
+	clock   *clock.Sim // the bench's, the drivers' and the engine's time
 	logs    *logBuf
+}
+
+// pace joins the test to the bench's simulated time as a second actor that
+// lets it move at most step per tick of real time, so that a live sweep
+// can be watched; stop freezes simulated time where it is (the test stays
+// an actor, awake) until leave.
+func (bs *benchServer) pace(step, tick time.Duration) (stop, leave func()) {
+	leave = bs.clock.Join()
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		for ctx.Err() == nil {
+			clock.Sleep(ctx, bs.clock, step)
+			time.Sleep(tick)
+		}
+	}()
+	return func() { cancel(); <-done }, leave
 }
 
 func startBenchServer(t *testing.T) *benchServer {
@@ -99,7 +127,8 @@ func startBenchServer(t *testing.T) *benchServer {
 		t.Fatal(err)
 	}
 	ctx, cancel := context.WithCancel(context.Background())
-	b, err := sim.Start(ctx, cfg)
+	clk := clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC))
+	b, err := sim.Start(ctx, cfg, sim.WithClock(clk))
 	if err != nil {
 		cancel()
 		t.Fatal(err)
@@ -132,7 +161,7 @@ log: {level: info}
 fixtures:
   - {fixture: fixture.yaml, specimen: specimen.yaml}
 `, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"))))
-	bs := &benchServer{bench: b, logs: &logBuf{}}
+	bs := &benchServer{bench: b, clock: clk, logs: &logBuf{}}
 	for _, line := range strings.Split(string(fx), "\n") {
 		if v, ok := strings.CutPrefix(line, "name:"); ok {
 			bs.fixture = strings.TrimSpace(v)
@@ -143,7 +172,8 @@ fixtures:
 	ready := make(chan string, 1)
 	go func() {
 		done <- daemon.Serve(ctx, filepath.Join(dir, "daemon.yaml"), daemon.Wiring{
-			Open:      daemon.FixtureOpener(slog.New(slog.NewTextHandler(bs.logs, nil))),
+			Open:      daemon.FixtureOpenerClock(slog.New(slog.NewTextHandler(bs.logs, nil)), clk),
+			Clock:     clk,
 			Area:      daemon.SpecimenArea,
 			Software:  "browser-test",
 			Stderr:    bs.logs,
@@ -203,8 +233,8 @@ type runBody struct {
 	} `json:"run"`
 }
 
-// waitRun polls the API (the bench runs in real time) until the run is in
-// one of the states.
+// waitRun polls the API until the run is in one of the states (the
+// deadline is real time, only to end a test that went wrong).
 func (bs *benchServer) waitRun(t *testing.T, id string, d time.Duration, states ...string) string {
 	t.Helper()
 	deadline := time.Now().Add(d)
@@ -383,7 +413,7 @@ func TestBrowserReview(t *testing.T) {
 		}
 	}
 	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, ids[1])))
-	b.wait("loop plot", `document.querySelectorAll('#loop-plot polyline.trace').length > 0 && !!document.querySelector('#figures tbody tr')`, 15*time.Second)
+	b.wait("loop plot", fmt.Sprintf(`document.body.dataset.loop === %q`, ids[1]+"#1"), 15*time.Second)
 	h, bv, count := plotVertices(b, "#loop-plot")
 	if count != finite || len(h) != finite {
 		t.Errorf("loop plot draws %d vertices (data-count %d), the loop has %d finite points", len(h), count, finite)
@@ -441,8 +471,16 @@ func TestBrowserReview(t *testing.T) {
 
 	// 3. Overlay of loops from two runs.
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#compare-add').click()`))
-	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, ids[0])))
-	b.wait("first run's loop", fmt.Sprintf(`document.querySelector('#run-head h2') && document.querySelector('#run-head h2').textContent.startsWith(%q) && document.querySelectorAll('#loop-plot polyline.trace').length > 0`, ids[0]), 15*time.Second)
+	// Picking another run withdraws the previous run's loop at once: no
+	// "Add to compare", download link or figure of it stays while the new
+	// one loads.
+	withdrawn := js[bool](b, fmt.Sprintf(`(() => { document.querySelector('#runs-list li[data-run-id=%q]').click();
+	  return document.querySelector('#compare-add').disabled && !document.querySelector('#dl-png').hasAttribute('href') &&
+	    !document.querySelector('#figures tbody tr') && document.body.dataset.loop === undefined; })()`, ids[0]))
+	if !withdrawn {
+		t.Error("right after picking another run, the previous run's loop is still offered (compare, links or figures)")
+	}
+	b.wait("first run's loop", fmt.Sprintf(`document.body.dataset.loop === %q`, ids[0]+"#1"), 15*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#compare-add').click(); document.querySelector('[data-view="compare"]').click()`))
 	b.wait("overlay of two runs", `new Set([...document.querySelectorAll('#compare-plot polyline.trace')].map(p => p.dataset.key)).size === 2`, 10*time.Second)
 	keys := js[[]string](b, `[...new Set([...document.querySelectorAll('#compare-plot polyline.trace')].map(p => p.dataset.key))]`)
@@ -469,6 +507,12 @@ func TestBrowserReview(t *testing.T) {
 
 	// 5. A live sweep started from the page with the key, watched, then
 	//    aborted: refused without the key, accepted with it.
+	//    The bench runs in simulated time: the test paces it (at most 5 ms
+	//    of bench time per real millisecond) while it watches, and holds it
+	//    still while it tries the abort, so the run is mid-sweep whatever
+	//    the machine's load.
+	stopPace, leave := bs.pace(5*time.Millisecond, time.Millisecond)
+	defer leave()
 	long := loopRecipe("live-loop", "1 kA/m", "250 A/m/s", 600)
 	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#key-input').value = %q; document.querySelector('#key-save').click();
 	  document.querySelector('[data-view="start"]').click(); document.querySelector('#s-recipe').value = %q; document.querySelector('#s-fixture').value = %q;
@@ -481,6 +525,7 @@ func TestBrowserReview(t *testing.T) {
 	c1 := js[int](b, `+document.querySelector('#live-count').textContent`)
 	b.wait("live view updating", fmt.Sprintf(`+document.querySelector('#live-count').textContent > %d`, c1+40), 20*time.Second)
 	b.wait("progress shown", `parseFloat(document.querySelector('#live-progress').style.width) > 0`, 5*time.Second)
+	stopPace() // simulated time stands still: the run waits mid-sweep
 	b.shot("5-live-sweep.png")
 
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#key-input').value = ''; document.querySelector('#key-save').click();
@@ -492,6 +537,7 @@ func TestBrowserReview(t *testing.T) {
 	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#key-input').value = %q; document.querySelector('#key-save').click();
 	  { const a = document.querySelector('#live-abort'); a.click(); a.click(); }`, browserToken)))
 	b.wait("abort accepted", `document.querySelector('#live-abort-msg').textContent.includes('accepted')`, 10*time.Second)
+	leave() // time moves again: the engine ramps the winding down
 	bs.waitRun(t, liveID, 30*time.Second, "aborted")
 	b.wait("live view shows the end", `document.querySelector('#live-state').textContent.startsWith('aborted')`, 10*time.Second)
 	b.shot("6-live-aborted.png")
@@ -528,7 +574,7 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 	b.do(chromedp.Navigate(srv.URL + "/"))
 	b.wait("run listed", `!!document.querySelector('#runs-list li[data-run-id="MAG-1"]')`, 20*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#runs-list li[data-run-id="MAG-1"]').click()`))
-	b.wait("loop plot", `document.querySelectorAll('#loop-plot polyline.trace').length > 0`, 10*time.Second)
+	b.wait("loop plot", `document.body.dataset.loop === "MAG-1#1"`, 10*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#q2-toggle').click()`))
 	b.wait("marker", `!!document.querySelector('#loop-plot circle.bhmax')`, 5*time.Second)
 	label := js[string](b, `document.querySelector('#loop-plot .marker-label').textContent`)

@@ -19,6 +19,8 @@ import (
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/configs"
+	"hystd/drivers/clock"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
 )
@@ -27,7 +29,8 @@ import (
 // real SQLite store, driven as `hystd serve` is.
 type benchDaemon struct {
 	bench  *sim.Bench
-	dir    string // config folder
+	clock  *clock.Sim // the bench's, the drivers' and the engine's time
+	dir    string     // config folder
 	watch  string
 	db     string
 	runner Runner
@@ -56,9 +59,10 @@ func (s *syncBuf) String() string {
 	return s.b.String()
 }
 
-// startBench starts the demo bench (with faults added) and a daemon on it;
-// before, when not nil, is called with the bench before the daemon starts.
-func startBench(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *benchDaemon {
+// startBench starts the demo bench (with faults added) in simulated time and
+// a daemon on it, on the same clock; before, when not nil, is called with
+// the bench before the daemon starts.
+func startBench(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
 	bd := benchFiles(t, before, faults...)
 	bd.serve(t)
@@ -67,7 +71,7 @@ func startBench(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *ben
 
 // benchFiles starts the bench and writes the fixture, specimen and daemon
 // config for it, without starting a daemon.
-func benchFiles(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *benchDaemon {
+func benchFiles(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
 	cfg, err := sim.DefaultBench()
 	if err != nil {
@@ -75,12 +79,13 @@ func benchFiles(t *testing.T, before func(*sim.Bench), faults ...sim.Fault) *ben
 	}
 	cfg.Faults = append(cfg.Faults, faults...)
 	ctx, cancel := context.WithCancel(context.Background())
-	b, err := sim.Start(ctx, cfg)
+	clk := clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC))
+	b, err := sim.Start(ctx, cfg, sim.WithClock(clk))
 	if err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { cancel(); b.Close() })
-	bd := &benchDaemon{bench: b, dir: t.TempDir(), sigs: make(chan os.Signal, 2), done: make(chan error, 1), logs: &syncBuf{}}
+	bd := &benchDaemon{bench: b, clock: clk, dir: t.TempDir(), sigs: make(chan os.Signal, 2), done: make(chan error, 1), logs: &syncBuf{}}
 	bd.watch = filepath.Join(bd.dir, "inbox")
 	bd.db = filepath.Join(bd.dir, "hystd.db")
 	if err := os.Mkdir(bd.watch, 0o755); err != nil {
@@ -113,7 +118,7 @@ fixtures:
   - {fixture: fixture.yaml, specimen: specimen.yaml, watch: inbox, poll: 100ms}
 `, bd.db)))
 	if before != nil {
-		before(b)
+		before(bd)
 	}
 	bd.ctx = ctx
 	return bd
@@ -129,6 +134,7 @@ func (bd *benchDaemon) serve(t *testing.T) {
 			Software: "test",
 			Stderr:   bd.logs,
 			Signals:  bd.sigs,
+			Clock:    bd.clock,
 			API: func(p APIParts) (http.Handler, error) {
 				bd.runner, bd.hub = p.Runner, p.Live
 				return nil, nil // acq/api imports this package; cmd wires it
@@ -159,8 +165,9 @@ func (bd *benchDaemon) serve(t *testing.T) {
 	})
 }
 
-// waitFor polls cond (the bench runs in real time) until it holds or the
-// deadline passes.
+// waitFor polls cond (a state of the bench, the files or the logs) until
+// it holds; the deadline is real time and generous, only to end a test
+// that went wrong.
 func waitFor(t *testing.T, what string, d time.Duration, cond func() bool) {
 	t.Helper()
 	deadline := time.Now().Add(d)
@@ -289,6 +296,13 @@ func TestEndingsOnBench(t *testing.T) {
 		{"supply port hung up", []sim.Fault{{Role: "supply", Kind: sim.FaultHangup, AfterCommands: 700}}, nil, record.Failed, "lost communication with the supply"},
 		{"supply reports an error", []sim.Fault{{Role: "supply", Kind: sim.FaultError, AfterCommands: 700, Code: -222, Message: "Data out of range"}},
 			nil, record.Failed, "the supply reported an error"},
+		// In simulated time a held reply comes only once the engine sleeps
+		// again, so it is lost for the sample (after the real-time bounds,
+		// fixture.SimReadTimeout and engine.SimCommTimeout): the ending must
+		// still ramp down, time moving although the thermometer's line
+		// holds unread retries.
+		{"thermometer reply delayed", []sim.Fault{{Role: "thermometer", Kind: sim.FaultDelay, Delay: configs.Duration(2 * time.Second), AfterCommands: 300}},
+			nil, record.Failed, "no reply from the thermometer within limits.comm_timeout"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -345,9 +359,10 @@ func TestEndingsOnBench(t *testing.T) {
 // (by a program that died) is brought to zero when the daemon starts,
 // before anything else.
 func TestStartupHaltsEnergisedSupply(t *testing.T) {
-	bd := startBench(t, func(b *sim.Bench) {
+	bd := startBench(t, func(bd *benchDaemon) {
+		b := bd.bench
 		ctx := context.Background()
-		sup, err := profile.OpenSupply(ctx, profile.Spec{Port: b.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
+		sup, err := profile.OpenSupply(ctx, profile.Spec{Port: b.Ports()["supply"], Profile: "sim-supply"}, profile.Options{Now: bd.clock.Now})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -358,7 +373,13 @@ func TestStartupHaltsEnergisedSupply(t *testing.T) {
 		if err := sup.SetOutput(ctx, true); err != nil {
 			t.Fatal(err)
 		}
-		waitFor(t, "the bench at 2 A", 10*time.Second, func() bool { return math.Abs(float64(b.Truth().I)-2) < 0.01 })
+		// The test is the actor until the daemon starts: its sleeps move time.
+		for k := 0; math.Abs(float64(b.Truth().I)-2) >= 0.01; k++ {
+			if k == 1000 {
+				t.Fatalf("the bench is at %g A after 10 s of bench time", float64(b.Truth().I))
+			}
+			clock.Sleep(ctx, bd.clock, 10*time.Millisecond)
+		}
 	})
 	waitFor(t, "the supply at zero", 10*time.Second, func() bool {
 		tr := bd.bench.Truth()
@@ -410,7 +431,7 @@ func TestRunOnce(t *testing.T) {
 		t.Fatal(err)
 	}
 	o := RunOptions{ConfigPath: filepath.Join(bd.dir, "daemon.yaml"), RecipePath: rp, Out: &syncBuf{},
-		Wiring: Wiring{Software: "test", Stderr: bd.logs, Signals: make(chan os.Signal)}}
+		Wiring: Wiring{Software: "test", Stderr: bd.logs, Signals: make(chan os.Signal), Clock: bd.clock}}
 	run, err := RunOnce(context.Background(), o)
 	if err != nil || run.State != record.Finished {
 		t.Fatalf("run %s %q: %v", run.State, run.Reason, err)

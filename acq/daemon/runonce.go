@@ -17,6 +17,7 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/drivers/clock"
 )
 
 // RunOptions are the inputs of `hystd run`.
@@ -96,8 +97,11 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}
 	defer st.Close()
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
+	if w.Clock == nil {
+		w.Clock = clock.Real{}
+	}
 	if w.Open == nil {
-		w.Open = FixtureOpener(log)
+		w.Open = FixtureOpenerClock(log, w.Clock)
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
@@ -132,7 +136,7 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	defer op.Close()
 	p := &printer{out: o.Out}
 	run, err := engine.Run(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
-		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments,
+		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Clock: w.Clock,
 		Writer: grade.Writer{Writer: st, Grade: gr, Rule: cfg.Registry.Rule}, Process: op.Process,
 		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir, Operator: o.Operator})
 	var ref *engine.Refused

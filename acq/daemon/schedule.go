@@ -5,6 +5,7 @@ import (
 	"time"
 
 	"hystd/acq/record"
+	"hystd/drivers/clock"
 )
 
 // schedule submits the fixture's scheduled recipes when they are due, on the
@@ -22,7 +23,11 @@ func (d *Daemon) schedule(ctx context.Context, lf LoadedFixture) {
 			}
 		}
 		log.Info("next scheduled run", "at", next, "recipe", due.RecipeFile)
-		if err := d.deps.Clock.SleepUntil(ctx, next); err != nil {
+		// Passive: on simulated time the scheduler is no actor of its own
+		// (time moves when the engine sleeps).
+		done, err := clock.Passive(ctx, d.deps.Clock, next)
+		done()
+		if err != nil {
 			return
 		}
 		id, err := d.SubmitNamed(ctx, lf.Name, due.RecipeFile, due.Recipe.Text(), "schedule", func(r record.Run, err error) {

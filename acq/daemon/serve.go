@@ -28,6 +28,7 @@ import (
 	"hystd/acq/store"
 	"hystd/buildinfo"
 	"hystd/calib/units"
+	"hystd/drivers/clock"
 )
 
 // APIParts are what the HTTP API is built over.
@@ -56,6 +57,10 @@ type Wiring struct {
 	Listening func(addr string)
 	// Signals, when set, replaces the process's SIGHUP/SIGTERM/SIGINT (tests).
 	Signals <-chan os.Signal
+	// Clock is the time of the drivers and the engine; nil: the machine's.
+	// A *clock.Sim, shared with a simulated bench in the same process, runs
+	// every run in simulated time (one fixture per clock).
+	Clock clock.Clock
 }
 
 // NewLogger returns the structured logger a config asks for.
@@ -96,14 +101,17 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
 	RecoverRuns(ctx, cfg, st, st, log)
 
+	if w.Clock == nil {
+		w.Clock = clock.Real{}
+	}
 	if w.Open == nil {
-		w.Open = FixtureOpener(log)
+		w.Open = FixtureOpenerClock(log, w.Clock)
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
 	}
 	hub := live.NewHub(0)
-	d, err := New(cfg, Deps{Open: w.Open, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area})
+	d, err := New(cfg, Deps{Open: w.Open, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area, Clock: w.Clock})
 	if err != nil {
 		return err
 	}

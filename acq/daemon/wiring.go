@@ -8,14 +8,19 @@ import (
 	"hystd/acq/fixture"
 	"hystd/acq/process"
 	"hystd/calib/units"
+	"hystd/drivers/clock"
 )
 
 // FixtureOpener opens a fixture's instruments through their profiles
 // (acq/fixture) and builds the loop processing for the mounted specimen with
 // the profiles' accuracies. Geometry warnings are logged.
-func FixtureOpener(log *slog.Logger) Opener {
+func FixtureOpener(log *slog.Logger) Opener { return FixtureOpenerClock(log, clock.Real{}) }
+
+// FixtureOpenerClock is FixtureOpener with the drivers on clk (the
+// engine's clock; see fixture.OpenClock).
+func FixtureOpenerClock(log *slog.Logger, clk clock.Clock) Opener {
 	return func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error) {
-		o, err := fixture.Open(ctx, fx, log)
+		o, err := fixture.OpenClock(ctx, fx, log, clk)
 		if err != nil {
 			return Opened{}, err
 		}

@@ -28,6 +28,7 @@ import (
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/configs"
+	"hystd/drivers/clock"
 	"hystd/drivers/sim"
 )
 
@@ -55,6 +56,10 @@ type Options struct {
 	// acknowledged them. Loops it could not send stay in the store's outbox.
 	Influx     *influx.Config
 	InfluxWait time.Duration
+	// Clock is the bench's, the drivers' and the engine's time; nil: real
+	// time (the sweep takes as long as on a real bench). A *clock.Sim runs
+	// the demo in simulated time, as fast as the pseudo-terminals allow.
+	Clock clock.Clock
 }
 
 // Result is what a demo run produced.
@@ -92,8 +97,16 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		}
 		benchCfg = &c
 	}
-	fmt.Fprintf(out, "starting the simulated bench %q on pseudo-terminals\n", benchCfg.Name)
-	bench, err := sim.Start(ctx, *benchCfg)
+	clk := o.Clock
+	if clk == nil {
+		clk = clock.Real{}
+	}
+	pace := "real time"
+	if clock.IsSimulated(clk) {
+		pace = "simulated time"
+	}
+	fmt.Fprintf(out, "starting the simulated bench %q on pseudo-terminals (%s)\n", benchCfg.Name, pace)
+	bench, err := sim.Start(ctx, *benchCfg, sim.WithClock(clk))
 	if err != nil {
 		return Result{}, fmt.Errorf("simulated bench: %w", err)
 	}
@@ -121,7 +134,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		db = st.Path()
 	}
 
-	opened, err := fixture.Open(ctx, fx, log)
+	opened, err := fixture.OpenClock(ctx, fx, log, clk)
 	if err != nil {
 		return Result{}, err
 	}
@@ -156,6 +169,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		Log:         log,
 		Software:    o.Software,
 		SpoolDir:    o.DataDir,
+		Clock:       clk,
 	})
 	res := Result{Run: run, DB: db, Truth: bench.History()}
 	if run.ID != "" {

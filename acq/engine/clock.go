@@ -1,36 +1,22 @@
 package engine
 
 import (
-	"context"
 	"time"
+
+	"hystd/drivers/clock"
 )
 
-// Clock is the engine's time source. Tests inject a clock that advances on
-// its own instead of sleeping.
-type Clock interface {
-	Now() time.Time
-	// SleepUntil returns when t has come or ctx is done (with ctx's error).
-	SleepUntil(ctx context.Context, t time.Time) error
-}
+// Clock is the engine's time source: drivers/clock's, shared with the
+// simulated bench and the drivers' stamps. Tests inject a clock that
+// advances on its own instead of sleeping (clock.Manual) or simulated time
+// (clock.Sim).
+type Clock = clock.Clock
 
 // RealClock is the wall and monotonic clock of the machine.
-type RealClock struct{}
+type RealClock = clock.Real
 
-// Now returns time.Now (with its monotonic reading).
-func (RealClock) Now() time.Time { return time.Now() }
-
-// SleepUntil waits for t or ctx.
-func (RealClock) SleepUntil(ctx context.Context, t time.Time) error {
-	d := time.Until(t)
-	if d <= 0 {
-		return ctx.Err()
-	}
-	tm := time.NewTimer(d)
-	defer tm.Stop()
-	select {
-	case <-tm.C:
-		return nil
-	case <-ctx.Done():
-		return ctx.Err()
-	}
-}
+// SimCommTimeout is the least bound of one sample round in simulated time.
+// The bound is kept in real time (simulated time stands still while the
+// engine waits for a reply), so it must be generous enough that no load on
+// the machine makes it expire while the bench is answering.
+const SimCommTimeout = 10 * time.Second

@@ -18,6 +18,7 @@ import (
 	"hystd/acq/safety"
 	"hystd/acq/sampler"
 	"hystd/calib/units"
+	"hystd/drivers/clock"
 )
 
 // Timeouts of the engine's own bookkeeping, independent of the run's context.
@@ -64,6 +65,9 @@ func newExec(p *Plan) *exec {
 	comm := p.s.Fixture.Limits.CommTimeout.D()
 	if comm <= 0 {
 		comm = DefaultCommTimeout
+	}
+	if clock.IsSimulated(p.s.Clock) {
+		comm = max(comm, SimCommTimeout)
 	}
 	return &exec{p: p, s: p.s, log: p.s.Log.With("run", p.run.ID, "fixture", p.run.Fixture),
 		check: safety.NewChecker(safety.LimitsOf(p.s.Fixture)), comm: comm}

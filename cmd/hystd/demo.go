@@ -7,6 +7,7 @@ import (
 	"net"
 	"os"
 	"path/filepath"
+	"time"
 
 	"github.com/spf13/cobra"
 
@@ -15,6 +16,7 @@ import (
 	"hystd/acq/influx"
 	"hystd/acq/live"
 	"hystd/acq/store"
+	"hystd/drivers/clock"
 )
 
 func init() { register(newDemoCmd) }
@@ -32,7 +34,7 @@ func demoExit(err error) error {
 }
 
 func newDemoCmd() *cobra.Command {
-	var dataDir, serveAddr string
+	var dataDir, serveAddr, speed string
 	var ic influx.Config
 	var tags []string
 	cmd := &cobra.Command{
@@ -44,6 +46,10 @@ func newDemoCmd() *cobra.Command {
 			"With --serve ADDR the review page and the read-only API are served on ADDR (for example\n" +
 			"127.0.0.1:8740) from the start, so the live sweep can be watched, and after the run until\n" +
 			"SIGINT or SIGTERM.\n\n" +
+			"--speed real (the default) paces the sweep as a real bench would; --speed max runs the bench,\n" +
+			"the drivers and the engine in simulated time: the same bytes through the same ports, but time\n" +
+			"jumps to each next setpoint, so the run takes as long as the computer needs and, for the same\n" +
+			"bench, stores the same samples every time.\n\n" +
 			"With --influx-url the loops are also sent to a time-series database (--influx-api v2 or v1,\n" +
 			"--influx-tag NAME=VALUE for static tags). Progress and figures go to stdout, logs to stderr.\n" +
 			"Exit status: 0 ok, 1 failed, 2 usage, 3 the forward asked for delivered nothing or the\n" +
@@ -55,6 +61,13 @@ func newDemoCmd() *cobra.Command {
 			opts := demo.Options{DataDir: dataDir, Out: out, Software: version,
 				Log: slog.New(slog.NewTextHandler(cmd.ErrOrStderr(), &slog.HandlerOptions{Level: slog.LevelWarn}))}
 			slog.SetDefault(opts.Log) // the forwarder logs through the default logger: stderr
+			switch speed {
+			case "real":
+			case "max":
+				opts.Clock = clock.NewSim(time.Now())
+			default:
+				return &exitError{code: exitUsage, err: fmt.Errorf("--speed %q: want real or max", speed)}
+			}
 			if ic.URL != "" || ic.Bucket != "" {
 				ic.Kind = "influx"
 				for _, t := range tags {
@@ -122,6 +135,7 @@ func newDemoCmd() *cobra.Command {
 	cmd.Flags().StringVar(&ic.Org, "influx-org", "", "organization for --influx-url")
 	cmd.Flags().StringVar(&ic.Bucket, "influx-bucket", "", "bucket for --influx-url")
 	cmd.Flags().StringVar(&ic.TokenFile, "influx-token-file", "", "file holding the API token (else $"+influx.DefaultTokenEnv+")")
+	cmd.Flags().StringVar(&speed, "speed", "real", "real: the sweep's own pace; max: simulated time, as fast as the computer allows")
 	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8740) until SIGINT/SIGTERM")
 	return cmd
 }

@@ -1,16 +1,19 @@
 package main
 
 import (
+	"fmt"
+
 	"github.com/spf13/cobra"
 
 	"hystd/acq/api"
 	"hystd/acq/daemon"
+	"hystd/drivers/clock"
 )
 
 func init() { register(newServeCmd) }
 
 func newServeCmd() *cobra.Command {
-	var cfgPath string
+	var cfgPath, simClock string
 	cmd := &cobra.Command{
 		Use:   "serve --config FILE",
 		Short: "Run the daemon: fixtures, watched recipe folders, schedules, HTTP API, forwarder",
@@ -21,14 +24,26 @@ func newServeCmd() *cobra.Command {
 			"Settings can be overridden as HYSTD_<KEY>, e.g. HYSTD_HTTP_ADDR.",
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			return daemon.Serve(cmd.Context(), cfgPath, daemon.Wiring{
+			w := daemon.Wiring{
 				Software: version,
 				Stderr:   cmd.ErrOrStderr(),
 				API:      api.ForDaemon,
-			})
+			}
+			if simClock != "" {
+				c, err := clock.Dial(cmd.Context(), simClock)
+				if err != nil {
+					return &exitError{code: 2, err: fmt.Errorf("--sim-clock: %w", err)}
+				}
+				w.Clock = c
+			}
+			return daemon.Serve(cmd.Context(), cfgPath, w)
 		},
 	}
 	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config file (kind: daemon)")
 	_ = cmd.MarkFlagRequired("config")
+	// For tests that run the daemon as a child against a simulated bench in
+	// their own process (DEVELOPERS.md, "Time"): instruments must be on ptys.
+	cmd.Flags().StringVar(&simClock, "sim-clock", "", "run on the simulated time served at this URL by the process running the simulated bench (tests only)")
+	_ = cmd.Flags().MarkHidden("sim-clock")
 	return cmd
 }

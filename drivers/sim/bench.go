@@ -22,6 +22,7 @@ import (
 	"time"
 
 	"hystd/calib/units"
+	"hystd/drivers/clock"
 	"hystd/drivers/sim/physics"
 )
 
@@ -55,19 +56,21 @@ type Truth struct {
 // Option changes how Start runs a bench.
 type Option func(*Bench)
 
-// WithClock makes the bench follow c instead of the wall clock.
-func WithClock(c Clock) Option { return func(b *Bench) { b.clock = c } }
+// WithClock makes the bench follow c instead of the wall clock. With a
+// *clock.Sim the bench is simulated time's partner: time moves only while
+// no command line is waiting on any of its pseudo-terminals and none is
+// being answered, and a delayed reply waits in simulated time.
+func WithClock(c clock.Clock) Option { return func(b *Bench) { b.clock = c } }
 
 // Bench is a running simulated bench. Its methods are safe for concurrent
 // use. Close (or cancelling Start's context) stops it and removes the ports.
 type Bench struct {
 	cfg   Config
-	clock Clock
+	clock clock.Clock
 	start time.Time
 
 	mu     sync.Mutex
 	rig    *physics.Rig
-	noise  *rand.Rand
 	simT   time.Duration
 	hist   []Truth
 	head   int // next write index once hist is full
@@ -75,6 +78,7 @@ type Bench struct {
 	faults []*faultState
 
 	cancel    context.CancelFunc
+	unquiet   func() // unregisters quiet from a *clock.Sim
 	wg        sync.WaitGroup
 	closeOnce sync.Once
 	closeErr  error
@@ -91,12 +95,11 @@ func Start(ctx context.Context, cfg Config, opts ...Option) (*Bench, error) {
 	if err != nil {
 		return nil, fmt.Errorf("sim: %w", err)
 	}
-	b := &Bench{cfg: cfg, clock: realClock{}, rig: rig, insts: map[string]*instrument{}}
+	b := &Bench{cfg: cfg, clock: clock.Real{}, rig: rig, insts: map[string]*instrument{}}
 	for _, o := range opts {
 		o(b)
 	}
 	b.start = b.clock.Now()
-	b.noise = rand.New(rand.NewPCG(cfg.Seed, 0x6e6f697365))
 	for i, f := range cfg.Faults {
 		b.faults = append(b.faults, &faultState{Fault: f, rng: rand.New(rand.NewPCG(cfg.Seed, uint64(i)+1))})
 	}
@@ -110,7 +113,11 @@ func Start(ctx context.Context, cfg Config, opts ...Option) (*Bench, error) {
 			}
 			return nil, fmt.Errorf("sim: %s: %w", role, err)
 		}
-		b.insts[role] = newInstrument(role, cfg.profiles[role], p, serial)
+		in := newInstrument(role, cfg.profiles[role], p, serial)
+		// Each role draws its noise from its own stream, so that the
+		// order in which concurrent reads reach the bench changes nothing.
+		in.noise = rand.New(rand.NewPCG(cfg.Seed, 0x6e6f697365^uint64(serial)<<32))
+		b.insts[role] = in
 		serial++
 	}
 	ctx, b.cancel = context.WithCancel(ctx)
@@ -118,8 +125,12 @@ func Start(ctx context.Context, cfg Config, opts ...Option) (*Bench, error) {
 		b.wg.Add(1)
 		go func() { defer b.wg.Done(); b.serve(ctx, in) }()
 	}
-	b.wg.Add(1)
-	go func() { defer b.wg.Done(); b.tick(ctx) }()
+	if sc, ok := b.clock.(*clock.Sim); ok {
+		b.unquiet = sc.AddQuiet(b.quiet)
+	} else {
+		b.wg.Add(1)
+		go func() { defer b.wg.Done(); b.tick(ctx) }()
+	}
 	go func() { <-ctx.Done(); b.Close() }()
 	b.mu.Lock()
 	b.record()
@@ -168,6 +179,9 @@ func (b *Bench) History() []Truth {
 func (b *Bench) Close() error {
 	b.closeOnce.Do(func() {
 		b.cancel()
+		if b.unquiet != nil {
+			b.unquiet()
+		}
 		var errs []error
 		for _, in := range b.insts {
 			if err := in.pty.closeMaster(); err != nil {
@@ -183,8 +197,28 @@ func (b *Bench) Close() error {
 	return b.closeErr
 }
 
+// quiet reports whether the bench has nothing left to do at the present
+// instant: no command line unread on any master, none being executed or
+// answered. Bytes the bench wrote and nobody read yet do not count (a late
+// reply nobody waits for must not stop time), nor do lines written to an
+// instrument that holds a delayed reply (it reads them once the reply is
+// out, when the clock has reached its time). A *clock.Sim calls it before
+// moving time.
+func (b *Bench) quiet() bool {
+	for _, in := range b.insts {
+		b.mu.Lock()
+		busy, holding := in.busy, in.holding
+		b.mu.Unlock()
+		if busy || (!holding && in.pty.unread() > 0) {
+			return false
+		}
+	}
+	return true
+}
+
 // tick advances physics and timed faults in real time, so a trip or a timed
-// fault happens on time even when nobody talks to the bench.
+// fault happens on time even when nobody talks to the bench. (In simulated
+// time nothing is needed: time moves only when the bench is asked to.)
 func (b *Bench) tick(ctx context.Context) {
 	t := time.NewTicker(tickPeriod)
 	defer t.Stop()

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"hystd/drivers/clock"
 	"strings"
 	"testing"
 	"time"
@@ -84,9 +85,9 @@ func (c *lineClient) write(cmd string) {
 }
 
 // startBench starts cfg on a manual clock and stops it at the end of the test.
-func startBench(t *testing.T, cfg Config) (*Bench, *ManualClock) {
+func startBench(t *testing.T, cfg Config) (*Bench, *clock.Manual) {
 	t.Helper()
-	clk := NewManualClock(time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC))
+	clk := clock.NewManual(time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC))
 	b, err := Start(context.Background(), cfg, WithClock(clk))
 	if err != nil {
 		t.Fatal(err)

@@ -2,6 +2,7 @@ package sim
 
 import (
 	"bytes"
+	"hystd/drivers/clock"
 	"math"
 	"os"
 	"strings"
@@ -93,7 +94,7 @@ func BenchmarkQueryRoundTrip(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	clk := NewManualClock(time.Unix(0, 0))
+	clk := clock.NewManual(time.Unix(0, 0))
 	bench, err := Start(b.Context(), cfg, WithClock(clk))
 	if err != nil {
 		b.Fatal(err)

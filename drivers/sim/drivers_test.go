@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"hystd/drivers/clock"
 	"log/slog"
 	"math"
 	"os"
@@ -127,7 +128,7 @@ func TestShippedProfilesThroughDrivers(t *testing.T) {
 // profile drivers as their typed errors.
 func TestFaultsThroughProfileDrivers(t *testing.T) {
 	ctx := context.Background()
-	open := func(t *testing.T, b *Bench, clk *ManualClock, role string) instr.Resource {
+	open := func(t *testing.T, b *Bench, clk *clock.Manual, role string) instr.Resource {
 		o := profile.Options{Log: slog.New(slog.DiscardHandler), ReconnectWithin: 2 * time.Second,
 			Sleep: func(ctx context.Context, d time.Duration) error { clk.Advance(d); return ctx.Err() }}
 		r, err := profile.Open(ctx, profile.Spec{Port: b.Ports()[role], Profile: b.Profiles()[role]}, o)

@@ -82,6 +82,21 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 			t.Fatalf("the bench holds %d delayed replies, want 1", clk.Waiters())
 		}
 		clk.Advance(5 * time.Second)
+		// State, not time: the late reply is out once the line neither
+		// holds it nor is busy writing it.
+		th := b.insts[RoleThermometer]
+		for k := 0; ; k++ {
+			b.mu.Lock()
+			out := !th.holding && !th.busy
+			b.mu.Unlock()
+			if out {
+				break
+			}
+			if k == 10000 {
+				t.Fatal("the delayed reply was never sent")
+			}
+			time.Sleep(time.Millisecond)
+		}
 		id, err := c.Identify(ctx)
 		if err != nil || len(fields(id)) != 4 {
 			t.Errorf("after the delay: %q, %v", id, err)

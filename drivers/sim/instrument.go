@@ -10,6 +10,9 @@ import (
 	"syscall"
 	"time"
 
+	"math/rand/v2"
+
+	"hystd/drivers/clock"
 	"hystd/drivers/profile"
 )
 
@@ -27,6 +30,11 @@ type instrument struct {
 	cmds      int           // command lines received
 	armed     []*faultState // reply faults waiting for the next reply
 	hangupDue bool
+	noise     *rand.Rand // this role's reading noise, seeded from the bench's seed
+	// busy is set while a command line received is being executed and
+	// answered, and while bytes of an unfinished line are held; holding
+	// while a delayed reply waits for its time.
+	busy, holding bool
 }
 
 func newInstrument(role string, p profile.Profile, pt *pty, serial int) *instrument {
@@ -62,9 +70,13 @@ func (b *Bench) serve(ctx context.Context, in *instrument) {
 		if due {
 			in.pty.hangup()
 			line = line[:0]
+			b.setBusy(in, false)
 		}
 		in.pty.master.SetReadDeadline(time.Now().Add(50 * time.Millisecond))
 		n, err := in.pty.master.Read(buf)
+		if n > 0 {
+			b.setBusy(in, true)
+		}
 		for _, c := range buf[:n] {
 			if c != in.inTerm {
 				if len(line) < 64<<10 { // an endless line is cut, not grown
@@ -77,6 +89,9 @@ func (b *Bench) serve(ctx context.Context, in *instrument) {
 			if !b.act(ctx, in, a) {
 				return
 			}
+		}
+		if n > 0 {
+			b.setBusy(in, len(line) > 0)
 		}
 		switch {
 		case err == nil, errors.Is(err, os.ErrDeadlineExceeded):
@@ -102,10 +117,19 @@ func (b *Bench) serve(ctx context.Context, in *instrument) {
 // It reports false when the bench is stopping.
 func (b *Bench) act(ctx context.Context, in *instrument, a action) bool {
 	if a.delay > 0 {
-		select {
-		case <-ctx.Done():
+		// The line is idle while the reply is held, and what clients
+		// write meanwhile waits unread (as on a busy instrument) without
+		// holding time back; the clock wakes the line.
+		b.mu.Lock()
+		in.busy, in.holding = false, true
+		b.mu.Unlock()
+		done, err := clock.Passive(ctx, b.clock, b.clock.Now().Add(a.delay))
+		b.mu.Lock()
+		in.busy, in.holding = true, false
+		b.mu.Unlock()
+		done()
+		if err != nil {
 			return false
-		case <-b.clock.After(a.delay):
 		}
 	}
 	if a.reply != nil {
@@ -118,6 +142,12 @@ func (b *Bench) act(ctx context.Context, in *instrument, a action) bool {
 		in.pty.hangup()
 	}
 	return true
+}
+
+func (b *Bench) setBusy(in *instrument, v bool) {
+	b.mu.Lock()
+	in.busy = v
+	b.mu.Unlock()
 }
 
 // exec runs one command line (commands separated by ";") and returns what
@@ -305,14 +335,14 @@ func (b *Bench) query(in *instrument, m matcher) (reply, *scpiError) {
 	case profile.OpReadStatus:
 		return reply{Int: b.statusRegister(m.op)}, nil
 	case profile.OpReadFlux:
-		return reply{Num: r.ReadFlux(b.noise.NormFloat64())}, nil
+		return reply{Num: r.ReadFlux(in.noise.NormFloat64())}, nil
 	case profile.OpReadOverload:
 		return reply{Bool: r.Integrator.Overload}, nil
 	case profile.OpReadField:
-		v, ok := r.ReadField(b.noise.NormFloat64())
+		v, ok := r.ReadField(in.noise.NormFloat64())
 		return reply{Num: v, Overflow: !ok}, nil
 	case profile.OpReadTemperature:
-		return reply{Num: r.ReadTemperature(b.noise.NormFloat64())}, nil
+		return reply{Num: r.ReadTemperature(in.noise.NormFloat64())}, nil
 	}
 	return reply{}, &errUndefHeader
 }

@@ -72,6 +72,23 @@ func (p *pty) hangup() error {
 	return nil
 }
 
+// unread returns how many bytes clients wrote that the bench has not read
+// yet (FIONREAD on the master); 0 when it cannot tell.
+func (p *pty) unread() int {
+	// Not p.master.Fd(): that would make the master blocking.
+	rc, err := p.master.SyscallConn()
+	if err != nil {
+		return 0
+	}
+	n := 0
+	rc.Control(func(fd uintptr) {
+		if v, err := unix.IoctlGetInt(int(fd), unix.TIOCINQ); err == nil {
+			n = v
+		}
+	})
+	return n
+}
+
 // closeMaster closes the master; a blocked master read returns
 // os.ErrClosed and the slave path goes away once the slave fd is closed.
 func (p *pty) closeMaster() error { return p.master.Close() }

@@ -389,13 +389,39 @@ async function loadOutbox() {
 
 const loopPlot = { plot: null };
 
+// loopPending marks the loop view as not (yet) showing a loaded loop: the
+// figures, the download links and "Add to compare" are withdrawn until the
+// new loop is in, so that none of them belongs to the previous run. The
+// body's data-loop ("RUN#N", set by loopLoaded) says which loop is shown;
+// tests wait on it.
+function loopPending() {
+  state.loop = null;
+  delete document.body.dataset.loop;
+  $("#compare-add").disabled = true;
+  for (const id of ["#dl-svg", "#dl-png"]) $(id).removeAttribute("href");
+  fillTables(null);
+}
+
+function loopLoaded() {
+  $("#compare-add").disabled = false;
+  document.body.dataset.loop = `${state.loop.run_id}#${state.loop.n}`;
+}
+
+let selectSeq = 0; // the latest selection; answers to older ones are dropped
+
 async function selectRun(id) {
   showView("loop");
+  const seq = ++selectSeq;
+  loopPending();
+  let run;
   try {
-    state.run = await api("/api/v1/runs/" + encodeURIComponent(id));
+    run = await api("/api/v1/runs/" + encodeURIComponent(id));
   } catch (e) {
-    $("#run-head").textContent = e.message; return;
+    if (seq === selectSeq) $("#run-head").textContent = e.message;
+    return;
   }
+  if (seq !== selectSeq) return;
+  state.run = run;
   for (const li of document.querySelectorAll("#runs-list li")) li.classList.toggle("sel", li.dataset.runId === id);
   const r = state.run.run;
   if (!$("#s-fixture").value) $("#s-fixture").value = r.fixture;
@@ -429,21 +455,29 @@ async function selectRun(id) {
   const ev = $("#events");
   ev.textContent = "";
   for (const e of state.run.events) ev.append(el("li", { class: e.level, text: `${when(e.at)}  ${e.text}` }));
-  if (state.run.loops.length) await selectLoop(state.run.loops[0].n);
-  else { state.loop = null; loopPlot.plot.set({ series: [], empty: "no loop stored for this run (yet)" }); fillTables(null); }
+  if (state.run.loops.length) await selectLoop(state.run.loops[0].n, seq);
+  else { loopPlot.plot.set({ series: [], empty: "no loop stored for this run (yet)" }); document.body.dataset.loop = `${r.id}#none`; }
 }
 
-async function selectLoop(n) {
+async function selectLoop(n, seq) {
+  if (seq === undefined) seq = ++selectSeq;
   const r = state.run.run;
+  loopPending();
+  let data;
   try {
-    const data = await api(`/api/v1/runs/${encodeURIComponent(r.id)}/loops/${n}?max_points=200000`);
-    state.loop = data.loop; state.loopN = n;
-  } catch (e) { $("#loop-plot").textContent = e.message; return; }
+    data = await api(`/api/v1/runs/${encodeURIComponent(r.id)}/loops/${n}?max_points=200000`);
+  } catch (e) {
+    if (seq === selectSeq) $("#loop-plot").textContent = e.message;
+    return;
+  }
+  if (seq !== selectSeq) return;
+  state.loop = data.loop; state.loopN = n;
   for (const b of document.querySelectorAll("#loop-picker button")) b.classList.toggle("on", +b.dataset.n === n);
   for (const f of state.loop.figures) state.figureNames.add(f.name);
   refreshFigureList();
   drawLoop(false);
   fillTables(state.loop);
+  loopLoaded();
 }
 
 function drawLoop(keepZoom) {

@@ -14,46 +14,17 @@ import (
 
 	"hystd/acq/record"
 	"hystd/calib/units"
+	"hystd/drivers/clock"
 	"hystd/drivers/instr"
 	"hystd/drivers/link"
 )
 
 // Clock advances only when the engine waits or an instrument answers:
-// time is injected, nothing sleeps.
-type Clock struct {
-	mu  sync.Mutex
-	now time.Time
-}
+// time is injected, nothing sleeps. It is drivers/clock's Manual clock.
+type Clock = clock.Manual
 
 // NewClock returns a clock at 2026-03-02 07:30 UTC.
-func NewClock() *Clock {
-	return &Clock{now: time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC)}
-}
-
-// Now returns the clock's time.
-func (c *Clock) Now() time.Time {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	return c.now
-}
-
-// Advance moves the clock on by d and returns the new time.
-func (c *Clock) Advance(d time.Duration) time.Time {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	c.now = c.now.Add(d)
-	return c.now
-}
-
-// SleepUntil jumps to t (if later) and returns ctx's error.
-func (c *Clock) SleepUntil(ctx context.Context, t time.Time) error {
-	c.mu.Lock()
-	if t.After(c.now) {
-		c.now = t
-	}
-	c.mu.Unlock()
-	return ctx.Err()
-}
+func NewClock() *Clock { return clock.NewManual(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC)) }
 
 // Latency is what each fake query takes on the fake clock.
 const Latency = 500 * time.Microsecond
