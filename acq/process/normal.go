@@ -57,10 +57,12 @@ type Family struct {
 
 // Add takes the figures of loop member (1-based) of of the normal_curve
 // step key. Before the last it returns nil. With the last it returns the
-// curve's figures; a b_at field the tips do not reach is left out and named
-// in the μ_max figure's note. A family with fewer than two loops with tips
-// gives no figures and no error.
-func (f *Family) Add(key string, member, of int, bAt []float64, figs []record.Figure) ([]record.Figure, error) {
+// curve's figures, and μ_initial at muB (T; the specimen's mu_initial_b_mt)
+// read on the curve (loop.NormalMuInitial); a b_at field or a μ_initial
+// level the tips do not reach is left out and named in the μ_max figure's
+// note. A family with fewer than two loops with tips gives no figures and
+// no error.
+func (f *Family) Add(key string, member, of int, bAt []float64, muB units.Tesla, figs []record.Figure) ([]record.Figure, error) {
 	if key != f.key || member == 1 {
 		f.key, f.loops = key, nil
 	}
@@ -106,13 +108,20 @@ func (f *Family) Add(key string, member, of int, bAt []float64, figs []record.Fi
 	if err != nil {
 		return nil, fmt.Errorf("normal curve of %s: %w", key, err)
 	}
+	if muB > 0 {
+		if g, err := loop.NormalMuInitial(tips, float64(muB)); err == nil {
+			lf = append(lf, g)
+		} else {
+			missed = append(missed, fmt.Sprintf("μ_initial at %g T", float64(muB)))
+		}
+	}
 	out := make([]record.Figure, len(lf))
 	for i, g := range lf {
 		note := g.Note + "; " + g.Budget.Summary(g.Unit)
 		if i == 0 {
 			note = fmt.Sprintf("normal curve of %d loops (%s); ", len(tips), key) + note
 			if len(missed) > 0 {
-				note += "; B not read at " + strings.Join(missed, ", ") + ": beyond the tips"
+				note += "; not read (beyond the tips): " + strings.Join(missed, ", ")
 			}
 		}
 		out[i] = record.Figure{Name: g.Name, Value: g.Value, U: g.U, Unit: g.Unit, Note: note}

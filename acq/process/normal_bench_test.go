@@ -41,11 +41,21 @@ func jaTip(amp, step float64) float64 {
 // to 8 kA/m, 10 per decade, each loop with the bench's noise and drift as in
 // TestCoverageOnTheBench) through Loop and Family gives B at 800, 2500 and
 // 5000 A/m (the fields electrical steel is quoted at, common practice), μ_max
-// and H at μ_max within their U of the bench's truth: jaTip at those fields,
-// and μ_max and its H from jaTip on a dense grid (200 per decade, parabola
-// through the largest and its neighbours).
+// and H at μ_max, and μ_initial at 0.5 T within their U of the bench's
+// truth: jaTip at those fields, μ_max and its H from jaTip on a dense grid
+// (200 per decade, parabola through the largest and its neighbours), the
+// field of jaTip = 0.1 T by bisection.
 func TestNormalCurveOnTheBench(t *testing.T) {
 	bAt := []float64{800, 2500, 5000}
+	// The μ_initial level is 0.5 T, above what mu_initial_b_mt allows: below
+	// about 0.15 T (tips under 400 A/m) this Jiles–Atherton specimen's loops
+	// are not cyclic after benchLoop's one conditioning cycle (measured: the
+	// tip after cycles 1 to 6 is 69.5, 64.1, 60.7, 58.5, 57.1, 56.3 mT at
+	// 251 A/m; 157.5, 147.7, 145.4, 144.8, 144.7, 144.7 mT at 398 A/m; 706.89
+	// mT throughout at 800 A/m), so a steady tip, the truth, is not defined
+	// there. The low-B reading itself is checked on an analytic curve
+	// (calib/loop TestNormalMuInitial, 20–200 mT).
+	const muB = units.Tesla(0.5)
 	var amps []float64
 	for k := 0; k <= 16; k++ {
 		amps = append(amps, 200*math.Pow(10, float64(k)/10))
@@ -59,7 +69,7 @@ func TestNormalCurveOnTheBench(t *testing.T) {
 		if err != nil {
 			t.Fatalf("amplitude %g A/m: %v", a, err)
 		}
-		nf, err := fam.Add("steps.1.normal_curve", i+1, len(amps), bAt, fs)
+		nf, err := fam.Add("steps.1.normal_curve", i+1, len(amps), bAt, muB, fs)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -100,7 +110,18 @@ func TestNormalCurveOnTheBench(t *testing.T) {
 	xv := -qb / (2 * qa)
 	want[loop.FigHMuMax] = math.Exp(xv)
 	want[loop.FigMuMax] = qa*xv*xv + qb*xv + (y1 - qa*x1*x1 - qb*x1)
-	for _, n := range []string{loop.FigMuMax, loop.FigHMuMax, loop.BAtName(800), loop.BAtName(2500), loop.BAtName(5000)} {
+	// μ_initial at muB: the field of the truth's tip at B = muB, by bisection
+	// (the tips rise with H).
+	lo, hi := 200.0, 8000.0
+	for range 40 {
+		if mid := (lo + hi) / 2; jaTip(mid, 0.25) < float64(muB) {
+			lo = mid
+		} else {
+			hi = mid
+		}
+	}
+	want[loop.FigMuInitial] = float64(muB) / (units.Mu0 * (lo + hi) / 2)
+	for _, n := range []string{loop.FigMuInitial, loop.FigMuMax, loop.FigHMuMax, loop.BAtName(800), loop.BAtName(2500), loop.BAtName(5000)} {
 		v, ok := got[n]
 		if !ok {
 			t.Errorf("%s missing", n)

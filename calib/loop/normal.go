@@ -199,3 +199,47 @@ func bAtCurve(c []NormalPoint, h float64) (Figure, error) {
 	f.Note = fmt.Sprintf("on the normal curve: Lagrange interpolation in ln H–ln B through the %d tips from %.6g to %.6g A/m", m, ps[0].H, ps[m-1].H)
 	return f, nil
 }
+
+// NormalMuInitial returns μ_initial read on the normal curve of a family:
+// B/(μ0·H) at the low flux density b (T), with H at b read as bAtCurve reads
+// B at a field, on the tips with H and B swapped (the curve rises, so B
+// orders the tips as H does). At low induction the normal curve of a
+// demagnetized specimen runs close to its initial magnetization curve
+// (common practice), so this is the family's μ_initial; the note says it was
+// read on the normal curve. A level outside the tips' B is an error naming it.
+func NormalMuInitial(pts []NormalPoint, b float64) (Figure, error) {
+	c, _, _, err := normalCurve(pts)
+	if err != nil {
+		return Figure{}, err
+	}
+	n := len(c)
+	if !(b > 0) || b < c[0].B*(1-BAtReach) || b > c[n-1].B*(1+BAtReach) {
+		return Figure{}, fmt.Errorf("normal curve: μ_initial at %g T: outside the tips' B (%.6g to %.6g T)", b, c[0].B, c[n-1].B)
+	}
+	sw := make([]NormalPoint, n)
+	for i, p := range c {
+		sw[i] = NormalPoint{H: p.B, B: p.H, UH: p.UB, UB: p.UH}
+		if i > 0 && !(sw[i].H > sw[i-1].H) {
+			return Figure{}, fmt.Errorf("normal curve: μ_initial at %g T: the tips' B does not rise with H (%.6g T at %.6g A/m after %.6g T)", b, p.B, p.H, c[i-1].B)
+		}
+	}
+	g, err := bAtCurve(sw, b)
+	if err != nil {
+		return Figure{}, fmt.Errorf("normal curve: μ_initial at %g T: %w", b, err)
+	}
+	h := g.Value
+	f := Figure{Name: FigMuInitial, Unit: Units[FigMuInitial], Value: b / (units.Mu0 * h)}
+	// Read with H and B swapped, the terms named after B are the tips' H
+	// and the other way round.
+	swap := map[string]string{"tip B": "tip H", "tip H": "tip B"}
+	for _, k := range g.Budget.Components {
+		name := k.Name
+		if s, ok := swap[name]; ok {
+			name = s
+		}
+		f.Budget.Add(name, f.Value*k.U/h, "through H at the level")
+	}
+	f.U = f.Budget.Expanded()
+	f.Note = fmt.Sprintf("B/(μ0·H) on the normal curve at B = %g T, H = %.6g A/m (%s)", b, h, strings.Replace(g.Note, "on the normal curve: ", "", 1))
+	return f, nil
+}
