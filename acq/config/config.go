@@ -94,6 +94,81 @@ type Specimen struct {
 	// DensityKgM3 is needed for Epstein and strip areas and for loss per kg.
 	DensityKgM3 float64 `yaml:"density_kg_m3"`
 	MassKg      float64 `yaml:"mass_kg"`
+	// Tolerances says how well the dimensions, mass and density are known,
+	// for the uncertainty budget; nil (or a key left out) takes the
+	// common-practice defaults of DefaultTolerances.
+	Tolerances *Tolerances `yaml:"tolerances"`
+	// MuInitialBmT is the flux density in mT at which μ_initial is read on
+	// the initial curve; 0 means DefaultMuInitialBmT.
+	MuInitialBmT float64 `yaml:"mu_initial_b_mt"`
+}
+
+// DefaultMuInitialBmT is the flux density (mT) at which μ_initial is read
+// unless the specimen says otherwise: 4 mT, usual for Ni-Fe alloys (REFERENCE
+// §3, from memory). Electrical steels are often quoted at other low levels;
+// set mu_initial_b_mt to the level the material's standard or grade uses.
+const DefaultMuInitialBmT = 4
+
+// MaxMuInitialBmT bounds mu_initial_b_mt: μ_initial is the permeability at
+// low induction; above 100 mT the figure is no longer "initial" for any
+// soft material.
+const MaxMuInitialBmT = 100
+
+// Tolerances are the half-widths of the readings of the specimen's
+// dimensions and mass (rectangular distributions: standard uncertainty
+// u = a/√3) and the relative standard uncertainty of a tabulated density.
+// A key left out takes its default; 0 declares the input exact.
+type Tolerances struct {
+	// LengthMM is ± of every length measured (diameters, height, strip
+	// length), in mm; default 0.02 (a caliper, common practice).
+	LengthMM *float64 `yaml:"length_mm"`
+	// MassG is ± of the weighed mass, in g; default 0.01 (a lab balance,
+	// common practice).
+	MassG *float64 `yaml:"mass_g"`
+	// DensityPct is the standard uncertainty of the density, in % of it;
+	// default 0.5 (a value from a material table, common practice).
+	DensityPct *float64 `yaml:"density_pct"`
+}
+
+// Default tolerances, common practice [trade]: see Tolerances.
+const (
+	DefaultLengthTolMM   = 0.02
+	DefaultMassTolG      = 0.01
+	DefaultDensityTolPct = 0.5
+)
+
+// Bounds of the tolerances: beyond them a value is taken for a unit slip.
+const (
+	MaxLengthTolMM   = 10
+	MaxMassTolG      = 100
+	MaxDensityTolPct = 20
+)
+
+// Tol returns the tolerances with the defaults filled in: length (mm) and
+// mass (g) half-widths, density standard uncertainty (%).
+func (t *Tolerances) Tol() (lengthMM, massG, densityPct float64) {
+	lengthMM, massG, densityPct = DefaultLengthTolMM, DefaultMassTolG, DefaultDensityTolPct
+	if t == nil {
+		return
+	}
+	if t.LengthMM != nil {
+		lengthMM = *t.LengthMM
+	}
+	if t.MassG != nil {
+		massG = *t.MassG
+	}
+	if t.DensityPct != nil {
+		densityPct = *t.DensityPct
+	}
+	return
+}
+
+// MuInitialB returns the flux density (T) at which μ_initial is read.
+func (s Specimen) MuInitialB() float64 {
+	if s.MuInitialBmT == 0 {
+		return DefaultMuInitialBmT * 1e-3
+	}
+	return s.MuInitialBmT * 1e-3
 }
 
 // Ring is a toroidal specimen (IEC 60404-4).

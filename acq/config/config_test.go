@@ -26,8 +26,12 @@ func TestSampleFixtureAndSpecimenLoad(t *testing.T) {
 	if f.Winding.N1 != 200 || f.Limits.CommTimeout.D().Seconds() != 2 {
 		t.Errorf("decoded %+v", f)
 	}
-	if _, err := ParseSpecimen("specimen-ring-r17.yaml", sample(t, "specimen-ring-r17.yaml")); err != nil {
+	sp, err := ParseSpecimen("specimen-ring-r17.yaml", sample(t, "specimen-ring-r17.yaml"))
+	if err != nil {
 		t.Fatal(err)
+	}
+	if l, m, d := sp.Tolerances.Tol(); l != 0.02 || m != 0.01 || d != 0.5 || sp.MuInitialB() != 4e-3 {
+		t.Errorf("tolerances %v mm, %v g, %v %%, μ_initial at %v T", l, m, d, sp.MuInitialB())
 	}
 }
 
@@ -72,6 +76,12 @@ func TestBadSpecimen(t *testing.T) {
 		{"inner above outer", "  inner_diameter_mm: 40", "  inner_diameter_mm: 55", "s.yaml:%d: ring.inner_diameter_mm: must be smaller than outer_diameter_mm"},
 		{"shape without block", "shape: ring", "shape: epstein", "s.yaml:%d: shape: needs an epstein block"},
 		{"unknown path", "  path: mean", "  path: average", "s.yaml:%d: ring.path: \"average\" is not one of [mean effective]"},
+		{"negative length tolerance", "  length_mm: 0.02", "  length_mm: -0.02", "s.yaml:%d: tolerances.length_mm: must be from 0 (exact) to 10 mm, got -0.02"},
+		{"mass tolerance in kg", "  mass_g: 0.01", "  mass_g: 500", "s.yaml:%d: tolerances.mass_g: must be from 0 (exact) to 100 g, got 500"},
+		{"density tolerance NaN", "  density_pct: 0.5", "  density_pct: .nan", "s.yaml:%d: tolerances.density_pct: must be from 0 (exact) to 20 %%, got NaN"},
+		{"misspelled tolerance", "  mass_g: 0.01", "  mas_g: 0.01", `s.yaml:%d: tolerances.mas_g: unknown key (did you mean "mass_g"?)`},
+		{"μ_initial level in T", "mu_initial_b_mt: 4", "mu_initial_b_mt: 400", "s.yaml:%d: mu_initial_b_mt: must be a low flux density in mT, above 0 and at most 100"},
+		{"negative μ_initial level", "mu_initial_b_mt: 4", "mu_initial_b_mt: -4", "s.yaml:%d: mu_initial_b_mt: must be a low flux density in mT"},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {

@@ -205,6 +205,19 @@ func (s *Specimen) validate(doc *configs.Doc) configs.Errors {
 			c.add(name, "given, but shape is %q", s.Shape)
 		}
 	}
+	if b := s.MuInitialBmT; b < 0 || b > MaxMuInitialBmT || math.IsNaN(b) {
+		c.add("mu_initial_b_mt", "must be a low flux density in mT, above 0 and at most %d (0 or left out: %d mT), got %v", MaxMuInitialBmT, DefaultMuInitialBmT, b)
+	}
+	if t := s.Tolerances; t != nil {
+		tol := func(key string, v *float64, max float64, unit string) {
+			if v != nil && (*v < 0 || *v > max || math.IsNaN(*v)) {
+				c.add("tolerances."+key, "must be from 0 (exact) to %g %s, got %v", max, unit, *v)
+			}
+		}
+		tol("length_mm", t.LengthMM, MaxLengthTolMM, "mm")
+		tol("mass_g", t.MassG, MaxMassTolG, "g")
+		tol("density_pct", t.DensityPct, MaxDensityTolPct, "%")
+	}
 	switch {
 	case s.Shape == "ring" && s.Ring != nil:
 		r := s.Ring

@@ -22,6 +22,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"regexp"
 	"strings"
 
 	"hystd/acq/record"
@@ -106,7 +107,24 @@ func Parse(file string, data []byte) (Grade, error) {
 var knownFigures = map[string]string{
 	"Hmax": "A/m", "Bmax": "T", "Br": "T", "HcB": "A/m", "HcJ": "A/m", "mu_a": "",
 	"mu_initial": "", "mu_max": "", "loss_j_m3": "J/m3", "loss_j_kg": "J/kg", "BHmax": "J/m3",
-	"BHmax_B": "T", "BHmax_H": "A/m", "Hk": "A/m", "squareness": "", "mu_rec": "",
+	"BHmax_B": "T", "BHmax_H": "A/m", "Hk": "A/m", "squareness": "", "mu_rec": "", "H_mu_max": "A/m",
+}
+
+// bAtRE matches the names of B read on the normal curve at a field,
+// b_at_<H>_a_m (calib/loop.BAtName: "p" for a decimal point).
+var bAtRE = regexp.MustCompile(`^b_at_[0-9]+(p[0-9]+)?_a_m$`)
+
+func unitOf(name string) string { u, _ := figureUnit(name); return u }
+
+// figureUnit returns the stored unit of a figure a limit may name.
+func figureUnit(name string) (string, bool) {
+	if u, ok := knownFigures[name]; ok {
+		return u, true
+	}
+	if bAtRE.MatchString(name) {
+		return "T", true
+	}
+	return "", false
 }
 
 // FromDoc decodes and validates a parsed grade document.
@@ -140,7 +158,7 @@ func FromDoc(doc *configs.Doc) (Grade, error) {
 	}
 	for i, l := range g.Limits {
 		p := fmt.Sprintf("limits.%d", i)
-		unit, ok := knownFigures[l.Figure]
+		unit, ok := figureUnit(l.Figure)
 		switch {
 		case l.Figure == "":
 			add(p+".figure", "required")
@@ -227,7 +245,7 @@ func (g Grade) Judge(l record.Loop, rule string) []record.Verdict {
 			continue
 		}
 		v := record.Verdict{Grade: g.Name, Figure: lim.Figure, Value: math.NaN(), U: math.NaN(),
-			Min: math.NaN(), Max: math.NaN(), Unit: knownFigures[lim.Figure], Rule: rule}
+			Min: math.NaN(), Max: math.NaN(), Unit: unitOf(lim.Figure), Rule: rule}
 		if lim.Min != nil {
 			v.Min = *lim.Min
 		}

@@ -141,6 +141,14 @@ func TestBadGradeFiles(t *testing.T) {
 		{"kind: grade\nname: x\nlimits:\n  - {figure: Br, min: 1, when: {tolerance: 1.5}}\n", "when.tolerance"},
 		{"kind: grade\nname: x\nlimits:\n  - {figure: Br, min: 1, when: {amplitude: 3}}\n", "when.amplitude: unknown key"},
 		{"kind: grade\nlimits:\n  - {figure: Br, min: 1}\n", "name: required"},
+		{"kind: grade\nname: x\nlimits:\n  - {figure: b_at_800_a_m, min: 1.5, unit: A/m}\n", "limits.0.unit: b_at_800_a_m is stored in \"T\""},
+		{"kind: grade\nname: x\nlimits:\n  - {figure: b_at_800, min: 1.5}\n", "unknown figure \"b_at_800\""},
+	}
+	// B at a field on the normal curve and H at μ_max may be limited.
+	for _, doc := range []string{"kind: grade\nname: x\nlimits:\n  - {figure: b_at_800_a_m, min: 1.5, unit: T}\n  - {figure: b_at_2p5_a_m, min: 0.01}\n  - {figure: H_mu_max, max: 300}\n"} {
+		if _, err := Parse("g.yaml", []byte(doc)); err != nil {
+			t.Errorf("%q: %v", doc, err)
+		}
 	}
 	for _, tc := range cases {
 		_, err := Parse("g.yaml", []byte(tc.doc))

@@ -2,6 +2,7 @@ package process
 
 import (
 	"fmt"
+	"strings"
 
 	"hystd/acq/record"
 	"hystd/calib/loop"
@@ -41,4 +42,89 @@ func NormalCurve(loops [][]record.Figure) ([]record.Point, record.Figure, error)
 	}
 	return pts, record.Figure{Name: f.Name, Value: f.Value, U: f.U, Unit: f.Unit,
 		Note: f.Note + "; " + f.Budget.Summary(f.Unit)}, nil
+}
+
+// Family gathers the loops of one normal_curve step as a run processes them
+// and, with the last, returns the figures of the step's normal curve:
+// μ_max, H at μ_max and B at each b_at field (loop.NormalFigures), to be
+// stored with that last loop. Each loop's own Hmax, Bmax and μa are the rows
+// of the tip table. The zero value is ready; it is not safe for concurrent
+// use (a run processes its loops in order).
+type Family struct {
+	key   string
+	loops [][]record.Figure
+}
+
+// Add takes the figures of loop member (1-based) of of the normal_curve
+// step key. Before the last it returns nil. With the last it returns the
+// curve's figures, and μ_initial at muB (T; the specimen's mu_initial_b_mt)
+// read on the curve (loop.NormalMuInitial); a b_at field or a μ_initial
+// level the tips do not reach is left out and named in the μ_max figure's
+// note. A family with fewer than two loops with tips gives no figures and
+// no error.
+func (f *Family) Add(key string, member, of int, bAt []float64, muB units.Tesla, figs []record.Figure) ([]record.Figure, error) {
+	if key != f.key || member == 1 {
+		f.key, f.loops = key, nil
+	}
+	f.loops = append(f.loops, figs)
+	if member < of {
+		return nil, nil
+	}
+	loops := f.loops
+	f.key, f.loops = "", nil
+	var tips []loop.NormalPoint
+	for _, fs := range loops {
+		var p loop.NormalPoint
+		var hasH, hasB bool
+		for _, g := range fs {
+			switch g.Name {
+			case loop.FigHmax:
+				p.H, p.UH, hasH = g.Value, g.U, true
+			case loop.FigBmax:
+				p.B, p.UB, hasB = g.Value, g.U, true
+			}
+		}
+		if hasH && hasB {
+			tips = append(tips, p)
+		}
+	}
+	if len(tips) < 2 {
+		return nil, nil
+	}
+	c, _, err := loop.NormalCurve(tips)
+	if err != nil {
+		return nil, fmt.Errorf("normal curve of %s: %w", key, err)
+	}
+	var reach []float64
+	var missed []string
+	for _, h := range bAt {
+		if h >= c[0].H*(1-loop.BAtReach) && h <= c[len(c)-1].H*(1+loop.BAtReach) {
+			reach = append(reach, h)
+		} else {
+			missed = append(missed, fmt.Sprintf("%g A/m", h))
+		}
+	}
+	_, lf, err := loop.NormalFigures(tips, reach)
+	if err != nil {
+		return nil, fmt.Errorf("normal curve of %s: %w", key, err)
+	}
+	if muB > 0 {
+		if g, err := loop.NormalMuInitial(tips, float64(muB)); err == nil {
+			lf = append(lf, g)
+		} else {
+			missed = append(missed, fmt.Sprintf("μ_initial at %g T", float64(muB)))
+		}
+	}
+	out := make([]record.Figure, len(lf))
+	for i, g := range lf {
+		note := g.Note + "; " + g.Budget.Summary(g.Unit)
+		if i == 0 {
+			note = fmt.Sprintf("normal curve of %d loops (%s); ", len(tips), key) + note
+			if len(missed) > 0 {
+				note += "; not read (beyond the tips): " + strings.Join(missed, ", ")
+			}
+		}
+		out[i] = record.Figure{Name: g.Name, Value: g.Value, U: g.U, Unit: g.Unit, Note: note}
+	}
+	return out, nil
 }

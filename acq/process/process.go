@@ -45,8 +45,9 @@ const (
 	DriftFromLevel = "from-level"
 )
 
-// DefaultMuInitialB is the flux density at which μ_initial is read unless
-// set otherwise: 4 mT, usual for Ni-Fe alloys (REFERENCE §3, from memory).
+// DefaultMuInitialB is the flux density at which μ_initial is read when a
+// Setup gives none (SetupFrom takes the specimen's mu_initial_b_mt, whose
+// default is the same): 4 mT, usual for Ni-Fe alloys (REFERENCE §3, from memory).
 const DefaultMuInitialB units.Tesla = 4e-3
 
 // Accuracy is an instrument's reading specification as a 95 % (k = 2)

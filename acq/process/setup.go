@@ -2,6 +2,7 @@ package process
 
 import (
 	"fmt"
+	"math"
 
 	"hystd/acq/config"
 	"hystd/calib/geometry"
@@ -12,7 +13,7 @@ import (
 const mm = 1e-3
 
 // SetupFrom builds the Setup of a fixture and specimen: geometry from the
-// specimen's shape block (with geometry.DefaultTol for the budget), turns
+// specimen's shape block (with the specimen's tolerances for the budget), turns
 // and search-coil area from the fixture's winding. Warnings (e.g. a ring
 // wider than IEC 60404-4 admits) are returned for the run's events. Errors
 // name the config key at fault. Instrument accuracies are added with
@@ -23,6 +24,7 @@ func SetupFrom(fx config.Fixture, sp config.Specimen) (Setup, []string, error) {
 		CoilArea: units.SquareMetre(fx.Winding.CoilAreaMM2 * mm * mm),
 		HFrom:    fx.HFrom, Class: sp.Class,
 		Density: units.KilogramPerCubicMetre(sp.DensityKgM3), Mass: units.Kilogram(sp.MassKg),
+		MuInitialB: units.Tesla(sp.MuInitialB()),
 	}
 	if s.HFrom == "" {
 		s.HFrom = HFromCurrent
@@ -93,7 +95,7 @@ func (s Setup) FluxSpan(bmax units.Tesla) units.WeberTurn {
 }
 
 // SpecimenGeometry returns the magnetic path length, area and method of a
-// specimen from its shape block (geometry.DefaultTol for the budget), with
+// specimen from its shape block (SpecimenTol for the budget), with
 // the geometry's warnings (a strip length outside what IEC 60404-2 assumes,
 // a ring wider than IEC 60404-4 admits). It needs no fixture, so
 // `hystd check` can warn about a specimen file on its own.
@@ -101,6 +103,7 @@ func SpecimenGeometry(sp config.Specimen) (geometry.Result, error) {
 	spec := fmt.Sprintf("specimen %s", sp.ID)
 	var g geometry.Result
 	var err error
+	tol := SpecimenTol(sp)
 	switch sp.Shape {
 	case "ring":
 		r := sp.Ring
@@ -108,21 +111,21 @@ func SpecimenGeometry(sp config.Specimen) (geometry.Result, error) {
 			return geometry.Result{}, fmt.Errorf("%s: ring: shape is ring but the ring block is missing", spec)
 		}
 		g, err = geometry.Ring(units.Metre(r.OuterMM*mm), units.Metre(r.InnerMM*mm), units.Metre(r.HeightMM*mm),
-			r.StackingFactor, r.Path, geometry.DefaultTol)
+			r.StackingFactor, r.Path, tol)
 	case "epstein":
 		e := sp.Epstein
 		if e == nil {
 			return geometry.Result{}, fmt.Errorf("%s: epstein: shape is epstein but the epstein block is missing", spec)
 		}
 		g, err = geometry.Epstein(units.Kilogram(sp.MassKg), units.Metre(e.StripLengthM),
-			units.KilogramPerCubicMetre(sp.DensityKgM3), e.Strips, geometry.DefaultTol)
+			units.KilogramPerCubicMetre(sp.DensityKgM3), e.Strips, tol)
 	case "strip":
 		st := sp.Strip
 		if st == nil {
 			return geometry.Result{}, fmt.Errorf("%s: strip: shape is strip but the strip block is missing", spec)
 		}
 		g, err = geometry.Strip(units.Kilogram(sp.MassKg), units.Metre(st.LengthM),
-			units.KilogramPerCubicMetre(sp.DensityKgM3), units.Metre(st.PathLengthM), geometry.DefaultTol)
+			units.KilogramPerCubicMetre(sp.DensityKgM3), units.Metre(st.PathLengthM), tol)
 	case "direct":
 		d := sp.Direct
 		if d == nil {
@@ -139,4 +142,18 @@ func SpecimenGeometry(sp config.Specimen) (geometry.Result, error) {
 		return geometry.Result{}, fmt.Errorf("%s: %w", spec, err) // geometry errors begin with the shape block
 	}
 	return g, nil
+}
+
+// SpecimenTol returns the standard uncertainties of a specimen's inputs from
+// its tolerances block (defaults: config.DefaultLengthTolMM,
+// DefaultMassTolG, DefaultDensityTolPct, common practice): length and mass
+// half-widths as rectangular distributions (u = a/√3, GUM 4.3.7), the
+// density's relative standard uncertainty as given.
+func SpecimenTol(sp config.Specimen) geometry.Tol {
+	l, m, d := sp.Tolerances.Tol()
+	return geometry.Tol{
+		Length:  units.Metre(l * mm / math.Sqrt(3)),
+		Mass:    units.Kilogram(m * 1e-3 / math.Sqrt(3)),
+		Density: d / 100,
+	}
 }

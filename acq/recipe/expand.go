@@ -48,6 +48,12 @@ type LoopInfo struct {
 	Kind      string  // LoopKind*
 	Amplitude float64 // as written in the recipe, in AmpUnit
 	AmpUnit   string  // "A" or "A/m"
+	// Family is the recipe key of the normal_curve step a loop of kind
+	// LoopKindNormal belongs to ("" otherwise); Member is its 1-based place
+	// among the step's Of loops, and BAt the step's b_at fields in A/m.
+	Family     string
+	Member, Of int
+	BAt        []float64
 }
 
 // Step is one concrete setpoint program of an expanded recipe.
@@ -430,22 +436,27 @@ func (x *expander) step(i int, s StepSpec) {
 				amps = append(amps, Level{d.From.Value * math.Pow(q, float64(k)), d.From.Unit})
 			}
 		}
+		var bAt []float64
+		for _, h := range d.BAt {
+			bAt = append(bAt, h.Value)
+		}
 		for j, a := range amps {
 			path := src + ".amplitudes." + itoa(j)
 			if len(d.Amplitudes) == 0 {
 				path = src + ".to"
 			}
 			x.condition(src, path, x.lv(a), x.rt(d.Rate), d.Cycles)
-			x.loop(src, path, LoopKindNormal, a, x.rt(d.Rate), d.Sampling)
+			info := LoopInfo{Kind: LoopKindNormal, Amplitude: a.Value, AmpUnit: a.Unit, Family: src, Member: j + 1, Of: len(amps), BAt: bAt}
+			x.recorded(src, path, info, x.rt(d.Rate), d.Sampling, x.lv(a), -x.lv(a), x.lv(a))
 		}
 	case s.DemagCurve != nil:
 		d := s.DemagCurve
 		rate := x.rt(d.Rate)
 		sat, to := x.lv(d.Saturate), x.lv(d.To)
-		x.recorded(src, src+".saturate", LoopInfo{LoopKindDemag, d.Saturate.Value, d.Saturate.Unit}, rate, d.Sampling, sat, to)
+		x.recorded(src, src+".saturate", LoopInfo{Kind: LoopKindDemag, Amplitude: d.Saturate.Value, AmpUnit: d.Saturate.Unit}, rate, d.Sampling, sat, to)
 		for j, rc := range d.RecoilAt {
 			at := x.lv(rc)
-			x.recorded(src, src+".recoil_at."+itoa(j), LoopInfo{LoopKindRecoil, rc.Value, rc.Unit}, rate, d.Sampling, sat, at, x.lv(*d.RecoilTo), at)
+			x.recorded(src, src+".recoil_at."+itoa(j), LoopInfo{Kind: LoopKindRecoil, Amplitude: rc.Value, AmpUnit: rc.Unit}, rate, d.Sampling, sat, at, x.lv(*d.RecoilTo), at)
 		}
 	case s.DriftHold != nil:
 		d := s.DriftHold
@@ -481,7 +492,7 @@ func (x *expander) condition(src, path string, a, rate float64, cycles int) {
 // loop is one recorded symmetric loop: approach +A, pre hold, +A → −A → +A, post hold.
 func (x *expander) loop(src, path, kind string, amp Level, rate float64, smp Sampling) {
 	a := x.lv(amp)
-	x.recorded(src, path, LoopInfo{kind, amp.Value, amp.Unit}, rate, smp, a, -a, a)
+	x.recorded(src, path, LoopInfo{Kind: kind, Amplitude: amp.Value, AmpUnit: amp.Unit}, rate, smp, a, -a, a)
 }
 
 // recorded builds a Record step: an unrecorded approach to start, a pre

@@ -128,7 +128,12 @@ type NormalCurve struct {
 	Count      int     `yaml:"count"`
 	Cycles     int     `yaml:"cycles"` // conditioning cycles per amplitude, default 3
 	Rate       Rate    `yaml:"rate"`
-	Sampling   `yaml:",inline"`
+	// BAt lists fields (A/m) at which B is read on the normal curve and
+	// reported as figures b_at_<H>_a_m (electrical steel is quoted at 800,
+	// 2500 and 5000 A/m, common practice); each must lie within the
+	// family's amplitudes.
+	BAt      []Level `yaml:"b_at"`
+	Sampling `yaml:",inline"`
 }
 
 // DemagCurve magnetizes to +Saturate and records the sweep down to To (a

@@ -284,6 +284,12 @@ func TestParseErrors(t *testing.T) {
 		{"integrator range", "kind: recipe\nname: x\nintegrator_range_wb: -1\nsteps:\n  - wait: {duration: 1s}\n",
 			"x.yaml:3: integrator_range_wb: must be a full scale in Wb-turns above 0"},
 		{"wrong kind", "kind: fixture\nname: x\nsteps:\n  - wait: {duration: 1s}\n", "x.yaml:1: kind: must be \"recipe\""},
+		{"b_at in A", "kind: recipe\nname: x\nsteps:\n  - normal_curve:\n      from: 100 A/m\n      to: 10 kA/m\n      count: 5\n      rate: 1 kA/m/s\n      points: 100\n      b_at: [800 A/m, 2 A]\n",
+			"x.yaml:10: steps.0.normal_curve.b_at.1: B is read at a field strength: write it in A/m, got 2 A"},
+		{"b_at beyond the amplitudes", "kind: recipe\nname: x\nsteps:\n  - normal_curve:\n      amplitudes: [100 A/m, 1 kA/m, 2.5 kA/m]\n      rate: 1 kA/m/s\n      points: 100\n      b_at: [800 A/m, 2500 A/m, 5000 A/m]\n",
+			"x.yaml:8: steps.0.normal_curve.b_at.2: 5 kA/m is outside the amplitudes of the normal curve (100 A/m to 2.5 kA/m)"},
+		{"b_at not increasing", "kind: recipe\nname: x\nsteps:\n  - normal_curve:\n      from: 100 A/m\n      to: 10 kA/m\n      count: 5\n      rate: 1 kA/m/s\n      points: 100\n      b_at: [2500 A/m, 800 A/m]\n",
+			"x.yaml:10: steps.0.normal_curve.b_at.1: fields must increase"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -324,5 +330,36 @@ func TestFieldControlOnYoke(t *testing.T) {
 	// μ0 · 2.1 MA/m = 2.639 T > 2.5 T (CODATA 2018 μ0).
 	if _, err = Expand(r, fx, g); err == nil || !strings.Contains(err.Error(), "2.639 T, above the fixture limit limits.max_field_t = 2.5 T") {
 		t.Errorf("field limit: %v", err)
+	}
+}
+
+// TestNormalCurveFamily: every loop of a normal_curve step carries the step
+// key, its place in the family and the b_at fields in A/m, also when the
+// recipe commands currents.
+func TestNormalCurveFamily(t *testing.T) {
+	src := "kind: recipe\nname: x\nsteps:\n  - normal_curve:\n      amplitudes: [0.5 A, 1 A, 2 A]\n      rate: 1 A/s\n      points: 100\n      b_at: [800 A/m]\n"
+	r, err := Parse("x.yaml", []byte(src))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var got []LoopInfo
+	fx, g := ringFixture(t)
+	steps, err := Expand(r, fx, g)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, st := range steps {
+		if st.Loop != nil {
+			got = append(got, *st.Loop)
+		}
+	}
+	if len(got) != 3 {
+		t.Fatalf("%d loops", len(got))
+	}
+	for i, li := range got {
+		if li.Kind != LoopKindNormal || li.Family != "steps.0.normal_curve" || li.Member != i+1 || li.Of != 3 ||
+			len(li.BAt) != 1 || li.BAt[0] != 800 {
+			t.Errorf("loop %d: %+v", i+1, li)
+		}
 	}
 }

@@ -171,6 +171,35 @@ func (r *Recipe) validate() error {
 			default:
 				c.add(p, "required: amplitudes (a list), or from, to and count")
 			}
+			// b_at is a field strength H whatever the recipe commands in;
+			// within the family's amplitudes when those are fields too
+			// (in A, the fixture's N1/l_m is needed: the run then reports
+			// a field the tips do not reach instead of its figure).
+			lo, hi := math.NaN(), math.NaN()
+			if n := len(d.Amplitudes); n > 0 {
+				lo, hi = d.Amplitudes[0].Value, d.Amplitudes[n-1].Value
+				if d.Amplitudes[0].Unit != UnitApm {
+					lo = math.NaN()
+				}
+			} else if d.From != nil && d.To != nil && d.From.Unit == UnitApm {
+				lo, hi = d.From.Value, d.To.Value
+			}
+			if len(d.BAt) > 20 {
+				c.add(p+".b_at", "%d fields, more than the 20 a normal curve may report", len(d.BAt))
+			}
+			for j, h := range d.BAt {
+				hp := p + ".b_at." + itoa(j)
+				switch {
+				case h.Unit != UnitApm:
+					c.add(hp, "B is read at a field strength: write it in A/m, got %s", h)
+				case !(h.Value > 0) || h.Value > MaxLevel:
+					c.add(hp, "must be a field above 0 and at most %g A/m, got %s", MaxLevel, h)
+				case j > 0 && h.Value <= d.BAt[j-1].Value:
+					c.add(hp, "fields must increase, %s follows %s", h, d.BAt[j-1])
+				case !math.IsNaN(lo) && (h.Value < lo || h.Value > hi):
+					c.add(hp, "%s is outside the amplitudes of the normal curve (%s to %s): B there is not measured", h, Level{lo, UnitApm}, Level{hi, UnitApm})
+				}
+			}
 		case s.DemagCurve != nil:
 			d := s.DemagCurve
 			pos(p+".saturate", d.Saturate)

@@ -19,6 +19,7 @@ const (
 	FigMuA        = "mu_a"       // amplitude permeability Bmax/(μ0·Hmax)
 	FigMuInitial  = "mu_initial" // B/(μ0·H) on the initial curve at a low B
 	FigMuMax      = "mu_max"     // maximum of B/(μ0·H) along the normal curve
+	FigHMuMax     = "H_mu_max"   // A/m, H at μ_max on the normal curve
 	FigLossJM3    = "loss_j_m3"  // ∮H dB per cycle, J/m³
 	FigLossJKg    = "loss_j_kg"  // loss per cycle per mass, J/kg
 	FigBHmax      = "BHmax"      // J/m³, 2nd-quadrant maximum of −B·H
@@ -32,7 +33,7 @@ const (
 // Units of the figures.
 var Units = map[string]string{
 	FigHmax: "A/m", FigBmax: "T", FigBr: "T", FigHcB: "A/m", FigHcJ: "A/m", FigMuA: "",
-	FigMuInitial: "", FigMuMax: "", FigLossJM3: "J/m3", FigLossJKg: "J/kg", FigBHmax: "J/m3",
+	FigMuInitial: "", FigMuMax: "", FigHMuMax: "A/m", FigLossJM3: "J/m3", FigLossJKg: "J/kg", FigBHmax: "J/m3",
 	FigBHmaxB: "T", FigBHmaxH: "A/m", FigHk: "A/m", FigSquareness: "", FigMuRec: "",
 }
 
