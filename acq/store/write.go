@@ -4,9 +4,12 @@ import (
 	"context"
 	"crypto/sha256"
 	"database/sql"
+	"database/sql/driver"
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"math"
+	"strconv"
 	"strings"
 	"time"
 
@@ -117,12 +120,17 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 	if l.N < 1 {
 		return fmt.Errorf("store: loop of run %s: loop number %d, want ≥ 1", l.RunID, l.N)
 	}
-	tx, err := s.w.BeginTx(ctx, nil)
+	conn, err := s.w.Conn(ctx)
+	if err != nil {
+		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
+	}
+	defer conn.Close()
+	tx, err := conn.BeginTx(ctx, nil)
 	if err != nil {
 		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
 	}
 	defer tx.Rollback()
-	if err := addLoop(ctx, tx, l, s.now()); err != nil {
+	if err := addLoop(ctx, conn, tx, l, s.now()); err != nil {
 		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
 	}
 	if err := tx.Commit(); err != nil {
@@ -132,9 +140,15 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 }
 
 // batchRows is how many rows one multi-row INSERT carries.
-const batchRows = 64
+const batchRows = 256
 
-func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) error {
+// addLoop writes l in tx, which runs on conn. The bulk rows (raw samples,
+// points) go straight to the driver's prepared statements on the same
+// connection, inside the same transaction: each statement carries
+// batchRows rows, binds the loop id and the first sequence number once
+// (?1, ?2 + k) and the row values into an argument slice reused for every
+// batch, so database/sql neither copies nor converts the arguments.
+func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now time.Time) error {
 	var one int
 	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM runs WHERE id = ?`, l.RunID).Scan(&one); err != nil {
 		if errors.Is(err, sql.ErrNoRows) {
@@ -147,6 +161,13 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	} else if !errors.Is(err, sql.ErrNoRows) {
 		return err
 	}
+	for i, v := range l.Verdicts {
+		switch v.Outcome {
+		case record.Pass, record.Fail, record.Undecided:
+		default:
+			return fmt.Errorf("verdict %d (%s): unknown outcome %q", i, v.Figure, v.Outcome)
+		}
+	}
 	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?)`,
 		l.RunID, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points))
@@ -157,21 +178,29 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	if err != nil {
 		return err
 	}
-	raw := func(i int, a []any) []any {
-		r := l.Raw[i]
-		return append(a, id, i, int64(r.T), int64(r.TUnc), string(r.Phase),
-			real(r.Setpoint), real(r.I), real(r.V), real(r.Psi), real(r.BProbe), real(r.TempC), int64(r.DtI), int64(r.DtB))
+	raw := func(i int, a []driver.NamedValue) {
+		r := &l.Raw[i]
+		a[0].Value, a[1].Value, a[2].Value = int64(r.T), int64(r.TUnc), string(r.Phase)
+		a[3].Value, a[4].Value, a[5].Value = realV(r.Setpoint), realV(r.I), realV(r.V)
+		a[6].Value, a[7].Value, a[8].Value = realV(r.Psi), realV(r.BProbe), realV(r.TempC)
+		a[9].Value, a[10].Value = int64(r.DtI), int64(r.DtB)
 	}
-	if err := insertRows(ctx, tx, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
-		13, len(l.Raw), raw); err != nil {
-		return fmt.Errorf("raw samples: %w", err)
+	pt := func(i int, a []driver.NamedValue) {
+		p := &l.Points[i]
+		a[0].Value, a[1].Value, a[2].Value, a[3].Value, a[4].Value = int64(p.T), realV(p.H), realV(p.B), realV(p.J), int64(p.Branch)
 	}
-	pt := func(i int, a []any) []any {
-		p := l.Points[i]
-		return append(a, id, i, int64(p.T), real(p.H), real(p.B), real(p.J), p.Branch)
-	}
-	if err := insertRows(ctx, tx, "points (loop_id, seq, t_ns, h_a_m, b_t, j_t, branch)", 7, len(l.Points), pt); err != nil {
-		return fmt.Errorf("points: %w", err)
+	err = conn.Raw(func(dc any) error {
+		if err := bulkInsert(ctx, dc, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
+			11, len(l.Raw), id, raw); err != nil {
+			return fmt.Errorf("raw samples: %w", err)
+		}
+		if err := bulkInsert(ctx, dc, "points (loop_id, seq, t_ns, h_a_m, b_t, j_t, branch)", 5, len(l.Points), id, pt); err != nil {
+			return fmt.Errorf("points: %w", err)
+		}
+		return nil
+	})
+	if err != nil {
+		return err
 	}
 	fig := func(i int, a []any) []any {
 		f := l.Figures[i]
@@ -191,19 +220,97 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 		v := l.Verdicts[i]
 		return append(a, id, i, v.Grade, v.Figure, real(v.Value), real(v.U), real(v.Min), real(v.Max), v.Unit, v.Rule, string(v.Outcome), v.Note)
 	}
-	for i, v := range l.Verdicts {
-		switch v.Outcome {
-		case record.Pass, record.Fail, record.Undecided:
-		default:
-			return fmt.Errorf("verdict %d (%s): unknown outcome %q", i, v.Figure, v.Outcome)
-		}
-	}
 	if err := insertRows(ctx, tx, "verdicts (loop_id, seq, grade, figure, value, u, lo, hi, unit, rule, outcome, note)", 12, len(l.Verdicts), ver); err != nil {
 		return fmt.Errorf("verdicts: %w", err)
 	}
 	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)`,
 		l.RunID, l.N, now.UnixNano(), now.UnixNano()); err != nil {
 		return fmt.Errorf("outbox: %w", err)
+	}
+	return nil
+}
+
+// realV is real for a driver argument: NaN is NULL.
+func realV(f float64) driver.Value {
+	if math.IsNaN(f) {
+		return nil
+	}
+	return f
+}
+
+// bulkSQL is an INSERT of rows rows into table (its column list starting
+// with loop_id, seq), binding the loop id as ?1, row k's seq as ?2 + k and
+// cols more values per row as anonymous parameters (?3 onward, in order).
+func bulkSQL(table string, cols, rows int) string {
+	var b strings.Builder
+	b.WriteString("INSERT INTO ")
+	b.WriteString(table)
+	b.WriteString(" VALUES ")
+	rest := strings.Repeat(",?", cols) + ")"
+	for k := 0; k < rows; k++ {
+		if k > 0 {
+			b.WriteByte(',')
+		}
+		if k == 0 {
+			b.WriteString("(?1,?2")
+		} else {
+			b.WriteString("(?1,?2+")
+			b.WriteString(strconv.Itoa(k))
+		}
+		b.WriteString(rest)
+	}
+	return b.String()
+}
+
+// bulkInsert inserts n rows into table through the driver connection dc
+// (inside the caller's transaction); fill sets row i's cols values in a.
+func bulkInsert(ctx context.Context, dc any, table string, cols, n int, loopID int64, fill func(i int, a []driver.NamedValue)) error {
+	if n == 0 {
+		return nil
+	}
+	prep, ok := dc.(driver.ConnPrepareContext)
+	if !ok {
+		return fmt.Errorf("driver %T cannot prepare with a context", dc)
+	}
+	args := make([]driver.NamedValue, 2+cols*min(n, batchRows))
+	for i := range args {
+		args[i].Ordinal = i + 1
+	}
+	args[0].Value = loopID
+	exec := func(st driver.Stmt, from, rows int) error {
+		se, ok := st.(driver.StmtExecContext)
+		if !ok {
+			return fmt.Errorf("driver statement %T cannot execute with a context", st)
+		}
+		a := args[:2+cols*rows]
+		a[1].Value = int64(from)
+		for k := 0; k < rows; k++ {
+			fill(from+k, a[2+k*cols:2+(k+1)*cols])
+		}
+		_, err := se.ExecContext(ctx, a)
+		return err
+	}
+	run := func(rows, from, to int) error {
+		st, err := prep.PrepareContext(ctx, bulkSQL(table, cols, rows))
+		if err != nil {
+			return err
+		}
+		defer st.Close()
+		for i := from; i < to; i += rows {
+			if err := exec(st, i, rows); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	full := n / batchRows * batchRows
+	if full > 0 {
+		if err := run(batchRows, 0, full); err != nil {
+			return err
+		}
+	}
+	if n > full {
+		return run(n-full, full, n)
 	}
 	return nil
 }
