@@ -100,13 +100,17 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 	return readPlain(raw, comma, name, opt)
 }
 
-// readAll reads r into one string, sized up front when r can tell its size.
+// readAll reads r into one string, sized up front when r can tell its size
+// (a regular file, or an in-memory reader).
 func readAll(r io.Reader) (string, error) {
 	var b strings.Builder
-	if st, ok := r.(interface{ Stat() (fs.FileInfo, error) }); ok {
-		if fi, err := st.Stat(); err == nil && fi.Mode().IsRegular() && fi.Size() > 0 && fi.Size() < 1<<40 {
+	switch x := r.(type) {
+	case interface{ Stat() (fs.FileInfo, error) }:
+		if fi, err := x.Stat(); err == nil && fi.Mode().IsRegular() && fi.Size() > 0 && fi.Size() < 1<<40 {
 			b.Grow(int(fi.Size()) + 1)
 		}
+	case interface{ Len() int }: // bytes.Reader, strings.Reader, bytes.Buffer
+		b.Grow(x.Len())
 	}
 	if _, err := io.Copy(&b, r); err != nil {
 		return "", err
@@ -227,11 +231,98 @@ func number(s, c string, line int, name string) (float64, error) {
 	if len(s) > 0 && (isSpaceStart(s[0]) || isSpaceStart(s[len(s)-1])) {
 		s = strings.TrimSpace(s)
 	}
+	if v, ok := parseDecimal(s); ok {
+		return v, nil
+	}
 	v, err := strconv.ParseFloat(s, 64)
 	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
 		return 0, &Error{File: name, Line: line, Column: c, Msg: fmt.Sprintf("%q is not a finite number", s)}
 	}
 	return v, nil
+}
+
+// pow10 holds the powers of ten that are exact in a float64.
+var pow10 = [...]float64{1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11,
+	1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22}
+
+// parseDecimal parses [+-]digits[.digits][(e|E)[+-]digits] when the
+// digits form an integer below 2⁵³ and the decimal exponent is within
+// ±22: then mantissa and power of ten are exact and one multiplication or
+// division rounds correctly (Clinger's fast path, as strconv uses it), so
+// the value equals strconv.ParseFloat's. Anything else reports !ok and
+// goes to strconv.ParseFloat.
+func parseDecimal(s string) (float64, bool) {
+	i, neg := 0, false
+	if i < len(s) && (s[i] == '+' || s[i] == '-') {
+		neg = s[i] == '-'
+		i++
+	}
+	var mant uint64
+	digits, exp := 0, 0
+	for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+		if digits < 18 {
+			mant = mant*10 + uint64(s[i]-'0')
+		} else {
+			return 0, false
+		}
+		if mant > 0 {
+			digits++
+		}
+	}
+	seen := i > 0 && s[i-1] >= '0' && s[i-1] <= '9'
+	if i < len(s) && s[i] == '.' {
+		i++
+		for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+			if digits < 18 {
+				mant = mant*10 + uint64(s[i]-'0')
+			} else {
+				return 0, false
+			}
+			if mant > 0 {
+				digits++
+			}
+			exp--
+			seen = true
+		}
+	}
+	if !seen {
+		return 0, false
+	}
+	if i < len(s) && (s[i] == 'e' || s[i] == 'E') {
+		i++
+		eneg := false
+		if i < len(s) && (s[i] == '+' || s[i] == '-') {
+			eneg = s[i] == '-'
+			i++
+		}
+		start, e := i, 0
+		for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+			if e > 1000 {
+				return 0, false
+			}
+			e = e*10 + int(s[i]-'0')
+		}
+		if i == start {
+			return 0, false
+		}
+		if eneg {
+			e = -e
+		}
+		exp += e
+	}
+	if i != len(s) || mant >= 1<<53 || exp < -22 || exp > 22 {
+		return 0, false
+	}
+	f := float64(mant)
+	if exp < 0 {
+		f /= pow10[-exp]
+	} else {
+		f *= pow10[exp]
+	}
+	if neg {
+		f = -f
+	}
+	return f, true
 }
 
 // isSpaceStart reports whether a byte may be (the first or last byte of) a

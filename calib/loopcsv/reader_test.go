@@ -1,7 +1,10 @@
 package loopcsv
 
 import (
+	"math"
+	"math/rand/v2"
 	"reflect"
+	"strconv"
 	"strings"
 	"testing"
 )
@@ -78,4 +81,46 @@ func FuzzPlainMatchesCSV(f *testing.F) {
 		f.Add(c)
 	}
 	f.Fuzz(func(t *testing.T, in string) { comparePlain(t, in) })
+}
+
+// parseDecimal must give exactly strconv.ParseFloat's value (the standard
+// library, correctly rounded) wherever it accepts a string.
+var decimalCases = []string{"0", "-0", "+1", "1.", ".5", ".", "-", "1e", "1e+", "1.5e-3", "123456789012345678",
+	"9007199254740993", "9007199254740992", "0.1", "1e22", "1e23", "1e-22", "1e-23", "000000000000000000001.5",
+	"3.0000000000000000001", "12345678901234567.8", "-2.5E+10", "1_0", "0x10", "inf", "nan", "1e9999999999", "4.9e-324"}
+
+func checkDecimal(t *testing.T, s string) {
+	v, ok := parseDecimal(s)
+	if !ok {
+		return
+	}
+	w, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.Float64bits(v) != math.Float64bits(w) {
+		t.Fatalf("parseDecimal(%q) = %v (%x); strconv: %v (%x), %v", s, v, math.Float64bits(v), w, math.Float64bits(w), err)
+	}
+}
+
+func TestParseDecimalMatchesStrconv(t *testing.T) {
+	for _, s := range decimalCases {
+		checkDecimal(t, s)
+	}
+	r := rand.New(rand.NewPCG(1, 2))
+	for range 200000 {
+		v := math.Float64frombits(r.Uint64())
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			continue
+		}
+		for _, prec := range []int{-1, 3, 7, 15, 17} {
+			checkDecimal(t, strconv.FormatFloat(v, 'g', prec, 64))
+			checkDecimal(t, strconv.FormatFloat(v, 'e', prec, 64))
+		}
+		checkDecimal(t, strconv.FormatFloat(r.Float64()*2000-1000, 'f', r.IntN(12), 64))
+	}
+}
+
+func FuzzParseDecimal(f *testing.F) {
+	for _, s := range decimalCases {
+		f.Add(s)
+	}
+	f.Fuzz(func(t *testing.T, s string) { checkDecimal(t, s) })
 }
