@@ -178,16 +178,27 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 	if err != nil {
 		return err
 	}
-	raw := func(i int, a []driver.NamedValue) {
+	raw := func(i int, a, prev []driver.NamedValue) {
 		r := &l.Raw[i]
-		a[0].Value, a[1].Value, a[2].Value = int64(r.T), int64(r.TUnc), string(r.Phase)
-		a[3].Value, a[4].Value, a[5].Value = realV(r.Setpoint), realV(r.I), realV(r.V)
-		a[6].Value, a[7].Value, a[8].Value = realV(r.Psi), realV(r.BProbe), realV(r.TempC)
-		a[9].Value, a[10].Value = int64(r.DtI), int64(r.DtB)
+		keepInt(a, prev, 0, int64(r.T))
+		keepInt(a, prev, 1, int64(r.TUnc))
+		keepText(a, prev, 2, string(r.Phase))
+		keepReal(a, prev, 3, r.Setpoint)
+		keepReal(a, prev, 4, r.I)
+		keepReal(a, prev, 5, r.V)
+		keepReal(a, prev, 6, r.Psi)
+		keepReal(a, prev, 7, r.BProbe)
+		keepReal(a, prev, 8, r.TempC)
+		keepInt(a, prev, 9, int64(r.DtI))
+		keepInt(a, prev, 10, int64(r.DtB))
 	}
-	pt := func(i int, a []driver.NamedValue) {
+	pt := func(i int, a, prev []driver.NamedValue) {
 		p := &l.Points[i]
-		a[0].Value, a[1].Value, a[2].Value, a[3].Value, a[4].Value = int64(p.T), realV(p.H), realV(p.B), realV(p.J), int64(p.Branch)
+		keepInt(a, prev, 0, int64(p.T))
+		keepReal(a, prev, 1, p.H)
+		keepReal(a, prev, 2, p.B)
+		keepReal(a, prev, 3, p.J)
+		keepInt(a, prev, 4, int64(p.Branch))
 	}
 	err = conn.Raw(func(dc any) error {
 		if err := bulkInsert(ctx, dc, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
@@ -230,12 +241,43 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 	return nil
 }
 
-// realV is real for a driver argument: NaN is NULL.
-func realV(f float64) driver.Value {
-	if math.IsNaN(f) {
-		return nil
+// keepInt, keepReal and keepText set argument c of a row to v. A value
+// equal to the previous row's (prev, nil for a batch's first row) reuses
+// that row's interface value instead of boxing v again: phase, timing
+// uncertainty, branch and hold values repeat from row to row. A NaN real
+// is NULL (SQLite has no NaN).
+func keepInt(a, prev []driver.NamedValue, c int, v int64) {
+	if prev != nil {
+		if p, ok := prev[c].Value.(int64); ok && p == v {
+			a[c].Value = prev[c].Value
+			return
+		}
 	}
-	return f
+	a[c].Value = v
+}
+
+func keepReal(a, prev []driver.NamedValue, c int, v float64) {
+	if math.IsNaN(v) {
+		a[c].Value = nil
+		return
+	}
+	if prev != nil {
+		if p, ok := prev[c].Value.(float64); ok && math.Float64bits(p) == math.Float64bits(v) {
+			a[c].Value = prev[c].Value
+			return
+		}
+	}
+	a[c].Value = v
+}
+
+func keepText(a, prev []driver.NamedValue, c int, v string) {
+	if prev != nil {
+		if p, ok := prev[c].Value.(string); ok && p == v {
+			a[c].Value = prev[c].Value
+			return
+		}
+	}
+	a[c].Value = v
 }
 
 // bulkSQL is an INSERT of rows rows into table (its column list starting
@@ -263,8 +305,9 @@ func bulkSQL(table string, cols, rows int) string {
 }
 
 // bulkInsert inserts n rows into table through the driver connection dc
-// (inside the caller's transaction); fill sets row i's cols values in a.
-func bulkInsert(ctx context.Context, dc any, table string, cols, n int, loopID int64, fill func(i int, a []driver.NamedValue)) error {
+// (inside the caller's transaction); fill sets row i's cols values in a,
+// prev being the previous row's in the same statement (nil for the first).
+func bulkInsert(ctx context.Context, dc any, table string, cols, n int, loopID int64, fill func(i int, a, prev []driver.NamedValue)) error {
 	if n == 0 {
 		return nil
 	}
@@ -284,8 +327,11 @@ func bulkInsert(ctx context.Context, dc any, table string, cols, n int, loopID i
 		}
 		a := args[:2+cols*rows]
 		a[1].Value = int64(from)
+		var prev []driver.NamedValue
 		for k := 0; k < rows; k++ {
-			fill(from+k, a[2+k*cols:2+(k+1)*cols])
+			row := a[2+k*cols : 2+(k+1)*cols]
+			fill(from+k, row, prev)
+			prev = row
 		}
 		_, err := se.ExecContext(ctx, a)
 		return err
