@@ -4,9 +4,12 @@ import (
 	"context"
 	"crypto/sha256"
 	"database/sql"
+	"database/sql/driver"
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"math"
+	"strconv"
 	"strings"
 	"time"
 
@@ -117,12 +120,17 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 	if l.N < 1 {
 		return fmt.Errorf("store: loop of run %s: loop number %d, want ≥ 1", l.RunID, l.N)
 	}
-	tx, err := s.w.BeginTx(ctx, nil)
+	conn, err := s.w.Conn(ctx)
+	if err != nil {
+		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
+	}
+	defer conn.Close()
+	tx, err := conn.BeginTx(ctx, nil)
 	if err != nil {
 		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
 	}
 	defer tx.Rollback()
-	if err := addLoop(ctx, tx, l, s.now()); err != nil {
+	if err := addLoop(ctx, conn, tx, l, s.now()); err != nil {
 		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
 	}
 	if err := tx.Commit(); err != nil {
@@ -132,9 +140,15 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 }
 
 // batchRows is how many rows one multi-row INSERT carries.
-const batchRows = 64
+const batchRows = 256
 
-func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) error {
+// addLoop writes l in tx, which runs on conn. The bulk rows (raw samples,
+// points) go straight to the driver's prepared statements on the same
+// connection, inside the same transaction: each statement carries
+// batchRows rows, binds the loop id and the first sequence number once
+// (?1, ?2 + k) and the row values into an argument slice reused for every
+// batch, so database/sql neither copies nor converts the arguments.
+func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now time.Time) error {
 	var one int
 	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM runs WHERE id = ?`, l.RunID).Scan(&one); err != nil {
 		if errors.Is(err, sql.ErrNoRows) {
@@ -147,6 +161,13 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	} else if !errors.Is(err, sql.ErrNoRows) {
 		return err
 	}
+	for i, v := range l.Verdicts {
+		switch v.Outcome {
+		case record.Pass, record.Fail, record.Undecided:
+		default:
+			return fmt.Errorf("verdict %d (%s): unknown outcome %q", i, v.Figure, v.Outcome)
+		}
+	}
 	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?)`,
 		l.RunID, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points))
@@ -157,21 +178,40 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 	if err != nil {
 		return err
 	}
-	raw := func(i int, a []any) []any {
-		r := l.Raw[i]
-		return append(a, id, i, int64(r.T), int64(r.TUnc), string(r.Phase),
-			real(r.Setpoint), real(r.I), real(r.V), real(r.Psi), real(r.BProbe), real(r.TempC), int64(r.DtI), int64(r.DtB))
+	raw := func(i int, a, prev []driver.NamedValue) {
+		r := &l.Raw[i]
+		keepInt(a, prev, 0, int64(r.T))
+		keepInt(a, prev, 1, int64(r.TUnc))
+		keepText(a, prev, 2, string(r.Phase))
+		keepReal(a, prev, 3, r.Setpoint)
+		keepReal(a, prev, 4, r.I)
+		keepReal(a, prev, 5, r.V)
+		keepReal(a, prev, 6, r.Psi)
+		keepReal(a, prev, 7, r.BProbe)
+		keepReal(a, prev, 8, r.TempC)
+		keepInt(a, prev, 9, int64(r.DtI))
+		keepInt(a, prev, 10, int64(r.DtB))
 	}
-	if err := insertRows(ctx, tx, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
-		13, len(l.Raw), raw); err != nil {
-		return fmt.Errorf("raw samples: %w", err)
+	pt := func(i int, a, prev []driver.NamedValue) {
+		p := &l.Points[i]
+		keepInt(a, prev, 0, int64(p.T))
+		keepReal(a, prev, 1, p.H)
+		keepReal(a, prev, 2, p.B)
+		keepReal(a, prev, 3, p.J)
+		keepInt(a, prev, 4, int64(p.Branch))
 	}
-	pt := func(i int, a []any) []any {
-		p := l.Points[i]
-		return append(a, id, i, int64(p.T), real(p.H), real(p.B), real(p.J), p.Branch)
-	}
-	if err := insertRows(ctx, tx, "points (loop_id, seq, t_ns, h_a_m, b_t, j_t, branch)", 7, len(l.Points), pt); err != nil {
-		return fmt.Errorf("points: %w", err)
+	err = conn.Raw(func(dc any) error {
+		if err := bulkInsert(ctx, dc, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
+			11, len(l.Raw), id, raw); err != nil {
+			return fmt.Errorf("raw samples: %w", err)
+		}
+		if err := bulkInsert(ctx, dc, "points (loop_id, seq, t_ns, h_a_m, b_t, j_t, branch)", 5, len(l.Points), id, pt); err != nil {
+			return fmt.Errorf("points: %w", err)
+		}
+		return nil
+	})
+	if err != nil {
+		return err
 	}
 	fig := func(i int, a []any) []any {
 		f := l.Figures[i]
@@ -191,19 +231,132 @@ func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) erro
 		v := l.Verdicts[i]
 		return append(a, id, i, v.Grade, v.Figure, real(v.Value), real(v.U), real(v.Min), real(v.Max), v.Unit, v.Rule, string(v.Outcome), v.Note)
 	}
-	for i, v := range l.Verdicts {
-		switch v.Outcome {
-		case record.Pass, record.Fail, record.Undecided:
-		default:
-			return fmt.Errorf("verdict %d (%s): unknown outcome %q", i, v.Figure, v.Outcome)
-		}
-	}
 	if err := insertRows(ctx, tx, "verdicts (loop_id, seq, grade, figure, value, u, lo, hi, unit, rule, outcome, note)", 12, len(l.Verdicts), ver); err != nil {
 		return fmt.Errorf("verdicts: %w", err)
 	}
 	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)`,
 		l.RunID, l.N, now.UnixNano(), now.UnixNano()); err != nil {
 		return fmt.Errorf("outbox: %w", err)
+	}
+	return nil
+}
+
+// keepInt, keepReal and keepText set argument c of a row to v. A value
+// equal to the previous row's (prev, nil for a batch's first row) reuses
+// that row's interface value instead of boxing v again: phase, timing
+// uncertainty, branch and hold values repeat from row to row. A NaN real
+// is NULL (SQLite has no NaN).
+func keepInt(a, prev []driver.NamedValue, c int, v int64) {
+	if prev != nil {
+		if p, ok := prev[c].Value.(int64); ok && p == v {
+			a[c].Value = prev[c].Value
+			return
+		}
+	}
+	a[c].Value = v
+}
+
+func keepReal(a, prev []driver.NamedValue, c int, v float64) {
+	if math.IsNaN(v) {
+		a[c].Value = nil
+		return
+	}
+	if prev != nil {
+		if p, ok := prev[c].Value.(float64); ok && math.Float64bits(p) == math.Float64bits(v) {
+			a[c].Value = prev[c].Value
+			return
+		}
+	}
+	a[c].Value = v
+}
+
+func keepText(a, prev []driver.NamedValue, c int, v string) {
+	if prev != nil {
+		if p, ok := prev[c].Value.(string); ok && p == v {
+			a[c].Value = prev[c].Value
+			return
+		}
+	}
+	a[c].Value = v
+}
+
+// bulkSQL is an INSERT of rows rows into table (its column list starting
+// with loop_id, seq), binding the loop id as ?1, row k's seq as ?2 + k and
+// cols more values per row as anonymous parameters (?3 onward, in order).
+func bulkSQL(table string, cols, rows int) string {
+	var b strings.Builder
+	b.WriteString("INSERT INTO ")
+	b.WriteString(table)
+	b.WriteString(" VALUES ")
+	rest := strings.Repeat(",?", cols) + ")"
+	for k := 0; k < rows; k++ {
+		if k > 0 {
+			b.WriteByte(',')
+		}
+		if k == 0 {
+			b.WriteString("(?1,?2")
+		} else {
+			b.WriteString("(?1,?2+")
+			b.WriteString(strconv.Itoa(k))
+		}
+		b.WriteString(rest)
+	}
+	return b.String()
+}
+
+// bulkInsert inserts n rows into table through the driver connection dc
+// (inside the caller's transaction); fill sets row i's cols values in a,
+// prev being the previous row's in the same statement (nil for the first).
+func bulkInsert(ctx context.Context, dc any, table string, cols, n int, loopID int64, fill func(i int, a, prev []driver.NamedValue)) error {
+	if n == 0 {
+		return nil
+	}
+	prep, ok := dc.(driver.ConnPrepareContext)
+	if !ok {
+		return fmt.Errorf("driver %T cannot prepare with a context", dc)
+	}
+	args := make([]driver.NamedValue, 2+cols*min(n, batchRows))
+	for i := range args {
+		args[i].Ordinal = i + 1
+	}
+	args[0].Value = loopID
+	exec := func(st driver.Stmt, from, rows int) error {
+		se, ok := st.(driver.StmtExecContext)
+		if !ok {
+			return fmt.Errorf("driver statement %T cannot execute with a context", st)
+		}
+		a := args[:2+cols*rows]
+		a[1].Value = int64(from)
+		var prev []driver.NamedValue
+		for k := 0; k < rows; k++ {
+			row := a[2+k*cols : 2+(k+1)*cols]
+			fill(from+k, row, prev)
+			prev = row
+		}
+		_, err := se.ExecContext(ctx, a)
+		return err
+	}
+	run := func(rows, from, to int) error {
+		st, err := prep.PrepareContext(ctx, bulkSQL(table, cols, rows))
+		if err != nil {
+			return err
+		}
+		defer st.Close()
+		for i := from; i < to; i += rows {
+			if err := exec(st, i, rows); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	full := n / batchRows * batchRows
+	if full > 0 {
+		if err := run(batchRows, 0, full); err != nil {
+			return err
+		}
+	}
+	if n > full {
+		return run(n-full, full, n)
 	}
 	return nil
 }

@@ -8,17 +8,19 @@
 package loopcsv
 
 import (
-	"bytes"
 	"encoding/csv"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"math"
 	"regexp"
 	"strconv"
 	"strings"
 	"text/tabwriter"
+	"unicode"
+	"unicode/utf8"
 
 	"hystd/calib/loop"
 	"hystd/calib/units"
@@ -77,25 +79,57 @@ func factor(unit, si string, parse func(string) (float64, error)) (float64, erro
 }
 
 // Read parses a loop from r; name is used in errors.
+//
+// A file without any '"' is read by a splitter of its own: the whole file
+// is read into one string (grown to the file's size when r is a file), the
+// slices are allocated once for the number of lines, and fields are
+// substrings of it, so a row costs no allocation. It follows encoding/csv
+// (TrimLeadingSpace, Comment '#', "\r\n" as "\n", empty lines skipped,
+// line numbers counting every physical line), so it accepts, refuses and
+// reports exactly what encoding/csv does on such files. A file with quotes
+// is read with encoding/csv.
 func Read(r io.Reader, name string, opt Options) (Data, error) {
-	raw, err := io.ReadAll(r)
+	raw, err := readAll(r)
 	if err != nil {
 		return Data{}, &Error{File: name, Msg: err.Error()}
 	}
-	cr := csv.NewReader(bytes.NewReader(raw))
-	cr.Comma = sniffComma(raw)
-	cr.Comment = '#'
-	cr.FieldsPerRecord = -1
-	cr.TrimLeadingSpace = true
-	cr.ReuseRecord = true
-	header, err := cr.Read()
-	if errors.Is(err, io.EOF) {
-		return Data{}, &Error{File: name, Msg: "empty file: want a header row naming the columns H and B"}
+	comma := sniffComma(raw)
+	if strings.IndexByte(raw, '"') >= 0 {
+		return readQuoted(raw, comma, name, opt)
 	}
-	if err != nil {
-		return Data{}, csvError(name, err)
+	return readPlain(raw, comma, name, opt)
+}
+
+// readAll reads r into one string, sized up front when r can tell its size
+// (a regular file, or an in-memory reader).
+func readAll(r io.Reader) (string, error) {
+	var b strings.Builder
+	switch x := r.(type) {
+	case interface{ Stat() (fs.FileInfo, error) }:
+		if fi, err := x.Stat(); err == nil && fi.Mode().IsRegular() && fi.Size() > 0 && fi.Size() < 1<<40 {
+			b.Grow(int(fi.Size()) + 1)
+		}
+	case interface{ Len() int }: // bytes.Reader, strings.Reader, bytes.Buffer
+		b.Grow(x.Len())
 	}
-	hl, _ := cr.FieldPos(0)
+	if _, err := io.Copy(&b, r); err != nil {
+		return "", err
+	}
+	return b.String(), nil
+}
+
+// columns is what the header says: where H, B and t are and their factors
+// to SI.
+type columns struct {
+	h, b, t    int
+	hasT       bool
+	hf, bf, tf float64
+	n          int // fields in the header
+}
+
+// parseHeader reads the header fields (as encoding/csv gives them) found at
+// line hl.
+func parseHeader(header []string, hl int, name string, opt Options) (columns, error) {
 	col := map[string]int{}
 	unit := map[string]string{}
 	var names []string
@@ -107,14 +141,14 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 			c, u = m[1], m[2]
 		}
 		if _, dup := col[c]; dup && (c == "H" || c == "B" || c == "t") {
-			return Data{}, &Error{File: name, Line: hl, Column: c, Msg: "named twice in the header"}
+			return columns{}, &Error{File: name, Line: hl, Column: c, Msg: "named twice in the header"}
 		}
 		col[c] = i
 		unit[c] = u
 	}
 	for _, need := range []string{"H", "B"} {
 		if _, ok := col[need]; !ok {
-			return Data{}, &Error{File: name, Line: hl, Msg: fmt.Sprintf("header has no column %q (columns: %s); want H in A/m and B in T, t in s optional",
+			return columns{}, &Error{File: name, Line: hl, Msg: fmt.Sprintf("header has no column %q (columns: %s); want H in A/m and B in T, t in s optional",
 				need, strings.Join(names, ", "))}
 		}
 	}
@@ -129,11 +163,11 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 	}
 	hu, err := pick("H", opt.HUnit, unit["H"])
 	if err != nil {
-		return Data{}, err
+		return columns{}, err
 	}
 	bu, err := pick("B", opt.BUnit, unit["B"])
 	if err != nil {
-		return Data{}, err
+		return columns{}, err
 	}
 	hf, err := factor(hu, "A/m", func(s string) (float64, error) { v, err := units.ParseAmperePerMetre(s); return float64(v), err })
 	if err != nil {
@@ -141,7 +175,7 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 		if opt.HUnit == "" {
 			where = fmt.Sprintf("line %d: column H: ", hl)
 		}
-		return Data{}, &Error{File: name, Msg: where + err.Error()}
+		return columns{}, &Error{File: name, Msg: where + err.Error()}
 	}
 	bf, err := factor(bu, "T", func(s string) (float64, error) { v, err := units.ParseTesla(s); return float64(v), err })
 	if err != nil {
@@ -149,7 +183,7 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 		if opt.BUnit == "" {
 			where = fmt.Sprintf("line %d: column B: ", hl)
 		}
-		return Data{}, &Error{File: name, Msg: where + err.Error()}
+		return columns{}, &Error{File: name, Msg: where + err.Error()}
 	}
 	tf := 1.0
 	switch unit["t"] {
@@ -157,11 +191,230 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 	case "ms":
 		tf = 1e-3
 	default:
-		return Data{}, &Error{File: name, Line: hl, Column: "t", Msg: fmt.Sprintf("unit %q: want s or ms", unit["t"])}
+		return columns{}, &Error{File: name, Line: hl, Column: "t", Msg: fmt.Sprintf("unit %q: want s or ms", unit["t"])}
 	}
 	ti, hasT := col["t"]
+	return columns{h: col["H"], b: col["B"], t: ti, hasT: hasT, hf: hf, bf: bf, tf: tf, n: len(header)}, nil
+}
+
+// row appends one record's values to d; line is its line number.
+func (c *columns) row(d *Data, rec []string, line int, name string) error {
+	if len(rec) != c.n {
+		return &Error{File: name, Line: line, Msg: fmt.Sprintf("%d fields, the header has %d", len(rec), c.n)}
+	}
+	h, err := number(rec[c.h], "H", line, name)
+	if err != nil {
+		return err
+	}
+	b, err := number(rec[c.b], "B", line, name)
+	if err != nil {
+		return err
+	}
+	if c.hasT {
+		t, err := number(rec[c.t], "t", line, name)
+		if err != nil {
+			return err
+		}
+		if n := len(d.T); n > 0 && t*c.tf < d.T[n-1] {
+			return &Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t*c.tf, d.T[n-1])}
+		}
+		d.T = append(d.T, t*c.tf)
+	}
+	d.H = append(d.H, h*c.hf)
+	d.B = append(d.B, b*c.bf)
+	d.Line = append(d.Line, line)
+	return nil
+}
+
+// number parses one field of column c as a finite float.
+func number(s, c string, line int, name string) (float64, error) {
+	if len(s) > 0 && (isSpaceStart(s[0]) || isSpaceStart(s[len(s)-1])) {
+		s = strings.TrimSpace(s)
+	}
+	if v, ok := parseDecimal(s); ok {
+		return v, nil
+	}
+	v, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0, &Error{File: name, Line: line, Column: c, Msg: fmt.Sprintf("%q is not a finite number", s)}
+	}
+	return v, nil
+}
+
+// pow10 holds the powers of ten that are exact in a float64.
+var pow10 = [...]float64{1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11,
+	1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22}
+
+// parseDecimal parses [+-]digits[.digits][(e|E)[+-]digits] when the
+// digits form an integer below 2⁵³ and the decimal exponent is within
+// ±22: then mantissa and power of ten are exact and one multiplication or
+// division rounds correctly (Clinger's fast path, as strconv uses it), so
+// the value equals strconv.ParseFloat's. Anything else reports !ok and
+// goes to strconv.ParseFloat.
+func parseDecimal(s string) (float64, bool) {
+	i, neg := 0, false
+	if i < len(s) && (s[i] == '+' || s[i] == '-') {
+		neg = s[i] == '-'
+		i++
+	}
+	var mant uint64
+	digits, exp := 0, 0
+	for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+		if digits < 18 {
+			mant = mant*10 + uint64(s[i]-'0')
+		} else {
+			return 0, false
+		}
+		if mant > 0 {
+			digits++
+		}
+	}
+	seen := i > 0 && s[i-1] >= '0' && s[i-1] <= '9'
+	if i < len(s) && s[i] == '.' {
+		i++
+		for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+			if digits < 18 {
+				mant = mant*10 + uint64(s[i]-'0')
+			} else {
+				return 0, false
+			}
+			if mant > 0 {
+				digits++
+			}
+			exp--
+			seen = true
+		}
+	}
+	if !seen {
+		return 0, false
+	}
+	if i < len(s) && (s[i] == 'e' || s[i] == 'E') {
+		i++
+		eneg := false
+		if i < len(s) && (s[i] == '+' || s[i] == '-') {
+			eneg = s[i] == '-'
+			i++
+		}
+		start, e := i, 0
+		for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+			if e > 1000 {
+				return 0, false
+			}
+			e = e*10 + int(s[i]-'0')
+		}
+		if i == start {
+			return 0, false
+		}
+		if eneg {
+			e = -e
+		}
+		exp += e
+	}
+	if i != len(s) || mant >= 1<<53 || exp < -22 || exp > 22 {
+		return 0, false
+	}
+	f := float64(mant)
+	if exp < 0 {
+		f /= pow10[-exp]
+	} else {
+		f *= pow10[exp]
+	}
+	if neg {
+		f = -f
+	}
+	return f, true
+}
+
+// isSpaceStart reports whether a byte may be (the first or last byte of) a
+// Unicode space: ASCII space and controls, or any non-ASCII byte.
+func isSpaceStart(c byte) bool { return c <= ' ' || c >= utf8.RuneSelf }
+
+// readPlain reads a file that holds no '"'.
+func readPlain(raw string, comma byte, name string, opt Options) (Data, error) {
+	var (
+		c      columns
+		d      Data
+		rec    []string
+		header = true
+		line   int
+	)
+	for rest := raw; len(rest) > 0; {
+		var l string
+		if i := strings.IndexByte(rest, '\n'); i >= 0 {
+			l, rest = rest[:i], rest[i+1:]
+		} else {
+			l, rest = rest, ""
+		}
+		line++
+		if n := len(l); n > 0 && l[n-1] == '\r' {
+			l = l[:n-1] // encoding/csv: "\r\n" is "\n", a last "\r" before EOF is dropped
+		}
+		if len(l) == 0 || l[0] == '#' {
+			continue
+		}
+		rec = rec[:0]
+		for {
+			i := strings.IndexByte(l, comma)
+			f := l
+			if i >= 0 {
+				f = l[:i]
+			}
+			if len(f) > 0 && isSpaceStart(f[0]) {
+				f = strings.TrimLeftFunc(f, unicode.IsSpace)
+			}
+			rec = append(rec, f)
+			if i < 0 {
+				break
+			}
+			l = l[i+1:]
+		}
+		if header {
+			var err error
+			if c, err = parseHeader(rec, line, name, opt); err != nil {
+				return Data{}, err
+			}
+			header = false
+			n := strings.Count(rest, "\n") + 1 // rows at most
+			if c.hasT {
+				d.T = make([]float64, 0, n)
+			}
+			d.H, d.B, d.Line = make([]float64, 0, n), make([]float64, 0, n), make([]int, 0, n)
+			continue
+		}
+		if err := c.row(&d, rec, line, name); err != nil {
+			return Data{}, err
+		}
+	}
+	if header {
+		return Data{}, &Error{File: name, Msg: "empty file: want a header row naming the columns H and B"}
+	}
+	if len(d.H) == 0 {
+		return Data{}, &Error{File: name, Msg: "no data rows after the header"}
+	}
+	return d, nil
+}
+
+// readQuoted reads a file with quoted fields through encoding/csv.
+func readQuoted(raw string, comma byte, name string, opt Options) (Data, error) {
+	cr := csv.NewReader(strings.NewReader(raw))
+	cr.Comma = rune(comma)
+	cr.Comment = '#'
+	cr.FieldsPerRecord = -1
+	cr.TrimLeadingSpace = true
+	cr.ReuseRecord = true
+	header, err := cr.Read()
+	if errors.Is(err, io.EOF) {
+		return Data{}, &Error{File: name, Msg: "empty file: want a header row naming the columns H and B"}
+	}
+	if err != nil {
+		return Data{}, csvError(name, err)
+	}
+	hl, _ := cr.FieldPos(0)
+	c, err := parseHeader(header, hl, name, opt)
+	if err != nil {
+		return Data{}, err
+	}
 	var d Data
-	nf := len(header)
 	for {
 		rec, err := cr.Read()
 		if errors.Is(err, io.EOF) {
@@ -171,38 +424,9 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 			return Data{}, csvError(name, err)
 		}
 		line, _ := cr.FieldPos(0)
-		if len(rec) != nf {
-			return Data{}, &Error{File: name, Line: line, Msg: fmt.Sprintf("%d fields, the header has %d", len(rec), nf)}
-		}
-		num := func(c string, i int) (float64, error) {
-			s := strings.TrimSpace(rec[i])
-			v, err := strconv.ParseFloat(s, 64)
-			if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
-				return 0, &Error{File: name, Line: line, Column: c, Msg: fmt.Sprintf("%q is not a finite number", s)}
-			}
-			return v, nil
-		}
-		h, err := num("H", col["H"])
-		if err != nil {
+		if err := c.row(&d, rec, line, name); err != nil {
 			return Data{}, err
 		}
-		b, err := num("B", col["B"])
-		if err != nil {
-			return Data{}, err
-		}
-		if hasT {
-			t, err := num("t", ti)
-			if err != nil {
-				return Data{}, err
-			}
-			if n := len(d.T); n > 0 && t*tf < d.T[n-1] {
-				return Data{}, &Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t*tf, d.T[n-1])}
-			}
-			d.T = append(d.T, t*tf)
-		}
-		d.H = append(d.H, h*hf)
-		d.B = append(d.B, b*bf)
-		d.Line = append(d.Line, line)
 	}
 	if len(d.H) == 0 {
 		return Data{}, &Error{File: name, Msg: "no data rows after the header"}
@@ -212,19 +436,19 @@ func Read(r io.Reader, name string, opt Options) (Data, error) {
 
 // sniffComma returns ';' when the first line that is not a comment has a
 // ';' and no ',', else ','.
-func sniffComma(raw []byte) rune {
+func sniffComma(raw string) byte {
 	for len(raw) > 0 {
 		line := raw
-		if i := bytes.IndexByte(raw, '\n'); i >= 0 {
+		if i := strings.IndexByte(raw, '\n'); i >= 0 {
 			line, raw = raw[:i], raw[i+1:]
 		} else {
-			raw = nil
+			raw = ""
 		}
-		t := bytes.TrimSpace(line)
+		t := strings.TrimSpace(line)
 		if len(t) == 0 || t[0] == '#' {
 			continue
 		}
-		if bytes.IndexByte(t, ';') >= 0 && bytes.IndexByte(t, ',') < 0 {
+		if strings.IndexByte(t, ';') >= 0 && strings.IndexByte(t, ',') < 0 {
 			return ';'
 		}
 		return ','
