@@ -26,6 +26,11 @@ type dialect struct {
 	errEntry string // an error-queue reply with code -222
 }
 
+// sync is the exchange that brings a line back in step after a timeout or
+// a reply that does not parse: the profile's sync query, answered with the
+// identity (the startup's first reply).
+func (d dialect) sync() ex { return ex{Send: "*IDN?", Reply: d.startup[0].Reply} }
+
 var (
 	simSupply = dialect{profile: "sim-supply", wt: "\n", rt: "\n",
 		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,BIPOLAR-SUPPLY,0,1"}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},

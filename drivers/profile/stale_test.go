@@ -1,0 +1,74 @@
+package profile
+
+import (
+	"context"
+	"errors"
+	"log/slog"
+	"strings"
+	"testing"
+	"time"
+
+	"hystd/drivers/scpi"
+	"hystd/drivers/scpi/scpitest"
+)
+
+func scriptOf(t *testing.T, d dialect, steps ...ex) *scpitest.Script {
+	return scpitest.New(t, d.wt, d.rt, steps...)
+}
+
+func noSleep(context.Context, time.Duration) error { return nil }
+
+var discard = slog.New(slog.DiscardHandler)
+
+// A reply left on the line by a process killed mid-exchange answers the
+// first *IDN? of the next one before the identity does: it is discarded,
+// and the supply is identified (it was refused as "wrong instrument").
+func TestStaleReplyAtStartIsDiscarded(t *testing.T) {
+	p, err := Load("sim-supply")
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := simSupply.startup
+	script := scriptOf(t, simSupply,
+		ex{Send: "*IDN?", Raw: []byte("7.000000E-01\n0,\"No error\"\n" + st[0].Reply + "\n")},
+		st[1], st[2])
+	s, err := NewSupply(context.Background(), p, script, Options{Sleep: noSleep, Log: discard})
+	if err != nil {
+		t.Fatalf("stale replies at start made identification fail: %v", err)
+	}
+	s.Close()
+}
+
+// A supply that answers, but not with its identity, is ErrIdentity naming
+// what it said.
+func TestWrongIdentityNamesTheReply(t *testing.T) {
+	p, err := Load("sim-supply")
+	if err != nil {
+		t.Fatal(err)
+	}
+	p.SyncQuery, p.SyncReply = "", "" // defaults
+	script := scriptOf(t, simSupply, ex{Send: "*IDN?", Reply: "OTHER-MAKER,BOX,1,1"})
+	_, err = NewSupply(context.Background(), p, script, Options{Sleep: noSleep, Log: discard})
+	if !errors.Is(err, ErrIdentity) || !strings.Contains(err.Error(), "OTHER-MAKER,BOX,1,1") {
+		t.Fatalf("got %v", err)
+	}
+}
+
+// A reading that does not parse for its query is desynchronisation: an
+// error (never a value), and the next read resynchronises first.
+func TestUnparsableReadingIsDesync(t *testing.T) {
+	r := newRig(t, simFieldMeter,
+		ex{Send: "MEAS:FIEL?", Reply: `0,"No error"`}, // an error-queue reply where a field was due
+		simFieldMeter.sync(),
+		ex{Send: "MEAS:FIEL?", Reply: "1.000000E-01"},
+	)
+	f := r.fieldMeter(t)
+	_, err := f.ReadField(context.Background())
+	if !errors.Is(err, scpi.ErrDesync) {
+		t.Fatalf("got %v, want scpi.ErrDesync", err)
+	}
+	v, err := f.ReadField(context.Background())
+	if err != nil || v.Value != 0.1 {
+		t.Fatalf("got %v, %v", v, err)
+	}
+}
