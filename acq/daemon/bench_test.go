@@ -360,8 +360,8 @@ func TestStartupHaltsEnergisedSupply(t *testing.T) {
 		return math.Abs(float64(tr.I)) < 1e-3 && !tr.Output
 	})
 	bd.assertZero(t)
-	if !strings.Contains(bd.logs.String(), "supply found with its output on at start-up") {
-		t.Errorf("no log line says the supply was found on:\n%s", bd.logs)
+	if logs := bd.logs.String(); !strings.Contains(logs, "halting supply: ramping to zero") || !strings.Contains(logs, `"supply at zero, output off (read back`) {
+		t.Errorf("no log line says the supply was found on and halted:\n%s", logs)
 	}
 }
 

@@ -73,6 +73,9 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
 	if w.Open == nil {
 		w.Open = FixtureOpener(log)
+		if w.Halt == nil {
+			w.Halt = FixtureHalter(log)
+		}
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
@@ -102,6 +105,16 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}()
 	op, err := w.Open(rctx, lf.Fixture, lf.Specimen)
 	if err != nil {
+		// The supply may have been left on (a killed process): halt it
+		// alone before reporting.
+		if w.Halt != nil {
+			text, herr := w.Halt(context.WithoutCancel(ctx), lf.Fixture)
+			if herr != nil && text == "" {
+				text = "SUPPLY HALT FAILED: " + herr.Error()
+			}
+			fmt.Fprintln(o.Out, text)
+			return record.Run{}, fmt.Errorf("%w; %s", err, text)
+		}
 		return record.Run{}, err
 	}
 	defer op.Close()

@@ -44,6 +44,7 @@ type APIFactory func(APIParts) (http.Handler, error)
 // Wiring is what Serve needs from outside this package.
 type Wiring struct {
 	Open     Opener                                                        // nil: FixtureOpener
+	Halt     Halter                                                        // nil: FixtureHalter when Open is nil too
 	API      APIFactory                                                    // nil: only /healthz and /metrics
 	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre // nil: SpecimenArea
 	Software string
@@ -89,12 +90,15 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 
 	if w.Open == nil {
 		w.Open = FixtureOpener(log)
+		if w.Halt == nil {
+			w.Halt = FixtureHalter(log)
+		}
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
 	}
 	hub := live.NewHub(0)
-	d, err := New(cfg, Deps{Open: w.Open, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area})
+	d, err := New(cfg, Deps{Open: w.Open, Halt: w.Halt, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area})
 	if err != nil {
 		return err
 	}

@@ -380,6 +380,8 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	if herr := x.halt(ctx); herr != nil {
 		state = record.Failed
 		x.notes = append(x.notes, fmt.Sprintf("RAMP-DOWN FAILED: %v — the winding may still carry current; bring the supply to zero by hand before touching the fixture", herr))
+	} else {
+		x.event(ctx, "info", "supply at zero, output off (read back %.4g A)", x.lastI)
 	}
 	for _, l := range x.failed {
 		wctx, cancel := bg(ctx, WriteTimeout)

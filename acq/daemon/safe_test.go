@@ -1,0 +1,174 @@
+package daemon
+
+import (
+	"context"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"hystd/acq/record"
+	"hystd/acq/store"
+	"hystd/calib/units"
+	"hystd/drivers/profile"
+	"hystd/drivers/sim"
+)
+
+// energise sets the bench's supply to amps with its output on, as a
+// process that was then killed would have left it, and leaves a query
+// unanswered-by-anyone on the line: its reply is what the next process
+// finds waiting when it opens the port.
+func energise(t *testing.T, b *sim.Bench, amps float64) {
+	t.Helper()
+	ctx := context.Background()
+	sup, err := profile.OpenSupply(ctx, profile.Spec{Port: b.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := sup.SetOutput(ctx, true); err != nil {
+		t.Fatal(err)
+	}
+	if err := sup.SetCurrent(ctx, units.Ampere(0.5*amps)); err != nil {
+		t.Fatal(err)
+	}
+	if err := sup.SetCurrent(ctx, units.Ampere(amps)); err != nil {
+		t.Fatal(err)
+	}
+	sup.Close()
+	waitFor(t, "the bench energised", 10*time.Second, func() bool { return math.Abs(float64(b.Truth().I)-amps) < 0.01 })
+	f, err := os.OpenFile(b.Ports()["supply"], os.O_RDWR, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := f.WriteString("MEAS:CURR?\nSYST:ERR?\n"); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(100 * time.Millisecond) // the bench answers; nobody reads the replies
+	f.Close()
+}
+
+// zeroWithin waits for the bench's truth — not the daemon's belief — to
+// show no current and the output off.
+func zeroWithin(t *testing.T, b *sim.Bench, d time.Duration) {
+	t.Helper()
+	waitFor(t, "the bench's supply at zero, output off", d, func() bool {
+		tr := b.Truth()
+		return math.Abs(float64(tr.I)) < 1e-3 && !tr.Output
+	})
+}
+
+// setPort replaces the port of a role in the bench daemon's fixture file.
+func (bd *benchDaemon) setPort(t *testing.T, role, port string) {
+	t.Helper()
+	p := filepath.Join(bd.dir, "fixture.yaml")
+	b, err := os.ReadFile(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	old := bd.bench.Ports()[role]
+	if !strings.Contains(string(b), old) {
+		t.Fatalf("fixture has no port %s for %s", old, role)
+	}
+	if !strings.Contains(string(b), "port: "+old+",") {
+		t.Fatalf("fixture:\n%s", b)
+	}
+	if err := os.WriteFile(p, []byte(strings.ReplaceAll(string(b), "port: "+old+",", "port: "+port+",")), 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// TestStartupStaleReplyHalts: a process killed with 0.7 A flowing left
+// replies on the supply's line; the next daemon's start-up discards them,
+// identifies the supply and ramps it to zero (they used to answer *IDN?,
+// the supply was refused as "wrong instrument" and stayed on).
+func TestStartupStaleReplyHalts(t *testing.T) {
+	bd := benchFiles(t, func(b *sim.Bench) { energise(t, b, 0.7) })
+	bd.serve(t)
+	zeroWithin(t, bd.bench, 100*time.Millisecond) // Serve halts before it listens
+	bd.assertZero(t)
+	if logs := bd.logs.String(); !strings.Contains(logs, "stale input discarded before identification") || !strings.Contains(logs, "supply at zero, output off (read back") {
+		t.Errorf("logs:\n%s", logs)
+	}
+}
+
+// TestStartupThermometerMissingHalts: the optional thermometer's port is
+// gone at start-up; the supply, left energised, is halted all the same.
+func TestStartupThermometerMissingHalts(t *testing.T) {
+	bd := benchFiles(t, func(b *sim.Bench) { energise(t, b, 0.7) })
+	bd.setPort(t, "thermometer", "/dev/hystd-test-no-such-port")
+	bd.serve(t)
+	zeroWithin(t, bd.bench, 100*time.Millisecond)
+	bd.assertZero(t)
+}
+
+// TestOpenFailureMidQueueHalts: a run whose instruments cannot be opened
+// (the thermometer's port is missing) ends failed, and the supply someone
+// switched on meanwhile is halted; the run's stored events carry the
+// read-back confirmation.
+func TestOpenFailureMidQueueHalts(t *testing.T) {
+	bd := benchFiles(t, nil)
+	bd.setPort(t, "thermometer", "/dev/hystd-test-no-such-port")
+	bd.serve(t)
+	energise(t, bd.bench, 0.6)
+	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var r record.Run
+	waitFor(t, "the run's ending", 30*time.Second, func() bool {
+		st, err := store.Open(context.Background(), bd.db)
+		if err != nil {
+			return false
+		}
+		defer st.Close()
+		r, _ = st.Run(context.Background(), id)
+		return r.State == record.Failed
+	})
+	zeroWithin(t, bd.bench, time.Second)
+	bd.assertZero(t)
+	if !strings.Contains(r.Reason, "instruments could not be opened") || !strings.Contains(r.Reason, "thermometer") {
+		t.Errorf("reason %q", r.Reason)
+	}
+	st, err := store.Open(context.Background(), bd.db)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	evs, err := st.Events(context.Background(), id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	found := false
+	for _, e := range evs {
+		found = found || strings.HasPrefix(e.Text, "supply at zero, output off (read back")
+	}
+	if !found {
+		t.Errorf("no stored event confirms the halt: %+v", evs)
+	}
+}
+
+// TestSIGTERMIdleHalts: SIGTERM with no run under way still halts a supply
+// that is on (switched on by hand, or by a process killed before).
+func TestSIGTERMIdleHalts(t *testing.T) {
+	bd := benchFiles(t, nil)
+	bd.serve(t)
+	energise(t, bd.bench, 0.8)
+	bd.sigs <- syscall.SIGTERM
+	select {
+	case err := <-bd.done:
+		if err != nil {
+			t.Fatal(err)
+		}
+		bd.done <- nil // for the cleanup
+	case <-time.After(20 * time.Second):
+		t.Fatal("daemon did not stop")
+	}
+	tr := bd.bench.Truth()
+	if math.Abs(float64(tr.I)) > 1e-3 || tr.Output {
+		t.Fatalf("after SIGTERM the bench reads %g A, output on = %v", float64(tr.I), tr.Output)
+	}
+	bd.assertZero(t)
+}
