@@ -73,6 +73,8 @@ type Bench struct {
 	head   int // next write index once hist is full
 	insts  map[string]*instrument
 	faults []*faultState
+	// injected counts fired faults by kind.
+	injected map[string]int
 
 	cancel    context.CancelFunc
 	wg        sync.WaitGroup
