@@ -172,3 +172,96 @@ func TestSIGTERMIdleHalts(t *testing.T) {
 	}
 	bd.assertZero(t)
 }
+
+// runEnded waits for a run's ending and returns it with its stored events.
+func (bd *benchDaemon) runEnded(t *testing.T, id string, d time.Duration) (record.Run, []record.Event) {
+	t.Helper()
+	var r record.Run
+	var evs []record.Event
+	waitFor(t, "the run's ending", d, func() bool {
+		st, err := store.Open(context.Background(), bd.db)
+		if err != nil {
+			return false
+		}
+		defer st.Close()
+		r, _ = st.Run(context.Background(), id)
+		evs, _ = st.Events(context.Background(), id)
+		return r.State != record.Queued && r.State != record.Running && r.State != ""
+	})
+	return r, evs
+}
+
+func hasEvent(evs []record.Event, sub string) bool {
+	for _, e := range evs {
+		if strings.Contains(e.Text, sub) {
+			return true
+		}
+	}
+	return false
+}
+
+// TestSpontaneousErrorEndsRun: the field meter pushes an error onto its
+// queue by itself in the middle of a run (no setting follows it): the
+// run's error poll reads it, stores it as an event and, the code being
+// "fail" in the profile (the default), ends the run failed after the safe
+// ramp-down. Before, such errors were never read and the next open's *CLS
+// erased them.
+func TestSpontaneousErrorEndsRun(t *testing.T) {
+	bd := benchFiles(t, nil)
+	bd.serve(t)
+	sub, stop := bd.hub.Subscribe()
+	defer stop()
+	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
+	if err != nil {
+		t.Fatal(err)
+	}
+	inSweep(t, sub)
+	if err := bd.bench.Inject(sim.Fault{Role: sim.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature"}); err != nil {
+		t.Fatal(err)
+	}
+	r, evs := bd.runEnded(t, id, 30*time.Second)
+	zeroWithin(t, bd.bench, time.Second)
+	bd.assertZero(t)
+	if r.State != record.Failed || !strings.Contains(r.Reason, `raised error -310 "System error;probe temperature" by itself`) {
+		t.Errorf("run %s: %s", r.State, r.Reason)
+	}
+	if !hasEvent(evs, "-310") || !hasEvent(evs, "supply at zero, output off (read back") {
+		t.Errorf("events: %+v", evs)
+	}
+}
+
+// TestLatchedTripNamed: the supply trips by itself during a run; that run
+// and the next one fail naming a latched trip and what clears it (the next
+// one used to fail as "lost communication with the supply").
+func TestLatchedTripNamed(t *testing.T) {
+	bd := benchFiles(t, nil)
+	bd.serve(t)
+	sub, stop := bd.hub.Subscribe()
+	defer stop()
+	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
+	if err != nil {
+		t.Fatal(err)
+	}
+	inSweep(t, sub)
+	if err := bd.bench.Inject(sim.Fault{Role: sim.RoleSupply, Kind: sim.FaultTrip}); err != nil {
+		t.Fatal(err)
+	}
+	r, _ := bd.runEnded(t, id, 30*time.Second)
+	zeroWithin(t, bd.bench, time.Second)
+	const latched = "supply tripped (latched)"
+	const clears = "send *RST to the supply to clear the trip"
+	if r.State != record.Failed || !strings.Contains(r.Reason, latched) || !strings.Contains(r.Reason, clears) {
+		t.Errorf("run %s: %s", r.State, r.Reason)
+	}
+	id2, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
+	if err != nil {
+		t.Fatal(err)
+	}
+	r2, _ := bd.runEnded(t, id2, 30*time.Second)
+	if r2.State != record.Failed || !strings.Contains(r2.Reason, latched) || !strings.Contains(r2.Reason, clears) {
+		t.Errorf("next run %s: %s", r2.State, r2.Reason)
+	}
+	// Not assertZero: the trip itself switched the output off with current
+	// flowing (the injected fault); what matters is the state after.
+	zeroWithin(t, bd.bench, time.Second)
+}

@@ -131,7 +131,7 @@ func lateReply(t *testing.T, role string) {
 }
 
 // inSweep waits for live samples showing the current sweeping (two in a row
-// 0.1 A apart or more).
+// 3 mA apart or more).
 func inSweep(t *testing.T, evs <-chan live.Event) {
 	t.Helper()
 	timeout := time.After(30 * time.Second)
@@ -142,7 +142,7 @@ func inSweep(t *testing.T, evs <-chan live.Event) {
 			if e.Kind != live.KindSample {
 				continue
 			}
-			if math.Abs(e.I-last) > 0.1 {
+			if math.Abs(e.I-last) > 0.003 {
 				return
 			}
 			last = e.I

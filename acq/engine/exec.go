@@ -17,6 +17,7 @@ import (
 	"hystd/acq/safety"
 	"hystd/acq/sampler"
 	"hystd/calib/units"
+	"hystd/drivers/instr"
 )
 
 // Timeouts of the engine's own bookkeeping, independent of the run's context.
@@ -53,10 +54,11 @@ type exec struct {
 	// lastLevel is the previous closed-loop setpoint, A/m.
 	lastLevel float64
 	haveLevel bool
-	failed    []record.Loop    // loops the writer refused
-	retries   atomic.Int64     // late replies read again in the current step
-	smp       *sampler.Sampler // the run's concurrent reader
-	notes     []string         // added to the final reason
+	failed    []record.Loop        // loops the writer refused
+	retries   atomic.Int64         // late replies read again in the current step
+	smp       *sampler.Sampler     // the run's concurrent reader
+	notes     []string             // added to the final reason
+	polled    map[string]time.Time // last error-queue poll, by role
 }
 
 func newExec(p *Plan) *exec {
@@ -121,6 +123,10 @@ func (x *exec) steps(ctx context.Context) error {
 	cancel()
 	if err != nil {
 		return safety.Comm("supply", fmt.Errorf("read status: %w", err))
+	}
+	if st.Tripped {
+		// Turning the output on would be refused: say why, and what clears it.
+		return safety.Tripped(st)
 	}
 	if st.OutputOn {
 		x.event(ctx, "warn", "supply found with its output on: ramping it to zero before the run starts")
@@ -262,6 +268,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if v := x.check.Check(safety.Observation{T: s.T + s.DtI, TUnc: s.TUnc, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
 			Status: rd.Status, HaveStatus: true, Energised: x.energd, Overload: rd.Overload}); v != nil {
 			return v
+		}
+		if err := x.pollErrors(ctx, now); err != nil {
+			return err
 		}
 		if st.Loop != nil && phase != "" {
 			raw = append(raw, s)
@@ -496,4 +505,65 @@ func (x *exec) halt(ctx context.Context) error {
 		x.energd = false
 	}
 	return err
+}
+
+// pollErrors reads, every instrument's error_poll period, the error queue
+// of each instrument that has one: errors an instrument raises by itself
+// (between settings) become events, and one its profile rates "fail" ends
+// the run (the caller's ending ramps the supply down). Called between
+// sample rounds, when no read is pending.
+func (x *exec) pollErrors(ctx context.Context, now time.Time) error {
+	in := x.s.Instruments
+	roles := []struct {
+		name string
+		r    any
+	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field meter", in.FieldMeter}, {"thermometer", in.Thermometer}}
+	if x.polled == nil {
+		x.polled = map[string]time.Time{}
+	}
+	for _, r := range roles {
+		p, ok := r.r.(instr.ErrorPoller)
+		if !ok || r.r == nil {
+			continue
+		}
+		period := p.ErrorPollPeriod()
+		if period <= 0 {
+			continue
+		}
+		last, seen := x.polled[r.name]
+		if !seen {
+			x.polled[r.name] = now // the open drained the queue: first poll one period on
+			continue
+		}
+		if now.Sub(last) < period {
+			continue
+		}
+		x.polled[r.name] = now
+		cctx, cancel := context.WithTimeout(ctx, x.comm)
+		errs, err := p.PollErrors(cctx)
+		cancel()
+		if err != nil {
+			return x.stopErr(ctx, safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err)))
+		}
+		var fail *safety.Violation
+		for _, e := range errs {
+			sev := "warn"
+			if e.Fail {
+				sev = "fail"
+			}
+			text := fmt.Sprintf("the %s raised error %d %q by itself (severity %s in its profile)", r.name, e.Code, e.Msg, sev)
+			level := "warn"
+			if e.Fail {
+				level = "error"
+				if fail == nil {
+					fail = &safety.Violation{Limit: "instrument." + strings.ReplaceAll(r.name, " ", "_"), Value: float64(e.Code), Text: text}
+				}
+			}
+			x.event(ctx, level, "%s", text)
+		}
+		if fail != nil {
+			return fail
+		}
+	}
+	return nil
 }

@@ -117,7 +117,7 @@ func (c *Checker) Check(o Observation) *Violation {
 	if o.HaveStatus {
 		switch {
 		case o.Status.Tripped:
-			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply tripped: it shut its output down by itself"}
+			return Tripped(o.Status)
 		case o.Status.OverTemp:
 			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply reports over-temperature"}
 		case o.Status.Compliance:
@@ -237,6 +237,18 @@ func (c *Checker) resistance(o Observation, didt float64, ok bool) *Violation {
 	return &Violation{Limit: "limits.max_resistance_rise", Value: rise, Max: l.MaxResistanceRise, Unit: "",
 		Text: fmt.Sprintf("winding resistance %.4g Ω is %.1f %% above %g Ω, beyond the fixture limit limits.max_resistance_rise = %g (the winding is heating)",
 			r, 100*rise, l.R0, l.MaxResistanceRise)}
+}
+
+// Tripped is the Violation of a supply whose trip has latched: it shut its
+// output down by itself and stays off until the trip is cleared; the text
+// says what clears it (the profile's trip_clear).
+func Tripped(st instr.SupplyStatus) *Violation {
+	clear := st.TripClear
+	if clear == "" {
+		clear = "remove the cause, then clear the trip at the supply before the next run"
+	}
+	return &Violation{Limit: "supply.trip", Value: math.NaN(),
+		Text: fmt.Sprintf("supply tripped (latched): it shut its output down by itself and stays off until the trip is cleared — %s", clear)}
 }
 
 // Comm turns an instrument I/O error into the Violation a run ends with:

@@ -72,3 +72,31 @@ func TestUnparsableReadingIsDesync(t *testing.T) {
 		t.Fatalf("got %v, %v", v, err)
 	}
 }
+
+func TestSeverity(t *testing.T) {
+	p := Profile{ErrorSeverity: map[string]string{"-399..-300": "warn", "-310": "fail", "-200..-100": "warn", "-150..-140": "fail"}}
+	for _, tc := range []struct {
+		code int
+		want string
+	}{
+		{-310, SeverityFail}, // exact code before a range
+		{-350, SeverityWarn},
+		{-145, SeverityFail}, // the narrower range
+		{-102, SeverityWarn},
+		{-222, SeverityFail}, // named by nothing
+		{5, SeverityFail},
+	} {
+		if got := p.Severity(tc.code); got != tc.want {
+			t.Errorf("Severity(%d) = %s, want %s", tc.code, got, tc.want)
+		}
+	}
+	bad, err := Load("sim-fieldmeter")
+	if err != nil {
+		t.Fatal(err)
+	}
+	bad.ErrorSeverity = map[string]string{"-3x": "warn", "-300": "maybe"}
+	err = Validate(bad)
+	if err == nil || !strings.Contains(err.Error(), `error_severity.-3x`) || !strings.Contains(err.Error(), `"maybe": want warn or fail`) {
+		t.Errorf("got %v", err)
+	}
+}
