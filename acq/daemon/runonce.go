@@ -15,6 +15,7 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/drivers/link"
 )
 
 // RunOptions are the inputs of `hystd run`.
@@ -57,6 +58,11 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	default:
 		return record.Run{}, fmt.Errorf("%w: %s drives %s; name one with --fixture", ErrFixtureNeeded, o.ConfigPath, fixtureNames(cfg))
 	}
+	l, err := link.Acquire("fixture", lf.Name)
+	if err != nil {
+		return record.Run{}, fmt.Errorf("fixture %s: %w", lf.Name, err)
+	}
+	defer l.Unlock()
 	rc, err := recipe.Load(o.RecipePath)
 	if err != nil {
 		return record.Run{}, err

@@ -265,3 +265,30 @@ func TestLatchedTripNamed(t *testing.T) {
 	// flowing (the injected fault); what matters is the state after.
 	zeroWithin(t, bd.bench, time.Second)
 }
+
+// TestSecondOpenerRefused: while `hystd serve` drives a fixture, `hystd run`
+// on the same fixture is refused before it touches an instrument, naming
+// the holder's PID; so is opening an instrument's port while a run holds
+// it (the port lock).
+func TestSecondOpenerRefused(t *testing.T) {
+	bd := benchFiles(t, nil)
+	bd.serve(t)
+	rp := filepath.Join(bd.dir, "loop.yaml")
+	if err := os.WriteFile(rp, []byte(shortLoop), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, err := RunOnce(context.Background(), RunOptions{ConfigPath: filepath.Join(bd.dir, "daemon.yaml"), RecipePath: rp,
+		Wiring: Wiring{Stderr: bd.logs, Signals: make(chan os.Signal)}})
+	if err == nil || !strings.Contains(err.Error(), "fixture aldermoor-ring-2 is in use by process") {
+		t.Fatalf("second process on the fixture: %v", err)
+	}
+	sup, err := profile.OpenSupply(context.Background(), profile.Spec{Port: bd.bench.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer sup.Close()
+	_, err = profile.OpenSupply(context.Background(), profile.Spec{Port: bd.bench.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
+	if err == nil || !strings.Contains(err.Error(), "is in use by process") {
+		t.Fatalf("second opener of the supply's port: %v", err)
+	}
+}

@@ -25,6 +25,7 @@ import (
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/calib/units"
+	"hystd/drivers/link"
 )
 
 // APIParts are what the HTTP API is built over.
@@ -80,6 +81,11 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	cfg.LoadedAt = time.Now()
 	log := NewLogger(cfg, w.Stderr)
+	locks, err := LockFixtures(cfg)
+	if err != nil {
+		return err
+	}
+	defer locks.Unlock()
 	st, err := store.Open(ctx, cfg.Config.Store.Path)
 	if err != nil {
 		return err
@@ -284,4 +290,32 @@ func RecoverRuns(ctx context.Context, cfg *Loaded, r record.Reader, w record.Wri
 			}
 		}
 	}
+}
+
+// Locks are the fixture locks a process holds.
+type Locks []*link.Lock
+
+// Unlock releases them all.
+func (ls Locks) Unlock() {
+	for _, l := range ls {
+		l.Unlock()
+	}
+}
+
+// LockFixtures takes the advisory lock of every fixture of cfg (file
+// hystd-fixture-NAME.lock in link.LockDir()), so that a second hystd
+// process — serve or run, root or not — is refused while this one drives
+// them, with this one's PID in the error. Each instrument port is locked
+// too, by whoever opens it (drivers/link).
+func LockFixtures(cfg *Loaded) (Locks, error) {
+	var ls Locks
+	for _, lf := range cfg.Fixtures {
+		l, err := link.Acquire("fixture", lf.Name)
+		if err != nil {
+			ls.Unlock()
+			return nil, fmt.Errorf("fixture %s: %w", lf.Name, err)
+		}
+		ls = append(ls, l)
+	}
+	return ls, nil
 }
