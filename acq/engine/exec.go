@@ -269,7 +269,7 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			Status: rd.Status, HaveStatus: true, Energised: x.energd, Overload: rd.Overload}); v != nil {
 			return v
 		}
-		if err := x.pollErrors(ctx, now); err != nil {
+		if err := x.pollErrors(ctx, now, false); err != nil {
 			return err
 		}
 		if st.Loop != nil && phase != "" {
@@ -386,7 +386,25 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	if x.smp != nil {
 		x.smp.Close() // no Read is pending: the steps have returned
 	}
-	if herr := x.halt(ctx); herr != nil {
+	if n := x.retries.Swap(0); n > 0 {
+		x.event(ctx, "warn", "%d late replies were read again within limits.comm_timeout in the step under way", n)
+	}
+	herr := x.halt(ctx)
+	// A last look at the error queues (the instruments are idle now): an
+	// error raised since the last poll is not left for the next open's
+	// *CLS to erase.
+	if x.start != (time.Time{}) {
+		pctx, cancel := bg(ctx, x.comm*4)
+		perr := x.pollErrors(pctx, x.s.Clock.Now(), true)
+		cancel()
+		var v *safety.Violation
+		if perr != nil && state == record.Finished && errors.As(perr, &v) && strings.HasPrefix(v.Limit, "instrument.") {
+			state, reason = record.Failed, v.Text
+		} else if perr != nil {
+			x.log.Warn("final error-queue poll", "err", perr)
+		}
+	}
+	if herr != nil {
 		state = record.Failed
 		x.notes = append(x.notes, fmt.Sprintf("RAMP-DOWN FAILED: %v — the winding may still carry current; bring the supply to zero by hand before touching the fixture", herr))
 	} else {
@@ -449,6 +467,15 @@ func zeroTol(fx config.Fixture) float64 { return 0.005 + 0.002*fx.Limits.MaxCurr
 // bound. It uses a context of its own derived from ctx without its
 // cancellation, so it also works after an abort.
 func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, log *slog.Logger) (float64, error) {
+	return safeHalt(ctx, in, fx, lastI, log, nil)
+}
+
+// safeHalt is SafeHalt telling note (when not nil) what went wrong on the
+// way, also when the second attempt succeeded: for the run's events.
+func safeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, log *slog.Logger, note func(string)) (float64, error) {
+	if note == nil {
+		note = func(string) {}
+	}
 	if log == nil {
 		log = slog.Default()
 	}
@@ -468,6 +495,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 	err := sup.Halt(hctx)
 	if err != nil {
 		log.Error("supply halt failed; trying again", "err", err)
+		note(fmt.Sprintf("supply halt failed, tried again: %v", err))
 		err = sup.Halt(hctx)
 	}
 	for _, r := range []interface {
@@ -478,6 +506,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 		}
 		if herr := r.Halt(hctx); herr != nil {
 			log.Warn("instrument halt failed", "err", herr)
+			note(fmt.Sprintf("instrument halt failed: %v", herr))
 		}
 	}
 	if err != nil {
@@ -497,7 +526,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 
 // halt ramps the supply to zero at its slew limit and turns it off (SafeHalt).
 func (x *exec) halt(ctx context.Context) error {
-	i, err := SafeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.log)
+	i, err := safeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.log, func(text string) { x.event(ctx, "warn", "%s", text) })
 	if !math.IsNaN(i) {
 		x.lastI = i
 	}
@@ -512,7 +541,7 @@ func (x *exec) halt(ctx context.Context) error {
 // (between settings) become events, and one its profile rates "fail" ends
 // the run (the caller's ending ramps the supply down). Called between
 // sample rounds, when no read is pending.
-func (x *exec) pollErrors(ctx context.Context, now time.Time) error {
+func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error {
 	in := x.s.Instruments
 	roles := []struct {
 		name string
@@ -531,11 +560,11 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time) error {
 			continue
 		}
 		last, seen := x.polled[r.name]
-		if !seen {
+		if !final && !seen {
 			x.polled[r.name] = now // the open drained the queue: first poll one period on
 			continue
 		}
-		if now.Sub(last) < period {
+		if !final && now.Sub(last) < period {
 			continue
 		}
 		x.polled[r.name] = now
