@@ -401,7 +401,7 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 		if perr != nil && state == record.Finished && errors.As(perr, &v) && strings.HasPrefix(v.Limit, "instrument.") {
 			state, reason = record.Failed, v.Text
 		} else if perr != nil {
-			x.log.Warn("final error-queue poll", "err", perr)
+			x.event(ctx, "warn", "last error-queue poll after the ramp-down: %v", perr)
 		}
 	}
 	if herr != nil {

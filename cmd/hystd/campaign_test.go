@@ -110,6 +110,11 @@ type campaignFigures struct {
 	Elapsed          string         `json:"elapsed"`
 }
 
+type injection struct {
+	kind string
+	at   time.Time
+}
+
 type campaign struct {
 	t      *testing.T
 	rng    *rand.Rand
@@ -404,6 +409,8 @@ func (c *campaign) run(plan campaignPlan) {
 		start := campaignClock.Now()
 		killed := false
 		between := 0
+		var endInj map[string]int // faults fired when the ending was first seen
+		var immediate []injection // error, hangup, trip: fired when injected
 		state := func() record.State {
 			r, _, _, err := c.stored(id)
 			if err != nil {
@@ -419,11 +426,18 @@ func (c *campaign) run(plan campaignPlan) {
 			if ended(state()) {
 				// Faults go on between runs: they fire at the next
 				// open, halt or start-up, which must stay safe too.
+				if endInj == nil {
+					endInj = c.bench.Injected()
+				}
 				between++
 			}
 			f := c.randomFault(k*100 + i)
+			at := campaignClock.Now()
 			if err := c.bench.Inject(f); err != nil {
 				t.Fatalf("inject %+v: %v", f, err)
+			}
+			if f.Kind == sim.FaultError || f.Kind == sim.FaultHangup || f.Kind == sim.FaultTrip {
+				immediate = append(immediate, injection{f.Kind, at})
 			}
 		}
 		if killAt >= 0 {
@@ -438,14 +452,15 @@ func (c *campaign) run(plan campaignPlan) {
 		var r record.Run
 		var evs []record.Event
 		var loops []record.Loop
-		var endInj map[string]int // faults fired when the ending was first seen
 		deadline := campaignClock.Now().Add(90 * time.Second)
 		for {
 			var err error
 			inj := c.bench.Injected()
 			r, evs, loops, err = c.stored(id)
 			if err == nil && ended(r.State) {
-				endInj = inj
+				if endInj == nil {
+					endInj = inj
+				}
 				break
 			}
 			if campaignClock.Now().After(deadline) {
@@ -455,8 +470,21 @@ func (c *campaign) run(plan campaignPlan) {
 		}
 		c.assertSafe(fmt.Sprintf("after run %d (%s %s: %s)", k, id, r.State, r.Reason), haltTime)
 		after := c.bench.Injected()
-		if between == 0 {
-			endInj = after
+		// Faults that act when injected count for the run only when
+		// injected before its ending (less the time the ending takes to
+		// be stored and seen); reply faults count when they fired before
+		// the ending was seen.
+		inRun := map[string]int{}
+		for kind := range after {
+			inRun[kind] = endInj[kind] - before[kind]
+		}
+		for _, kind := range []string{sim.FaultError, sim.FaultHangup, sim.FaultTrip} {
+			inRun[kind] = 0
+		}
+		for _, in := range immediate {
+			if in.at.Before(r.Ended.Add(-200 * time.Millisecond)) {
+				inRun[in.kind]++
+			}
 		}
 		c.fig.States[string(r.State)]++
 		if killed && (r.State != record.Failed || !strings.Contains(r.Reason, "interrupted")) {
@@ -490,11 +518,8 @@ func (c *campaign) run(plan campaignPlan) {
 		for kind, n := range after {
 			c.fig.FaultsByKind[kind] += n - before[kind]
 			c.fig.FaultsTotal += n - before[kind]
-			c.fig.FaultsBetween += n - endInj[kind]
-			// Fired before the ending was seen (an upper bound on the run's
-			// own: a fault may fire during the ramp-down, after the last
-			// sample, and leave no trace — tallied with the run all the same).
-			d := endInj[kind] - before[kind]
+			d := inRun[kind]
+			c.fig.FaultsBetween += n - before[kind] - d
 			if d <= 0 {
 				continue
 			}
