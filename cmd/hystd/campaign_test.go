@@ -389,7 +389,7 @@ func (c *campaign) run(plan campaignPlan) {
 	c.start("first start")
 	c.fig.Restarts = 0
 	loopsSeen := map[string]bool{}
-	for k := 0; k < plan.runs && !t.Failed(); k++ {
+	for k := 0; k < plan.runs; k++ { // on after a failure: the figures count every run
 		if c.bench.Truth().Tripped {
 			c.clearTrip()
 		}
