@@ -559,12 +559,10 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 		if period <= 0 {
 			continue
 		}
+		// The first poll comes with the first sample: it returns what the
+		// open found in the queue (raised while nobody listened).
 		last, seen := x.polled[r.name]
-		if !final && !seen {
-			x.polled[r.name] = now // the open drained the queue: first poll one period on
-			continue
-		}
-		if !final && now.Sub(last) < period {
+		if !final && seen && now.Sub(last) < period {
 			continue
 		}
 		x.polled[r.name] = now

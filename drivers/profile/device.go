@@ -118,7 +118,14 @@ type Device struct {
 	// unverified is set when a reconnect succeeded but identification or
 	// init did not: the next operation repeats them before anything else.
 	unverified bool
+	// pending are error-queue entries found when the port was opened, for
+	// the next PollErrors.
+	pending []instr.InstrumentError
 }
+
+// identifyTries is how often start asks *IDN? before it concludes that the
+// instrument answering is not the expected one.
+const identifyTries = 3
 
 func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, error) {
 	if err := Validate(p); err != nil {
@@ -168,13 +175,47 @@ func (d *Device) start(ctx context.Context) error {
 	} else if n > 0 {
 		d.o.Log.Warn("stale input discarded before identification", "profile", d.p.Name, "bytes", n)
 	}
-	_, skipped, err := d.c.QueryMatch(ctx, "*IDN?", func(l string) bool { return strings.Contains(l, d.ident) })
+	// A reply spoiled on the line (a flipped byte) is not another
+	// instrument: ask again before concluding so.
+	var skipped []string
+	var err error
+	for try := 0; try < identifyTries; try++ {
+		if try > 0 { // the *IDN? itself is the sync: drain and ask again
+			d.c.Forget()
+			if _, err := d.c.Drain(ctx); err != nil {
+				return &OpError{Profile: d.p.Name, Op: "identify", Command: "(flush input)", Err: err}
+			}
+		}
+		var sk []string
+		_, sk, err = d.c.QueryMatch(ctx, "*IDN?", func(l string) bool { return strings.Contains(l, d.ident) })
+		skipped = append(skipped, sk...)
+		if err == nil || ctx.Err() != nil || !errors.Is(err, link.ErrTimeout) || len(sk) == 0 {
+			break // identified, or silent: asking again would not help
+		}
+	}
 	if err != nil {
 		if len(skipped) > 0 {
 			return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?",
 				Err: fmt.Errorf("%w: *IDN? replied %q, expected it to contain %q", ErrIdentity, skipped[len(skipped)-1], d.ident)}
 		}
 		return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?", Err: err}
+	}
+	// Errors raised while nobody listened (between runs, or before a
+	// reconnect) are kept for the next PollErrors before the init sequence
+	// (often *CLS) erases them.
+	if d.p.ErrorQuery != "" {
+		var ie *scpi.InstrumentError
+		switch err := d.c.DrainErrors(ctx, "(found at open)"); {
+		case errors.As(err, &ie):
+			for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
+				if e.Code != 0 {
+					d.pending = append(d.pending, instr.InstrumentError{Code: e.Code, Msg: e.Msg + " (in the queue when the port was opened)", Fail: d.p.Severity(e.Code) == SeverityFail})
+				}
+			}
+			d.o.Log.Warn("errors found in the instrument's queue when it was opened", "profile", d.p.Name, "err", ie)
+		case err != nil:
+			return &OpError{Profile: d.p.Name, Op: "identify", Command: d.p.ErrorQuery, Err: err}
+		}
 	}
 	for _, cmd := range d.p.Init {
 		if err := d.c.Set(ctx, cmd); err != nil {
@@ -550,15 +591,17 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 	if err := d.ready(ctx); err != nil {
 		return nil, err
 	}
+	out := d.pending
+	d.pending = nil
 	err := d.c.DrainErrors(ctx, "(error poll)")
 	if err == nil {
-		return nil, nil
+		return out, nil
 	}
 	var ie *scpi.InstrumentError
 	if !errors.As(err, &ie) {
+		d.pending = out
 		return nil, d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
 	}
-	var out []instr.InstrumentError
 	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
 		if e.Code == 0 {
 			continue

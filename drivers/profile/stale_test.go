@@ -29,9 +29,9 @@ func TestStaleReplyAtStartIsDiscarded(t *testing.T) {
 		t.Fatal(err)
 	}
 	st := simSupply.startup
-	script := scriptOf(t, simSupply,
-		ex{Send: "*IDN?", Raw: []byte("7.000000E-01\n0,\"No error\"\n" + st[0].Reply + "\n")},
-		st[1], st[2])
+	script := scriptOf(t, simSupply, append([]ex{
+		{Send: "*IDN?", Raw: []byte("7.000000E-01\n0,\"No error\"\n" + st[0].Reply + "\n")}},
+		st[1:]...)...)
 	s, err := NewSupply(context.Background(), p, script, Options{Sleep: noSleep, Log: discard})
 	if err != nil {
 		t.Fatalf("stale replies at start made identification fail: %v", err)
@@ -47,7 +47,8 @@ func TestWrongIdentityNamesTheReply(t *testing.T) {
 		t.Fatal(err)
 	}
 	p.SyncQuery, p.SyncReply = "", "" // defaults
-	script := scriptOf(t, simSupply, ex{Send: "*IDN?", Reply: "OTHER-MAKER,BOX,1,1"})
+	other := ex{Send: "*IDN?", Reply: "OTHER-MAKER,BOX,1,1"}
+	script := scriptOf(t, simSupply, other, other, other) // asked three times before concluding
 	_, err = NewSupply(context.Background(), p, script, Options{Sleep: noSleep, Log: discard})
 	if !errors.Is(err, ErrIdentity) || !strings.Contains(err.Error(), "OTHER-MAKER,BOX,1,1") {
 		t.Fatalf("got %v", err)
@@ -98,5 +99,41 @@ func TestSeverity(t *testing.T) {
 	err = Validate(bad)
 	if err == nil || !strings.Contains(err.Error(), `error_severity.-3x`) || !strings.Contains(err.Error(), `"maybe": want warn or fail`) {
 		t.Errorf("got %v", err)
+	}
+}
+
+// A garbled identity (one flipped byte) is asked again, not taken for
+// another instrument.
+func TestGarbledIdentityAskedAgain(t *testing.T) {
+	p, err := Load("sim-supply")
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := simSupply.startup
+	script := scriptOf(t, simSupply, append([]ex{{Send: "*IDN?", Reply: "H\x19STD-SIM,BIPOLAR-SUPPLY,0,1"}}, st...)...)
+	s, err := NewSupply(context.Background(), p, script, Options{Sleep: noSleep, Log: discard})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+}
+
+// An error the instrument raised before the port was opened is not erased
+// by the init sequence's *CLS: the first PollErrors returns it.
+func TestErrorAtOpenKeptForPoll(t *testing.T) {
+	p, err := Load("sim-fieldmeter")
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := simFieldMeter.startup
+	script := scriptOf(t, simFieldMeter, st[0], ex{Send: "SYST:ERR?", Reply: `-310,"System error"`}, st[1], st[2], st[3],
+		simFieldMeter.noErr)
+	f, err := NewFieldMeter(context.Background(), p, script, Options{Sleep: noSleep, Log: discard})
+	if err != nil {
+		t.Fatal(err)
+	}
+	errs, err := f.PollErrors(context.Background())
+	if err != nil || len(errs) != 1 || errs[0].Code != -310 || !errs[0].Fail || !strings.Contains(errs[0].Msg, "when the port was opened") {
+		t.Fatalf("got %+v, %v", errs, err)
 	}
 }

@@ -250,6 +250,8 @@ func TestSupplyHaltAfterIdentityLoss(t *testing.T) {
 		ex{Send: "MEAS:CURR?", Err: scpitest.Hangup},
 		scpitest.Reconnect(),
 		ex{Send: "*IDN?", Reply: "SOMEONE-ELSE,X"},
+		ex{Send: "*IDN?", Reply: "SOMEONE-ELSE,X"},
+		ex{Send: "*IDN?", Reply: "SOMEONE-ELSE,X"},
 	)
 	s := r.supply(t)
 	_, err := s.ReadCurrent(context.Background())
@@ -285,7 +287,8 @@ func TestReconnectReportsAndRecovers(t *testing.T) {
 
 func TestIdentityChecked(t *testing.T) {
 	p, _ := Load("sim-supply")
-	s := scpitest.New(t, "\n", "\n", ex{Send: "*IDN?", Reply: "HYSTD-SIM,FLUX-INTEGRATOR,0,1"})
+	wrong := ex{Send: "*IDN?", Reply: "HYSTD-SIM,FLUX-INTEGRATOR,0,1"}
+	s := scpitest.New(t, "\n", "\n", wrong, wrong, wrong)
 	_, err := NewSupply(context.Background(), p, s, Options{})
 	if !errors.Is(err, ErrIdentity) {
 		t.Fatalf("got %v, want ErrIdentity", err)
