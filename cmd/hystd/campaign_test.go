@@ -482,7 +482,9 @@ func (c *campaign) run(plan campaignPlan) {
 			inRun[kind] = 0
 		}
 		for _, in := range immediate {
-			if in.at.Before(r.Ended.Add(-200 * time.Millisecond)) {
+			// A run that never started (its instruments could not be
+			// opened) had nothing to observe them with: between runs.
+			if !r.Started.IsZero() && in.at.Before(r.Ended.Add(-200*time.Millisecond)) {
 				inRun[in.kind]++
 			}
 		}
