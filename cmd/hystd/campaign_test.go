@@ -41,8 +41,8 @@ import (
 //   - the daemon never panicked (its stderr).
 //
 // Short by default (a few runs, for CI); HYSTD_CAMPAIGN=long runs the long
-// form (≥ 100 runs, ≥ 1000 faults, ≥ 50 kills; about half an hour on two
-// cores). HYSTD_CAMPAIGN_SEED fixes the random draws. The campaign runs in
+// form (170 runs, up to 22 faults each, half of them killed early; ≥ 100
+// runs, ≥ 1000 faults, ≥ 50 kills; about 20 minutes on two cores). HYSTD_CAMPAIGN_SEED fixes the random draws. The campaign runs in
 // real time with short recipes; campaignClock is where a simulated clock
 // goes once the bench and the daemon share one.
 //
@@ -55,7 +55,7 @@ func TestCampaignFaultsAndKills(t *testing.T) {
 	long := os.Getenv("HYSTD_CAMPAIGN") == "long"
 	plan := campaignPlan{runs: 5, maxFaults: 4, killP: 0.4}
 	if long {
-		plan = campaignPlan{runs: 130, maxFaults: 14, killP: 0.45}
+		plan = campaignPlan{runs: 170, maxFaults: 22, killP: 0.5}
 	}
 	seed := uint64(time.Now().UnixNano())
 	if s := os.Getenv("HYSTD_CAMPAIGN_SEED"); s != "" {
@@ -399,7 +399,8 @@ func (c *campaign) run(plan campaignPlan) {
 		nf := 1 + c.rng.IntN(plan.maxFaults)
 		killAt := time.Duration(-1)
 		if c.rng.Float64() < plan.killP {
-			killAt = time.Duration(500+c.rng.IntN(7000)) * time.Millisecond
+			// Early, before most faults would have ended the run.
+			killAt = time.Duration(400+c.rng.IntN(2600)) * time.Millisecond
 		}
 		offsets := make([]time.Duration, nf)
 		for i := range offsets {
