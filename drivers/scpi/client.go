@@ -460,7 +460,7 @@ func (c *Client) drain(ctx context.Context) (int, error) {
 			if ctx.Err() != nil {
 				if errors.Is(ctx.Err(), context.DeadlineExceeded) && !errors.Is(err, context.Canceled) {
 					return discarded, &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout,
-						Cause: fmt.Errorf("the line never fell quiet for %v within %v", c.o.Quiet, c.o.SyncTimeout)}
+						Cause: fmt.Errorf("the instrument keeps sending: the line never fell quiet for %v within %v (%d bytes discarded)", c.o.Quiet, c.o.SyncTimeout, discarded)}
 				}
 				return discarded, ctx.Err()
 			}
