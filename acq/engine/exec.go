@@ -566,8 +566,10 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 			continue
 		}
 		x.polled[r.name] = now
-		cctx, cancel := context.WithTimeout(ctx, x.comm)
-		errs, err := p.PollErrors(cctx)
+		// A lost or spoiled reply of the error query is asked again (the
+		// driver resynchronises first), like a reading.
+		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
+		errs, err := sampler.Retry(cctx, p.PollErrors)
 		cancel()
 		if err != nil {
 			return x.stopErr(ctx, safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err)))
