@@ -404,6 +404,15 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			x.event(ctx, "warn", "last error-queue poll after the ramp-down: %v", perr)
 		}
 	}
+	// A trip while the run was failing for another reason is named too.
+	if x.start != (time.Time{}) && !strings.Contains(reason, "tripped") {
+		sctx, cancel := bg(ctx, x.comm)
+		if st, err := x.s.Instruments.Supply.Status(sctx); err == nil && st.Tripped {
+			x.notes = append(x.notes, safety.Tripped(st).Text)
+			state = record.Failed
+		}
+		cancel()
+	}
 	if herr != nil {
 		state = record.Failed
 		x.notes = append(x.notes, fmt.Sprintf("RAMP-DOWN FAILED: %v — the winding may still carry current; bring the supply to zero by hand before touching the fixture", herr))
