@@ -602,6 +602,11 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 		if fail != nil {
 			return fail
 		}
+		if !final {
+			// One instrument per sample round: the poll's round trip
+			// delays the next setpoint, which a closed field loop feels.
+			return nil
+		}
 	}
 	return nil
 }
