@@ -29,8 +29,8 @@ import (
 // real SQLite store, driven as `hystd serve` is.
 type benchDaemon struct {
 	bench  *sim.Bench
-	clock  *clock.Sim // the bench's, the drivers' and the engine's time
-	dir    string     // config folder
+	clock  clock.Clock // the bench's, the drivers' and the engine's time (a *clock.Sim but in benchFilesReal)
+	dir    string      // config folder
 	watch  string
 	db     string
 	runner Runner
@@ -73,13 +73,26 @@ func startBench(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *b
 // config for it, without starting a daemon.
 func benchFiles(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
+	return benchFilesOn(t, clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC)), before, faults...)
+}
+
+// benchFilesReal is benchFiles on the machine's clock, for the tests whose
+// scenario is a reply that comes late in real time (a stale line left by a
+// killed process, a delayed reply), which simulated time cannot pose: in it
+// a held reply always comes after the client's next sleep.
+func benchFilesReal(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
+	t.Helper()
+	return benchFilesOn(t, clock.Real{}, before, faults...)
+}
+
+func benchFilesOn(t *testing.T, clk clock.Clock, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
+	t.Helper()
 	cfg, err := sim.DefaultBench()
 	if err != nil {
 		t.Fatal(err)
 	}
 	cfg.Faults = append(cfg.Faults, faults...)
 	ctx, cancel := context.WithCancel(context.Background())
-	clk := clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC))
 	b, err := sim.Start(ctx, cfg, sim.WithClock(clk))
 	if err != nil {
 		t.Fatal(err)
@@ -386,8 +399,8 @@ func TestStartupHaltsEnergisedSupply(t *testing.T) {
 		return math.Abs(float64(tr.I)) < 1e-3 && !tr.Output
 	})
 	bd.assertZero(t)
-	if !strings.Contains(bd.logs.String(), "supply found with its output on at start-up") {
-		t.Errorf("no log line says the supply was found on:\n%s", bd.logs)
+	if logs := bd.logs.String(); !strings.Contains(logs, "halting supply: ramping to zero") || !strings.Contains(logs, `"supply at zero, output off (read back`) {
+		t.Errorf("no log line says the supply was found on and halted:\n%s", logs)
 	}
 }
 

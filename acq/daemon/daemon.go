@@ -54,9 +54,18 @@ type Opened struct {
 // Opener opens a fixture's instruments for one run with the specimen mounted.
 type Opener func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error)
 
+// Halter brings a fixture's supply to zero current with its output off,
+// opening the supply alone, and returns the confirmation as read back
+// ("supply at zero, output off (read back …)").
+type Halter func(ctx context.Context, fx config.Fixture) (string, error)
+
 // Deps are a Daemon's collaborators.
 type Deps struct {
-	Open   Opener        // required
+	Open Opener // required
+	// Halt, when set, halts a fixture's supply on its own: at start-up,
+	// after a run whose instruments could not be opened, and when the
+	// daemon stops. nil: start-up halts through Open (as before).
+	Halt   Halter
 	Writer record.Writer // required
 	// Area returns the specimen's cross-section for the live B estimate; nil: none.
 	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre
@@ -153,10 +162,17 @@ func (d *Daemon) Start(ctx context.Context) {
 	}
 }
 
-// safeAtStart opens a fixture's instruments once and halts a supply found
-// with its output on, before anything else happens on that fixture.
+// safeAtStart brings a fixture's supply to zero before anything else
+// happens on that fixture: with Deps.Halt, the supply alone, always (a
+// previous process may have been killed with current flowing, and no other
+// instrument, missing or not, can prevent it); without, through Open, when
+// its output is found on.
 func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 	log := d.log.With("fixture", lf.Name)
+	if d.deps.Halt != nil {
+		d.haltFixture(ctx, lf.Fixture, "start-up")
+		return
+	}
 	op, err := d.deps.Open(ctx, lf.Fixture, lf.Specimen)
 	if err != nil {
 		log.Error("instruments not reachable at start-up; runs will retry", "err", err)
@@ -178,6 +194,25 @@ func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 			log.Error("supply halt at start-up failed: check the supply by hand before touching the fixture", "err", herr)
 		}
 	}
+}
+
+// haltFixture halts a fixture's supply through Deps.Halt and logs the
+// read-back confirmation; it returns the confirmation or the error text.
+func (d *Daemon) haltFixture(ctx context.Context, fx config.Fixture, when string) string {
+	if d.deps.Halt == nil {
+		return ""
+	}
+	log := d.log.With("fixture", fx.Name, "when", when)
+	text, err := d.deps.Halt(context.WithoutCancel(ctx), fx)
+	if err != nil {
+		if text == "" {
+			text = "SUPPLY HALT FAILED: " + err.Error() + " — bring the supply to zero by hand before touching the fixture"
+		}
+		log.Error(text, "err", err)
+		return text
+	}
+	log.Info(text)
+	return text
 }
 
 // startFixture starts (or restarts the side tasks of) one fixture; d.mu held.
@@ -437,12 +472,19 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 		op, oerr = d.deps.Open(ctx, j.fx, j.sp)
 	}
 	switch {
-	case oerr != nil && ctx.Err() != nil:
-		run = j.plan.End(ctx, record.Aborted, causeText(ctx))
-		err = &engine.Stop{State: record.Aborted, Reason: run.Reason}
 	case oerr != nil:
-		run = j.plan.End(ctx, record.Failed, "instruments could not be opened: "+oerr.Error())
-		err = &engine.Stop{State: record.Failed, Reason: run.Reason}
+		// The supply may be on (a previous process, a half-done open):
+		// halt it alone, and record how that went with the run.
+		halted := d.haltFixture(ctx, j.fx, "open failed")
+		st, reason := record.Failed, "instruments could not be opened: "+oerr.Error()
+		if ctx.Err() != nil {
+			st, reason = record.Aborted, causeText(ctx)
+		}
+		if halted != "" {
+			j.plan.Event(ctx, haltLevel(halted), halted)
+		}
+		run = j.plan.End(ctx, st, reason)
+		err = &engine.Stop{State: st, Reason: run.Reason}
 	default:
 		if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
 			run = j.plan.End(ctx, record.Failed, serr.Error())
@@ -474,6 +516,20 @@ func (d *Daemon) Stop(reason string) {
 	}
 	d.cancel(engine.Abort("daemon stopping: " + reason))
 	d.wg.Wait()
+	// Every ending halts: also a fixture that was idle (its supply may have
+	// been switched on by hand, or left on by a process killed before this
+	// one started).
+	for _, lf := range d.cfg.Load().Fixtures {
+		d.haltFixture(context.Background(), lf.Fixture, "daemon stop")
+	}
+}
+
+// haltLevel is the event level of a halt confirmation.
+func haltLevel(text string) string {
+	if strings.HasPrefix(text, "supply at zero") {
+		return "info"
+	}
+	return "error"
 }
 
 // FixtureStatus is one fixture's state for /healthz.

@@ -18,6 +18,7 @@ import (
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/drivers/clock"
+	"hystd/drivers/link"
 )
 
 // RunOptions are the inputs of `hystd run`.
@@ -67,6 +68,11 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	default:
 		return record.Run{}, fmt.Errorf("%w: %s drives %s; name one with --fixture", ErrFixtureNeeded, o.ConfigPath, fixtureNames(cfg))
 	}
+	l, err := link.Acquire("fixture", lf.Name)
+	if err != nil {
+		return record.Run{}, fmt.Errorf("fixture %s: %w", lf.Name, err)
+	}
+	defer l.Unlock()
 	rc, err := recipe.Load(o.RecipePath)
 	if err != nil {
 		return record.Run{}, err
@@ -102,6 +108,9 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}
 	if w.Open == nil {
 		w.Open = FixtureOpenerClock(log, w.Clock)
+		if w.Halt == nil {
+			w.Halt = FixtureHalter(log, w.Clock)
+		}
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
@@ -131,6 +140,16 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}()
 	op, err := w.Open(rctx, lf.Fixture, lf.Specimen)
 	if err != nil {
+		// The supply may have been left on (a killed process): halt it
+		// alone before reporting.
+		if w.Halt != nil {
+			text, herr := w.Halt(context.WithoutCancel(ctx), lf.Fixture)
+			if herr != nil && text == "" {
+				text = "SUPPLY HALT FAILED: " + herr.Error()
+			}
+			fmt.Fprintln(o.Out, text)
+			return record.Run{}, fmt.Errorf("%w; %s", err, text)
+		}
 		return record.Run{}, err
 	}
 	defer op.Close()

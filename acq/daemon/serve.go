@@ -29,6 +29,7 @@ import (
 	"hystd/buildinfo"
 	"hystd/calib/units"
 	"hystd/drivers/clock"
+	"hystd/drivers/link"
 )
 
 // APIParts are what the HTTP API is built over.
@@ -49,6 +50,7 @@ type APIFactory func(APIParts) (http.Handler, error)
 // Wiring is what Serve needs from outside this package.
 type Wiring struct {
 	Open     Opener                                                        // nil: FixtureOpener
+	Halt     Halter                                                        // nil: FixtureHalter when Open is nil too
 	API      APIFactory                                                    // nil: only /healthz and /metrics
 	Area     func(fx config.Fixture, sp config.Specimen) units.SquareMetre // nil: SpecimenArea
 	Software string
@@ -93,6 +95,11 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	for _, name := range UnknownEnv(os.Environ(), cfg.Config) {
 		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
 	}
+	locks, err := LockFixtures(cfg)
+	if err != nil {
+		return err
+	}
+	defer locks.Unlock()
 	st, err := store.Open(ctx, cfg.Config.Store.Path)
 	if err != nil {
 		return err
@@ -106,12 +113,15 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	if w.Open == nil {
 		w.Open = FixtureOpenerClock(log, w.Clock)
+		if w.Halt == nil {
+			w.Halt = FixtureHalter(log, w.Clock)
+		}
 	}
 	if w.Area == nil {
 		w.Area = SpecimenArea
 	}
 	hub := live.NewHub(0)
-	d, err := New(cfg, Deps{Open: w.Open, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area, Clock: w.Clock})
+	d, err := New(cfg, Deps{Open: w.Open, Halt: w.Halt, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area, Clock: w.Clock})
 	if err != nil {
 		return err
 	}
@@ -301,4 +311,32 @@ func RecoverRuns(ctx context.Context, cfg *Loaded, r record.Reader, w record.Wri
 			}
 		}
 	}
+}
+
+// Locks are the fixture locks a process holds.
+type Locks []*link.Lock
+
+// Unlock releases them all.
+func (ls Locks) Unlock() {
+	for _, l := range ls {
+		l.Unlock()
+	}
+}
+
+// LockFixtures takes the advisory lock of every fixture of cfg (file
+// hystd-fixture-NAME.lock in link.LockDir()), so that a second hystd
+// process — serve or run, root or not — is refused while this one drives
+// them, with this one's PID in the error. Each instrument port is locked
+// too, by whoever opens it (drivers/link).
+func LockFixtures(cfg *Loaded) (Locks, error) {
+	var ls Locks
+	for _, lf := range cfg.Fixtures {
+		l, err := link.Acquire("fixture", lf.Name)
+		if err != nil {
+			ls.Unlock()
+			return nil, fmt.Errorf("fixture %s: %w", lf.Name, err)
+		}
+		ls = append(ls, l)
+	}
+	return ls, nil
 }

@@ -45,3 +45,11 @@ func SpecimenArea(fx config.Fixture, sp config.Specimen) units.SquareMetre {
 	}
 	return s.Area
 }
+
+// FixtureHalter halts a fixture's supply alone through its profile
+// (fixture.HaltSupply).
+func FixtureHalter(log *slog.Logger, clk clock.Clock) Halter {
+	return func(ctx context.Context, fx config.Fixture) (string, error) {
+		return fixture.HaltSupply(ctx, fx, log, clk)
+	}
+}

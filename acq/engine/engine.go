@@ -259,6 +259,17 @@ func (p *Plan) End(ctx context.Context, st record.State, reason string) record.R
 	return p.run
 }
 
+// Event stores an event with a plan that has not been executed (e.g. how
+// its fixture's supply was halted after its instruments could not be
+// opened).
+func (p *Plan) Event(ctx context.Context, level, text string) {
+	wctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), WriteTimeout)
+	defer cancel()
+	if err := p.s.Writer.AddEvent(wctx, record.Event{RunID: p.run.ID, At: p.s.Clock.Now(), Level: level, Text: text}); err != nil {
+		p.s.Log.Error("event not stored", "run", p.run.ID, "err", err)
+	}
+}
+
 func needsGeometry(s Setup) bool {
 	return s.Fixture.HFrom == "current"
 }

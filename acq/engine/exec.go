@@ -19,6 +19,7 @@ import (
 	"hystd/acq/sampler"
 	"hystd/calib/units"
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 )
 
 // Timeouts of the engine's own bookkeeping, independent of the run's context.
@@ -55,10 +56,11 @@ type exec struct {
 	// lastLevel is the previous closed-loop setpoint, A/m.
 	lastLevel float64
 	haveLevel bool
-	failed    []record.Loop    // loops the writer refused
-	retries   atomic.Int64     // late replies read again in the current step
-	smp       *sampler.Sampler // the run's concurrent reader
-	notes     []string         // added to the final reason
+	failed    []record.Loop        // loops the writer refused
+	retries   atomic.Int64         // late replies read again in the current step
+	smp       *sampler.Sampler     // the run's concurrent reader
+	notes     []string             // added to the final reason
+	polled    map[string]time.Time // last error-queue poll, by role
 }
 
 func newExec(p *Plan) *exec {
@@ -126,6 +128,10 @@ func (x *exec) steps(ctx context.Context) error {
 	cancel()
 	if err != nil {
 		return safety.Comm("supply", fmt.Errorf("read status: %w", err))
+	}
+	if st.Tripped {
+		// Turning the output on would be refused: say why, and what clears it.
+		return safety.Tripped(st)
 	}
 	if st.OutputOn {
 		x.event(ctx, "warn", "supply found with its output on: ramping it to zero before the run starts")
@@ -269,6 +275,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			Status: rd.Status, HaveStatus: true, Energised: x.energd, Overload: rd.Overload}); v != nil {
 			return v
 		}
+		if err := x.pollErrors(ctx, now, false); err != nil {
+			return err
+		}
 		if st.Loop != nil && phase != "" {
 			raw = append(raw, s)
 			x.liveSample(s, x.loopN+1)
@@ -391,9 +400,38 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	if x.smp != nil {
 		x.smp.Close() // no Read is pending: the steps have returned
 	}
-	if herr := x.halt(ctx); herr != nil {
+	if n := x.retries.Swap(0); n > 0 {
+		x.event(ctx, "warn", "%d late replies were read again within limits.comm_timeout in the step under way", n)
+	}
+	herr := x.halt(ctx)
+	// A last look at the error queues (the instruments are idle now): an
+	// error raised since the last poll is not left for the next open's
+	// *CLS to erase.
+	if x.start != (time.Time{}) {
+		pctx, cancel := bg(ctx, x.comm*4)
+		perr := x.pollErrors(pctx, x.s.Clock.Now(), true)
+		cancel()
+		var v *safety.Violation
+		if perr != nil && state == record.Finished && errors.As(perr, &v) && strings.HasPrefix(v.Limit, "instrument.") {
+			state, reason = record.Failed, v.Text
+		} else if perr != nil {
+			x.event(ctx, "warn", "last error-queue poll after the ramp-down: %v", perr)
+		}
+	}
+	// A trip while the run was failing for another reason is named too.
+	if x.start != (time.Time{}) && !strings.Contains(reason, "tripped") {
+		sctx, cancel := bg(ctx, x.comm)
+		if st, err := x.s.Instruments.Supply.Status(sctx); err == nil && st.Tripped {
+			x.notes = append(x.notes, safety.Tripped(st).Text)
+			state = record.Failed
+		}
+		cancel()
+	}
+	if herr != nil {
 		state = record.Failed
 		x.notes = append(x.notes, fmt.Sprintf("RAMP-DOWN FAILED: %v — the winding may still carry current; bring the supply to zero by hand before touching the fixture", herr))
+	} else {
+		x.event(ctx, "info", "supply at zero, output off (read back %.4g A)", x.lastI)
 	}
 	for _, l := range x.failed {
 		wctx, cancel := bg(ctx, WriteTimeout)
@@ -459,6 +497,15 @@ func zeroTol(fx config.Fixture) float64 { return 0.005 + 0.002*fx.Limits.MaxCurr
 // bound. It uses a context of its own derived from ctx without its
 // cancellation, so it also works after an abort.
 func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, log *slog.Logger) (float64, error) {
+	return safeHalt(ctx, in, fx, lastI, log, nil)
+}
+
+// safeHalt is SafeHalt telling note (when not nil) what went wrong on the
+// way, also when the second attempt succeeded: for the run's events.
+func safeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI float64, log *slog.Logger, note func(string)) (float64, error) {
+	if note == nil {
+		note = func(string) {}
+	}
 	if log == nil {
 		log = slog.Default()
 	}
@@ -478,6 +525,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 	err := sup.Halt(hctx)
 	if err != nil {
 		log.Error("supply halt failed; trying again", "err", err)
+		note(fmt.Sprintf("supply halt failed, tried again: %v", err))
 		err = sup.Halt(hctx)
 	}
 	for _, r := range []interface {
@@ -488,6 +536,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 		}
 		if herr := r.Halt(hctx); herr != nil {
 			log.Warn("instrument halt failed", "err", herr)
+			note(fmt.Sprintf("instrument halt failed: %v", herr))
 		}
 	}
 	if err != nil {
@@ -507,7 +556,7 @@ func SafeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 
 // halt ramps the supply to zero at its slew limit and turns it off (SafeHalt).
 func (x *exec) halt(ctx context.Context) error {
-	i, err := SafeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.log)
+	i, err := safeHalt(ctx, x.s.Instruments, x.s.Fixture, x.lastI, x.log, func(text string) { x.event(ctx, "warn", "%s", text) })
 	if !math.IsNaN(i) {
 		x.lastI = i
 	}
@@ -536,4 +585,70 @@ func (x *exec) identities(ctx context.Context) {
 			}
 		}
 	}
+}
+
+// pollErrors reads, every instrument's error_poll period, the error queue
+// of each instrument that has one: errors an instrument raises by itself
+// (between settings) become events, and one its profile rates "fail" ends
+// the run (the caller's ending ramps the supply down). Called between
+// sample rounds, when no read is pending.
+func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error {
+	in := x.s.Instruments
+	roles := []struct {
+		name string
+		r    any
+	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field meter", in.FieldMeter}, {"thermometer", in.Thermometer}}
+	if x.polled == nil {
+		x.polled = map[string]time.Time{}
+	}
+	for _, r := range roles {
+		p, ok := r.r.(instr.ErrorPoller)
+		if !ok || r.r == nil {
+			continue
+		}
+		period := p.ErrorPollPeriod()
+		if period <= 0 {
+			continue
+		}
+		// The first poll comes with the first sample: it returns what the
+		// open found in the queue (raised while nobody listened).
+		last, seen := x.polled[r.name]
+		if !final && seen && now.Sub(last) < period {
+			continue
+		}
+		x.polled[r.name] = now
+		// A lost or spoiled reply of the error query is asked again (the
+		// driver resynchronises first), like a reading.
+		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
+		errs, err := sampler.Retry(cctx, p.PollErrors)
+		cancel()
+		if err != nil {
+			return x.stopErr(ctx, safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err)))
+		}
+		var fail *safety.Violation
+		for _, e := range errs {
+			sev := "warn"
+			if e.Fail {
+				sev = "fail"
+			}
+			text := fmt.Sprintf("the %s raised error %d %q by itself (severity %s in its profile)", r.name, e.Code, e.Msg, sev)
+			level := "warn"
+			if e.Fail {
+				level = "error"
+				if fail == nil {
+					fail = &safety.Violation{Limit: "instrument." + strings.ReplaceAll(r.name, " ", "_"), Value: float64(e.Code), Text: text}
+				}
+			}
+			x.event(ctx, level, "%s", text)
+		}
+		if fail != nil {
+			return fail
+		}
+		if !final {
+			// One instrument per sample round: the poll's round trip
+			// delays the next setpoint, which a closed field loop feels.
+			return nil
+		}
+	}
+	return nil
 }

@@ -117,7 +117,7 @@ func (c *Checker) Check(o Observation) *Violation {
 	if o.HaveStatus {
 		switch {
 		case o.Status.Tripped:
-			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply tripped: it shut its output down by itself"}
+			return Tripped(o.Status)
 		case o.Status.OverTemp:
 			return &Violation{Limit: "supply.status", Value: math.NaN(), Text: "supply reports over-temperature"}
 		case o.Status.Compliance:
@@ -211,10 +211,20 @@ func (c *Checker) slew(o Observation) (float64, bool) {
 	return (o.I - first.i) / (float64(o.T-first.t) / float64(time.Second)), true
 }
 
-// resistance estimates R = (V − L·dI/dt)/I while the current is large enough
-// to give a meaningful value, and reports a rise sustained over
-// ResistanceSamples samples.
-func (c *Checker) resistance(o Observation, didt float64, ok bool) *Violation {
+// PlateauTolerance is how far, relative to the current, the readings within
+// SlewWindow may spread for the current to count as steady (dI/dt ≈ 0), on
+// top of twice SlewNoiseA.
+const PlateauTolerance = 0.005
+
+// resistance estimates the winding's resistance R = V/I, only while the
+// current has been steady over the whole slew window (a hold, a plateau of
+// the staircase): there L·dI/dt vanishes whatever the inductance. On a ramp
+// no estimate is made — the inductance of an iron-cored winding varies by
+// orders of magnitude along a loop, so (V − L·dI/dt)/I with a constant L
+// misfires (it tripped falsely with L ≥ 0.2 H). It reports a rise
+// sustained over ResistanceSamples estimates while the current is large
+// enough to give a meaningful value.
+func (c *Checker) resistance(o Observation, _ float64, ok bool) *Violation {
 	l := c.lim
 	if l.MaxResistanceRise <= 0 || l.R0 <= 0 || !ok || math.IsNaN(o.V) {
 		return nil
@@ -224,7 +234,13 @@ func (c *Checker) resistance(o Observation, didt float64, ok bool) *Violation {
 		c.rHigh = 0
 		return nil
 	}
-	r := (o.V - l.L*didt) / o.I
+	tol := 2*SlewNoiseA + PlateauTolerance*math.Abs(o.I)
+	for _, h := range c.hist {
+		if math.Abs(h.i-o.I) > tol {
+			return nil // ramping: no estimate, and a run of high ones is not broken either
+		}
+	}
+	r := o.V / o.I
 	rise := r/l.R0 - 1
 	if rise <= l.MaxResistanceRise {
 		c.rHigh = 0
@@ -235,8 +251,20 @@ func (c *Checker) resistance(o Observation, didt float64, ok bool) *Violation {
 		return nil
 	}
 	return &Violation{Limit: "limits.max_resistance_rise", Value: rise, Max: l.MaxResistanceRise, Unit: "",
-		Text: fmt.Sprintf("winding resistance %.4g Ω is %.1f %% above %g Ω, beyond the fixture limit limits.max_resistance_rise = %g (the winding is heating)",
+		Text: fmt.Sprintf("winding resistance %.4g Ω (V/I with the current steady) is %.1f %% above %g Ω, beyond the fixture limit limits.max_resistance_rise = %g (the winding is heating)",
 			r, 100*rise, l.R0, l.MaxResistanceRise)}
+}
+
+// Tripped is the Violation of a supply whose trip has latched: it shut its
+// output down by itself and stays off until the trip is cleared; the text
+// says what clears it (the profile's trip_clear).
+func Tripped(st instr.SupplyStatus) *Violation {
+	clear := st.TripClear
+	if clear == "" {
+		clear = "remove the cause, then clear the trip at the supply before the next run"
+	}
+	return &Violation{Limit: "supply.status", Value: math.NaN(),
+		Text: fmt.Sprintf("supply tripped (latched): it shut its output down by itself and stays off until the trip is cleared — %s", clear)}
 }
 
 // Comm turns an instrument I/O error into the Violation a run ends with:

@@ -17,6 +17,7 @@ import (
 	"hystd/acq/record"
 	"hystd/drivers/instr"
 	"hystd/drivers/link"
+	"hystd/drivers/scpi"
 )
 
 // Roles are the instruments of a fixture. Supply is required; Integrator,
@@ -63,14 +64,15 @@ func WithRetryCounter(ctx context.Context, n *atomic.Int64) context.Context {
 }
 
 // Retry calls f again after a read timeout (the line is still up: a reply
-// was lost or late) until ctx ends, counting each repeat in the counter of
+// was lost or late) or a reply that did not answer its query (scpi.ErrDesync:
+// the driver resynchronises the line first) until ctx ends, counting each repeat in the counter of
 // WithRetryCounter. Any other error, a disconnect among them, is returned
 // at once: after a hang-up the instrument's state cannot be trusted within
 // a loop.
 func Retry[T any](ctx context.Context, f func(context.Context) (T, error)) (T, error) {
 	for {
 		v, err := f(ctx)
-		if err == nil || !errors.Is(err, link.ErrTimeout) || ctx.Err() != nil {
+		if err == nil || !(errors.Is(err, link.ErrTimeout) || errors.Is(err, scpi.ErrDesync)) || ctx.Err() != nil {
 			return v, err
 		}
 		if n, ok := ctx.Value(retriesKey{}).(*atomic.Int64); ok {

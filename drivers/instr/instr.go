@@ -37,6 +37,24 @@ type Resource interface {
 	Close() error
 }
 
+// InstrumentError is one entry of an instrument's own error queue. Fail is
+// the severity its profile maps the code to: true ends a run as failed
+// (after the safe ramp-down), false is a warning event.
+type InstrumentError struct {
+	Code int
+	Msg  string
+	Fail bool
+}
+
+// ErrorPoller is an instrument whose error queue can be read on its own,
+// between settings, so that errors it raises by itself are seen.
+type ErrorPoller interface {
+	// PollErrors reads the error queue until it is empty.
+	PollErrors(ctx context.Context) ([]InstrumentError, error)
+	// ErrorPollPeriod is how often a run should poll; 0 never.
+	ErrorPollPeriod() time.Duration
+}
+
 // SupplyStatus is the condition of a current supply.
 type SupplyStatus struct {
 	OutputOn    bool
@@ -44,6 +62,9 @@ type SupplyStatus struct {
 	OverTemp    bool
 	Tripped     bool // the supply shut its output down by itself
 	RawRegister int
+	// TripClear says what clears a latched trip (from the profile); "" when
+	// unknown.
+	TripClear string
 }
 
 // SupplyLimits are what the supply's profile says it can do.

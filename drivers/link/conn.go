@@ -55,6 +55,9 @@ type Options struct {
 	// Sleep waits d or until ctx is done; nil uses a timer. Tests inject it.
 	Sleep func(ctx context.Context, d time.Duration) error
 	Log   *slog.Logger // nil: slog.Default()
+	// NoLock skips the advisory port lock (see AcquirePort); only for
+	// tools that must look at a port another process holds.
+	NoLock bool
 	// open replaces serial.Open in tests of this package.
 	open func(path string, s Settings) (port, error)
 }
@@ -85,6 +88,7 @@ type Conn struct {
 	path   string
 	broken bool // a disconnect was seen; Reconnect is needed
 	closed bool // Close was called
+	lock   *Lock
 }
 
 // Open resolves the address and opens the port with the settings. The
@@ -103,12 +107,26 @@ func Open(ctx context.Context, a Address, s Settings, o Options) (*Conn, error) 
 	if o.Log == nil {
 		o.Log = slog.Default()
 	}
+	lock := !o.NoLock && o.open == nil // this package's tests fake the device
 	if o.open == nil {
 		o.open = openSerial
 	}
 	c := &Conn{addr: a, settings: s, opts: o}
 	if err := c.openOnce(ctx, "open"); err != nil {
 		return nil, err
+	}
+	if lock {
+		// One process per port: held until Close, across reconnects.
+		l, err := AcquirePort(c.Path())
+		if err != nil {
+			c.p.Close()
+			kind := ErrBusy
+			if !errors.Is(err, ErrBusy) {
+				kind = ErrSettings
+			}
+			return nil, &Error{Op: "open", Port: c.portName(c.Path()), Kind: kind, Cause: err}
+		}
+		c.lock = l
 	}
 	return c, nil
 }
@@ -443,6 +461,7 @@ func (c *Conn) Close() error {
 		return nil
 	}
 	c.closed = true
+	defer c.lock.Unlock()
 	if c.p != nil && !c.broken {
 		return c.p.Close()
 	}

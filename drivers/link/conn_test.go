@@ -1,9 +1,13 @@
 package link
 
 import (
+	"bufio"
 	"context"
 	"errors"
+	"fmt"
+	"io"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -309,4 +313,67 @@ func TestCancelStopsStuckWrite(t *testing.T) {
 	if _, err := c.Write(context.Background(), []byte("x")); !errors.Is(err, ErrDisconnected) {
 		t.Fatalf("after abandoned write: %v", err)
 	}
+}
+
+// lockHolderEnv makes this test binary, run as a child, hold the port lock
+// of the path it names until its stdin closes.
+const lockHolderEnv = "HYSTD_TEST_HOLD_PORT_LOCK"
+
+func init() {
+	path := os.Getenv(lockHolderEnv)
+	if path == "" {
+		return
+	}
+	l, err := AcquirePort(path)
+	if err != nil {
+		fmt.Println("error:", err)
+		os.Exit(1)
+	}
+	fmt.Println("locked")
+	io.Copy(io.Discard, os.Stdin)
+	l.Unlock()
+	os.Exit(0)
+}
+
+// TestSecondProcessRefused: while another process holds a port's lock, an
+// open of that port — also by root, whom the serial exclusive mode lets
+// through — is refused with the holder's PID; a symbolic link to the port
+// is the same port. After the holder ends the port opens.
+func TestSecondProcessRefused(t *testing.T) {
+	t.Setenv(LockDirEnv, t.TempDir())
+	dir := t.TempDir()
+	port := filepath.Join(dir, "ttyBENCH0")
+	if err := os.WriteFile(port, nil, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	alias := filepath.Join(dir, "supply")
+	if err := os.Symlink(port, alias); err != nil {
+		t.Fatal(err)
+	}
+	child := exec.Command(os.Args[0], "-test.run=^$")
+	child.Env = append(os.Environ(), lockHolderEnv+"="+alias)
+	in, _ := child.StdinPipe()
+	out, _ := child.StdoutPipe()
+	if err := child.Start(); err != nil {
+		t.Fatal(err)
+	}
+	defer child.Wait()
+	line, _ := bufio.NewReader(out).ReadString('\n')
+	if strings.TrimSpace(line) != "locked" {
+		in.Close()
+		t.Fatalf("child: %q", line)
+	}
+	_, err := AcquirePort(port)
+	var be *BusyError
+	if !errors.As(err, &be) || !errors.Is(err, ErrBusy) || be.PID != child.Process.Pid || !strings.Contains(err.Error(), fmt.Sprintf("process %d", child.Process.Pid)) {
+		t.Fatalf("got %v, want the holder's PID %d", err, child.Process.Pid)
+	}
+	t.Logf("refused (uid %d): %v", os.Getuid(), err)
+	in.Close()
+	child.Wait()
+	l, err := AcquirePort(port)
+	if err != nil {
+		t.Fatalf("after the holder ended: %v", err)
+	}
+	l.Unlock()
 }

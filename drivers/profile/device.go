@@ -119,7 +119,14 @@ type Device struct {
 	// unverified is set when a reconnect succeeded but identification or
 	// init did not: the next operation repeats them before anything else.
 	unverified bool
+	// pending are error-queue entries found when the port was opened, for
+	// the next PollErrors.
+	pending []instr.InstrumentError
 }
+
+// identifyTries is how often start asks *IDN? before it concludes that the
+// instrument answering is not the expected one.
+const identifyTries = 3
 
 func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, error) {
 	if err := Validate(p); err != nil {
@@ -142,25 +149,75 @@ func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, e
 	if o.Identity != "" {
 		d.ident = o.Identity
 	}
+	syncReply := p.SyncReply
+	if p.SyncQuery == "*IDN?" && o.Identity != "" && syncReply == p.Identity {
+		syncReply = o.Identity
+	}
 	d.c = scpi.New(port, scpi.Options{
 		Name: p.Name, WriteTerm: p.Terminators.Write, ReadTerm: p.Terminators.Read,
 		ErrorQuery: p.ErrorQuery, Log: o.Log, Now: o.Now, Timeout: p.LineSettings().ReadTimeout,
+		SyncQuery: p.SyncQuery, SyncReply: func(l string) bool { return strings.Contains(l, syncReply) },
 	})
 	if err := d.start(ctx); err != nil {
-		return nil, err
+		return d, err
 	}
 	return d, nil
 }
 
-// start identifies the instrument and sends the init sequence.
+// start flushes the input (a previous process, or the instrument before a
+// reconnect, may have left replies on the line), identifies the instrument
+// and sends the init sequence. A reply line that is not an identity is
+// taken for a stale one and discarded; lines but no identity within the
+// sync timeout is ErrIdentity, naming what the instrument said.
 func (d *Device) start(ctx context.Context) error {
-	id, err := d.c.Identify(ctx)
+	d.c.Forget()
+	if n, err := d.c.Drain(ctx); err != nil {
+		return &OpError{Profile: d.p.Name, Op: "identify", Command: "(flush input)", Err: err}
+	} else if n > 0 {
+		d.o.Log.Warn("stale input discarded before identification", "profile", d.p.Name, "bytes", n)
+	}
+	// A reply spoiled on the line (a flipped byte) is not another
+	// instrument: ask again before concluding so.
+	var skipped []string
+	var id string
+	var err error
+	for try := 0; try < identifyTries; try++ {
+		if try > 0 { // the *IDN? itself is the sync: drain and ask again
+			d.c.Forget()
+			if _, err := d.c.Drain(ctx); err != nil {
+				return &OpError{Profile: d.p.Name, Op: "identify", Command: "(flush input)", Err: err}
+			}
+		}
+		var sk []string
+		id, sk, err = d.c.QueryMatch(ctx, "*IDN?", func(l string) bool { return strings.Contains(l, d.ident) })
+		skipped = append(skipped, sk...)
+		if err == nil || ctx.Err() != nil || !errors.Is(err, link.ErrTimeout) || len(sk) == 0 {
+			break // identified, or silent: asking again would not help
+		}
+	}
 	if err != nil {
+		if len(skipped) > 0 {
+			return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?",
+				Err: fmt.Errorf("%w: *IDN? replied %q, expected it to contain %q", ErrIdentity, skipped[len(skipped)-1], d.ident)}
+		}
 		return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?", Err: err}
 	}
-	if !strings.Contains(id, d.ident) {
-		return &OpError{Profile: d.p.Name, Op: "identify", Command: "*IDN?",
-			Err: fmt.Errorf("%w: *IDN? replied %q, expected it to contain %q", ErrIdentity, id, d.ident)}
+	// Errors raised while nobody listened (between runs, or before a
+	// reconnect) are kept for the next PollErrors before the init sequence
+	// (often *CLS) erases them.
+	if d.p.ErrorQuery != "" {
+		var ie *scpi.InstrumentError
+		switch err := d.c.DrainErrors(ctx, "(found at open)"); {
+		case errors.As(err, &ie):
+			for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
+				if e.Code != 0 {
+					d.pending = append(d.pending, instr.InstrumentError{Code: e.Code, Msg: e.Msg + " (in the queue when the port was opened)", Fail: d.p.Severity(e.Code) == SeverityFail})
+				}
+			}
+			d.o.Log.Warn("errors found in the instrument's queue when it was opened", "profile", d.p.Name, "err", ie)
+		case err != nil:
+			return &OpError{Profile: d.p.Name, Op: "identify", Command: d.p.ErrorQuery, Err: err}
+		}
 	}
 	d.idn = id
 	for _, cmd := range d.p.Init {
@@ -409,6 +466,12 @@ func (d *Device) read(ctx context.Context, name string) (instr.Reading, error) {
 	}
 	v, err := parseNumeric(o, r.Text)
 	if err != nil {
+		var pe *scpi.ParseError
+		if errors.As(err, &pe) {
+			// Not an answer to this query: the line is out of step. Never
+			// a value: the next exchange resynchronises first.
+			err = d.c.Desync(o.Query, err)
+		}
 		return instr.Reading{}, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: err}
 	}
 	at, unc := r.Mid()
@@ -508,7 +571,7 @@ func (d *Device) readBool(ctx context.Context, name string) (bool, error) {
 			return false, nil
 		}
 	}
-	return false, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: &scpi.ParseError{Reply: r.Text, Want: "an on/off value"}}
+	return false, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: d.c.Desync(o.Query, &scpi.ParseError{Reply: r.Text, Want: "an on/off value"})}
 }
 
 // readInt performs an int query.
@@ -519,10 +582,44 @@ func (d *Device) readInt(ctx context.Context, name string) (int, error) {
 	}
 	v, err := scpi.ParseInt(r.Text)
 	if err != nil {
-		return 0, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: err}
+		return 0, &OpError{Profile: d.p.Name, Op: name, Command: o.Query, Err: d.c.Desync(o.Query, err)}
 	}
 	return v, nil
 }
+
+// PollErrors reads the instrument's error queue until it is empty (errors
+// it raised by itself, between settings) and returns each entry with the
+// severity the profile maps its code to. Without an error query it returns
+// nothing.
+func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error) {
+	if d.p.ErrorQuery == "" {
+		return nil, nil
+	}
+	if err := d.ready(ctx); err != nil {
+		return nil, err
+	}
+	out := d.pending
+	d.pending = nil
+	err := d.c.DrainErrors(ctx, "(error poll)")
+	if err == nil {
+		return out, nil
+	}
+	var ie *scpi.InstrumentError
+	if !errors.As(err, &ie) {
+		d.pending = out
+		return nil, d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
+	}
+	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
+		if e.Code == 0 {
+			continue
+		}
+		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg, Fail: d.p.Severity(e.Code) == SeverityFail})
+	}
+	return out, nil
+}
+
+// ErrorPollPeriod is the profile's error_poll period (0: never).
+func (d *Device) ErrorPollPeriod() time.Duration { return d.p.ErrorPollPeriod() }
 
 func sleepCtx(ctx context.Context, d time.Duration) error {
 	t := time.NewTimer(d)

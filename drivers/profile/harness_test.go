@@ -26,32 +26,37 @@ type dialect struct {
 	errEntry string // an error-queue reply with code -222
 }
 
+// sync is the exchange that brings a line back in step after a timeout or
+// a reply that does not parse: the profile's sync query, answered with the
+// identity (the startup's first reply).
+func (d dialect) sync() ex { return ex{Send: "*IDN?", Reply: d.startup[0].Reply} }
+
 var (
 	simSupply = dialect{profile: "sim-supply", wt: "\n", rt: "\n",
-		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,BIPOLAR-SUPPLY,0,1"}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
+		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,BIPOLAR-SUPPLY,0,1"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
 		noErr:   ex{Send: "SYST:ERR?", Reply: `0,"No error"`}, errEntry: `-222,"Data out of range"`}
 	simIntegrator = dialect{profile: "sim-integrator", wt: "\n", rt: "\n",
-		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,FLUX-INTEGRATOR,0,1"}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
+		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,FLUX-INTEGRATOR,0,1"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
 		noErr:   ex{Send: "SYST:ERR?", Reply: `0,"No error"`}, errEntry: `-222,"Data out of range"`}
 	simFieldMeter = dialect{profile: "sim-fieldmeter", wt: "\n", rt: "\n",
-		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,HALL-METER,0,1"}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
+		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,HALL-METER,0,1"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
 		noErr:   ex{Send: "SYST:ERR?", Reply: `0,"No error"`}, errEntry: `-222,"Data out of range"`}
 	simThermometer = dialect{profile: "sim-thermometer", wt: "\n", rt: "\n",
-		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,THERMOMETER,0,1"}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
+		startup: []ex{{Send: "*IDN?", Reply: "HYSTD-SIM,THERMOMETER,0,1"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}, {Send: "*CLS"}, {Send: "SYST:ERR?", Reply: `0,"No error"`}},
 		noErr:   ex{Send: "SYST:ERR?", Reply: `0,"No error"`}, errEntry: `-222,"Data out of range"`}
 	slateSupply = dialect{profile: "slate-supply", wt: "\r\n", rt: "\r\n",
-		startup: []ex{{Send: "*IDN?", Reply: "DIALECT-SLATE,BIPOLAR-40,SN7,2.1"}, {Send: "*CLS"}, {Send: "ERR:NEXT?", Reply: `0,"none"`},
+		startup: []ex{{Send: "*IDN?", Reply: "DIALECT-SLATE,BIPOLAR-40,SN7,2.1"}, {Send: "ERR:NEXT?", Reply: `0,"none"`}, {Send: "*CLS"}, {Send: "ERR:NEXT?", Reply: `0,"none"`},
 			{Send: "REMOTE:LOCK 1"}, {Send: "ERR:NEXT?", Reply: `0,"none"`}},
 		noErr: ex{Send: "ERR:NEXT?", Reply: `0,"none"`}, errEntry: `-222,"value beyond limit"`}
 	slateFieldMeter = dialect{profile: "slate-fieldmeter", wt: "\r\n", rt: "\r\n",
-		startup: []ex{{Send: "*IDN?", Reply: "DIALECT-SLATE,HALL-3,SN2,1.0"}, {Send: "*CLS"}, {Send: "ERR:NEXT?", Reply: `0,"none"`},
+		startup: []ex{{Send: "*IDN?", Reply: "DIALECT-SLATE,HALL-3,SN2,1.0"}, {Send: "ERR:NEXT?", Reply: `0,"none"`}, {Send: "*CLS"}, {Send: "ERR:NEXT?", Reply: `0,"none"`},
 			{Send: "PROBE:UNIT TESLA"}, {Send: "ERR:NEXT?", Reply: `0,"none"`}},
 		noErr: ex{Send: "ERR:NEXT?", Reply: `0,"none"`}, errEntry: `-222,"value beyond limit"`}
 	quillSupply = dialect{profile: "quill-supply", wt: "\r", rt: "\r",
-		startup: []ex{{Send: "*IDN?", Reply: "QUILL-DIALECT BPS10 V3"}, {Send: "RMT"}, {Send: "E?", Reply: "0"}},
+		startup: []ex{{Send: "*IDN?", Reply: "QUILL-DIALECT BPS10 V3"}, {Send: "E?", Reply: "0"}, {Send: "RMT"}, {Send: "E?", Reply: "0"}},
 		noErr:   ex{Send: "E?", Reply: "0"}, errEntry: `-222,"RANGE"`}
 	quillIntegrator = dialect{profile: "quill-integrator", wt: "\r", rt: "\r",
-		startup: []ex{{Send: "*IDN?", Reply: "QUILL-DIALECT FLX2 V1"}, {Send: "RMT"}, {Send: "E?", Reply: "0"}},
+		startup: []ex{{Send: "*IDN?", Reply: "QUILL-DIALECT FLX2 V1"}, {Send: "E?", Reply: "0"}, {Send: "RMT"}, {Send: "E?", Reply: "0"}},
 		noErr:   ex{Send: "E?", Reply: "0"}, errEntry: `-222,"RANGE"`}
 )
 

@@ -191,6 +191,23 @@ func validate(p Profile, ef errorf) error {
 			add(fmt.Sprintf("safe_state.%d", i), "%q: want a command without placeholder", c)
 		}
 	}
+	if p.SyncQuery != "" && strings.TrimSpace(p.SyncReply) == "" {
+		add("sync_reply", "required with sync_query: a text its reply always contains and no reading can")
+	}
+	if p.ErrorPoll != "" && p.ErrorPoll != "off" {
+		checkDur(add, "error_poll", p.ErrorPoll, false)
+	}
+	for k, v := range p.ErrorSeverity {
+		if _, _, err := parseCodeRange(k); err != nil {
+			add("error_severity."+k, "%v", err)
+		}
+		if v != SeverityWarn && v != SeverityFail {
+			add("error_severity."+k, "%q: want warn or fail", v)
+		}
+	}
+	if p.TripClear != "" && p.Role != RoleSupply {
+		add("trip_clear", "only for a supply")
+	}
 	if p.Role == RoleSupply {
 		if !(p.HaltSlew > 0) || math.IsInf(p.HaltSlew, 0) {
 			add("halt_slew_a_per_s", "required for a supply: a positive slew rate in A/s")
@@ -410,6 +427,15 @@ func normalize(p Profile) Profile {
 	}
 	if p.Serial.Flow == "" {
 		p.Serial.Flow = "none"
+	}
+	if p.SyncQuery == "" {
+		p.SyncQuery, p.SyncReply = "*IDN?", p.Identity
+	}
+	if p.ErrorPoll == "" {
+		p.ErrorPoll = "1s"
+	}
+	if p.Role == RoleSupply && p.TripClear == "" {
+		p.TripClear = "remove the cause, then clear the trip at the supply (its front panel or its reset command) before the next run"
 	}
 	ops := make(map[string]Operation, len(p.Operations))
 	for n, o := range p.Operations {

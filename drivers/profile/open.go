@@ -2,7 +2,9 @@ package profile
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"math"
 
 	"hystd/drivers/instr"
 	"hystd/drivers/link"
@@ -59,7 +61,14 @@ func OpenProfile(ctx context.Context, p Profile, s Spec, o Options) (instr.Resou
 	var r instr.Resource
 	switch p.Role {
 	case RoleSupply:
-		r, err = NewSupply(ctx, p, conn, o)
+		var d *Device
+		d, err = attach(ctx, RoleSupply, p, conn, o)
+		switch {
+		case err == nil:
+			r = &Supply{Device: d}
+		case d != nil && errors.Is(err, ErrIdentity):
+			err = haltUnidentified(ctx, &Supply{Device: d}, err)
+		}
 	case RoleIntegrator:
 		r, err = NewIntegrator(ctx, p, conn, o)
 	case RoleFieldMeter:
@@ -113,4 +122,40 @@ func OpenFieldMeter(ctx context.Context, s Spec, o Options) (instr.FieldMeter, e
 // OpenThermometer opens a thermometer from a spec (see Open).
 func OpenThermometer(ctx context.Context, s Spec, o Options) (instr.Thermometer, error) {
 	return openAs[instr.Thermometer](ctx, RoleThermometer, s, o)
+}
+
+// haltUnidentified brings a supply that answers but fails identification to
+// zero all the same: whatever answers on the supply's port may be driving
+// the winding. It ramps down and sends the profile's safe state (Halt),
+// reads the current and status back, and returns the identification error
+// with what was done, loudly logged.
+func haltUnidentified(ctx context.Context, s *Supply, idErr error) error {
+	s.o.Log.Error("SUPPLY FAILED IDENTIFICATION: commanding it to zero through its profile's safe state all the same", "profile", s.p.Name, "err", idErr)
+	herr := s.Halt(ctx)
+	rb := readBack(ctx, s)
+	if herr != nil {
+		return &OpError{Profile: s.p.Name, Op: "identify", Command: "*IDN?",
+			Err: fmt.Errorf("%w; commanded to zero through the profile's safe state, which failed: %v (%s)", idErr, herr, rb)}
+	}
+	s.o.Log.Error("unidentified supply commanded to zero", "profile", s.p.Name, "read_back", rb)
+	return &OpError{Profile: s.p.Name, Op: "identify", Command: "*IDN?",
+		Err: fmt.Errorf("%w; commanded to zero through the profile's safe state all the same (%s)", idErr, rb)}
+}
+
+// readBack describes the supply's current and output as read back.
+func readBack(ctx context.Context, s *Supply) string {
+	i, ierr := s.ReadCurrent(ctx)
+	st, serr := s.Status(ctx)
+	switch {
+	case ierr != nil && serr != nil:
+		return fmt.Sprintf("read-back failed: %v; %v", ierr, serr)
+	case ierr != nil:
+		return fmt.Sprintf("output on = %v, current unreadable: %v", st.OutputOn, ierr)
+	case serr != nil:
+		return fmt.Sprintf("read back %.4g A, status unreadable: %v", i.Value, serr)
+	}
+	if math.Abs(i.Value) <= s.haltZero() && !st.OutputOn {
+		return fmt.Sprintf("supply at zero, output off: read back %.4g A", i.Value)
+	}
+	return fmt.Sprintf("NOT SAFE: read back %.4g A, output on = %v", i.Value, st.OutputOn)
 }

@@ -125,7 +125,7 @@ func (s *Supply) Status(ctx context.Context) (instr.SupplyStatus, error) {
 		n, ok := bits[name]
 		return ok && v&(1<<n) != 0
 	}
-	st := instr.SupplyStatus{Compliance: bit("compliance"), OverTemp: bit("overtemp"), Tripped: bit("trip"), RawRegister: v, OutputOn: s.output}
+	st := instr.SupplyStatus{Compliance: bit("compliance"), OverTemp: bit("overtemp"), Tripped: bit("trip"), RawRegister: v, OutputOn: s.output, TripClear: s.p.TripClear}
 	if _, ok := bits["output"]; ok {
 		st.OutputOn = bit("output")
 	}

@@ -25,6 +25,26 @@ type Profile struct {
 	// code 0, e.g. "SYST:ERR?". Empty: the instrument has no error queue.
 	ErrorQuery string `yaml:"error_query"`
 
+	// Added by the safety work (absent keys keep the defaults named):
+	//
+	// SyncQuery is sent to bring a line back in step after a broken
+	// exchange (a timeout, a reply that does not parse), once the line has
+	// been quiet; lines are discarded until one contains SyncReply. Default
+	// "*IDN?" answered with Identity: no reading can be mistaken for it.
+	SyncQuery string `yaml:"sync_query"`
+	SyncReply string `yaml:"sync_reply"`
+	// ErrorPoll is how often a run reads the error queue on its own (errors
+	// the instrument raises by itself); default "1s", "off" never.
+	ErrorPoll string `yaml:"error_poll"`
+	// ErrorSeverity maps an error code ("-310") or an inclusive range of
+	// codes ("-399..-300") to "warn" (an event, the run goes on) or "fail"
+	// (the run ends failed after the safe ramp-down). A code matched by
+	// nothing is "fail". An exact code wins over a range.
+	ErrorSeverity map[string]string `yaml:"error_severity"`
+	// TripClear (supply) says what clears a latched trip, for the message
+	// a run ends with, e.g. "let the winding cool, then send *RST".
+	TripClear string `yaml:"trip_clear"`
+
 	Init      []string `yaml:"init"`       // sent after opening and after every reconnect
 	SafeState []string `yaml:"safe_state"` // sent by Halt after any ramp-down
 

@@ -225,6 +225,7 @@ func TestSupplyHaltUsesLowerFixtureSlew(t *testing.T) {
 	r := newRig(t, quillSupply,
 		ex{Send: "I=1000.0"}, e, // set 1 A
 		ex{Send: "I?", Err: scpitest.Timeout}, // the read fails: ramp from the last setpoint
+		quillSupply.sync(),                    // the line is brought back in step first
 		ex{Send: "I=750.0"}, e,
 		ex{Send: "I=500.0"}, e,
 		ex{Send: "I=250.0"}, e,
@@ -248,6 +249,8 @@ func TestSupplyHaltAfterIdentityLoss(t *testing.T) {
 	r := newRig(t, simSupply,
 		ex{Send: "MEAS:CURR?", Err: scpitest.Hangup},
 		scpitest.Reconnect(),
+		ex{Send: "*IDN?", Reply: "SOMEONE-ELSE,X"},
+		ex{Send: "*IDN?", Reply: "SOMEONE-ELSE,X"},
 		ex{Send: "*IDN?", Reply: "SOMEONE-ELSE,X"},
 	)
 	s := r.supply(t)
@@ -284,7 +287,8 @@ func TestReconnectReportsAndRecovers(t *testing.T) {
 
 func TestIdentityChecked(t *testing.T) {
 	p, _ := Load("sim-supply")
-	s := scpitest.New(t, "\n", "\n", ex{Send: "*IDN?", Reply: "HYSTD-SIM,FLUX-INTEGRATOR,0,1"})
+	wrong := ex{Send: "*IDN?", Reply: "HYSTD-SIM,FLUX-INTEGRATOR,0,1"}
+	s := scpitest.New(t, "\n", "\n", wrong, wrong, wrong)
 	_, err := NewSupply(context.Background(), p, s, Options{})
 	if !errors.Is(err, ErrIdentity) {
 		t.Fatalf("got %v, want ErrIdentity", err)
@@ -369,7 +373,7 @@ func TestSupplyHaltWaitsForZero(t *testing.T) {
 		{"falls within three periods", []ex{read("0.17"), read("0.03"), read("0.004")}, 2, noError},
 		{"falls exactly to the threshold", []ex{read("-0.006")}, 0, noError},
 		{"never falls", []ex{read("0.2"), read("0.19"), read("0.18"), read("0.17"), read("0.16"), read("0.15")}, 5, isText("still read 0.15 A, beyond 0.006 A of zero")},
-		{"read-back lost", []ex{read("0.2"), {Send: "MEAS:CURR?", Err: scpitest.Timeout}}, 1, isText("reading the current back after the ramp")},
+		{"read-back lost", []ex{read("0.2"), {Send: "MEAS:CURR?", Err: scpitest.Timeout}, simSupply.sync()}, 1, isText("reading the current back after the ramp")},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

@@ -46,7 +46,26 @@ type Options struct {
 	Log *slog.Logger
 	// Now is the clock used for Reply stamps; nil is time.Now (monotonic).
 	Now func() time.Time
+	// Quiet is how long the line must stay silent before a resync takes it
+	// as drained; default 20 ms.
+	Quiet time.Duration
+	// SyncQuery is sent after a broken exchange, once the line is quiet,
+	// and lines are read (and discarded) until one satisfies SyncReply:
+	// an answer no reading can be mistaken for (e.g. "*IDN?" answered with
+	// the instrument's identity). "" resyncs by draining alone.
+	SyncQuery string
+	SyncReply func(line string) bool
+	// SyncTimeout bounds a whole resync (drain and sync query); default
+	// 2·Timeout, or 1 s without Timeout.
+	SyncTimeout time.Duration
 }
+
+// ErrDesync is the error of an exchange whose reply cannot belong to the
+// query asked (it does not parse as its answer), or of a resync that did
+// not find the line's answers again: the line is out of step, and the
+// client will resynchronise it before the next exchange. Retry the read;
+// never use the reply.
+var ErrDesync = errors.New("line out of step with its queries")
 
 // Client speaks SCPI over one Stream. It is not safe for concurrent use:
 // one goroutine owns a Client (and its instrument). The caller owns and
@@ -78,6 +97,15 @@ func New(s Stream, o Options) *Client {
 	}
 	if o.Now == nil {
 		o.Now = time.Now
+	}
+	if o.Quiet <= 0 {
+		o.Quiet = DefaultQuiet
+	}
+	if o.SyncTimeout <= 0 {
+		o.SyncTimeout = time.Second
+		if o.Timeout > 0 {
+			o.SyncTimeout = 2 * o.Timeout
+		}
 	}
 	return &Client{s: s, o: o, rbuf: make([]byte, 512)}
 }
@@ -251,8 +279,7 @@ func (c *Client) DrainErrors(ctx context.Context, after string) error {
 		}
 		e, err := ParseQueueEntry(s)
 		if err != nil {
-			c.stale = true
-			return fmt.Errorf("reading the error queue after %q: %w", after, err)
+			return fmt.Errorf("reading the error queue after %q: %w", after, c.Desync(c.o.ErrorQuery, err))
 		}
 		if e.Code == 0 {
 			if len(got) == 0 {
@@ -264,6 +291,43 @@ func (c *Client) DrainErrors(ctx context.Context, after string) error {
 	}
 	return &InstrumentError{Command: after, Code: got[0].Code, Msg: got[0].Msg,
 		More: append(got[1:], QueueEntry{Code: 0, Msg: fmt.Sprintf("queue not empty after %d reads", c.o.MaxErrors)})}
+}
+
+// QueryMatch sends a query and reads reply lines until one satisfies
+// accept, discarding the others (a line left over by an earlier exchange,
+// or by another process that had the port before), for at most
+// SyncTimeout. It returns the accepted line and the lines discarded; when
+// none is accepted the error matches link.ErrTimeout and skipped holds
+// what the instrument did say.
+func (c *Client) QueryMatch(ctx context.Context, cmd string, accept func(string) bool) (line string, skipped []string, err error) {
+	if err := c.resync(ctx); err != nil {
+		return "", nil, err
+	}
+	qctx, cancel := context.WithTimeout(ctx, c.o.SyncTimeout)
+	defer cancel()
+	if _, err := c.s.Write(qctx, []byte(cmd+c.o.WriteTerm)); err != nil {
+		c.stale = true
+		return "", nil, fmt.Errorf("scpi %q: %w", cmd, err)
+	}
+	for {
+		l, err := c.readLine(qctx)
+		if err != nil {
+			c.stale = true
+			if ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, link.ErrTimeout) {
+				err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: fmt.Errorf("no acceptable reply within %v: %w", c.o.SyncTimeout, err)}
+			}
+			return "", skipped, fmt.Errorf("scpi %q: %w", cmd, err)
+		}
+		if accept(l) {
+			if len(skipped) > 0 {
+				c.o.Log.Info("scpi discarded stale reply lines", "instr", c.o.Name, "cmd", cmd, "lines", skipped)
+			}
+			return l, skipped, nil
+		}
+		if len(skipped) < 16 {
+			skipped = append(skipped, l)
+		}
+	}
 }
 
 // Identify sends *IDN? and returns the reply.
@@ -347,37 +411,123 @@ func (c *Client) fill(ctx context.Context) error {
 	return nil
 }
 
-// resyncWindow is how long resync listens for a late reply.
-const resyncWindow = 5 * time.Millisecond
+// DefaultQuiet is how long the line must stay silent before a resync
+// takes it as drained.
+const DefaultQuiet = 20 * time.Millisecond
 
-// resync discards input left over from a broken exchange (a reply that
-// arrived after its timeout would otherwise answer the next query).
+// MarkStale records that the line cannot be trusted (a reply did not parse
+// for its query, the port was reopened, or a previous process may have left
+// replies on it): the next exchange resynchronises first.
+func (c *Client) MarkStale() { c.stale = true }
+
+// Stale reports whether the next exchange will resynchronise first.
+func (c *Client) Stale() bool { return c.stale }
+
+// Resync resynchronises the line now if it is stale (see MarkStale).
+func (c *Client) Resync(ctx context.Context) error { return c.resync(ctx) }
+
+// Desync marks the line stale and returns err wrapped as ErrDesync, for a
+// reply that does not parse as the answer to cmd.
+func (c *Client) Desync(cmd string, err error) error {
+	c.stale = true
+	c.o.Log.Warn("scpi reply does not answer its query: line out of step, resynchronising", "instr", c.o.Name, "cmd", cmd, "err", err)
+	return fmt.Errorf("scpi %q: %w: %w", cmd, ErrDesync, err)
+}
+
+// Drain discards input until the line has been quiet for Options.Quiet,
+// for at most SyncTimeout; it returns how many bytes it discarded.
+func (c *Client) Drain(ctx context.Context) (int, error) {
+	c.buf = c.buf[:0]
+	dctx, cancel := context.WithTimeout(ctx, c.o.SyncTimeout)
+	defer cancel()
+	return c.drain(dctx)
+}
+
+func (c *Client) drain(ctx context.Context) (int, error) {
+	discarded := 0
+	for {
+		if discarded > c.o.MaxReply {
+			return discarded, fmt.Errorf("scpi: the instrument keeps sending (%d bytes discarded while resynchronising)", discarded)
+		}
+		rctx, cancel := context.WithTimeout(ctx, c.o.Quiet)
+		n, err := c.s.Read(rctx, c.rbuf)
+		cancel()
+		discarded += n
+		if n > 0 {
+			c.o.Log.Debug("scpi discarded stale input", "instr", c.o.Name, "bytes", string(c.rbuf[:n]))
+		}
+		if err != nil {
+			if ctx.Err() != nil {
+				if errors.Is(ctx.Err(), context.DeadlineExceeded) && !errors.Is(err, context.Canceled) {
+					return discarded, &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout,
+						Cause: fmt.Errorf("the instrument keeps sending: the line never fell quiet for %v within %v (%d bytes discarded)", c.o.Quiet, c.o.SyncTimeout, discarded)}
+				}
+				return discarded, ctx.Err()
+			}
+			if errors.Is(err, link.ErrTimeout) {
+				return discarded, nil
+			}
+			if errors.Is(err, io.EOF) {
+				return discarded, fmt.Errorf("%w: %w", link.ErrDisconnected, err)
+			}
+			return discarded, err
+		}
+	}
+}
+
+// resync brings a stale line back in step: it discards input until the
+// line is quiet for Options.Quiet, then, with a SyncQuery, sends it and
+// discards lines until one satisfies SyncReply (a late reply to an earlier
+// query, still on its way, is read and dropped here instead of answering
+// the next query). The whole is bounded by SyncTimeout; on failure the line
+// stays stale and the error matches link.ErrTimeout (or the transport's
+// error).
 func (c *Client) resync(ctx context.Context) error {
 	if !c.stale {
 		return nil
 	}
 	c.buf = c.buf[:0]
-	discarded := 0
-	for {
-		if discarded > c.o.MaxReply {
-			return fmt.Errorf("scpi: the instrument keeps sending (%d bytes discarded after a broken exchange)", discarded)
-		}
-		rctx, cancel := context.WithTimeout(ctx, resyncWindow)
-		n, err := c.s.Read(rctx, c.rbuf)
-		cancel()
-		discarded += n
+	sctx, cancel := context.WithTimeout(ctx, c.o.SyncTimeout)
+	defer cancel()
+	n, err := c.drain(sctx)
+	if err != nil {
+		return c.resyncErr(ctx, err)
+	}
+	if c.o.SyncQuery == "" || c.o.SyncReply == nil {
+		c.stale = false
 		if n > 0 {
-			c.o.Log.Debug("scpi discarded late input", "instr", c.o.Name, "bytes", string(c.rbuf[:n]))
+			c.o.Log.Info("scpi line resynchronised (stale input discarded)", "instr", c.o.Name, "bytes", n)
 		}
+		return nil
+	}
+	if _, err := c.s.Write(sctx, []byte(c.o.SyncQuery+c.o.WriteTerm)); err != nil {
+		return c.resyncErr(ctx, err)
+	}
+	var skipped []string
+	for {
+		line, err := c.readLine(sctx)
 		if err != nil {
-			if ctx.Err() != nil {
-				return ctx.Err()
+			if len(skipped) > 0 {
+				err = fmt.Errorf("%w (lines discarded: %q)", err, skipped)
 			}
-			if errors.Is(err, link.ErrTimeout) {
-				c.stale = false
-				return nil
-			}
-			return err
+			return c.resyncErr(ctx, err)
+		}
+		if c.o.SyncReply(line) {
+			break
+		}
+		if len(skipped) < 8 {
+			skipped = append(skipped, line)
 		}
 	}
+	c.stale = false
+	c.o.Log.Info("scpi line resynchronised", "instr", c.o.Name, "sync", c.o.SyncQuery, "stale_bytes", n, "stale_lines", skipped)
+	return nil
+}
+
+func (c *Client) resyncErr(ctx context.Context, err error) error {
+	c.stale = true
+	if ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, link.ErrTimeout) {
+		err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: err}
+	}
+	return fmt.Errorf("scpi: resynchronising the line after a broken exchange: %w", err)
 }

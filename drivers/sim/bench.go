@@ -76,6 +76,8 @@ type Bench struct {
 	head   int // next write index once hist is full
 	insts  map[string]*instrument
 	faults []*faultState
+	// injected counts fired faults by kind.
+	injected map[string]int
 
 	cancel    context.CancelFunc
 	unquiet   func() // unregisters quiet from a *clock.Sim

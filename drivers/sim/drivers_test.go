@@ -156,9 +156,9 @@ func TestFaultsThroughProfileDrivers(t *testing.T) {
 		}
 	})
 	t.Run("dropped reply", func(t *testing.T) {
-		// Command 1 is *IDN?, 2 the init *CLS with its error-queue read: the
-		// 4th line is the first reading.
-		b, clk := startBench(t, faultBench(t, "  - {role: thermometer, kind: drop, after_commands: 4}\n"))
+		// Command 1 is *IDN?, 2 the error-queue read before init, 3 the init
+		// *CLS with its error-queue read: the 5th line is the first reading.
+		b, clk := startBench(t, faultBench(t, "  - {role: thermometer, kind: drop, after_commands: 5}\n"))
 		th := open(t, b, clk, RoleThermometer).(instr.Thermometer)
 		_, err := th.ReadTemperature(ctx)
 		var oe *profile.OpError

@@ -1,6 +1,7 @@
 package sim
 
 import (
+	"fmt"
 	"math/rand/v2"
 )
 
@@ -54,6 +55,10 @@ func (b *Bench) fire(f *faultState) {
 		return
 	}
 	f.fired++
+	if b.injected == nil {
+		b.injected = map[string]int{}
+	}
+	b.injected[f.Kind]++
 	switch f.Kind {
 	case FaultDrop, FaultDelay, FaultGarble:
 		in.armed = append(in.armed, f)
@@ -94,4 +99,42 @@ func (b *Bench) spoil(in *instrument, a *action) {
 			a.reply[i] ^= 0x40
 		}
 	}
+}
+
+// Injected returns how many faults have fired so far, by kind (drop,
+// delay, garble, hangup, error, trip).
+func (b *Bench) Injected() map[string]int {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	out := make(map[string]int, len(b.injected))
+	for k, v := range b.injected {
+		out[k] = v
+	}
+	return out
+}
+
+// Inject adds a fault while the bench runs, checked as a bench file's
+// faults are. Without a trigger it acts now: a reply fault (drop, delay,
+// garble) spoils the role's next reply, the others happen at once. At
+// counts from the bench's start.
+func (b *Bench) Inject(f Fault) error {
+	roles := map[string]InstrumentConfig{}
+	for r := range b.insts {
+		roles[r] = InstrumentConfig{}
+	}
+	now := f.At == nil && f.AfterCommands == 0 && f.Probability == 0
+	if now {
+		f.AfterCommands = 1
+	}
+	if err := f.check(roles); err != nil {
+		return fmt.Errorf("sim: fault %s on %s: %w", f.Kind, f.Role, err)
+	}
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	fs := &faultState{Fault: f, rng: rand.New(rand.NewPCG(b.cfg.Seed, uint64(len(b.faults))+1))}
+	b.faults = append(b.faults, fs)
+	if now && f.Kind != FaultDrop && f.Kind != FaultDelay && f.Kind != FaultGarble {
+		b.fire(fs)
+	}
+	return nil
 }

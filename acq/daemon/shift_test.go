@@ -1,0 +1,153 @@
+package daemon
+
+import (
+	"context"
+	"math"
+	"strings"
+	"testing"
+	"time"
+
+	"hystd/acq/live"
+	"hystd/acq/record"
+	"hystd/acq/store"
+	"hystd/drivers/sim"
+)
+
+// shifted counts the samples of a loop whose channels do not belong
+// together, the mark of a reply answering the wrong query:
+//   - the supply's current read back is not at the setpoint just set (the
+//     bench's supply follows a setpoint within 3 ms at 100 A/s, and the
+//     engine reads 4 ms after setting: a current one step behind is off by
+//     a whole staircase step);
+//   - the field meter's reading is off the straight line through all the
+//     samples' (I, B_probe): on the bench the probe reads μ0·N1·I/l_m
+//     (Ampère's law on the mean path) with a gain and offset error and 20 µT
+//     noise, so a reading one step behind is off by μ0·ΔH.
+//
+// stepA is the smallest current step worth detecting; tolB the field
+// tolerance (five times the bench's probe noise).
+func shifted(raw []record.Sample, tolI, tolB float64) (nI, nB int) {
+	var n, si, sb, sii, sib float64
+	for _, s := range raw {
+		if math.IsNaN(s.BProbe) || math.IsNaN(s.I) {
+			continue
+		}
+		n++
+		si += s.I
+		sb += s.BProbe
+		sii += s.I * s.I
+		sib += s.I * s.BProbe
+	}
+	slope, icpt := 0.0, 0.0
+	if d := n*sii - si*si; n > 2 && d != 0 {
+		slope = (n*sib - si*sb) / d
+		icpt = (sb - slope*si) / n
+	}
+	for _, s := range raw {
+		if math.Abs(s.I-s.Setpoint) > tolI {
+			nI++
+		}
+		if !math.IsNaN(s.BProbe) && slope != 0 && math.Abs(s.BProbe-(icpt+slope*s.I)) > tolB {
+			nB++
+		}
+	}
+	return nI, nB
+}
+
+// coarseLoop steps the field by 200 A/m per sample (4 kA/m over 20 points;
+// 0.14 A on the demo ring's 141.4 mm mean path with 200 turns; 0.25 mT at
+// the probe, twelve times its noise), so that a channel one sample behind
+// is unmistakable, while the jump after an 800 ms stall (480 A/m, 0.34 A)
+// still settles within the supply's 4 ms settle time at its 100 A/s slew.
+const coarseLoop = `kind: recipe
+name: coarse-loop
+steps:
+  - record_loop: {amplitude: 1 kA/m, rate: 600 A/m/s, points: 20, hold: 300ms}
+`
+
+// TestLateReplyNoShiftedSample: the field meter holds one reply back for
+// 800 ms (beyond its 500 ms timeout) in the middle of a sweep. The late
+// reply is discarded when the line is resynchronised and the reading taken
+// again: no stored sample has its field one step behind (before, the
+// channel stayed one reading behind for the rest of the run).
+func TestLateReplyNoShiftedSample(t *testing.T) {
+	for _, role := range []string{sim.RoleFieldMeter, sim.RoleSupply} {
+		t.Run(role, func(t *testing.T) { lateReply(t, role) })
+	}
+}
+
+func lateReply(t *testing.T, role string) {
+	bd := benchFilesReal(t, nil)
+	bd.serve(t)
+	sub, stop := bd.hub.Subscribe()
+	defer stop()
+	id, err := bd.runner.Submit(context.Background(), "", []byte(coarseLoop))
+	if err != nil {
+		t.Fatal(err)
+	}
+	inSweep(t, sub)
+	if err := bd.bench.Inject(sim.Fault{Role: role, Kind: sim.FaultDelay, Delay: 800e6}); err != nil {
+		t.Fatal(err)
+	}
+	var r record.Run
+	waitFor(t, "the run's ending", 60*time.Second, func() bool {
+		st, err := store.Open(context.Background(), bd.db)
+		if err != nil {
+			return false
+		}
+		defer st.Close()
+		r, _ = st.Run(context.Background(), id)
+		return r.State != record.Queued && r.State != record.Running
+	})
+	zeroWithin(t, bd.bench, time.Second)
+	if r.State != record.Finished {
+		t.Fatalf("run %s: %s", r.State, r.Reason)
+	}
+	if n := bd.bench.Injected()[sim.FaultDelay]; n != 1 {
+		t.Fatalf("delay faults fired: %d", n)
+	}
+	_, loops := bd.run(t, id)
+	if len(loops) != 1 {
+		t.Fatalf("%d loops", len(loops))
+	}
+	st, _ := store.Open(context.Background(), bd.db)
+	defer st.Close()
+	l, err := st.Loop(context.Background(), id, 1)
+	if err != nil || len(l.Raw) < 15 {
+		t.Fatalf("loop 1: %d raw samples, %v", len(l.Raw), err)
+	}
+	nI, nB := shifted(l.Raw, 0.002, 1e-4)
+	if nI > 0 || nB > 0 {
+		t.Errorf("%d samples with the current, %d with the field, out of step (of %d)", nI, nB, len(l.Raw))
+	}
+	evs, _ := st.Events(context.Background(), id)
+	seen := false
+	for _, e := range evs {
+		seen = seen || strings.Contains(e.Text, "late replies were read again")
+	}
+	if !seen {
+		t.Errorf("the late reply left no event: %+v", evs)
+	}
+}
+
+// inSweep waits for live samples showing the current sweeping (two in a row
+// 3 mA apart or more).
+func inSweep(t *testing.T, evs <-chan live.Event) {
+	t.Helper()
+	timeout := time.After(30 * time.Second)
+	last := math.NaN()
+	for {
+		select {
+		case e := <-evs:
+			if e.Kind != live.KindSample {
+				continue
+			}
+			if math.Abs(e.I-last) > 0.003 {
+				return
+			}
+			last = e.I
+		case <-timeout:
+			t.Fatal("no sweep seen")
+		}
+	}
+}

@@ -1,0 +1,619 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"net"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"sort"
+	"strconv"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"hystd/acq/record"
+	"hystd/acq/store"
+	"hystd/configs"
+	"hystd/drivers/link"
+	"hystd/drivers/sim"
+)
+
+// The fault campaign drives `hystd serve`, built from this package and run
+// as a child process, through many runs on the simulated bench (served in
+// this test process) with random instrument faults of every kind and
+// random kill -9 restarts, and after every ending and every restart checks
+// the bench's ground truth, never the daemon's belief:
+//
+//   - the winding current is zero and the output off (the daemon halts
+//     before it records an ending, and before it listens after a start);
+//   - every stored loop is stored once, and a finished run has its loop;
+//   - no stored sample has a channel out of step (shiftedSamples);
+//   - every fault that fired while a run was under way is visible in that
+//     run's stored reason or events (kind by kind, see evidence);
+//   - the daemon never panicked (its stderr).
+//
+// Short by default (a few runs, for CI); HYSTD_CAMPAIGN=long runs the long
+// form (150 runs, up to 14 faults each, 45 % of them killed; floors ≥ 100
+// runs, ≥ 1000 faults, ≥ 50 kills; about 20 minutes on two cores). HYSTD_CAMPAIGN_SEED fixes the random draws. The campaign runs in
+// real time with short recipes; campaignClock is where a simulated clock
+// goes once the bench and the daemon share one.
+//
+// Figures of a long run are printed at the end (t.Log) and, with
+// HYSTD_CAMPAIGN_REPORT=FILE, written as JSON to FILE.
+func TestCampaignFaultsAndKills(t *testing.T) {
+	if _, err := exec.LookPath("go"); err != nil {
+		t.Skip("the campaign builds hystd with the go command, which is not on PATH")
+	}
+	long := os.Getenv("HYSTD_CAMPAIGN") == "long"
+	plan := campaignPlan{runs: 5, maxFaults: 4, killP: 0.4}
+	if long {
+		plan = campaignPlan{runs: 150, maxFaults: 14, killP: 0.45}
+	}
+	seed := uint64(time.Now().UnixNano())
+	if s := os.Getenv("HYSTD_CAMPAIGN_SEED"); s != "" {
+		v, err := strconv.ParseUint(s, 10, 64)
+		if err != nil {
+			t.Fatalf("HYSTD_CAMPAIGN_SEED: %v", err)
+		}
+		seed = v
+	}
+	t.Logf("campaign seed %d (HYSTD_CAMPAIGN_SEED=%d repeats the draws)", seed, seed)
+	c := newCampaign(t, seed)
+	c.report = os.Getenv("HYSTD_CAMPAIGN_REPORT")
+	c.run(plan)
+	rep, _ := json.MarshalIndent(c.fig, "", "  ")
+	t.Logf("campaign figures:\n%s", rep)
+	if f := os.Getenv("HYSTD_CAMPAIGN_REPORT"); f != "" {
+		if err := os.WriteFile(f, rep, 0o644); err != nil {
+			t.Error(err)
+		}
+	}
+	if long && (c.fig.Runs < 100 || c.fig.FaultsTotal < 1000 || c.fig.Kills < 50) {
+		t.Errorf("long campaign below its floor: %d runs, %d faults, %d kills", c.fig.Runs, c.fig.FaultsTotal, c.fig.Kills)
+	}
+}
+
+type campaignPlan struct {
+	runs      int
+	maxFaults int     // per run, drawn uniformly in [1, maxFaults]
+	killP     float64 // chance a run is ended by kill -9
+}
+
+// campaignFigures is what a campaign reports.
+type campaignFigures struct {
+	Seed             uint64         `json:"seed"`
+	Runs             int            `json:"runs"`
+	States           map[string]int `json:"states"`
+	FaultsByKind     map[string]int `json:"faults_by_kind"`
+	FaultsTotal      int            `json:"faults_total"`
+	FaultsInRuns     int            `json:"faults_in_runs"`      // fired while a run was under way, not killed
+	FaultsInvisible  int            `json:"faults_invisible"`    // of those, without evidence in the run (garble excepted)
+	GarbleInvisible  int            `json:"garble_invisible"`    // garbles with no evidence (a flipped letter in a message text parses)
+	FaultsKilledRuns int            `json:"faults_killed_runs"`  // fired in runs ended by kill -9 (not checked)
+	FaultsBetween    int            `json:"faults_between_runs"` // fired after a run's ending: at halts, opens, start-ups
+	Kills            int            `json:"kills"`
+	Restarts         int            `json:"restarts"`
+	Loops            int            `json:"loops"`
+	Points           int            `json:"raw_samples"`
+	Energised        int            `json:"energised_endings"`
+	Shifted          int            `json:"shifted_samples"`
+	Duplicates       int            `json:"duplicate_loops"`
+	MissingLoops     int            `json:"finished_runs_without_loop"`
+	Panics           int            `json:"panics"`
+	Elapsed          string         `json:"elapsed"`
+}
+
+type injection struct {
+	kind string
+	at   time.Time
+}
+
+type campaign struct {
+	t      *testing.T
+	rng    *rand.Rand
+	bench  *sim.Bench
+	dir    string
+	bin    string
+	addr   string
+	token  string
+	db     string
+	child  *exec.Cmd
+	exited chan error
+	logs   []string
+	fig    campaignFigures
+	report string // written after every run when not ""
+}
+
+// campaignClock is the campaign's time source: the wall clock, as the
+// bench and the daemon run in real time for now.
+var campaignClock = struct {
+	Now   func() time.Time
+	Sleep func(time.Duration)
+}{time.Now, time.Sleep}
+
+func newCampaign(t *testing.T, seed uint64) *campaign {
+	c := &campaign{t: t, rng: rand.New(rand.NewPCG(seed, 0xca)), dir: t.TempDir(), token: "campaign-token-0123456789"}
+	c.fig = campaignFigures{Seed: seed, States: map[string]int{}, FaultsByKind: map[string]int{}}
+	c.bin = filepath.Join(c.dir, "hystd")
+	build := exec.Command("go", "build", "-o", c.bin, ".")
+	if out, err := build.CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	cfg, err := sim.DefaultBench()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg.Seed = seed
+	b, err := sim.Start(context.Background(), cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { b.Close() })
+	c.bench = b
+	links := filepath.Join(c.dir, "ports")
+	if _, err := sim.MakeLinks(links, b.Ports()); err != nil {
+		t.Fatal(err)
+	}
+	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, role := range sim.LinkNames {
+		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(filepath.Join(links, role)))
+	}
+	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c.addr = ln.Addr().String()
+	ln.Close()
+	c.db = filepath.Join(c.dir, "hystd.db")
+	write := func(name, data string) {
+		if err := os.WriteFile(filepath.Join(c.dir, name), []byte(data), 0o600); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write("fixture.yaml", string(fx))
+	write("specimen.yaml", string(sp))
+	write("token", c.token+"\n")
+	write("daemon.yaml", fmt.Sprintf("kind: daemon\nhttp: {addr: %q, token_file: token}\nstore: {path: %s}\nlog: {level: info}\nfixtures:\n  - {fixture: fixture.yaml, specimen: specimen.yaml}\n", c.addr, c.db))
+	if err := os.Mkdir(filepath.Join(c.dir, "locks"), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(c.stop)
+	return c
+}
+
+// start starts `hystd serve` and waits for /healthz; the daemon halts the
+// supply before it listens, so the truth must be safe at once.
+func (c *campaign) start(why string) {
+	t := c.t
+	logf := filepath.Join(c.dir, fmt.Sprintf("serve-%03d.log", len(c.logs)))
+	f, err := os.Create(logf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c.logs = append(c.logs, logf)
+	cmd := exec.Command(c.bin, "serve", "--config", filepath.Join(c.dir, "daemon.yaml"))
+	cmd.Stdout, cmd.Stderr = f, f
+	cmd.Env = append(os.Environ(), link.LockDirEnv+"="+filepath.Join(c.dir, "locks"))
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	c.child, c.exited = cmd, make(chan error, 1)
+	go func() { c.exited <- cmd.Wait(); f.Close() }()
+	deadline := campaignClock.Now().Add(60 * time.Second)
+	for {
+		resp, err := http.Get("http://" + c.addr + "/healthz")
+		if err == nil {
+			resp.Body.Close()
+			if resp.StatusCode == http.StatusOK {
+				break
+			}
+		}
+		select {
+		case err := <-c.exited:
+			b, _ := os.ReadFile(logf)
+			t.Fatalf("hystd serve exited at %s: %v\n%s", why, err, b)
+		default:
+		}
+		if campaignClock.Now().After(deadline) {
+			b, _ := os.ReadFile(logf)
+			t.Fatalf("hystd serve not healthy within 60 s at %s\n%s", why, b)
+		}
+		campaignClock.Sleep(20 * time.Millisecond)
+	}
+	c.assertSafe(why, 0)
+}
+
+// kill ends the daemon with SIGKILL, as a crash or an OOM kill would.
+func (c *campaign) kill() {
+	_ = c.child.Process.Signal(syscall.SIGKILL)
+	<-c.exited
+	c.fig.Kills++
+}
+
+func (c *campaign) stop() {
+	if c.child == nil || c.child.ProcessState != nil {
+		return
+	}
+	_ = c.child.Process.Signal(syscall.SIGTERM)
+	select {
+	case <-c.exited:
+	case <-time.After(60 * time.Second):
+		c.child.Process.Kill()
+		<-c.exited
+		c.t.Error("hystd serve did not stop within 60 s of SIGTERM")
+	}
+}
+
+// haltTime bounds how long after an ending (or a start) the truth may take
+// to show zero: the ending is recorded after the halt, and Serve halts
+// before it listens, so only the bench's own stepping remains.
+const haltTime = 500 * time.Millisecond
+
+func (c *campaign) assertSafe(when string, within time.Duration) {
+	deadline := campaignClock.Now().Add(within)
+	for {
+		tr := c.bench.Truth()
+		if math.Abs(float64(tr.I)) < 5e-3 && !tr.Output {
+			return
+		}
+		if campaignClock.Now().After(deadline) {
+			c.fig.Energised++
+			c.t.Errorf("%s: the bench reads %.4g A, output on = %v", when, float64(tr.I), tr.Output)
+			return
+		}
+		campaignClock.Sleep(10 * time.Millisecond)
+	}
+}
+
+func (c *campaign) submit(recipe string) string {
+	req, _ := http.NewRequest(http.MethodPost, "http://"+c.addr+"/api/v1/runs", strings.NewReader(recipe))
+	req.Header.Set("Authorization", "Bearer "+c.token)
+	req.Header.Set("Content-Type", "application/yaml")
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		c.t.Fatalf("submit: %v", err)
+	}
+	defer resp.Body.Close()
+	var out struct {
+		RunID string `json:"run_id"`
+		Error string `json:"error"`
+	}
+	_ = json.NewDecoder(resp.Body).Decode(&out)
+	if resp.StatusCode != http.StatusAccepted || out.RunID == "" {
+		c.t.Fatalf("submit: %s %+v", resp.Status, out)
+	}
+	return out.RunID
+}
+
+// stored reads a run, its events and its loops (with raw samples) from
+// the store the daemon writes (SQLite in WAL mode: a second reader is fine).
+func (c *campaign) stored(id string) (record.Run, []record.Event, []record.Loop, error) {
+	ctx := context.Background()
+	st, err := store.Open(ctx, c.db)
+	if err != nil {
+		return record.Run{}, nil, nil, err
+	}
+	defer st.Close()
+	r, err := st.Run(ctx, id)
+	if err != nil {
+		return r, nil, nil, err
+	}
+	evs, _ := st.Events(ctx, id)
+	ls, err := st.Loops(ctx, id)
+	if err != nil {
+		return r, evs, nil, err
+	}
+	var full []record.Loop
+	for _, l := range ls {
+		fl, err := st.Loop(ctx, id, l.N)
+		if err != nil {
+			return r, evs, nil, err
+		}
+		full = append(full, fl)
+	}
+	return r, evs, full, nil
+}
+
+func ended(s record.State) bool {
+	return s == record.Finished || s == record.Failed || s == record.Aborted
+}
+
+// campaignLoop steps the field by 200 A/m per sample (see shiftedSamples):
+// 10 points over ±500 A/m at 300 A/m/s, about 8 s a run; slow enough that
+// the jump after a 1.5 s stall (450 A/m, 0.32 A) settles within the
+// supply's 4 ms settle time at its 100 A/s slew.
+const campaignLoop = `kind: recipe
+name: campaign-loop
+steps:
+  - record_loop: {amplitude: 500 A/m, rate: 300 A/m/s, points: 10, hold: 300ms}
+`
+
+// faultKinds are drawn with these weights: mostly faults a run survives
+// (a reply lost, late or garbled is read again), some that end it.
+var faultKinds = []struct {
+	kind   string
+	weight float64
+}{{sim.FaultDrop, 0.35}, {sim.FaultDelay, 0.2}, {sim.FaultGarble, 0.35}, {sim.FaultError, 0.04}, {sim.FaultHangup, 0.03}, {sim.FaultTrip, 0.03}}
+
+var faultRoles = []string{sim.RoleSupply, sim.RoleIntegrator, sim.RoleFieldMeter, sim.RoleThermometer}
+
+func (c *campaign) randomFault(n int) sim.Fault {
+	x := c.rng.Float64()
+	kind := faultKinds[len(faultKinds)-1].kind
+	for _, k := range faultKinds {
+		if x < k.weight {
+			kind = k.kind
+			break
+		}
+		x -= k.weight
+	}
+	f := sim.Fault{Kind: kind, Role: faultRoles[c.rng.IntN(len(faultRoles))]}
+	switch kind {
+	case sim.FaultTrip:
+		f.Role = sim.RoleSupply
+	case sim.FaultDelay:
+		f.Delay = configs.Duration(600*time.Millisecond + time.Duration(c.rng.IntN(300))*time.Millisecond)
+	case sim.FaultError:
+		f.Code, f.Message = -300-c.rng.IntN(50), fmt.Sprintf("campaign fault %d", n)
+	}
+	return f
+}
+
+// evidence is what a run's reason and events show for a fault of a kind
+// that fired while it was under way.
+var evidence = map[string][]string{
+	sim.FaultDrop:   {"read again", "no reply", "timeout", "resynchronis", "out of step", "could not be opened"},
+	sim.FaultDelay:  {"read again", "no reply", "timeout", "resynchronis", "out of step", "could not be opened"},
+	sim.FaultGarble: {"read again", "out of step", "does not", "not a number", "resynchronis", "could not be opened", "timeout"},
+	sim.FaultHangup: {"lost communication", "disconnected", "reconnect", "could not be opened"},
+	sim.FaultError:  {"campaign fault"},
+	sim.FaultTrip:   {"tripped"},
+}
+
+func (c *campaign) run(plan campaignPlan) {
+	t := c.t
+	t0 := campaignClock.Now()
+	c.start("first start")
+	c.fig.Restarts = 0
+	loopsSeen := map[string]bool{}
+	for k := 0; k < plan.runs; k++ { // on after a failure: the figures count every run
+		if c.bench.Truth().Tripped {
+			c.clearTrip()
+		}
+		before := c.bench.Injected()
+		id := c.submit(campaignLoop)
+		c.fig.Runs++
+		nf := 1 + c.rng.IntN(plan.maxFaults)
+		killAt := time.Duration(-1)
+		if c.rng.Float64() < plan.killP {
+			// Mostly after the open, while the winding carries current.
+			killAt = time.Duration(1200+c.rng.IntN(4000)) * time.Millisecond
+		}
+		offsets := make([]time.Duration, nf)
+		for i := range offsets {
+			offsets[i] = time.Duration(200+c.rng.IntN(7000)) * time.Millisecond
+		}
+		sort.Slice(offsets, func(i, j int) bool { return offsets[i] < offsets[j] })
+		start := campaignClock.Now()
+		killed := false
+		var endInj map[string]int // faults fired when the ending was first seen
+		var immediate []injection // error, hangup, trip: fired when injected
+		state := func() record.State {
+			r, _, _, err := c.stored(id)
+			if err != nil {
+				return ""
+			}
+			return r.State
+		}
+		for i, off := range offsets {
+			if killAt >= 0 && off > killAt {
+				break
+			}
+			campaignClock.Sleep(time.Until(start.Add(off)))
+			if ended(state()) {
+				// No faults between runs: armed on an idle line they would
+				// fail the next run at its open, and the next, and no run
+				// would ever finish (seen: 170 runs, none finished).
+				endInj = c.bench.Injected()
+				break
+			}
+			f := c.randomFault(k*100 + i)
+			at := campaignClock.Now()
+			if err := c.bench.Inject(f); err != nil {
+				t.Fatalf("inject %+v: %v", f, err)
+			}
+			if f.Kind == sim.FaultError || f.Kind == sim.FaultHangup || f.Kind == sim.FaultTrip {
+				immediate = append(immediate, injection{f.Kind, at})
+			}
+		}
+		if killAt >= 0 {
+			campaignClock.Sleep(time.Until(start.Add(killAt)))
+			if !ended(state()) {
+				c.kill()
+				killed = true
+				c.fig.Restarts++
+				c.start(fmt.Sprintf("restart after kill -9 in run %d", k))
+			}
+		}
+		var r record.Run
+		var evs []record.Event
+		var loops []record.Loop
+		deadline := campaignClock.Now().Add(90 * time.Second)
+		for {
+			var err error
+			inj := c.bench.Injected()
+			r, evs, loops, err = c.stored(id)
+			if err == nil && ended(r.State) {
+				if endInj == nil {
+					endInj = inj
+				}
+				break
+			}
+			if campaignClock.Now().After(deadline) {
+				t.Fatalf("run %d (%s) did not end within 90 s: %s", k, id, r.State)
+			}
+			campaignClock.Sleep(50 * time.Millisecond)
+		}
+		c.assertSafe(fmt.Sprintf("after run %d (%s %s: %s)", k, id, r.State, r.Reason), haltTime)
+		after := c.bench.Injected()
+		if c.report != "" {
+			c.fig.Elapsed = campaignClock.Now().Sub(t0).Round(time.Second).String()
+			rep, _ := json.MarshalIndent(c.fig, "", "  ")
+			_ = os.WriteFile(c.report, rep, 0o644)
+		}
+		// Faults that act when injected count for the run only when
+		// injected before its ending (less the time the ending takes to
+		// be stored and seen); reply faults count when they fired before
+		// the ending was seen.
+		inRun := map[string]int{}
+		for kind := range after {
+			inRun[kind] = endInj[kind] - before[kind]
+		}
+		for _, kind := range []string{sim.FaultError, sim.FaultHangup, sim.FaultTrip} {
+			inRun[kind] = 0
+		}
+		for _, in := range immediate {
+			// A run that never started (its instruments could not be
+			// opened) had nothing to observe them with: between runs.
+			if !r.Started.IsZero() && in.at.Before(r.Ended.Add(-200*time.Millisecond)) {
+				inRun[in.kind]++
+			}
+		}
+		c.fig.States[string(r.State)]++
+		// Killed under way: failed, interrupted; killed while still queued
+		// (the open not begun): aborted, never started.
+		if killed && !(r.State == record.Failed && strings.Contains(r.Reason, "interrupted")) &&
+			!(r.State == record.Aborted && strings.Contains(r.Reason, "before the run started")) {
+			t.Errorf("run %d killed: recorded %s %q, want failed, interrupted (or aborted, never started)", k, r.State, r.Reason)
+		}
+		// Loops: once each; a finished run has its one loop; no channel
+		// out of step.
+		for _, l := range loops {
+			key := fmt.Sprintf("%s/%d", id, l.N)
+			if loopsSeen[key] {
+				c.fig.Duplicates++
+				t.Errorf("loop %s stored twice", key)
+			}
+			loopsSeen[key] = true
+			c.fig.Loops++
+			c.fig.Points += len(l.Raw)
+			if nI, nB := shiftedSamples(l.Raw, 0.002, 1e-4); nI+nB > 0 {
+				c.fig.Shifted += nI + nB
+				t.Errorf("run %d loop %d: %d samples with the current, %d with the field out of step", k, l.N, nI, nB)
+			}
+		}
+		if r.State == record.Finished && len(loops) != 1 {
+			c.fig.MissingLoops++
+			t.Errorf("run %d finished with %d loops", k, len(loops))
+		}
+		// Faults that fired while the run was under way.
+		text := r.Reason
+		for _, e := range evs {
+			text += "\n" + e.Text
+		}
+		for kind, n := range after {
+			c.fig.FaultsByKind[kind] += n - before[kind]
+			c.fig.FaultsTotal += n - before[kind]
+			d := inRun[kind]
+			c.fig.FaultsBetween += n - before[kind] - d
+			if d <= 0 {
+				continue
+			}
+			if killed {
+				c.fig.FaultsKilledRuns += d
+				continue
+			}
+			c.fig.FaultsInRuns += d
+			seen := false
+			for _, s := range evidence[kind] {
+				seen = seen || strings.Contains(text, s)
+			}
+			switch {
+			case seen:
+			case kind == sim.FaultGarble:
+				c.fig.GarbleInvisible += d
+			default:
+				c.fig.FaultsInvisible += d
+				t.Errorf("run %d (%s %s): %d %s fault(s) fired and left no trace in its reason or events:\n%s", k, id, r.State, d, kind, text)
+			}
+		}
+	}
+	c.stop()
+	c.assertSafe("after SIGTERM", haltTime)
+	for _, l := range c.logs {
+		b, _ := os.ReadFile(l)
+		if bytes.Contains(b, []byte("panic:")) || bytes.Contains(b, []byte("goroutine ")) {
+			c.fig.Panics++
+			t.Errorf("%s shows a panic:\n%s", l, b)
+		}
+	}
+	c.fig.Elapsed = campaignClock.Now().Sub(t0).Round(time.Second).String()
+}
+
+// clearTrip is what the operator does after a trip (the profile's
+// trip_clear): *RST to the supply, once the winding has cooled. The daemon
+// is idle and holds no port between runs.
+func (c *campaign) clearTrip() {
+	f, err := os.OpenFile(c.bench.Ports()[sim.RoleSupply], os.O_RDWR, 0)
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	defer f.Close()
+	f.WriteString("*RST\n")
+	deadline := campaignClock.Now().Add(30 * time.Second)
+	for c.bench.Truth().Tripped {
+		if campaignClock.Now().After(deadline) {
+			c.t.Fatal("trip not cleared by *RST within 30 s")
+		}
+		campaignClock.Sleep(200 * time.Millisecond)
+		f.WriteString("*RST\n")
+	}
+	// The replies to nothing stay on the line: the next open discards them.
+}
+
+// shiftedSamples counts samples whose channels do not belong together (see
+// acq/daemon's shift test): the current read back off its setpoint, or the
+// probe field off the straight line through all (I, B_probe) — on the
+// bench the probe reads μ0·N1·I/l_m (Ampère's law on the mean path).
+func shiftedSamples(raw []record.Sample, tolI, tolB float64) (nI, nB int) {
+	var n, si, sb, sii, sib float64
+	for _, s := range raw {
+		if math.IsNaN(s.BProbe) || math.IsNaN(s.I) {
+			continue
+		}
+		n++
+		si += s.I
+		sb += s.BProbe
+		sii += s.I * s.I
+		sib += s.I * s.BProbe
+	}
+	slope, icpt := 0.0, 0.0
+	if d := n*sii - si*si; n > 2 && d != 0 {
+		slope = (n*sib - si*sb) / d
+		icpt = (sb - slope*si) / n
+	}
+	for _, s := range raw {
+		if math.Abs(s.I-s.Setpoint) > tolI {
+			nI++
+		}
+		if !math.IsNaN(s.BProbe) && slope != 0 && math.Abs(s.BProbe-(icpt+slope*s.I)) > tolB {
+			nB++
+		}
+	}
+	return nI, nB
+}
