@@ -50,7 +50,12 @@ func TestShippedProfilesThroughDrivers(t *testing.T) {
 			b, clk := startBench(t, benchWith(t, p.Role, name))
 			o := profile.Options{Log: slog.New(slog.DiscardHandler),
 				Sleep: func(ctx context.Context, d time.Duration) error { clk.Advance(d); return ctx.Err() }}
-			r, err := profile.Open(ctx, profile.Spec{Port: b.Ports()[p.Role], Profile: name}, o)
+			// Read timeouts stay in real time while the bench's clock is
+			// manual: after an Advance the bench integrates that much
+			// physics before it answers, which under the race detector on a
+			// loaded machine can outlast the profile's 500 ms.
+			p.Timeout = "5s"
+			r, err := profile.OpenProfile(ctx, p, profile.Spec{Port: b.Ports()[p.Role], Profile: name}, o)
 			if err != nil {
 				t.Fatal(err)
 			}
