@@ -14,6 +14,7 @@ import (
 	"hystd/acq/grade"
 	"hystd/acq/influx"
 	"hystd/acq/process"
+	"hystd/acq/recipe"
 	"hystd/configs"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
@@ -30,6 +31,15 @@ type Warner func(doc *configs.Doc) configs.Errors
 // warners maps a document kind to its warner.
 var warners = map[string]Warner{
 	"specimen": specimenWarnings,
+	// A recipe on its own: no fixture, so the limits are checked when it is
+	// submitted to one.
+	recipe.Kind: func(doc *configs.Doc) configs.Errors {
+		r, err := recipe.FromDoc(doc, nil)
+		if err != nil {
+			return nil
+		}
+		return r.Warnings()
+	},
 }
 
 // kinds maps a document kind to its validator.
@@ -40,6 +50,7 @@ var kinds = map[string]Validator{
 	"bench":              func(doc *configs.Doc) error { _, err := sim.BenchFrom(doc); return err },
 	"influx":             func(doc *configs.Doc) error { _, err := influx.ConfigFrom(doc); return err },
 	"grade":              func(doc *configs.Doc) error { _, err := grade.FromDoc(doc); return err },
+	recipe.Kind:          func(doc *configs.Doc) error { _, err := recipe.FromDoc(doc, nil); return err },
 }
 
 // File validates the file at path. The error lists every problem found, one
