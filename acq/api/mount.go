@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"net/http"
-
 )
 
 // SpecimenRunner is a Runner that can run a recipe on a chosen specimen

@@ -5,7 +5,6 @@
 package check
 
 import (
-	"errors"
 	"fmt"
 	"sort"
 	"strings"
@@ -51,13 +50,6 @@ var kinds = map[string]Validator{
 	"influx":             func(doc *configs.Doc) error { _, err := influx.ConfigFrom(doc); return err },
 	"grade":              func(doc *configs.Doc) error { _, err := grade.FromDoc(doc); return err },
 	recipe.Kind:          func(doc *configs.Doc) error { _, err := recipe.FromDoc(doc, nil); return err },
-}
-
-// File validates the file at path. The error lists every problem found, one
-// per line, as FILE:LINE: key: problem.
-func File(path string) error {
-	_, err := Report(path)
-	return err
 }
 
 // Report validates the file at path like File and, when it is valid,
@@ -174,17 +166,6 @@ func validateFixture(doc *configs.Doc) error {
 		}
 	}
 	return es.Err()
-}
-
-// Files validates every path and returns one error joining all problems, or nil.
-func Files(paths []string) error {
-	var all []error
-	for _, p := range paths {
-		if err := File(p); err != nil {
-			all = append(all, err)
-		}
-	}
-	return errors.Join(all...)
 }
 
 // RegisterWarner adds the warner of a kind registered with Register.

@@ -509,17 +509,3 @@ func article(role string) string {
 	}
 	return "a " + role
 }
-
-// CurrentRange returns the settable current range [lo, hi] in A of the
-// supply profile named (or at path) name.
-func CurrentRange(name string) (lo, hi float64, err error) {
-	p, err := Load(name)
-	if err != nil {
-		return 0, 0, err
-	}
-	if p.Role != RoleSupply {
-		return 0, 0, fmt.Errorf("profile %s is a %s profile, not a supply", p.Name, p.Role)
-	}
-	r := p.Operations[OpSetCurrent].Range
-	return r[0], r[1], nil
-}
