@@ -176,9 +176,10 @@ func RegisterWarner(kind string, w Warner) {
 	warners[kind] = w
 }
 
-// Register adds the validator of a kind. Packages of acq that define a kind
-// call it from an init function; kinds defined below acq (instrument
-// profiles, benches) are listed above.
+// Register adds the validator of a kind. A package above this one that
+// defines a kind (acq/daemon) calls it from an init function; the kinds of
+// the packages below (instrument profiles, benches, recipes…) are listed
+// above.
 func Register(kind string, v Validator) {
 	if _, dup := kinds[kind]; dup {
 		panic(fmt.Sprintf("check: kind %q registered twice", kind))
