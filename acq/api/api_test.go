@@ -19,7 +19,6 @@ import (
 	"testing"
 	"time"
 
-	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
 )
@@ -718,8 +717,8 @@ func TestThinKeepsLast(t *testing.T) {
 
 type listingRunner struct{ *fakeRunner }
 
-func (listingRunner) Status() []daemon.FixtureStatus {
-	return []daemon.FixtureStatus{{Name: "ring-bench", ActiveRun: "RUN-X"}}
+func (listingRunner) Status() []FixtureStatus {
+	return []FixtureStatus{{Name: "ring-bench", ActiveRun: "RUN-X"}}
 }
 
 func TestInfo(t *testing.T) {
@@ -774,7 +773,7 @@ type fixtureRunner struct{ got []string }
 func (f *fixtureRunner) Submit(ctx context.Context, fixture string, data []byte) (string, error) {
 	f.got = append(f.got, fixture)
 	if fixture == "" {
-		return "", fmt.Errorf("%w: this daemon drives ring-bench, yoke-9; name one (?fixture=NAME)", daemon.ErrFixtureNeeded)
+		return "", fmt.Errorf("%w: this daemon drives ring-bench, yoke-9; name one (?fixture=NAME)", ErrFixtureNeeded)
 	}
 	return "RUN-1", nil
 }
@@ -818,7 +817,7 @@ func TestEventStreamOutlivesServerTimeouts(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() {
-		done <- serveListener(ctx, ln, h, daemon.HTTPTimeouts{ReadHeader: limit, Read: limit, Write: limit, Idle: limit})
+		done <- serveListener(ctx, ln, h, HTTPTimeouts{ReadHeader: limit, Read: limit, Write: limit, Idle: limit})
 	}()
 	defer func() {
 		cancel()

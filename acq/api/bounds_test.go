@@ -10,7 +10,6 @@ import (
 	"testing"
 	"time"
 
-	"hystd/acq/daemon"
 	"hystd/acq/record"
 )
 
@@ -78,7 +77,7 @@ func TestHostGuard(t *testing.T) {
 		{"[::]:8740", nil, "[2001:db8::1]:8740", 200},
 	}
 	for _, tc := range tests {
-		h := daemon.HostGuard(ok, tc.bound, tc.names)
+		h := HostGuard(ok, tc.bound, tc.names)
 		req := httptest.NewRequest("GET", "/api/v1/runs", nil)
 		req.Host = tc.host
 		rec := httptest.NewRecorder()

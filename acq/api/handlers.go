@@ -12,7 +12,6 @@ import (
 	"strings"
 	"time"
 
-	"hystd/acq/daemon"
 	"hystd/acq/engine"
 	"hystd/acq/plot"
 	"hystd/acq/record"
@@ -33,7 +32,7 @@ func (s *server) health(w http.ResponseWriter, r *http.Request) {
 // one definition in calib/units, so the page converts nothing on its own.
 func (s *server) info(w http.ResponseWriter, r *http.Request) {
 	oe, g, mgoe := plot.CGSFactors()
-	fixtures := []daemon.FixtureStatus{}
+	fixtures := []FixtureStatus{}
 	if st, ok := s.o.Runner.(fixtureLister); ok {
 		fixtures = append(fixtures, st.Status()...)
 	}
@@ -53,7 +52,7 @@ func (s *server) info(w http.ResponseWriter, r *http.Request) {
 
 // fixtureLister is a Runner that can list its fixtures (the daemon does).
 type fixtureLister interface {
-	Status() []daemon.FixtureStatus
+	Status() []FixtureStatus
 }
 
 // parseTime accepts RFC 3339 or a date YYYY-MM-DD (UTC). For an end bound a
@@ -359,19 +358,19 @@ func (s *server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	case errors.Is(err, record.ErrNotFound):
 		writeError(w, http.StatusNotFound, "%v", err)
 	case errors.Is(err, ErrInvalid), errors.As(err, &ce), errors.As(err, &refused),
-		errors.Is(err, daemon.ErrUnknownFixture), errors.Is(err, daemon.ErrFixtureNeeded), errors.Is(err, daemon.ErrUnknownSpecimen),
+		errors.Is(err, ErrUnknownFixture), errors.Is(err, ErrFixtureNeeded), errors.Is(err, ErrUnknownSpecimen),
 		errors.As(err, &br) && br.BadRequest():
 		writeError(w, http.StatusBadRequest, "%v", err)
-	case errors.Is(err, daemon.ErrNotActive):
+	case errors.Is(err, ErrNotActive):
 		// Unknown to the store as well: 404; a run that has ended: 409.
 		if _, rerr := s.o.Reader.Run(r.Context(), r.PathValue("id")); errors.Is(rerr, record.ErrNotFound) {
 			writeError(w, http.StatusNotFound, "run %s: %v", r.PathValue("id"), rerr)
 			return
 		}
 		writeError(w, http.StatusConflict, "%v", err)
-	case errors.Is(err, ErrConflict), errors.Is(err, daemon.ErrQueueFull), errors.Is(err, daemon.ErrNotWaiting):
+	case errors.Is(err, ErrConflict), errors.Is(err, ErrQueueFull), errors.Is(err, ErrNotWaiting):
 		writeError(w, http.StatusConflict, "%v", err)
-	case errors.Is(err, daemon.ErrStopping):
+	case errors.Is(err, ErrStopping):
 		writeError(w, http.StatusServiceUnavailable, "%v", err)
 	case r.Context().Err() != nil:
 		writeError(w, http.StatusServiceUnavailable, "request cancelled or timed out: %v", err)

@@ -4,8 +4,6 @@ import (
 	"context"
 	"fmt"
 	"net/http"
-
-	"hystd/acq/daemon"
 )
 
 // SpecimenRunner is a Runner that can run a recipe on a chosen specimen
@@ -18,7 +16,7 @@ type SpecimenRunner interface {
 // mounted (GET /api/v1/mounts, POST /api/v1/runs/{id}/mount).
 type Mounter interface {
 	ConfirmMount(ctx context.Context, runID string) error
-	Waiting() []daemon.MountWait
+	Waiting() []MountWait
 }
 
 // SpecimenLister is a Runner that knows its specimen registry (GET /api/v1/specimens).
@@ -54,7 +52,7 @@ func (s *server) confirmMount(w http.ResponseWriter, r *http.Request) {
 }
 
 func (s *server) listMounts(w http.ResponseWriter, r *http.Request) {
-	out := []daemon.MountWait{}
+	out := []MountWait{}
 	if m, ok := s.o.Runner.(Mounter); ok {
 		if ws := m.Waiting(); ws != nil {
 			out = ws

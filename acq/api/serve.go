@@ -6,13 +6,7 @@ import (
 	"net"
 	"net/http"
 	"time"
-
-	"hystd/acq/daemon"
 )
-
-// DefaultAddr is where the API listens unless configured: loopback only,
-// the same default as the daemon's http.addr.
-const DefaultAddr = daemon.DefaultAddr
 
 // Serve listens on addr ("" means DefaultAddr) and serves h until ctx is
 // cancelled, then shuts down: new connections are refused, requests in
@@ -30,16 +24,16 @@ func Serve(ctx context.Context, addr string, h http.Handler) error {
 }
 
 // ServeListener is Serve on an open listener, which it closes. The server
-// is daemon.NewHTTPServer with daemon.DefaultHTTPTimeouts; the event stream
+// is NewHTTPServer with DefaultHTTPTimeouts; the event stream
 // lifts the read and write timeouts for itself.
 func ServeListener(ctx context.Context, ln net.Listener, h http.Handler) error {
-	return serveListener(ctx, ln, h, daemon.DefaultHTTPTimeouts)
+	return serveListener(ctx, ln, h, DefaultHTTPTimeouts)
 }
 
-func serveListener(ctx context.Context, ln net.Listener, h http.Handler, t daemon.HTTPTimeouts) error {
+func serveListener(ctx context.Context, ln net.Listener, h http.Handler, t HTTPTimeouts) error {
 	// Only requests naming this address (or localhost on a loopback) are
 	// served: a re-pointed name (DNS rebinding) is refused.
-	srv := daemon.NewHTTPServer(ctx, daemon.HostGuard(h, ln.Addr().String(), nil), t)
+	srv := NewHTTPServer(ctx, HostGuard(h, ln.Addr().String(), nil), t)
 	done := make(chan error, 1)
 	go func() { done <- srv.Serve(ln) }()
 	select {
@@ -61,7 +55,7 @@ func serveListener(ctx context.Context, ln net.Listener, h http.Handler, t daemo
 
 // ForDaemon is a daemon.APIFactory: the API and review page over the parts
 // `hystd serve` hands it (store, daemon, live hub, token, metrics).
-func ForDaemon(p daemon.APIParts) (http.Handler, error) {
+func ForDaemon(p DaemonParts) (http.Handler, error) {
 	return New(Options{Reader: p.Reader, Runner: p.Runner, Live: p.Live, Gatherer: p.Metrics,
 		Token: p.Token, Version: p.Version, Logger: p.Log, Outbox: p.Outbox})
 }

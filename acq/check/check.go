@@ -5,7 +5,6 @@
 package check
 
 import (
-	"errors"
 	"fmt"
 	"sort"
 	"strings"
@@ -14,6 +13,7 @@ import (
 	"hystd/acq/grade"
 	"hystd/acq/influx"
 	"hystd/acq/process"
+	"hystd/acq/recipe"
 	"hystd/configs"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
@@ -30,6 +30,15 @@ type Warner func(doc *configs.Doc) configs.Errors
 // warners maps a document kind to its warner.
 var warners = map[string]Warner{
 	"specimen": specimenWarnings,
+	// A recipe on its own: no fixture, so the limits are checked when it is
+	// submitted to one.
+	recipe.Kind: func(doc *configs.Doc) configs.Errors {
+		r, err := recipe.FromDoc(doc, nil)
+		if err != nil {
+			return nil
+		}
+		return r.Warnings()
+	},
 }
 
 // kinds maps a document kind to its validator.
@@ -40,13 +49,7 @@ var kinds = map[string]Validator{
 	"bench":              func(doc *configs.Doc) error { _, err := sim.BenchFrom(doc); return err },
 	"influx":             func(doc *configs.Doc) error { _, err := influx.ConfigFrom(doc); return err },
 	"grade":              func(doc *configs.Doc) error { _, err := grade.FromDoc(doc); return err },
-}
-
-// File validates the file at path. The error lists every problem found, one
-// per line, as FILE:LINE: key: problem.
-func File(path string) error {
-	_, err := Report(path)
-	return err
+	recipe.Kind:          func(doc *configs.Doc) error { _, err := recipe.FromDoc(doc, nil); return err },
 }
 
 // Report validates the file at path like File and, when it is valid,
@@ -165,17 +168,6 @@ func validateFixture(doc *configs.Doc) error {
 	return es.Err()
 }
 
-// Files validates every path and returns one error joining all problems, or nil.
-func Files(paths []string) error {
-	var all []error
-	for _, p := range paths {
-		if err := File(p); err != nil {
-			all = append(all, err)
-		}
-	}
-	return errors.Join(all...)
-}
-
 // RegisterWarner adds the warner of a kind registered with Register.
 func RegisterWarner(kind string, w Warner) {
 	if _, dup := warners[kind]; dup {
@@ -184,9 +176,10 @@ func RegisterWarner(kind string, w Warner) {
 	warners[kind] = w
 }
 
-// Register adds the validator of a kind. Packages of acq that define a kind
-// call it from an init function; kinds defined below acq (instrument
-// profiles, benches) are listed above.
+// Register adds the validator of a kind. A package above this one that
+// defines a kind (acq/daemon) calls it from an init function; the kinds of
+// the packages below (instrument profiles, benches, recipes…) are listed
+// above.
 func Register(kind string, v Validator) {
 	if _, dup := kinds[kind]; dup {
 		panic(fmt.Sprintf("check: kind %q registered twice", kind))

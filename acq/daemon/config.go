@@ -12,6 +12,7 @@ import (
 
 	"github.com/spf13/viper"
 
+	"hystd/acq/api"
 	"hystd/acq/config"
 	"hystd/acq/influx"
 	"hystd/acq/recipe"
@@ -22,7 +23,7 @@ import (
 const Kind = "daemon"
 
 // DefaultAddr is where the HTTP API listens when the config names no address.
-const DefaultAddr = "127.0.0.1:8740"
+const DefaultAddr = api.DefaultAddr
 
 // DefaultPoll is how often a watched folder is looked at.
 const DefaultPoll = 2 * time.Second
@@ -186,7 +187,7 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			l.token, l.TokenSet = tok, true
 		}
 	}
-	if !IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && !c.HTTP.OpenWithoutToken {
+	if !api.IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && !c.HTTP.OpenWithoutToken {
 		ce.add("http.addr", "%s is reachable from other machines and no http.token_file is set: every stored run (raw samples, config snapshots) would be readable from the network; set http.token_file, listen on 127.0.0.1, or set http.open_without_token: true to accept that", c.HTTP.Addr)
 	}
 	for i, h := range c.HTTP.Hosts {

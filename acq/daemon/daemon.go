@@ -21,6 +21,7 @@ import (
 	"sync"
 	"sync/atomic"
 
+	"hystd/acq/api"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/recipe"
@@ -32,14 +33,15 @@ import (
 const QueueLength = 32
 
 // Errors of Submit and Abort.
+// They are the API's (acq/api declares what a runner returns).
 var (
-	ErrUnknownFixture = errors.New("unknown fixture")
-	ErrNotActive      = errors.New("run is not queued or running")
-	ErrStopping       = errors.New("daemon is stopping")
-	ErrQueueFull      = errors.New("queue full")
+	ErrUnknownFixture = api.ErrUnknownFixture
+	ErrNotActive      = api.ErrNotActive
+	ErrStopping       = api.ErrStopping
+	ErrQueueFull      = api.ErrQueueFull
 	// ErrFixtureNeeded: Submit was given no fixture name and the daemon
 	// drives more than one (or none), so it cannot choose.
-	ErrFixtureNeeded = errors.New("no fixture named")
+	ErrFixtureNeeded = api.ErrFixtureNeeded
 )
 
 // Opened is a fixture's instruments opened for one run, with the loop
@@ -533,12 +535,7 @@ func haltLevel(text string) string {
 }
 
 // FixtureStatus is one fixture's state for /healthz.
-type FixtureStatus struct {
-	Name      string `json:"name"`
-	ActiveRun string `json:"active_run,omitempty"`
-	Queued    int    `json:"queued"`
-	Watch     string `json:"watch,omitempty"`
-}
+type FixtureStatus = api.FixtureStatus
 
 // Status lists the fixtures of the config in force.
 func (d *Daemon) Status() []FixtureStatus {

@@ -2,18 +2,18 @@ package daemon
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"path/filepath"
 	"sort"
 
+	"hystd/acq/api"
 	"hystd/acq/grade"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 )
 
 // ErrNotWaiting is returned by ConfirmMount for a run that is not waiting for its specimen.
-var ErrNotWaiting = errors.New("not waiting for a specimen to be mounted")
+var ErrNotWaiting = api.ErrNotWaiting
 
 // SubmitFor is Submit on a chosen specimen: an id of the config's specimen
 // registry or a specimen file ("" takes the recipe's specimen: key, else the
@@ -121,12 +121,7 @@ func (d *Daemon) ConfirmMount(_ context.Context, runID string) error {
 }
 
 // MountWait is a run waiting for its specimen to be mounted.
-type MountWait struct {
-	RunID    string `json:"run_id"`
-	Fixture  string `json:"fixture"`
-	Specimen string `json:"specimen"` // to be mounted
-	Mounted  string `json:"mounted"`  // on the fixture now, as far as the daemon knows
-}
+type MountWait = api.MountWait
 
 // Waiting lists the runs waiting for a specimen to be mounted.
 func (d *Daemon) Waiting() []MountWait {

@@ -1,20 +1,20 @@
 package daemon
 
 import (
-	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
 	"sort"
 	"strings"
 
+	"hystd/acq/api"
 	"hystd/acq/config"
 	"hystd/acq/grade"
 	"hystd/configs"
 )
 
 // ErrUnknownSpecimen: a specimen reference is neither a registered id nor a file.
-var ErrUnknownSpecimen = errors.New("unknown specimen")
+var ErrUnknownSpecimen = api.ErrUnknownSpecimen
 
 // Registry is the daemon's specimen registry and material grades, loaded
 // from the folders its config names. It is immutable once loaded.

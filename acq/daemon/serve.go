@@ -17,13 +17,11 @@ import (
 	"syscall"
 	"time"
 
-	"github.com/prometheus/client_golang/prometheus"
-
+	"hystd/acq/api"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/influx"
 	"hystd/acq/live"
-	"hystd/acq/outbox"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/buildinfo"
@@ -33,16 +31,7 @@ import (
 )
 
 // APIParts are what the HTTP API is built over.
-type APIParts struct {
-	Reader  record.Reader
-	Runner  Runner
-	Live    *live.Hub
-	Token   string              // bearer token for mutations; "": mutations refused
-	Metrics prometheus.Gatherer // the daemon's metrics, for the API's /metrics
-	Outbox  outbox.Store        // quarantined loops, for the API's /api/v1/outbox
-	Version string
-	Log     *slog.Logger
-}
+type APIParts = api.DaemonParts
 
 // APIFactory builds the HTTP API and review page.
 type APIFactory func(APIParts) (http.Handler, error)
@@ -160,11 +149,11 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		d.Stop("http.addr unusable")
 		return fmt.Errorf("%s: http.addr: %w", configPath, err)
 	}
-	if !IsLoopback(cfg.Config.HTTP.Addr) && !cfg.TokenSet {
+	if !api.IsLoopback(cfg.Config.HTTP.Addr) && !cfg.TokenSet {
 		log.Warn("listening on an address other machines reach, without a token (http.open_without_token): every stored run, with raw samples and config snapshots, is readable from the network",
 			"http", ln.Addr().String())
 	}
-	srv := NewHTTPServer(context.WithoutCancel(ctx), HostGuard(d.Handler(h), ln.Addr().String(), cfg.Config.HTTP.Hosts), DefaultHTTPTimeouts)
+	srv := api.NewHTTPServer(context.WithoutCancel(ctx), api.HostGuard(d.Handler(h), ln.Addr().String(), cfg.Config.HTTP.Hosts), api.DefaultHTTPTimeouts)
 	go func() {
 		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
 			log.Error("http server stopped", "err", err)

@@ -11,7 +11,6 @@ import (
 	"hystd/acq/sampler"
 	"hystd/calib/units"
 	"hystd/drivers/instr"
-	"hystd/drivers/link"
 )
 
 // Instruments are the opened roles of one fixture. Supply is required; the
@@ -64,8 +63,7 @@ func firstRole(err error) (string, error) {
 // unplugged port) or an error the instrument reported.
 func violationOf(err error) *safety.Violation {
 	role, e := firstRole(err)
-	if errors.Is(e, link.ErrTimeout) || errors.Is(e, link.ErrDisconnected) || errors.Is(e, link.ErrClosed) ||
-		errors.Is(e, link.ErrNotFound) || errors.Is(e, context.DeadlineExceeded) {
+	if errors.Is(e, instr.ErrTimeout) || errors.Is(e, instr.ErrLost) || errors.Is(e, context.DeadlineExceeded) {
 		return safety.Comm(role, e)
 	}
 	return safety.Instrument(role, e)

@@ -21,7 +21,6 @@ package grade
 import (
 	"fmt"
 	"math"
-	"os"
 	"regexp"
 	"strings"
 
@@ -82,15 +81,6 @@ type When struct {
 	// sweep's readings); a loop without temperature readings is undecided.
 	TempMinC *float64 `yaml:"temp_min_c"`
 	TempMaxC *float64 `yaml:"temp_max_c"`
-}
-
-// Load reads and validates a grade file.
-func Load(path string) (Grade, error) {
-	data, err := os.ReadFile(path)
-	if err != nil {
-		return Grade{}, err
-	}
-	return Parse(path, data)
 }
 
 // Parse decodes and validates a grade document; file names it in errors.

@@ -124,6 +124,7 @@ func (l TopLevel) At(h float64) (b, u units.Tesla, err error) {
 	}
 	m := TopMargin * l.Span
 	if !(h >= l.HLo-m && h <= l.HHi+m) {
+		//lint:ignore ST1005 H is the field's symbol
 		return 0, 0, fmt.Errorf("H = %.6g A/m is not at this loop's top tip (its points near the tip span %.6g to %.6g A/m, margin %.3g A/m)",
 			h, l.HLo, l.HHi, m)
 	}

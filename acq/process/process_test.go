@@ -306,7 +306,9 @@ func TestSetupFromSamples(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	s.SetAccuracy(&p)
+	if a, ok := p.ReadAccuracy(); ok {
+		s.SetAccuracy(p.Role, Accuracy(a))
+	}
 	if s.Flux.Gain != 1e-3 || s.Flux.Offset != 2e-7 {
 		t.Errorf("integrator accuracy %+v, want the profile's gain 1e-3, offset 2e-7", s.Flux)
 	}

@@ -7,7 +7,6 @@ import (
 	"hystd/acq/config"
 	"hystd/calib/geometry"
 	"hystd/calib/units"
-	"hystd/drivers/profile"
 )
 
 const mm = 1e-3
@@ -56,34 +55,17 @@ func SetupFrom(fx config.Fixture, sp config.Specimen) (Setup, []string, error) {
 	return s, g.Warnings, nil
 }
 
-// SetAccuracy copies the reading accuracy of an instrument's profile into
-// the budget: read_current for a supply, read_flux for an integrator,
-// read_field for a field meter. Profiles of other roles, or without an
-// accuracy, change nothing.
-func (s *Setup) SetAccuracy(p *profile.Profile) {
-	if p == nil {
-		return
-	}
-	pick := func(op string) (Accuracy, bool) {
-		o, ok := p.Operations[op]
-		if !ok || o.Accuracy == nil {
-			return Accuracy{}, false
-		}
-		return Accuracy{Gain: o.Accuracy.Gain, Offset: o.Accuracy.Offset}, true
-	}
-	switch p.Role {
+// SetAccuracy copies the reading accuracy of an instrument of a role into
+// the budget: a supply's current reading, an integrator's flux reading, a
+// field meter's field reading. Other roles change nothing.
+func (s *Setup) SetAccuracy(role string, a Accuracy) {
+	switch role {
 	case config.RoleSupply:
-		if a, ok := pick(profile.OpReadCurrent); ok {
-			s.Current = a
-		}
+		s.Current = a
 	case config.RoleIntegrator:
-		if a, ok := pick(profile.OpReadFlux); ok {
-			s.Flux = a
-		}
+		s.Flux = a
 	case config.RoleFieldMeter:
-		if a, ok := pick(profile.OpReadField); ok {
-			s.Field = a
-		}
+		s.Field = a
 	}
 }
 

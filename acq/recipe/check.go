@@ -1,26 +1,6 @@
 package recipe
 
-import (
-	"hystd/acq/check"
-	"hystd/configs"
-)
-
-// init lets `hystd check` validate recipe files on their own (no fixture:
-// the limits are checked when a recipe is submitted to one) and print their
-// warnings.
-func init() {
-	check.Register(Kind, func(doc *configs.Doc) error {
-		_, err := FromDoc(doc, nil)
-		return err
-	})
-	check.RegisterWarner(Kind, func(doc *configs.Doc) configs.Errors {
-		r, err := FromDoc(doc, nil)
-		if err != nil {
-			return nil
-		}
-		return r.Warnings()
-	})
-}
+import "hystd/configs"
 
 // Warnings returns what is allowed in the recipe but probably wrong, each
 // located at its key as FILE:LINE: key: warning: problem.
@@ -59,11 +39,19 @@ func (r *Recipe) Warnings() configs.Errors {
 			}
 			p := stepPath(i, "demag_curve") + ".saturate"
 			if top.Unit == "" {
-				ws = append(ws, check.Warning(r.doc, p, "no record_loop before this step saturates the specimen (at least %s): the curve's absolute B has no reference and it will be kept raw only; record a symmetric loop at the saturate amplitude first", sat))
+				ws = append(ws, warning(r.doc, p, "no record_loop before this step saturates the specimen (at least %s): the curve's absolute B has no reference and it will be kept raw only; record a symmetric loop at the saturate amplitude first", sat))
 			} else {
-				ws = append(ws, check.Warning(r.doc, p, "no record_loop before this step reaches %s (the largest is %s): the specimen may not be saturated and the curve's absolute B has no reference, so it will be kept raw only; record a symmetric loop at the saturate amplitude first", sat, top))
+				ws = append(ws, warning(r.doc, p, "no record_loop before this step reaches %s (the largest is %s): the specimen may not be saturated and the curve's absolute B has no reference, so it will be kept raw only; record a symmetric loop at the saturate amplitude first", sat, top))
 			}
 		}
 	}
 	return ws
+}
+
+// warning builds a warning for the key at path of doc, as `hystd check`
+// prints it: FILE:LINE: key: warning: problem.
+func warning(doc *configs.Doc, path, format string, args ...any) *configs.Error {
+	e := doc.Errorf(path, format, args...)
+	e.Problem = "warning: " + e.Problem
+	return e
 }

@@ -73,7 +73,7 @@ func (r *Recipe) validate() error {
 		if rt.Value < MinRate || rt.Value > MaxRate {
 			c.add(path, "%s is outside %g to %g %s/s", rt, MinRate, MaxRate, rt.Unit)
 		}
-		levels = append(levels, levelAt{path, Level{rt.Value, rt.Unit}})
+		levels = append(levels, levelAt{path, Level(rt)})
 	}
 	pos := func(path string, l Level) {
 		if !(l.Value > 0) {

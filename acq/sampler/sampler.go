@@ -16,8 +16,6 @@ import (
 
 	"hystd/acq/record"
 	"hystd/drivers/instr"
-	"hystd/drivers/link"
-	"hystd/drivers/scpi"
 )
 
 // Roles are the instruments of a fixture. Supply is required; Integrator,
@@ -64,7 +62,7 @@ func WithRetryCounter(ctx context.Context, n *atomic.Int64) context.Context {
 }
 
 // Retry calls f again after a read timeout (the line is still up: a reply
-// was lost or late) or a reply that did not answer its query (scpi.ErrDesync:
+// was lost or late: instr.ErrTimeout) or a reply that did not answer its query (instr.ErrOutOfStep:
 // the driver resynchronises the line first) until ctx ends, counting each repeat in the counter of
 // WithRetryCounter. Any other error, a disconnect among them, is returned
 // at once: after a hang-up the instrument's state cannot be trusted within
@@ -72,7 +70,7 @@ func WithRetryCounter(ctx context.Context, n *atomic.Int64) context.Context {
 func Retry[T any](ctx context.Context, f func(context.Context) (T, error)) (T, error) {
 	for {
 		v, err := f(ctx)
-		if err == nil || !(errors.Is(err, link.ErrTimeout) || errors.Is(err, scpi.ErrDesync)) || ctx.Err() != nil {
+		if err == nil || !(errors.Is(err, instr.ErrTimeout) || errors.Is(err, instr.ErrOutOfStep)) || ctx.Err() != nil {
 			return v, err
 		}
 		if n, ok := ctx.Value(retriesKey{}).(*atomic.Int64); ok {

@@ -75,6 +75,7 @@ func Detect(h []float64) (Shape, error) {
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for i, v := range h {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
+			//lint:ignore ST1005 H is the field's symbol
 			return Shape{}, fmt.Errorf("H[%d] is not a finite number", i)
 		}
 		if v < lo {
@@ -86,6 +87,7 @@ func Detect(h []float64) (Shape, error) {
 	}
 	span := hi - lo
 	if math.IsInf(span, 0) {
+		//lint:ignore ST1005 H is the field's symbol
 		return Shape{}, fmt.Errorf("H spans %g to %g A/m: the range overflows", lo, hi)
 	}
 	if !(span > 0) {
@@ -228,14 +230,6 @@ func (s Shape) Cycles() [][2]Segment {
 		}
 	}
 	return out
-}
-
-func sortTips(a []Tip) {
-	for i := 1; i < len(a); i++ {
-		for j := i; j > 0 && a[j].Index < a[j-1].Index; j-- {
-			a[j], a[j-1] = a[j-1], a[j]
-		}
-	}
 }
 
 // TipLevels returns the mean B of the top tips and of the bottom tips, for

@@ -3,6 +3,8 @@ package link
 import (
 	"errors"
 	"fmt"
+
+	"hystd/drivers/instr"
 )
 
 // Sentinel errors of the link layer. Every error a Conn returns wraps exactly
@@ -15,11 +17,14 @@ import (
 //   - ErrClosed: Close was called by this program; distinct from a disconnect.
 //   - ErrNotFound: no device matches the address.
 //   - ErrSettings: the line settings are invalid or the port refused them.
+//
+// ErrTimeout also matches instr.ErrTimeout; ErrDisconnected, ErrClosed and
+// ErrNotFound match instr.ErrLost.
 var (
-	ErrTimeout      = errors.New("read timeout")
-	ErrDisconnected = errors.New("port disconnected")
-	ErrClosed       = errors.New("port closed")
-	ErrNotFound     = errors.New("no such port")
+	ErrTimeout      = instr.NewError("read timeout", instr.ErrTimeout)
+	ErrDisconnected = instr.NewError("port disconnected", instr.ErrLost)
+	ErrClosed       = instr.NewError("port closed", instr.ErrLost)
+	ErrNotFound     = instr.NewError("no such port", instr.ErrLost)
 	ErrSettings     = errors.New("bad line settings")
 )
 

@@ -484,6 +484,22 @@ func (p Profile) AccuracyOf(op string) (a Accuracy, ok bool) {
 	return *o.Accuracy, true
 }
 
+// ReadAccuracy returns the accuracy of the profile's main reading, for the
+// uncertainty budget: read_current for a supply, read_flux for an
+// integrator, read_field for a field meter. ok is false for other roles or
+// when the profile gives none.
+func (p Profile) ReadAccuracy() (a Accuracy, ok bool) {
+	switch p.Role {
+	case RoleSupply:
+		return p.AccuracyOf(OpReadCurrent)
+	case RoleIntegrator:
+		return p.AccuracyOf(OpReadFlux)
+	case RoleFieldMeter:
+		return p.AccuracyOf(OpReadField)
+	}
+	return Accuracy{}, false
+}
+
 // U returns the expanded (k = 2) uncertainty of a reading v: Gain·|v| + Offset.
 func (a Accuracy) U(v float64) float64 { return a.Gain*math.Abs(v) + a.Offset }
 
@@ -492,18 +508,4 @@ func article(role string) string {
 		return "an " + role
 	}
 	return "a " + role
-}
-
-// CurrentRange returns the settable current range [lo, hi] in A of the
-// supply profile named (or at path) name.
-func CurrentRange(name string) (lo, hi float64, err error) {
-	p, err := Load(name)
-	if err != nil {
-		return 0, 0, err
-	}
-	if p.Role != RoleSupply {
-		return 0, 0, fmt.Errorf("profile %s is a %s profile, not a supply", p.Name, p.Role)
-	}
-	r := p.Operations[OpSetCurrent].Range
-	return r[0], r[1], nil
 }

@@ -119,11 +119,6 @@ func OpenFieldMeter(ctx context.Context, s Spec, o Options) (instr.FieldMeter, e
 	return openAs[instr.FieldMeter](ctx, RoleFieldMeter, s, o)
 }
 
-// OpenThermometer opens a thermometer from a spec (see Open).
-func OpenThermometer(ctx context.Context, s Spec, o Options) (instr.Thermometer, error) {
-	return openAs[instr.Thermometer](ctx, RoleThermometer, s, o)
-}
-
 // haltUnidentified brings a supply that answers but fails identification to
 // zero all the same: whatever answers on the supply's port may be driving
 // the winding. It ramps down and sends the profile's safe state (Halt),

@@ -18,6 +18,7 @@ import (
 	"strings"
 	"time"
 
+	"hystd/drivers/instr"
 	"hystd/drivers/link"
 )
 
@@ -64,8 +65,8 @@ type Options struct {
 // query asked (it does not parse as its answer), or of a resync that did
 // not find the line's answers again: the line is out of step, and the
 // client will resynchronise it before the next exchange. Retry the read;
-// never use the reply.
-var ErrDesync = errors.New("line out of step with its queries")
+// never use the reply. It matches instr.ErrOutOfStep.
+var ErrDesync = instr.NewError("line out of step with its queries", instr.ErrOutOfStep)
 
 // Client speaks SCPI over one Stream. It is not safe for concurrent use:
 // one goroutine owns a Client (and its instrument). The caller owns and

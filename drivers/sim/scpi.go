@@ -23,7 +23,6 @@ func (e scpiError) String() string {
 
 var (
 	errNone          = scpiError{0, "No error"}
-	errSyntax        = scpiError{-102, "Syntax error"}
 	errDataType      = scpiError{-104, "Data type error"}
 	errParamNotAllow = scpiError{-108, "Parameter not allowed"}
 	errMissingParam  = scpiError{-109, "Missing parameter"}

@@ -153,11 +153,8 @@ func NewRig(p RigParams) (*Rig, error) {
 	return r, nil
 }
 
-// PathLength returns l_m (m); Area the specimen cross-section (m²).
+// PathLength returns l_m (m).
 func (r *Rig) PathLength() float64 { return r.lm }
-
-// Area returns the specimen cross-section A in m².
-func (r *Rig) Area() float64 { return r.area }
 
 // Time returns the rig's time in s.
 func (r *Rig) Time() float64 { return r.t }

@@ -145,6 +145,3 @@ func (s *Supply) ClearTrip() bool {
 	s.Tripped = false
 	return true
 }
-
-// StoredEnergy returns ½·L·I², J.
-func (s *Supply) StoredEnergy() float64 { return 0.5 * s.W.InductanceH * s.I * s.I }
