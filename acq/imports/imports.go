@@ -128,23 +128,43 @@ func Provenance(file string, data []byte) string {
 	return fmt.Sprintf("imported from %s (sha256 %s)", filepath.Base(file), hex.EncodeToString(sum[:]))
 }
 
+// Prepared is a recording read and processed, ready to be stored.
+type Prepared struct {
+	Run    record.Run
+	Loops  []record.Loop
+	Events []record.Event
+}
+
 // Import reads, processes and stores a raw recording as a finished run with
-// one loop per step. Everything is read and processed before anything is
-// written: a bad file, or a step the processing refuses, stores nothing.
-// The run's Recipe is "import", its Config the fixture and specimen with
-// the provenance line, and its first event the provenance.
+// one loop per step: Prepare, then Store. A bad file, or a step the
+// processing refuses, stores nothing.
 func Import(ctx context.Context, o Options) (record.Run, []record.Loop, error) {
-	raw, err := ReadRaw(bytes.NewReader(o.Data), o.File)
+	p, err := Prepare(o)
 	if err != nil {
 		return record.Run{}, nil, err
+	}
+	if err := p.Store(ctx, o.Writer); err != nil {
+		return record.Run{}, nil, err
+	}
+	return p.Run, p.Loops, nil
+}
+
+// Prepare reads and processes the recording of o (o.Writer is not used).
+// The run's Recipe is "import", its RecipeText the provenance ("imported
+// from FILE (sha256 HEX)"), its Config the fixture and specimen under the
+// provenance line; the first event is the provenance.
+func Prepare(o Options) (*Prepared, error) {
+	raw, err := ReadRaw(bytes.NewReader(o.Data), o.File)
+	if err != nil {
+		return nil, err
 	}
 	steps, lines, err := Split(raw, o.File)
 	if err != nil {
-		return record.Run{}, nil, err
+		return nil, err
 	}
 	setup, warns, err := process.SetupFrom(o.Fixture, o.Specimen)
 	if err != nil {
-		return record.Run{}, nil, err
+		return nil, err
 	}
 	prov := Provenance(o.File, o.Data)
 	sum := sha256.Sum256(o.Data)
@@ -153,7 +173,7 @@ func Import(ctx context.Context, o Options) (record.Run, []record.Loop, error) {
 	for k, st := range steps {
 		pts, figs, corr, err := process.Loop(st, setup)
 		if err != nil {
-			return record.Run{}, nil, &loopcsv.Error{File: o.File, Line: lines[k][0], Msg: fmt.Sprintf("step %d (lines %d–%d): %v", k+1, lines[k][0], lines[k][len(lines[k])-1], err)}
+			return nil, &loopcsv.Error{File: o.File, Line: lines[k][0], Msg: fmt.Sprintf("step %d (lines %d–%d): %v", k+1, lines[k][0], lines[k][len(lines[k])-1], err)}
 		}
 		amp := 0.0
 		for _, x := range st {
@@ -178,13 +198,6 @@ func Import(ctx context.Context, o Options) (record.Run, []record.Loop, error) {
 		Specimen: o.Specimen.ID, Material: o.Specimen.Material, Grade: o.Specimen.Grade, Operator: o.Operator,
 		Config: cfg.String(), ConfigHash: hex.EncodeToString(chash[:]), Software: o.Software,
 		State: record.Queued, Queued: o.Now}
-	w := o.Writer
-	if err := w.CreateRun(ctx, run); err != nil {
-		return record.Run{}, nil, fmt.Errorf("record run %s: %w", id, err)
-	}
-	if err := w.SetState(ctx, id, record.Running, "", o.Now); err != nil {
-		return record.Run{}, nil, err
-	}
 	events := []record.Event{{RunID: id, At: o.Now, Level: "info", Text: prov + fmt.Sprintf(", %d rows, %d step(s), columns %v", len(raw.Samples), len(steps), raw.Columns)}}
 	if !raw.HasPhase {
 		events = append(events, record.Event{RunID: id, At: o.Now, Level: "info",
@@ -198,21 +211,34 @@ func Import(ctx context.Context, o Options) (record.Run, []record.Loop, error) {
 			events = append(events, record.Event{RunID: id, At: o.Now, Level: "warn", Text: fmt.Sprintf("loop %d: %s", l.N, f)})
 		}
 	}
-	for _, e := range events {
+	return &Prepared{Run: run, Loops: loops, Events: events}, nil
+}
+
+// Store writes p as a run that goes queued → running → finished at the
+// run's queued time, with its events and loops.
+func (p *Prepared) Store(ctx context.Context, w record.Writer) error {
+	run, at := p.Run, p.Run.Queued
+	if err := w.CreateRun(ctx, run); err != nil {
+		return fmt.Errorf("record run %s: %w", run.ID, err)
+	}
+	if err := w.SetState(ctx, run.ID, record.Running, "", at); err != nil {
+		return err
+	}
+	for _, e := range p.Events {
 		if err := w.AddEvent(ctx, e); err != nil {
-			return record.Run{}, nil, err
+			return err
 		}
 	}
-	for _, l := range loops {
+	for _, l := range p.Loops {
 		if err := w.AddLoop(ctx, l); err != nil {
-			return record.Run{}, nil, fmt.Errorf("loop %d: %w", l.N, err)
+			return fmt.Errorf("loop %d: %w", l.N, err)
 		}
 	}
-	if err := w.SetState(ctx, id, record.Finished, "", o.Now); err != nil {
-		return record.Run{}, nil, err
+	if err := w.SetState(ctx, run.ID, record.Finished, "", at); err != nil {
+		return err
 	}
-	run.State, run.Started, run.Ended = record.Finished, o.Now, o.Now
-	return run, loops, nil
+	p.Run.State, p.Run.Started, p.Run.Ended = record.Finished, at, at
+	return nil
 }
 
 // Summary returns a stored loop's figures under the keys of `hystd analyze
