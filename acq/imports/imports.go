@@ -13,6 +13,7 @@ import (
 
 	"go.yaml.in/yaml/v3"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/process"
 	"hystd/acq/record"
@@ -117,6 +118,9 @@ type Options struct {
 	Operator string
 	Now      time.Time // when the import is recorded
 	Writer   record.Writer
+	// Calibrations are applied to every step (calrec.Apply); each is
+	// recorded in the run's events, one past due at Now as a warning.
+	Calibrations []calrec.Record
 }
 
 var idUnsafe = regexp.MustCompile(`[^A-Za-z0-9._-]+`)
@@ -169,9 +173,17 @@ func Prepare(o Options) (*Prepared, error) {
 	prov := Provenance(o.File, o.Data)
 	sum := sha256.Sum256(o.Data)
 	id := fmt.Sprintf("%s-import-%s-%s", idUnsafe.ReplaceAllString(o.Fixture.Name, "_"), o.Now.UTC().Format("20060102T150405Z"), hex.EncodeToString(sum[:3]))
+	var calEvents []calrec.Event
 	var loops []record.Loop
 	for k, st := range steps {
-		pts, figs, corr, err := process.Loop(st, setup)
+		s := setup
+		s.Extra = append([]loop.Source(nil), setup.Extra...)
+		cst, evs, err := calrec.Apply(st, o.Calibrations, o.Fixture, &s, o.Now)
+		if err != nil {
+			return nil, err
+		}
+		calEvents = evs
+		pts, figs, corr, err := process.Loop(cst, s)
 		if err != nil {
 			return nil, &loopcsv.Error{File: o.File, Line: lines[k][0], Msg: fmt.Sprintf("step %d (lines %d–%d): %v", k+1, lines[k][0], lines[k][len(lines[k])-1], err)}
 		}
@@ -193,6 +205,12 @@ func Prepare(o Options) (*Prepared, error) {
 	if y, err := yaml.Marshal(o.Specimen); err == nil {
 		cfg.Write(y)
 	}
+	for _, c := range o.Calibrations {
+		fmt.Fprintf(&cfg, "---\n# %s from %s\n", c.Describe(), c.File)
+		if y, err := yaml.Marshal(c); err == nil {
+			cfg.Write(y)
+		}
+	}
 	chash := sha256.Sum256(cfg.Bytes())
 	run := record.Run{ID: id, Recipe: "import", RecipeText: prov, Fixture: o.Fixture.Name,
 		Specimen: o.Specimen.ID, Material: o.Specimen.Material, Grade: o.Specimen.Grade, Operator: o.Operator,
@@ -202,6 +220,9 @@ func Prepare(o Options) (*Prepared, error) {
 	if !raw.HasPhase {
 		events = append(events, record.Event{RunID: id, At: o.Now, Level: "info",
 			Text: fmt.Sprintf("no phase column: static holds found from the current standing still within %g of its largest value", StillFraction)})
+	}
+	for _, e := range calEvents {
+		events = append(events, record.Event{RunID: id, At: o.Now, Level: e.Level, Text: e.Text})
 	}
 	for _, wn := range warns {
 		events = append(events, record.Event{RunID: id, At: o.Now, Level: "warn", Text: wn})

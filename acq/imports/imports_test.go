@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/record"
 	"hystd/acq/store/memstore"
@@ -237,3 +238,79 @@ func TestReadRawUnits(t *testing.T) {
 }
 
 func readFile(p string) ([]byte, error) { return os.ReadFile(p) }
+
+// TestImportCalibration: an integrator calibration of gain g divides ψ, and
+// so B, by g (true ψ = reading/gain): Bmax, Br, μa and the loss (∮H dB) of
+// the calibrated import are those of the plain import divided by g, HcB and
+// HcJ-free figures of H unchanged; its uncertainty u(g)/g enters the budget
+// of B; a record past due at the import's time adds a warning event.
+func TestImportCalibration(t *testing.T) {
+	fx, sp := loadSetup(t)
+	data := []byte(synth(true, 0, 0))
+	imp := func(files ...string) (record.Run, []record.Loop, *memstore.Store) {
+		t.Helper()
+		var cals []calrec.Record
+		for _, f := range files {
+			r, err := calrec.Load("../calrec/testdata/" + f)
+			if err != nil {
+				t.Fatal(err)
+			}
+			cals = append(cals, r)
+		}
+		st := memstore.New(func() time.Time { return now })
+		run, loops, err := Import(context.Background(), Options{File: "r.csv", Data: data, Fixture: fx, Specimen: sp,
+			Now: now, Writer: st, Calibrations: cals})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return run, loops, st
+	}
+	fig := func(l record.Loop, n string) record.Figure {
+		for _, f := range l.Figures {
+			if f.Name == n {
+				return f
+			}
+		}
+		t.Fatalf("no %s", n)
+		return record.Figure{}
+	}
+	_, plain, _ := imp()
+	run, cal, st := imp("integrator-ok.yaml") // gain 1.01 ± 0.002
+	const g = 1.01
+	for _, n := range []string{"Bmax", "Br", "mu_a", "loss_j_m3"} {
+		p, c := fig(plain[0], n).Value, fig(cal[0], n).Value
+		if rel := math.Abs(c-p/g) / (p / g); rel > 1e-9 {
+			t.Errorf("%s: calibrated %.10g, plain/g %.10g (rel %.2g)", n, c, p/g, rel)
+		}
+	}
+	for _, n := range []string{"Hmax", "HcB"} {
+		p, c := fig(plain[0], n).Value, fig(cal[0], n).Value
+		if rel := math.Abs(c-p) / p; rel > 1e-9 {
+			t.Errorf("%s: calibrated %.10g, plain %.10g", n, c, p)
+		}
+	}
+	// u(g)/g = 0.002/1.01 ≈ 0.2 % of Br as a standard uncertainty: U (k = 2)
+	// of Br at least 2·0.00198·Br.
+	br := fig(cal[0], "Br")
+	if min := 2 * 0.002 / g * br.Value; !(br.U >= min) || !strings.Contains(br.Note, "integrator gain (calibration)") {
+		t.Errorf("Br U %.3g (want ≥ %.3g), note %q", br.U, min, br.Note)
+	}
+	evs, _ := st.Events(context.Background(), run.ID)
+	if !hasEvent(evs, "info", "used calibration CAL-INT-07") || hasEvent(evs, "warn", "past due") {
+		t.Errorf("events %v", evs)
+	}
+	run, _, st = imp("integrator-expired.yaml") // due 2025-03-11, import 2026-03-04
+	evs, _ = st.Events(context.Background(), run.ID)
+	if !hasEvent(evs, "warn", "calibration CAL-INT-03 is past due (due 2025-03-11)") {
+		t.Errorf("no past-due warning: %v", evs)
+	}
+}
+
+func hasEvent(evs []record.Event, level, text string) bool {
+	for _, e := range evs {
+		if e.Level == level && strings.Contains(e.Text, text) {
+			return true
+		}
+	}
+	return false
+}

@@ -11,6 +11,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/daemon"
 	"hystd/acq/imports"
@@ -26,6 +27,7 @@ func init() { register(newImportCmd) }
 func newImportCmd() *cobra.Command {
 	var dataDir, cfgPath, fixture, specimen, operator string
 	var asJSON bool
+	var calFiles []string
 	c := &cobra.Command{
 		Use:   "import FILE.csv --fixture F --specimen S [--data DIR | --config FILE] [--json]",
 		Short: "Store a raw recording (t, I, psi) made elsewhere as a run, processed like a live one",
@@ -35,6 +37,7 @@ func newImportCmd() *cobra.Command {
 			"the current standing still. Each step is processed as a live loop (drift from the holds,\n" +
 			"baseline, closure, centring, geometry of the fixture and specimen, figures, uncertainty) and\n" +
 			"stored as one run whose provenance names the file and its SHA-256. A bad file stores nothing.\n" +
+			"--calibration FILE applies a calibration record (repeatable; a past-due one is a warning event).\n" +
 			"--fixture is a fixture file, or a fixture name of --config; --specimen a specimen file, or an\n" +
 			"id of the config's specimens. --json prints one line per stored loop with analyze's keys.",
 		Args: cobra.ExactArgs(1),
@@ -74,8 +77,16 @@ func newImportCmd() *cobra.Command {
 			}
 			// Read and process before the store is touched: a bad file
 			// leaves no trace, not even an empty store.
+			var cals []calrec.Record
+			for _, f := range calFiles {
+				r, err := calrec.Load(f)
+				if err != nil {
+					return err
+				}
+				cals = append(cals, r)
+			}
 			p, err := imports.Prepare(imports.Options{File: args[0], Data: data, Fixture: fx, Specimen: sp,
-				Software: version, Operator: operator, Now: time.Now()})
+				Software: version, Operator: operator, Now: time.Now(), Calibrations: cals})
 			if err != nil {
 				return err
 			}
@@ -121,6 +132,7 @@ func newImportCmd() *cobra.Command {
 	c.Flags().StringVar(&fixture, "fixture", "", "fixture file, or a fixture name of --config")
 	c.Flags().StringVar(&specimen, "specimen", "", "specimen file, or a specimen id of --config")
 	c.Flags().StringVar(&operator, "operator", "", "who imported it, recorded with the run")
+	c.Flags().StringArrayVar(&calFiles, "calibration", nil, "calibration record (kind: calibration) of the recording's coil or instruments; repeatable")
 	c.Flags().BoolVar(&asJSON, "json", false, "print one JSON object per stored loop with the keys of analyze --json")
 	return c
 }

@@ -87,3 +87,14 @@ func tanhRecording() string {
 	}
 	return b.String()
 }
+
+// TestCheckCalibration: `hystd check` knows kind: calibration.
+func TestCheckCalibration(t *testing.T) {
+	if _, err := runCLI("check", "../../acq/calrec/testdata/integrator-ok.yaml"); err != nil {
+		t.Errorf("good record: %v", err)
+	}
+	out, errs, code := runCmd(t, "check", "../../acq/calrec/testdata/bad-gain.yaml")
+	if code == 0 || !strings.Contains(out+errs, "bad-gain.yaml:10: integrator.gain.value: must be > 0") {
+		t.Errorf("bad record: exit %d, %s%s", code, out, errs)
+	}
+}
