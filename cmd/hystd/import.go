@@ -14,7 +14,9 @@ import (
 	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/daemon"
+	"hystd/acq/grade"
 	"hystd/acq/imports"
+	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/calib/loopcsv"
 )
@@ -39,7 +41,8 @@ func newImportCmd() *cobra.Command {
 			"stored as one run whose provenance names the file and its SHA-256. A bad file stores nothing.\n" +
 			"--calibration FILE applies a calibration record (repeatable; a past-due one is a warning event).\n" +
 			"--fixture is a fixture file, or a fixture name of --config; --specimen a specimen file, or an\n" +
-			"id of the config's specimens. --json prints one line per stored loop with analyze's keys.",
+			"id of the config's specimens (its loops are then judged against the specimen's grade).\n" +
+			"--json prints one line per stored loop with analyze's keys.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if fixture == "" || specimen == "" {
@@ -50,6 +53,7 @@ func newImportCmd() *cobra.Command {
 				return err
 			}
 			var db string
+			var w func(record.Writer) record.Writer = func(x record.Writer) record.Writer { return x }
 			var fx config.Fixture
 			var sp config.Specimen
 			if cfgPath != "" {
@@ -65,6 +69,15 @@ func newImportCmd() *cobra.Command {
 				}
 				if sp, err = cfg.Registry.Specimen(specimen); err != nil {
 					return fmt.Errorf("--specimen: %w", err)
+				}
+				gr, note := cfg.Registry.GradeOf(sp)
+				if note != "" {
+					fmt.Fprintln(cmd.ErrOrStderr(), "note:", note)
+				}
+				if gr != nil {
+					w = func(x record.Writer) record.Writer {
+						return grade.Writer{Writer: x, Grade: gr, Rule: cfg.Registry.Rule}
+					}
 				}
 			} else {
 				if fx, err = config.LoadFixture(fixture); err != nil {
@@ -101,7 +114,7 @@ func newImportCmd() *cobra.Command {
 				return err
 			}
 			defer st.Close()
-			if err := p.Store(ctx, st); err != nil {
+			if err := p.Store(ctx, w(st)); err != nil {
 				return err
 			}
 			run, loops := p.Run, p.Loops

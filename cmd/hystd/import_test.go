@@ -98,3 +98,38 @@ func TestCheckCalibration(t *testing.T) {
 		t.Errorf("bad record: exit %d, %s%s", code, out, errs)
 	}
 }
+
+// TestImportWithConfig: with --config the fixture is named from the daemon
+// config and the run goes into the config's store.
+func TestImportWithConfig(t *testing.T) {
+	dir := t.TempDir()
+	for _, f := range []string{"fixture-ring-bench.yaml", "specimen-ring-r17.yaml"} {
+		b, err := os.ReadFile(filepath.Join("../../configs", f))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, f), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	cfg := filepath.Join(dir, "d.yaml")
+	body := "kind: daemon\nstore: {path: " + filepath.Join(dir, "s.db") + "}\nfixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"
+	if err := os.WriteFile(cfg, []byte(body), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	csv := filepath.Join(dir, "old.csv")
+	if err := os.WriteFile(csv, []byte(tanhRecording()), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out, err := runCLI("import", csv, "--config", cfg, "--fixture", "aldermoor-ring-2", "--specimen", filepath.Join(dir, "specimen-ring-r17.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(out, "imported from old.csv (sha256 ") || !strings.Contains(out, "HcB") {
+		t.Errorf("output:\n%s", out)
+	}
+	runs, err := runCLI("runs", "--config", cfg, "--json")
+	if err != nil || !strings.Contains(runs, `"fixture": "aldermoor-ring-2"`) {
+		t.Errorf("runs: %v\n%s", err, runs)
+	}
+}
