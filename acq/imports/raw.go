@@ -35,6 +35,10 @@ type Raw struct {
 	FirstTime float64  // t of the first row, s (samples' T count from it)
 }
 
+// MaxTime bounds |t| (s): about three years, well inside what a
+// time.Duration holds (292 years).
+const MaxTime = 1e8
+
 var headerName = regexp.MustCompile(`^\s*([^\s(\[]+)\s*(?:[(\[]\s*([^)\]]*?)\s*[)\]])?\s*$`)
 
 // colSpec says how one known column is converted to SI.
@@ -178,6 +182,9 @@ func ReadRaw(r io.Reader, name string) (Raw, error) {
 		t, err := num(rec, "t", line)
 		if err != nil {
 			return Raw{}, err
+		}
+		if math.Abs(t) > MaxTime {
+			return Raw{}, &loopcsv.Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s out of range (|t| ≤ %g s)", t, MaxTime)}
 		}
 		if t < prevT {
 			return Raw{}, &loopcsv.Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t, prevT)}
