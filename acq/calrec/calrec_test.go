@@ -85,3 +85,34 @@ func TestApplyFormulas(t *testing.T) {
 		t.Error("two integrator records accepted")
 	}
 }
+
+// TestApplyCoil: a coil's area-turns scale ψ by N2·A_c/(N2·A_c)_cal (here
+// 50·60 mm² / 3.03e-3 m² = 3e-3/3.03e-3); a record for another fixture, or
+// a fixture without a coil area, is refused.
+func TestApplyCoil(t *testing.T) {
+	r, err := Load("testdata/coil-ok.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fx := config.Fixture{Name: "hollin-ring-1", Winding: config.Winding{N2: 50, CoilAreaMM2: 60}}
+	var s process.Setup
+	out, _, err := Apply([]record.Sample{{Psi: 1e-3}}, []Record{r}, fx, &s, time.Date(2026, 6, 1, 0, 0, 0, 0, time.UTC))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := 1e-3 * 3e-3 / 3.03e-3; math.Abs(out[0].Psi-want) > 1e-18 {
+		t.Errorf("psi %.12g, want %.12g", out[0].Psi, want)
+	}
+	if len(s.Extra) != 1 || math.Abs(s.Extra[0].BScale-3e-6/3.03e-3) > 1e-15 {
+		t.Errorf("budget sources %+v", s.Extra)
+	}
+	other := fx
+	other.Name = "another"
+	if _, _, err := Apply(nil, []Record{r}, other, &s, time.Now()); err == nil || !strings.Contains(err.Error(), `applies_to.fixture "hollin-ring-1", but the fixture is "another"`) {
+		t.Errorf("other fixture: %v", err)
+	}
+	fx.Winding.CoilAreaMM2 = 0
+	if _, _, err := Apply(nil, []Record{r}, fx, &s, time.Now()); err == nil || !strings.Contains(err.Error(), "winding.coil_area_mm2") {
+		t.Errorf("no coil area: %v", err)
+	}
+}
