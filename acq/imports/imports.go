@@ -3,6 +3,7 @@ package imports
 import (
 	"bytes"
 	"context"
+	"crypto/rand"
 	"crypto/sha256"
 	"encoding/hex"
 	"fmt"
@@ -171,8 +172,11 @@ func Prepare(o Options) (*Prepared, error) {
 		return nil, err
 	}
 	prov := Provenance(o.File, o.Data)
-	sum := sha256.Sum256(o.Data)
-	id := fmt.Sprintf("%s-import-%s-%s", idUnsafe.ReplaceAllString(o.Fixture.Name, "_"), o.Now.UTC().Format("20060102T150405Z"), hex.EncodeToString(sum[:3]))
+	// A random suffix, as live runs have: the same file imported twice in
+	// one second makes two runs.
+	var rnd [3]byte
+	_, _ = rand.Read(rnd[:])
+	id := fmt.Sprintf("%s-import-%s-%s", idUnsafe.ReplaceAllString(o.Fixture.Name, "_"), o.Now.UTC().Format("20060102T150405Z"), hex.EncodeToString(rnd[:]))
 	var calEvents []calrec.Event
 	var loops []record.Loop
 	for k, st := range steps {
