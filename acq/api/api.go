@@ -197,6 +197,7 @@ func (s *server) routes() {
 	read("/api/v1/runs/{id}/report", s.report)
 	read("/api/v1/outbox", s.outboxList)
 	write("/api/v1/outbox/requeue", s.outboxRequeue)
+	write("/api/v1/imports", s.importRecording)
 	s.mux.Handle("/api/", s.wrap("/api/", false, true, func(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, "no such API endpoint: %s %s", r.Method, r.URL.Path)
 	}))

@@ -85,6 +85,9 @@ type Setup struct {
 	// Accuracy of the current read-back (A), the integrator (Wb-turns) and
 	// the field meter (T).
 	Current, Flux, Field Accuracy
+	// Extra are further budget sources (standard uncertainties), e.g. of
+	// calibration records applied to the samples before Loop.
+	Extra []loop.Source
 }
 
 // Validate reports the first problem of s that makes Loop impossible.
@@ -384,6 +387,8 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	}
 	sources = appendSource(sources, "specimen area", 0, 0, -s.RelUArea, 0, "Type B: dimension, mass and density tolerances")
 	sources = appendSource(sources, "integrator gain", 0, 0, s.Flux.Gain/2, 0, "Type B: profile accuracy, k = 2 → standard")
+
+	sources = append(sources, s.Extra...)
 
 	muB := s.MuInitialB
 	if muB == 0 {
