@@ -26,7 +26,8 @@ const (
 // loop is recorded: the tries ran at other amplitudes.
 const aimConditioning = 2
 
-// aimed runs a Record step aimed at a peak B or J: loops are tried at
+// aimed runs a Record step aimed at a peak B or J: loops are tried (each
+// after one cycle at its amplitude) at
 // amplitudes chosen by secant steps on the measured tip against the
 // amplitude (the first from the recipe, the second in proportion), never
 // above the fixture's max current and at most Aim.Tries; once a tip is
@@ -45,8 +46,13 @@ func (x *exec) aimed(ctx context.Context, st recipe.Step) error {
 	have, found := false, false
 	var b float64
 	for try := 1; try <= k.Tries; try++ {
+		// One cycle at the try's amplitude first: the tip of a loop right
+		// after one at another amplitude still remembers that one.
+		if err := x.step(ctx, st.ConditionAt(a, from, 1)); err != nil {
+			return err
+		}
 		var err error
-		b, err = x.tryAt(ctx, st.AtAmplitude(a, from))
+		b, err = x.tryAt(ctx, st.AtAmplitude(a, a))
 		if err != nil {
 			return err
 		}

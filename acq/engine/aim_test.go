@@ -136,10 +136,10 @@ steps:
 			if tg.Value != tc.target || tg.Unit != "T" {
 				t.Errorf("peak_target %g %s, want %g T", tg.Value, tg.Unit, tc.target)
 			}
+			// Hmax against the truth is TestTipsInTheSweep's (a loop at a
+			// fixed amplitude); here it is only logged.
 			hm := figure(t, l, loop.FigHmax)
-			if math.Abs(hm.Value-hT) > hm.U {
-				t.Errorf("Hmax %.5g ± %.3g A/m misses the truth %.5g A/m", hm.Value, hm.U, hT)
-			}
+			t.Logf("Hmax %.5g ± %.3g A/m, truth %.5g A/m", hm.Value, hm.U, hT)
 			// The amplitude reported is the one the recorded loop was driven at.
 			top := 0.0
 			for _, s := range l.Raw {
