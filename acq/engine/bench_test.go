@@ -89,6 +89,17 @@ steps:
 // nil, is the simulated clock to use.
 func ringRun(t *testing.T, cfg sim.Config, recipeText string, clk *clock.Sim) ([]record.Loop, *sim.Bench) {
 	t.Helper()
+	ls, b, err := ringRunErr(t, cfg, recipeText, clk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return ls, b
+}
+
+// ringRunErr is ringRun returning the run's error (a run that did not
+// finish) instead of failing the test.
+func ringRunErr(t *testing.T, cfg sim.Config, recipeText string, clk *clock.Sim) ([]record.Loop, *sim.Bench, error) {
+	t.Helper()
 	if clk == nil {
 		clk = clock.NewSim(fixturetest.Epoch)
 	}
@@ -127,11 +138,9 @@ func ringRun(t *testing.T, cfg sim.Config, recipeText string, clk *clock.Sim) ([
 		t.Fatal(err)
 	}
 	w := &loops{}
-	if _, err := engine.Run(ctx, engine.Setup{Fixture: fx, Specimen: sp, Recipe: rc, Instruments: op.Instruments,
-		Writer: w, Process: proc, Log: log, SpoolDir: t.TempDir(), Clock: clk}); err != nil {
-		t.Fatal(err)
-	}
-	return w.ls, b
+	_, err = engine.Run(ctx, engine.Setup{Fixture: fx, Specimen: sp, Recipe: rc, Instruments: op.Instruments,
+		Writer: w, Process: proc, Log: log, SpoolDir: t.TempDir(), Clock: clk})
+	return w.ls, b, err
 }
 
 // TestQuasiStatic is the usual quasi-static check (REFERENCE §2, from

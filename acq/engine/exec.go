@@ -61,6 +61,7 @@ type exec struct {
 	smp       *sampler.Sampler     // the run's concurrent reader
 	notes     []string             // added to the final reason
 	polled    map[string]time.Time // last error-queue poll, by role
+	tryRaw    *[]record.Sample     // not nil: a loop is a try of a peak search, kept here instead of stored
 }
 
 func newExec(p *Plan) *exec {
@@ -170,7 +171,11 @@ func (x *exec) steps(ctx context.Context) error {
 		return safety.Comm("supply", fmt.Errorf("turn output on: %w", err))
 	}
 	for i := range x.p.Steps {
-		if err := x.step(ctx, x.p.Steps[i]); err != nil {
+		run := x.step
+		if x.p.Steps[i].Aim != nil {
+			run = x.aimed
+		}
+		if err := run(ctx, x.p.Steps[i]); err != nil {
 			return err
 		}
 		x.done += x.p.Steps[i].Duration()
@@ -369,6 +374,10 @@ func slope(ss []record.Sample) (float64, bool) {
 // storeLoop processes and commits one completed loop; a loop the writer
 // refuses is kept for a retry at the end of the run.
 func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sample, started time.Time) {
+	if x.tryRaw != nil {
+		*x.tryRaw = raw
+		return
+	}
 	x.loopN++
 	l := record.Loop{RunID: x.p.run.ID, N: x.loopN, Kind: st.Loop.Kind, Amplitude: st.Loop.Amplitude,
 		AmpUnit: st.Loop.AmpUnit, Started: started, Raw: raw}
@@ -378,6 +387,9 @@ func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sampl
 		x.event(ctx, "warn", "loop %d stored raw only: processing failed: %v", l.N, err)
 	} else {
 		l.Points, l.Figures, l.Corrections = pr.Points, pr.Figures, pr.Corrections
+		if st.Aim != nil {
+			l.Figures = append(l.Figures, aimFigures(st)...)
+		}
 		// Stored all the same (the raw samples are right), but flagged.
 		for _, f := range process.Implausible(l) {
 			x.event(ctx, "warn", "loop %d: %s", l.N, f)

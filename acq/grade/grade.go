@@ -25,6 +25,7 @@ import (
 	"strings"
 
 	"hystd/acq/record"
+	"hystd/calib/loop"
 	"hystd/configs"
 )
 
@@ -93,12 +94,14 @@ func Parse(file string, data []byte) (Grade, error) {
 }
 
 // knownFigures are the figures a limit may name, with their stored units
-// (calib/loop.Units; repeated here so that this package stays on the acq side).
-var knownFigures = map[string]string{
-	"Hmax": "A/m", "Bmax": "T", "Br": "T", "HcB": "A/m", "HcJ": "A/m", "mu_a": "",
-	"mu_initial": "", "mu_max": "", "loss_j_m3": "J/m3", "loss_j_kg": "J/kg", "BHmax": "J/m3",
-	"BHmax_B": "T", "BHmax_H": "A/m", "Hk": "A/m", "squareness": "", "mu_rec": "", "H_mu_max": "A/m",
-}
+// (calib/loop.Defs).
+var knownFigures = func() map[string]string {
+	m := map[string]string{}
+	for _, d := range loop.Defs {
+		m[d.Name] = d.Unit
+	}
+	return m
+}()
 
 // bAtRE matches the names of B read on the normal curve at a field,
 // b_at_<H>_a_m (calib/loop.BAtName: "p" for a decimal point).
@@ -284,7 +287,7 @@ func (w When) matches(l record.Loop, figs map[string]record.Figure) ([]string, b
 	}
 	if w.HAmplitude > 0 {
 		h := math.NaN()
-		if f, ok := figs["Hmax"]; ok {
+		if f, ok := figs[loop.FigHmax]; ok {
 			h = f.Value
 		} else if l.AmpUnit == "A/m" {
 			h = l.Amplitude
@@ -295,7 +298,7 @@ func (w When) matches(l record.Loop, figs map[string]record.Figure) ([]string, b
 		note = append(note, fmt.Sprintf("Hmax %.4g A/m within %g %% of %g A/m", h, 100*tol, w.HAmplitude))
 	}
 	if w.BPeak > 0 {
-		f, ok := figs["Bmax"]
+		f, ok := figs[loop.FigBmax]
 		if !ok || !(math.Abs(f.Value-w.BPeak) <= tol*w.BPeak) {
 			return nil, false
 		}

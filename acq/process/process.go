@@ -25,8 +25,8 @@ const (
 
 // Specimen classes: which figures are reported.
 const (
-	ClassSoft   = "soft"
-	ClassMagnet = "magnet"
+	ClassSoft   = loop.ClassSoft
+	ClassMagnet = loop.ClassMagnet
 )
 
 // Drift modes: how the absolute level of B is fixed.
@@ -421,17 +421,10 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	return points, figs, corr, nil
 }
 
-// reported says which figures a class reports.
+// reported says which figures a class reports (calib/loop.Defs).
 func reported(class, name string) bool {
-	switch name {
-	case loop.FigHmax, loop.FigBmax, loop.FigBr, loop.FigHcB, loop.FigHcJ, loop.FigLossJM3, loop.FigLossJKg:
-		return true
-	case loop.FigMuA, loop.FigMuInitial:
-		return class == ClassSoft
-	case loop.FigBHmax, loop.FigBHmaxB, loop.FigBHmaxH, loop.FigHk, loop.FigSquareness, loop.FigMuRec:
-		return class == ClassMagnet
-	}
-	return false
+	d, ok := loop.DefOf(name)
+	return ok && !d.Curve && (d.Class == "" || d.Class == class)
 }
 
 func appendSource(s []loop.Source, name string, hScale, hShift, bScale, bShift float64, note string) []loop.Source {

@@ -138,3 +138,43 @@ func (l Level) MarshalYAML() (any, error) { return l.String(), nil }
 
 // MarshalYAML implements yaml.Marshaler.
 func (r Rate) MarshalYAML() (any, error) { return r.String(), nil }
+
+// Induction is a flux density or polarization in tesla, written "1.5 T",
+// "800 mT" or "20 mT". A bare number is an error.
+type Induction float64
+
+// String prints the induction with its unit.
+func (b Induction) String() string { return fmtSI(float64(b), "T") }
+
+// UnmarshalYAML implements yaml.Unmarshaler.
+func (b *Induction) UnmarshalYAML(n *yaml.Node) error {
+	if n.Kind != yaml.ScalarNode {
+		return configs.ValueError(n, "want an induction with its unit, e.g. \"1.5 T\"")
+	}
+	if n.Tag != "!!str" {
+		return configs.ValueError(n, "%s has no unit; write it in T, e.g. \"%s T\"", n.Value, n.Value)
+	}
+	s := strings.TrimSpace(n.Value)
+	i := 0
+	for i < len(s) && strings.ContainsRune("+-0123456789.eE", rune(s[i])) {
+		i++
+	}
+	v, err := strconv.ParseFloat(s[:i], 64)
+	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		return configs.ValueError(n, "%q does not start with a number", s)
+	}
+	switch strings.TrimSpace(s[i:]) {
+	case "T":
+	case "mT":
+		v *= 1e-3
+	case "":
+		return configs.ValueError(n, "%q has no unit; write it in T, e.g. \"1.5 T\" or \"800 mT\"", s)
+	default:
+		return configs.ValueError(n, "unit %q of %q is not T or mT", strings.TrimSpace(s[i:]), s)
+	}
+	*b = Induction(v)
+	return nil
+}
+
+// MarshalYAML implements yaml.Marshaler.
+func (b Induction) MarshalYAML() (any, error) { return b.String(), nil }

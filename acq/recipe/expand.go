@@ -72,6 +72,103 @@ type Step struct {
 	// PeakCurrent (A) and PeakSlew (A/s) are the largest the step asks for;
 	// NaN when they cannot be known before the run (closed loop on a yoke).
 	PeakCurrent, PeakSlew float64
+	// Aim, for a Record step aimed at a peak induction, is the search the
+	// engine runs before it; the step's own levels are those of the first try.
+	Aim *Aim
+}
+
+// Aim is the search for the amplitude that gives a recorded loop a stated
+// peak B or J (record_loop peak:).
+type Aim struct {
+	Of        string  // "B" or "J"
+	Target    float64 // T
+	Tolerance float64 // T
+	Tries     int
+	// First is the first amplitude tried and Max the largest the search
+	// may try (the fixture's max current), in the step's Unit; Max is NaN
+	// when the fixture's limits do not say (closed loop on a field meter).
+	First, Max float64
+	rate       float64 // step Unit per second
+	perRecipe  float64 // step Unit per unit of LoopInfo.Amplitude
+	smp        Sampling
+	approach   time.Duration
+	period     time.Duration // setpoint period of the unrecorded parts
+}
+
+// ConditionAt returns an unrecorded step of the aimed step's search: from
+// the level from to +a, then cycles of ±a, at the step's rate.
+func (s Step) ConditionAt(a, from float64, cycles int) Step {
+	k := s.Aim
+	levels := []float64{a}
+	for range cycles {
+		levels = append(levels, -a, a)
+	}
+	var segs []Segment
+	prev := from
+	for _, l := range levels {
+		if d := time.Duration(math.Abs(l-prev) / k.rate * float64(time.Second)).Round(time.Microsecond); d > 0 {
+			segs = append(segs, Segment{To: l, Dur: max(d, 2*k.period)})
+		}
+		prev = l
+	}
+	return Step{N: s.N, Source: s.Source, Kind: KindCondition, Control: s.Control, Unit: s.Unit, From: from,
+		Segments: segs, Period: k.period, FieldGain: s.FieldGain, PeakCurrent: s.PeakCurrent, PeakSlew: s.PeakSlew}
+}
+
+// AtAmplitude returns the Record step aimed at a peak, rebuilt for the
+// amplitude a (in the step's Unit) from the level from: the same rate,
+// holds and sampling, with the loop's amplitude set to a.
+func (s Step) AtAmplitude(a, from float64) Step {
+	k := s.Aim
+	segs, per := recordProgram(from, a, []float64{-a, a}, k.rate, k.smp, k.approach)
+	info := *s.Loop
+	info.Amplitude = a / k.perRecipe
+	s.Loop, s.Segments, s.Period, s.From = &info, segs, per, from
+	return s
+}
+
+// recordProgram is a recorded step's program: the approach from from to
+// start (at least minApproach), the pre hold, the sweep through levels and
+// the post hold, with the sampling period. The pre hold is lengthened to
+// end on a whole number of periods from the step's start and every sweep
+// leg lasts a whole number of periods, so that the engine's samples (one
+// every period from the step's start) fall on the sweep's start, its
+// reversals and its end: a loop's tips are sampled, not interpolated.
+func recordProgram(from, start float64, levels []float64, rate float64, smp Sampling, minApproach time.Duration) ([]Segment, time.Duration) {
+	dur := func(a, b float64) time.Duration {
+		sec := math.Abs(b-a) / rate
+		if !(sec <= MaxSegment.Seconds()) {
+			return MaxSegment
+		}
+		return time.Duration(sec * float64(time.Second)).Round(time.Microsecond)
+	}
+	var segs []Segment
+	var approach time.Duration
+	if d := dur(from, start); d > 0 {
+		approach = max(d, minApproach)
+		segs = append(segs, Segment{To: start, Dur: approach})
+	}
+	var sweep time.Duration
+	prev := start
+	for _, l := range levels {
+		sweep += dur(prev, l)
+		prev = l
+	}
+	per := period(smp, sweep)
+	hold := smp.Hold.D()
+	hold = (approach+hold+per-1)/per*per - approach
+	segs = append(segs, Segment{To: start, Dur: hold, Phase: record.PreHold})
+	prev = start
+	for _, l := range levels {
+		if d := dur(prev, l); d > 0 {
+			n := max(1, (d+per-1)/per) // never faster than the rate asked
+
+			segs = append(segs, Segment{To: l, Dur: n * per, Phase: record.Sweep})
+		}
+		prev = l
+	}
+	segs = append(segs, Segment{To: levels[len(levels)-1], Dur: smp.Hold.D(), Phase: record.PostHold})
+	return segs, per
 }
 
 // Duration is the step's planned length.
@@ -84,23 +181,53 @@ func (s Step) Duration() time.Duration {
 }
 
 // At returns the setpoint at time t since the step started, the phase of the
-// segment it falls in, and whether t is past the end of the step.
+// segment it falls in, and whether t is past the end of the step. The phase
+// is that of the sample slot t belongs to (t rounded down to a whole number
+// of periods, so that a sample read a little late keeps its slot's phase),
+// and a sweep's end belongs to the sweep: the sample at a loop's closing
+// tip is a sweep sample, not a hold sample.
 func (s Step) At(t time.Duration) (level float64, phase record.Phase, done bool) {
+	level, done = s.levelAt(t)
+	slot := t
+	if s.Period > 0 {
+		slot -= t % s.Period
+	}
+	return level, s.phaseAt(slot), done
+}
+
+// levelAt is the setpoint at t and whether t is past the end.
+func (s Step) levelAt(t time.Duration) (float64, bool) {
 	from := s.From
 	var start time.Duration
 	for _, g := range s.Segments {
 		if t < start+g.Dur {
 			f := float64(t-start) / float64(g.Dur)
-			return from + (g.To-from)*f, g.Phase, false
+			return from + (g.To-from)*f, false
 		}
 		start += g.Dur
 		from = g.To
 	}
-	last := record.Phase("")
-	if n := len(s.Segments); n > 0 {
-		last = s.Segments[n-1].Phase
+	return from, true
+}
+
+// phaseAt is the phase at t: the segment's, with a sweep's end included in
+// the sweep.
+func (s Step) phaseAt(t time.Duration) record.Phase {
+	var start time.Duration
+	for i, g := range s.Segments {
+		end := start + g.Dur
+		if t < end {
+			return g.Phase
+		}
+		if t == end && g.Phase == record.Sweep && (i+1 == len(s.Segments) || s.Segments[i+1].Phase != record.Sweep) {
+			return record.Sweep
+		}
+		start = end
 	}
-	return from, last, true
+	if n := len(s.Segments); n > 0 {
+		return s.Segments[n-1].Phase
+	}
+	return ""
 }
 
 // End is the level at the end of the step.
@@ -125,6 +252,9 @@ func (s Step) String() string {
 			tag = " [" + string(g.Phase) + "]"
 		}
 		fmt.Fprintf(&b, " → %s in %s%s", fmtSI(g.To, s.Unit), g.Dur, tag)
+	}
+	if k := s.Aim; k != nil {
+		fmt.Fprintf(&b, "; aimed at a peak %s of %g T ± %g T in at most %d tries from the first", k.Of, k.Target, k.Tolerance, k.Tries)
 	}
 	if !math.IsNaN(s.PeakCurrent) {
 		fmt.Fprintf(&b, "; peak %.4g A, %.4g A/s", s.PeakCurrent, s.PeakSlew)
@@ -425,7 +555,26 @@ func (x *expander) step(i int, s StepSpec) {
 	case s.RecordLoop != nil:
 		d := s.RecordLoop
 		for range d.Cycles {
-			x.loop(src, src+".amplitude", LoopKindLoop, d.Amplitude, x.rt(d.Rate), d.Sampling)
+			if d.Peak == nil {
+				x.loop(src, src+".amplitude", LoopKindLoop, d.Amplitude, x.rt(d.Rate), d.Sampling)
+				continue
+			}
+			a := x.lv(d.Amplitude)
+			aim := &Aim{Of: "B", Tolerance: float64(d.Peak.Tolerance), Tries: d.Peak.Tries, First: a, Max: math.NaN(), perRecipe: x.conv}
+			if d.Peak.B != nil {
+				aim.Target = float64(*d.Peak.B)
+			} else {
+				aim.Of, aim.Target = "J", float64(*d.Peak.J)
+			}
+			if m := x.fx.Limits.MaxCurrentA; m > 0 && x.toAmp > 0 {
+				aim.Max = m / x.toAmp
+				if a > aim.Max {
+					x.c.add(src+".amplitude", "the first try %s is above the fixture limit limits.max_current_a = %g A of %q", d.Amplitude, m, x.fx.Name)
+					return
+				}
+			}
+			info := LoopInfo{Kind: LoopKindLoop, Amplitude: d.Amplitude.Value, AmpUnit: d.Amplitude.Unit}
+			x.recordedAim(src, src+".peak", info, x.rt(d.Rate), d.Sampling, aim, a, -a, a)
 		}
 	case s.NormalCurve != nil:
 		d := s.NormalCurve
@@ -498,16 +647,39 @@ func (x *expander) loop(src, path, kind string, amp Level, rate float64, smp Sam
 // recorded builds a Record step: an unrecorded approach to start, a pre
 // hold there, the sweep through levels, and a post hold at the last level.
 func (x *expander) recorded(src, path string, info LoopInfo, rate float64, smp Sampling, start float64, levels ...float64) {
-	segs := x.program(x.level, rate, "", 2*x.r.PeriodOr(), start)
-	segs = append(segs, Segment{To: start, Dur: smp.Hold.D(), Phase: record.PreHold})
-	sweep := x.program(start, rate, record.Sweep, 0, levels...)
-	var sweepDur time.Duration
-	for _, g := range sweep {
-		sweepDur += g.Dur
+	x.recordedAim(src, path, info, rate, smp, nil, start, levels...)
+}
+
+// recordedAim is recorded with an optional peak target.
+func (x *expander) recordedAim(src, path string, info LoopInfo, rate float64, smp Sampling, aim *Aim, start float64, levels ...float64) {
+	// Refuse a ramp beyond MaxSegment, naming the step.
+	prev := x.level
+	for _, l := range append([]float64{start}, levels...) {
+		x.ramp(prev, l, rate)
+		prev = l
 	}
-	segs = append(segs, sweep...)
-	segs = append(segs, Segment{To: levels[len(levels)-1], Dur: smp.Hold.D(), Phase: record.PostHold})
-	x.push(Step{Source: src, Kind: KindRecord, Period: period(smp, sweepDur), Loop: &info, Segments: segs}, path, rate)
+	segs, per := recordProgram(x.level, start, levels, rate, smp, 2*x.r.PeriodOr())
+	st := Step{Source: src, Kind: KindRecord, Period: per, Loop: &info, Segments: segs}
+	if aim == nil {
+		x.push(st, path, rate)
+		return
+	}
+	// The search may try any amplitude up to Max: the limits are checked
+	// for a loop at Max.
+	aim.rate, aim.smp, aim.approach, aim.period = rate, smp, 2*x.r.PeriodOr(), x.r.PeriodOr()
+	st.Aim = aim
+	chk := st
+	if !math.IsNaN(aim.Max) {
+		chk = st.AtAmplitude(aim.Max, x.level)
+	}
+	level := x.level
+	x.push(chk, path, rate)
+	chk = x.out[len(x.out)-1]
+	x.out = x.out[:len(x.out)-1]
+	x.segs -= len(chk.Segments)
+	x.level = level
+	x.push(st, "", rate)
+	x.out[len(x.out)-1].PeakCurrent, x.out[len(x.out)-1].PeakSlew = chk.PeakCurrent, chk.PeakSlew
 }
 
 // Errorf builds a located error for a key of the recipe (for callers that

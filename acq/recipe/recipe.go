@@ -111,11 +111,27 @@ type Sampling struct {
 }
 
 // RecordLoop records Cycles symmetric loops of ±Amplitude, each stored.
+// With Peak, Amplitude is the first try of a search for the amplitude that
+// gives the loop the stated peak induction (see Peak).
 type RecordLoop struct {
 	Amplitude Level `yaml:"amplitude"`
 	Rate      Rate  `yaml:"rate"`
 	Cycles    int   `yaml:"cycles"` // recorded loops, default 1
+	Peak      *Peak `yaml:"peak"`
 	Sampling  `yaml:",inline"`
+}
+
+// Peak aims a recorded loop at a peak induction B or polarization J (soft
+// materials are quoted at a stated peak, e.g. 1.0 or 1.5 T, common
+// practice). Before recording, the engine tries loops at amplitudes chosen
+// by secant steps on the measured tip against the amplitude, at most Tries,
+// never above the fixture's max current, until the tip is within Tolerance
+// of the target; it then conditions at that amplitude and records.
+type Peak struct {
+	B         *Induction `yaml:"b"`         // target peak B; or
+	J         *Induction `yaml:"j"`         // target peak J = B − μ0·H
+	Tolerance Induction  `yaml:"tolerance"` // default 1 % of the target
+	Tries     int        `yaml:"tries"`     // default 8
 }
 
 // NormalCurve records one loop at each amplitude, each after Cycles

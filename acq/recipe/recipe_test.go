@@ -153,11 +153,36 @@ func checkInvariants(t *testing.T, steps []Step) {
 			if want := []record.Phase{record.PreHold, record.Sweep, record.PostHold}; !equalPhases(phases, want) {
 				t.Errorf("step %d phases %v, want %v", s.N, phases, want)
 			}
+			checkTipsOnGrid(t, s)
 		}
 		level = s.End()
 	}
 	if level != 0 {
 		t.Errorf("plan ends at %g, want 0", level)
+	}
+}
+
+// checkTipsOnGrid: the engine samples a step every Period from its start,
+// so the sweep's start, its reversals and its end must fall on whole
+// periods, and At must put the samples there (the tips) in the sweep.
+func checkTipsOnGrid(t *testing.T, s Step) {
+	t.Helper()
+	var at time.Duration
+	for i, g := range s.Segments {
+		at += g.Dur
+		next := record.Phase("")
+		if i+1 < len(s.Segments) {
+			next = s.Segments[i+1].Phase
+		}
+		if g.Phase != record.Sweep && next != record.Sweep {
+			continue
+		}
+		if at%s.Period != 0 {
+			t.Errorf("step %d: a tip of the sweep at %s is not on the %s sample grid", s.N, at, s.Period)
+		}
+		if lv, ph, _ := s.At(at); ph != record.Sweep || lv != s.Segments[i].To {
+			t.Errorf("step %d: the sample at the tip %s is %g %q, want %g in the sweep", s.N, at, lv, ph, s.Segments[i].To)
+		}
 	}
 }
 
@@ -219,6 +244,49 @@ steps:
 	}
 }
 
+// TestAimedLoop: a loop aimed at a peak is checked against the fixture at
+// its largest amplitude (the fixture's 10 A), and rebuilt at any amplitude
+// from any level with the same rate, holds, points and tips on the grid.
+func TestAimedLoop(t *testing.T) {
+	src := `kind: recipe
+name: aimed
+steps:
+  - record_loop: {amplitude: 1 kA/m, rate: 400 A/m/s, points: 500, hold: 2s, peak: {j: 1.5 T}}
+`
+	r, err := Parse("aimed.yaml", []byte(src))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fx, g := ringFixture(t)
+	steps, err := Expand(r, fx, g)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := steps[0]
+	k := s.Aim
+	a := 1000 * math.Pi * 0.045 / 200
+	if k == nil || k.Of != "J" || k.Target != 1.5 || math.Abs(k.Tolerance-0.015) > 1e-15 || k.Tries != 8 || k.Max != 10 || math.Abs(k.First-a) > 1e-12 {
+		t.Fatalf("aim %+v", k)
+	}
+	if s.PeakCurrent != 10 {
+		t.Errorf("peak current %g A, want the fixture's 10 A", s.PeakCurrent)
+	}
+	checkTipsOnGrid(t, s)
+	b := s.AtAmplitude(2*a, a)
+	if b.From != a || b.End() != 2*a || math.Abs(b.Loop.Amplitude-2000) > 1e-9 {
+		t.Errorf("rebuilt from %g to %g, loop amplitude %g", b.From, b.End(), b.Loop.Amplitude)
+	}
+	// 500 points over a sweep of 8 kA/m at 400 A/m/s (20 s): 40 ms.
+	if b.Period != 40*time.Millisecond {
+		t.Errorf("period %s, want 40ms", b.Period)
+	}
+	checkTipsOnGrid(t, b)
+	c := s.ConditionAt(a, 2*a, 2)
+	if c.From != 2*a || c.End() != a || len(c.Segments) != 5 || c.Loop != nil {
+		t.Errorf("conditioning %v", c)
+	}
+}
+
 // TestRefusal: recipes that would cross a fixture limit are refused with
 // FILE:LINE: key: problem naming the step and the limit.
 func TestRefusal(t *testing.T) {
@@ -232,6 +300,10 @@ func TestRefusal(t *testing.T) {
 			[]string{"too-much.yaml:4: steps.0.condition.amplitude:", "70.69 A/s", "limits.max_slew_a_per_s = 50 A/s"}},
 		{"compliance voltage", "  - condition: {amplitude: 9 A, rate: 45 A/s}\n",
 			[]string{"steps.0.condition.amplitude", "9.45 V", "limits.max_voltage_v = 30 V"}},
+		{"peak search's first try", "  - record_loop: {amplitude: 15 kA/m, rate: 1 kA/m/s, points: 100, peak: {b: 1.5 T}}\n",
+			[]string{"too-much.yaml:4: steps.0.record_loop.amplitude:", "first try 15 kA/m", "limits.max_current_a = 10 A"}},
+		{"peak search at the current limit", "  - record_loop: {amplitude: 100 A/m, rate: 40 kA/m/s, points: 100, peak: {b: 1.5 T}}\n",
+			[]string{"too-much.yaml:4: steps.0.record_loop.peak:", "step 1 (steps.0.record_loop) needs about", "limits.max_voltage_v = 30 V"}},
 		{"normal curve top amplitude", "  - normal_curve: {from: 1 kA/m, to: 20 kA/m, count: 3, rate: 1 kA/m/s, points: 100}\n",
 			[]string{"too-much.yaml:4: steps.0.normal_curve.to:", "limits.max_current_a"}},
 	}
@@ -288,6 +360,20 @@ func TestParseErrors(t *testing.T) {
 			"x.yaml:10: steps.0.normal_curve.b_at.1: B is read at a field strength: write it in A/m, got 2 A"},
 		{"b_at beyond the amplitudes", "kind: recipe\nname: x\nsteps:\n  - normal_curve:\n      amplitudes: [100 A/m, 1 kA/m, 2.5 kA/m]\n      rate: 1 kA/m/s\n      points: 100\n      b_at: [800 A/m, 2500 A/m, 5000 A/m]\n",
 			"x.yaml:8: steps.0.normal_curve.b_at.2: 5 kA/m is outside the amplitudes of the normal curve (100 A/m to 2.5 kA/m)"},
+		{"peak without a unit", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak: {b: 1.5}\n",
+			"x.yaml:8: steps.0.record_loop.peak.b: 1.5 has no unit; write it in T"},
+		{"peak in A/m", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak: {b: 1.5 kA/m}\n",
+			"x.yaml:8: steps.0.record_loop.peak.b: unit \"kA/m\" of \"1.5 kA/m\" is not T or mT"},
+		{"peak B and J", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak: {b: 1.5 T, j: 1.5 T}\n",
+			"x.yaml:8: steps.0.record_loop.peak: give b or j"},
+		{"peak neither", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak: {tries: 3}\n",
+			"x.yaml:8: steps.0.record_loop.peak: required: b or j"},
+		{"peak beyond saturation", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak:\n        b: 7 T\n",
+			"x.yaml:9: steps.0.record_loop.peak.b: must be above 0 T and at most 5 T, got 7 T"},
+		{"peak tolerance too wide", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak:\n        b: 1 T\n        tolerance: 200 mT\n",
+			"x.yaml:10: steps.0.record_loop.peak.tolerance: must be above 0 T and at most a tenth of the target (100 mT), got 200 mT"},
+		{"peak tries", "kind: recipe\nname: x\nsteps:\n  - record_loop:\n      amplitude: 1 A\n      rate: 1 A/s\n      points: 100\n      peak:\n        j: 1 T\n        tries: 50\n",
+			"x.yaml:10: steps.0.record_loop.peak.tries: must be 1–20, got 50"},
 		{"b_at not increasing", "kind: recipe\nname: x\nsteps:\n  - normal_curve:\n      from: 100 A/m\n      to: 10 kA/m\n      count: 5\n      rate: 1 kA/m/s\n      points: 100\n      b_at: [2500 A/m, 800 A/m]\n",
 			"x.yaml:10: steps.0.normal_curve.b_at.1: fields must increase"},
 	}

@@ -136,6 +136,9 @@ func (r *Recipe) validate() error {
 				c.add(p+".cycles", "must be 1–100, got %d", d.Cycles)
 			}
 			c.sampling(p, &d.Sampling)
+			if d.Peak != nil {
+				c.peak(p+".peak", d.Peak)
+			}
 		case s.NormalCurve != nil:
 			d := s.NormalCurve
 			rate(p+".rate", d.Rate)
@@ -279,6 +282,49 @@ func (r *Recipe) validate() error {
 		}
 	}
 	return c.es.Err()
+}
+
+// MaxPeak bounds a peak target: above every material's saturation
+// polarization (about 2.4 T for iron–cobalt, handbook value from memory).
+const MaxPeak = 5.0
+
+// MaxTries bounds the tries of a peak search.
+const MaxTries = 20
+
+// peak checks a peak target and fills its defaults.
+func (c *checker) peak(p string, k *Peak) {
+	var target *Induction
+	switch {
+	case k.B != nil && k.J != nil:
+		c.add(p, "give b or j (the peak to aim at), not both")
+		return
+	case k.B != nil:
+		target = k.B
+		p += ".b"
+	case k.J != nil:
+		target = k.J
+		p += ".j"
+	default:
+		c.add(p, "required: b or j, the peak induction to aim at, e.g. \"b: 1.5 T\"")
+		return
+	}
+	if !(*target > 0) || *target > MaxPeak {
+		c.add(p, "must be above 0 T and at most %g T, got %s", MaxPeak, *target)
+		return
+	}
+	tp := strings.TrimSuffix(strings.TrimSuffix(p, ".b"), ".j")
+	if k.Tolerance == 0 {
+		k.Tolerance = *target / 100
+	}
+	if !(k.Tolerance > 0) || k.Tolerance > *target/10 {
+		c.add(tp+".tolerance", "must be above 0 T and at most a tenth of the target (%s), got %s", *target/10, k.Tolerance)
+	}
+	if k.Tries == 0 {
+		k.Tries = 8
+	}
+	if k.Tries < 1 || k.Tries > MaxTries {
+		c.add(tp+".tries", "must be 1–%d, got %d", MaxTries, k.Tries)
+	}
 }
 
 func (c *checker) sampling(p string, s *Sampling) {

@@ -28,6 +28,7 @@ import (
 	"hystd/acq/grade"
 	"hystd/acq/plot"
 	"hystd/acq/record"
+	"hystd/calib/loop"
 )
 
 // Input is everything a report shows.
@@ -438,23 +439,11 @@ func (d *doc) loop(run record.Run, sp config.Specimen, l record.Loop) error {
 	return nil
 }
 
-// figName spells the stored figure names as a report reader expects them.
+// figName spells the stored figure names as a report reader expects them
+// (calib/loop.Defs).
 func figName(n string) string {
-	switch n {
-	case "mu_a":
-		return "μa (amplitude)"
-	case "mu_initial":
-		return "μi (initial)"
-	case "mu_max":
-		return "μmax"
-	case "mu_rec":
-		return "μrec (recoil)"
-	case "loss_j_m3":
-		return "loss per cycle"
-	case "loss_j_kg":
-		return "loss per cycle, mass"
-	case "BHmax":
-		return "(BH)max"
+	if d, ok := loop.DefOf(n); ok {
+		return d.Symbol
 	}
 	return n
 }

@@ -30,17 +30,6 @@ const (
 	FigMuRec      = "mu_rec"     // relative slope dB/dH/μ0 near Br (recoil permeability from the major loop)
 )
 
-// Units of the figures.
-var Units = map[string]string{
-	FigHmax: "A/m", FigBmax: "T", FigBr: "T", FigHcB: "A/m", FigHcJ: "A/m", FigMuA: "",
-	FigMuInitial: "", FigMuMax: "", FigHMuMax: "A/m", FigLossJM3: "J/m3", FigLossJKg: "J/kg", FigBHmax: "J/m3",
-	FigBHmaxB: "T", FigBHmaxH: "A/m", FigHk: "A/m", FigSquareness: "", FigMuRec: "",
-}
-
-// order is the order in which figures are returned.
-var order = []string{FigHmax, FigBmax, FigBr, FigHcB, FigHcJ, FigMuA, FigMuInitial, FigLossJM3, FigLossJKg,
-	FigBHmax, FigBHmaxB, FigBHmaxH, FigHk, FigSquareness, FigMuRec}
-
 // Source is one input of the uncertainty budget, described by the change of
 // the corrected H and B that one standard uncertainty of it causes:
 // H → H·(1+HScale) + HShift and

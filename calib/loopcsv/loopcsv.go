@@ -616,11 +616,17 @@ func (r Result) WriteJSON(w io.Writer) error {
 	return err
 }
 
-// tableRows are the figures of the table, in order, with their labels.
-var tableRows = []struct{ name, label string }{
-	{loop.FigHmax, "Hmax"}, {loop.FigBmax, "Bmax"}, {loop.FigBr, "Br"}, {loop.FigHcB, "HcB"},
-	{loop.FigHcJ, "HcJ"}, {loop.FigMuA, "mu_a"}, {loop.FigLossJM3, "loss per cycle"}, {loop.FigBHmax, "(BH)max"},
-}
+// tableRows are the figures of the table, in order, with their labels:
+// those analyze prints (calib/loop.Defs with a JSON key).
+var tableRows = func() []struct{ name, label string } {
+	var rows []struct{ name, label string }
+	for _, d := range loop.Defs {
+		if d.JSON != "" {
+			rows = append(rows, struct{ name, label string }{d.Name, d.Label})
+		}
+	}
+	return rows
+}()
 
 // Rounded returns v and U (expanded) as text rounded after GUM (JCGM
 // 100:2008) 7.2.6: U to two significant digits, v to the same decimal
