@@ -241,9 +241,22 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	lastProgress := stepStart
 	prevPhase := record.Phase("")
 	in := x.s.Instruments
-	for {
+	// The step's schedule: round k sets the level of t = k·period, due at
+	// stepStart+shift+t. A round that comes late by half a period or more
+	// (a stalled reply, a retry, a slow host) shifts the rest of the
+	// schedule by its lateness: the sweep resumes where it stopped, one
+	// recipe step further, never several at once (a jump the supply would
+	// follow at its own slew, beyond limits.max_slew_a_per_s).
+	var shift, stalled time.Duration
+	stalls := 0
+	for k := time.Duration(0); ; k++ {
 		now := x.s.Clock.Now()
-		t := now.Sub(stepStart)
+		t := k * st.Period
+		if late := now.Sub(stepStart.Add(shift + t)); k > 0 && late >= st.Period/2 {
+			shift += late
+			stalled += late
+			stalls++
+		}
 		level, phase, done := st.At(t)
 		if st.Loop != nil && phase == record.PreHold && prevPhase != record.PreHold {
 			loopStart = now
@@ -294,10 +307,13 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if done {
 			break
 		}
-		next := stepStart.Add((t/st.Period + 1) * st.Period)
-		if err := x.s.Clock.SleepUntil(ctx, next); err != nil {
+		if err := x.s.Clock.SleepUntil(ctx, stepStart.Add(shift+t+st.Period)); err != nil {
 			return err
 		}
+	}
+	if stalls > 0 {
+		x.event(ctx, "warn", "step %d: %d stalled rounds (%s in all): the sweep waited and resumed where it stopped",
+			st.N, stalls, stalled.Round(time.Millisecond))
 	}
 	if n := x.retries.Swap(0); n > 0 {
 		x.event(ctx, "warn", "step %d: %d late replies were read again within limits.comm_timeout", st.N, n)
