@@ -216,6 +216,7 @@ func (d *Device) start(ctx context.Context) error {
 			}
 			d.o.Log.Warn("errors found in the instrument's queue when it was opened", "profile", d.p.Name, "err", ie)
 		case err != nil:
+			d.keepDrained(err, " (in the queue when the port was opened)")
 			return &OpError{Profile: d.p.Name, Op: "identify", Command: d.p.ErrorQuery, Err: err}
 		}
 	}
@@ -606,7 +607,10 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 	}
 	var ie *scpi.InstrumentError
 	if !errors.As(err, &ie) {
+		// Entries read before the failure are off the instrument's
+		// queue: kept for the next poll, with those found before.
 		d.pending = out
+		d.keepDrained(err, "")
 		return nil, d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
 	}
 	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
@@ -616,6 +620,20 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg, Fail: d.p.Severity(e.Code) == SeverityFail})
 	}
 	return out, nil
+}
+
+// keepDrained adds to the pending errors the entries a failed drain read
+// before it failed (scpi.DrainError), with note after each message.
+func (d *Device) keepDrained(err error, note string) {
+	var de *scpi.DrainError
+	if !errors.As(err, &de) {
+		return
+	}
+	for _, e := range de.Entries {
+		if e.Code != 0 {
+			d.pending = append(d.pending, instr.InstrumentError{Code: e.Code, Msg: e.Msg + note, Fail: d.p.Severity(e.Code) == SeverityFail})
+		}
+	}
 }
 
 // ErrorPollPeriod is the profile's error_poll period (0: never).
