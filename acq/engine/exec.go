@@ -1,6 +1,7 @@
 package engine
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
@@ -617,6 +618,7 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 	if x.polled == nil {
 		x.polled = map[string]time.Time{}
 	}
+	var ferr, ffail error // the final poll's: first failure, first fatal entry
 	for _, r := range roles {
 		p, ok := r.r.(instr.ErrorPoller)
 		if !ok || r.r == nil {
@@ -638,8 +640,15 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
 		errs, err := sampler.Retry(cctx, p.PollErrors)
 		cancel()
-		if err != nil {
+		if err != nil && !final {
+			// What the failed poll read stays with the driver for the
+			// ending's last poll.
 			return x.stopErr(ctx, safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err)))
+		}
+		if err != nil {
+			// The ending's last poll: the entries read before the line
+			// failed are named, and the other instruments still polled.
+			ferr = cmp.Or(ferr, error(safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err))))
 		}
 		var fail *safety.Violation
 		for _, e := range errs {
@@ -657,8 +666,11 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 			}
 			x.event(ctx, level, "%s", text)
 		}
-		if fail != nil {
+		if fail != nil && !final {
 			return fail
+		}
+		if fail != nil && ffail == nil {
+			ffail = fail
 		}
 		if !final {
 			// One instrument per sample round: the poll's round trip
@@ -666,5 +678,5 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 			return nil
 		}
 	}
-	return nil
+	return cmp.Or(ffail, ferr)
 }

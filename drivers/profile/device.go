@@ -609,9 +609,11 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 	if !errors.As(err, &ie) {
 		// Entries read before the failure are off the instrument's
 		// queue: kept for the next poll, with those found before.
+		// They are returned with the failure too (and kept): a caller
+		// that gives up on the line can still name them.
 		d.pending = out
 		d.keepDrained(err, "")
-		return nil, d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
+		return append([]instr.InstrumentError(nil), d.pending...), d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
 	}
 	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
 		if e.Code == 0 {

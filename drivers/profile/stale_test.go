@@ -152,8 +152,8 @@ func TestErrorReadBeforeSpoiledReplyKept(t *testing.T) {
 	)
 	f := r.fieldMeter(t)
 	errs, err := f.PollErrors(context.Background())
-	if !errors.Is(err, scpi.ErrDesync) || len(errs) != 0 {
-		t.Fatalf("first poll: got %+v, %v; want scpi.ErrDesync", errs, err)
+	if !errors.Is(err, scpi.ErrDesync) || len(errs) != 1 || errs[0].Code != -310 {
+		t.Fatalf("first poll: got %+v, %v; want scpi.ErrDesync with the -310 entry read before it", errs, err)
 	}
 	errs, err = f.PollErrors(context.Background())
 	if err != nil || len(errs) != 1 || errs[0].Code != -310 || errs[0].Msg != "campaign fault 7" {
