@@ -242,7 +242,9 @@ func (d *Device) ready(ctx context.Context) error {
 		if errors.Is(err, ErrIdentity) {
 			d.failed = err
 		}
-		return d.fail(ctx, "identify", "*IDN?", err)
+		// Said as such: the cause (a hang-up) was reported to an
+		// operation whose error may not reach anyone.
+		return d.fail(ctx, "identify", "*IDN?", fmt.Errorf("identifying again after the port was lost and reconnected: %w", err))
 	}
 	d.unverified = false
 	return nil
