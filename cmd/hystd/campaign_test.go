@@ -55,7 +55,7 @@ func TestCampaignFaultsAndKills(t *testing.T) {
 	long := os.Getenv("HYSTD_CAMPAIGN") == "long"
 	plan := campaignPlan{runs: 5, maxFaults: 4, burst: 2, killP: 0.4}
 	if long {
-		plan = campaignPlan{runs: 200, maxFaults: 16, burst: 3, killP: 0.45}
+		plan = campaignPlan{runs: 170, maxFaults: 16, burst: 4, killP: 0.45, lightP: 0.3}
 	}
 	if s := os.Getenv("HYSTD_CAMPAIGN_RUNS"); s != "" {
 		n, err := strconv.Atoi(s)
@@ -93,6 +93,7 @@ type campaignPlan struct {
 	maxFaults int     // injection times per run, drawn uniformly in [1, maxFaults]
 	burst     int     // faults per injection time, drawn uniformly in [1, burst]
 	killP     float64 // chance a run is ended by kill -9
+	lightP    float64 // chance a run takes only 1–2 single faults (most such runs finish: loops to check)
 }
 
 // campaignFigures is what a campaign reports.
@@ -422,7 +423,10 @@ func (c *campaign) run(plan campaignPlan) {
 		before := c.bench.Injected()
 		id := c.submit(campaignLoop)
 		c.fig.Runs++
-		nf := 1 + c.rng.IntN(plan.maxFaults)
+		nf, burst := 1+c.rng.IntN(plan.maxFaults), plan.burst
+		if c.rng.Float64() < plan.lightP {
+			nf, burst = 1+c.rng.IntN(2), 1
+		}
 		if sweepUp {
 			nf = 0
 		}
@@ -461,7 +465,7 @@ func (c *campaign) run(plan campaignPlan) {
 				endInj = c.bench.Injected()
 				break
 			}
-			for j := range 1 + c.rng.IntN(plan.burst) {
+			for j := range 1 + c.rng.IntN(burst) {
 				f := c.randomFault(k*1000 + i*10 + j)
 				at := campaignClock.Now()
 				if err := c.bench.Inject(f); err != nil {
