@@ -62,6 +62,7 @@ type exec struct {
 	smp       *sampler.Sampler     // the run's concurrent reader
 	notes     []string             // added to the final reason
 	polled    map[string]time.Time // last error-queue poll, by role
+	reconn    map[string]int64     // port reconnects by role when the run started
 }
 
 func newExec(p *Plan) *exec {
@@ -159,6 +160,7 @@ func (x *exec) steps(ctx context.Context) error {
 	}
 	x.event(ctx, "warn", "%s", Caution(x.s.Fixture, peak))
 	x.identities(ctx)
+	x.reconn = x.reconnects()
 
 	cctx, cancel = context.WithTimeout(ctx, x.comm)
 	err = sup.SetCurrent(cctx, 0)
@@ -435,6 +437,17 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			x.event(ctx, "warn", "last error-queue poll after the ramp-down: %v", perr)
 		}
 	}
+	// A port lost and reconnected during the run is named, also when the
+	// operation that met the loss failed unseen (the run was already
+	// failing on another instrument).
+	if x.reconn != nil {
+		now := x.reconnects()
+		for _, role := range []string{"supply", "integrator", "field meter", "thermometer"} {
+			if n := now[role] - x.reconn[role]; n > 0 {
+				x.event(ctx, "warn", "the %s's port was lost (hang-up or unplug) and reconnected %d time(s) during the run", role, n)
+			}
+		}
+	}
 	// A trip while the run was failing for another reason is named too.
 	if x.start != (time.Time{}) && !strings.Contains(reason, "tripped") {
 		sctx, cancel := bg(ctx, x.comm)
@@ -581,6 +594,23 @@ func (x *exec) halt(ctx context.Context) error {
 		x.energd = false
 	}
 	return err
+}
+
+// reconnects returns, by role, how many times each instrument that can
+// tell has lost and reconnected its port.
+func (x *exec) reconnects() map[string]int64 {
+	type reconnector interface{ Reconnects() int64 }
+	in := x.s.Instruments
+	out := map[string]int64{}
+	for _, r := range []struct {
+		role string
+		dev  any
+	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field meter", in.FieldMeter}, {"thermometer", in.Thermometer}} {
+		if d, ok := r.dev.(reconnector); ok && d != nil {
+			out[r.role] = d.Reconnects()
+		}
+	}
+	return out
 }
 
 // IdentityPrefix starts the event that records an instrument's identity

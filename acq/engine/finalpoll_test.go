@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"strings"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -58,5 +59,43 @@ func TestFinalPollGoesOnAfterAFailure(t *testing.T) {
 	}
 	if !failed {
 		t.Errorf("the failed supply poll is not among the run's events (run %s %q)", run.State, run.Reason)
+	}
+}
+
+// reconnectingThermometer counts port reconnects, as profile.Device does.
+type reconnectingThermometer struct {
+	*enginetest.Thermometer
+	n *atomic.Int64
+}
+
+func (t reconnectingThermometer) Reconnects() int64 { return t.n.Load() }
+
+// A port lost and reconnected during a run is named by the run's events,
+// although no operation's error reached the engine (the read that met the
+// loss was retried by the driver, or failed while the run was failing on
+// another instrument).
+func TestReconnectNamedInEvents(t *testing.T) {
+	r := newRig(t)
+	s := r.setup(t, twoLoops)
+	var n atomic.Int64
+	n.Store(2) // reconnects before this run are not its own
+	s.Instruments.Thermometer = reconnectingThermometer{r.therm, &n}
+	r.sup.OnRead = func(k int) {
+		if k == 40 {
+			n.Add(1)
+		}
+	}
+	run, err := Run(context.Background(), s)
+	if err != nil {
+		t.Fatalf("run %s: %v", run.State, err)
+	}
+	var named int
+	for _, e := range r.w.Events {
+		if strings.Contains(e.Text, "thermometer's port was lost") && strings.Contains(e.Text, "reconnected 1 time(s)") {
+			named++
+		}
+	}
+	if named != 1 {
+		t.Errorf("%d events name the thermometer's reconnect, want 1", named)
 	}
 }

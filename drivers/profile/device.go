@@ -10,6 +10,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"hystd/drivers/instr"
@@ -119,6 +120,8 @@ type Device struct {
 	// unverified is set when a reconnect succeeded but identification or
 	// init did not: the next operation repeats them before anything else.
 	unverified bool
+	// reconnects counts the port's reconnects after a loss (Reconnects).
+	reconnects atomic.Int64
 	// pending are error-queue entries found when the port was opened, for
 	// the next PollErrors.
 	pending []instr.InstrumentError
@@ -253,6 +256,11 @@ func (d *Device) ready(ctx context.Context) error {
 // Profile returns the (normalized) profile the device speaks.
 func (d *Device) Profile() Profile { return d.p }
 
+// Reconnects returns how many times the port was lost and reconnected
+// since the device was opened, without any I/O: for a run's record, as the
+// operation that met the loss may have failed unseen.
+func (d *Device) Reconnects() int64 { return d.reconnects.Load() }
+
 // IdentityRead returns the *IDN? reply read when the device was last
 // identified (at open or after a reconnect), without any I/O.
 func (d *Device) IdentityRead() string { return d.idn }
@@ -306,6 +314,7 @@ func (d *Device) fail(ctx context.Context, op, cmd string, err error) error {
 		return oe
 	}
 	d.c.Forget()
+	d.reconnects.Add(1)
 	if serr := d.start(rctx); serr != nil {
 		if errors.Is(serr, ErrIdentity) {
 			d.failed = serr // never talk to a different instrument
