@@ -55,7 +55,7 @@ func TestCampaignFaultsAndKills(t *testing.T) {
 	long := os.Getenv("HYSTD_CAMPAIGN") == "long"
 	plan := campaignPlan{runs: 5, maxFaults: 4, burst: 2, killP: 0.4}
 	if long {
-		plan = campaignPlan{runs: 170, maxFaults: 16, burst: 4, killP: 0.45, lightP: 0.3}
+		plan = campaignPlan{runs: 190, maxFaults: 16, burst: 4, killP: 0.45, lightP: 0.3}
 	}
 	if s := os.Getenv("HYSTD_CAMPAIGN_RUNS"); s != "" {
 		n, err := strconv.Atoi(s)
