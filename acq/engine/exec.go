@@ -1,6 +1,7 @@
 package engine
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
@@ -62,6 +63,7 @@ type exec struct {
 	notes     []string             // added to the final reason
 	polled    map[string]time.Time // last error-queue poll, by role
 	tryRaw    *[]record.Sample     // not nil: a loop is a try of a peak search, kept here instead of stored
+	reconn    map[string]int64     // port reconnects by role when the run started
 }
 
 func newExec(p *Plan) *exec {
@@ -159,6 +161,7 @@ func (x *exec) steps(ctx context.Context) error {
 	}
 	x.event(ctx, "warn", "%s", Caution(x.s.Fixture, peak))
 	x.identities(ctx)
+	x.reconn = x.reconnects()
 
 	cctx, cancel = context.WithTimeout(ctx, x.comm)
 	err = sup.SetCurrent(cctx, 0)
@@ -246,9 +249,22 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	lastProgress := stepStart
 	prevPhase := record.Phase("")
 	in := x.s.Instruments
-	for {
+	// The step's schedule: round k sets the level of t = k·period, due at
+	// stepStart+shift+t. A round that comes late by half a period or more
+	// (a stalled reply, a retry, a slow host) shifts the rest of the
+	// schedule by its lateness: the sweep resumes where it stopped, one
+	// recipe step further, never several at once (a jump the supply would
+	// follow at its own slew, beyond limits.max_slew_a_per_s).
+	var shift, stalled time.Duration
+	stalls := 0
+	for k := time.Duration(0); ; k++ {
 		now := x.s.Clock.Now()
-		t := now.Sub(stepStart)
+		t := k * st.Period
+		if late := now.Sub(stepStart.Add(shift + t)); k > 0 && late >= st.Period/2 {
+			shift += late
+			stalled += late
+			stalls++
+		}
 		level, phase, done := st.At(t)
 		if st.Loop != nil && phase == record.PreHold && prevPhase != record.PreHold {
 			loopStart = now
@@ -299,10 +315,13 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if done {
 			break
 		}
-		next := stepStart.Add((t/st.Period + 1) * st.Period)
-		if err := x.s.Clock.SleepUntil(ctx, next); err != nil {
+		if err := x.s.Clock.SleepUntil(ctx, stepStart.Add(shift+t+st.Period)); err != nil {
 			return err
 		}
+	}
+	if stalls > 0 {
+		x.event(ctx, "warn", "step %d: %d stalled rounds (%s in all): the sweep waited and resumed where it stopped",
+			st.N, stalls, stalled.Round(time.Millisecond))
 	}
 	if n := x.retries.Swap(0); n > 0 {
 		x.event(ctx, "warn", "step %d: %d late replies were read again within limits.comm_timeout", st.N, n)
@@ -428,6 +447,17 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			state, reason = record.Failed, v.Text
 		} else if perr != nil {
 			x.event(ctx, "warn", "last error-queue poll after the ramp-down: %v", perr)
+		}
+	}
+	// A port lost and reconnected during the run is named, also when the
+	// operation that met the loss failed unseen (the run was already
+	// failing on another instrument).
+	if x.reconn != nil {
+		now := x.reconnects()
+		for _, role := range []string{"supply", "integrator", "field meter", "thermometer"} {
+			if n := now[role] - x.reconn[role]; n > 0 {
+				x.event(ctx, "warn", "the %s's port was lost (hang-up or unplug) and reconnected %d time(s) during the run", role, n)
+			}
 		}
 	}
 	// A trip while the run was failing for another reason is named too.
@@ -578,6 +608,23 @@ func (x *exec) halt(ctx context.Context) error {
 	return err
 }
 
+// reconnects returns, by role, how many times each instrument that can
+// tell has lost and reconnected its port.
+func (x *exec) reconnects() map[string]int64 {
+	type reconnector interface{ Reconnects() int64 }
+	in := x.s.Instruments
+	out := map[string]int64{}
+	for _, r := range []struct {
+		role string
+		dev  any
+	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field meter", in.FieldMeter}, {"thermometer", in.Thermometer}} {
+		if d, ok := r.dev.(reconnector); ok && d != nil {
+			out[r.role] = d.Reconnects()
+		}
+	}
+	return out
+}
+
 // IdentityPrefix starts the event that records an instrument's identity
 // as read when it was opened: "instrument ROLE: REPLY".
 const IdentityPrefix = "instrument "
@@ -613,6 +660,7 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 	if x.polled == nil {
 		x.polled = map[string]time.Time{}
 	}
+	var ferr, ffail error // the final poll's: first failure, first fatal entry
 	for _, r := range roles {
 		p, ok := r.r.(instr.ErrorPoller)
 		if !ok || r.r == nil {
@@ -634,8 +682,15 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
 		errs, err := sampler.Retry(cctx, p.PollErrors)
 		cancel()
-		if err != nil {
+		if err != nil && !final {
+			// What the failed poll read stays with the driver for the
+			// ending's last poll.
 			return x.stopErr(ctx, safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err)))
+		}
+		if err != nil {
+			// The ending's last poll: the entries read before the line
+			// failed are named, and the other instruments still polled.
+			ferr = cmp.Or(ferr, error(safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err))))
 		}
 		var fail *safety.Violation
 		for _, e := range errs {
@@ -653,8 +708,11 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 			}
 			x.event(ctx, level, "%s", text)
 		}
-		if fail != nil {
+		if fail != nil && !final {
 			return fail
+		}
+		if fail != nil && ffail == nil {
+			ffail = fail
 		}
 		if !final {
 			// One instrument per sample round: the poll's round trip
@@ -662,5 +720,5 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 			return nil
 		}
 	}
-	return nil
+	return cmp.Or(ffail, ferr)
 }

@@ -53,9 +53,16 @@ func TestCampaignFaultsAndKills(t *testing.T) {
 		t.Skip("the campaign builds hystd with the go command, which is not on PATH")
 	}
 	long := os.Getenv("HYSTD_CAMPAIGN") == "long"
-	plan := campaignPlan{runs: 5, maxFaults: 4, killP: 0.4}
+	plan := campaignPlan{runs: 5, maxFaults: 4, burst: 2, killP: 0.4}
 	if long {
-		plan = campaignPlan{runs: 150, maxFaults: 14, killP: 0.45}
+		plan = campaignPlan{runs: 190, maxFaults: 16, burst: 4, killP: 0.45, lightP: 0.3}
+	}
+	if s := os.Getenv("HYSTD_CAMPAIGN_RUNS"); s != "" {
+		n, err := strconv.Atoi(s)
+		if err != nil || n < 1 {
+			t.Fatalf("HYSTD_CAMPAIGN_RUNS=%q: want a positive number of runs", s)
+		}
+		plan.runs = n
 	}
 	seed := uint64(time.Now().UnixNano())
 	if s := os.Getenv("HYSTD_CAMPAIGN_SEED"); s != "" {
@@ -83,8 +90,10 @@ func TestCampaignFaultsAndKills(t *testing.T) {
 
 type campaignPlan struct {
 	runs      int
-	maxFaults int     // per run, drawn uniformly in [1, maxFaults]
+	maxFaults int     // injection times per run, drawn uniformly in [1, maxFaults]
+	burst     int     // faults per injection time, drawn uniformly in [1, burst]
 	killP     float64 // chance a run is ended by kill -9
+	lightP    float64 // chance a run takes only 1–2 single faults (most such runs finish: loops to check)
 }
 
 // campaignFigures is what a campaign reports.
@@ -94,11 +103,14 @@ type campaignFigures struct {
 	States           map[string]int `json:"states"`
 	FaultsByKind     map[string]int `json:"faults_by_kind"`
 	FaultsTotal      int            `json:"faults_total"`
-	FaultsInRuns     int            `json:"faults_in_runs"`      // fired while a run was under way, not killed
-	FaultsInvisible  int            `json:"faults_invisible"`    // of those, without evidence in the run (garble excepted)
-	GarbleInvisible  int            `json:"garble_invisible"`    // garbles with no evidence (a flipped letter in a message text parses)
-	FaultsKilledRuns int            `json:"faults_killed_runs"`  // fired in runs ended by kill -9 (not checked)
-	FaultsBetween    int            `json:"faults_between_runs"` // fired after a run's ending: at halts, opens, start-ups
+	FaultsInRuns     int            `json:"faults_in_runs"`              // fired while a run was under way, not killed
+	FaultsInvisible  int            `json:"faults_invisible"`            // of those, without evidence in the run (garble excepted)
+	GarbleInvisible  int            `json:"garble_invisible"`            // garbles with no evidence (a flipped letter in a message text parses)
+	FaultsKilledRuns int            `json:"faults_killed_runs"`          // fired in runs ended by kill -9 (not checked)
+	FaultsBetween    int            `json:"faults_between_runs"`         // fired after a run's ending: at halts, opens, start-ups
+	ErrorsCarried    int            `json:"errors_found_in_a_later_run"` // error faults fired after a run's last poll, named by the next run's open
+	TripsCarried     int            `json:"trips_named_by_a_later_run"`  // trips fired during a run's ending, named by the next run
+	NoEffect         int            `json:"hangups_outside_runs"`        // hangups before a run opened its ports or after its ending
 	Kills            int            `json:"kills"`
 	Restarts         int            `json:"restarts"`
 	Loops            int            `json:"loops"`
@@ -391,22 +403,43 @@ func (c *campaign) run(plan campaignPlan) {
 	c.start("first start")
 	c.fig.Restarts = 0
 	loopsSeen := map[string]bool{}
-	for k := 0; k < plan.runs; k++ { // on after a failure: the figures count every run
-		if c.bench.Truth().Tripped {
+	// Error faults carry a unique message; one not named by the run it
+	// fired in (pushed after that run's last poll) must be named by the
+	// next run that starts (its open reads the queue before *CLS). A trip
+	// not named by its run is left latched for the next run to name.
+	type pendingErr struct {
+		msg string
+		run int
+	}
+	var pendErrs []pendingErr
+	pendTrips := 0
+	// The last run takes no faults and is not killed: it reads what the
+	// runs before it left pending.
+	for k := 0; k <= plan.runs; k++ { // on after a failure: the figures count every run
+		sweepUp := k == plan.runs
+		if c.bench.Truth().Tripped && pendTrips == 0 {
 			c.clearTrip()
 		}
 		before := c.bench.Injected()
 		id := c.submit(campaignLoop)
 		c.fig.Runs++
-		nf := 1 + c.rng.IntN(plan.maxFaults)
+		nf, burst := 1+c.rng.IntN(plan.maxFaults), plan.burst
+		if c.rng.Float64() < plan.lightP {
+			nf, burst = 1+c.rng.IntN(2), 1
+		}
+		if sweepUp {
+			nf = 0
+		}
 		killAt := time.Duration(-1)
-		if c.rng.Float64() < plan.killP {
+		if !sweepUp && c.rng.Float64() < plan.killP {
 			// Mostly after the open, while the winding carries current.
 			killAt = time.Duration(1200+c.rng.IntN(4000)) * time.Millisecond
 		}
 		offsets := make([]time.Duration, nf)
 		for i := range offsets {
-			offsets[i] = time.Duration(200+c.rng.IntN(7000)) * time.Millisecond
+			// Mostly after the open: faults spent on the open's *IDN? fail
+			// the run as "wrong instrument" and little else is tried.
+			offsets[i] = time.Duration(700+c.rng.IntN(6500)) * time.Millisecond
 		}
 		sort.Slice(offsets, func(i, j int) bool { return offsets[i] < offsets[j] })
 		start := campaignClock.Now()
@@ -432,13 +465,18 @@ func (c *campaign) run(plan campaignPlan) {
 				endInj = c.bench.Injected()
 				break
 			}
-			f := c.randomFault(k*100 + i)
-			at := campaignClock.Now()
-			if err := c.bench.Inject(f); err != nil {
-				t.Fatalf("inject %+v: %v", f, err)
-			}
-			if f.Kind == sim.FaultError || f.Kind == sim.FaultHangup || f.Kind == sim.FaultTrip {
-				immediate = append(immediate, injection{f.Kind, at})
+			for j := range 1 + c.rng.IntN(burst) {
+				f := c.randomFault(k*1000 + i*10 + j)
+				at := campaignClock.Now()
+				if err := c.bench.Inject(f); err != nil {
+					t.Fatalf("inject %+v: %v", f, err)
+				}
+				switch f.Kind {
+				case sim.FaultHangup:
+					immediate = append(immediate, injection{f.Kind, at})
+				case sim.FaultError:
+					pendErrs = append(pendErrs, pendingErr{f.Message, k})
+				}
 			}
 		}
 		if killAt >= 0 {
@@ -488,10 +526,13 @@ func (c *campaign) run(plan campaignPlan) {
 			inRun[kind] = 0
 		}
 		for _, in := range immediate {
-			// A run that never started (its instruments could not be
-			// opened) had nothing to observe them with: between runs.
-			if !r.Started.IsZero() && in.at.Before(r.Ended.Add(-200*time.Millisecond)) {
+			// A hangup before the run opened its ports or after its
+			// ending finds no process on the line: nothing to observe.
+			// (vhangup reaches only open descriptors.)
+			if !r.Started.IsZero() && !in.at.Before(r.Started) && in.at.Before(r.Ended.Add(-200*time.Millisecond)) {
 				inRun[in.kind]++
+			} else {
+				c.fig.NoEffect++
 			}
 		}
 		c.fig.States[string(r.State)]++
@@ -526,11 +567,57 @@ func (c *campaign) run(plan campaignPlan) {
 		for _, e := range evs {
 			text += "\n" + e.Text
 		}
+		// Errors, each by its message: in this run, or (pushed after its
+		// last poll) in the next run that starts; a kill loses what the
+		// killed process read and had not stored yet.
+		var still []pendingErr
+		for _, pe := range pendErrs {
+			switch {
+			case killed:
+				c.fig.FaultsKilledRuns++
+			case containsNear(text, pe.msg):
+				if pe.run == k {
+					c.fig.FaultsInRuns++
+				} else {
+					c.fig.ErrorsCarried++
+				}
+			case pe.run == k || r.Started.IsZero():
+				still = append(still, pe) // for the next run that starts
+			default:
+				c.fig.FaultsInvisible++
+				t.Errorf("run %d (%s %s): error %q fired in run %d and was named by neither run:\n%s", k, id, r.State, pe.msg, pe.run, text)
+			}
+		}
+		pendErrs = still
+		// Trips: named by this run, or left latched for the next.
+		trips := after[sim.FaultTrip] - before[sim.FaultTrip]
+		switch named := strings.Contains(text, "tripped"); {
+		case killed:
+			c.fig.FaultsKilledRuns += trips + pendTrips
+			pendTrips = 0
+		case named:
+			c.fig.FaultsInRuns += trips
+			c.fig.TripsCarried += pendTrips
+			pendTrips = 0
+		case pendTrips > 0 && !r.Started.IsZero():
+			c.fig.FaultsInvisible += pendTrips
+			t.Errorf("run %d (%s %s): a trip left latched by the run before was not named:\n%s", k, id, r.State, text)
+			pendTrips = trips
+		default:
+			pendTrips += trips
+		}
+		if pendTrips > 0 && !c.bench.Truth().Tripped {
+			c.fig.FaultsInvisible += pendTrips
+			t.Errorf("run %d (%s %s): %d trip(s) fired, not named, and the supply is no longer tripped (cleared by whom?):\n%s", k, id, r.State, pendTrips, text)
+			pendTrips = 0
+		}
 		for kind, n := range after {
 			c.fig.FaultsByKind[kind] += n - before[kind]
 			c.fig.FaultsTotal += n - before[kind]
 			d := inRun[kind]
-			c.fig.FaultsBetween += n - before[kind] - d
+			if kind != sim.FaultError && kind != sim.FaultTrip {
+				c.fig.FaultsBetween += n - before[kind] - d
+			}
 			if d <= 0 {
 				continue
 			}
@@ -552,6 +639,14 @@ func (c *campaign) run(plan campaignPlan) {
 				t.Errorf("run %d (%s %s): %d %s fault(s) fired and left no trace in its reason or events:\n%s", k, id, r.State, d, kind, text)
 			}
 		}
+	}
+	for _, pe := range pendErrs {
+		c.fig.FaultsInvisible++
+		t.Errorf("error %q fired in run %d and was named by no run up to the last", pe.msg, pe.run)
+	}
+	if pendTrips > 0 {
+		c.fig.FaultsInvisible += pendTrips
+		t.Errorf("%d trip(s) named by no run up to the last", pendTrips)
 	}
 	c.stop()
 	c.assertSafe("after SIGTERM", haltTime)
@@ -616,4 +711,25 @@ func shiftedSamples(raw []record.Sample, tolI, tolB float64) (nI, nB int) {
 		}
 	}
 	return nI, nB
+}
+
+// containsNear reports whether text holds msg with at most one character
+// changed: a garble fault on the error query's reply flips one letter, and
+// a flipped letter inside the message still parses.
+func containsNear(text, msg string) bool {
+	if strings.Contains(text, msg) {
+		return true
+	}
+	for i := 0; i+len(msg) <= len(text); i++ {
+		diff := 0
+		for j := 0; j < len(msg) && diff < 2; j++ {
+			if text[i+j] != msg[j] {
+				diff++
+			}
+		}
+		if diff < 2 {
+			return true
+		}
+	}
+	return false
 }

@@ -10,6 +10,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"hystd/drivers/instr"
@@ -119,6 +120,8 @@ type Device struct {
 	// unverified is set when a reconnect succeeded but identification or
 	// init did not: the next operation repeats them before anything else.
 	unverified bool
+	// reconnects counts the port's reconnects after a loss (Reconnects).
+	reconnects atomic.Int64
 	// pending are error-queue entries found when the port was opened, for
 	// the next PollErrors.
 	pending []instr.InstrumentError
@@ -216,6 +219,7 @@ func (d *Device) start(ctx context.Context) error {
 			}
 			d.o.Log.Warn("errors found in the instrument's queue when it was opened", "profile", d.p.Name, "err", ie)
 		case err != nil:
+			d.keepDrained(err, " (in the queue when the port was opened)")
 			return &OpError{Profile: d.p.Name, Op: "identify", Command: d.p.ErrorQuery, Err: err}
 		}
 	}
@@ -241,7 +245,9 @@ func (d *Device) ready(ctx context.Context) error {
 		if errors.Is(err, ErrIdentity) {
 			d.failed = err
 		}
-		return d.fail(ctx, "identify", "*IDN?", err)
+		// Said as such: the cause (a hang-up) was reported to an
+		// operation whose error may not reach anyone.
+		return d.fail(ctx, "identify", "*IDN?", fmt.Errorf("identifying again after the port was lost and reconnected: %w", err))
 	}
 	d.unverified = false
 	return nil
@@ -249,6 +255,11 @@ func (d *Device) ready(ctx context.Context) error {
 
 // Profile returns the (normalized) profile the device speaks.
 func (d *Device) Profile() Profile { return d.p }
+
+// Reconnects returns how many times the port was lost and reconnected
+// since the device was opened, without any I/O: for a run's record, as the
+// operation that met the loss may have failed unseen.
+func (d *Device) Reconnects() int64 { return d.reconnects.Load() }
 
 // IdentityRead returns the *IDN? reply read when the device was last
 // identified (at open or after a reconnect), without any I/O.
@@ -303,6 +314,7 @@ func (d *Device) fail(ctx context.Context, op, cmd string, err error) error {
 		return oe
 	}
 	d.c.Forget()
+	d.reconnects.Add(1)
 	if serr := d.start(rctx); serr != nil {
 		if errors.Is(serr, ErrIdentity) {
 			d.failed = serr // never talk to a different instrument
@@ -606,8 +618,13 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 	}
 	var ie *scpi.InstrumentError
 	if !errors.As(err, &ie) {
+		// Entries read before the failure are off the instrument's
+		// queue: kept for the next poll, with those found before.
+		// They are returned with the failure too (and kept): a caller
+		// that gives up on the line can still name them.
 		d.pending = out
-		return nil, d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
+		d.keepDrained(err, "")
+		return append([]instr.InstrumentError(nil), d.pending...), d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
 	}
 	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
 		if e.Code == 0 {
@@ -616,6 +633,20 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg, Fail: d.p.Severity(e.Code) == SeverityFail})
 	}
 	return out, nil
+}
+
+// keepDrained adds to the pending errors the entries a failed drain read
+// before it failed (scpi.DrainError), with note after each message.
+func (d *Device) keepDrained(err error, note string) {
+	var de *scpi.DrainError
+	if !errors.As(err, &de) {
+		return
+	}
+	for _, e := range de.Entries {
+		if e.Code != 0 {
+			d.pending = append(d.pending, instr.InstrumentError{Code: e.Code, Msg: e.Msg + note, Fail: d.p.Severity(e.Code) == SeverityFail})
+		}
+	}
 }
 
 // ErrorPollPeriod is the profile's error_poll period (0: never).

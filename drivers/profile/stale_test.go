@@ -137,3 +137,26 @@ func TestErrorAtOpenKeptForPoll(t *testing.T) {
 		t.Fatalf("got %+v, %v", errs, err)
 	}
 }
+
+// An error entry read from the queue just before the next reply of the
+// drain is spoiled (here a garbled `0,"No error"`: one flipped bit) is off
+// the instrument's queue: the failed poll keeps it, and the poll after the
+// resynchronisation returns it — it was lost before, and the run that
+// polled never named the error.
+func TestErrorReadBeforeSpoiledReplyKept(t *testing.T) {
+	r := newRig(t, simFieldMeter,
+		ex{Send: "SYST:ERR?", Reply: `-310,"campaign fault 7"`},
+		ex{Send: "SYST:ERR?", Reply: `p,"No error"`},
+		simFieldMeter.sync(),
+		simFieldMeter.noErr,
+	)
+	f := r.fieldMeter(t)
+	errs, err := f.PollErrors(context.Background())
+	if !errors.Is(err, scpi.ErrDesync) || len(errs) != 1 || errs[0].Code != -310 {
+		t.Fatalf("first poll: got %+v, %v; want scpi.ErrDesync with the -310 entry read before it", errs, err)
+	}
+	errs, err = f.PollErrors(context.Background())
+	if err != nil || len(errs) != 1 || errs[0].Code != -310 || errs[0].Msg != "campaign fault 7" {
+		t.Fatalf("second poll: got %+v, %v; want the -310 entry read before the spoiled reply", errs, err)
+	}
+}

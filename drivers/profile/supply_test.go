@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"strings"
 	"testing"
 	"time"
 
@@ -385,5 +386,25 @@ func TestSupplyHaltWaitsForZero(t *testing.T) {
 				t.Fatalf("waits %v, want %d × 20ms (besides the setting's settle)", r.sleeps.d, tc.waits)
 			}
 		})
+	}
+}
+
+// After a hang-up whose reconnect could not identify the line, the next
+// operation's error names the lost and reconnected port: the first error,
+// which did, may have reached nobody.
+func TestUnidentifiedAfterReconnectSaysSo(t *testing.T) {
+	r := newRig(t, simSupply,
+		ex{Send: "MEAS:CURR?", Err: scpitest.Hangup},
+		scpitest.Reconnect(),
+		ex{Send: "*IDN?", Err: scpitest.Timeout},
+		ex{Send: "*IDN?", Err: scpitest.Timeout},
+	)
+	s := r.supply(t)
+	if _, err := s.ReadCurrent(context.Background()); err == nil {
+		t.Fatal("the read that met the hang-up succeeded")
+	}
+	_, err := s.ReadCurrent(context.Background())
+	if err == nil || !strings.Contains(err.Error(), "port was lost and reconnected") {
+		t.Fatalf("got %v, want an error naming the lost and reconnected port", err)
 	}
 }

@@ -276,11 +276,11 @@ func (c *Client) DrainErrors(ctx context.Context, after string) error {
 	for range c.o.MaxErrors {
 		s, err := c.Query(ctx, c.o.ErrorQuery)
 		if err != nil {
-			return fmt.Errorf("reading the error queue after %q: %w", after, err)
+			return drainFailed(got, fmt.Errorf("reading the error queue after %q: %w", after, err))
 		}
 		e, err := ParseQueueEntry(s)
 		if err != nil {
-			return fmt.Errorf("reading the error queue after %q: %w", after, c.Desync(c.o.ErrorQuery, err))
+			return drainFailed(got, fmt.Errorf("reading the error queue after %q: %w", after, c.Desync(c.o.ErrorQuery, err)))
 		}
 		if e.Code == 0 {
 			if len(got) == 0 {
@@ -531,4 +531,31 @@ func (c *Client) resyncErr(ctx context.Context, err error) error {
 		err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: err}
 	}
 	return fmt.Errorf("scpi: resynchronising the line after a broken exchange: %w", err)
+}
+
+// DrainError is a drain of the error queue that failed part way: Entries
+// were read (and so removed from the instrument's queue) before Err. A
+// caller that reads the queue again after a resync must keep them, or they
+// are lost for good. It unwraps to Err (a timeout, a desync …).
+type DrainError struct {
+	Entries []QueueEntry
+	Err     error
+}
+
+func (e *DrainError) Error() string {
+	var b strings.Builder
+	for _, q := range e.Entries {
+		fmt.Fprintf(&b, "; %d %q", q.Code, q.Msg)
+	}
+	return fmt.Sprintf("%v (read from the queue before it%s)", e.Err, b.String())
+}
+
+func (e *DrainError) Unwrap() error { return e.Err }
+
+// drainFailed is err, carrying got when entries were read before it.
+func drainFailed(got []QueueEntry, err error) error {
+	if len(got) == 0 {
+		return err
+	}
+	return &DrainError{Entries: got, Err: err}
 }
