@@ -270,27 +270,18 @@ func (p *Prepared) Store(ctx context.Context, w record.Writer) error {
 // --json` (loopcsv.Summary); the centring offset comes from the loop's
 // "centering" correction.
 func Summary(l record.Loop) loopcsv.Summary {
-	get := func(n string) (loopcsv.Num, loopcsv.UNum) {
-		for _, f := range l.Figures {
-			if f.Name == n {
-				return loopcsv.Num(f.Value), loopcsv.UNum(f.U)
-			}
-		}
-		return loopcsv.Num(math.NaN()), loopcsv.UNum(math.NaN())
-	}
-	var s loopcsv.Summary
-	s.HmaxAM, s.HmaxAMU = get(loop.FigHmax)
-	s.BmaxT, s.BmaxTU = get(loop.FigBmax)
-	s.BrT, s.BrTU = get(loop.FigBr)
-	s.HcBAM, s.HcBAMU = get(loop.FigHcB)
-	s.HcJAM, s.HcJAMU = get(loop.FigHcJ)
-	s.MuA, s.MuAU = get(loop.FigMuA)
-	s.LossJM3, s.LossJM3U = get(loop.FigLossJM3)
-	s.BHmaxJM3, s.BHmaxJM3U = get(loop.FigBHmax)
+	centred, offset := false, 0.0
 	for _, c := range l.Corrections {
 		if c.Name == "centering" {
-			s.Centred, s.BOffsetT = true, loopcsv.Num(c.Size)
+			centred, offset = true, c.Size
 		}
 	}
-	return s
+	return loopcsv.SummaryFrom(func(n string) (float64, float64, bool) {
+		for _, f := range l.Figures {
+			if f.Name == n {
+				return f.Value, f.U, true
+			}
+		}
+		return 0, 0, false
+	}, centred, offset)
 }

@@ -584,11 +584,25 @@ func Analyze(d Data, name string, opts ...AnalyzeOptions) (Result, error) {
 	if err != nil {
 		return Result{}, &Error{File: name, Msg: err.Error()}
 	}
-	get := func(n string) (Num, UNum) {
+	sm := SummaryFrom(func(n string) (float64, float64, bool) {
 		for _, f := range fs {
 			if f.Name == n {
-				return Num(f.Value), UNum(f.U)
+				return f.Value, f.U, true
 			}
+		}
+		return 0, 0, false
+	}, res.Centred, res.Offset)
+	res.Summary, res.Figures, res.Cycles = sm, fs, len(cy)
+	return res, nil
+}
+
+// SummaryFrom fills the analyze JSON keys from a loop's figures, looked up
+// by name with figure (value, U, found); a figure not found is NaN. centred
+// and offset are the centring applied and the B offset it removed, T.
+func SummaryFrom(figure func(name string) (v, u float64, ok bool), centred bool, offset float64) Summary {
+	get := func(n string) (Num, UNum) {
+		if v, u, ok := figure(n); ok {
+			return Num(v), UNum(u)
 		}
 		return Num(math.NaN()), UNum(math.NaN())
 	}
@@ -601,9 +615,8 @@ func Analyze(d Data, name string, opts ...AnalyzeOptions) (Result, error) {
 	sm.MuA, sm.MuAU = get(loop.FigMuA)
 	sm.LossJM3, sm.LossJM3U = get(loop.FigLossJM3)
 	sm.BHmaxJM3, sm.BHmaxJM3U = get(loop.FigBHmax)
-	sm.Centred, sm.BOffsetT = res.Centred, Num(res.Offset)
-	res.Summary, res.Figures, res.Cycles = sm, fs, len(cy)
-	return res, nil
+	sm.Centred, sm.BOffsetT = centred, Num(offset)
+	return sm
 }
 
 // WriteJSON writes the summary as one JSON object and a newline.
