@@ -7,52 +7,12 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/fixture/fixturetest"
 	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/drivers/sim"
 )
-
-// shifted counts the samples of a loop whose channels do not belong
-// together, the mark of a reply answering the wrong query:
-//   - the supply's current read back is not at the setpoint just set (the
-//     bench's supply follows a setpoint within 3 ms at 100 A/s, and the
-//     engine reads 4 ms after setting: a current one step behind is off by
-//     a whole staircase step);
-//   - the field meter's reading is off the straight line through all the
-//     samples' (I, B_probe): on the bench the probe reads μ0·N1·I/l_m
-//     (Ampère's law on the mean path) with a gain and offset error and 20 µT
-//     noise, so a reading one step behind is off by μ0·ΔH.
-//
-// stepA is the smallest current step worth detecting; tolB the field
-// tolerance (five times the bench's probe noise).
-func shifted(raw []record.Sample, tolI, tolB float64) (nI, nB int) {
-	var n, si, sb, sii, sib float64
-	for _, s := range raw {
-		if math.IsNaN(s.BProbe) || math.IsNaN(s.I) {
-			continue
-		}
-		n++
-		si += s.I
-		sb += s.BProbe
-		sii += s.I * s.I
-		sib += s.I * s.BProbe
-	}
-	slope, icpt := 0.0, 0.0
-	if d := n*sii - si*si; n > 2 && d != 0 {
-		slope = (n*sib - si*sb) / d
-		icpt = (sb - slope*si) / n
-	}
-	for _, s := range raw {
-		if math.Abs(s.I-s.Setpoint) > tolI {
-			nI++
-		}
-		if !math.IsNaN(s.BProbe) && slope != 0 && math.Abs(s.BProbe-(icpt+slope*s.I)) > tolB {
-			nB++
-		}
-	}
-	return nI, nB
-}
 
 // coarseLoop steps the field by 200 A/m per sample (4 kA/m over 20 points;
 // 0.14 A on the demo ring's 141.4 mm mean path with 200 turns; 0.25 mT at
@@ -116,7 +76,7 @@ func lateReply(t *testing.T, role string) {
 	if err != nil || len(l.Raw) < 15 {
 		t.Fatalf("loop 1: %d raw samples, %v", len(l.Raw), err)
 	}
-	nI, nB := shifted(l.Raw, 0.002, 1e-4)
+	nI, nB := fixturetest.ShiftedSamples(l.Raw, 0.002, 1e-4)
 	if nI > 0 || nB > 0 {
 		t.Errorf("%d samples with the current, %d with the field, out of step (of %d)", nI, nB, len(l.Raw))
 	}

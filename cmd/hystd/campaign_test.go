@@ -19,6 +19,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/fixture/fixturetest"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/configs"
@@ -573,7 +574,7 @@ func (c *campaign) run(plan campaignPlan) {
 			loopsSeen[key] = true
 			c.fig.Loops++
 			c.fig.Points += len(l.Raw)
-			if nI, nB := shiftedSamples(l.Raw, 0.002, 1e-4); nI+nB > 0 {
+			if nI, nB := fixturetest.ShiftedSamples(l.Raw, 0.002, 1e-4); nI+nB > 0 {
 				c.fig.Shifted += nI + nB
 				t.Errorf("run %d loop %d: %d samples with the current, %d with the field out of step", k, l.N, nI, nB)
 			}
@@ -699,38 +700,6 @@ func (c *campaign) clearTrip() {
 		f.WriteString("*RST\n")
 	}
 	// The replies to nothing stay on the line: the next open discards them.
-}
-
-// shiftedSamples counts samples whose channels do not belong together (see
-// acq/daemon's shift test): the current read back off its setpoint, or the
-// probe field off the straight line through all (I, B_probe) — on the
-// bench the probe reads μ0·N1·I/l_m (Ampère's law on the mean path).
-func shiftedSamples(raw []record.Sample, tolI, tolB float64) (nI, nB int) {
-	var n, si, sb, sii, sib float64
-	for _, s := range raw {
-		if math.IsNaN(s.BProbe) || math.IsNaN(s.I) {
-			continue
-		}
-		n++
-		si += s.I
-		sb += s.BProbe
-		sii += s.I * s.I
-		sib += s.I * s.BProbe
-	}
-	slope, icpt := 0.0, 0.0
-	if d := n*sii - si*si; n > 2 && d != 0 {
-		slope = (n*sib - si*sb) / d
-		icpt = (sb - slope*si) / n
-	}
-	for _, s := range raw {
-		if math.Abs(s.I-s.Setpoint) > tolI {
-			nI++
-		}
-		if !math.IsNaN(s.BProbe) && slope != 0 && math.Abs(s.BProbe-(icpt+slope*s.I)) > tolB {
-			nB++
-		}
-	}
-	return nI, nB
 }
 
 // containsNear reports whether text holds msg with at most one character
