@@ -1,13 +1,3 @@
-// Package engine runs an expanded recipe on one fixture: setpoints at a fixed
-// period, every channel sampled concurrently and stamped, safety checked on
-// every sample, each recorded loop processed and committed as it completes,
-// progress published live, and on every ending — finish, abort, failure,
-// SIGTERM, cancelled context — the supply ramped to zero at its slew limit
-// and its output turned off before the run's final state is recorded.
-//
-// Prepare validates a recipe against the fixture and records the run as
-// queued; Plan.Execute runs it. Run does both. One Plan is executed once, by
-// one goroutine; different fixtures' plans may run concurrently.
 package engine
 
 import (

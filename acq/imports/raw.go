@@ -1,8 +1,3 @@
-// Package imports turns a raw recording made elsewhere (a CSV of time,
-// current and integrator flux, optionally probe field, temperature and
-// phase) into a stored run, processed exactly as a live run's loops are
-// (package acq/process). It reads files and writes to a record.Writer; the
-// numerics stay in acq/process and calib.
 package imports
 
 import (

@@ -1,15 +1,3 @@
-// Package influx forwards stored loops to a time-series database through the
-// InfluxDB v2 write API (InfluxDB 2.x and 3, 1.8+, VictoriaMetrics). The
-// local store is the record of truth; the forwarder drains its outbox:
-// pending entries are turned into points (Points, encoded by Lines), written
-// in batches with the client's blocking write API (WriteRecord), and marked delivered only after the server
-// acknowledged every batch. Progress is kept per batch, so a restart resumes
-// where the last acknowledged batch ended; timestamps and tags are
-// deterministic, so a batch sent twice overwrites itself.
-//
-// Network errors, 429 and 5xx are retried with exponential backoff (and the
-// server's Retry-After); 400 and 422 quarantine the entry with the server's
-// message; 413 halves the batch for that loop. The token is read once, at New, and never logged.
 package influx
 
 import (

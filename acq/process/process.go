@@ -1,8 +1,3 @@
-// Package process is the glue between a recorded loop step and the calib
-// numerics: it turns the raw samples of one step into corrected points, the
-// figures with their uncertainties and the list of corrections applied. It
-// does no I/O and keeps no state; Loop may be called from several goroutines
-// at once.
 package process
 
 import (

@@ -1,16 +1,3 @@
-// Package store is hystd's embedded record of truth: one SQLite file
-// (modernc.org/sqlite, pure Go) holding runs, loops, raw and corrected
-// samples, figures with uncertainties, corrections, events and the outbox
-// that the time-series forwarder drains.
-//
-// Durability: the file is in WAL mode with synchronous=FULL, so a commit that
-// returned is on disk. AddLoop writes a loop with everything derived from it
-// and its outbox row in one transaction: after a crash either all of it is
-// there or none of it.
-//
-// Concurrency: a *Store is safe for concurrent use. Writes go through one
-// connection (SQLite has one writer); reads use a separate bounded pool and
-// do not wait for writes.
 package store
 
 import (

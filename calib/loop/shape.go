@@ -1,12 +1,3 @@
-// Package loop finds the branches of a recorded B–H loop and computes the
-// figures that magnetic test standards report, each with an uncertainty
-// budget. Pure numerics on float64 slices in SI units (s, A/m, T).
-//
-// Branches are found on H alone with a reversal threshold, so noise, a
-// partial first cycle, several cycles and uneven sampling are handled. Each
-// complete branch is averaged into bins of H (mean H, mean B per bin, kept
-// separately for even and odd samples); figures are read from these curves
-// by linear interpolation between bin means, never from the nearest sample.
 package loop
 
 import (

@@ -1,10 +1,3 @@
-// Package loopcsv reads a B–H loop from CSV and reports its figures, for
-// `hystd analyze`. The CSV has a header row naming the columns H (A/m) and B
-// (T), optionally t (s); a name may carry its unit in brackets ("H (Oe)",
-// "B [T]", "t (s)"); other columns are ignored, lines starting with '#' are
-// comments; fields are separated by ',' or, when the header has ';' and no
-// ',', by ';'. H and B may also be given in other units by Options. Every
-// problem is reported with the file, line and column.
 package loopcsv
 
 import (

@@ -1,20 +1,3 @@
-// Package clock is the one time source of a bench session: the simulated
-// bench's physics and fault triggers, the engine's setpoint periods and
-// holds, the drivers' reading stamps and settle waits, the safety checks'
-// rates and the closed-loop field control all read the same Clock.
-//
-// Three implementations:
-//   - Real: the machine's monotonic wall clock (production, `hystd sim`,
-//     the demo by default).
-//   - Sim: simulated time. It stands still while anyone is working and jumps
-//     to the next wake-up once every actor sleeps and every line is quiet,
-//     so a 25 s recipe runs as fast as the pseudo-terminals carry the bytes
-//     and, with the same bench seed, stores the same samples on any machine
-//     at any load.
-//   - Manual: moves only when a test says so (Advance) or when its one
-//     sleeper asks (SleepUntil jumps), for in-memory fakes and unit tests.
-//
-// The package imports nothing of the project, so drivers and acq can share it.
 package clock
 
 import (

@@ -1,11 +1,3 @@
-// Package profile describes any SCPI instrument as data: an instrument profile
-// is a YAML command map (configs/instruments/*.yaml) naming, for each
-// operation of a role, the command template, how to parse the reply, unit,
-// scale and valid range. Generic Supply, Integrator, FieldMeter and
-// Thermometer implementations are built from a profile.
-//
-// The simulated bench (drivers/sim) serves the same profiles, so a profile is
-// exercised end to end without hardware.
 package profile
 
 // Profile is one instrument profile as loaded from YAML.

@@ -1,16 +1,3 @@
-// Package sim is the simulated bench: each instrument of a fixture served on
-// its own pseudo-terminal, speaking SCPI as its instrument profile says,
-// backed by the physics of drivers/sim/physics and advanced by the bench's
-// clock. Clients (the real drivers, or any serial program) open the slave
-// paths from Ports exactly as they would open a USB adapter. The bench knows
-// the truth of its specimen and tells it to tests through Truth and
-// History, never through the ports.
-//
-// Safety: the bench drives no hardware. Its supply model trips and ramps
-// down like a real one, but a recipe dry-run here says nothing about the
-// energy a real winding stores (½·L·I²) or the voltage an interrupted
-// current induces: on a real fixture follow the lab's interlocks, local
-// codes and licensed electrical practice.
 package sim
 
 import (
