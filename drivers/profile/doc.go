@@ -20,18 +20,26 @@
 //	| `acq/sampler` | reading every channel of a fixture at once | command strings |
 //
 // Errors, matched with `errors.Is` / `errors.As` at any layer:
+//
 //   - `link.ErrTimeout` — no reply within the profile's `timeout` (the port stays usable); matches `instr.ErrTimeout`;
+//
 //   - `link.ErrDisconnected` — the device went away (unplug, hang-up, I/O error); distinct from `link.ErrClosed`, our own Close;
 //     both, and `link.ErrNotFound`, match `instr.ErrLost`;
+//
 //   - `*scpi.InstrumentError{Command, Code, Msg, More}` — what the error queue held after a setting;
+//
 //   - `*scpi.ParseError{Reply, Want}` — a reply of the wrong form; wrapped in `*profile.OpError{Profile, Op, Command, Reconnected}`;
+//
 //   - `*profile.RangeError{Value, Min, Max, Unit}` — a setpoint (or reading) outside the profile's range; nothing is sent, nothing is clamped;
+//
 //   - `profile.ErrOverrange` — the instrument answered 9.9E37 / 9.91E37 / INF / NAN;
+//
 //   - `profile.ErrIdentity` — `*IDN?` does not contain the expected identity (also after a reconnect: the device then refuses all further operations).
 //
 //   - `scpi.ErrDesync` — a reply that does not parse for the query asked (a late reply, a garbled one, an error-queue
 //     entry where a reading was due): never a value; the line is marked stale and `acq/sampler` reads again (it matches
 //     `instr.ErrOutOfStep`).
+//
 //   - `*link.BusyError` (`link.ErrBusy`) — the port (or fixture) is locked by another opener; names the holder's PID.
 //
 // Resynchronisation (`drivers/scpi` `resync`, `QueryMatch`; `drivers/profile` `start`). After any broken exchange
