@@ -244,6 +244,7 @@ func (b *Bench) advance() {
 		b.rig.Step(step.Seconds())
 		b.simT += step
 		b.record()
+		b.sampleBuffers()
 		b.timedFaults()
 	}
 }
