@@ -76,6 +76,8 @@ type Result struct {
 	// Truth is the bench's record of the specimen's true state, one entry per
 	// physics step, for checking the measurement against the model.
 	Truth []sim.Truth
+	// Final is the bench's state once the run has ended, its halt included.
+	Final sim.Truth
 	DB    string // path of the SQLite file
 }
 
@@ -177,7 +179,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		SpoolDir:    o.DataDir,
 		Clock:       clk,
 	})
-	res := Result{Run: run, DB: db, Truth: bench.History()}
+	res := Result{Run: run, DB: db, Truth: bench.History(), Final: bench.Truth()}
 	if run.ID != "" {
 		// Read back what was committed, whatever the ending.
 		if r, err := st.Run(ctx, run.ID); err == nil {

@@ -65,8 +65,8 @@ import (
 // each step (keepFrom, keepTo) and leaves out the others, saying how many in
 // the run's events; the last tenth is left out because the instant of a
 // setpoint change is known only within the supply's own response and the
-// stamps' uncertainty. With buffer_period one 25th of the setpoint period
-// (the default) that keeps ten readings a step.
+// stamps' uncertainty. With buffer_period one 30th of the setpoint period
+// (the default) that keeps twelve readings a step.
 const (
 	keepFrom = 0.5
 	keepTo   = 0.9

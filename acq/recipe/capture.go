@@ -15,9 +15,9 @@ const (
 )
 
 // DefaultBufferDivisor: without buffer_period, a buffered sweep is sampled
-// this many times per setpoint period (of which the engine keeps the ten
+// this many times per setpoint period (of which the engine keeps the twelve
 // in the settled part of each step, see acq/engine).
-const DefaultBufferDivisor = 25
+const DefaultBufferDivisor = 30
 
 // MinBufferPeriod and MaxBufferPeriod bound buffer_period.
 const (
@@ -59,4 +59,3 @@ func captureOf(s Sampling, per time.Duration) Capture {
 	}
 	return Capture{Buffered: true, Period: d}
 }
-
