@@ -21,14 +21,17 @@ import (
 //
 // Sequence of a recorded step: at the start of the pre hold (after the
 // integrator's reset) the integrator and, when the fixture has one, the
-// field meter are armed for N = sweep/buffer_period + 1 readings, one
-// every buffer_period on their own time base, and their clocks are read;
-// at the sweep's first round each gets its trigger, before the supply's
-// setpoint of that round; the sweep runs at the recipe's setpoint period,
-// reading only the supply (and the thermometer) each round, *before* its
-// setpoint is changed; at the first round of the post hold the engine
-// waits for both acquisitions to complete, reads the clocks again and
-// fetches both buffers.
+// field meter are armed for N = 1.25·sweep/buffer_period + 1 readings (a
+// quarter more than the planned sweep: stalled rounds lengthen a sweep),
+// one every buffer_period on their own time base, and their clocks are
+// read; at the sweep's first round each gets its trigger, before the
+// supply's setpoint of that round; the sweep runs at the recipe's setpoint
+// period, reading only the supply (and the thermometer) each round,
+// *before* its setpoint is changed; the post hold is polled as usual; at
+// the end of the step the engine waits for both acquisitions to complete,
+// reads the clocks again and fetches both buffers. Readings after the
+// sweep's last step are left out; a sweep that outlasted the buffers is an
+// error.
 //
 // Alignment model. Instrument i takes reading k at instrument time
 // delay + k·period after it received the trigger. Its clock runs at
@@ -100,6 +103,7 @@ type round struct {
 	setAt time.Duration
 	s     record.Sample
 	level float64 // the setpoint sent after the reading
+	phase record.Phase
 }
 
 // bufferedOf returns the instrument of a role as instr.Buffered when its
@@ -160,7 +164,8 @@ func (x *exec) newCapture(st recipe.Step) (*capture, error) {
 			sweep += g.Dur
 		}
 	}
-	c := &capture{x: x, plan: instr.BufferPlan{Period: st.Capture.Period, Count: int(sweep/st.Capture.Period) + 1}}
+	n := int(sweep / st.Capture.Period)
+	c := &capture{x: x, plan: instr.BufferPlan{Period: st.Capture.Period, Count: n + n/4 + 1}}
 	in := x.s.Instruments
 	if in.Integrator != nil {
 		if b, ok := bufferedOf(in.Integrator); ok {
@@ -227,7 +232,7 @@ func (c *capture) readThenSet(ctx context.Context, level float64) (sampler.Readi
 	if err != nil {
 		return rd, err
 	}
-	c.note(rd.Sample, level)
+	c.note(rd.Sample, level, record.Sweep)
 	if _, err := sampler.Retry(ctx, func(ctx context.Context) (struct{}, error) {
 		return struct{}{}, c.x.s.Instruments.Supply.SetCurrent(ctx, units.Ampere(level))
 	}); err != nil {
@@ -237,8 +242,8 @@ func (c *capture) readThenSet(ctx context.Context, level float64) (sampler.Readi
 }
 
 // note keeps a supply reading taken just before the setpoint level is sent.
-func (c *capture) note(s record.Sample, level float64) {
-	c.rounds = append(c.rounds, round{setAt: c.x.s.Clock.Now().Sub(c.x.start), s: s, level: level})
+func (c *capture) note(s record.Sample, level float64, phase record.Phase) {
+	c.rounds = append(c.rounds, round{setAt: c.x.s.Clock.Now().Sub(c.x.start), s: s, level: level, phase: phase})
 }
 
 // finish waits for every acquisition to complete, reads the clocks and
@@ -330,6 +335,16 @@ func (c *capture) samples() ([]record.Sample, error) {
 	}
 	main := c.roles[0]
 	ts, us := c.times(main)
+	// The sweep's last step ends at the first setpoint after it.
+	for i, r := range c.rounds {
+		if r.phase == record.Sweep && i+1 < len(c.rounds) && c.rounds[i+1].phase != record.Sweep {
+			if end := c.rounds[i+1].setAt; len(ts) == 0 || ts[len(ts)-1] < end {
+				return nil, c.fail(main.role, "the sweep lasted until %s, beyond its %d readings (to %s): it stalled for more than a quarter of its planned time; use a longer buffer_period or capture: polled",
+					end.Round(time.Millisecond), len(ts), ts[len(ts)-1].Round(time.Millisecond))
+			}
+			break
+		}
+	}
 	var other []float64
 	var ots []time.Duration
 	if len(c.roles) > 1 {
@@ -340,7 +355,7 @@ func (c *capture) samples() ([]record.Sample, error) {
 	out := make([]record.Sample, 0, len(ts))
 	for k, t := range ts {
 		j := sort.Search(len(c.rounds), func(i int) bool { return c.rounds[i].setAt >= t })
-		if j == len(c.rounds) || j == 0 {
+		if j == len(c.rounds) || j == 0 || c.rounds[j-1].phase != record.Sweep {
 			c.left++
 			continue
 		}
@@ -380,14 +395,10 @@ func interp(ts []time.Duration, vs []float64, t time.Duration) float64 {
 }
 
 // round is called at the start of every round of a buffered step, before
-// its reading: it triggers at the sweep's first round and fetches at the
-// first round after the sweep.
+// its reading: it triggers at the sweep's first round.
 func (c *capture) round(ctx context.Context, phase record.Phase) error {
-	switch {
-	case phase == record.Sweep && !c.triggered:
+	if phase == record.Sweep && !c.triggered {
 		return c.trigger(ctx)
-	case phase != record.Sweep && c.triggered && !c.fetched:
-		return c.finish(ctx)
 	}
 	return nil
 }

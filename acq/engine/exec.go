@@ -306,7 +306,7 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		} else {
 			rd, err = setThenRead(cctx, in.Supply, x.smp, set)
 			if cpt != nil && err == nil {
-				cpt.note(rd.Sample, set)
+				cpt.note(rd.Sample, set, phase)
 			}
 		}
 		cancel()
