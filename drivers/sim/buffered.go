@@ -4,7 +4,6 @@ import (
 	"math"
 	"strconv"
 	"strings"
-	"time"
 
 	"hystd/drivers/profile"
 	"hystd/drivers/scpi"
@@ -227,16 +226,4 @@ func fireBuffered(in *instrument, kind string) {
 	case FaultShortBuffer:
 		in.acq.shortBuffers++
 	}
-}
-
-// BufferClock returns the role's clock reading (instrument seconds) at
-// bench time t since start: the truth tests check the engine's alignment
-// against. ok is false for a role without its own clock.
-func (b *Bench) BufferClock(role string, t time.Duration) (float64, bool) {
-	in := b.insts[role]
-	if in == nil {
-		return 0, false
-	}
-	d, ok := clockDrift[role]
-	return clockOffset(in.serial) + (1+d)*t.Seconds(), ok
 }
