@@ -37,6 +37,8 @@ const (
 	FixtureFile  = "fixture-ring-bench.yaml"
 	SpecimenFile = "specimen-ring-r17.yaml"
 	RecipeFile   = "recipes/demo-ring.yaml"
+	// BufferedRecipeFile is RecipeFile with capture: buffered.
+	BufferedRecipeFile = "recipes/demo-ring-buffered.yaml"
 )
 
 // Options configure a demo run.
@@ -60,6 +62,10 @@ type Options struct {
 	// time (the sweep takes as long as on a real bench). A *clock.Sim runs
 	// the demo in simulated time, as fast as the pseudo-terminals allow.
 	Clock clock.Clock
+	// Capture is "polled" (default: RecipeFile) or "buffered"
+	// (BufferedRecipeFile: the same sweep, flux and field sampled by the
+	// instruments on their own clocks).
+	Capture string
 }
 
 // Result is what a demo run produced.
@@ -70,6 +76,8 @@ type Result struct {
 	// Truth is the bench's record of the specimen's true state, one entry per
 	// physics step, for checking the measurement against the model.
 	Truth []sim.Truth
+	// Final is the bench's state once the run has ended, its halt included.
+	Final sim.Truth
 	DB    string // path of the SQLite file
 }
 
@@ -84,7 +92,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	if log == nil {
 		log = slog.New(slog.NewTextHandler(out, &slog.HandlerOptions{Level: slog.LevelWarn}))
 	}
-	fx, sp, rc, err := loadSamples()
+	fx, sp, rc, err := loadSamples(o.Capture)
 	if err != nil {
 		return Result{}, err
 	}
@@ -171,7 +179,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		SpoolDir:    o.DataDir,
 		Clock:       clk,
 	})
-	res := Result{Run: run, DB: db, Truth: bench.History()}
+	res := Result{Run: run, DB: db, Truth: bench.History(), Final: bench.Truth()}
 	if run.ID != "" {
 		// Read back what was committed, whatever the ending.
 		if r, err := st.Run(ctx, run.ID); err == nil {
@@ -224,7 +232,15 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	return res, nil
 }
 
-func loadSamples() (config.Fixture, config.Specimen, *recipe.Recipe, error) {
+func loadSamples(capture string) (config.Fixture, config.Specimen, *recipe.Recipe, error) {
+	recipeFile := RecipeFile
+	switch capture {
+	case "", recipe.CapturePolled:
+	case recipe.CaptureBuffered:
+		recipeFile = BufferedRecipeFile
+	default:
+		return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: capture %q: want polled or buffered", capture)
+	}
 	read := func(name string) ([]byte, error) { return fs.ReadFile(configs.Samples, name) }
 	b, err := read(FixtureFile)
 	if err != nil {
@@ -241,10 +257,10 @@ func loadSamples() (config.Fixture, config.Specimen, *recipe.Recipe, error) {
 	if err != nil {
 		return config.Fixture{}, config.Specimen{}, nil, err
 	}
-	if b, err = read(RecipeFile); err != nil {
+	if b, err = read(recipeFile); err != nil {
 		return config.Fixture{}, config.Specimen{}, nil, err
 	}
-	rc, err := recipe.Parse("configs/"+RecipeFile, b)
+	rc, err := recipe.Parse("configs/"+recipeFile, b)
 	if err != nil {
 		return config.Fixture{}, config.Specimen{}, nil, err
 	}

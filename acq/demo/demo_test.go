@@ -157,6 +157,29 @@ func figure(l record.Loop, name string) (record.Figure, bool) {
 // each setpoint change, the settled one, is used.
 func truthOfLastCycle(t *testing.T, hist []sim.Truth, amp float64) (br, hc float64) {
 	t.Helper()
+	seg := lastSettledCycle(t, hist, amp)
+	var brs, hcs []float64
+	for i := 1; i < len(seg); i++ {
+		a, b := seg[i-1], seg[i]
+		if h0, h1 := float64(a.H), float64(b.H); h0 != h1 && (h0 <= 0) != (h1 <= 0) {
+			f := -h0 / (h1 - h0)
+			brs = append(brs, math.Abs(float64(a.B)+f*float64(b.B-a.B)))
+		}
+		if b0, b1 := float64(a.B), float64(b.B); b0 != b1 && (b0 <= 0) != (b1 <= 0) {
+			f := -b0 / (b1 - b0)
+			hcs = append(hcs, math.Abs(float64(a.H)+f*float64(b.H-a.H)))
+		}
+	}
+	if len(brs) != 2 || len(hcs) != 2 {
+		t.Fatalf("last true cycle crosses H = 0 %d times and B = 0 %d times; want 2 each", len(brs), len(hcs))
+	}
+	return (brs[0] + brs[1]) / 2, (hcs[0] + hcs[1]) / 2
+}
+
+// lastSettledCycle is the last full cycle of settled states (see
+// truthOfLastCycle).
+func lastSettledCycle(t *testing.T, hist []sim.Truth, amp float64) []sim.Truth {
+	t.Helper()
 	var settled []sim.Truth
 	for i := 0; i+1 < len(hist); i++ {
 		if hist[i+1].Setpoint != hist[i].Setpoint {
@@ -179,21 +202,5 @@ func truthOfLastCycle(t *testing.T, hist []sim.Truth, amp float64) (br, hc float
 	if len(falls) < 2 {
 		t.Fatalf("truth history holds %d cycles of ±%g A/m; want at least 1", len(falls)-1, amp)
 	}
-	seg := hist[falls[len(falls)-2] : falls[len(falls)-1]+1]
-	var brs, hcs []float64
-	for i := 1; i < len(seg); i++ {
-		a, b := seg[i-1], seg[i]
-		if h0, h1 := float64(a.H), float64(b.H); h0 != h1 && (h0 <= 0) != (h1 <= 0) {
-			f := -h0 / (h1 - h0)
-			brs = append(brs, math.Abs(float64(a.B)+f*float64(b.B-a.B)))
-		}
-		if b0, b1 := float64(a.B), float64(b.B); b0 != b1 && (b0 <= 0) != (b1 <= 0) {
-			f := -b0 / (b1 - b0)
-			hcs = append(hcs, math.Abs(float64(a.H)+f*float64(b.H-a.H)))
-		}
-	}
-	if len(brs) != 2 || len(hcs) != 2 {
-		t.Fatalf("last true cycle crosses H = 0 %d times and B = 0 %d times; want 2 each", len(brs), len(hcs))
-	}
-	return (brs[0] + brs[1]) / 2, (hcs[0] + hcs[1]) / 2
+	return hist[falls[len(falls)-2] : falls[len(falls)-1]+1]
 }

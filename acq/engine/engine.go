@@ -151,6 +151,9 @@ func Prepare(ctx context.Context, s Setup) (*Plan, error) {
 	if err := checkSupply(s, steps); err != nil {
 		return nil, err
 	}
+	if err := checkCapture(s, steps); err != nil {
+		return nil, err
+	}
 	now := s.Clock.Now()
 	if s.Queued.IsZero() {
 		s.Queued = now
@@ -226,6 +229,9 @@ func (p *Plan) SetInstruments(in Instruments, proc Processor) error {
 		s.Process = proc
 	}
 	if err := checkSupply(s, p.Steps); err != nil {
+		return err
+	}
+	if err := checkCapture(s, p.Steps); err != nil {
 		return err
 	}
 	p.s = s

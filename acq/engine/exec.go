@@ -249,6 +249,13 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	lastProgress := stepStart
 	prevPhase := record.Phase("")
 	in := x.s.Instruments
+	cpt, err := x.newCapture(st)
+	if err != nil {
+		return err
+	}
+	if cpt != nil {
+		defer cpt.close()
+	}
 	// The step's schedule: round k sets the level of t = k·period, due at
 	// stepStart+shift+t. A round that comes late by half a period or more
 	// (a stalled reply, a retry, a slow host) shifts the rest of the
@@ -276,14 +283,32 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 					return x.stopErr(ctx, safety.Comm("integrator", fmt.Errorf("reset: %w", err)))
 				}
 			}
+			if cpt != nil {
+				if err := cpt.arm(ctx); err != nil {
+					return x.stopErr(ctx, err)
+				}
+			}
 		}
 		prevPhase = phase
 		set, err := x.command(st, level)
 		if err != nil {
 			return err
 		}
+		if cpt != nil {
+			if err := cpt.round(ctx, phase); err != nil {
+				return x.stopErr(ctx, err)
+			}
+		}
 		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
-		rd, err := setThenRead(cctx, in.Supply, x.smp, set)
+		var rd sampler.Reading
+		if cpt != nil && phase == record.Sweep {
+			rd, err = cpt.readThenSet(cctx, set)
+		} else {
+			rd, err = setThenRead(cctx, in.Supply, x.smp, set)
+			if cpt != nil && err == nil {
+				cpt.note(rd.Sample, set, phase)
+			}
+		}
 		cancel()
 		if err != nil {
 			return x.stopErr(ctx, violationOf(err))
@@ -325,6 +350,13 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	}
 	if n := x.retries.Swap(0); n > 0 {
 		x.event(ctx, "warn", "step %d: %d late replies were read again within limits.comm_timeout", st.N, n)
+	}
+	if cpt != nil {
+		if raw, err = cpt.merge(ctx, raw); err != nil {
+			return x.stopErr(ctx, err)
+		}
+		x.event(ctx, "info", "step %d: buffered capture, %d readings every %s on each of %s; %d kept, %d outside the settled part of their setpoint step left out",
+			st.N, cpt.plan.Count, cpt.plan.Period, cpt.names(), cpt.plan.Count-cpt.left, cpt.left)
 	}
 	if st.Loop != nil {
 		x.storeLoop(ctx, st, raw, loopStart)

@@ -75,6 +75,8 @@ type Step struct {
 	// Aim, for a Record step aimed at a peak induction, is the search the
 	// engine runs before it; the step's own levels are those of the first try.
 	Aim *Aim
+	// Capture, for a Record step, is how its sweep is read (capture.go).
+	Capture Capture
 }
 
 // Aim is the search for the amplitude that gives a recorded loop a stated
@@ -124,6 +126,7 @@ func (s Step) AtAmplitude(a, from float64) Step {
 	info := *s.Loop
 	info.Amplitude = a / k.perRecipe
 	s.Loop, s.Segments, s.Period, s.From = &info, segs, per, from
+	s.Capture = captureOf(k.smp, per)
 	return s
 }
 
@@ -659,7 +662,7 @@ func (x *expander) recordedAim(src, path string, info LoopInfo, rate float64, sm
 		prev = l
 	}
 	segs, per := recordProgram(x.level, start, levels, rate, smp, 2*x.r.PeriodOr())
-	st := Step{Source: src, Kind: KindRecord, Period: per, Loop: &info, Segments: segs}
+	st := Step{Source: src, Kind: KindRecord, Period: per, Loop: &info, Segments: segs, Capture: captureOf(smp, per)}
 	if aim == nil {
 		x.push(st, path, rate)
 		return

@@ -108,6 +108,10 @@ type Sampling struct {
 	// Hold is the static pre and post hold around the sweep (drift rate);
 	// default 2s.
 	Hold configs.Duration `yaml:"hold"`
+	// Capture and BufferPeriod choose how the sweep's flux and field are
+	// read: polled (default) or buffered; see capture.go.
+	Capture      string           `yaml:"capture"`
+	BufferPeriod configs.Duration `yaml:"buffer_period"`
 }
 
 // RecordLoop records Cycles symmetric loops of ±Amplitude, each stored.

@@ -348,6 +348,7 @@ func (c *checker) sampling(p string, s *Sampling) {
 	if s.Hold.D() < 100*time.Millisecond || s.Hold.D() > MaxHold {
 		c.add(p+".hold", "must be 100ms to %s (the drift rate is measured during it), got %s", fmtDur(MaxHold), s.Hold.D())
 	}
+	c.capture(p, s)
 }
 
 // fmtDur prints a bound as a duration a recipe can use ("168h", "1m").

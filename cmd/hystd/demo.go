@@ -34,7 +34,7 @@ func demoExit(err error) error {
 }
 
 func newDemoCmd() *cobra.Command {
-	var dataDir, serveAddr, speed string
+	var dataDir, serveAddr, speed, capture string
 	var ic influx.Config
 	var tags []string
 	cmd := &cobra.Command{
@@ -58,7 +58,10 @@ func newDemoCmd() *cobra.Command {
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
 			out := cmd.OutOrStdout()
-			opts := demo.Options{DataDir: dataDir, Out: out, Software: version,
+			if capture != "polled" && capture != "buffered" {
+				return &exitError{code: exitUsage, err: fmt.Errorf("--capture %q: want polled or buffered", capture)}
+			}
+			opts := demo.Options{DataDir: dataDir, Out: out, Software: version, Capture: capture,
 				Log: slog.New(slog.NewTextHandler(cmd.ErrOrStderr(), &slog.HandlerOptions{Level: slog.LevelWarn}))}
 			slog.SetDefault(opts.Log) // the forwarder logs through the default logger: stderr
 			switch speed {
@@ -135,6 +138,7 @@ func newDemoCmd() *cobra.Command {
 	cmd.Flags().StringVar(&ic.Org, "influx-org", "", "organization for --influx-url")
 	cmd.Flags().StringVar(&ic.Bucket, "influx-bucket", "", "bucket for --influx-url")
 	cmd.Flags().StringVar(&ic.TokenFile, "influx-token-file", "", "file holding the API token (else $"+influx.DefaultTokenEnv+")")
+	cmd.Flags().StringVar(&capture, "capture", "polled", "polled: every channel read once per setpoint; buffered: the integrator and field meter sample on their own clocks ten times as often during each sweep")
 	cmd.Flags().StringVar(&speed, "speed", "real", "real: the sweep's own pace; max: simulated time, as fast as the computer allows")
 	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8740) until SIGINT/SIGTERM")
 	return cmd

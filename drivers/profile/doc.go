@@ -140,6 +140,9 @@
 //     `accuracy: {gain, offset}` (k = 2) feeds the uncertainty budget (`Profile.AccuracyOf`).
 //     - `settle` waits after a setting; `poll`/`poll_done` repeat a query until done (`poll_period`, `poll_timeout`).
 //  4. Supplies: `halt_slew_a_per_s`, `halt_period`, and a `safe_state` that leaves zero current, output off.
+//     Integrators and field meters that sample on their own clock: an optional `buffered:` section (arm, start,
+//     done, fetch as a definite-length block in `ascii`/`float32-le`/…, clock); its keys and the engine's
+//     alignment model are in the doc comments of `drivers/profile/buffered.go` and `acq/engine/buffered.go`.
 //  5. `hystd check configs/instruments/NAME.yaml` (prints `FILE:LINE: key: problem` for each problem) and
 //     `go test ./drivers/profile` (every shipped profile is loaded by `TestShippedProfilesLoad`).
 //  6. Add a scripted test beside `supply_test.go` / `roles_test.go`: a `dialect` with the startup exchanges and one

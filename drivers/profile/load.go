@@ -257,6 +257,7 @@ func validate(p Profile, ef errorf) error {
 			validateOp(add, "operations."+n, p.Operations[n], r)
 		}
 	}
+	validateBuffered(p, add)
 	sort.SliceStable(es, func(i, j int) bool { return es[i].Line < es[j].Line })
 	return es.Err()
 }

@@ -47,6 +47,9 @@ type Profile struct {
 	// period of that ramp.
 	HaltSlew   float64 `yaml:"halt_slew_a_per_s"`
 	HaltPeriod string  `yaml:"halt_period"`
+
+	// Buffered (integrator, field meter; optional): timed acquisition, see buffered.go.
+	Buffered *Buffered `yaml:"buffered"`
 }
 
 // SerialSettings are the line settings of the port.

@@ -231,6 +231,7 @@ func (b *Bench) advance() {
 		b.rig.Step(step.Seconds())
 		b.simT += step
 		b.record()
+		b.sampleBuffers()
 		b.timedFaults()
 	}
 }

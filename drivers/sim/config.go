@@ -246,8 +246,12 @@ func (f Fault) check(instruments map[string]InstrumentConfig) error {
 		if f.Role != RoleSupply {
 			return fmt.Errorf("kind: trip is a supply fault, not %s", f.Role)
 		}
+	case FaultNoTrigger, FaultShortBuffer:
+		if _, ok := clockDrift[f.Role]; !ok {
+			return fmt.Errorf("kind: %s is a fault of a timed acquisition (integrator, field meter), not %s", f.Kind, f.Role)
+		}
 	default:
-		return fmt.Errorf("kind: must be drop, delay, garble, hangup, error or trip, got %q", f.Kind)
+		return fmt.Errorf("kind: must be drop, delay, garble, hangup, error, trip, no_trigger or short_buffer, got %q", f.Kind)
 	}
 	n := 0
 	if f.At != nil {

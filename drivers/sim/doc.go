@@ -121,7 +121,9 @@
 // caps the firings (default 1; unlimited for `probability`). `drop`, `delay` and `garble` arm at the
 // trigger and spoil the next reply (garble flips bit 6 of one byte, which no number parser accepts);
 // `hangup`, `error` (pushed into the error queue, default `-300,"Device-specific error"`) and `trip` (supply
-// only: output off, latched until `*RST` once the winding is below `overtemp_c`) act at once.
+// only: output off, latched until `*RST` once the winding is below `overtemp_c`) act at once. `no_trigger`
+// (the next trigger of a timed acquisition is lost) and `short_buffer` (the next buffer fetched lacks its last
+// quarter) are for an integrator or a field meter with a `buffered:` profile (`drivers/sim/buffered.go`).
 //
 // At run time: `Bench.Inject(fault)` adds one (no trigger: a reply fault spoils the role's next reply, the others
 // act at once), `Bench.Injected()` counts fired faults by kind, `Bench.Report()` is the truth as `hystd sim --truth`

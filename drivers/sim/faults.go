@@ -75,6 +75,8 @@ func (b *Bench) fire(f *faultState) {
 		in.st.push(scpiError{code, msg})
 	case FaultTrip:
 		b.rig.Supply.Trip()
+	case FaultNoTrigger, FaultShortBuffer:
+		fireBuffered(in, f.Kind)
 	}
 }
 

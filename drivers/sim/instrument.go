@@ -30,7 +30,8 @@ type instrument struct {
 	cmds      int           // command lines received
 	armed     []*faultState // reply faults waiting for the next reply
 	hangupDue bool
-	noise     *rand.Rand // this role's reading noise, seeded from the bench's seed
+	noise     *rand.Rand  // this role's reading noise, seeded from the bench's seed
+	acq       acquisition // timed acquisition (buffered.go)
 	// busy is set while a command line received is being executed and
 	// answered, and while bytes of an unfinished line are held; holding
 	// while a delayed reply waits for its time.
@@ -250,6 +251,8 @@ func (b *Bench) common(in *instrument, up string) (string, bool) {
 		in.st.esr |= esrOPC
 	case "*OPC?":
 		return "1", true
+	case "*TRG":
+		b.trigger(in)
 	case "*WAI":
 	case "*ESR?":
 		v := in.st.esr
@@ -292,6 +295,9 @@ func (b *Bench) reset(in *instrument) {
 
 // set runs a setting operation of the role.
 func (b *Bench) set(in *instrument, name string, v value) *scpiError {
+	if strings.HasPrefix(name, bufPrefix) {
+		return b.bufferedSet(in, name, v)
+	}
 	r := b.rig
 	switch name {
 	case profile.OpSetCurrent:
@@ -326,6 +332,9 @@ func (b *Bench) set(in *instrument, name string, v value) *scpiError {
 
 // query runs a query operation of the role.
 func (b *Bench) query(in *instrument, m matcher) (reply, *scpiError) {
+	if strings.HasPrefix(m.name, bufPrefix) {
+		return b.bufferedQuery(in, m)
+	}
 	r := b.rig
 	switch m.name {
 	case profile.OpReadCurrent:

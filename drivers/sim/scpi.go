@@ -131,6 +131,7 @@ func newMatchers(p profile.Profile) []matcher {
 				op: profile.Operation{PollDone: op.PollDone}})
 		}
 	}
+	ms = append(ms, bufferedMatchers(p)...)
 	for _, l := range append(append([]string{}, p.Init...), p.SafeState...) {
 		if _, _, ok := match(ms, normalize(l)); !ok && !strings.HasPrefix(l, "*") {
 			ms = append(ms, matcher{name: opLiteral, prefix: strings.ToUpper(normalize(l))})
@@ -212,10 +213,15 @@ type reply struct {
 	Key  string
 	// Overflow renders the SCPI overflow value 9.9E37 (reading over range).
 	Overflow bool
+	// Raw, when not empty, is sent as it is (a block, a clock reading).
+	Raw string
 }
 
 // encodeReply renders a query's value the way the profile says it is parsed.
 func encodeReply(op profile.Operation, r reply) string {
+	if r.Raw != "" {
+		return r.Raw
+	}
 	num := func() string {
 		if r.Overflow {
 			return "9.9E37"

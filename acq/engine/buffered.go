@@ -1,0 +1,436 @@
+package engine
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+	"strings"
+	"time"
+
+	"hystd/acq/recipe"
+	"hystd/acq/record"
+	"hystd/acq/safety"
+	"hystd/acq/sampler"
+	"hystd/calib/units"
+	"hystd/drivers/instr"
+)
+
+// Buffered capture (recipe capture: buffered).
+//
+// Sequence of a recorded step: at the start of the pre hold (after the
+// integrator's reset) the integrator and, when the fixture has one, the
+// field meter are armed for N = 1.25·sweep/buffer_period + 1 readings (a
+// quarter more than the planned sweep: stalled rounds lengthen a sweep),
+// one every buffer_period on their own time base, and their clocks are
+// read; at the sweep's first round each gets its trigger, before the
+// supply's setpoint of that round; the sweep runs at the recipe's setpoint
+// period, reading only the supply (and the thermometer) each round,
+// *before* its setpoint is changed; the post hold is polled as usual; at
+// the end of the step the engine waits for both acquisitions to complete,
+// reads the clocks again and fetches both buffers. Readings after the
+// sweep's last step are left out; a sweep that outlasted the buffers is an
+// error.
+//
+// Alignment model. Instrument i takes reading k at instrument time
+// delay + k·period after it received the trigger. Its clock runs at
+// r_i bench seconds per instrument second, estimated from its two clock
+// readings (c0 at arming, c1 after the acquisition, each stamped at the
+// midpoint of its exchange on the engine's clock: r_i = (b1−b0)/(c1−c0)),
+// or taken as 1 ± the profile's clock_accuracy when the profile has no
+// clock query. The trigger reached it at T_i, the time the trigger
+// command was written (± its transmission time). So reading k is placed at
+//
+//	t_ik = T_i + r_i·(delay + k·period)
+//
+// on the engine's clock. The integrator's times are the samples' times;
+// the field meter's buffer is interpolated linearly onto them.
+//
+// H. The field comes from the supply's measured current, not from the
+// programmed ramp: a lab trusts the ammeter over the setpoint (a supply in
+// compliance, a slow control loop or a winding that heats all make the
+// two differ). The engine steps the supply, so the current is a
+// staircase: each round reads the current just before it sets the next
+// level, so every reading is the settled level of the step that is ending.
+// A buffered reading at time t takes the current of the step it falls in:
+// the reading of the first round whose setpoint was sent at or after t
+// (the supply's response to a step, which this model ignores, is its
+// slew: 3.5 mA at 100 A/s on the demo bench takes 35 µs of a 12.5 ms step).
+// The time-uncertainty of each sample is that of the trigger plus the
+// rate's over the elapsed time.
+//
+// Settled readings. A DC loop is the locus of settled states (common
+// practice): after each setpoint step the laminations' eddy currents hold
+// B back for a few milliseconds, and those readings lie off the
+// quasi-static loop (on the demo bench they widen HcB by one step of H,
+// 10 A/m). The engine keeps the readings from the middle to nine tenths of
+// each step (keepFrom, keepTo) and leaves out the others, saying how many in
+// the run's events; the last tenth is left out because the instant of a
+// setpoint change is known only within the supply's own response and the
+// stamps' uncertainty. With buffer_period one 30th of the setpoint period
+// (the default) that keeps twelve readings a step.
+const (
+	keepFrom = 0.5
+	keepTo   = 0.9
+)
+
+// bufRole is one armed instrument.
+type bufRole struct {
+	role    string
+	dev     instr.Buffered
+	c0, c1  instr.Reading // clock readings (Value in instrument seconds)
+	trig    time.Time
+	trigUnc time.Duration
+	values  []float64
+}
+
+// capture is the buffered capture of one recorded step.
+type capture struct {
+	x      *exec
+	plan   instr.BufferPlan
+	roles  []*bufRole
+	supply *sampler.Sampler // reads the supply and thermometer only
+	// rounds are the supply readings of the step, each with the time its
+	// setpoint was sent (relative to the run's start).
+	rounds    []round
+	triggered bool
+	fetched   bool
+	left      int // readings outside the settled part of their step
+}
+
+type round struct {
+	setAt time.Duration
+	s     record.Sample
+	level float64 // the setpoint sent after the reading
+	phase record.Phase
+}
+
+// bufferedOf returns the instrument of a role as instr.Buffered when its
+// profile can buffer.
+func bufferedOf(r any) (instr.Buffered, bool) {
+	if r == nil {
+		return nil, false
+	}
+	b, ok := r.(instr.Buffered)
+	return b, ok && b.CanBuffer()
+}
+
+// checkCapture refuses, before anything is energised, a buffered step on a
+// fixture whose integrator or field meter cannot buffer, or one closed on H.
+func checkCapture(s Setup, steps []recipe.Step) error {
+	for _, st := range steps {
+		if !st.Capture.Buffered {
+			continue
+		}
+		if st.Control == recipe.ControlField {
+			return &Refused{s.Recipe.Errorf(st.Source, "step %d (%s): capture: buffered needs control: current (the field loop needs a polled H every period)", st.N, st.Source)}
+		}
+		in := s.Instruments
+		if in.Supply == nil {
+			continue // checked again when the instruments are set
+		}
+		if in.Integrator == nil && in.FieldMeter == nil {
+			return &Refused{s.Recipe.Errorf(st.Source, "step %d (%s): capture: buffered needs an integrator or a field meter", st.N, st.Source)}
+		}
+		for _, role := range []string{"integrator", "field_meter"} {
+			r := map[string]any{"integrator": in.Integrator, "field_meter": in.FieldMeter}[role]
+			if r == nil {
+				continue
+			}
+			if _, ok := bufferedOf(r); !ok {
+				return &Refused{s.Recipe.Errorf(st.Source, "step %d (%s): capture: buffered, but the %s's instrument profile %q has no buffered section (timed acquisition); use capture: polled or a profile with one", st.N, st.Source, role, profileName(s, role))}
+			}
+		}
+	}
+	return nil
+}
+
+func profileName(s Setup, role string) string {
+	if in, ok := s.Fixture.Instruments[role]; ok {
+		return in.Profile
+	}
+	return "?"
+}
+
+// newCapture prepares the buffered capture of st; nil when st is polled.
+func (x *exec) newCapture(st recipe.Step) (*capture, error) {
+	if !st.Capture.Buffered || st.Loop == nil {
+		return nil, nil
+	}
+	var sweep time.Duration
+	for _, g := range st.Segments {
+		if g.Phase == record.Sweep {
+			sweep += g.Dur
+		}
+	}
+	n := int(sweep / st.Capture.Period)
+	c := &capture{x: x, plan: instr.BufferPlan{Period: st.Capture.Period, Count: n + n/4 + 1}}
+	in := x.s.Instruments
+	if in.Integrator != nil {
+		if b, ok := bufferedOf(in.Integrator); ok {
+			c.roles = append(c.roles, &bufRole{role: "integrator", dev: b})
+		}
+	}
+	if in.FieldMeter != nil {
+		if b, ok := bufferedOf(in.FieldMeter); ok {
+			c.roles = append(c.roles, &bufRole{role: "field meter", dev: b})
+		}
+	}
+	if len(c.roles) == 0 {
+		return nil, &safety.Violation{Limit: "capture", Value: math.NaN(), Text: "capture: buffered, and no instrument can buffer"}
+	}
+	smp, err := sampler.NewWith(sampler.Roles{Supply: in.Supply, Thermometer: in.Thermometer}, x.start, sampler.Options{Status: true})
+	if err != nil {
+		return nil, err
+	}
+	c.supply = smp
+	return c, nil
+}
+
+func (c *capture) close() { c.supply.Close() }
+
+// fail is the violation a buffered-capture fault ends the run with.
+func (c *capture) fail(role, format string, args ...any) error {
+	return safety.Instrument(role, fmt.Errorf("buffered capture: "+format, args...))
+}
+
+// arm programs and arms every buffered instrument and reads its clock.
+func (c *capture) arm(ctx context.Context) error {
+	for _, r := range c.roles {
+		cctx, cancel := context.WithTimeout(ctx, c.x.comm)
+		err := r.dev.ArmBuffer(cctx, c.plan)
+		if err == nil && r.dev.HasBufferClock() {
+			r.c0, err = r.dev.ReadBufferClock(cctx)
+		}
+		cancel()
+		if err != nil {
+			return c.fail(r.role, "arm %d readings every %s: %w", c.plan.Count, c.plan.Period, err)
+		}
+	}
+	return nil
+}
+
+// trigger starts every armed acquisition.
+func (c *capture) trigger(ctx context.Context) error {
+	c.triggered = true
+	for _, r := range c.roles {
+		cctx, cancel := context.WithTimeout(ctx, c.x.comm)
+		var err error
+		r.trig, r.trigUnc, err = r.dev.TriggerBuffer(cctx)
+		cancel()
+		if err != nil {
+			return c.fail(r.role, "trigger: %w", err)
+		}
+	}
+	return nil
+}
+
+// readThenSet reads the supply (and thermometer), then sends the level.
+func (c *capture) readThenSet(ctx context.Context, level float64) (sampler.Reading, error) {
+	rd, err := c.supply.ReadAll(ctx)
+	if err != nil {
+		return rd, err
+	}
+	c.note(rd.Sample, level, record.Sweep)
+	if _, err := sampler.Retry(ctx, func(ctx context.Context) (struct{}, error) {
+		return struct{}{}, c.x.s.Instruments.Supply.SetCurrent(ctx, units.Ampere(level))
+	}); err != nil {
+		return rd, &sampler.RoleError{Role: "supply", Err: fmt.Errorf("set current %.6g A: %w", level, err)}
+	}
+	return rd, nil
+}
+
+// note keeps a supply reading taken just before the setpoint level is sent.
+func (c *capture) note(s record.Sample, level float64, phase record.Phase) {
+	c.rounds = append(c.rounds, round{setAt: c.x.s.Clock.Now().Sub(c.x.start), s: s, level: level, phase: phase})
+}
+
+// finish waits for every acquisition to complete, reads the clocks and
+// fetches the buffers. An acquisition not complete well after it should
+// have ended (a trigger that never came) is an error, as is a buffer that
+// is short, garbled or holds a value out of range.
+func (c *capture) finish(ctx context.Context) error {
+	c.fetched = true
+	span := time.Duration(float64(c.plan.Delay+time.Duration(c.plan.Count-1)*c.plan.Period) * 1.01)
+	grace := max(time.Second, span/50)
+	for _, r := range c.roles {
+		due := r.trig.Add(span + grace)
+		poll := max(c.plan.Period, 20*time.Millisecond)
+		for {
+			cctx, cancel := context.WithTimeout(ctx, c.x.comm)
+			done, err := r.dev.BufferDone(cctx)
+			cancel()
+			if err != nil {
+				return c.fail(r.role, "ask whether the acquisition is complete: %w", err)
+			}
+			if done {
+				break
+			}
+			if now := c.x.s.Clock.Now(); now.After(due) {
+				return c.fail(r.role, "acquisition of %d readings every %s not complete %s after its trigger (it should have taken %s): the trigger did not arrive or the instrument stopped",
+					c.plan.Count, c.plan.Period, now.Sub(r.trig).Round(time.Millisecond), span.Round(time.Millisecond))
+			}
+			if err := c.x.s.Clock.SleepUntil(ctx, c.x.s.Clock.Now().Add(poll)); err != nil {
+				return err
+			}
+		}
+		// A real transfer takes 10 bits a byte: allow for it beyond comm_timeout.
+		cctx, cancel := context.WithTimeout(ctx, c.x.comm+time.Duration(c.plan.Count)*time.Millisecond)
+		var err error
+		if r.dev.HasBufferClock() {
+			r.c1, err = r.dev.ReadBufferClock(cctx)
+		}
+		if err == nil {
+			r.values, err = r.dev.FetchBuffer(cctx, c.plan.Count)
+		}
+		cancel()
+		if err != nil {
+			return c.fail(r.role, "fetch %d readings: %w", c.plan.Count, err)
+		}
+	}
+	if ig := c.x.s.Instruments.Integrator; ig != nil && c.roles[0].role == "integrator" {
+		cctx, cancel := context.WithTimeout(ctx, c.x.comm)
+		over, err := ig.Overloaded(cctx)
+		cancel()
+		if err != nil {
+			return c.fail("integrator", "read overload after the acquisition: %w", err)
+		}
+		if over {
+			return &safety.Violation{Limit: "integrator.overload", Value: math.NaN(),
+				Text: "the integrator reports overload after the buffered sweep: raise integrator_range_wb"}
+		}
+	}
+	return nil
+}
+
+// times places each reading of r on the engine's clock, relative to the
+// run's start (the alignment model above), with each time's uncertainty.
+func (c *capture) times(r *bufRole) ([]time.Duration, []time.Duration) {
+	rate, rateU := 1.0, r.dev.BufferClockAccuracy()
+	if r.dev.HasBufferClock() {
+		db := r.c1.At.Sub(r.c0.At).Seconds()
+		dc := r.c1.Value - r.c0.Value
+		if db > 0 && dc > 0 {
+			rate = db / dc
+			rateU = (r.c0.AtUncertainty + r.c1.AtUncertainty).Seconds() / db
+		}
+	}
+	ts := make([]time.Duration, len(r.values))
+	us := make([]time.Duration, len(r.values))
+	base := r.trig.Sub(c.x.start)
+	for k := range r.values {
+		inst := (c.plan.Delay + time.Duration(k)*c.plan.Period).Seconds()
+		ts[k] = base + time.Duration(rate*inst*float64(time.Second))
+		us[k] = r.trigUnc + time.Duration(rateU*inst*float64(time.Second))
+	}
+	return ts, us
+}
+
+// samples builds the sweep's samples from the buffers and the supply
+// readings: one per reading of the first buffered instrument.
+func (c *capture) samples() ([]record.Sample, error) {
+	if !c.fetched || len(c.rounds) == 0 {
+		return nil, errors.New("buffered capture: the sweep ended before its buffers were fetched")
+	}
+	main := c.roles[0]
+	ts, us := c.times(main)
+	// The sweep's last step ends at the first setpoint after it.
+	for i, r := range c.rounds {
+		if r.phase == record.Sweep && i+1 < len(c.rounds) && c.rounds[i+1].phase != record.Sweep {
+			if end := c.rounds[i+1].setAt; len(ts) == 0 || ts[len(ts)-1] < end {
+				return nil, c.fail(main.role, "the sweep lasted until %s, beyond its %d readings (to %s): it stalled for more than a quarter of its planned time; use a longer buffer_period or capture: polled",
+					end.Round(time.Millisecond), len(ts), ts[len(ts)-1].Round(time.Millisecond))
+			}
+			break
+		}
+	}
+	var other []float64
+	var ots []time.Duration
+	if len(c.roles) > 1 {
+		ots, _ = c.times(c.roles[1])
+		other = c.roles[1].values
+	}
+	nan := math.NaN()
+	out := make([]record.Sample, 0, len(ts))
+	for k, t := range ts {
+		j := sort.Search(len(c.rounds), func(i int) bool { return c.rounds[i].setAt >= t })
+		if j == len(c.rounds) || j == 0 || c.rounds[j-1].phase != record.Sweep {
+			c.left++
+			continue
+		}
+		if pos := float64(t-c.rounds[j-1].setAt) / float64(c.rounds[j].setAt-c.rounds[j-1].setAt); pos < keepFrom || pos >= keepTo {
+			c.left++
+			continue
+		}
+		rd := c.rounds[j]
+		s := record.Sample{T: t, TUnc: max(us[k], rd.s.TUnc), Phase: record.Sweep, I: rd.s.I, V: rd.s.V, TempC: rd.s.TempC,
+			Psi: nan, BProbe: nan, Setpoint: rd.level}
+		s.Setpoint = c.rounds[j-1].level // the level of the step the reading falls in
+		if main.role == "integrator" {
+			s.Psi = main.values[k]
+			if other != nil {
+				s.BProbe = interp(ots, other, t)
+			}
+		} else {
+			s.BProbe = main.values[k]
+		}
+		out = append(out, s)
+	}
+	return out, nil
+}
+
+// interp is the linear interpolation of vs (at ascending times ts) at t,
+// held at the ends.
+func interp(ts []time.Duration, vs []float64, t time.Duration) float64 {
+	i := sort.Search(len(ts), func(i int) bool { return ts[i] >= t })
+	switch {
+	case i == 0:
+		return vs[0]
+	case i == len(ts):
+		return vs[len(vs)-1]
+	}
+	f := float64(t-ts[i-1]) / float64(ts[i]-ts[i-1])
+	return vs[i-1] + f*(vs[i]-vs[i-1])
+}
+
+// round is called at the start of every round of a buffered step, before
+// its reading: it triggers at the sweep's first round.
+func (c *capture) round(ctx context.Context, phase record.Phase) error {
+	if phase == record.Sweep && !c.triggered {
+		return c.trigger(ctx)
+	}
+	return nil
+}
+
+// merge replaces the sweep's polled samples of raw (supply readings only)
+// with the buffered samples.
+func (c *capture) merge(ctx context.Context, raw []record.Sample) ([]record.Sample, error) {
+	if c.triggered && !c.fetched {
+		if err := c.finish(ctx); err != nil {
+			return nil, err
+		}
+	}
+	buf, err := c.samples()
+	if err != nil {
+		return nil, err
+	}
+	out := make([]record.Sample, 0, len(raw)+len(buf))
+	for _, s := range raw {
+		if s.Phase != record.Sweep {
+			out = append(out, s)
+		}
+	}
+	out = append(out, buf...)
+	sort.SliceStable(out, func(i, j int) bool { return out[i].T < out[j].T })
+	return out, nil
+}
+
+// names lists the buffered roles.
+func (c *capture) names() string {
+	var ns []string
+	for _, r := range c.roles {
+		ns = append(ns, r.role)
+	}
+	return strings.Join(ns, " and ")
+}

@@ -1,0 +1,39 @@
+package instr
+
+import (
+	"context"
+	"time"
+)
+
+// BufferPlan is a timed acquisition: Count readings, Period apart on the
+// instrument's own time base, the first Delay after the trigger.
+type BufferPlan struct {
+	Period time.Duration
+	Count  int
+	Delay  time.Duration
+}
+
+// Buffered is an integrator or field meter that can sample on its own time
+// base and hand the readings over as one block (hardware-timed capture).
+// drivers/profile implements it for every profile; CanBuffer says whether
+// the profile defines the operations.
+type Buffered interface {
+	CanBuffer() bool
+	// ArmBuffer programs the acquisition and waits for the trigger.
+	ArmBuffer(ctx context.Context, p BufferPlan) error
+	// TriggerBuffer starts the armed acquisition; at is when the trigger
+	// was sent, on the caller's clock, unc its uncertainty.
+	TriggerBuffer(ctx context.Context) (at time.Time, unc time.Duration, err error)
+	// BufferDone reports whether all readings have been taken.
+	BufferDone(ctx context.Context) (bool, error)
+	// FetchBuffer returns the readings, in SI; exactly count of them.
+	FetchBuffer(ctx context.Context, count int) ([]float64, error)
+	// HasBufferClock reports whether ReadBufferClock works; without it the
+	// instrument's time base is taken to run at the caller's rate, within
+	// BufferClockAccuracy.
+	HasBufferClock() bool
+	// ReadBufferClock reads the instrument's time base, in seconds.
+	ReadBufferClock(ctx context.Context) (Reading, error)
+	// BufferClockAccuracy is the time base's rate error, a fraction.
+	BufferClockAccuracy() float64
+}
