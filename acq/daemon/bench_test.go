@@ -40,6 +40,7 @@ type benchDaemon struct {
 	done   chan error
 	ctx    context.Context
 	logs   *syncBuf
+	halt   Halter // nil: the daemon's own (FixtureHalter)
 }
 
 type syncBuf struct {
@@ -148,6 +149,7 @@ func (bd *benchDaemon) serve(t *testing.T) {
 			Stderr:   bd.logs,
 			Signals:  bd.sigs,
 			Clock:    bd.clock,
+			Halt:     bd.halt,
 			API: func(p APIParts) (http.Handler, error) {
 				bd.runner, bd.hub = p.Runner, p.Live
 				return nil, nil // acq/api imports this package; cmd wires it

@@ -2,14 +2,19 @@ package daemon
 
 import (
 	"context"
+	"errors"
+	"log/slog"
 	"math"
 	"os"
 	"path/filepath"
 	"strings"
+	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
 
+	"hystd/acq/config"
+	"hystd/acq/engine"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/calib/units"
@@ -290,5 +295,55 @@ func TestSecondOpenerRefused(t *testing.T) {
 	_, err = profile.OpenSupply(context.Background(), profile.Spec{Port: bd.bench.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
 	if err == nil || !strings.Contains(err.Error(), "is in use by process") {
 		t.Fatalf("second opener of the supply's port: %v", err)
+	}
+}
+
+// TestSecondSignalEndsStop: a stop whose supply halt hangs (a serial call
+// that never returns) is ended by a second SIGTERM: Serve returns at once,
+// logging loudly that the supply's halt was not confirmed. (The same
+// Abandon ends a stop that outlasts StopBound.)
+func TestSecondSignalEndsStop(t *testing.T) {
+	bd := benchFiles(t, nil)
+	var stopping atomic.Bool
+	hang := make(chan struct{})
+	t.Cleanup(func() { close(hang) })
+	own := FixtureHalter(slog.New(slog.NewTextHandler(bd.logs, nil)), bd.clock)
+	bd.halt = func(ctx context.Context, fx config.Fixture) (string, error) {
+		if stopping.Load() {
+			<-hang
+			return "", errors.New("released by the test's end")
+		}
+		return own(ctx, fx)
+	}
+	bd.serve(t)
+	stopping.Store(true)
+	bd.sigs <- syscall.SIGTERM
+	waitFor(t, "the stop under way", 10*time.Second, func() bool { return strings.Contains(bd.logs.String(), "stopping: ending every run safely") })
+	bd.sigs <- syscall.SIGTERM
+	select {
+	case err := <-bd.done:
+		if err != nil {
+			t.Fatal(err)
+		}
+		bd.done <- nil // for the cleanup
+	case <-time.After(20 * time.Second):
+		t.Fatal("a second SIGTERM did not end the stop")
+	}
+	if logs := bd.logs.String(); !strings.Contains(logs, "SUPPLY HALT NOT CONFIRMED: the daemon exits (terminated received again while stopping)") {
+		t.Errorf("no loud line says the halt was not confirmed:\n%s", logs)
+	}
+}
+
+// TestStopBound: the hard bound covers a run's ramp-down and the daemon's
+// own halt from max_current_a at the supply profile's halt slew (20 A/s,
+// below the fixture's 50 A/s; 10 A: 0.5 s), each with engine.HaltMargin.
+func TestStopBound(t *testing.T) {
+	bd := benchFiles(t, nil)
+	cfg, err := Load(filepath.Join(bd.dir, "daemon.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got, want := StopBound(cfg), 2*(engine.HaltMargin+time.Second)+StopMargin; got != want {
+		t.Errorf("StopBound = %s, want %s", got, want)
 	}
 }
