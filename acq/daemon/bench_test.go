@@ -29,7 +29,7 @@ import (
 // real SQLite store, driven as `hystd serve` is.
 type benchDaemon struct {
 	bench  *sim.Bench
-	clock  clock.Clock // the bench's, the drivers' and the engine's time (a *clock.Sim but in benchFilesReal)
+	clock  clock.Clock // the bench's, the drivers' and the engine's time (a *clock.Sim)
 	dir    string      // config folder
 	watch  string
 	db     string
@@ -40,6 +40,9 @@ type benchDaemon struct {
 	done   chan error
 	ctx    context.Context
 	logs   *syncBuf
+	halt   Halter // nil: the daemon's own (FixtureHalter)
+	// termOnce guards terminate.
+	termOnce sync.Once
 }
 
 type syncBuf struct {
@@ -74,15 +77,6 @@ func startBench(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *b
 func benchFiles(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
 	t.Helper()
 	return benchFilesOn(t, clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC)), before, faults...)
-}
-
-// benchFilesReal is benchFiles on the machine's clock, for the tests whose
-// scenario is a reply that comes late in real time (a stale line left by a
-// killed process, a delayed reply), which simulated time cannot pose: in it
-// a held reply always comes after the client's next sleep.
-func benchFilesReal(t *testing.T, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
-	t.Helper()
-	return benchFilesOn(t, clock.Real{}, before, faults...)
 }
 
 func benchFilesOn(t *testing.T, clk clock.Clock, before func(*benchDaemon), faults ...sim.Fault) *benchDaemon {
@@ -137,6 +131,17 @@ fixtures:
 	return bd
 }
 
+// terminate sends the daemon one SIGTERM, once: a second one while it
+// stops would end the stop at once (Daemon.Abandon).
+func (bd *benchDaemon) terminate() {
+	bd.termOnce.Do(func() {
+		select {
+		case bd.sigs <- syscall.SIGTERM:
+		default:
+		}
+	})
+}
+
 func (bd *benchDaemon) serve(t *testing.T) {
 	t.Helper()
 	ctx := bd.ctx
@@ -148,6 +153,7 @@ func (bd *benchDaemon) serve(t *testing.T) {
 			Stderr:   bd.logs,
 			Signals:  bd.sigs,
 			Clock:    bd.clock,
+			Halt:     bd.halt,
 			API: func(p APIParts) (http.Handler, error) {
 				bd.runner, bd.hub = p.Runner, p.Live
 				return nil, nil // acq/api imports this package; cmd wires it
@@ -163,10 +169,7 @@ func (bd *benchDaemon) serve(t *testing.T) {
 		t.Fatalf("daemon not listening\n%s", bd.logs)
 	}
 	t.Cleanup(func() {
-		select {
-		case bd.sigs <- syscall.SIGTERM:
-		default:
-		}
+		bd.terminate()
 		select {
 		case <-bd.done:
 		case <-time.After(30 * time.Second):
@@ -303,7 +306,7 @@ func TestEndingsOnBench(t *testing.T) {
 				panic(err)
 			}
 		}, record.Aborted, "aborted on request"},
-		{"SIGTERM", nil, func(bd *benchDaemon, id string) { bd.sigs <- syscall.SIGTERM }, record.Aborted, "daemon stopping: terminated received"},
+		{"SIGTERM", nil, func(bd *benchDaemon, id string) { bd.terminate() }, record.Aborted, "daemon stopping: terminated received"},
 		{"supply trip", []sim.Fault{{Role: "supply", Kind: sim.FaultTrip, AfterCommands: 700}}, nil, record.Failed, "supply tripped"},
 		{"integrator port hung up", []sim.Fault{{Role: "integrator", Kind: sim.FaultHangup, AfterCommands: 250}}, nil, record.Failed, "lost communication with the integrator"},
 		{"supply port hung up", []sim.Fault{{Role: "supply", Kind: sim.FaultHangup, AfterCommands: 700}}, nil, record.Failed, "lost communication with the supply"},

@@ -20,6 +20,7 @@ import (
 	"strings"
 	"sync"
 	"sync/atomic"
+	"time"
 
 	"hystd/acq/api"
 	"hystd/acq/config"
@@ -523,6 +524,43 @@ func (d *Daemon) Stop(reason string) {
 	// one started).
 	for _, lf := range d.cfg.Load().Fixtures {
 		d.haltFixture(context.Background(), lf.Fixture, "daemon stop")
+	}
+}
+
+// Abandon records, for every run still under way, that the daemon is
+// exiting before the run's ramp-down was confirmed (why), as an error event
+// and the run's failed state, and logs it loudly per fixture. Serve calls it
+// when a stop outlasts StopBound or a second SIGTERM/SIGINT insists; the
+// process then exits and the kernel closes the ports, leaving the supply as
+// it was last commanded.
+func (d *Daemon) Abandon(why string) {
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	d.mu.Lock()
+	var active []*job
+	for _, fr := range d.fixtures {
+		if j := fr.active.Load(); j != nil {
+			active = append(active, j)
+		}
+	}
+	fixtures := make([]string, 0, len(d.fixtures))
+	for name := range d.fixtures {
+		fixtures = append(fixtures, name)
+	}
+	d.mu.Unlock()
+	sort.Strings(fixtures)
+	text := "SUPPLY HALT NOT CONFIRMED: the daemon exits (" + why + ") before the supply's halt was confirmed — the winding may still carry current; bring the supply to zero by hand before touching the fixture"
+	for _, name := range fixtures {
+		d.log.Error(text, "fixture", name)
+	}
+	now := d.deps.Clock.Now()
+	for _, j := range active {
+		if err := d.deps.Writer.AddEvent(ctx, record.Event{RunID: j.id, At: now, Level: "error", Text: text}); err != nil {
+			d.log.Error("the unconfirmed halt could not be recorded with the run", "run", j.id, "err", err)
+		}
+		if err := d.deps.Writer.SetState(ctx, j.id, record.Failed, text, now); err != nil {
+			d.log.Error("the run's ending could not be recorded", "run", j.id, "err", err)
+		}
 	}
 }
 

@@ -2,29 +2,40 @@ package daemon
 
 import (
 	"context"
+	"errors"
+	"log/slog"
 	"math"
 	"os"
 	"path/filepath"
 	"strings"
+	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
 
+	"hystd/acq/config"
+	"hystd/acq/engine"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/calib/units"
+	"hystd/drivers/clock"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
+
+	"golang.org/x/sys/unix"
 )
 
 // energise sets the bench's supply to amps with its output on, as a
 // process that was then killed would have left it, and leaves a query
 // unanswered-by-anyone on the line: its reply is what the next process
-// finds waiting when it opens the port.
-func energise(t *testing.T, b *sim.Bench, amps float64) {
+// finds waiting when it opens the port. The daemon, if it serves, is idle:
+// the test is the clock's actor meanwhile (its sleeps move bench time).
+func energise(t *testing.T, bd *benchDaemon, amps float64) {
 	t.Helper()
+	b := bd.bench
 	ctx := context.Background()
-	sup, err := profile.OpenSupply(ctx, profile.Spec{Port: b.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
+	sup, err := profile.OpenSupply(ctx, profile.Spec{Port: b.Ports()["supply"], Profile: "sim-supply"}, profile.Options{Now: bd.clock.Now,
+		Sleep: func(ctx context.Context, d time.Duration) error { return clock.Sleep(ctx, bd.clock, d) }})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -38,16 +49,27 @@ func energise(t *testing.T, b *sim.Bench, amps float64) {
 		t.Fatal(err)
 	}
 	sup.Close()
-	waitFor(t, "the bench energised", 10*time.Second, func() bool { return math.Abs(float64(b.Truth().I)-amps) < 0.01 })
+	for k := 0; math.Abs(float64(b.Truth().I)-amps) >= 0.01; k++ {
+		if k == 1000 {
+			t.Fatalf("the bench is at %g A after 10 s of bench time", float64(b.Truth().I))
+		}
+		clock.Sleep(ctx, bd.clock, 10*time.Millisecond)
+	}
 	f, err := os.OpenFile(b.Ports()["supply"], os.O_RDWR, 0)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, err := f.WriteString("MEAS:CURR?\nSYST:ERR?\n"); err != nil {
+	defer f.Close()
+	const stale = "MEAS:CURR?\nSYST:ERR?\n"
+	if _, err := f.WriteString(stale); err != nil {
 		t.Fatal(err)
 	}
-	time.Sleep(100 * time.Millisecond) // the bench answers; nobody reads the replies
-	f.Close()
+	// State, not time: both replies wait on the line, unread ("+7.000000E-01"
+	// and "0,\"No error\"", each with its terminator: 26 bytes).
+	waitFor(t, "the bench's replies on the line", 10*time.Second, func() bool {
+		n, err := unix.IoctlGetInt(int(f.Fd()), unix.TIOCINQ)
+		return err == nil && n >= 26
+	})
 }
 
 // zeroWithin waits for the bench's truth — not the daemon's belief — to
@@ -85,7 +107,7 @@ func (bd *benchDaemon) setPort(t *testing.T, role, port string) {
 // identifies the supply and ramps it to zero (they used to answer *IDN?,
 // the supply was refused as "wrong instrument" and stayed on).
 func TestStartupStaleReplyHalts(t *testing.T) {
-	bd := benchFilesReal(t, func(bd *benchDaemon) { energise(t, bd.bench, 0.7) })
+	bd := benchFiles(t, func(bd *benchDaemon) { energise(t, bd, 0.7) })
 	bd.serve(t)
 	zeroWithin(t, bd.bench, 100*time.Millisecond) // Serve halts before it listens
 	bd.assertZero(t)
@@ -97,7 +119,7 @@ func TestStartupStaleReplyHalts(t *testing.T) {
 // TestStartupThermometerMissingHalts: the optional thermometer's port is
 // gone at start-up; the supply, left energised, is halted all the same.
 func TestStartupThermometerMissingHalts(t *testing.T) {
-	bd := benchFilesReal(t, func(bd *benchDaemon) { energise(t, bd.bench, 0.7) })
+	bd := benchFiles(t, func(bd *benchDaemon) { energise(t, bd, 0.7) })
 	bd.setPort(t, "thermometer", "/dev/hystd-test-no-such-port")
 	bd.serve(t)
 	zeroWithin(t, bd.bench, 100*time.Millisecond)
@@ -109,10 +131,10 @@ func TestStartupThermometerMissingHalts(t *testing.T) {
 // switched on meanwhile is halted; the run's stored events carry the
 // read-back confirmation.
 func TestOpenFailureMidQueueHalts(t *testing.T) {
-	bd := benchFilesReal(t, nil)
+	bd := benchFiles(t, nil)
 	bd.setPort(t, "thermometer", "/dev/hystd-test-no-such-port")
 	bd.serve(t)
-	energise(t, bd.bench, 0.6)
+	energise(t, bd, 0.6)
 	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
 	if err != nil {
 		t.Fatal(err)
@@ -153,10 +175,10 @@ func TestOpenFailureMidQueueHalts(t *testing.T) {
 // TestSIGTERMIdleHalts: SIGTERM with no run under way still halts a supply
 // that is on (switched on by hand, or by a process killed before).
 func TestSIGTERMIdleHalts(t *testing.T) {
-	bd := benchFilesReal(t, nil)
+	bd := benchFiles(t, nil)
 	bd.serve(t)
-	energise(t, bd.bench, 0.8)
-	bd.sigs <- syscall.SIGTERM
+	energise(t, bd, 0.8)
+	bd.terminate()
 	select {
 	case err := <-bd.done:
 		if err != nil {
@@ -201,22 +223,17 @@ func hasEvent(evs []record.Event, sub string) bool {
 }
 
 // TestSpontaneousErrorEndsRun: the field meter pushes an error onto its
-// queue by itself in the middle of a run (no setting follows it): the
+// queue by itself in the middle of a run (at 2 s of bench time, mid-sweep
+// of shortLoop: the run starts at once, its sweep spans about 1–3 s) (no setting follows it): the
 // run's error poll reads it, stores it as an event and, the code being
 // "fail" in the profile (the default), ends the run failed after the safe
 // ramp-down. Before, such errors were never read and the next open's *CLS
 // erased them.
 func TestSpontaneousErrorEndsRun(t *testing.T) {
-	bd := benchFilesReal(t, nil)
+	bd := benchFiles(t, nil, sim.Fault{Role: sim.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature", At: benchAt(2 * time.Second)})
 	bd.serve(t)
-	sub, stop := bd.hub.Subscribe()
-	defer stop()
 	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
 	if err != nil {
-		t.Fatal(err)
-	}
-	inSweep(t, sub)
-	if err := bd.bench.Inject(sim.Fault{Role: sim.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature"}); err != nil {
 		t.Fatal(err)
 	}
 	r, evs := bd.runEnded(t, id, 30*time.Second)
@@ -230,20 +247,15 @@ func TestSpontaneousErrorEndsRun(t *testing.T) {
 	}
 }
 
-// TestLatchedTripNamed: the supply trips by itself during a run; that run
+// TestLatchedTripNamed: the supply trips by itself during a run (at 2 s of
+// bench time, mid-sweep); that run
 // and the next one fail naming a latched trip and what clears it (the next
 // one used to fail as "lost communication with the supply").
 func TestLatchedTripNamed(t *testing.T) {
-	bd := benchFilesReal(t, nil)
+	bd := benchFiles(t, nil, sim.Fault{Role: sim.RoleSupply, Kind: sim.FaultTrip, At: benchAt(2 * time.Second)})
 	bd.serve(t)
-	sub, stop := bd.hub.Subscribe()
-	defer stop()
 	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
 	if err != nil {
-		t.Fatal(err)
-	}
-	inSweep(t, sub)
-	if err := bd.bench.Inject(sim.Fault{Role: sim.RoleSupply, Kind: sim.FaultTrip}); err != nil {
 		t.Fatal(err)
 	}
 	r, _ := bd.runEnded(t, id, 30*time.Second)
@@ -271,7 +283,7 @@ func TestLatchedTripNamed(t *testing.T) {
 // the holder's PID; so is opening an instrument's port while a run holds
 // it (the port lock).
 func TestSecondOpenerRefused(t *testing.T) {
-	bd := benchFilesReal(t, nil)
+	bd := benchFiles(t, nil)
 	bd.serve(t)
 	rp := filepath.Join(bd.dir, "loop.yaml")
 	if err := os.WriteFile(rp, []byte(shortLoop), 0o644); err != nil {
@@ -290,5 +302,55 @@ func TestSecondOpenerRefused(t *testing.T) {
 	_, err = profile.OpenSupply(context.Background(), profile.Spec{Port: bd.bench.Ports()["supply"], Profile: "sim-supply"}, profile.Options{})
 	if err == nil || !strings.Contains(err.Error(), "is in use by process") {
 		t.Fatalf("second opener of the supply's port: %v", err)
+	}
+}
+
+// TestSecondSignalEndsStop: a stop whose supply halt hangs (a serial call
+// that never returns) is ended by a second SIGTERM: Serve returns at once,
+// logging loudly that the supply's halt was not confirmed. (The same
+// Abandon ends a stop that outlasts StopBound.)
+func TestSecondSignalEndsStop(t *testing.T) {
+	bd := benchFiles(t, nil)
+	var stopping atomic.Bool
+	hang := make(chan struct{})
+	t.Cleanup(func() { close(hang) })
+	own := FixtureHalter(slog.New(slog.NewTextHandler(bd.logs, nil)), bd.clock)
+	bd.halt = func(ctx context.Context, fx config.Fixture) (string, error) {
+		if stopping.Load() {
+			<-hang
+			return "", errors.New("released by the test's end")
+		}
+		return own(ctx, fx)
+	}
+	bd.serve(t)
+	stopping.Store(true)
+	bd.terminate()
+	waitFor(t, "the stop under way", 10*time.Second, func() bool { return strings.Contains(bd.logs.String(), "stopping: ending every run safely") })
+	bd.sigs <- syscall.SIGTERM
+	select {
+	case err := <-bd.done:
+		if err != nil {
+			t.Fatal(err)
+		}
+		bd.done <- nil // for the cleanup
+	case <-time.After(20 * time.Second):
+		t.Fatal("a second SIGTERM did not end the stop")
+	}
+	if logs := bd.logs.String(); !strings.Contains(logs, "SUPPLY HALT NOT CONFIRMED: the daemon exits (terminated received again while stopping)") {
+		t.Errorf("no loud line says the halt was not confirmed:\n%s", logs)
+	}
+}
+
+// TestStopBound: the hard bound covers a run's ramp-down and the daemon's
+// own halt from max_current_a at the supply profile's halt slew (20 A/s,
+// below the fixture's 50 A/s; 10 A: 0.5 s), each with engine.HaltMargin.
+func TestStopBound(t *testing.T) {
+	bd := benchFiles(t, nil)
+	cfg, err := Load(filepath.Join(bd.dir, "daemon.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got, want := StopBound(cfg), 2*(engine.HaltMargin+time.Second)+StopMargin; got != want {
+		t.Errorf("StopBound = %s, want %s", got, want)
 	}
 }

@@ -20,6 +20,7 @@ import (
 	"hystd/acq/api"
 	"hystd/acq/config"
 	"hystd/acq/engine"
+	"hystd/acq/fixture"
 	"hystd/acq/influx"
 	"hystd/acq/live"
 	"hystd/acq/record"
@@ -194,14 +195,57 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 			notify(log, "WATCHDOG=1")
 		}
 	}
-	log.Warn("stopping: ending every run safely", "reason", reason)
+	bound := StopBound(cfg)
+	log.Warn("stopping: ending every run safely", "reason", reason, "bound", bound)
 	notify(log, "STOPPING=1")
-	d.Stop(reason)
+	stopped := make(chan struct{})
+	go func() { d.Stop(reason); close(stopped) }()
+	// The machine's time, whatever clock the runs use: the bound is for
+	// whoever waits on the process (systemd, an operator at the terminal).
+	tm := time.NewTimer(bound)
+	defer tm.Stop()
+	for waiting := true; waiting; {
+		select {
+		case <-stopped:
+			waiting = false
+		case <-tm.C:
+			d.Abandon(fmt.Sprintf("the stop bound (%s) passed", bound))
+			waiting = false
+		case s := <-sigs:
+			if s == syscall.SIGHUP {
+				continue
+			}
+			d.Abandon(s.String() + " received again while stopping")
+			waiting = false
+		}
+	}
 	sctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
 	defer cancel()
 	_ = srv.Shutdown(sctx)
 	log.Info("stopped")
 	return nil
+}
+
+// StopMargin is the part of StopBound beyond the ramp-downs and the
+// halts' own bounds: the runs' last error polls, their records, the HTTP
+// server's shutdown.
+const StopMargin = 10 * time.Second
+
+// StopBound is how long Serve waits, after SIGTERM or SIGINT (or its
+// context's end), for every run's ending and every supply's halt before it
+// returns all the same, recording the halts it could not confirm
+// (Daemon.Abandon): twice the engine's halt bound for the slowest fixture
+// (engine.HaltMargin plus twice its ramp-down from max_current_a, once for
+// a run's ending and once for the daemon's own halt of every supply) plus
+// StopMargin. A healthy supply's ramp-down always fits; with an
+// instrument's port gone the halts fail within seconds
+// (profile.HaltReconnectWithin), well before it.
+func StopBound(cfg *Loaded) time.Duration {
+	var ramp time.Duration
+	for _, lf := range cfg.Fixtures {
+		ramp = max(ramp, fixture.RampDownTime(lf.Fixture))
+	}
+	return 2*(engine.HaltMargin+2*ramp) + StopMargin
 }
 
 func notify(log *slog.Logger, state string) {

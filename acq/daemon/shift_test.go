@@ -2,15 +2,14 @@ package daemon
 
 import (
 	"context"
-	"math"
 	"strings"
 	"testing"
 	"time"
 
 	"hystd/acq/fixture/fixturetest"
-	"hystd/acq/live"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/configs"
 	"hystd/drivers/sim"
 )
 
@@ -26,7 +25,11 @@ steps:
 `
 
 // TestLateReplyNoShiftedSample: the field meter holds one reply back for
-// 800 ms (beyond its 500 ms timeout) in the middle of a sweep. The late
+// 800 ms (beyond its timeout) in the middle of a sweep (at 4 s of bench
+// time: coarseLoop's sweep spans about 2–8.6 s). In simulated time the
+// client's read times out and the held reply comes out before the reply
+// to its next command (drivers/sim TestLateReplyInSimulatedTime), the
+// order that shifted a channel before. The late
 // reply is discarded when the line is resynchronised and the reading taken
 // again: no stored sample has its field one step behind (before, the
 // channel stayed one reading behind for the rest of the run).
@@ -37,16 +40,10 @@ func TestLateReplyNoShiftedSample(t *testing.T) {
 }
 
 func lateReply(t *testing.T, role string) {
-	bd := benchFilesReal(t, nil)
+	bd := benchFiles(t, nil, sim.Fault{Role: role, Kind: sim.FaultDelay, Delay: configs.Duration(800 * time.Millisecond), At: benchAt(4 * time.Second)})
 	bd.serve(t)
-	sub, stop := bd.hub.Subscribe()
-	defer stop()
 	id, err := bd.runner.Submit(context.Background(), "", []byte(coarseLoop))
 	if err != nil {
-		t.Fatal(err)
-	}
-	inSweep(t, sub)
-	if err := bd.bench.Inject(sim.Fault{Role: role, Kind: sim.FaultDelay, Delay: 800e6}); err != nil {
 		t.Fatal(err)
 	}
 	var r record.Run
@@ -90,24 +87,10 @@ func lateReply(t *testing.T, role string) {
 	}
 }
 
-// inSweep waits for live samples showing the current sweeping (two in a row
-// 3 mA apart or more).
-func inSweep(t *testing.T, evs <-chan live.Event) {
-	t.Helper()
-	timeout := time.After(30 * time.Second)
-	last := math.NaN()
-	for {
-		select {
-		case e := <-evs:
-			if e.Kind != live.KindSample {
-				continue
-			}
-			if math.Abs(e.I-last) > 0.003 {
-				return
-			}
-			last = e.I
-		case <-timeout:
-			t.Fatal("no sweep seen")
-		}
-	}
+// benchAt is a fault trigger at d of bench time. In simulated time the
+// bench's clock stands still until the daemon runs, and a run starts at
+// once, so d places the fault at a fixed point of the recipe.
+func benchAt(d time.Duration) *configs.Duration {
+	c := configs.Duration(d)
+	return &c
 }

@@ -43,8 +43,9 @@
 // timeouts and the engine's per-sample bound stay in real time and are made generous in simulated time
 // (`fixture.SimReadTimeout` 5 s, `engine.SimCommTimeout` 10 s), so load never makes a prompt reply look lost.
 // Consequences to know: all channels of a sample carry the same stamp (`DtI = DtB = TUnc = 0`, the exact instant);
-// a reply the bench *delays* reaches the client only after the engine's next sleep, i.e. it always behaves as a
-// reply later than any timeout (a `delay` fault costs one real read timeout per retry, until the engine's bound);
+// a reply the bench *delays* by up to 3× its profile's timeout is a late reply: the client's read times out (one real
+// read timeout) and the held reply goes out when the client writes its next line, before that line's reply
+// (`drivers/sim` `TestLateReplyInSimulatedTime`); a longer delay holds the line until the engine's bound;
 // a `drop` costs one real read timeout. One `clock.Sim` drives one fixture: two engines sleeping on one clock would
 // each count as the actor.
 //

@@ -32,8 +32,10 @@ import (
 // clock, so the instant cannot move under it. The price is that a client's
 // serial read timeouts stay in real time (see the package's users: they
 // are made generous in simulated time), and a reply the bench delays in
-// simulated time reaches the client only after the client's next sleep —
-// later than any timeout, as a late reply.
+// simulated time would reach the client only after the client's next
+// sleep. The bench therefore models a short delay as a late reply: held
+// until the client, having timed out, writes its next command line, then
+// sent before that line's reply (drivers/sim, TestLateReplyInSimulatedTime).
 type Sim struct {
 	mu       sync.Mutex
 	now      time.Time

@@ -125,6 +125,44 @@ type Device struct {
 	// pending are error-queue entries found when the port was opened, for
 	// the next PollErrors.
 	pending []instr.InstrumentError
+	// lost is the failed reconnect that left the port gone (a vanished
+	// device, a bench that died): until a reconnect succeeds, an operation
+	// meeting the disconnect fails at once instead of waiting another
+	// ReconnectWithin, so an ending on a vanished port is not one reconnect
+	// window per command. A Halt tries one reconnect more (haltTry).
+	lost error
+	// halting is set during Halt; haltTry, the one reconnect (within
+	// HaltReconnectWithin) that Halt may still try.
+	halting, haltTry bool
+}
+
+// HaltReconnectWithin bounds the one reconnect a Halt tries when it finds
+// the port lost: long enough for a USB serial adapter that was jostled to
+// come back, short enough that stopping the daemon on a bench whose ports
+// have vanished takes seconds, not a reconnect window per command.
+const HaltReconnectWithin = time.Second
+
+// beginHalt marks the device as halting until the returned function is
+// called: one reconnect of at most HaltReconnectWithin, whatever happened
+// before.
+func (d *Device) beginHalt() (end func()) {
+	d.halting, d.haltTry = true, true
+	return func() { d.halting, d.haltTry = false, false }
+}
+
+// detached is ctx without its cancellation but with its deadline, if any,
+// and at least minLeft from now: a halt goes on after an abort, but not
+// past the time its caller gave it (which may have run out: then minLeft,
+// so that the halt is tried at all).
+func detached(ctx context.Context, minLeft time.Duration) (context.Context, context.CancelFunc) {
+	c := context.WithoutCancel(ctx)
+	if dl, ok := ctx.Deadline(); ok {
+		if floor := time.Now().Add(minLeft); dl.Before(floor) {
+			dl = floor
+		}
+		return context.WithDeadline(c, dl)
+	}
+	return context.WithCancel(c)
 }
 
 // identifyTries is how often start asks *IDN? before it concludes that the
@@ -292,7 +330,9 @@ func (d *Device) haltSafe(ctx context.Context) error {
 }
 
 // Halt sends the safe-state sequence. Supply overrides it with a ramp.
+// A port found lost is reconnected once, within HaltReconnectWithin.
 func (d *Device) Halt(ctx context.Context) error {
+	defer d.beginHalt()()
 	if err := d.ready(ctx); err != nil {
 		return err
 	}
@@ -300,19 +340,32 @@ func (d *Device) Halt(ctx context.Context) error {
 }
 
 // fail wraps err; on a disconnect it reconnects, re-identifies and re-inits
-// before returning, and says so in the error.
+// before returning, and says so in the error. After a failed reconnect it
+// does not try again (the port is gone, see Device.lost), but for the one
+// try of a Halt.
 func (d *Device) fail(ctx context.Context, op, cmd string, err error) error {
 	oe := &OpError{Profile: d.p.Name, Op: op, Command: cmd, Err: err}
 	if !errors.Is(err, link.ErrDisconnected) || ctx.Err() != nil {
 		return oe
 	}
-	rctx, cancel := context.WithTimeout(ctx, d.o.ReconnectWithin)
-	defer cancel()
-	d.o.Log.Warn("instrument port lost; reconnecting", "profile", d.p.Name, "op", op, "err", err)
-	if rerr := d.port.Reconnect(rctx); rerr != nil {
-		oe.Err = errors.Join(err, fmt.Errorf("reconnect failed: %w", rerr))
+	within := d.o.ReconnectWithin
+	switch {
+	case d.halting && d.haltTry:
+		d.haltTry = false
+		within = min(within, HaltReconnectWithin)
+	case d.lost != nil:
+		oe.Err = errors.Join(err, fmt.Errorf("not reconnected again: %w", d.lost))
 		return oe
 	}
+	rctx, cancel := context.WithTimeout(ctx, within)
+	defer cancel()
+	d.o.Log.Warn("instrument port lost; reconnecting", "profile", d.p.Name, "op", op, "within", within, "err", err)
+	if rerr := d.port.Reconnect(rctx); rerr != nil {
+		d.lost = fmt.Errorf("reconnect failed: %w", rerr)
+		oe.Err = errors.Join(err, d.lost)
+		return oe
+	}
+	d.lost = nil
 	d.c.Forget()
 	d.reconnects.Add(1)
 	if serr := d.start(rctx); serr != nil {

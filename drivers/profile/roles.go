@@ -206,16 +206,22 @@ func (s *Supply) haltZero() float64 {
 //
 // Halt is safe to call at any time and repeatedly. It does not stop when ctx
 // is cancelled (a half-done ramp-down is worse than a finished one); it is
-// bounded instead by the ramp time plus 10 s. Errors are returned after the
+// bounded instead by the ramp time plus 10 s and by ctx's deadline (at
+// least HaltReconnectWithin from the call). A port found lost is
+// reconnected once, within HaltReconnectWithin; if that fails, every
+// command of the sequence fails at once. Errors are returned after the
 // whole sequence was attempted.
 func (s *Supply) Halt(ctx context.Context) error {
-	if err := s.ready(context.WithoutCancel(ctx)); err != nil {
+	defer s.beginHalt()()
+	ctx, stop := detached(ctx, HaltReconnectWithin)
+	defer stop()
+	if err := s.ready(ctx); err != nil {
 		return err
 	}
 	period, _ := time.ParseDuration(s.p.HaltPeriod)
 	i0, known := s.last, s.haveSet
 	var errs []error
-	if r, err := s.ReadCurrent(context.WithoutCancel(ctx)); err == nil {
+	if r, err := s.ReadCurrent(ctx); err == nil {
 		i0, known = r.Value, true
 	} else {
 		errs = append(errs, err)
@@ -232,7 +238,7 @@ func (s *Supply) Halt(ctx context.Context) error {
 		plan = HaltPlan(i0, slew, period)
 	}
 	budget := time.Duration(len(plan))*period + 10*time.Second
-	hctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), budget)
+	hctx, cancel := context.WithTimeout(ctx, budget)
 	defer cancel()
 	if known && i0 != 0 {
 		s.o.Log.Warn("halting supply: ramping to zero", "profile", s.p.Name, "from_a", i0, "slew_a_per_s", slew, "steps", len(plan))

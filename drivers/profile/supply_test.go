@@ -408,3 +408,71 @@ func TestUnidentifiedAfterReconnectSaysSo(t *testing.T) {
 		t.Fatalf("got %v, want an error naming the lost and reconnected port", err)
 	}
 }
+
+// vanishing is a scripted port that vanishes on demand: every read and
+// write then fails as a disconnect and every reconnect waits for its
+// context to end, as link.Conn's does while the device is absent. It
+// records the time each reconnect was given.
+type vanishing struct {
+	*scpitest.Script
+	gone   bool
+	window []time.Duration
+}
+
+func (v *vanishing) Read(ctx context.Context, p []byte) (int, error) {
+	if v.gone {
+		return 0, scpitest.Hangup
+	}
+	return v.Script.Read(ctx, p)
+}
+
+func (v *vanishing) Write(ctx context.Context, p []byte) (int, error) {
+	if v.gone {
+		return 0, &link.Error{Op: "write", Port: "scripted", Kind: link.ErrDisconnected}
+	}
+	return v.Script.Write(ctx, p)
+}
+
+func (v *vanishing) Reconnect(ctx context.Context) error {
+	dl, ok := ctx.Deadline()
+	if !ok {
+		dl = time.Now().Add(time.Hour)
+	}
+	v.window = append(v.window, time.Until(dl))
+	<-ctx.Done()
+	return &link.Error{Op: "reconnect", Port: "scripted", Kind: link.ErrDisconnected, Cause: ctx.Err()}
+}
+
+// TestVanishedPortReconnectedOnce: once a reconnect has failed (the device
+// is gone), later operations fail at once instead of each waiting a
+// reconnect window, and a Halt tries one reconnect more, within
+// HaltReconnectWithin, whatever ReconnectWithin says: stopping on a bench
+// whose ports vanished takes seconds (cmd/hystd TestOrphanedServeStops).
+func TestVanishedPortReconnectedOnce(t *testing.T) {
+	r := newRig(t, simSupply)
+	r.opts.ReconnectWithin = time.Hour
+	v := &vanishing{Script: r.script}
+	s, err := NewSupply(context.Background(), r.prof, v, r.opts)
+	if err != nil {
+		t.Fatal(err)
+	}
+	v.gone = true
+	ctx, cancel := context.WithTimeout(context.Background(), 50*time.Millisecond)
+	_, err = s.ReadCurrent(ctx)
+	cancel()
+	if !errors.Is(err, link.ErrDisconnected) || len(v.window) != 1 {
+		t.Fatalf("first read on the vanished port: %v after %d reconnects", err, len(v.window))
+	}
+	if _, err := s.ReadCurrent(context.Background()); !errors.Is(err, link.ErrDisconnected) || !strings.Contains(err.Error(), "not reconnected again") {
+		t.Errorf("second read: %v", err)
+	}
+	if len(v.window) != 1 {
+		t.Fatalf("the second read reconnected again (%d reconnects)", len(v.window))
+	}
+	if err := s.Halt(context.Background()); !errors.Is(err, link.ErrDisconnected) {
+		t.Errorf("halt on the vanished port: %v", err)
+	}
+	if len(v.window) != 2 || v.window[1] > HaltReconnectWithin {
+		t.Errorf("halt's reconnects: windows %v, want one more of at most %s", v.window, HaltReconnectWithin)
+	}
+}

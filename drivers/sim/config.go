@@ -82,7 +82,7 @@ type Fault struct {
 	AfterCommands int               `yaml:"after_commands"`
 	Probability   float64           `yaml:"probability"`
 	Times         int               `yaml:"times"`
-	Delay         configs.Duration  `yaml:"delay"`   // kind delay: how long the reply is held
+	Delay         configs.Duration  `yaml:"delay"`   // kind delay: how long the reply is held (in simulated time, up to 3× the profile timeout: until the next command line, see lateWithin)
 	Code          int               `yaml:"code"`    // kind error: SCPI code (default -300)
 	Message       string            `yaml:"message"` // kind error (default "Device-specific error")
 }

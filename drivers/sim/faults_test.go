@@ -5,10 +5,12 @@ import (
 	"errors"
 	"log/slog"
 	"os"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
 
+	"hystd/drivers/clock"
 	"hystd/drivers/link"
 	"hystd/drivers/scpi"
 )
@@ -198,5 +200,45 @@ func TestRandomFaultsFollowTheSeed(t *testing.T) {
 	}
 	if n := strings.Count(p1, "x"); n < 3 || n > 18 {
 		t.Errorf("%d of 30 replies garbled at p = 0.3: %s", n, p1)
+	}
+}
+
+// TestLateReplyInSimulatedTime: on simulated time (clock.Sim) the clock
+// stands still while a client waits for a reply, so a reply held for its
+// delay would come only after the client's next sleep. The bench models a
+// late reply instead: the client's read times out, and the held reply goes
+// out once the client writes its next command line, just before that
+// line's own reply, without simulated time moving — the order a late reply
+// takes on a real line when the client has given up on it.
+func TestLateReplyInSimulatedTime(t *testing.T) {
+	ctx := context.Background()
+	clk := clock.NewSim(time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC))
+	b, err := Start(ctx, faultBench(t, "  - {role: thermometer, kind: delay, delay: 800ms, after_commands: 1}\n"), WithClock(clk))
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { b.Close() })
+	_, c := driver(t, b, RoleThermometer)
+	t0 := clk.Now()
+	if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); !errors.Is(err, link.ErrTimeout) {
+		t.Fatalf("delayed reply: err = %v, want link.ErrTimeout", err)
+	}
+	// The next query's first line is the late reply (a temperature where an
+	// identity is due): the client must skip it, as it does after a resync.
+	id, skipped, err := c.QueryMatch(ctx, "*IDN?", func(l string) bool { return strings.Contains(l, "THERMOMETER") })
+	if err != nil {
+		t.Fatalf("*IDN? after the late reply: %v", err)
+	}
+	if len(skipped) != 1 {
+		t.Fatalf("lines before the identity %q: %q, want the one late reply", id, skipped)
+	}
+	if _, err := strconv.ParseFloat(strings.TrimSpace(skipped[0]), 64); err != nil {
+		t.Errorf("the late line %q is not the held temperature reading", skipped[0])
+	}
+	if d := clk.Now().Sub(t0); d != 0 {
+		t.Errorf("simulated time moved %s: nobody slept", d)
+	}
+	if v, err := c.QueryNumber(ctx, "MEAS:TEMP?"); err != nil || v < 0 || v > 100 {
+		t.Errorf("the next reading: %g, %v", v, err)
 	}
 }

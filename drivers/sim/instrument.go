@@ -114,6 +114,16 @@ func (b *Bench) serve(ctx context.Context, in *instrument) {
 	}
 }
 
+// lateWithin is the longest delay that simulated time models as a late
+// reply (see act): one the client, waiting the profile's timeout T, gives
+// up on and then meets while it resynchronises the line (within 2·T, the
+// SCPI client's default sync bound), so 3·T. A reply held longer leaves the
+// client's resync unanswered too: the instrument is unresponsive.
+func lateWithin(p profile.Profile) time.Duration {
+	t, _ := time.ParseDuration(p.Timeout)
+	return 3 * t
+}
+
 // act delays, writes the reply and hangs up as a command's outcome says.
 // It reports false when the bench is stopping.
 func (b *Bench) act(ctx context.Context, in *instrument, a action) bool {
@@ -124,12 +134,29 @@ func (b *Bench) act(ctx context.Context, in *instrument, a action) bool {
 		b.mu.Lock()
 		in.busy, in.holding = false, true
 		b.mu.Unlock()
-		done, err := clock.Passive(ctx, b.clock, b.clock.Now().Add(a.delay))
+		wctx, release := context.WithCancel(ctx)
+		if clock.IsSimulated(b.clock) && a.delay <= lateWithin(in.prof) {
+			// In simulated time the clock stands still while the client
+			// waits for this reply (its read timeout runs in real time),
+			// so the reply's time would come only after the client's next
+			// sleep. A late reply is one the client gave up on: once it
+			// writes its next command line the held reply goes out, before
+			// that line's reply, as a late reply does on a real line. (A
+			// longer delay holds the line until its time, as before.)
+			go func() {
+				for wctx.Err() == nil && in.pty.unread() == 0 {
+					time.Sleep(time.Millisecond)
+				}
+				release()
+			}()
+		}
+		done, err := clock.Passive(wctx, b.clock, b.clock.Now().Add(a.delay))
+		release()
 		b.mu.Lock()
 		in.busy, in.holding = true, false
 		b.mu.Unlock()
 		done()
-		if err != nil {
+		if err != nil && ctx.Err() != nil {
 			return false
 		}
 	}
