@@ -19,8 +19,9 @@ const pairSamples = 200
 // inPairs times the two sides in alternating turns (a first in even pairs,
 // b first in odd ones) after one untimed pair, and reports each side's
 // samples/s, their ratio (a-per-b: a's rate over b's; above 1 a is faster)
-// and the 1-minute load average at the start and the end.
-func inPairs(bm *testing.B, aName, bName string, a, b func() time.Duration) {
+// and the 1-minute load average at the start and the end. It returns a's
+// rate.
+func inPairs(bm *testing.B, aName, bName string, a, b func() time.Duration) float64 {
 	a()
 	b()
 	load0 := loadAvg()
@@ -43,6 +44,7 @@ func inPairs(bm *testing.B, aName, bName string, a, b func() time.Duration) {
 	bm.ReportMetric(ra/rb, aName+"-per-"+bName)
 	bm.ReportMetric(load0, "load-start")
 	bm.ReportMetric(loadAvg(), "load-end")
+	return ra
 }
 
 // loadAvg is the 1-minute load average (NaN where /proc is missing).
@@ -83,7 +85,7 @@ func BenchmarkSampleBesideInTurn(b *testing.B) {
 				b.Fatal(err)
 			}
 			defer s.Close()
-			inPairs(b, "sampler", "in-turn",
+			_ = inPairs(b, "sampler", "in-turn",
 				func() time.Duration {
 					return turn(b, func(ctx context.Context) error { _, err := s.Read(ctx); return err })
 				},
@@ -103,7 +105,10 @@ const debianPython = "/usr/bin/python3"
 // lines, each side on its own three ptys with the same responders, in
 // interleaved turns of 200 samples. The script times its own polling loop
 // (not the interpreter's start). sampler-per-pyserial is the ratio of
-// sample rates. It skips without python3-serial.
+// sample rates; line-% is the Sampler's rate against what the emulated
+// lines allow (see lineLimit): the supply's two exchanges per sample bound
+// it, against the script's four exchanges in turn. It skips without
+// python3-serial.
 func BenchmarkSampleBesidePyserial(b *testing.B) {
 	if exec.Command(debianPython, "-c", "import serial").Run() != nil {
 		b.Skip("python3-serial is not installed (apt-get install python3-serial)")
@@ -133,8 +138,10 @@ func BenchmarkSampleBesidePyserial(b *testing.B) {
 		}
 		return time.Duration(sec * float64(time.Second))
 	}
-	inPairs(b, "sampler", "pyserial",
+	rate := inPairs(b, "sampler", "pyserial",
 		func() time.Duration {
 			return turn(b, func(ctx context.Context) error { _, err := s.Read(ctx); return err })
 		}, py)
+	_, emu := lineLimit(b, baud)
+	b.ReportMetric(100*rate/emu, "line-%")
 }
