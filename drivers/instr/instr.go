@@ -4,7 +4,9 @@
 //
 // Every method that talks to an instrument takes a context; cancelling it
 // stops the call. Implementations are not required to be safe for concurrent
-// use by several goroutines: the engine owns one goroutine per instrument.
+// use by several goroutines: one goroutine at a time uses an instrument (the
+// engine, or the sampler, which reads several instruments from one goroutine
+// through Overlapped).
 package instr
 
 import (
