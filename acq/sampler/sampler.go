@@ -19,7 +19,9 @@
 // received when its terminator was read), so T, DtI, DtB and TUnc stay
 // each channel's own midpoint and half round trip; a reply that sat in the
 // kernel's buffer while another line was being waited on only widens its
-// interval, which still contains the instant it stands for. Other
+// interval, which still contains the instant it stands for (unless the
+// profile's timeout passed meanwhile: it is then late, as in a blocking
+// read, and read again after the driver's resync). Other
 // instruments (fakes in tests) are read one goroutine each, beside the
 // round.
 package sampler

@@ -121,3 +121,23 @@ func TestAskOnPlainStreamAndAbandon(t *testing.T) {
 		t.Fatalf("got %q, %v after an abandoned query", v, err)
 	}
 }
+
+// A reply whose bytes are only read after the Timeout is late, as in
+// QueryTimed, even though it waits complete in the port's buffer: never
+// taken for an answer.
+func TestAskedReplyReadAfterTimeoutIsLate(t *testing.T) {
+	s := &held{}
+	c := New(s, Options{Timeout: time.Millisecond})
+	ctx := context.Background()
+	if err := c.Ask(ctx, "FETC:FLUX?"); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(5 * time.Millisecond)
+	s.ready = []byte("-9.99E-04\n")
+	if !c.Await(ctx, 0) {
+		t.Fatal("a query past its Timeout is not settled")
+	}
+	if r, err := c.QueryTimed(ctx, "FETC:FLUX?"); !errors.Is(err, link.ErrTimeout) {
+		t.Fatalf("got %+v, %v; want link.ErrTimeout", r, err)
+	}
+}

@@ -225,9 +225,11 @@ func (c *Client) Ask(ctx context.Context, cmd string) error {
 // Await reports whether the reply to the query of Ask is in, or its
 // exchange has failed (late past Timeout, the line lost, ctx done), so that
 // QueryTimed returns without waiting; it waits at most wait for input
-// (0: only looks), and stamps the reply when its terminator arrives. On a
-// Stream that is not a Poller it waits for the reply. Without a query
-// asked it returns true.
+// (0: only looks), and stamps the reply when its terminator arrives. As in
+// QueryTimed, nothing is read once the Timeout has passed: a reply not
+// read by then is late, even if its bytes wait in the port's buffer (the
+// resync discards them). On a Stream that is not a Poller it waits for the
+// reply. Without a query asked it returns true.
 func (c *Client) Await(ctx context.Context, wait time.Duration) bool {
 	a := c.asked
 	if a == nil || a.done {
@@ -246,6 +248,12 @@ func (c *Client) Await(ctx context.Context, wait time.Duration) bool {
 			c.answered(a, line, err)
 			return true
 		}
+		if !a.deadline.IsZero() && !time.Now().Before(a.deadline) {
+			c.stale = true
+			c.answered(a, string(c.buf), &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout,
+				Cause: fmt.Errorf("no complete reply within %v", c.o.Timeout)})
+			return true
+		}
 		left := time.Until(end)
 		if !a.deadline.IsZero() {
 			left = min(left, time.Until(a.deadline))
@@ -255,16 +263,7 @@ func (c *Client) Await(ctx context.Context, wait time.Duration) bool {
 			c.answered(a, string(c.buf), c.asTimeout(ctx, err))
 			return true
 		}
-		if n > 0 {
-			continue
-		}
-		if !a.deadline.IsZero() && !time.Now().Before(a.deadline) {
-			c.stale = true
-			c.answered(a, string(c.buf), &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout,
-				Cause: fmt.Errorf("no complete reply within %v", c.o.Timeout)})
-			return true
-		}
-		if !time.Now().Before(end) {
+		if n == 0 && !time.Now().Before(end) {
 			return false
 		}
 	}
