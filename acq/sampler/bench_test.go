@@ -37,29 +37,37 @@ func openBench(b *testing.B, delay time.Duration, baud int) Roles {
 	b.Helper()
 	ctx := context.Background()
 	o := profile.Options{Log: slog.New(slog.DiscardHandler)}
-	serve := func(id string) string {
+	paths := serveBench(b, delay, baud)
+	sup, err := profile.OpenSupply(ctx, profile.Spec{Port: paths[0], Profile: "sim-supply"}, o)
+	if err != nil {
+		b.Fatal(err)
+	}
+	integ, err := profile.OpenIntegrator(ctx, profile.Spec{Port: paths[1], Profile: "sim-integrator"}, o)
+	if err != nil {
+		b.Fatal(err)
+	}
+	fm, err := profile.OpenFieldMeter(ctx, profile.Spec{Port: paths[2], Profile: "sim-fieldmeter"}, o)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { sup.Close(); integ.Close(); fm.Close() })
+	return Roles{Supply: sup, Integrator: integ, FieldMeter: fm}
+}
+
+// serveBench starts the supply's, integrator's and field meter's responders
+// on three ptys and returns the paths a client opens, in that order.
+func serveBench(b *testing.B, delay time.Duration, baud int) [3]string {
+	var paths [3]string
+	for k, id := range []string{"HYSTD-SIM,BIPOLAR-SUPPLY", "HYSTD-SIM,FLUX-INTEGRATOR", "HYSTD-SIM,HALL-METER"} {
 		p, err := linktest.Open()
 		if err != nil {
 			b.Skipf("no ptys: %v", err)
 		}
 		r := linktest.ServeLine(p, "\n", "\n", delay, baud, answer(id))
 		b.Cleanup(func() { r.Stop(); p.Close() })
-		return p.Path
+		paths[k] = p.Path
 	}
-	sup, err := profile.OpenSupply(ctx, profile.Spec{Port: serve("HYSTD-SIM,BIPOLAR-SUPPLY"), Profile: "sim-supply"}, o)
-	if err != nil {
-		b.Fatal(err)
-	}
-	integ, err := profile.OpenIntegrator(ctx, profile.Spec{Port: serve("HYSTD-SIM,FLUX-INTEGRATOR"), Profile: "sim-integrator"}, o)
-	if err != nil {
-		b.Fatal(err)
-	}
-	fm, err := profile.OpenFieldMeter(ctx, profile.Spec{Port: serve("HYSTD-SIM,HALL-METER"), Profile: "sim-fieldmeter"}, o)
-	if err != nil {
-		b.Fatal(err)
-	}
-	b.Cleanup(func() { sup.Close(); integ.Close(); fm.Close() })
-	return Roles{Supply: sup, Integrator: integ, FieldMeter: fm}
+	return paths
 }
 
 // readSequential reads the same channels one after another, as a polling

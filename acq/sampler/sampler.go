@@ -1,8 +1,29 @@
-// Package sampler reads every channel of a fixture at once: one goroutine
-// per instrument (so one per port), all started together for each sample,
-// each reading stamped by its instrument driver at the midpoint of its
-// request and reply. It is the one concurrent reader of the project: the
-// engine samples through it.
+// Package sampler reads every channel of a fixture at once, each reading
+// stamped by its instrument driver at the midpoint of its request and reply.
+// It is the one concurrent reader of the project: the engine samples
+// through it.
+//
+// Instruments that can start a read ahead (instr.Overlapped: every
+// drivers/profile instrument) are read by the caller's goroutine in an
+// overlapped round: the first query of every such instrument is written
+// before any reply is read, and each line's next query goes out as soon as
+// its previous reply is in, so one query is in flight on every port at once
+// while no instrument gets a second query before it answered the first.
+// The round looks at each line without blocking and, when nothing is in,
+// waits on the line whose reply is due first (from the line's last round
+// trip) until the next one is due. No goroutine, channel or timer per read:
+// go.bug.st/serial reads with a blocking select(2) on one descriptor and
+// does not give out the descriptor, so Go's runtime poller cannot watch the
+// ports, and one blocked reader per port would be the fan-out this avoids.
+// Each reply keeps its own stamps (sent when its query was written,
+// received when its terminator was read), so T, DtI, DtB and TUnc stay
+// each channel's own midpoint and half round trip; a reply that sat in the
+// kernel's buffer while another line was being waited on only widens its
+// interval, which still contains the instant it stands for (unless the
+// profile's timeout passed meanwhile: it is then late, as in a blocking
+// read, and read again after the driver's resync). Other
+// instruments (fakes in tests) are read one goroutine each, beside the
+// round.
 package sampler
 
 import (
@@ -70,23 +91,32 @@ func WithRetryCounter(ctx context.Context, n *atomic.Int64) context.Context {
 func Retry[T any](ctx context.Context, f func(context.Context) (T, error)) (T, error) {
 	for {
 		v, err := f(ctx)
-		if err == nil || !(errors.Is(err, instr.ErrTimeout) || errors.Is(err, instr.ErrOutOfStep)) || ctx.Err() != nil {
+		if !again(ctx, err) {
 			return v, err
-		}
-		if n, ok := ctx.Value(retriesKey{}).(*atomic.Int64); ok {
-			n.Add(1)
 		}
 	}
 }
 
-// Sampler reads all channels concurrently. Read may be called from one
+// again tells Retry whether to repeat after err, counting the repeat.
+func again(ctx context.Context, err error) bool {
+	if err == nil || !(errors.Is(err, instr.ErrTimeout) || errors.Is(err, instr.ErrOutOfStep)) || ctx.Err() != nil {
+		return false
+	}
+	if n, ok := ctx.Value(retriesKey{}).(*atomic.Int64); ok {
+		n.Add(1)
+	}
+	return true
+}
+
+// Sampler reads all channels at once. Read may be called from one
 // goroutine at a time. Read returns only after every instrument finished its
 // I/O, so between Reads the caller may use the instruments itself (set the
 // supply, Halt); never during a Read. The Sampler does not close the
 // instruments; Close stops its goroutines.
 type Sampler struct {
 	start   time.Time
-	workers []*worker
+	lines   []*line   // one per role, in the order of Roles
+	workers []*worker // the lines read in goroutines of their own
 	mu      sync.Mutex
 	closed  bool
 }
@@ -105,104 +135,115 @@ type stamped struct {
 	kind int
 }
 
-// channel is one worker's job: fill its fields of the reading.
-type channel func(ctx context.Context, out *Reading) ([]stamped, error)
+// line is one instrument (one port) and the reads a Read makes on it, in
+// order; a line stops at its first failed read.
+type line struct {
+	role  string
+	steps []step
+	ov    instr.Overlapped // nil: read in a goroutine of its own
+	// rtt is each step's last round trip (machine clock): when its reply
+	// is due in the overlapped round.
+	rtt []time.Duration
+}
+
+// step is one read: r names it for Overlapped.Begin; take makes it (or
+// collects it once begun), fills its field of out and returns its stamped
+// reading (ok false for status reads, which carry no time).
+type step struct {
+	what string // for errors: "read current"
+	r    instr.Read
+	take func(ctx context.Context, out *Reading) (s stamped, ok bool, err error)
+}
+
+// outcome is what one line's reads of one Read gave.
+type outcome struct {
+	l   *line
+	got []stamped
+	err error // a *RoleError
+}
 
 type worker struct {
-	role string
-	read channel
+	l    *line
 	req  chan request
 	done chan struct{}
 }
 
 type request struct {
 	ctx   context.Context
-	reply chan<- result
-}
-
-type result struct {
-	role     string
-	fill     Reading // only this worker's fields are meaningful
-	readings []stamped
-	err      error
+	out   *Reading // the worker writes only its line's fields
+	reply chan<- outcome
 }
 
 // New is NewWith without options: the measured channels only.
 func New(r Roles, start time.Time) (*Sampler, error) { return NewWith(r, start, Options{}) }
 
-// NewWith starts one goroutine per instrument. start is the run's start
-// time (from the same clock as the drivers' stamps, time.Now for real
-// drivers): Sample.T is measured from it.
+// NewWith prepares the reads of every role and starts one goroutine per
+// instrument that is not instr.Overlapped. start is the run's start time
+// (from the same clock as the drivers' stamps, time.Now for real drivers):
+// Sample.T is measured from it.
 func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 	if r.Supply == nil {
 		return nil, errors.New("sampler: a supply is required")
 	}
 	s := &Sampler{start: start}
-	s.add("supply", func(ctx context.Context, out *Reading) ([]stamped, error) {
-		i, err := Retry(ctx, r.Supply.ReadCurrent)
-		if err != nil {
-			return nil, fmt.Errorf("read current: %w", err)
-		}
-		out.Sample.I = i.Value
-		got := []stamped{{i, kindCurrent}}
-		v, err := Retry(ctx, r.Supply.ReadVoltage)
-		if err != nil {
-			return got, fmt.Errorf("read voltage: %w", err)
-		}
-		out.Sample.V = v.Value
-		got = append(got, stamped{v, kindOther})
-		if o.Status {
-			st, err := Retry(ctx, r.Supply.Status)
-			if err != nil {
-				return got, fmt.Errorf("read status: %w", err)
-			}
-			out.Status = st
-		}
-		return got, nil
-	})
+	sup := []step{
+		reading("read current", instr.ReadCurrent, kindCurrent, r.Supply.ReadCurrent, func(out *Reading, v float64) { out.Sample.I = v }),
+		reading("read voltage", instr.ReadVoltage, kindOther, r.Supply.ReadVoltage, func(out *Reading, v float64) { out.Sample.V = v }),
+	}
+	if o.Status {
+		sup = append(sup, state("read status", instr.ReadStatus, r.Supply.Status, func(out *Reading, v instr.SupplyStatus) { out.Status = v }))
+	}
+	s.add("supply", r.Supply, sup)
 	if r.Integrator != nil {
-		s.add("integrator", func(ctx context.Context, out *Reading) ([]stamped, error) {
-			psi, err := Retry(ctx, r.Integrator.ReadFlux)
-			if err != nil {
-				return nil, fmt.Errorf("read flux: %w", err)
-			}
-			out.Sample.Psi = psi.Value
-			got := []stamped{{psi, kindFlux}}
-			if o.Status {
-				ov, err := Retry(ctx, r.Integrator.Overloaded)
-				if err != nil {
-					return got, fmt.Errorf("read overload: %w", err)
-				}
-				out.Overload = ov
-			}
-			return got, nil
-		})
+		st := []step{reading("read flux", instr.ReadFlux, kindFlux, r.Integrator.ReadFlux, func(out *Reading, v float64) { out.Sample.Psi = v })}
+		if o.Status {
+			st = append(st, state("read overload", instr.ReadOverload, r.Integrator.Overloaded, func(out *Reading, v bool) { out.Overload = v }))
+		}
+		s.add("integrator", r.Integrator, st)
 	}
 	if r.FieldMeter != nil {
-		s.add("field meter", func(ctx context.Context, out *Reading) ([]stamped, error) {
-			b, err := Retry(ctx, r.FieldMeter.ReadField)
-			if err != nil {
-				return nil, fmt.Errorf("read field: %w", err)
-			}
-			out.Sample.BProbe = b.Value
-			return []stamped{{b, kindField}}, nil
-		})
+		s.add("field meter", r.FieldMeter, []step{
+			reading("read field", instr.ReadField, kindField, r.FieldMeter.ReadField, func(out *Reading, v float64) { out.Sample.BProbe = v })})
 	}
 	if r.Thermometer != nil {
-		s.add("thermometer", func(ctx context.Context, out *Reading) ([]stamped, error) {
-			th, err := Retry(ctx, r.Thermometer.ReadTemperature)
-			if err != nil {
-				return nil, fmt.Errorf("read temperature: %w", err)
-			}
-			out.Sample.TempC = th.Value
-			return []stamped{{th, kindOther}}, nil
-		})
+		s.add("thermometer", r.Thermometer, []step{
+			reading("read temperature", instr.ReadTemperature, kindOther, r.Thermometer.ReadTemperature, func(out *Reading, v float64) { out.Sample.TempC = v })})
 	}
 	return s, nil
 }
 
-func (s *Sampler) add(role string, read channel) {
-	w := &worker{role: role, read: read, req: make(chan request), done: make(chan struct{})}
+// reading is the step of a timed read: its value goes to out by set.
+func reading(what string, r instr.Read, kind int, read func(context.Context) (instr.Reading, error), set func(*Reading, float64)) step {
+	return step{what: what, r: r, take: func(ctx context.Context, out *Reading) (stamped, bool, error) {
+		v, err := read(ctx)
+		if err != nil {
+			return stamped{}, false, err
+		}
+		set(out, v.Value)
+		return stamped{v, kind}, true, nil
+	}}
+}
+
+// state is the step of a read without a time (status, overload).
+func state[T any](what string, r instr.Read, read func(context.Context) (T, error), set func(*Reading, T)) step {
+	return step{what: what, r: r, take: func(ctx context.Context, out *Reading) (stamped, bool, error) {
+		v, err := read(ctx)
+		if err != nil {
+			return stamped{}, false, err
+		}
+		set(out, v)
+		return stamped{}, false, nil
+	}}
+}
+
+func (s *Sampler) add(role string, res instr.Resource, steps []step) {
+	l := &line{role: role, steps: steps, rtt: make([]time.Duration, len(steps))}
+	s.lines = append(s.lines, l)
+	if ov, ok := res.(instr.Overlapped); ok {
+		l.ov = ov
+		return
+	}
+	w := &worker{l: l, req: make(chan request), done: make(chan struct{})}
 	s.workers = append(s.workers, w)
 	go w.loop()
 }
@@ -210,13 +251,31 @@ func (s *Sampler) add(role string, read channel) {
 func (w *worker) loop() {
 	defer close(w.done)
 	for rq := range w.req {
-		var fill Reading
-		rs, err := w.read(rq.ctx, &fill)
-		if err != nil {
-			err = &RoleError{Role: w.role, Err: err}
-		}
-		rq.reply <- result{role: w.role, fill: fill, readings: rs, err: err}
+		rq.reply <- w.l.readInTurn(rq.ctx, rq.out)
 	}
+}
+
+// readInTurn makes the line's reads one after another, each repeated as
+// Retry says.
+func (l *line) readInTurn(ctx context.Context, out *Reading) outcome {
+	o := outcome{l: l}
+	for _, st := range l.steps {
+		var got stamped
+		var ok bool
+		_, err := Retry(ctx, func(ctx context.Context) (struct{}, error) {
+			var err error
+			got, ok, err = st.take(ctx, out)
+			return struct{}{}, err
+		})
+		if err != nil {
+			o.err = &RoleError{Role: l.role, Err: fmt.Errorf("%s: %w", st.what, err)}
+			return o
+		}
+		if ok {
+			o.got = append(o.got, got)
+		}
+	}
+	return o
 }
 
 // Read is ReadAll's sample.
@@ -246,51 +305,23 @@ func (s *Sampler) ReadAll(ctx context.Context) (Reading, error) {
 	if s.closed {
 		return out, errors.New("sampler: closed")
 	}
-	replies := make(chan result, len(s.workers))
+	// Every line writes only its own fields of out; the goroutines' writes
+	// are seen here after their replies are received.
+	replies := make(chan outcome, len(s.workers))
 	for _, w := range s.workers {
-		w.req <- request{ctx: ctx, reply: replies}
+		w.req <- request{ctx: ctx, out: &out, reply: replies}
+	}
+	res := make(map[*line]outcome, len(s.lines))
+	overlap(ctx, s.lines, &out, res)
+	for range s.workers {
+		o := <-replies
+		res[o.l] = o
 	}
 	var all []stamped
-	errs := make([]error, len(s.workers))
-	for range s.workers {
-		r := <-replies
-		all = append(all, r.readings...)
-		for k, w := range s.workers {
-			if w.role == r.role {
-				errs[k] = r.err
-			}
-		}
-		has := func(kind int) bool {
-			for _, x := range r.readings {
-				if x.kind == kind {
-					return true
-				}
-			}
-			return false
-		}
-		switch r.role {
-		case "supply":
-			if has(kindCurrent) {
-				out.Sample.I = r.fill.Sample.I
-			}
-			if len(r.readings) > 1 {
-				out.Sample.V = r.fill.Sample.V
-			}
-			out.Status = r.fill.Status
-		case "integrator":
-			if has(kindFlux) {
-				out.Sample.Psi = r.fill.Sample.Psi
-			}
-			out.Overload = r.fill.Overload
-		case "field meter":
-			if r.err == nil {
-				out.Sample.BProbe = r.fill.Sample.BProbe
-			}
-		case "thermometer":
-			if r.err == nil {
-				out.Sample.TempC = r.fill.Sample.TempC
-			}
-		}
+	var errs []error
+	for _, l := range s.lines {
+		all = append(all, res[l].got...)
+		errs = append(errs, res[l].err)
 	}
 	out.Sample.T, out.Sample.DtI, out.Sample.DtB, out.Sample.TUnc = stampAll(s.start, all)
 	if err := errors.Join(errs...); err != nil {

@@ -39,7 +39,7 @@
 // a line are commands the bench has not read (the quiet check waits for them) or late replies nobody waits for
 // (ignored: bytes the bench wrote and nobody read do not hold time). Between two sleeps of the engine the instant is
 // fixed, so every command of one setpoint is answered from the physics at that instant, whatever the order in which
-// the four sampler goroutines reach the bench; reads in flight always see one consistent instant. Serial read
+// the sampler's queries reach the bench; reads in flight always see one consistent instant. Serial read
 // timeouts and the engine's per-sample bound stay in real time and are made generous in simulated time
 // (`fixture.SimReadTimeout` 5 s, `engine.SimCommTimeout` 10 s), so load never makes a prompt reply look lost.
 // Consequences to know: all channels of a sample carry the same stamp (`DtI = DtB = TUnc = 0`, the exact instant);

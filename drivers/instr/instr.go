@@ -4,7 +4,9 @@
 //
 // Every method that talks to an instrument takes a context; cancelling it
 // stops the call. Implementations are not required to be safe for concurrent
-// use by several goroutines: the engine owns one goroutine per instrument.
+// use by several goroutines: one goroutine at a time uses an instrument (the
+// engine, or the sampler, which reads several instruments from one goroutine
+// through Overlapped).
 package instr
 
 import (
@@ -113,4 +115,35 @@ type FieldMeter interface {
 type Thermometer interface {
 	Resource
 	ReadTemperature(ctx context.Context) (Reading, error)
+}
+
+// Read names one read of a role, for Overlapped.Begin: the read method of
+// the same name (ReadStatus is Supply.Status, ReadOverload
+// Integrator.Overloaded). The names are the instrument profiles' operation
+// names.
+type Read string
+
+// The reads of the roles.
+const (
+	ReadCurrent     Read = "read_current"
+	ReadVoltage     Read = "read_voltage"
+	ReadStatus      Read = "read_status"
+	ReadFlux        Read = "read_flux"
+	ReadOverload    Read = "read_overload"
+	ReadField       Read = "read_field"
+	ReadTemperature Read = "read_temperature"
+)
+
+// Overlapped is an instrument whose reads can be started ahead, so that one
+// goroutine keeps a query in flight on each of several ports at once
+// (drivers/profile's instruments are). Begin sends the query of read r and
+// returns without waiting for the reply; the next call of r's method then
+// collects that reply instead of asking again, stamped from the moment the
+// query was sent to the moment its reply was complete. Ready reports,
+// waiting at most wait (0: only looking), whether the reply is in or the
+// exchange has failed, so that the read method returns at once. Any other
+// call of the instrument in between abandons the started read.
+type Overlapped interface {
+	Begin(ctx context.Context, r Read) error
+	Ready(ctx context.Context, wait time.Duration) bool
 }

@@ -357,12 +357,47 @@ func (c *Conn) Read(ctx context.Context, p []byte) (int, error) {
 	}
 }
 
+// ReadWithin reads what has arrived into p, waiting at most wait (capped at
+// about 20 ms, so that a cancelled context is seen) for the first byte; wait
+// 0 only looks. Unlike Read, silence is not an error here: (0, nil) means
+// nothing arrived within wait, and Settings.ReadTimeout does not apply (the
+// caller keeps its own deadline). A caller serving several ports from one
+// goroutine uses it to look at each in turn without blocking on one of them.
+// Errors are Read's.
+func (c *Conn) ReadWithin(ctx context.Context, p []byte, wait time.Duration) (int, error) {
+	if len(p) == 0 {
+		return 0, nil
+	}
+	if err := ctx.Err(); err != nil {
+		if errors.Is(err, context.DeadlineExceeded) {
+			return 0, &Error{Op: "read", Port: c.portName(c.Path()), Kind: ErrTimeout, Cause: err}
+		}
+		return 0, err
+	}
+	pt, err := c.current("read")
+	if err != nil {
+		return 0, err
+	}
+	if err := pt.SetReadTimeout(min(max(wait, 0), pollSlice)); err != nil {
+		return 0, c.fail("read", pt, err)
+	}
+	n, err := pt.Read(p)
+	if err != nil {
+		return n, c.fail("read", pt, err)
+	}
+	return n, nil
+}
+
 // Write writes all of p. A failed write (EIO after a hang-up, a closed
 // port) is ErrDisconnected or ErrClosed. A write normally completes at once
-// (the kernel buffers it); one held up, e.g. by RTS/CTS flow control with
-// the instrument off, is abandoned when ctx is done: the port is then closed
-// and the error matches both ErrDisconnected and the context's error, so
-// the next call needs Reconnect.
+// (the kernel buffers it). Only with RTS/CTS flow control can it be held up
+// indefinitely (the instrument off or unplugged at the far end): such a
+// write runs in a goroutine of its own and is abandoned when ctx is done:
+// the port is then closed and the error matches both ErrDisconnected and
+// the context's error, so the next call needs Reconnect. Without flow
+// control the UART drains its buffer at the line's rate whatever the far
+// end does, so the write is made in the caller's goroutine (a command is
+// bounded by its line time).
 func (c *Conn) Write(ctx context.Context, p []byte) (int, error) {
 	if err := ctx.Err(); err != nil {
 		return 0, err
@@ -371,7 +406,7 @@ func (c *Conn) Write(ctx context.Context, p []byte) (int, error) {
 	if err != nil {
 		return 0, err
 	}
-	if ctx.Done() == nil {
+	if ctx.Done() == nil || c.settings.Flow != "rtscts" {
 		return c.writeAll(pt, p)
 	}
 	type result struct {

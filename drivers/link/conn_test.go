@@ -125,6 +125,41 @@ func TestReadTimeoutIsDistinct(t *testing.T) {
 	}
 }
 
+// ReadWithin reports silence as (0, nil), not as a timeout, ignoring the
+// port's own ReadTimeout; a byte already there is read at once with wait 0.
+func TestReadWithinLooks(t *testing.T) {
+	p := openPTY(t)
+	c, err := Open(context.Background(), Address{Path: p.Path}, Settings{Baud: 9600, ReadTimeout: time.Nanosecond}, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	buf := make([]byte, 8)
+	if n, err := c.ReadWithin(context.Background(), buf, 0); n != 0 || err != nil {
+		t.Fatalf("silent line: n=%d err=%v, want 0, nil", n, err)
+	}
+	if n, err := c.ReadWithin(context.Background(), buf, 5*time.Millisecond); n != 0 || err != nil {
+		t.Fatalf("silent line, waiting: n=%d err=%v, want 0, nil", n, err)
+	}
+	p.Master.Write([]byte("x\n"))
+	got := ""
+	for deadline := time.Now().Add(10 * time.Second); len(got) < 2 && time.Now().Before(deadline); {
+		n, err := c.ReadWithin(context.Background(), buf, 20*time.Millisecond)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got += string(buf[:n])
+	}
+	if got != "x\n" {
+		t.Fatalf("read %q", got)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	if _, err := c.ReadWithin(ctx, buf, 0); !errors.Is(err, context.Canceled) {
+		t.Fatalf("cancelled: %v", err)
+	}
+}
+
 func TestContextDeadlineIsTimeout(t *testing.T) {
 	p := openPTY(t)
 	c, err := Open(context.Background(), Address{Path: p.Path}, Settings{Baud: 9600}, Options{})
@@ -291,7 +326,9 @@ func (s *stuckPort) Write(p []byte) (int, error) {
 func TestCancelStopsStuckWrite(t *testing.T) {
 	sp := &stuckPort{entered: make(chan struct{}, 1), release: make(chan struct{})}
 	defer close(sp.release)
-	c, err := Open(context.Background(), Address{Path: "/dev/ttyFAKE"}, lineSettings,
+	flow := lineSettings
+	flow.Flow = "rtscts" // only flow control holds a write up (see Write)
+	c, err := Open(context.Background(), Address{Path: "/dev/ttyFAKE"}, flow,
 		Options{open: func(string, Settings) (port, error) { return sp, nil }})
 	if err != nil {
 		t.Fatal(err)

@@ -523,6 +523,28 @@ func (d *Device) query(ctx context.Context, name string) (Operation, scpi.Reply,
 	return o, r, nil
 }
 
+// Begin sends the query of read r without waiting for its reply (see
+// instr.Overlapped): the next call of r's method collects the reply.
+func (d *Device) Begin(ctx context.Context, r instr.Read) error {
+	if err := d.ready(ctx); err != nil {
+		return err
+	}
+	o, err := d.op(string(r))
+	if err != nil {
+		return err
+	}
+	if err := d.c.Ask(ctx, o.Query); err != nil {
+		return d.fail(ctx, string(r), o.Query, err)
+	}
+	return nil
+}
+
+// Ready reports whether the reply of the read started by Begin is in (or
+// its exchange failed), waiting at most wait.
+func (d *Device) Ready(ctx context.Context, wait time.Duration) bool {
+	return d.c.Await(ctx, wait)
+}
+
 // read performs a numeric query and returns the reading in SI.
 func (d *Device) read(ctx context.Context, name string) (instr.Reading, error) {
 	o, r, err := d.query(ctx, name)

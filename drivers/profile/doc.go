@@ -80,8 +80,13 @@
 //	s, err := sampler.NewWith(sampler.Roles{Supply: sup, Integrator: integ}, runStart, sampler.Options{Status: true})
 //	rd, err := s.ReadAll(ctx) // rd.Sample: I, V, Psi, BProbe, TempC (NaN when absent), T, DtI, DtB, TUnc; rd.Status, rd.Overload
 //
-// `acq/sampler` is the one concurrent reader: the engine samples through it (one goroutine per instrument,
-// started once per run). A reply that times out on a live line is read again (`sampler.Retry`, counted with
+// `acq/sampler` is the one concurrent reader: the engine samples through it. Profile instruments
+// (`instr.Overlapped`: a read can be started ahead, `scpi.Client.Ask`/`Await`) are read in an overlapped round in
+// the caller's goroutine: every line's first query is written before any reply is read, a line's next query goes out
+// when its reply is in (one query per instrument at a time), and a line is looked at without blocking
+// (`link.Conn.ReadWithin`); no goroutine, channel or timer per read, and writes get a goroutine only with RTS/CTS flow
+// control. go.bug.st/serial hides the descriptor, so Go's runtime poller cannot watch the ports. Other roles (test
+// fakes) get one goroutine each. A reply that times out on a live line is read again (`sampler.Retry`, counted with
 // `sampler.WithRetryCounter`) until the caller's context ends; a hang-up is returned at once as a
 // `*sampler.RoleError` naming the role.
 //

@@ -33,6 +33,11 @@ var (
 	_ instr.Integrator  = (*Integrator)(nil)
 	_ instr.FieldMeter  = (*FieldMeter)(nil)
 	_ instr.Thermometer = (*Thermometer)(nil)
+
+	_ instr.Overlapped = (*Supply)(nil)
+	_ instr.Overlapped = (*Integrator)(nil)
+	_ instr.Overlapped = (*FieldMeter)(nil)
+	_ instr.Overlapped = (*Thermometer)(nil)
 )
 
 func attach(ctx context.Context, role string, p Profile, port Port, o Options) (*Device, error) {

@@ -1,5 +1,7 @@
 package profile
 
+import "hystd/drivers/instr"
+
 // Profile is one instrument profile as loaded from YAML.
 type Profile struct {
 	Kind        string `yaml:"kind"` // always "instrument-profile"
@@ -130,22 +132,22 @@ type Accuracy struct {
 	Offset float64 `yaml:"offset"` // SI unit
 }
 
-// Operation names, per role.
+// Operation names, per role (the reads are named in drivers/instr).
 const (
 	// supply
 	OpSetCurrent  = "set_current"
-	OpReadCurrent = "read_current"
-	OpReadVoltage = "read_voltage"
+	OpReadCurrent = string(instr.ReadCurrent)
+	OpReadVoltage = string(instr.ReadVoltage)
 	OpSetOutput   = "set_output"
-	OpReadStatus  = "read_status" // parse: int with bits compliance, overtemp, trip, output
+	OpReadStatus  = string(instr.ReadStatus) // parse: int with bits compliance, overtemp, trip, output
 	// integrator
 	OpReset        = "reset"
 	OpSetRange     = "set_range"
-	OpReadFlux     = "read_flux"
-	OpReadOverload = "read_overload"
+	OpReadFlux     = string(instr.ReadFlux)
+	OpReadOverload = string(instr.ReadOverload)
 	// field meter
-	OpReadField = "read_field"
+	OpReadField = string(instr.ReadField)
 	OpZero      = "zero"
 	// thermometer
-	OpReadTemperature = "read_temperature"
+	OpReadTemperature = string(instr.ReadTemperature)
 )

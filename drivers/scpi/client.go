@@ -77,6 +77,25 @@ type Client struct {
 	buf   []byte // bytes read beyond the last reply
 	stale bool   // an exchange broke off: a late reply may still arrive
 	rbuf  []byte
+	asked *asked // a query sent by Ask whose reply QueryTimed has not returned
+}
+
+// Poller is a Stream that can also look for input without blocking:
+// ReadWithin reads what has arrived, waiting at most wait for the first
+// byte, and returns (0, nil) when nothing came. *link.Conn is one.
+type Poller interface {
+	ReadWithin(ctx context.Context, p []byte, wait time.Duration) (int, error)
+}
+
+// asked is a query on its way: sent by Ask, its reply collected by Await
+// or QueryTimed.
+type asked struct {
+	cmd      string
+	sent     time.Time // Options.Now when the query was sent
+	deadline time.Time // the reply is late after this (machine clock); zero: no Timeout
+	done     bool      // reply or err is final
+	reply    Reply
+	err      error
 }
 
 // New returns a Client on s.
@@ -159,28 +178,108 @@ func (c *Client) Query(ctx context.Context, cmd string) (string, error) {
 }
 
 // QueryTimed sends a query and returns its reply with the send and
-// receive times (monotonic clock).
+// receive times (monotonic clock). When Ask sent the same query last, its
+// reply is collected instead (no second query), stamped from Ask's send.
 func (c *Client) QueryTimed(ctx context.Context, cmd string) (Reply, error) {
-	if err := c.resync(ctx); err != nil {
-		return Reply{}, err
+	if c.asked == nil || c.asked.cmd != cmd {
+		if err := c.Ask(ctx, cmd); err != nil {
+			return Reply{}, err
+		}
 	}
-	sent := c.o.Now()
+	a := c.asked
+	c.asked = nil
+	if !a.done {
+		rctx, cancel := ctx, context.CancelFunc(func() {})
+		if !a.deadline.IsZero() {
+			rctx, cancel = context.WithDeadline(ctx, a.deadline)
+		}
+		line, err := c.readLine(rctx)
+		cancel()
+		c.answered(a, line, c.asTimeout(ctx, err))
+	}
+	return a.reply, a.err
+}
+
+// Ask sends a query without waiting for its reply, so that one goroutine
+// can have queries on several lines at once; Await tells when the reply is
+// in and QueryTimed (with the same query) returns it. Its Timeout counts
+// from the send. Any other exchange before that abandons the query (the
+// line is then resynchronised: its reply may still come).
+func (c *Client) Ask(ctx context.Context, cmd string) error {
+	if err := c.resync(ctx); err != nil {
+		return err
+	}
+	a := &asked{cmd: cmd, sent: c.o.Now()}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
 		c.stale = true
 		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "err", err)
-		return Reply{}, fmt.Errorf("scpi %q: %w", cmd, err)
+		return fmt.Errorf("scpi %q: %w", cmd, err)
 	}
-	rctx, cancel := c.replyCtx(ctx)
-	line, err := c.readLine(rctx)
-	cancel()
-	err = c.asTimeout(ctx, err)
-	got := c.o.Now()
+	if c.o.Timeout > 0 {
+		a.deadline = time.Now().Add(c.o.Timeout)
+	}
+	c.asked = a
+	return nil
+}
+
+// Await reports whether the reply to the query of Ask is in, or its
+// exchange has failed (late past Timeout, the line lost, ctx done), so that
+// QueryTimed returns without waiting; it waits at most wait for input
+// (0: only looks), and stamps the reply when its terminator arrives. As in
+// QueryTimed, nothing is read once the Timeout has passed: a reply not
+// read by then is late, even if its bytes wait in the port's buffer (the
+// resync discards them). On a Stream that is not a Poller it waits for the
+// reply. Without a query asked it returns true.
+func (c *Client) Await(ctx context.Context, wait time.Duration) bool {
+	a := c.asked
+	if a == nil || a.done {
+		return true
+	}
+	p, ok := c.s.(Poller)
+	if !ok {
+		_, _ = c.QueryTimed(ctx, a.cmd) // collects; keep it for the caller's QueryTimed
+		c.asked = a
+		return true
+	}
+	end := time.Now().Add(wait)
+	for {
+		line, ok, err := c.takeLine()
+		if ok || err != nil {
+			c.answered(a, line, err)
+			return true
+		}
+		if !a.deadline.IsZero() && !time.Now().Before(a.deadline) {
+			c.stale = true
+			c.answered(a, string(c.buf), &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout,
+				Cause: fmt.Errorf("no complete reply within %v", c.o.Timeout)})
+			return true
+		}
+		left := time.Until(end)
+		if !a.deadline.IsZero() {
+			left = min(left, time.Until(a.deadline))
+		}
+		n, err := p.ReadWithin(ctx, c.rbuf, max(left, 0))
+		if err = c.took(n, err); err != nil {
+			c.answered(a, string(c.buf), c.asTimeout(ctx, err))
+			return true
+		}
+		if n == 0 && !time.Now().Before(end) {
+			return false
+		}
+	}
+}
+
+// answered settles an asked query with its reply line or error.
+func (c *Client) answered(a *asked, line string, err error) {
+	a.done = true
 	if err != nil {
-		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "partial", string(line), "err", err)
-		return Reply{}, fmt.Errorf("scpi %q: %w", cmd, err)
+		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", a.cmd, "partial", line, "err", err)
+		a.err = fmt.Errorf("scpi %q: %w", a.cmd, err)
+		return
 	}
-	c.o.Log.Debug("scpi query", "instr", c.o.Name, "cmd", cmd, "reply", line, "rtt", got.Sub(sent))
-	return Reply{Text: line, Sent: sent, Received: got}, nil
+	got := c.o.Now()
+	c.o.Log.Debug("scpi query", "instr", c.o.Name, "cmd", a.cmd, "reply", line, "rtt", got.Sub(a.sent))
+	a.reply = Reply{Text: line, Sent: a.sent, Received: got}
 }
 
 // QueryNumber sends a query and parses the reply with ParseNumber.
@@ -375,22 +474,14 @@ func (c *Client) queryInt(ctx context.Context, cmd string) (int, error) {
 func (c *Client) Forget() {
 	c.buf = c.buf[:0]
 	c.stale = false
+	c.asked = nil
 }
 
 // readLine returns the next reply line without its terminator.
 func (c *Client) readLine(ctx context.Context) (string, error) {
-	term := []byte(c.o.ReadTerm)
 	for {
-		if i := bytes.Index(c.buf, term); i >= 0 {
-			line := string(c.buf[:i])
-			c.buf = append(c.buf[:0], c.buf[i+len(term):]...)
-			return line, nil
-		}
-		if len(c.buf) > c.o.MaxReply {
-			partial := string(c.buf[:80])
-			c.buf = c.buf[:0]
-			c.stale = true
-			return partial, fmt.Errorf("reply longer than %d bytes without terminator %q", c.o.MaxReply, c.o.ReadTerm)
+		if line, ok, err := c.takeLine(); ok || err != nil {
+			return line, err
 		}
 		if err := c.fill(ctx); err != nil {
 			return string(c.buf), err
@@ -398,9 +489,30 @@ func (c *Client) readLine(ctx context.Context) (string, error) {
 	}
 }
 
+// takeLine takes a complete reply line off the buffer (ok false: none yet).
+func (c *Client) takeLine() (line string, ok bool, err error) {
+	term := []byte(c.o.ReadTerm)
+	if i := bytes.Index(c.buf, term); i >= 0 {
+		line := string(c.buf[:i])
+		c.buf = append(c.buf[:0], c.buf[i+len(term):]...)
+		return line, true, nil
+	}
+	if len(c.buf) > c.o.MaxReply {
+		partial := string(c.buf[:80])
+		c.buf = c.buf[:0]
+		c.stale = true
+		return partial, false, fmt.Errorf("reply longer than %d bytes without terminator %q", c.o.MaxReply, c.o.ReadTerm)
+	}
+	return "", false, nil
+}
+
 // fill reads once more into the buffer.
 func (c *Client) fill(ctx context.Context) error {
-	n, err := c.s.Read(ctx, c.rbuf)
+	return c.took(c.s.Read(ctx, c.rbuf))
+}
+
+// took keeps n bytes read into rbuf; a read error marks the line stale.
+func (c *Client) took(n int, err error) error {
 	c.buf = append(c.buf, c.rbuf[:n]...)
 	if err != nil {
 		c.stale = true
@@ -484,6 +596,12 @@ func (c *Client) drain(ctx context.Context) (int, error) {
 // stays stale and the error matches link.ErrTimeout (or the transport's
 // error).
 func (c *Client) resync(ctx context.Context) error {
+	if a := c.asked; a != nil { // abandoned: its reply may still come
+		c.asked = nil
+		if !a.done {
+			c.stale = true
+		}
+	}
 	if !c.stale {
 		return nil
 	}
