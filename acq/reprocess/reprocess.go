@@ -374,3 +374,71 @@ func flatten(v any) map[string]string {
 	walk("", m)
 	return out
 }
+
+// ParseChange reads the YAML documents of a re-process request (the API's
+// body): at most one `kind: specimen` and one `kind: fixture`, separated by
+// "---" lines. Errors name the request and the document's line.
+func ParseChange(name string, body []byte) (*config.Fixture, *config.Specimen, error) {
+	var fx *config.Fixture
+	var sp *config.Specimen
+	for _, part := range splitDocs(string(body)) {
+		text := part.text
+		if strings.TrimSpace(text) == "" {
+			continue
+		}
+		// Pad with blank lines so that errors give the line in the body.
+		padded := []byte(strings.Repeat("\n", part.line-1) + text)
+		doc, err := configs.Parse(name, padded)
+		if err != nil {
+			return nil, nil, badErr(err)
+		}
+		switch k := doc.Kind(); k {
+		case "specimen":
+			if sp != nil {
+				return nil, nil, bad("%s:%d: a second specimen document", name, part.line)
+			}
+			s, err := config.SpecimenFrom(doc)
+			if err != nil {
+				return nil, nil, badErr(err)
+			}
+			sp = &s
+		case "fixture":
+			if fx != nil {
+				return nil, nil, bad("%s:%d: a second fixture document", name, part.line)
+			}
+			f, err := config.FixtureFrom(doc)
+			if err != nil {
+				return nil, nil, badErr(err)
+			}
+			fx = &f
+		default:
+			return nil, nil, bad("%s:%d: kind %q: want a specimen or a fixture document", name, part.line, k)
+		}
+	}
+	if fx == nil && sp == nil {
+		return nil, nil, bad("%s: no specimen or fixture document", name)
+	}
+	return fx, sp, nil
+}
+
+type docPart struct {
+	text string
+	line int // 1-based line of its first line in the whole text
+}
+
+// splitDocs cuts YAML text at lines that are exactly "---".
+func splitDocs(s string) []docPart {
+	var out []docPart
+	lines := strings.SplitAfter(s, "\n")
+	start, cur := 1, strings.Builder{}
+	for i, l := range lines {
+		if strings.TrimRight(l, "\r\n") == "---" {
+			out = append(out, docPart{cur.String(), start})
+			cur.Reset()
+			start = i + 2
+			continue
+		}
+		cur.WriteString(l)
+	}
+	return append(out, docPart{cur.String(), start})
+}
