@@ -46,7 +46,7 @@ func newExportCmd() *cobra.Command {
 			"        --quadrant 2 shows the demagnetization curve (H ≤ 0, B ≥ 0) with B, J and (BH)max;\n" +
 			"        the same choices as the API's plot query (?y=&units=&quadrant=)\n" +
 			"A re-processed run (hystd reprocess) is exported at its latest revision; --revision N picks another.\n" +
-				"The store is only read. With -o the file appears only when the export succeeded.",
+			"The store is only read. With -o the file appears only when the export succeeded.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			f, err := export.ParseFormat(format)
