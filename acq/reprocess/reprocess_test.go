@@ -10,10 +10,15 @@ import (
 	"testing"
 	"time"
 
+	"go.yaml.in/yaml/v3"
+
 	"hystd/acq/config"
+	"hystd/acq/fixture"
+	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/reprocess"
 	"hystd/acq/store"
+	"hystd/acq/store/memstore"
 	"hystd/acq/store/storetest"
 	"hystd/calib/units"
 )
@@ -215,5 +220,137 @@ func TestRefusals(t *testing.T) {
 	}
 	if revs, _ := s.Revisions(ctx, run.ID); len(revs) != 1 {
 		t.Fatalf("%d revisions after refusals", len(revs))
+	}
+}
+
+// liveRun stores, in a memstore, a run as the engine records it (config
+// snapshot "# fixture", "# specimen", "# recipe"; loop processed by the
+// live processor, fixture.Offline — the one the daemon builds over opened
+// instruments, here with the shipped simulated profiles) from raw samples of
+// the exact tanh loop with a constant integrator offset, on the import
+// tests' fixture (N1 100, N2 50) and the direct specimen (l 100 mm, A 50 mm²).
+func liveRun(t *testing.T) (*memstore.Store, record.Run, config.Fixture) {
+	t.Helper()
+	ctx := context.Background()
+	fx, err := config.LoadFixture(v4Source + "fixture-import.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	sp, err := config.LoadSpecimen(v4Source + "specimen-direct.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	proc, _, err := fixture.Offline(fx, sp)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var raw []record.Sample
+	k := 0
+	row := func(h float64, dir int, ph record.Phase) {
+		tt := float64(k) * 0.005
+		k++
+		b := bs * math.Tanh((h-float64(dir)*hc)/aa)
+		raw = append(raw, record.Sample{T: time.Duration(tt * float64(time.Second)), Phase: ph, Setpoint: h * 0.1 / 100,
+			I: h * 0.1 / 100, V: math.NaN(), Psi: 3e-4 + 50*50e-6*b + 20e-6*tt, BProbe: math.NaN(), TempC: math.NaN()})
+	}
+	for range 40 {
+		row(0, -1, record.PreHold)
+	}
+	seg := func(from, to float64, dir int) {
+		for j := 1; j <= 200*int(math.Abs(to-from)/hm); j++ {
+			row(from+(to-from)*float64(j)/(200*math.Abs(to-from)/hm), dir, record.Sweep)
+		}
+	}
+	seg(0, -hm, -1)
+	seg(-hm, hm, 1)
+	seg(hm, -hm, -1)
+	seg(-hm, 0, 1)
+	for range 40 {
+		row(0, 1, record.PostHold)
+	}
+	pr, err := proc(raw, recipe.LoopInfo{Kind: "loop", Amplitude: 1, AmpUnit: "A"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var cfg strings.Builder
+	cfg.WriteString("# fixture\n")
+	y, _ := yaml.Marshal(fx)
+	cfg.Write(y)
+	cfg.WriteString("---\n# specimen\n")
+	y, _ = yaml.Marshal(sp)
+	cfg.Write(y)
+	cfg.WriteString("---\n# recipe r.yaml\nkind: recipe\nname: r\n")
+	st := memstore.New(func() time.Time { return now })
+	run := record.Run{ID: "live-1", Recipe: "r", Fixture: fx.Name, Specimen: sp.ID, Material: sp.Material, Operator: "bay 3",
+		Config: cfg.String(), State: record.Queued, Queued: now}
+	for _, err := range []error{
+		st.CreateRun(ctx, run), st.SetState(ctx, run.ID, record.Running, "", now),
+		st.AddLoop(ctx, record.Loop{RunID: run.ID, N: 1, Kind: "loop", Amplitude: 1, AmpUnit: "A", Started: now, Raw: raw,
+			Points: pr.Points, Figures: append(pr.Figures, record.Figure{Name: "drive_amplitude", Value: 1, Unit: "A"}), Corrections: pr.Corrections}),
+		st.SetState(ctx, run.ID, record.Finished, "", now),
+	} {
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	run, _ = st.Run(ctx, run.ID)
+	return st, run, fx
+}
+
+// TestLiveRunTwiceTheArea: a live run is re-processed through the live
+// processor (its profiles' accuracies in the budget, as when it ran): with
+// twice the area its B-figures halve exactly, H-figures stay, and what the
+// engine found while driving (drive_amplitude) is kept. A fixture with
+// twice the search-coil turns N2 does the same (B = ψ/(N2·A)) and is
+// recorded as a fixture change.
+func TestLiveRunTwiceTheArea(t *testing.T) {
+	ctx := context.Background()
+	for _, c := range []struct {
+		name, change string
+		opt          func(fx config.Fixture) reprocess.Options
+	}{
+		{"area", "specimen.direct.area_mm2: 50 → 100", func(config.Fixture) reprocess.Options {
+			return reprocess.Options{Specimen: doubled(t, "specimen-direct.yaml")}
+		}},
+		{"turns", "fixture.winding.n2: 50 → 100", func(fx config.Fixture) reprocess.Options {
+			fx.Winding.N2 *= 2
+			return reprocess.Options{Fixture: &fx}
+		}},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			st, run, fx := liveRun(t)
+			o := c.opt(fx)
+			o.RunID, o.By, o.Now = run.ID, "alba", now
+			res, err := reprocess.Run(ctx, st, o)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if res.Revision.Change != c.change {
+				t.Fatalf("change %q, want %q", res.Revision.Change, c.change)
+			}
+			l1, _ := st.LoopOf(ctx, run.ID, 1, 1)
+			l2, _ := st.LoopOf(ctx, run.ID, 1, 2)
+			f1, f2 := map[string]record.Figure{}, map[string]record.Figure{}
+			for _, f := range l1.Figures {
+				f1[f.Name] = f
+			}
+			for _, f := range l2.Figures {
+				f2[f.Name] = f
+			}
+			for _, n := range []string{"Bmax", "Br", "mu_a", "loss_j_m3"} {
+				if f2[n].Value != f1[n].Value/2 || f1[n].Value == 0 {
+					t.Errorf("%s: %v, want half of %v", n, f2[n].Value, f1[n].Value)
+				}
+			}
+			for _, n := range []string{"Hmax", "HcB", "drive_amplitude"} {
+				if f2[n].Value != f1[n].Value || f1[n].Unit == "" {
+					t.Errorf("%s: %v, want %v unchanged", n, f2[n].Value, f1[n].Value)
+				}
+			}
+			// The budget still holds the profiles' instrument sources.
+			if !strings.Contains(f2["Br"].Note, "integrator gain") {
+				t.Errorf("Br budget without the integrator's accuracy: %q", f2["Br"].Note)
+			}
+		})
 	}
 }
