@@ -192,6 +192,7 @@ func (s *server) routes() {
 	write("/api/v1/runs", s.submit)
 	write("/api/v1/runs/{id}/abort", s.abort)
 	write("/api/v1/runs/{id}/mount", s.confirmMount)
+	write("/api/v1/runs/{id}/reprocess", s.reprocess)
 	read("/api/v1/mounts", s.listMounts)
 	read("/api/v1/specimens", s.listSpecimens)
 	read("/api/v1/runs/{id}/report", s.report)

@@ -107,6 +107,29 @@ func (m *memReader) Loop(ctx context.Context, id string, n int) (record.Loop, er
 	return record.Loop{}, fmt.Errorf("run %q loop %d: %w", id, n, record.ErrNotFound)
 }
 
+// The fake keeps one revision per run (re-processing is tested on memstore).
+func (m *memReader) Revisions(ctx context.Context, id string) ([]record.Revision, error) {
+	r, err := m.Run(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	return []record.Revision{record.FirstRevision(r)}, nil
+}
+
+func (m *memReader) LoopsOf(ctx context.Context, id string, rev int) ([]record.Loop, error) {
+	if rev > 1 {
+		return nil, fmt.Errorf("run %q revision %d: %w", id, rev, record.ErrNotFound)
+	}
+	return m.Loops(ctx, id)
+}
+
+func (m *memReader) LoopOf(ctx context.Context, id string, n, rev int) (record.Loop, error) {
+	if rev > 1 {
+		return record.Loop{}, fmt.Errorf("run %q revision %d: %w", id, rev, record.ErrNotFound)
+	}
+	return m.Loop(ctx, id, n)
+}
+
 func (m *memReader) Events(ctx context.Context, id string) ([]record.Event, error) {
 	m.mu.Lock()
 	defer m.mu.Unlock()

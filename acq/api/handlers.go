@@ -150,14 +150,52 @@ func (s *server) listRuns(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, map[string]any{"runs": out})
 }
 
+// revisionParam reads ?revision=N (N ≥ 1; absent: 0, the latest).
+func revisionParam(w http.ResponseWriter, r *http.Request) (int, bool) {
+	v := r.URL.Query().Get("revision")
+	if v == "" {
+		return 0, true
+	}
+	n, err := strconv.Atoi(v)
+	if err != nil || n < 1 {
+		writeError(w, http.StatusBadRequest, "revision: %q: want a whole number from 1", v)
+		return 0, false
+	}
+	return n, true
+}
+
+// runAt returns run id as revision rev (0: the latest) shows it, with the
+// list of its revisions.
+func (s *server) runAt(r *http.Request, id string, rev int) (record.Run, []record.Revision, int, error) {
+	run, err := s.o.Reader.Run(r.Context(), id)
+	if err != nil {
+		return record.Run{}, nil, 0, err
+	}
+	revs, err := s.o.Reader.Revisions(r.Context(), id)
+	if err != nil {
+		return record.Run{}, nil, 0, err
+	}
+	if rev == 0 {
+		rev = len(revs)
+	}
+	if rev > len(revs) {
+		return record.Run{}, nil, 0, fmt.Errorf("run %s revision %d (it has %d): %w", id, rev, len(revs), record.ErrNotFound)
+	}
+	return run.At(revs[rev-1]), revs, rev, nil
+}
+
 func (s *server) getRun(w http.ResponseWriter, r *http.Request) {
 	id := r.PathValue("id")
-	run, err := s.o.Reader.Run(r.Context(), id)
+	rev, ok := revisionParam(w, r)
+	if !ok {
+		return
+	}
+	run, revs, rev, err := s.runAt(r, id, rev)
 	if err != nil {
 		s.fail(w, r, err)
 		return
 	}
-	loops, err := s.o.Reader.Loops(r.Context(), id)
+	loops, err := s.o.Reader.LoopsOf(r.Context(), id, rev)
 	if err != nil {
 		s.fail(w, r, err)
 		return
@@ -185,7 +223,9 @@ func (s *server) getRun(w http.ResponseWriter, r *http.Request) {
 		}
 		lj = append(lj, j)
 	}
-	writeJSON(w, http.StatusOK, map[string]any{"run": toRun(run, true), "loops": lj, "events": ej, "flags": flags})
+	rj := toRun(run, true)
+	rj.Revision, rj.Revisions = rev, toRevisions(revs)
+	writeJSON(w, http.StatusOK, map[string]any{"run": rj, "loops": lj, "events": ej, "flags": flags})
 }
 
 func (s *server) getLoop(w http.ResponseWriter, r *http.Request) {
@@ -211,7 +251,11 @@ func (s *server) getLoop(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	l, err := s.o.Reader.Loop(r.Context(), id, n)
+	rev, ok := revisionParam(w, r)
+	if !ok {
+		return
+	}
+	l, err := s.o.Reader.LoopOf(r.Context(), id, n, rev)
 	if err != nil {
 		s.fail(w, r, err)
 		return

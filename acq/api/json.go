@@ -77,12 +77,38 @@ type runJSON struct {
 	// Verdict is the worst verdict over the run's loops (fail, undecided,
 	// pass); "" when none was judged. Filled in the runs list.
 	Verdict string `json:"verdict,omitempty"`
+	// Revision is the run's latest revision (1: never re-processed); in
+	// GET /runs/{id} the revision shown, with every revision listed.
+	Revision  int            `json:"revision"`
+	Revisions []revisionJSON `json:"revisions,omitempty"`
+}
+
+// revisionJSON is one processing of a run's raw samples (record.Revision).
+type revisionJSON struct {
+	N          int    `json:"n"`
+	At         stamp  `json:"at"`
+	By         string `json:"by"`
+	Change     string `json:"change"`
+	Fixture    string `json:"fixture"`
+	Specimen   string `json:"specimen"`
+	Material   string `json:"material"`
+	Grade      string `json:"grade,omitempty"`
+	ConfigHash string `json:"config_hash"`
+}
+
+func toRevisions(vs []record.Revision) []revisionJSON {
+	out := make([]revisionJSON, 0, len(vs))
+	for _, v := range vs {
+		out = append(out, revisionJSON{v.N, stamp(v.At), v.By, v.Change, v.Fixture, v.Specimen, v.Material, v.Grade, v.ConfigHash})
+	}
+	return out
 }
 
 func toRun(r record.Run, full bool) runJSON {
 	j := runJSON{ID: r.ID, Recipe: r.Recipe, Fixture: r.Fixture, Specimen: r.Specimen, Material: r.Material,
 		State: r.State, Reason: r.Reason, Software: r.Software, ConfigHash: r.ConfigHash,
-		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended), Grade: r.Grade, Operator: r.Operator}
+		Queued: stamp(r.Queued), Started: stamp(r.Started), Ended: stamp(r.Ended), Grade: r.Grade, Operator: r.Operator,
+		Revision: max(r.Revision, 1)}
 	if full {
 		j.RecipeText, j.Config = r.RecipeText, r.Config
 	}

@@ -28,9 +28,9 @@ func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
 	q := r.URL.Query()
 	for k := range q {
 		switch k {
-		case "format", "y", "units", "quadrant", "width", "height":
+		case "format", "y", "units", "quadrant", "width", "height", "revision":
 		default:
-			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: format, y, units, quadrant, width, height)", k)
+			writeError(w, http.StatusBadRequest, "unknown query parameter %q (known: format, y, units, quadrant, width, height, revision)", k)
 			return
 		}
 	}
@@ -67,17 +67,24 @@ func (s *server) plotLoop(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	id := r.PathValue("id")
-	run, err := s.o.Reader.Run(r.Context(), id)
+	rev, ok := revisionParam(w, r)
+	if !ok {
+		return
+	}
+	run, revs, rev, err := s.runAt(r, id, rev)
 	if err != nil {
 		s.fail(w, r, err)
 		return
 	}
-	l, err := s.o.Reader.Loop(r.Context(), id, n)
+	l, err := s.o.Reader.LoopOf(r.Context(), id, n, rev)
 	if err != nil {
 		s.fail(w, r, err)
 		return
 	}
 	o.Title = fmt.Sprintf("%s loop %d — %s, %s", run.ID, l.N, run.Specimen, run.Material)
+	if len(revs) > 1 {
+		o.Title += fmt.Sprintf(" (revision %d)", rev)
+	}
 	o.Labels = []string{fmt.Sprintf("%s #%d", run.Specimen, l.N)}
 	// At most MaxRenders drawings at once; a request waits for its turn
 	// until its own timeout, then gets 503.

@@ -63,6 +63,9 @@ type Options struct {
 	AllSamples bool
 	// Plot passes drawing options to SVG and PNG.
 	Plot plot.Options
+	// Revision exports that revision of the run (0: the latest). The run
+	// is shown with that revision's fixture, specimen and config.
+	Revision int
 }
 
 // Write exports run id from rd to w in format f. Errors name the run, the
@@ -75,11 +78,26 @@ func Write(ctx context.Context, w io.Writer, rd record.Reader, id string, f Form
 	if o.Loop < 0 {
 		return fmt.Errorf("loop %d: loops are numbered from 1", o.Loop)
 	}
+	if o.Revision < 0 {
+		return fmt.Errorf("revision %d: revisions are numbered from 1", o.Revision)
+	}
 	r, err := rd.Run(ctx, id)
 	if err != nil {
 		return err
 	}
-	loops, err := load(ctx, rd, r.ID, o.Loop)
+	revs, err := rd.Revisions(ctx, r.ID)
+	if err != nil {
+		return err
+	}
+	rev := o.Revision
+	if rev == 0 {
+		rev = len(revs)
+	}
+	if rev > len(revs) {
+		return fmt.Errorf("run %s revision %d (it has %d): %w", r.ID, rev, len(revs), record.ErrNotFound)
+	}
+	r = r.At(revs[rev-1])
+	loops, err := load(ctx, rd, r.ID, o.Loop, rev)
 	if err != nil {
 		return err
 	}
@@ -91,7 +109,7 @@ func Write(ctx context.Context, w io.Writer, rd record.Reader, id string, f Form
 		if evs, err = rd.Events(ctx, r.ID); err != nil {
 			return err
 		}
-		return writeJSON(w, r, loops, evs)
+		return writeJSON(w, r, rev, revs, loops, evs)
 	case LP:
 		bw := bufio.NewWriter(w)
 		for _, l := range loops {
@@ -104,6 +122,9 @@ func Write(ctx context.Context, w io.Writer, rd record.Reader, id string, f Form
 		po := o.Plot
 		if po.Title == "" {
 			po.Title = fmt.Sprintf("%s · %s · %s", r.ID, r.Specimen, r.Fixture)
+			if len(revs) > 1 {
+				po.Title += fmt.Sprintf(" · revision %d", rev)
+			}
 		}
 		if f == SVG {
 			err = plot.SVG(w, loops, po)
@@ -118,22 +139,22 @@ func Write(ctx context.Context, w io.Writer, rd record.Reader, id string, f Form
 	return nil
 }
 
-// load reads loop n, or every loop of the run with its samples.
-func load(ctx context.Context, rd record.Reader, id string, n int) ([]record.Loop, error) {
+// load reads loop n, or every loop of revision rev of the run with its samples.
+func load(ctx context.Context, rd record.Reader, id string, n, rev int) ([]record.Loop, error) {
 	if n > 0 {
-		l, err := rd.Loop(ctx, id, n)
+		l, err := rd.LoopOf(ctx, id, n, rev)
 		if err != nil {
 			return nil, err
 		}
 		return []record.Loop{l}, nil
 	}
-	sum, err := rd.Loops(ctx, id)
+	sum, err := rd.LoopsOf(ctx, id, rev)
 	if err != nil {
 		return nil, err
 	}
 	out := make([]record.Loop, 0, len(sum))
 	for _, s := range sum {
-		l, err := rd.Loop(ctx, id, s.N)
+		l, err := rd.LoopOf(ctx, id, s.N, rev)
 		if err != nil {
 			return nil, err
 		}

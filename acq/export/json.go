@@ -52,6 +52,21 @@ type jsonRun struct {
 	Queued     jsonTime `json:"queued"`
 	Started    jsonTime `json:"started"`
 	Ended      jsonTime `json:"ended"`
+	// Revision is the revision exported (fixture, specimen and config are
+	// its own); Revisions lists every revision of a re-processed run
+	// (absent for a run with one).
+	Revision  int            `json:"revision"`
+	Revisions []jsonRevision `json:"revisions,omitempty"`
+}
+
+type jsonRevision struct {
+	N          int      `json:"n"`
+	At         jsonTime `json:"at"`
+	By         string   `json:"by"`
+	Change     string   `json:"change"`
+	Fixture    string   `json:"fixture"`
+	Specimen   string   `json:"specimen"`
+	ConfigHash string   `json:"config_sha256"`
 }
 
 type jsonLoop struct {
@@ -109,11 +124,12 @@ type jsonEvent struct {
 	Text  string   `json:"text"`
 }
 
-func writeJSON(w io.Writer, r record.Run, loops []record.Loop, evs []record.Event) error {
+func writeJSON(w io.Writer, r record.Run, rev int, revs []record.Revision, loops []record.Loop, evs []record.Event) error {
 	d := jsonDoc{
 		Run: jsonRun{ID: r.ID, Recipe: r.Recipe, RecipeText: r.RecipeText, Fixture: r.Fixture, Specimen: r.Specimen,
 			Material: r.Material, Config: r.Config, ConfigHash: r.ConfigHash, Software: r.Software, State: string(r.State),
-			Reason: r.Reason, Queued: jsonTime(r.Queued), Started: jsonTime(r.Started), Ended: jsonTime(r.Ended)},
+			Reason: r.Reason, Queued: jsonTime(r.Queued), Started: jsonTime(r.Started), Ended: jsonTime(r.Ended),
+			Revision: rev},
 		Loops:  make([]jsonLoop, 0, len(loops)),
 		Events: make([]jsonEvent, 0, len(evs)),
 	}
@@ -135,6 +151,11 @@ func writeJSON(w io.Writer, r record.Run, loops []record.Loop, evs []record.Even
 			jl.Points = append(jl.Points, jsonPoint{num(p.T.Seconds()), num(p.H), num(p.B), num(p.J), p.Branch})
 		}
 		d.Loops = append(d.Loops, jl)
+	}
+	if len(revs) > 1 {
+		for _, v := range revs {
+			d.Run.Revisions = append(d.Run.Revisions, jsonRevision{v.N, jsonTime(v.At), v.By, v.Change, v.Fixture, v.Specimen, v.ConfigHash})
+		}
 	}
 	for _, e := range evs {
 		d.Events = append(d.Events, jsonEvent{jsonTime(e.At), e.Level, e.Text})

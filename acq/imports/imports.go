@@ -167,7 +167,7 @@ func Prepare(o Options) (*Prepared, error) {
 	if err != nil {
 		return nil, err
 	}
-	setup, warns, err := process.SetupFrom(o.Fixture, o.Specimen)
+	stepper, warns, err := NewStepper(o.Fixture, o.Specimen, o.Calibrations, o.Now)
 	if err != nil {
 		return nil, err
 	}
@@ -180,17 +180,14 @@ func Prepare(o Options) (*Prepared, error) {
 	var calEvents []calrec.Event
 	var loops []record.Loop
 	for k, st := range steps {
-		s := setup
-		s.Extra = append([]loop.Source(nil), setup.Extra...)
-		cst, evs, err := calrec.Apply(st, o.Calibrations, o.Fixture, &s, o.Now)
-		if err != nil {
-			return nil, err
+		pts, figs, corr, evs, err := stepper.Step(st)
+		if ce, ok := err.(calError); ok {
+			return nil, ce.error
 		}
-		calEvents = evs
-		pts, figs, corr, err := process.Loop(cst, s)
 		if err != nil {
 			return nil, &loopcsv.Error{File: o.File, Line: lines[k][0], Msg: fmt.Sprintf("step %d (lines %d–%d): %v", k+1, lines[k][0], lines[k][len(lines[k])-1], err)}
 		}
+		calEvents = evs
 		amp := 0.0
 		for _, x := range st {
 			if x.Phase == record.Sweep {
@@ -237,6 +234,47 @@ func Prepare(o Options) (*Prepared, error) {
 		}
 	}
 	return &Prepared{Run: run, Loops: loops, Events: events}, nil
+}
+
+// Stepper is the processing of one step of an imported recording: the
+// calibration records applied to the samples (calrec.Apply), then
+// process.Loop with the fixture's and specimen's setup. Import and the
+// re-processing of an imported run (package acq/reprocess) both use it.
+type Stepper struct {
+	setup process.Setup
+	fx    config.Fixture
+	cals  []calrec.Record
+	at    time.Time
+}
+
+// NewStepper builds the Stepper of a fixture and specimen with the
+// calibration records cals, judged for being past due at at. The warnings
+// are the geometry's (process.SetupFrom).
+func NewStepper(fx config.Fixture, sp config.Specimen, cals []calrec.Record, at time.Time) (*Stepper, []string, error) {
+	setup, warns, err := process.SetupFrom(fx, sp)
+	if err != nil {
+		return nil, nil, err
+	}
+	return &Stepper{setup: setup, fx: fx, cals: cals, at: at}, warns, nil
+}
+
+// calError is a calibration record that cannot be applied: an error of
+// the records, not of the step (its text unchanged).
+type calError struct{ error }
+
+func (e calError) Unwrap() error { return e.error }
+
+// Step processes one step's raw samples (not modified); the events are the
+// calibration records used.
+func (p *Stepper) Step(raw []record.Sample) ([]record.Point, []record.Figure, []record.Correction, []calrec.Event, error) {
+	s := p.setup
+	s.Extra = append([]loop.Source(nil), p.setup.Extra...)
+	cst, evs, err := calrec.Apply(raw, p.cals, p.fx, &s, p.at)
+	if err != nil {
+		return nil, nil, nil, nil, calError{err}
+	}
+	pts, figs, corr, err := process.Loop(cst, s)
+	return pts, figs, corr, evs, err
 }
 
 // Store writes p as a run that goes queued → running → finished at the

@@ -81,7 +81,7 @@ const (
 
 // ReservedTags are the tags the encoder sets itself; static tags may not use
 // them.
-var ReservedTags = []string{"branch", "fixture", "kind", "loop", "material", "run", "software", "specimen"}
+var ReservedTags = []string{"branch", "fixture", "kind", "loop", "material", "revision", "run", "software", "specimen"}
 
 // Defaults of Config.
 const (

@@ -289,12 +289,24 @@ func (f *Forwarder) points(ctx context.Context, e store.OutboxEntry) ([]string, 
 	if err != nil {
 		return nil, err
 	}
-	l, err := f.ob.Loop(ctx, e.RunID, e.Loop)
+	l, err := f.ob.LoopOf(ctx, e.RunID, e.Loop, max(e.Revision, 1))
 	if errors.Is(err, record.ErrNotFound) {
 		return nil, &permanentError{"not in the store: " + err.Error()}
 	}
 	if err != nil {
 		return nil, err
+	}
+	if l.Revision > 1 {
+		// A later revision is tagged with its own specimen.
+		revs, err := f.ob.Revisions(ctx, e.RunID)
+		if err != nil {
+			return nil, err
+		}
+		for _, v := range revs {
+			if v.N == l.Revision {
+				r = r.At(v)
+			}
+		}
 	}
 	pts, err := f.enc.Lines(r, l)
 	if err != nil {

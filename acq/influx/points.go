@@ -225,6 +225,11 @@ func (e Encoding) plan(r record.Run, l record.Loop) (*samplePlan, error) {
 	put("material", r.Material)
 	put("run", r.ID)
 	put("loop", strconv.Itoa(l.N))
+	if l.Revision > 1 {
+		// Revision 1 carries no revision tag: its points are those sent
+		// before re-processing existed, and stay one series with them.
+		put("revision", strconv.Itoa(l.Revision))
+	}
 	rows := joinSamples(l)
 	sp.rows = make([]plannedRow, len(rows))
 	var lastMs int64 = math.MinInt64

@@ -45,6 +45,47 @@ type Run struct {
 	Queued     time.Time
 	Started    time.Time
 	Ended      time.Time
+	// Revision is the run's latest revision (1 for a run never
+	// re-processed). The fields above are those of revision 1, as
+	// recorded; Revisions gives each revision's specimen and config.
+	Revision int
+}
+
+// Revision is one processing of a run's raw samples. Revision 1 is the
+// processing done when the run was recorded (or imported); each re-process
+// adds the next one with a changed specimen or fixture. Raw samples are
+// never changed: every revision is computed from the same ones.
+type Revision struct {
+	RunID      string
+	N          int       // 1, 2, …
+	At         time.Time // when it was made (revision 1: the run's end)
+	By         string    // who made it (revision 1: the run's operator)
+	Change     string    // what differs from the revision before it; "" for revision 1
+	Fixture    string
+	Specimen   string
+	Material   string
+	Grade      string
+	Config     string // fixture and specimen (YAML) it was computed with
+	ConfigHash string // hex SHA-256 of Config
+}
+
+// At returns r as revision v sees it: fixture, specimen, material, grade
+// and config of v. The other fields are the run's.
+func (r Run) At(v Revision) Run {
+	r.Fixture, r.Specimen, r.Material, r.Grade = v.Fixture, v.Specimen, v.Material, v.Grade
+	r.Config, r.ConfigHash = v.Config, v.ConfigHash
+	return r
+}
+
+// FirstRevision is revision 1 of a run that was never re-processed: the
+// run as recorded.
+func FirstRevision(r Run) Revision {
+	at := r.Ended
+	if at.IsZero() {
+		at = r.Started
+	}
+	return Revision{RunID: r.ID, N: 1, At: at, By: r.Operator, Fixture: r.Fixture, Specimen: r.Specimen,
+		Material: r.Material, Grade: r.Grade, Config: r.Config, ConfigHash: r.ConfigHash}
 }
 
 // Phase tells which part of a loop step a raw sample belongs to.
@@ -124,6 +165,10 @@ type Loop struct {
 	// Verdicts are the loop's figures judged against the specimen's
 	// material grade (package acq/grade); empty when no grade applies.
 	Verdicts []Verdict
+	// Revision is the run revision the derived values (points, figures,
+	// corrections, verdicts) belong to; 0 is read as 1. Raw samples are
+	// the same in every revision.
+	Revision int
 }
 
 // Outcome is a conformity verdict.
@@ -207,6 +252,16 @@ type Reader interface {
 	Loops(ctx context.Context, runID string) ([]Loop, error)
 	Loop(ctx context.Context, runID string, n int) (Loop, error) // ErrNotFound
 	Events(ctx context.Context, runID string) ([]Event, error)
+	// Revisions returns a run's revisions, oldest first; a run never
+	// re-processed has one, FirstRevision of it. ErrNotFound for an
+	// unknown run.
+	Revisions(ctx context.Context, runID string) ([]Revision, error)
+	// LoopsOf and LoopOf are Loops and Loop of one revision; rev 0 is the
+	// latest (what Loops and Loop return). ErrNotFound for an unknown
+	// revision.
+	LoopsOf(ctx context.Context, runID string, rev int) ([]Loop, error)
+	LoopOf(ctx context.Context, runID string, n, rev int) (Loop, error)
+	// Trend reads the latest revision of each run.
 	Trend(ctx context.Context, specimen, figure string, since time.Time) ([]TrendPoint, error)
 }
 
@@ -217,4 +272,13 @@ type Writer interface {
 	SetState(ctx context.Context, id string, s State, reason string, at time.Time) error
 	AddLoop(ctx context.Context, l Loop) error
 	AddEvent(ctx context.Context, e Event) error
+}
+
+// Reviser stores a re-processed run. AddRevision stores revision v (v.N
+// must be the run's latest revision + 1, the run must have ended) with
+// every loop of it (their Revision v.N; their Raw is not stored again) and
+// an outbox entry per loop, all in one transaction: after a crash either
+// the whole revision is there or none of it. The earlier revisions stay.
+type Reviser interface {
+	AddRevision(ctx context.Context, v Revision, loops []Loop) error
 }

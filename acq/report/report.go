@@ -33,13 +33,18 @@ type Input struct {
 	Software  string
 }
 
-// FromStore reads a run with its loops and events.
+// FromStore reads a run with its loops and events, at its latest revision
+// (the run with that revision's fixture, specimen and config).
 func FromStore(ctx context.Context, r record.Reader, runID string) (Input, error) {
 	run, err := r.Run(ctx, runID)
 	if err != nil {
 		return Input{}, err
 	}
-	in := Input{Run: run}
+	revs, err := r.Revisions(ctx, runID)
+	if err != nil {
+		return Input{}, err
+	}
+	in := Input{Run: run.At(revs[len(revs)-1])}
 	ls, err := r.Loops(ctx, runID)
 	if err != nil {
 		return Input{}, err

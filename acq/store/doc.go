@@ -27,18 +27,19 @@
 //   - Migrations: `PRAGMA user_version` holds the schema version; `Open` applies missing migrations in
 //     order, each in its own transaction, and refuses a file written by a newer build.
 //
-// # Tables (schema version 4)
+// # Tables (schema version 5)
 //
 //	| table | key | columns |
-//	| `runs` | `id` | recipe, recipe_text, fixture, specimen, material, config (snapshot), config_hash (SHA-256), software, state, reason, queued_ns, started_ns, ended_ns, grade, operator |
-//	| `loops` | `id`; unique (run_id, n) | kind, amplitude, amp_unit, started_ns, n_raw, n_points |
+//	| `runs` | `id` | recipe, recipe_text, fixture, specimen, material, config (snapshot), config_hash (SHA-256), software, state, reason, queued_ns, started_ns, ended_ns, grade, operator (all as recorded: revision 1), revision (the latest) |
+//	| `revisions` | (run_id, n) | at_ns, by_name, change, fixture, specimen, material, grade, config, config_hash — rows only for re-processed runs, revision 1 included |
+//	| `loops` | `id`; unique (run_id, revision, n) | kind, amplitude, amp_unit, started_ns, n_raw, n_points; raw samples hang on the revision-1 row only |
 //	| `raw_samples` | (loop_id, seq) | t_ns (the flux reading's time), t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns (current's and field meter's read times minus t_ns) |
 //	| `points` | (loop_id, seq) | t_ns, h_a_m, b_t, j_t, branch (+1, −1, 0) |
 //	| `figures` | (loop_id, seq) | name, value, u (expanded, k = 2), unit, note |
 //	| `corrections` | (loop_id, seq) | name, size, unit, note |
 //	| `verdicts` | (loop_id, seq) | grade, figure, value, u, lo, hi (NULL: no such limit), unit, rule, outcome (pass, fail, undecided), note |
 //	| `events` | id | run_id, at_ns, level, text |
-//	| `outbox` | id | run_id, loop_n, created_ns, updated_ns, state (pending, delivered, quarantined), done (points acknowledged), attempts, last_error |
+//	| `outbox` | id | run_id, revision, loop_n, created_ns, updated_ns, state (pending, delivered, quarantined), done (points acknowledged), attempts, last_error |
 //
 // `runs.software` is `buildinfo.Info.Software()` of the build that recorded the run, e.g.
 // `0.1.0~git20261202.1a2b3c4d5e6f (rev 1a2b3c4d5e6f, go1.26.8)`; runs recorded before it hold the bare
@@ -52,6 +53,9 @@
 // Migration 4 adds `runs.grade`, `runs.operator` (default ”) and the `verdicts` table; `TestMigrateFromV3File`
 // opens `acq/store/testdata/v3.db`, a real file written by the schema-3 build (one finished run, one loop), and
 // checks every value survives, old rows read back without grade or verdicts, and new loops with verdicts store.
+// Migration 5 (revisions, package `acq/reprocess`) rebuilds `loops` and `outbox` with a revision column (existing
+// rows become revision 1, ids kept); `TestMigrateFromV4File` opens `acq/store/testdata/v4.db` (written by the
+// schema-4 build, see `v4-source/README.md`) and compares every row of every table before and after.
 //
 // Reading it by hand: `sqlite3 hystd-data/hystd.db "SELECT l.n, r.t_ns, r.i_a, r.psi_wb FROM loops l JOIN raw_samples r ON r.loop_id = l.id WHERE l.run_id = 'RUN'"`.
 //

@@ -23,6 +23,7 @@ type OutboxEntry struct {
 	ID        int64
 	RunID     string
 	Loop      int
+	Revision  int // the run revision whose loop it sends (1 for a run never re-processed)
 	Created   time.Time
 	Updated   time.Time
 	State     string
@@ -43,7 +44,11 @@ type Backlog struct {
 // transaction as the loop. Implementations are safe for concurrent use.
 type Outbox interface {
 	Run(ctx context.Context, id string) (record.Run, error)
-	Loop(ctx context.Context, runID string, n int) (record.Loop, error)
+	// LoopOf returns loop n of revision rev (OutboxEntry.Revision).
+	LoopOf(ctx context.Context, runID string, n, rev int) (record.Loop, error)
+	// Revisions gives the specimen and config of each revision (the
+	// points of a later revision are tagged with its own).
+	Revisions(ctx context.Context, runID string) ([]record.Revision, error)
 	// Pending returns up to limit pending entries, oldest first.
 	Pending(ctx context.Context, limit int) ([]OutboxEntry, error)
 	// Progress records that the first done points of a pending entry are
@@ -58,12 +63,12 @@ type Outbox interface {
 	Backlog(ctx context.Context) (Backlog, error)
 }
 
-const outboxCols = `id, run_id, loop_n, created_ns, updated_ns, state, done, attempts, last_error`
+const outboxCols = `id, run_id, loop_n, revision, created_ns, updated_ns, state, done, attempts, last_error`
 
 func scanEntry(sc interface{ Scan(...any) error }) (OutboxEntry, error) {
 	var e OutboxEntry
 	var c, u int64
-	err := sc.Scan(&e.ID, &e.RunID, &e.Loop, &c, &u, &e.State, &e.Done, &e.Attempts, &e.LastError)
+	err := sc.Scan(&e.ID, &e.RunID, &e.Loop, &e.Revision, &c, &u, &e.State, &e.Done, &e.Attempts, &e.LastError)
 	e.Created, e.Updated = time.Unix(0, c).UTC(), time.Unix(0, u).UTC()
 	return e, err
 }

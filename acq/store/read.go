@@ -15,14 +15,14 @@ import (
 // DefaultRunLimit is how many runs Runs returns when the filter sets no limit.
 const DefaultRunLimit = 100
 
-const runCols = `id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns, grade, operator`
+const runCols = `id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns, grade, operator, revision`
 
 func scanRun(sc interface{ Scan(...any) error }) (record.Run, error) {
 	var r record.Run
 	var st string
 	var q, s, e sql.NullInt64
 	err := sc.Scan(&r.ID, &r.Recipe, &r.RecipeText, &r.Fixture, &r.Specimen, &r.Material, &r.Config, &r.ConfigHash,
-		&r.Software, &st, &r.Reason, &q, &s, &e, &r.Grade, &r.Operator)
+		&r.Software, &st, &r.Reason, &q, &s, &e, &r.Grade, &r.Operator, &r.Revision)
 	r.State, r.Queued, r.Started, r.Ended = record.State(st), timeOf(q), timeOf(s), timeOf(e)
 	return r, err
 }
@@ -92,29 +92,51 @@ func (s *Store) Run(ctx context.Context, id string) (record.Run, error) {
 	return r, nil
 }
 
-// Loops returns a run's loops in order with figures and corrections but
-// without Raw and Points; record.ErrNotFound for an unknown run.
+// Loops returns the loops of a run's latest revision in order with figures
+// and corrections but without Raw and Points; record.ErrNotFound for an
+// unknown run.
 func (s *Store) Loops(ctx context.Context, runID string) ([]record.Loop, error) {
+	return s.LoopsOf(ctx, runID, 0)
+}
+
+// revisionOf resolves rev (0: the latest) of a run in tx; record.ErrNotFound
+// for an unknown run or revision.
+func revisionOf(ctx context.Context, tx *sql.Tx, runID string, rev int) (int, error) {
+	var latest int
+	if err := tx.QueryRowContext(ctx, `SELECT revision FROM runs WHERE id = ?`, runID).Scan(&latest); err != nil {
+		if errors.Is(err, sql.ErrNoRows) {
+			return 0, record.ErrNotFound
+		}
+		return 0, err
+	}
+	if rev == 0 {
+		return latest, nil
+	}
+	if rev < 1 || rev > latest {
+		return 0, fmt.Errorf("revision %d (the run has %d): %w", rev, latest, record.ErrNotFound)
+	}
+	return rev, nil
+}
+
+// LoopsOf is Loops of revision rev (0: the latest).
+func (s *Store) LoopsOf(ctx context.Context, runID string, rev int) ([]record.Loop, error) {
 	tx, err := s.r.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
 	if err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
 	defer tx.Rollback()
-	var one int
-	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM runs WHERE id = ?`, runID).Scan(&one); err != nil {
-		if errors.Is(err, sql.ErrNoRows) {
-			return nil, fmt.Errorf("store: loops of run %s: %w", runID, record.ErrNotFound)
-		}
+	rev, err = revisionOf(ctx, tx, runID, rev)
+	if err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
-	rows, err := tx.QueryContext(ctx, `SELECT id, n, kind, amplitude, amp_unit, started_ns FROM loops WHERE run_id = ? ORDER BY n`, runID)
+	rows, err := tx.QueryContext(ctx, `SELECT id, n, kind, amplitude, amp_unit, started_ns FROM loops WHERE run_id = ? AND revision = ? ORDER BY n`, runID, rev)
 	if err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
 	var out []record.Loop
 	var ids []int64
 	for rows.Next() {
-		l := record.Loop{RunID: runID}
+		l := record.Loop{RunID: runID, Revision: rev}
 		var amp sql.NullFloat64
 		var st sql.NullInt64
 		var id int64
@@ -193,29 +215,39 @@ func readDerived(ctx context.Context, tx *sql.Tx, id int64, l *record.Loop) erro
 	return rows.Err()
 }
 
-// Loop returns loop n of a run with raw samples, points, figures and
-// corrections; an error wrapping record.ErrNotFound if either is unknown.
+// Loop returns loop n of a run's latest revision with raw samples, points,
+// figures and corrections; an error wrapping record.ErrNotFound if either
+// is unknown.
 func (s *Store) Loop(ctx context.Context, runID string, n int) (record.Loop, error) {
-	l, err := s.loop(ctx, runID, n)
+	return s.LoopOf(ctx, runID, n, 0)
+}
+
+// LoopOf is Loop of revision rev (0: the latest). The raw samples are those
+// stored with revision 1.
+func (s *Store) LoopOf(ctx context.Context, runID string, n, rev int) (record.Loop, error) {
+	l, err := s.loop(ctx, runID, n, rev)
 	if err != nil {
 		return record.Loop{}, fmt.Errorf("store: loop %d of run %s: %w", n, runID, err)
 	}
 	return l, nil
 }
 
-func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, error) {
+func (s *Store) loop(ctx context.Context, runID string, n, rev int) (record.Loop, error) {
 	tx, err := s.r.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
 	if err != nil {
 		return record.Loop{}, err
 	}
 	defer tx.Rollback()
-	l := record.Loop{RunID: runID, N: n}
+	if rev, err = revisionOf(ctx, tx, runID, rev); err != nil {
+		return record.Loop{}, err
+	}
+	l := record.Loop{RunID: runID, N: n, Revision: rev}
 	var amp sql.NullFloat64
 	var st sql.NullInt64
 	var nRaw, nPts int
-	var id int64
-	err = tx.QueryRowContext(ctx, `SELECT id, kind, amplitude, amp_unit, started_ns, n_raw, n_points FROM loops WHERE run_id = ? AND n = ?`,
-		runID, n).Scan(&id, &l.Kind, &amp, &l.AmpUnit, &st, &nRaw, &nPts)
+	var id, rawID int64
+	err = tx.QueryRowContext(ctx, `SELECT id, kind, amplitude, amp_unit, started_ns, n_points FROM loops WHERE run_id = ? AND revision = ? AND n = ?`,
+		runID, rev, n).Scan(&id, &l.Kind, &amp, &l.AmpUnit, &st, &nPts)
 	if errors.Is(err, sql.ErrNoRows) {
 		return record.Loop{}, record.ErrNotFound
 	}
@@ -223,9 +255,12 @@ func (s *Store) loop(ctx context.Context, runID string, n int) (record.Loop, err
 		return record.Loop{}, err
 	}
 	l.Amplitude, l.Started = floatOf(amp), timeOf(st)
+	if err := tx.QueryRowContext(ctx, `SELECT id, n_raw FROM loops WHERE run_id = ? AND revision = 1 AND n = ?`, runID, n).Scan(&rawID, &nRaw); err != nil {
+		return record.Loop{}, fmt.Errorf("raw samples: %w", err)
+	}
 
 	rows, err := tx.QueryContext(ctx, `SELECT t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns
-		FROM raw_samples WHERE loop_id = ? ORDER BY seq`, id)
+		FROM raw_samples WHERE loop_id = ? ORDER BY seq`, rawID)
 	if err != nil {
 		return record.Loop{}, err
 	}
@@ -325,7 +360,39 @@ func (s *Store) Events(ctx context.Context, runID string) ([]record.Event, error
 	return out, nil
 }
 
-// Trend returns figure values of one specimen across runs, oldest first,
+// Revisions returns a run's revisions, oldest first (record.Reader).
+func (s *Store) Revisions(ctx context.Context, runID string) ([]record.Revision, error) {
+	r, err := s.Run(ctx, runID)
+	if err != nil {
+		return nil, err
+	}
+	if r.Revision <= 1 {
+		return []record.Revision{record.FirstRevision(r)}, nil
+	}
+	rows, err := s.r.QueryContext(ctx, `SELECT n, at_ns, by_name, change, fixture, specimen, material, grade, config, config_hash
+		FROM revisions WHERE run_id = ? AND n <= ? ORDER BY n`, runID, r.Revision)
+	if err != nil {
+		return nil, fmt.Errorf("store: revisions of run %s: %w", runID, err)
+	}
+	defer rows.Close()
+	var out []record.Revision
+	for rows.Next() {
+		v := record.Revision{RunID: runID}
+		var at sql.NullInt64
+		if err := rows.Scan(&v.N, &at, &v.By, &v.Change, &v.Fixture, &v.Specimen, &v.Material, &v.Grade, &v.Config, &v.ConfigHash); err != nil {
+			return nil, fmt.Errorf("store: revisions of run %s: %w", runID, err)
+		}
+		v.At = timeOf(at)
+		out = append(out, v)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("store: revisions of run %s: %w", runID, err)
+	}
+	return out, nil
+}
+
+// Trend returns figure values of one specimen across runs (each run's
+// latest revision; the specimen as recorded), oldest first,
 // for loops started at or after since (zero: all). The time of a point is
 // the loop's start, or the run's start when the loop has none.
 func (s *Store) Trend(ctx context.Context, specimen, figure string, since time.Time) ([]record.TrendPoint, error) {
@@ -337,7 +404,7 @@ func (s *Store) Trend(ctx context.Context, specimen, figure string, since time.T
 		SELECT l.run_id, l.n, COALESCE(l.started_ns, r.started_ns) AS at, f.value, f.u
 		FROM figures f
 		JOIN loops l ON l.id = f.loop_id
-		JOIN runs r ON r.id = l.run_id
+		JOIN runs r ON r.id = l.run_id AND l.revision = r.revision
 		WHERE r.specimen = ? AND f.name = ? AND COALESCE(l.started_ns, r.started_ns, 0) >= ?
 		ORDER BY at, l.run_id, l.n, f.seq`, specimen, figure, sinceNs)
 	if err != nil {

@@ -233,5 +233,67 @@ CREATE TABLE verdicts (
 	PRIMARY KEY (loop_id, seq)
 ) WITHOUT ROWID;
 CREATE INDEX runs_by_recipe ON runs(recipe, started_ns);
+`, // 5: revisions. A re-processed run keeps every revision: loops are
+	// keyed by (run, revision, loop number), the outbox entry names the
+	// revision it sends, runs.revision is the latest. Raw samples stay with
+	// the revision-1 loop row (a later revision's row holds none). A
+	// revisions row holds the specimen and config of each revision; a run
+	// never re-processed has none (revision 1 is the runs row). Existing
+	// loops and outbox entries become revision 1, keeping their ids.
+	`
+ALTER TABLE runs ADD COLUMN revision INTEGER NOT NULL DEFAULT 1;
+CREATE TABLE revisions (
+	run_id      TEXT NOT NULL REFERENCES runs(id),
+	n           INTEGER NOT NULL,
+	at_ns       INTEGER,
+	by_name     TEXT NOT NULL,
+	change      TEXT NOT NULL,
+	fixture     TEXT NOT NULL,
+	specimen    TEXT NOT NULL,
+	material    TEXT NOT NULL,
+	grade       TEXT NOT NULL,
+	config      TEXT NOT NULL,
+	config_hash TEXT NOT NULL,
+	PRIMARY KEY (run_id, n)
+) WITHOUT ROWID;
+
+CREATE TABLE loops_v5 (
+	id         INTEGER PRIMARY KEY,
+	run_id     TEXT NOT NULL REFERENCES runs(id),
+	revision   INTEGER NOT NULL DEFAULT 1,
+	n          INTEGER NOT NULL,
+	kind       TEXT NOT NULL,
+	amplitude  REAL,
+	amp_unit   TEXT NOT NULL,
+	started_ns INTEGER,
+	n_raw      INTEGER NOT NULL,
+	n_points   INTEGER NOT NULL,
+	UNIQUE (run_id, revision, n)
+);
+INSERT INTO loops_v5 (id, run_id, revision, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
+	SELECT id, run_id, 1, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points FROM loops;
+
+CREATE TABLE outbox_v5 (
+	id         INTEGER PRIMARY KEY,
+	run_id     TEXT NOT NULL,
+	revision   INTEGER NOT NULL DEFAULT 1,
+	loop_n     INTEGER NOT NULL,
+	created_ns INTEGER NOT NULL,
+	state      TEXT NOT NULL CHECK (state IN ('pending', 'delivered', 'quarantined')),
+	done       INTEGER NOT NULL DEFAULT 0,
+	attempts   INTEGER NOT NULL DEFAULT 0,
+	last_error TEXT NOT NULL DEFAULT '',
+	updated_ns INTEGER NOT NULL,
+	FOREIGN KEY (run_id, revision, loop_n) REFERENCES loops(run_id, revision, n)
+);
+INSERT INTO outbox_v5 (id, run_id, revision, loop_n, created_ns, state, done, attempts, last_error, updated_ns)
+	SELECT id, run_id, 1, loop_n, created_ns, state, done, attempts, last_error, updated_ns FROM outbox;
+
+DROP TABLE outbox;
+DROP TABLE loops;
+ALTER TABLE loops_v5 RENAME TO loops;
+ALTER TABLE outbox_v5 RENAME TO outbox;
+CREATE INDEX loops_by_run ON loops(run_id, revision, n);
+CREATE INDEX outbox_by_state ON outbox(state, id);
 `,
 }

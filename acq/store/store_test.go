@@ -2,6 +2,9 @@ package store_test
 
 import (
 	"context"
+	"crypto/sha256"
+	"database/sql"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"math"
@@ -375,7 +378,7 @@ func TestMigrateFromV2(t *testing.T) {
 
 // TestMigrateFromV3File: testdata/v3.db is a real store file written by
 // hystd with schema 3 (one finished run, one loop). Opened by this build it
-// is migrated to schema 4 keeping every value; its run reads back without
+// is migrated to schema 4 (and on to 5) keeping every value; its run reads back without
 // grade or operator and its loop without verdicts; a new loop with verdicts
 // is stored beside it.
 func TestMigrateFromV3File(t *testing.T) {
@@ -394,8 +397,8 @@ func TestMigrateFromV3File(t *testing.T) {
 	}
 	defer s.Close()
 	var v int
-	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 4 || v != store.SchemaVersion() {
-		t.Fatalf("schema version %d (%v), want 4", v, err)
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 5 || v != store.SchemaVersion() {
+		t.Fatalf("schema version %d (%v), want 5", v, err)
 	}
 	r, err := s.Run(ctx, "ring-v3-run")
 	if err != nil {
@@ -439,5 +442,137 @@ func TestMigrateFromV3File(t *testing.T) {
 	}
 	if _, err := s.Loop(ctx, "run-v4", 2); !errors.Is(err, record.ErrNotFound) {
 		t.Fatalf("loop with a bad verdict was kept: %v", err)
+	}
+}
+
+// dumpV4 reads every row of every schema-4 table through db, each row as
+// text, with the schema-4 column lists (so the same query reads the file
+// before and after the migration to 5).
+func dumpV4(t *testing.T, db interface {
+	Query(string, ...any) (*sql.Rows, error)
+}) map[string][]string {
+	t.Helper()
+	tables := map[string]string{
+		"runs":        "SELECT id, recipe, recipe_text, fixture, specimen, material, config, config_hash, software, state, reason, queued_ns, started_ns, ended_ns, grade, operator FROM runs ORDER BY id",
+		"loops":       "SELECT id, run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points FROM loops ORDER BY id",
+		"raw_samples": "SELECT * FROM raw_samples ORDER BY loop_id, seq",
+		"points":      "SELECT * FROM points ORDER BY loop_id, seq",
+		"figures":     "SELECT * FROM figures ORDER BY loop_id, seq",
+		"corrections": "SELECT * FROM corrections ORDER BY loop_id, seq",
+		"verdicts":    "SELECT * FROM verdicts ORDER BY loop_id, seq",
+		"events":      "SELECT * FROM events ORDER BY id",
+		"outbox":      "SELECT id, run_id, loop_n, created_ns, state, done, attempts, last_error, updated_ns FROM outbox ORDER BY id",
+	}
+	out := map[string][]string{}
+	for name, q := range tables {
+		rows, err := db.Query(q)
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		cols, _ := rows.Columns()
+		for rows.Next() {
+			vals := make([]any, len(cols))
+			ptrs := make([]any, len(cols))
+			for i := range vals {
+				ptrs[i] = &vals[i]
+			}
+			if err := rows.Scan(ptrs...); err != nil {
+				t.Fatal(err)
+			}
+			out[name] = append(out[name], fmt.Sprintf("%#v", vals))
+		}
+		rows.Close()
+	}
+	return out
+}
+
+// TestMigrateFromV4File: testdata/v4.db is a real store file written by the
+// schema-4 build (testdata/v4-source/README.md: two imported runs, one loop
+// of 1280 raw samples each). Opened by this build it is migrated to schema
+// 5: every row of every table reads back identical, each run is revision 1
+// with FirstRevision as its one revision, its loops are revision 1 and its
+// outbox entries send revision 1. A revision 2 is then stored beside it.
+func TestMigrateFromV4File(t *testing.T) {
+	ctx := context.Background()
+	src, err := os.ReadFile("testdata/v4.db")
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(t.TempDir(), "hystd.db")
+	if err := os.WriteFile(path, src, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	raw, err := sql.Open("sqlite", path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var v int
+	if err := raw.QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 4 {
+		t.Fatalf("testdata/v4.db has schema %d (%v), want 4", v, err)
+	}
+	before := dumpV4(t, raw)
+	raw.Close()
+	if len(before["runs"]) != 2 || len(before["raw_samples"]) != 2560 || len(before["outbox"]) != 2 {
+		t.Fatalf("testdata/v4.db: %d runs, %d raw samples, %d outbox entries; want 2, 2560, 2",
+			len(before["runs"]), len(before["raw_samples"]), len(before["outbox"]))
+	}
+	s, err := store.Open(ctx, path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 5 {
+		t.Fatalf("schema version %d (%v), want 5", v, err)
+	}
+	after := dumpV4(t, s.WriterForTest())
+	for name, rows := range before {
+		if len(after[name]) != len(rows) {
+			t.Fatalf("%s: %d rows after the migration, %d before", name, len(after[name]), len(rows))
+		}
+		for i := range rows {
+			if after[name][i] != rows[i] {
+				t.Fatalf("%s row %d changed:\n before %s\n after  %s", name, i, rows[i], after[name][i])
+			}
+		}
+	}
+	runs, err := s.Runs(ctx, record.RunFilter{})
+	if err != nil || len(runs) != 2 {
+		t.Fatalf("runs %v %v", runs, err)
+	}
+	for _, r := range runs {
+		revs, err := s.Revisions(ctx, r.ID)
+		if err != nil || r.Revision != 1 || len(revs) != 1 || revs[0] != record.FirstRevision(r) || revs[0].By != "bay 3" {
+			t.Fatalf("run %s: revision %d, revisions %+v (%v)", r.ID, r.Revision, revs, err)
+		}
+		l1, err := s.LoopOf(ctx, r.ID, 1, 1)
+		if err != nil || l1.Revision != 1 || len(l1.Raw) != 1280 || len(l1.Points) == 0 || len(l1.Figures) == 0 {
+			t.Fatalf("run %s loop 1 revision 1: %d raw, %d points, %d figures (%v)", r.ID, len(l1.Raw), len(l1.Points), len(l1.Figures), err)
+		}
+		if l, err := s.Loop(ctx, r.ID, 1); err != nil || storetest.SameLoop(l, l1) != "" {
+			t.Fatalf("latest loop of run %s differs from revision 1: %v %s", r.ID, err, storetest.SameLoop(l, l1))
+		}
+	}
+	p, err := s.Pending(ctx, 0)
+	if err != nil || len(p) != 2 || p[0].Revision != 1 || p[1].Revision != 1 {
+		t.Fatalf("outbox after the migration: %+v %v", p, err)
+	}
+	// A revision 2 of a migrated run is stored with its outbox entry (the
+	// rebuilt outbox's foreign key holds).
+	r := runs[0]
+	l1, _ := s.LoopOf(ctx, r.ID, 1, 1)
+	l2 := l1
+	l2.Revision, l2.Raw = 2, nil
+	cfg := "# specimen\nid: X\n"
+	sum := sha256.Sum256([]byte(cfg))
+	v2 := record.Revision{RunID: r.ID, N: 2, At: time.Date(2026, 12, 2, 9, 0, 0, 0, time.UTC), By: "alba",
+		Change: "test", Config: cfg, ConfigHash: hex.EncodeToString(sum[:])}
+	if err := s.AddRevision(ctx, v2, []record.Loop{l2}); err != nil {
+		t.Fatal(err)
+	}
+	if got, err := s.LoopOf(ctx, r.ID, 1, 2); err != nil || len(got.Raw) != 1280 || got.Revision != 2 {
+		t.Fatalf("revision 2 of a migrated run: %d raw (%v)", len(got.Raw), err)
+	}
+	if p, _ := s.Pending(ctx, 0); len(p) != 3 || p[2].Revision != 2 {
+		t.Fatalf("outbox after revision 2: %+v", p)
 	}
 }

@@ -139,6 +139,101 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 	return nil
 }
 
+// AddRevision stores revision v of an ended run with all its loops
+// (record.Reviser): the revision row (and, on the first re-process, the
+// row of revision 1 as recorded), the loops without raw samples, their
+// outbox entries and the run's latest revision, in one transaction.
+// A loop number the run's revision 1 does not have is refused, as is a
+// revision that is not the next one.
+func (s *Store) AddRevision(ctx context.Context, v record.Revision, loops []record.Loop) error {
+	fail := func(err error) error { return fmt.Errorf("store: revision %d of run %s: %w", v.N, v.RunID, err) }
+	conn, err := s.w.Conn(ctx)
+	if err != nil {
+		return fail(err)
+	}
+	defer conn.Close()
+	tx, err := conn.BeginTx(ctx, nil)
+	if err != nil {
+		return fail(err)
+	}
+	defer tx.Rollback()
+	run, err := scanRun(tx.QueryRowContext(ctx, "SELECT "+runCols+" FROM runs WHERE id = ?", v.RunID))
+	if errors.Is(err, sql.ErrNoRows) {
+		return fail(record.ErrNotFound)
+	}
+	if err != nil {
+		return fail(err)
+	}
+	if err := CheckRevision(run, v, loops); err != nil {
+		return fail(err)
+	}
+	if run.Revision == 1 {
+		if err := insertRevision(ctx, tx, record.FirstRevision(run)); err != nil {
+			return fail(err)
+		}
+	}
+	if err := insertRevision(ctx, tx, v); err != nil {
+		return fail(err)
+	}
+	now := s.now()
+	for _, l := range loops {
+		var one int
+		if err := tx.QueryRowContext(ctx, `SELECT 1 FROM loops WHERE run_id = ? AND revision = 1 AND n = ?`, v.RunID, l.N).Scan(&one); err != nil {
+			if errors.Is(err, sql.ErrNoRows) {
+				return fail(fmt.Errorf("loop %d: not a loop of the run: %w", l.N, record.ErrNotFound))
+			}
+			return fail(err)
+		}
+		l.Revision = v.N
+		if err := addLoop(ctx, conn, tx, l, now); err != nil {
+			return fail(fmt.Errorf("loop %d: %w", l.N, err))
+		}
+	}
+	if _, err := tx.ExecContext(ctx, `UPDATE runs SET revision = ? WHERE id = ?`, v.N, v.RunID); err != nil {
+		return fail(err)
+	}
+	if err := tx.Commit(); err != nil {
+		return fail(err)
+	}
+	return nil
+}
+
+// CheckRevision is what every store refuses in AddRevision before it
+// writes anything: a run that has not ended, a revision that is not the
+// run's next, a config hash that is not the SHA-256 of the config, and
+// loops of another run or revision.
+func CheckRevision(run record.Run, v record.Revision, loops []record.Loop) error {
+	if !run.State.Ended() {
+		return fmt.Errorf("run is %s: only an ended run can be re-processed", run.State)
+	}
+	if next := max(run.Revision, 1) + 1; v.N != next {
+		return fmt.Errorf("revision %d: the run's next revision is %d", v.N, next)
+	}
+	sum := sha256.Sum256([]byte(v.Config))
+	if !strings.EqualFold(v.ConfigHash, hex.EncodeToString(sum[:])) {
+		return fmt.Errorf("config hash %q is not the SHA-256 of the config snapshot", v.ConfigHash)
+	}
+	if len(loops) == 0 {
+		return errors.New("no loops")
+	}
+	for _, l := range loops {
+		if l.RunID != v.RunID || (l.Revision != 0 && l.Revision != v.N) {
+			return fmt.Errorf("loop %d belongs to run %s revision %d", l.N, l.RunID, l.Revision)
+		}
+	}
+	return nil
+}
+
+func insertRevision(ctx context.Context, tx *sql.Tx, v record.Revision) error {
+	_, err := tx.ExecContext(ctx, `INSERT INTO revisions (run_id, n, at_ns, by_name, change, fixture, specimen, material, grade, config, config_hash)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+		v.RunID, v.N, nsOf(v.At), v.By, v.Change, v.Fixture, v.Specimen, v.Material, v.Grade, v.Config, v.ConfigHash)
+	if isConstraint(err) {
+		return ErrExists
+	}
+	return err
+}
+
 // batchRows is how many rows one multi-row INSERT carries.
 const batchRows = 256
 
@@ -156,7 +251,8 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 		}
 		return err
 	}
-	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM loops WHERE run_id = ? AND n = ?`, l.RunID, l.N).Scan(&one); err == nil {
+	rev := max(l.Revision, 1)
+	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM loops WHERE run_id = ? AND revision = ? AND n = ?`, l.RunID, rev, l.N).Scan(&one); err == nil {
 		return ErrExists
 	} else if !errors.Is(err, sql.ErrNoRows) {
 		return err
@@ -168,9 +264,12 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 			return fmt.Errorf("verdict %d (%s): unknown outcome %q", i, v.Figure, v.Outcome)
 		}
 	}
-	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?)`,
-		l.RunID, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points))
+	if rev > 1 {
+		l.Raw = nil // the raw samples stay with the revision-1 row
+	}
+	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, revision, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+		l.RunID, rev, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points))
 	if err != nil {
 		return err
 	}
@@ -234,8 +333,8 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 	if err := insertRows(ctx, tx, "verdicts (loop_id, seq, grade, figure, value, u, lo, hi, unit, rule, outcome, note)", 12, len(l.Verdicts), ver); err != nil {
 		return fmt.Errorf("verdicts: %w", err)
 	}
-	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)`,
-		l.RunID, l.N, now.UnixNano(), now.UnixNano()); err != nil {
+	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, revision, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, ?, 'pending', ?)`,
+		l.RunID, rev, l.N, now.UnixNano(), now.UnixNano()); err != nil {
 		return fmt.Errorf("outbox: %w", err)
 	}
 	return nil

@@ -22,7 +22,7 @@ func init() { register(newExportCmd) }
 func newExportCmd() *cobra.Command {
 	var (
 		dataDir, cfgPath, format, out string
-		loop                          int
+		loop, revision                int
 		all                           bool
 		style                         export.PlotStyle
 	)
@@ -45,6 +45,7 @@ func newExportCmd() *cobra.Command {
 			"        --y J plots J = B − μ0·H, --units cgs labels H in Oe and B, J in G or kG,\n" +
 			"        --quadrant 2 shows the demagnetization curve (H ≤ 0, B ≥ 0) with B, J and (BH)max;\n" +
 			"        the same choices as the API's plot query (?y=&units=&quadrant=)\n" +
+			"A re-processed run (hystd reprocess) is exported at its latest revision; --revision N picks another.\n" +
 			"The store is only read. With -o the file appears only when the export succeeded.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -56,7 +57,10 @@ func newExportCmd() *cobra.Command {
 				return &exitError{code: 2, err: fmt.Errorf("--loop %d: loops are numbered from 1", loop)}
 			}
 			var o export.Options
-			o.Loop, o.AllSamples = loop, all
+			if revision < 0 {
+				return &exitError{code: 2, err: fmt.Errorf("--revision %d: revisions are numbered from 1", revision)}
+			}
+			o.Loop, o.AllSamples, o.Revision = loop, all, revision
 			if o.Plot, err = style.Options(); err != nil {
 				return &exitError{code: 2, err: fmt.Errorf("--%w", err)}
 			}
@@ -79,6 +83,7 @@ func newExportCmd() *cobra.Command {
 	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config (kind: daemon) whose store.path to read, instead of --data")
 	cmd.Flags().StringVar(&format, "format", "csv", "output format: "+strings.Join(names, ", "))
 	cmd.Flags().IntVar(&loop, "loop", 0, "export only loop N (1-based); 0: every loop")
+	cmd.Flags().IntVar(&revision, "revision", 0, "export revision N of a re-processed run (1: as recorded); 0: the latest")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "write to FILE instead of standard output")
 	cmd.Flags().BoolVar(&all, "all-samples", false, "csv: include the drift-hold samples without H, B, J")
 	// -y as well: cobra's completion looks a one-letter flag up by its shorthand.

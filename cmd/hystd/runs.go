@@ -25,6 +25,19 @@ type runRow struct {
 	State    string `json:"state"`
 	Loops    int    `json:"loops"`
 	Verdict  string `json:"verdict,omitempty"` // worst over the run's loops: fail, undecided, pass
+	// Revision is the latest revision, whose loops, specimen and verdict
+	// the row shows; Revisions lists every one of a re-processed run.
+	Revision  int           `json:"revision"`
+	Revisions []revisionRow `json:"revisions,omitempty"`
+}
+
+// revisionRow is one revision of a re-processed run in `hystd runs --json`.
+type revisionRow struct {
+	N        int    `json:"n"`
+	At       string `json:"at"`
+	By       string `json:"by"`
+	Specimen string `json:"specimen"`
+	Change   string `json:"change,omitempty"`
 }
 
 func newRunsCmd() *cobra.Command {
@@ -69,8 +82,18 @@ func newRunsCmd() *cobra.Command {
 				for _, l := range loops {
 					vs = append(vs, l.Verdicts...)
 				}
-				row := runRow{ID: r.ID, Recipe: r.Recipe, Fixture: r.Fixture, Specimen: r.Specimen, Grade: r.Grade,
-					State: string(r.State), Loops: len(loops), Verdict: string(record.Worst(vs))}
+				revs, err := st.Revisions(ctx, r.ID)
+				if err != nil {
+					return err
+				}
+				last := revs[len(revs)-1]
+				row := runRow{ID: r.ID, Recipe: r.Recipe, Fixture: last.Fixture, Specimen: last.Specimen, Grade: last.Grade,
+					State: string(r.State), Loops: len(loops), Verdict: string(record.Worst(vs)), Revision: last.N}
+				if len(revs) > 1 {
+					for _, v := range revs {
+						row.Revisions = append(row.Revisions, revisionRow{N: v.N, At: v.At.Local().Format(time.DateTime), By: v.By, Specimen: v.Specimen, Change: v.Change})
+					}
+				}
 				if !r.Started.IsZero() {
 					row.Started = r.Started.Local().Format(time.DateTime)
 				}
@@ -87,9 +110,14 @@ func newRunsCmd() *cobra.Command {
 				return nil
 			}
 			tw := tabwriter.NewWriter(out, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "started\trun\trecipe\tspecimen\tgrade\tstate\tloops\tverdict")
+			fmt.Fprintln(tw, "started\trun\trecipe\tspecimen\tgrade\tstate\tloops\tverdict\trevision")
 			for _, r := range rows {
-				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%d\t%s\n", dash(r.Started), r.ID, r.Recipe, r.Specimen, dash(r.Grade), r.State, r.Loops, dash(r.Verdict))
+				rev := "1"
+				if len(r.Revisions) > 0 {
+					// e.g. "2 (by alba)": the row shows the latest.
+					rev = fmt.Sprintf("%d (by %s)", r.Revision, r.Revisions[len(r.Revisions)-1].By)
+				}
+				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%d\t%s\t%s\n", dash(r.Started), r.ID, r.Recipe, r.Specimen, dash(r.Grade), r.State, r.Loops, dash(r.Verdict), rev)
 			}
 			return tw.Flush()
 		},

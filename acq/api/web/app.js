@@ -409,13 +409,14 @@ function loopLoaded() {
 
 let selectSeq = 0; // the latest selection; answers to older ones are dropped
 
-async function selectRun(id) {
+// selectRun shows run id at revision rev (absent: the latest).
+async function selectRun(id, rev) {
   showView("loop");
   const seq = ++selectSeq;
   loopPending();
   let run;
   try {
-    run = await api("/api/v1/runs/" + encodeURIComponent(id));
+    run = await api("/api/v1/runs/" + encodeURIComponent(id) + (rev ? "?revision=" + rev : ""));
   } catch (e) {
     if (seq === selectSeq) $("#run-head").textContent = e.message;
     return;
@@ -434,6 +435,20 @@ async function selectRun(id) {
   if (r.reason) item("reason", r.reason);
   const st = el("span", { class: "state state-" + r.state, text: r.state, id: "run-state" });
   head.append(el("h2", { text: r.id }, " ", st), meta);
+  // A re-processed run: every revision, the one shown marked; pick another.
+  const revs = r.revisions || [];
+  document.body.dataset.revision = `${r.id}@${r.revision}`;
+  if (revs.length > 1) {
+    const ul = el("ul", { class: "revisions", id: "run-revisions" });
+    for (const v of revs) {
+      const what = v.n === 1 ? "as recorded" : v.change.split("\n").join("; ");
+      const b = el("button", { "data-rev": v.n, text: `revision ${v.n}${v.n === revs.length ? " (latest)" : ""}` });
+      b.classList.toggle("on", v.n === r.revision);
+      b.addEventListener("click", () => selectRun(r.id, v.n));
+      ul.append(el("li", {}, b, " ", el("span", { class: "muted", text: `${when(v.at)} by ${v.by || "—"}: ${what}` })));
+    }
+    head.append(el("div", { class: "label", text: `showing revision ${r.revision} of ${revs.length}` }), ul);
+  }
   if ((state.run.flags || []).length) {
     const fl = el("ul", { class: "flags", id: "run-flags" });
     for (const f of state.run.flags) fl.append(el("li", { text: f }));
@@ -465,7 +480,7 @@ async function selectLoop(n, seq) {
   loopPending();
   let data;
   try {
-    data = await api(`/api/v1/runs/${encodeURIComponent(r.id)}/loops/${n}?max_points=200000`);
+    data = await api(`/api/v1/runs/${encodeURIComponent(r.id)}/loops/${n}?max_points=200000&revision=${r.revision}`);
   } catch (e) {
     if (seq === selectSeq) $("#loop-plot").textContent = e.message;
     return;
@@ -489,7 +504,7 @@ function drawLoop(keepZoom) {
   loopPlot.plot.set(spec, keepZoom);
   const q = new URLSearchParams({ y: segValue(bar.querySelector('[data-name="ordinate"]')), units: segValue(bar.querySelector('[data-name="units"]')) });
   if ($("#q2-toggle").checked) q.set("quadrant", "2");
-  const base = `/api/v1/runs/${encodeURIComponent(state.loop.run_id)}/loops/${state.loop.n}/plot?`;
+  const base = `/api/v1/runs/${encodeURIComponent(state.loop.run_id)}/loops/${state.loop.n}/plot?revision=${state.run.run.revision}&`;
   $("#dl-svg").href = base + q + "&format=svg";
   $("#dl-png").href = base + q + "&format=png";
 }

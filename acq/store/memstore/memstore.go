@@ -25,6 +25,7 @@ import (
 
 type loopKey struct {
 	run string
+	rev int
 	n   int
 }
 
@@ -35,14 +36,16 @@ type Store struct {
 	runs   map[string]record.Run
 	loops  map[loopKey]record.Loop
 	events map[string][]record.Event
-	outbox []store.OutboxEntry // in id order
+	revs   map[string][]record.Revision // of re-processed runs, revision 1 first
+	outbox []store.OutboxEntry          // in id order
 	nextID int64
 }
 
 var (
-	_ record.Reader = (*Store)(nil)
-	_ record.Writer = (*Store)(nil)
-	_ store.Outbox  = (*Store)(nil)
+	_ record.Reader  = (*Store)(nil)
+	_ record.Writer  = (*Store)(nil)
+	_ store.Outbox   = (*Store)(nil)
+	_ record.Reviser = (*Store)(nil)
 )
 
 // New returns an empty store; now stamps outbox entries (nil: time.Now).
@@ -50,7 +53,7 @@ func New(now func() time.Time) *Store {
 	if now == nil {
 		now = time.Now
 	}
-	return &Store{now: now, runs: map[string]record.Run{}, loops: map[loopKey]record.Loop{}, events: map[string][]record.Event{}}
+	return &Store{now: now, runs: map[string]record.Run{}, loops: map[loopKey]record.Loop{}, events: map[string][]record.Event{}, revs: map[string][]record.Revision{}}
 }
 
 func validState(st record.State) error {
@@ -83,6 +86,7 @@ func (s *Store) CreateRun(_ context.Context, r record.Run) error {
 	if _, ok := s.runs[r.ID]; ok {
 		return fmt.Errorf("memstore: create run %s: %w", r.ID, store.ErrExists)
 	}
+	r.Revision = 1
 	s.runs[r.ID] = r
 	return nil
 }
@@ -154,15 +158,96 @@ func (s *Store) AddLoop(_ context.Context, l record.Loop) error {
 	if _, ok := s.runs[l.RunID]; !ok {
 		return fmt.Errorf("memstore: loop %d of run %s: run: %w", l.N, l.RunID, record.ErrNotFound)
 	}
-	k := loopKey{l.RunID, l.N}
+	if err := s.addLoop(l); err != nil {
+		return fmt.Errorf("memstore: loop %d of run %s: %w", l.N, l.RunID, err)
+	}
+	return nil
+}
+
+// addLoop stores l (of revision l.Revision, 0 read as 1; a later
+// revision's raw samples are dropped, they stay with revision 1) and its
+// outbox entry. The caller holds the write lock.
+func (s *Store) addLoop(l record.Loop) error {
+	l.Revision = max(l.Revision, 1)
+	k := loopKey{l.RunID, l.Revision, l.N}
 	if _, ok := s.loops[k]; ok {
-		return fmt.Errorf("memstore: loop %d of run %s: %w", l.N, l.RunID, store.ErrExists)
+		return store.ErrExists
+	}
+	if l.Revision > 1 {
+		l.Raw = nil
 	}
 	s.loops[k] = copyLoop(l, true)
 	s.nextID++
 	now := s.now().UTC()
-	s.outbox = append(s.outbox, store.OutboxEntry{ID: s.nextID, RunID: l.RunID, Loop: l.N, Created: now, Updated: now, State: store.StatePending})
+	s.outbox = append(s.outbox, store.OutboxEntry{ID: s.nextID, RunID: l.RunID, Loop: l.N, Revision: l.Revision, Created: now, Updated: now, State: store.StatePending})
 	return nil
+}
+
+// AddRevision stores a revision with its loops at once (see
+// store.Store.AddRevision).
+func (s *Store) AddRevision(_ context.Context, v record.Revision, loops []record.Loop) error {
+	fail := func(err error) error { return fmt.Errorf("memstore: revision %d of run %s: %w", v.N, v.RunID, err) }
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	r, ok := s.runs[v.RunID]
+	if !ok {
+		return fail(record.ErrNotFound)
+	}
+	if err := store.CheckRevision(r, v, loops); err != nil {
+		return fail(err)
+	}
+	seen := map[int]bool{}
+	for _, l := range loops {
+		if _, ok := s.loops[loopKey{v.RunID, 1, l.N}]; !ok {
+			return fail(fmt.Errorf("loop %d: not a loop of the run: %w", l.N, record.ErrNotFound))
+		}
+		if seen[l.N] {
+			return fail(fmt.Errorf("loop %d: %w", l.N, store.ErrExists))
+		}
+		seen[l.N] = true
+	}
+	if r.Revision == 1 {
+		s.revs[r.ID] = []record.Revision{record.FirstRevision(r)}
+	}
+	s.revs[r.ID] = append(s.revs[r.ID], v)
+	for _, l := range loops {
+		l.Revision = v.N
+		if err := s.addLoop(l); err != nil {
+			return fail(err) // not reached: checked above
+		}
+	}
+	r.Revision = v.N
+	s.runs[r.ID] = r
+	return nil
+}
+
+// revision resolves rev (0: the latest) of a run; the caller holds a lock.
+func (s *Store) revision(runID string, rev int) (int, error) {
+	r, ok := s.runs[runID]
+	if !ok {
+		return 0, record.ErrNotFound
+	}
+	if rev == 0 {
+		return r.Revision, nil
+	}
+	if rev < 1 || rev > r.Revision {
+		return 0, fmt.Errorf("revision %d (the run has %d): %w", rev, r.Revision, record.ErrNotFound)
+	}
+	return rev, nil
+}
+
+// Revisions returns a run's revisions, oldest first.
+func (s *Store) Revisions(_ context.Context, runID string) ([]record.Revision, error) {
+	s.mu.RLock()
+	defer s.mu.RUnlock()
+	r, ok := s.runs[runID]
+	if !ok {
+		return nil, fmt.Errorf("memstore: revisions of run %s: %w", runID, record.ErrNotFound)
+	}
+	if r.Revision <= 1 {
+		return []record.Revision{record.FirstRevision(r)}, nil
+	}
+	return slices.Clone(s.revs[runID]), nil
 }
 
 func startKey(r record.Run) time.Time {
@@ -217,16 +302,22 @@ func (s *Store) Run(_ context.Context, id string) (record.Run, error) {
 	return r, nil
 }
 
-// Loops returns a run's loops without samples, in order.
-func (s *Store) Loops(_ context.Context, runID string) ([]record.Loop, error) {
+// Loops returns the latest revision's loops without samples, in order.
+func (s *Store) Loops(ctx context.Context, runID string) ([]record.Loop, error) {
+	return s.LoopsOf(ctx, runID, 0)
+}
+
+// LoopsOf returns one revision's loops (0: the latest) without samples.
+func (s *Store) LoopsOf(_ context.Context, runID string, rev int) ([]record.Loop, error) {
 	s.mu.RLock()
 	defer s.mu.RUnlock()
-	if _, ok := s.runs[runID]; !ok {
-		return nil, fmt.Errorf("memstore: loops of run %s: %w", runID, record.ErrNotFound)
+	rev, err := s.revision(runID, rev)
+	if err != nil {
+		return nil, fmt.Errorf("memstore: loops of run %s: %w", runID, err)
 	}
 	var out []record.Loop
 	for k, l := range s.loops {
-		if k.run == runID {
+		if k.run == runID && k.rev == rev {
 			out = append(out, copyLoop(l, false))
 		}
 	}
@@ -234,14 +325,25 @@ func (s *Store) Loops(_ context.Context, runID string) ([]record.Loop, error) {
 	return out, nil
 }
 
-// Loop returns one loop with its samples.
-func (s *Store) Loop(_ context.Context, runID string, n int) (record.Loop, error) {
+// Loop returns one loop of the latest revision with its samples.
+func (s *Store) Loop(ctx context.Context, runID string, n int) (record.Loop, error) {
+	return s.LoopOf(ctx, runID, n, 0)
+}
+
+// LoopOf returns one loop of a revision (0: the latest) with its samples;
+// the raw samples are revision 1's.
+func (s *Store) LoopOf(_ context.Context, runID string, n, rev int) (record.Loop, error) {
 	s.mu.RLock()
 	defer s.mu.RUnlock()
-	l, ok := s.loops[loopKey{runID, n}]
+	rev, err := s.revision(runID, rev)
+	if err != nil {
+		return record.Loop{}, fmt.Errorf("memstore: loop %d of run %s: %w", n, runID, err)
+	}
+	l, ok := s.loops[loopKey{runID, rev, n}]
 	if !ok {
 		return record.Loop{}, fmt.Errorf("memstore: loop %d of run %s: %w", n, runID, record.ErrNotFound)
 	}
+	l.Raw = s.loops[loopKey{runID, 1, n}].Raw
 	return copyLoop(l, true), nil
 }
 
@@ -266,7 +368,7 @@ func (s *Store) Trend(_ context.Context, specimen, figure string, since time.Tim
 	var all []tp
 	for k, l := range s.loops {
 		r := s.runs[k.run]
-		if r.Specimen != specimen {
+		if r.Specimen != specimen || k.rev != r.Revision {
 			continue
 		}
 		at := l.Started

@@ -22,10 +22,11 @@ import (
 	"hystd/acq/store"
 )
 
-// Backend is a store under test: both record interfaces and the outbox.
+// Backend is a store under test: the record interfaces and the outbox.
 type Backend interface {
 	record.Reader
 	record.Writer
+	record.Reviser
 	store.Outbox
 }
 
@@ -52,6 +53,7 @@ func Run(t *testing.T, open Open) {
 		{"OutboxWithLoop", testOutboxWithLoop},
 		{"OutboxLifecycle", testOutboxLifecycle},
 		{"OutboxQuarantine", testOutboxQuarantine},
+		{"Revisions", testRevisions},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) { c.fn(t, open(t)) })
@@ -136,6 +138,7 @@ func sameRun(t *testing.T, got, want record.Run) {
 		t.Errorf("run %s times: got %v/%v/%v, want %v/%v/%v", want.ID, got.Queued, got.Started, got.Ended, want.Queued, want.Started, want.Ended)
 	}
 	got.Queued, got.Started, got.Ended = want.Queued, want.Started, want.Ended
+	want.Revision = max(want.Revision, 1) // a created run is revision 1
 	if got != want {
 		t.Errorf("run:\n got %+v\nwant %+v", got, want)
 	}
@@ -147,9 +150,9 @@ func same(a, b float64) bool { return a == b || (math.IsNaN(a) && math.IsNaN(b))
 // SameLoop reports the first difference between two loops, or "".
 func SameLoop(got, want record.Loop) string {
 	if got.RunID != want.RunID || got.N != want.N || got.Kind != want.Kind || !same(got.Amplitude, want.Amplitude) ||
-		got.AmpUnit != want.AmpUnit || !got.Started.Equal(want.Started) {
-		return fmt.Sprintf("header: got %v %d %q %g %q %v, want %v %d %q %g %q %v", got.RunID, got.N, got.Kind, got.Amplitude,
-			got.AmpUnit, got.Started, want.RunID, want.N, want.Kind, want.Amplitude, want.AmpUnit, want.Started)
+		got.AmpUnit != want.AmpUnit || !got.Started.Equal(want.Started) || max(got.Revision, 1) != max(want.Revision, 1) {
+		return fmt.Sprintf("header: got %v %d %q %g %q %v rev %d, want %v %d %q %g %q %v rev %d", got.RunID, got.N, got.Kind, got.Amplitude,
+			got.AmpUnit, got.Started, got.Revision, want.RunID, want.N, want.Kind, want.Amplitude, want.AmpUnit, want.Started, want.Revision)
 	}
 	if len(got.Raw) != len(want.Raw) {
 		return fmt.Sprintf("raw: %d samples, want %d", len(got.Raw), len(want.Raw))
@@ -598,5 +601,161 @@ func testOutboxQuarantine(t *testing.T, b Backend) {
 	// The loop itself stays in the store.
 	if _, err := b.Loop(ctx(), "run-a", 1); err != nil {
 		t.Fatalf("quarantined loop: %v", err)
+	}
+}
+
+// revisionOf returns revision n of run r with a changed specimen and the
+// loops of r's revision 1 (given) with B halved, as a re-process with twice
+// the cross-section would make them.
+func revisionOf(r record.Run, n int, by string, loops []record.Loop) (record.Revision, []record.Loop) {
+	cfg := fmt.Sprintf("# specimen\nid: %s-x%d\n", r.Specimen, n)
+	sum := sha256.Sum256([]byte(cfg))
+	v := record.Revision{RunID: r.ID, N: n, At: t0.Add(time.Duration(n) * time.Hour), By: by,
+		Change: "specimen: area 50 → 100 mm²", Fixture: r.Fixture, Specimen: fmt.Sprintf("%s-x%d", r.Specimen, n),
+		Material: r.Material, Grade: "", Config: cfg, ConfigHash: hex.EncodeToString(sum[:])}
+	var out []record.Loop
+	for _, l := range loops {
+		l.Revision = n
+		l.Points = append([]record.Point(nil), l.Points...)
+		for i := range l.Points {
+			l.Points[i].B /= 2
+		}
+		l.Figures = append([]record.Figure(nil), l.Figures...)
+		for i := range l.Figures {
+			l.Figures[i].Value /= 2
+		}
+		l.Verdicts = nil
+		out = append(out, l)
+	}
+	return v, out
+}
+
+func testRevisions(t *testing.T, b Backend) {
+	run := SampleRun("run-r", t0)
+	must(t, b.CreateRun(ctx(), run))
+	var orig []record.Loop
+	for n := 1; n <= 2; n++ {
+		l := SampleLoop(run.ID, n, 30, t0.Add(time.Duration(n)*time.Minute))
+		must(t, b.AddLoop(ctx(), l))
+		orig = append(orig, l)
+	}
+	revs, err := b.Revisions(ctx(), run.ID)
+	must(t, err)
+	if len(revs) != 1 || revs[0].N != 1 || revs[0].Specimen != run.Specimen || revs[0].By != run.Operator || revs[0].Config != run.Config {
+		t.Fatalf("revisions of a new run: %+v", revs)
+	}
+	v2, l2 := revisionOf(run, 2, "alba", orig)
+	// Refused, storing nothing: a run still running, a revision that is not
+	// the next, a wrong config hash, a loop the run does not have.
+	if err := b.AddRevision(ctx(), v2, l2); err == nil {
+		t.Fatal("revision of a queued run stored")
+	}
+	must(t, b.SetState(ctx(), run.ID, record.Running, "", t0))
+	must(t, b.SetState(ctx(), run.ID, record.Finished, "", t0.Add(time.Hour)))
+	run.State, run.Ended = record.Finished, t0.Add(time.Hour)
+	v3, _ := revisionOf(run, 3, "alba", orig)
+	badHash := v2
+	badHash.ConfigHash = "00"
+	ghost := append([]record.Loop(nil), l2...)
+	ghost[1].N = 7
+	for name, c := range map[string]struct {
+		v record.Revision
+		l []record.Loop
+	}{"skips a revision": {v3, l2}, "bad hash": {badHash, l2}, "unknown loop": {v2, ghost}, "no loops": {v2, nil}} {
+		if err := b.AddRevision(ctx(), c.v, c.l); err == nil {
+			t.Fatalf("%s: stored", name)
+		}
+		if r, _ := b.Run(ctx(), run.ID); r.Revision != 1 {
+			t.Fatalf("%s: run revision %d after a refused revision", name, r.Revision)
+		}
+		if _, err := b.LoopsOf(ctx(), run.ID, 2); !errors.Is(err, record.ErrNotFound) {
+			t.Fatalf("%s: revision 2 readable after a refusal: %v", name, err)
+		}
+	}
+	if p, _ := b.Pending(ctx(), 0); len(p) != 2 {
+		t.Fatalf("%d outbox entries after refusals, want 2", len(p))
+	}
+	must(t, b.AddRevision(ctx(), v2, l2))
+	if err := b.AddRevision(ctx(), v2, l2); err == nil {
+		t.Fatal("revision 2 stored twice")
+	}
+	r, err := b.Run(ctx(), run.ID)
+	must(t, err)
+	if r.Revision != 2 || r.Specimen != run.Specimen || r.Config != run.Config {
+		t.Fatalf("run after revision 2: revision %d, specimen %q (the run row keeps revision 1's)", r.Revision, r.Specimen)
+	}
+	revs, err = b.Revisions(ctx(), run.ID)
+	must(t, err)
+	first := record.FirstRevision(run)
+	if len(revs) != 2 || revs[0].N != 1 || revs[0].Specimen != first.Specimen || revs[0].ConfigHash != first.ConfigHash ||
+		!revs[0].At.Equal(first.At) || revs[0].By != first.By {
+		t.Fatalf("revision 1 after a re-process: %+v, want %+v", revs[0], first)
+	}
+	g := revs[1]
+	if g.N != 2 || g.By != "alba" || g.Change != v2.Change || g.Specimen != v2.Specimen || g.Config != v2.Config ||
+		g.ConfigHash != v2.ConfigHash || !g.At.Equal(v2.At) || g.Fixture != v2.Fixture {
+		t.Fatalf("revision 2: %+v, want %+v", g, v2)
+	}
+	for n := 1; n <= 2; n++ {
+		// Revision 1 reads back exactly as stored; revision 2 has its own
+		// points and figures over the same raw samples.
+		got, err := b.LoopOf(ctx(), run.ID, n, 1)
+		must(t, err)
+		if d := SameLoop(got, orig[n-1]); d != "" {
+			t.Fatalf("loop %d revision 1: %s", n, d)
+		}
+		want := l2[n-1]
+		want.Raw = orig[n-1].Raw
+		for _, rev := range []int{2, 0} {
+			got, err = b.LoopOf(ctx(), run.ID, n, rev)
+			must(t, err)
+			if d := SameLoop(got, want); d != "" {
+				t.Fatalf("loop %d revision %d: %s", n, rev, d)
+			}
+		}
+		if got, err = b.Loop(ctx(), run.ID, n); err != nil || SameLoop(got, want) != "" {
+			t.Fatalf("Loop(%d) is not the latest revision: %v %s", n, err, SameLoop(got, want))
+		}
+	}
+	ls, err := b.Loops(ctx(), run.ID)
+	must(t, err)
+	if len(ls) != 2 || ls[0].Revision != 2 || ls[0].Figures[0].Value != orig[0].Figures[0].Value/2 {
+		t.Fatalf("Loops after revision 2: %+v", ls)
+	}
+	ls, err = b.LoopsOf(ctx(), run.ID, 1)
+	must(t, err)
+	if len(ls) != 2 || ls[0].Figures[0].Value != orig[0].Figures[0].Value || len(ls[0].Verdicts) != len(orig[0].Verdicts) {
+		t.Fatalf("LoopsOf revision 1: %+v", ls)
+	}
+	for _, rev := range []int{3, -1} {
+		if _, err := b.LoopOf(ctx(), run.ID, 1, rev); !errors.Is(err, record.ErrNotFound) {
+			t.Fatalf("revision %d: %v, want not found", rev, err)
+		}
+	}
+	if _, err := b.Revisions(ctx(), "ghost"); !errors.Is(err, record.ErrNotFound) {
+		t.Fatalf("revisions of an unknown run: %v", err)
+	}
+	// The outbox sends revision 2 beside revision 1: nothing is replaced.
+	p, err := b.Pending(ctx(), 0)
+	must(t, err)
+	var got []string
+	for _, e := range p {
+		got = append(got, fmt.Sprintf("%d/%d", e.Revision, e.Loop))
+	}
+	if fmt.Sprint(got) != "[1/1 1/2 2/1 2/2]" {
+		t.Fatalf("outbox entries (revision/loop) %v", got)
+	}
+	// The trend follows the latest revision.
+	tr, err := b.Trend(ctx(), run.Specimen, "Br", time.Time{})
+	must(t, err)
+	if len(tr) != 2 || tr[0].Value != orig[0].Figures[0].Value/2 {
+		t.Fatalf("trend after revision 2: %+v", tr)
+	}
+	v3, l3 := revisionOf(r, 3, "bo", orig)
+	must(t, b.AddRevision(ctx(), v3, l3))
+	revs, err = b.Revisions(ctx(), run.ID)
+	must(t, err)
+	if len(revs) != 3 || revs[2].By != "bo" || revs[1].By != "alba" {
+		t.Fatalf("three revisions: %+v", revs)
 	}
 }
