@@ -11,23 +11,27 @@ import (
 
 // Figure names, as stored with a loop (SI units).
 const (
-	FigHmax       = "Hmax"       // A/m, tip field, mean of |H| at both tips
-	FigBmax       = "Bmax"       // T, B at the tips, mean of both
-	FigBr         = "Br"         // T, B at H = 0
-	FigHcB        = "HcB"        // A/m, |H| at B = 0
-	FigHcJ        = "HcJ"        // A/m, |H| at J = 0
-	FigMuA        = "mu_a"       // amplitude permeability Bmax/(μ0·Hmax)
-	FigMuInitial  = "mu_initial" // B/(μ0·H) on the initial curve at a low B
-	FigMuMax      = "mu_max"     // maximum of B/(μ0·H) along the normal curve
-	FigHMuMax     = "H_mu_max"   // A/m, H at μ_max on the normal curve
-	FigLossJM3    = "loss_j_m3"  // ∮H dB per cycle, J/m³
-	FigLossJKg    = "loss_j_kg"  // loss per cycle per mass, J/kg
-	FigBHmax      = "BHmax"      // J/m³, 2nd-quadrant maximum of −B·H
-	FigBHmaxB     = "BHmax_B"    // T, B at the (BH)max point
-	FigBHmaxH     = "BHmax_H"    // A/m, |H| at the (BH)max point
-	FigHk         = "Hk"         // A/m, |H| where J = 0.9·Jr in the 2nd quadrant
-	FigSquareness = "squareness" // Hk/HcJ
-	FigMuRec      = "mu_rec"     // relative slope dB/dH/μ0 near Br (recoil permeability from the major loop)
+	FigHmax      = "Hmax"       // A/m, tip field, mean of |H| at both tips
+	FigBmax      = "Bmax"       // T, B at the tips, mean of both
+	FigBr        = "Br"         // T, B at H = 0
+	FigHcB       = "HcB"        // A/m, |H| at B = 0
+	FigHcJ       = "HcJ"        // A/m, |H| at J = 0
+	FigMuA       = "mu_a"       // amplitude permeability Bmax/(μ0·Hmax)
+	FigMuInitial = "mu_initial" // B/(μ0·H) on the initial curve at a low B
+	FigMuMax     = "mu_max"     // maximum of B/(μ0·H) along the normal curve
+	FigHMuMax    = "H_mu_max"   // A/m, H at μ_max on the normal curve
+	// FigDriveAmplitude is the amplitude a peak search settled on (A, or
+	// A/m under field control); FigPeakTarget the peak B or J aimed at, T.
+	FigDriveAmplitude = "drive_amplitude"
+	FigPeakTarget     = "peak_target"
+	FigLossJM3        = "loss_j_m3"  // ∮H dB per cycle, J/m³
+	FigLossJKg        = "loss_j_kg"  // loss per cycle per mass, J/kg
+	FigBHmax          = "BHmax"      // J/m³, 2nd-quadrant maximum of −B·H
+	FigBHmaxB         = "BHmax_B"    // T, B at the (BH)max point
+	FigBHmaxH         = "BHmax_H"    // A/m, |H| at the (BH)max point
+	FigHk             = "Hk"         // A/m, |H| where J = 0.9·Jr in the 2nd quadrant
+	FigSquareness     = "squareness" // Hk/HcJ
+	FigMuRec          = "mu_rec"     // relative slope dB/dH/μ0 near Br (recoil permeability from the major loop)
 )
 
 // Source is one input of the uncertainty budget, described by the change of
