@@ -280,4 +280,3 @@ func TestAgainstAnalytic(t *testing.T) {
 		}
 	}
 }
-
