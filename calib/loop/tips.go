@@ -211,7 +211,12 @@ func (s side) prepend(u, h, b float64) side {
 // collect gathers up to tipSide kept samples from i onwards in steps of
 // di while i stays within [lo, hi].
 func collect(i, di, lo, hi int, tm func(int) float64, get func(int) (float64, float64), keep func(int) bool) side {
-	var s side
+	n := hi - i + 1
+	if di < 0 {
+		n = i - lo + 1
+	}
+	n = max(min(n, tipSide), 0)
+	s := side{make([]float64, 0, n), make([]float64, 0, n), make([]float64, 0, n)}
 	for ; i >= lo && i <= hi && len(s.u) < tipSide; i += di {
 		if keep(i) {
 			h, b := get(i)
