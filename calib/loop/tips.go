@@ -360,7 +360,7 @@ func smoothApex(tp Tip, l, r side, lH, rH line, kept bool, sgn float64) Tip {
 	missK, missP := math.Inf(1), math.Inf(1)
 	if kept {
 		missK = math.Abs(sgn*math.Min(sgn*lH.at(te), sgn*rH.at(te)) - he)
-		if q, ok := quadThrough([]float64{l.u[1], l.u[0], r.u[0], r.u[1]}, []float64{l.h[1], l.h[0], r.h[0], r.h[1]}); ok {
+		if q, ok := fitQuad([]float64{l.u[1], l.u[0], r.u[0], r.u[1]}, []float64{l.h[1], l.h[0], r.h[0], r.h[1]}, 0, 3); ok {
 			missP = math.Abs(q.at(te) - he)
 		}
 		if missK <= roundOff*math.Abs(he) {
@@ -419,7 +419,7 @@ func roundedApex(tp Tip, l, r side, ha, miss, floor, sgn float64) Tip {
 	} else {
 		u, h, b = []float64{l.u[0], r.u[0], r.u[1]}, []float64{l.h[0], r.h[0], r.h[1]}, []float64{l.b[0], r.b[0], r.b[1]}
 	}
-	qh, ok := quadThrough(u, h)
+	qh, ok := fitQuad(u, h, 0, 2)
 	if !ok || !(sgn*qh.c[2] < 0) {
 		tp.vH = floor + miss*miss
 		return tp
@@ -435,35 +435,10 @@ func roundedApex(tp Tip, l, r side, ha, miss, floor, sgn float64) Tip {
 	hv = sgn * math.Min(math.Max(sgn*hv, sgn*tp.H), sgn*ha)
 	tp.T, tp.H, tp.N = tv, hv, 3
 	tp.vH = floor + miss*miss
-	if qb, ok := quadThrough(u, b); ok {
+	if qb, ok := fitQuad(u, b, 0, 2); ok {
 		tp.B = qb.at(tv)
 	}
 	return tp
-}
-
-// quadThrough returns the parabola through three points, or the
-// least-squares parabola through more (u ascending).
-func quadThrough(u, v []float64) (quad, bool) {
-	q := quad{uc: (u[0] + u[len(u)-1]) / 2, scale: (u[len(u)-1] - u[0]) / 2, n: len(u), lo: u[0], hi: u[len(u)-1]}
-	if !(q.scale > 0) {
-		return quad{}, false
-	}
-	var s [5]float64
-	var rr [3]float64
-	for i := range u {
-		x := (u[i] - q.uc) / q.scale
-		xp := 1.0
-		for k := 0; k < 5; k++ {
-			s[k] += xp
-			if k < 3 {
-				rr[k] += v[i] * xp
-			}
-			xp *= x
-		}
-	}
-	c, ok := solve3([3][3]float64{{s[0], s[1], s[2]}, {s[1], s[2], s[3]}, {s[2], s[3], s[4]}}, rr)
-	q.c = c
-	return q, ok
 }
 
 // noisyRounded reads a noisy tip as the vertex of a least-squares parabola
