@@ -27,6 +27,7 @@ import (
 	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
+	"hystd/calib/units"
 	"hystd/drivers/clock"
 	"hystd/drivers/sim"
 )
@@ -561,9 +562,12 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 	}
 	chromium := findChromium(t)
 	rd := api.NewMemReader()
+	mag := api.StraightLineMagnet("MAG-1", 4000, 1.30, 1.05)
+	mag.Figures = append(mag.Figures, record.Figure{Name: "Hk", Value: 931117.5, U: 2834, Unit: "A/m"},
+		record.Figure{Name: "HcB", Value: 985245.31, U: 99.6, Unit: "A/m"})
 	api.Put(rd, record.Run{ID: "MAG-1", Recipe: "magnet-demag-curve", Fixture: "yoke-demo", Specimen: "M-3",
 		Material: "sintered magnet (invented grade)", State: record.Finished, Started: time.Date(2026, 11, 30, 9, 0, 0, 0, time.UTC)},
-		api.StraightLineMagnet("MAG-1", 4000, 1.30, 1.05))
+		mag)
 	h, err := api.New(api.Options{Reader: rd})
 	if err != nil {
 		t.Fatal(err)
@@ -575,6 +579,34 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 	b.wait("run listed", `!!document.querySelector('#runs-list li[data-run-id="MAG-1"]')`, 20*time.Second)
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#runs-list li[data-run-id="MAG-1"]').click()`))
 	b.wait("loop plot", `document.body.dataset.loop === "MAG-1#1"`, 10*time.Second)
+	// Every figure as value ± U rounded by the page's rule, which must be
+	// the Go one (calib/units.Rounded, GUM 7.2.6), in SI and in CGS.
+	for _, f := range mag.Figures {
+		vs, us := units.Rounded(f.Value, f.U)
+		want := strings.ReplaceAll(vs+" ± "+us+" "+f.Unit, "-", "−")
+		if us == "—" {
+			want = vs + " (U not evaluated) " + f.Unit
+		}
+		got := js[string](b, fmt.Sprintf(`document.querySelector('#figures tr[data-figure=%q] td.vu').textContent`, f.Name))
+		if got != want {
+			t.Errorf("figure %s shown as %q, want %q", f.Name, got, want)
+		}
+	}
+	if got := js[string](b, `document.querySelector('#figures tr[data-figure="HcB"] td.cgs-col').textContent`); got != "12381.0 ± 1.3 Oe" {
+		// 985 245.31 A/m ± 99.6 A/m = 12 380.96 Oe ± 1.2516 Oe (1 Oe =
+		// 79.577 4715 A/m, NBS SP 696): U to 1.3, the value to 0.1.
+		t.Errorf("HcB in CGS shown as %q, want 12381.0 ± 1.3 Oe", got)
+	}
+	cases := [][2]float64{{100.02147, 0.00079}, {1234.5, 9.96}, {48213.7, 99.6}, {-50.0116, 0.0198}, {-0.00004, 0.0123},
+		{12345.678, 0}, {320204.6, 2834}, {0.5, 0.0996}, {1.807441, 0.007455}}
+	arg, _ := json.Marshal(cases)
+	got := js[[][2]string](b, fmt.Sprintf(`%s.map(c => roundU(c[0], c[1]))`, arg))
+	for i, c := range cases {
+		vs, us := units.Rounded(c[0], c[1])
+		if want := [2]string{strings.ReplaceAll(vs, "-", "−"), us}; got[i] != want {
+			t.Errorf("page roundU(%g, %g) = %q, Go's units.Rounded %q", c[0], c[1], got[i], want)
+		}
+	}
 	b.do(chromedp.Evaluate[chromedp.Void](`document.querySelector('#q2-toggle').click()`))
 	b.wait("marker", `!!document.querySelector('#loop-plot circle.bhmax')`, 5*time.Second)
 	label := js[string](b, `document.querySelector('#loop-plot .marker-label').textContent`)

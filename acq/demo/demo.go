@@ -10,7 +10,6 @@ import (
 	"io"
 	"io/fs"
 	"log/slog"
-	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -27,6 +26,7 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/store"
+	"hystd/calib/units"
 	"hystd/configs"
 	"hystd/drivers/clock"
 	"hystd/drivers/sim"
@@ -300,18 +300,15 @@ func writePlot(path string, run record.Run, loops []record.Loop) error {
 }
 
 // PrintFigures writes a table of every loop's figures with their expanded
-// uncertainties (k = 2) and units.
+// uncertainties (k = 2) and units, rounded to U (calib/units.Rounded).
 func PrintFigures(w io.Writer, loops []record.Loop) {
 	for _, l := range loops {
 		fmt.Fprintf(w, "\nloop %d (%s, ±%.6g %s)\n", l.N, l.Kind, l.Amplitude, l.AmpUnit)
 		tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "figure\tvalue\t± U (k=2)\tunit\t")
 		for _, f := range l.Figures {
-			u := "—"
-			if !math.IsNaN(f.U) {
-				u = fmt.Sprintf("%.3g", f.U)
-			}
-			fmt.Fprintf(tw, "%s\t%.5g\t%s\t%s\t\n", f.Name, f.Value, u, f.Unit)
+			v, u := units.Rounded(f.Value, f.U) // GUM 7.2.6
+			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t\n", f.Name, v, u, f.Unit)
 		}
 		tw.Flush()
 		var cs []string

@@ -13,15 +13,6 @@ import (
 	"hystd/calib/units"
 )
 
-// Figures a loop aimed at a peak induction carries besides its own.
-const (
-	// FigDriveAmplitude is the amplitude the search settled on, in the
-	// step's unit (A, or A/m under control: field).
-	FigDriveAmplitude = "drive_amplitude"
-	// FigPeakTarget is the peak B or J aimed at, T (the note says which).
-	FigPeakTarget = "peak_target"
-)
-
 // aimConditioning is the number of cycles at the amplitude found before the
 // loop is recorded: the tries ran at other amplitudes.
 const aimConditioning = 2
@@ -144,12 +135,12 @@ func (x *exec) tryAt(ctx context.Context, st recipe.Step) (float64, error) {
 	return bmax, nil
 }
 
-// aimFigures are the figures an aimed loop adds: the amplitude used and the
-// target.
+// aimFigures are the figures an aimed loop adds (calib/loop.Defs, FromAim):
+// the amplitude used, in the step's unit, and the target.
 func aimFigures(st recipe.Step) []record.Figure {
 	k := st.Aim
 	return []record.Figure{
-		{Name: FigDriveAmplitude, Value: st.End(), Unit: st.Unit, Note: fmt.Sprintf("amplitude found for the peak %s", k.Of)},
-		{Name: FigPeakTarget, Value: k.Target, Unit: "T", Note: fmt.Sprintf("peak %s aimed at, within ±%g T", k.Of, k.Tolerance)},
+		{Name: loop.FigDriveAmplitude, Value: st.End(), Unit: st.Unit, Note: fmt.Sprintf("amplitude found for the peak %s", k.Of)},
+		{Name: loop.FigPeakTarget, Value: k.Target, Unit: loop.Units[loop.FigPeakTarget], Note: fmt.Sprintf("peak %s aimed at, within ±%g T", k.Of, k.Tolerance)},
 	}
 }

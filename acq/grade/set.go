@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"hystd/acq/record"
+	"hystd/calib/units"
 	"hystd/configs"
 )
 
@@ -111,7 +112,7 @@ func Print(w io.Writer, loops []record.Loop) {
 		v0 := l.Verdicts[0]
 		fmt.Fprintf(w, "\nloop %d against grade %s (rule %s): %s\n", l.N, v0.Grade, v0.Rule, strings.ToUpper(string(record.Worst(l.Verdicts))))
 		for _, v := range l.Verdicts {
-			vs, us := FormatU(v.Value, v.U)
+			vs, us := units.Rounded(v.Value, v.U)
 			fmt.Fprintf(w, "  %-10s %-9s %s ± %s %s, limit %s", v.Figure, v.Outcome, vs, us, v.Unit, Bounds(v))
 			if v.Note != "" {
 				fmt.Fprintf(w, "  (%s)", v.Note)

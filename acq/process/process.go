@@ -419,7 +419,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 // reported says which figures a class reports (calib/loop.Defs).
 func reported(class, name string) bool {
 	d, ok := loop.DefOf(name)
-	return ok && !d.Curve && (d.Class == "" || d.Class == class)
+	return ok && d.From == loop.FromLoop && (d.Class == "" || d.Class == class)
 }
 
 func appendSource(s []loop.Source, name string, hScale, hShift, bScale, bShift float64, note string) []loop.Source {

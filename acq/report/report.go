@@ -21,6 +21,7 @@ import (
 	"hystd/acq/plot"
 	"hystd/acq/record"
 	"hystd/calib/loop"
+	"hystd/calib/units"
 )
 
 // Input is everything a report shows.
@@ -396,7 +397,7 @@ func (d *doc) loop(run record.Run, sp config.Specimen, l record.Loop) error {
 	p.Ln(-1)
 	p.SetFont(font, "", 8.5)
 	for _, f := range l.Figures {
-		vs, us := grade.FormatU(f.Value, f.U)
+		vs, us := units.Rounded(f.Value, f.U)
 		note := clip(strings.ReplaceAll(f.Note, "∮", "∫"), 62)
 		p.CellFormat(cols[0], lineH, figName(f.Name), "", 0, "L", false, 0, "")
 		p.CellFormat(cols[1], lineH, vs, "", 0, "L", false, 0, "")
@@ -425,7 +426,7 @@ func (d *doc) loop(run record.Run, sp config.Specimen, l record.Loop) error {
 			strings.ToUpper(string(record.Worst(l.Verdicts)))), "", "L", false)
 		p.SetFont(font, "", 8.5)
 		for _, v := range l.Verdicts {
-			vs, us := grade.FormatU(v.Value, v.U)
+			vs, us := units.Rounded(v.Value, v.U)
 			line := fmt.Sprintf("%s = %s ± %s %s, limit %s %s → %s", figName(v.Figure), vs, us, v.Unit, grade.Bounds(v), v.Unit, v.Outcome)
 			if v.Note != "" {
 				line += "  (" + v.Note + ")"

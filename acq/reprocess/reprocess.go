@@ -37,6 +37,7 @@ import (
 	"hystd/acq/process"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
+	"hystd/calib/loop"
 	"hystd/configs"
 )
 
@@ -169,7 +170,7 @@ func Run(ctx context.Context, st Store, o Options) (Result, error) {
 			// What the engine found while driving the loop (the amplitude of
 			// a peak-aimed loop) is a fact of the recording: kept.
 			for _, f := range pl.Figures {
-				if f.Name == engine.FigDriveAmplitude || f.Name == engine.FigPeakTarget {
+				if d, ok := loop.DefOf(f.Name); ok && d.From == loop.FromAim {
 					l.Figures = append(l.Figures, f)
 				}
 			}

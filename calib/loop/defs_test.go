@@ -19,12 +19,13 @@ func TestDefs(t *testing.T) {
 		}
 	}
 	for _, n := range []string{FigHmax, FigBmax, FigBr, FigHcB, FigHcJ, FigMuA, FigMuInitial, FigMuMax, FigHMuMax,
-		FigLossJM3, FigLossJKg, FigBHmax, FigBHmaxB, FigBHmaxH, FigHk, FigSquareness, FigMuRec} {
+		FigLossJM3, FigLossJKg, FigBHmax, FigBHmaxB, FigBHmaxH, FigHk, FigSquareness, FigMuRec,
+		FigDriveAmplitude, FigPeakTarget} {
 		if !seen[n] {
 			t.Errorf("figure %s has no declaration in Defs", n)
 		}
 	}
-	if len(order) != len(Defs)-2 {
+	if len(order) != len(Defs)-4 {
 		t.Errorf("order %v", order)
 	}
 }

@@ -31,8 +31,13 @@
 //   - Tips: the apex of the sweep H(t) — two straight lines, through the two samples nearest the tip on each
 //     side (smooth data: exact for a triangular sweep even when no sample falls on the apex) or
 //     least-squares over a window that the noise and a quadratic-term test allow (noisy). B is read on both
-//     lines at the apex and averaged. A tip within 8 samples of the record's start or end is read from the
-//     one side, at the record's end. Tip samples belong to the sweep; no band average.
+//     lines at the apex and averaged. A rounded tip (sinusoidal sweep, lagging current) is the vertex of a
+//     parabola of H(t) instead: on smooth data when the parabola through the four nearest samples predicts
+//     the extreme sample better than the lines (left out; the winner's miss enters U), kept between the
+//     extreme sample and the lines' apex; with noise when a parabola over the widest window without a quartic
+//     term bends significantly and fits as well as two lines (F test). A tip within 8 samples of the
+//     record's start or end is read from the one side, at the record's end. Tip samples belong to the sweep;
+//     no band average. `readTip` and its stages are in tips.go; tests on Hm·cos ωt in roundtip_test.go.
 //   - (BH)max, operating point: on each complete falling branch, the exact maximum of −H·B along the straight
 //     pieces between samples, refined on smooth data by the cubics of H(t) and B(t) through four samples
 //     (golden section on three pieces), or with noise the vertex of a local parabola of the product; mean over
@@ -70,7 +75,9 @@
 // HcB 40, HcJ 40, μa 39, loss 38 of 40 (asserted ≥ 38 each). The loss depends on the closure ε (a tilt of B
 // moves W by −Hmax·ε), so the tips' B must carry their noise even where no line window passes (then the
 // sample's own noise is the floor).
-// `hystd analyze` rounds each value to its U (two significant digits of U, GUM 7.2.6); the store keeps full
+// Every reported value is rounded to its U (two significant digits of U, GUM 7.2.6) by one rule per
+// language: `calib/units.Rounded` (analyze, run, demo, import, verdicts, the PDF report) and `roundU` in the
+// page's app.js (checked against the Go rule by `TestBrowserMagnetQuadrant`); the store and JSON keep full
 // precision.
 //
 // # Checks against outside values

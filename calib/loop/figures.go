@@ -11,23 +11,27 @@ import (
 
 // Figure names, as stored with a loop (SI units).
 const (
-	FigHmax       = "Hmax"       // A/m, tip field, mean of |H| at both tips
-	FigBmax       = "Bmax"       // T, B at the tips, mean of both
-	FigBr         = "Br"         // T, B at H = 0
-	FigHcB        = "HcB"        // A/m, |H| at B = 0
-	FigHcJ        = "HcJ"        // A/m, |H| at J = 0
-	FigMuA        = "mu_a"       // amplitude permeability Bmax/(μ0·Hmax)
-	FigMuInitial  = "mu_initial" // B/(μ0·H) on the initial curve at a low B
-	FigMuMax      = "mu_max"     // maximum of B/(μ0·H) along the normal curve
-	FigHMuMax     = "H_mu_max"   // A/m, H at μ_max on the normal curve
-	FigLossJM3    = "loss_j_m3"  // ∮H dB per cycle, J/m³
-	FigLossJKg    = "loss_j_kg"  // loss per cycle per mass, J/kg
-	FigBHmax      = "BHmax"      // J/m³, 2nd-quadrant maximum of −B·H
-	FigBHmaxB     = "BHmax_B"    // T, B at the (BH)max point
-	FigBHmaxH     = "BHmax_H"    // A/m, |H| at the (BH)max point
-	FigHk         = "Hk"         // A/m, |H| where J = 0.9·Jr in the 2nd quadrant
-	FigSquareness = "squareness" // Hk/HcJ
-	FigMuRec      = "mu_rec"     // relative slope dB/dH/μ0 near Br (recoil permeability from the major loop)
+	FigHmax      = "Hmax"       // A/m, tip field, mean of |H| at both tips
+	FigBmax      = "Bmax"       // T, B at the tips, mean of both
+	FigBr        = "Br"         // T, B at H = 0
+	FigHcB       = "HcB"        // A/m, |H| at B = 0
+	FigHcJ       = "HcJ"        // A/m, |H| at J = 0
+	FigMuA       = "mu_a"       // amplitude permeability Bmax/(μ0·Hmax)
+	FigMuInitial = "mu_initial" // B/(μ0·H) on the initial curve at a low B
+	FigMuMax     = "mu_max"     // maximum of B/(μ0·H) along the normal curve
+	FigHMuMax    = "H_mu_max"   // A/m, H at μ_max on the normal curve
+	// FigDriveAmplitude is the amplitude a peak search settled on (A, or
+	// A/m under field control); FigPeakTarget the peak B or J aimed at, T.
+	FigDriveAmplitude = "drive_amplitude"
+	FigPeakTarget     = "peak_target"
+	FigLossJM3        = "loss_j_m3"  // ∮H dB per cycle, J/m³
+	FigLossJKg        = "loss_j_kg"  // loss per cycle per mass, J/kg
+	FigBHmax          = "BHmax"      // J/m³, 2nd-quadrant maximum of −B·H
+	FigBHmaxB         = "BHmax_B"    // T, B at the (BH)max point
+	FigBHmaxH         = "BHmax_H"    // A/m, |H| at the (BH)max point
+	FigHk             = "Hk"         // A/m, |H| where J = 0.9·Jr in the 2nd quadrant
+	FigSquareness     = "squareness" // Hk/HcJ
+	FigMuRec          = "mu_rec"     // relative slope dB/dH/μ0 near Br (recoil permeability from the major loop)
 )
 
 // Source is one input of the uncertainty budget, described by the change of
@@ -393,85 +397,113 @@ func (a *analysis) eval(v variant) vals {
 	// nv collects the noise variances of the nominal readings (from the
 	// local fits and the noise near each reading).
 	nv := vals{}
-	// Tips.
-	var top, bot, topB, botB, nt, nbt, vt, vb, vtB, vbB float64
 	// A subset of samples (parity) serves only the figures whose noise is
 	// not evaluated from the nominal reading's own fit: the tips and the
 	// crossings are skipped for it.
 	lite := v.parity >= 0
-	var tips []Tip
 	if !lite {
-		tips = a.tipsOf(v)
+		a.evalTips(v, out, nv)
 	}
-	for _, tp := range tips {
+	a.evalBranches(v, lite, out, nv)
+	if v.parity < 0 && !v.half && v.src == nil {
+		a.nomVar = nv
+	}
+	a.evalWhole(v, out)
+	return out
+}
+
+// evalTips sets Hmax, Bmax and μa from the tips, with their noise
+// variances.
+func (a *analysis) evalTips(v variant, out, nv vals) {
+	var top, bot, topB, botB, nt, nbt, vt, vb, vtB, vbB float64
+	for _, tp := range a.tipsOf(v) {
 		if tp.Top {
 			top, topB, nt, vt, vtB = top+tp.H, topB+tp.B, nt+1, vt+tp.vH, vtB+tp.vB
 		} else {
 			bot, botB, nbt, vb, vbB = bot+tp.H, botB+tp.B, nbt+1, vb+tp.vH, vbB+tp.vB
 		}
 	}
-	if nt > 0 && nbt > 0 {
-		out[FigHmax] = (top/nt - bot/nbt) / 2
-		out[FigBmax] = (topB/nt - botB/nbt) / 2
-		out[FigMuA] = out[FigBmax] / (units.Mu0 * out[FigHmax])
-		nv[FigHmax] = (vt/(nt*nt) + vb/(nbt*nbt)) / 4
-		nv[FigBmax] = (vtB/(nt*nt) + vbB/(nbt*nbt)) / 4
-		nv[FigMuA] = out[FigMuA] * out[FigMuA] * (nv[FigBmax]/(out[FigBmax]*out[FigBmax]) + nv[FigHmax]/(out[FigHmax]*out[FigHmax]))
+	if nt == 0 || nbt == 0 {
+		return
 	}
-	var br, hcb, hcj []float64
-	var bh, bhB, bhH, hk, murec []float64
-	var vbr, vhcb, vhcj, vbh, vhk []float64
+	out[FigHmax] = (top/nt - bot/nbt) / 2
+	out[FigBmax] = (topB/nt - botB/nbt) / 2
+	out[FigMuA] = out[FigBmax] / (units.Mu0 * out[FigHmax])
+	nv[FigHmax] = (vt/(nt*nt) + vb/(nbt*nbt)) / 4
+	nv[FigBmax] = (vtB/(nt*nt) + vbB/(nbt*nbt)) / 4
+	nv[FigMuA] = out[FigMuA] * out[FigMuA] * (nv[FigBmax]/(out[FigBmax]*out[FigBmax]) + nv[FigHmax]/(out[FigHmax]*out[FigHmax]))
+}
+
+// branchReads are the readings of every branch, with their noise
+// variances, before they are averaged.
+type branchReads struct {
+	br, hcb, hcj, bh, bhB, bhH, hk, murec []float64
+	vbr, vhcb, vhcj, vbh, vhk             []float64
+}
+
+// evalBranches sets the figures read on each branch (Br, HcB, HcJ, and on
+// falling branches (BH)max, Hk and μrec near Br), averaged over the
+// branches, and the squareness.
+func (a *analysis) evalBranches(v variant, lite bool, out, nv vals) {
+	var r branchReads
 	for k, c := range a.branches {
-		xbr, xhcb, xhcj, xhk := nan(), nan(), nan(), nan()
-		if !lite {
-			xbr, xhcb, xhcj, xhk = a.loc.crossings(k, v, c.dir == Falling)
-		}
-		cv := a.loc.crossVar
-		if !math.IsNaN(xbr) {
-			br, vbr = append(br, math.Abs(xbr)), append(vbr, cv[crBr])
-		}
-		if !math.IsNaN(xhcb) {
-			hcb, vhcb = append(hcb, math.Abs(xhcb)), append(vhcb, cv[crHcB])
-		}
-		if !math.IsNaN(xhcj) {
-			hcj, vhcj = append(hcj, math.Abs(xhcj)), append(vhcj, cv[crHcJ])
-		}
-		if c.dir != Falling {
-			continue
-		}
-		if m, mb, mh := a.bhMax(k, v); m > 0 {
-			bh, bhB, bhH = append(bh, m), append(bhB, mb), append(bhH, math.Abs(mh))
-			vbh = append(vbh, a.bhVar)
-		}
-		if !math.IsNaN(xhk) && xhk < 0 {
-			hk, vhk = append(hk, -xhk), append(vhk, cv[crHk])
-		}
-		reach := -xhk / 2
-		if !(reach > 0) && !math.IsNaN(xhcb) {
-			reach = math.Abs(xhcb) / 4
-		}
-		if lite {
-			reach = a.reach[k]
-		} else if v.src == nil && !v.half {
-			a.reach[k] = reach
-		}
-		if mu := a.slopeNearBr(k, v, reach); !math.IsNaN(mu) {
-			murec = append(murec, mu)
-		}
+		a.readBranch(k, c.dir == Falling, v, lite, &r)
 	}
-	out[FigBr], out[FigHcB], out[FigHcJ] = meanOf(br), meanOf(hcb), meanOf(hcj)
-	out[FigBHmax], out[FigBHmaxB], out[FigBHmaxH] = meanOf(bh), meanOf(bhB), meanOf(bhH)
-	out[FigHk], out[FigMuRec] = meanOf(hk), meanOf(murec)
-	nv[FigBr], nv[FigHcB], nv[FigHcJ] = varOfMean(vbr), varOfMean(vhcb), varOfMean(vhcj)
-	nv[FigBHmax], nv[FigHk] = varOfMean(vbh), varOfMean(vhk)
-	if len(hk) > 0 && out[FigHcJ] > 0 {
+	out[FigBr], out[FigHcB], out[FigHcJ] = meanOf(r.br), meanOf(r.hcb), meanOf(r.hcj)
+	out[FigBHmax], out[FigBHmaxB], out[FigBHmaxH] = meanOf(r.bh), meanOf(r.bhB), meanOf(r.bhH)
+	out[FigHk], out[FigMuRec] = meanOf(r.hk), meanOf(r.murec)
+	nv[FigBr], nv[FigHcB], nv[FigHcJ] = varOfMean(r.vbr), varOfMean(r.vhcb), varOfMean(r.vhcj)
+	nv[FigBHmax], nv[FigHk] = varOfMean(r.vbh), varOfMean(r.vhk)
+	if len(r.hk) > 0 && out[FigHcJ] > 0 {
 		out[FigSquareness] = out[FigHk] / out[FigHcJ]
 		sq := out[FigSquareness]
 		nv[FigSquareness] = sq * sq * (nv[FigHk]/(out[FigHk]*out[FigHk]) + nv[FigHcJ]/(out[FigHcJ]*out[FigHcJ]))
 	}
-	if v.parity < 0 && !v.half && v.src == nil {
-		a.nomVar = nv
+}
+
+// readBranch adds branch k's readings to r.
+func (a *analysis) readBranch(k int, falling bool, v variant, lite bool, r *branchReads) {
+	xbr, xhcb, xhcj, xhk := nan(), nan(), nan(), nan()
+	if !lite {
+		xbr, xhcb, xhcj, xhk = a.loc.crossings(k, v, falling)
 	}
+	cv := a.loc.crossVar
+	if !math.IsNaN(xbr) {
+		r.br, r.vbr = append(r.br, math.Abs(xbr)), append(r.vbr, cv[crBr])
+	}
+	if !math.IsNaN(xhcb) {
+		r.hcb, r.vhcb = append(r.hcb, math.Abs(xhcb)), append(r.vhcb, cv[crHcB])
+	}
+	if !math.IsNaN(xhcj) {
+		r.hcj, r.vhcj = append(r.hcj, math.Abs(xhcj)), append(r.vhcj, cv[crHcJ])
+	}
+	if !falling {
+		return
+	}
+	if m, mb, mh := a.bhMax(k, v); m > 0 {
+		r.bh, r.bhB, r.bhH = append(r.bh, m), append(r.bhB, mb), append(r.bhH, math.Abs(mh))
+		r.vbh = append(r.vbh, a.bhVar)
+	}
+	if !math.IsNaN(xhk) && xhk < 0 {
+		r.hk, r.vhk = append(r.hk, -xhk), append(r.vhk, cv[crHk])
+	}
+	reach := -xhk / 2
+	if !(reach > 0) && !math.IsNaN(xhcb) {
+		reach = math.Abs(xhcb) / 4
+	}
+	if lite {
+		reach = a.reach[k]
+	} else if v.src == nil && !v.half {
+		a.reach[k] = reach
+	}
+	if mu := a.slopeNearBr(k, v, reach); !math.IsNaN(mu) {
+		r.murec = append(r.murec, mu)
+	}
+}
+
+// evalWhole sets the figures of the whole record: the loss, μ_initial on
+// the initial curve and μrec on a recoil loop.
+func (a *analysis) evalWhole(v variant, out vals) {
 	out[FigLossJM3] = a.loss(v)
 	if a.opt.Density > 0 {
 		out[FigLossJKg] = out[FigLossJM3] / a.opt.Density
@@ -484,7 +516,6 @@ func (a *analysis) eval(v variant) vals {
 			out[FigMuRec] = mu
 		}
 	}
-	return out
 }
 
 // varOfMean is the variance of the mean of readings of variances x.
@@ -518,19 +549,79 @@ func meanOf(x []float64) float64 {
 // (smooth.go), the vertex of a local least-squares parabola of the product
 // in time is taken instead, with H and B read at its time.
 func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
-	c := a.loc.cross[k]
-	if c[crBr] < 0 {
+	lo, hi, ok := a.bhRange(k)
+	if !ok {
 		return 0, 0, 0
 	}
+	m, atB, atH, im := a.bhPieces(v, lo, hi)
+	if im < 0 {
+		return 0, 0, 0
+	}
+	// Pass 2: a local fit around it where noise dominates.
 	w := a.loc.window[k]
-	lo := max(a.loc.start[k], c[crBr]-w)
-	hi := a.loc.end[k] // a demagnetization curve may stop before B = 0
+	us, ps, hs, bs := a.loc.bt[:0], a.loc.bx[:0], a.loc.by[:0], a.loc.bb[:0]
+	jm := 0
+	for i := max(lo, im-w); i <= min(hi, im+w); i++ {
+		if !v.keep(i) {
+			continue
+		}
+		if i <= im {
+			jm = len(us)
+		}
+		p := a.sample(v, i)
+		us, ps, hs, bs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h), append(bs, p.b)
+	}
+	a.loc.bt, a.loc.bx, a.loc.by, a.loc.bb = us, ps, hs, bs
+	// Without an accepted fit the maximum is read between samples and
+	// carries their noise (the product's scatter near the maximum).
+	a.bhVar = interpNoise(us[max(0, jm-noiseSpan):min(len(us), jm+noiseSpan+1)], ps[max(0, jm-noiseSpan):min(len(ps), jm+noiseSpan+1)])
+	q, ok := localFit(us, ps, jm)
+	if !ok {
+		return bhCubic(us, hs, bs, jm, m, atB, atH)
+	}
+	if !(q.c[2] < 0) {
+		return m, atB, atH
+	}
+	xv := -q.c[1] / (2 * q.c[2])
+	uv := q.uc + xv*q.scale
+	if uv < q.lo || uv > q.hi {
+		return m, atB, atH
+	}
+	pv := q.at(uv)
+	a.bhVar = q.se2(uv)
+	hv := interpAt(us, hs, uv)
+	if f, ok := localFit(us, hs, jm); ok {
+		hv = f.at(uv)
+	}
+	if !(hv < 0) {
+		return m, atB, atH
+	}
+	return pv, pv / -hv, hv
+}
+
+// bhRange returns the samples of falling branch k that (BH)max is sought
+// on: between its H = 0 and B = 0 crossings with the crossing window as
+// margin (to the branch's end when B never reaches 0: a demagnetization
+// curve may stop before). ok is false without an H = 0 crossing.
+func (a *analysis) bhRange(k int) (lo, hi int, ok bool) {
+	c := a.loc.cross[k]
+	if c[crBr] < 0 {
+		return 0, 0, false
+	}
+	w := a.loc.window[k]
+	lo, hi = max(a.loc.start[k], c[crBr]-w), a.loc.end[k]
 	if c[crHcB] >= 0 {
 		lo = max(a.loc.start[k], min(c[crBr], c[crHcB])-w)
 		hi = min(a.loc.end[k], max(c[crBr], c[crHcB])+w)
 	}
-	// Pass 1: the exact maximum along the straight pieces.
-	im := -1
+	return lo, hi, true
+}
+
+// bhPieces is pass 1 of bhMax: the exact maximum of −B·H in the 2nd
+// quadrant along the straight pieces between samples lo…hi, with the
+// sample ending its piece (im, −1 when none lies in the quadrant).
+func (a *analysis) bhPieces(v variant, lo, hi int) (m, atB, atH float64, im int) {
+	im = -1
 	var prev pt
 	first := true
 	for i := v.from(lo); i <= hi; i += v.step() {
@@ -559,66 +650,27 @@ func (a *analysis) bhMax(k int, v variant) (m, atB, atH float64) {
 			}
 		}
 	}
-	if im < 0 {
-		return 0, 0, 0
-	}
-	// Pass 2: a local fit around it where noise dominates.
-	us, ps, hs, bs := a.loc.bt[:0], a.loc.bx[:0], a.loc.by[:0], a.loc.bb[:0]
-	jm := 0
-	for i := max(lo, im-w); i <= min(hi, im+w); i++ {
-		if !v.keep(i) {
-			continue
-		}
-		if i <= im {
-			jm = len(us)
-		}
-		p := a.sample(v, i)
-		us, ps, hs, bs = append(us, p.t), append(ps, -p.h*p.b), append(hs, p.h), append(bs, p.b)
-	}
-	a.loc.bt, a.loc.bx, a.loc.by, a.loc.bb = us, ps, hs, bs
-	// Without an accepted fit the maximum is read between samples and
-	// carries their noise (the product's scatter near the maximum).
-	a.bhVar = interpNoise(us[max(0, jm-noiseSpan):min(len(us), jm+noiseSpan+1)], ps[max(0, jm-noiseSpan):min(len(ps), jm+noiseSpan+1)])
-	q, ok := localFit(us, ps, jm)
-	if !ok {
-		// Smooth data: the cubics of H(t) and B(t) through four samples
-		// refine the straight pieces around the maximum (smooth.go).
-		for j := jm - 2; j <= jm; j++ {
-			if j < 1 || j+2 >= len(us) {
-				continue
+	return m, atB, atH, im
+}
+
+// bhCubic refines the maximum (m at atB, atH) on smooth data: the cubics
+// of H(t) and B(t) through four samples around sample jm of us, hs, bs
+// (smooth.go), maximized by golden section.
+func bhCubic(us, hs, bs []float64, jm int, m, atB, atH float64) (float64, float64, float64) {
+	for j := max(jm-2, 1); j <= jm && j+2 < len(us); j++ {
+		f := func(x float64) float64 {
+			hv, bv := cubic4(us, hs, j, x), cubic4(us, bs, j, x)
+			if hv > 0 || bv < 0 {
+				return 0
 			}
-			f := func(x float64) float64 {
-				hv, bv := cubic4(us, hs, j, x), cubic4(us, bs, j, x)
-				if hv > 0 || bv < 0 {
-					return 0
-				}
-				return -hv * bv
-			}
-			x := goldenMax(f, us[j], us[j+1])
-			if pv := f(x); pv > m {
-				m, atH, atB = pv, cubic4(us, hs, j, x), cubic4(us, bs, j, x)
-			}
+			return -hv * bv
 		}
-		return m, atB, atH
+		x := goldenMax(f, us[j], us[j+1])
+		if pv := f(x); pv > m {
+			m, atH, atB = pv, cubic4(us, hs, j, x), cubic4(us, bs, j, x)
+		}
 	}
-	if !(q.c[2] < 0) {
-		return m, atB, atH
-	}
-	xv := -q.c[1] / (2 * q.c[2])
-	uv := q.uc + xv*q.scale
-	if uv < q.lo || uv > q.hi {
-		return m, atB, atH
-	}
-	pv := q.at(uv)
-	a.bhVar = q.se2(uv)
-	hv := interpAt(us, hs, uv)
-	if f, ok := localFit(us, hs, jm); ok {
-		hv = f.at(uv)
-	}
-	if !(hv < 0) {
-		return m, atB, atH
-	}
-	return pv, pv / -hv, hv
+	return m, atB, atH
 }
 
 // goldenMax returns where f is largest on [a, b], by golden-section search

@@ -63,60 +63,13 @@ func Detect(h []float64) (Shape, error) {
 	if n < 3 {
 		return Shape{}, fmt.Errorf("%w: %d samples", ErrNoLoop, n)
 	}
-	lo, hi := math.Inf(1), math.Inf(-1)
-	for i, v := range h {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			//lint:ignore ST1005 H is the field's symbol
-			return Shape{}, fmt.Errorf("H[%d] is not a finite number", i)
-		}
-		if v < lo {
-			lo = v
-		}
-		if v > hi {
-			hi = v
-		}
+	lo, hi, err := hRange(h)
+	if err != nil {
+		return Shape{}, err
 	}
 	span := hi - lo
-	if math.IsInf(span, 0) {
-		//lint:ignore ST1005 H is the field's symbol
-		return Shape{}, fmt.Errorf("H spans %g to %g A/m: the range overflows", lo, hi)
-	}
-	if !(span > 0) {
-		return Shape{}, fmt.Errorf("%w: H is constant", ErrNoLoop)
-	}
-	thr := ReversalFraction * span
-	// Find the first direction.
-	dir, ext, extI := 0, h[0], 0
-	var turns []int
-	for i := 1; i < n; i++ {
-		v := h[i]
-		switch dir {
-		case 0:
-			if v-h[0] > thr {
-				dir = Rising
-			} else if h[0]-v > thr {
-				dir = Falling
-			} else {
-				continue
-			}
-			ext, extI = v, i
-		case Rising:
-			if v > ext {
-				ext, extI = v, i
-			} else if ext-v > thr {
-				turns = append(turns, extI)
-				dir, ext, extI = Falling, v, i
-			}
-		case Falling:
-			if v < ext {
-				ext, extI = v, i
-			} else if v-ext > thr {
-				turns = append(turns, extI)
-				dir, ext, extI = Rising, v, i
-			}
-		}
-	}
-	if dir == 0 {
+	turns, last, ok := reversals(h, ReversalFraction*span)
+	if !ok {
 		return Shape{}, fmt.Errorf("%w by %.0f %% of its range", ErrNoLoop, 100*ReversalFraction)
 	}
 	// The last segment ends at the last extremum; the samples after it moved
@@ -124,8 +77,7 @@ func Detect(h []float64) (Shape, error) {
 	// and are labelled with the last segment's direction.
 	s := Shape{N: n, Lo: lo, Hi: hi}
 	start := 0
-	bounds := append(turns, extI)
-	for _, end := range bounds {
+	for _, end := range append(turns, last) {
 		if end <= start {
 			continue
 		}
@@ -136,20 +88,74 @@ func Detect(h []float64) (Shape, error) {
 		s.Segments = append(s.Segments, Segment{Start: start, End: end, Dir: d})
 		start = end
 	}
-	band := completeFraction * span
+	s.markComplete(h, completeFraction*span)
+	return s, nil
+}
+
+// hRange returns the extremes of h, refusing a value that is not a finite
+// number, a range that overflows and a constant H.
+func hRange(h []float64) (lo, hi float64, err error) {
+	lo, hi = math.Inf(1), math.Inf(-1)
+	for i, v := range h {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			//lint:ignore ST1005 H is the field's symbol
+			return 0, 0, fmt.Errorf("H[%d] is not a finite number", i)
+		}
+		if v < lo {
+			lo = v
+		}
+		if v > hi {
+			hi = v
+		}
+	}
+	if math.IsInf(hi-lo, 0) {
+		//lint:ignore ST1005 H is the field's symbol
+		return 0, 0, fmt.Errorf("H spans %g to %g A/m: the range overflows", lo, hi)
+	}
+	if !(hi-lo > 0) {
+		return 0, 0, fmt.Errorf("%w: H is constant", ErrNoLoop)
+	}
+	return lo, hi, nil
+}
+
+// reversals returns the samples where H reverses (the running extremum
+// once H has moved back from it by more than thr) and the last extremum;
+// ok is false when H never moves by thr.
+func reversals(h []float64, thr float64) (turns []int, last int, ok bool) {
+	dir, ext, extI := 0, h[0], 0
+	for i := 1; i < len(h); i++ {
+		v := h[i]
+		switch {
+		case dir == 0 && v-h[0] > thr:
+			dir, ext, extI = Rising, v, i
+		case dir == 0 && h[0]-v > thr:
+			dir, ext, extI = Falling, v, i
+		case dir == 0:
+		case float64(dir)*(v-ext) > 0:
+			ext, extI = v, i
+		case float64(dir)*(ext-v) > thr:
+			turns = append(turns, extI)
+			dir, ext, extI = -dir, v, i
+		}
+	}
+	return turns, extI, dir != 0
+}
+
+// markComplete marks the segments that run from one tip to the other
+// (within band of the extremes) and a first piece that starts near H = 0.
+func (s Shape) markComplete(h []float64, band float64) {
 	for k := range s.Segments {
 		g := &s.Segments[k]
 		a, b := h[g.Start], h[g.End]
 		if g.Dir == Rising {
-			g.Complete = a-lo <= band && hi-b <= band
+			g.Complete = a-s.Lo <= band && s.Hi-b <= band
 		} else {
-			g.Complete = hi-a <= band && b-lo <= band
+			g.Complete = s.Hi-a <= band && b-s.Lo <= band
 		}
 		if k == 0 && !g.Complete && math.Abs(a) <= band {
 			g.Initial = true
 		}
 	}
-	return s, nil
 }
 
 // Label calls set for every sample index with its branch label, as

@@ -90,10 +90,11 @@ func (q quad) se2(u float64) float64 {
 	return q.s2*math.Max(g, 0) + m*m
 }
 
-// fitQuad fits the parabola to (u[i], v[i]) for lo ≤ i ≤ hi.
+// fitQuad fits the parabola to (u[i], v[i]) for lo ≤ i ≤ hi (u ascending);
+// through three points it is exact (s2 = 0).
 func fitQuad(u, v []float64, lo, hi int) (quad, bool) {
 	n := hi - lo + 1
-	if n < 4 {
+	if n < 3 {
 		return quad{}, false
 	}
 	q := quad{uc: (u[lo] + u[hi]) / 2, scale: (u[hi] - u[lo]) / 2, n: n, lo: u[lo], hi: u[hi]}
@@ -135,7 +136,9 @@ func fitQuad(u, v []float64, lo, hi int) (quad, bool) {
 		r3 += e * x * x * x
 		x6 += x * x * x * x * x * x
 	}
-	q.s2 = ss / float64(n-3)
+	if n > 3 {
+		q.s2 = ss / float64(n-3)
+	}
 	if x6 > 0 {
 		q.c3 = r3 / x6
 	}

@@ -176,152 +176,366 @@ func curved(u, v []float64, m int) (bool, float64) {
 }
 
 // readTip finds the apex of the tip r (see Tips) among the samples that
-// keep accepts; get returns H and B of sample i, tm its time.
+// keep accepts; get returns H and B of sample i, tm its time. Its stages:
+// a tip at the record's start or end (tipAtEnd), the samples on both sides
+// (sides), a tip with one side only (oneSided), and the apex of both
+// (apexTip).
 func readTip(r tipRef, tm func(int) float64, get func(int) (float64, float64), keep func(int) bool) Tip {
 	e := r.index
 	he, be := get(e)
 	tp := Tip{Index: e, Top: r.top, T: tm(e), H: he, B: be, N: 1}
+	if t, ok := tipAtEnd(r, tp, tm, get, keep); ok {
+		return t
+	}
+	l, rt := sides(r, tm, get, keep)
+	if len(l.u) < 2 && len(rt.u) < 2 {
+		return tp
+	}
+	if len(l.u) < 2 || len(rt.u) < 2 {
+		return oneSided(tp, l, rt)
+	}
+	return apexTip(tp, l, rt, keep(e))
+}
+
+// side holds the samples on one side of a tip, ordered from the tip
+// outwards.
+type side struct{ u, h, b []float64 }
+
+func (s *side) add(u, h, b float64) { s.u, s.h, s.b = append(s.u, u), append(s.h, h), append(s.b, b) }
+
+// prepend puts the tip's own sample first.
+func (s side) prepend(u, h, b float64) side {
+	return side{append([]float64{u}, s.u...), append([]float64{h}, s.h...), append([]float64{b}, s.b...)}
+}
+
+// collect gathers up to tipSide kept samples from i onwards in steps of
+// di while i stays within [lo, hi].
+func collect(i, di, lo, hi int, tm func(int) float64, get func(int) (float64, float64), keep func(int) bool) side {
+	n := hi - i + 1
+	if di < 0 {
+		n = i - lo + 1
+	}
+	n = max(min(n, tipSide), 0)
+	s := side{make([]float64, 0, n), make([]float64, 0, n), make([]float64, 0, n)}
+	for ; i >= lo && i <= hi && len(s.u) < tipSide; i += di {
+		if keep(i) {
+			h, b := get(i)
+			s.add(tm(i), h, b)
+		}
+	}
+	return s
+}
+
+// sides returns the samples before and after the extreme sample.
+func sides(r tipRef, tm func(int) float64, get func(int) (float64, float64), keep func(int) bool) (side, side) {
+	return collect(r.index-1, -1, r.lo, r.hi, tm, get, keep), collect(r.index+1, 1, r.lo, r.hi, tm, get, keep)
+}
+
+// tipAtEnd reads a tip within a few samples of the start or end of the
+// record (a sweep that starts or ends at the tip): noise may have put the
+// extreme sample a little inside, so the samples before it belong to the
+// same side; with noise, the line through all of them is read at the
+// record's end (ok). Without an accepted window the tip is left to the
+// other stages.
+func tipAtEnd(r tipRef, tp Tip, tm func(int) float64, get func(int) (float64, float64), keep func(int) bool) (Tip, bool) {
+	e := r.index
+	cutL, cutR := r.lo == 0 && e < 2*minWindow, r.last && r.hi-e < 2*minWindow
+	if !cutL && !cutR {
+		return tp, false
+	}
+	s := collect(r.lo, 1, r.lo, r.hi, tm, get, keep)
+	if !cutL {
+		s = collect(r.hi, -1, r.lo, r.hi, tm, get, keep)
+	}
+	if len(s.u) < 2 {
+		return tp, false
+	}
+	lH, noisy := sideLine(s.u, s.h)
+	lB, _ := sideLine(s.u, s.b)
+	if !noisy {
+		return tp, false
+	}
+	tp.T, tp.H, tp.B, tp.N = s.u[0], lH.at(s.u[0]), lB.at(s.u[0]), len(s.u)
+	tp.vH, tp.vB = lH.se2(s.u[0]), lB.se2(s.u[0])
+	tp.UB = math.Sqrt(tp.vB)
+	return tp, true
+}
+
+// oneSided reads a tip at the start or end of the record with samples on
+// one side only: its own sample, or the line of that side at its time when
+// the side is noisy.
+func oneSided(tp Tip, l, r side) Tip {
+	s := l
+	if len(r.u) >= 2 {
+		s = r
+	}
+	s = s.prepend(tp.T, tp.H, tp.B)
+	lH, nH := sideLine(s.u, s.h)
+	if nH {
+		tp.H = lH.at(tp.T)
+	}
+	lB, nB := sideLine(s.u, s.b)
+	if nB {
+		tp.B = lB.at(tp.T)
+	}
+	tp.vH, tp.vB = lH.se2(tp.T), lB.se2(tp.T)
+	tp.UB = math.Sqrt(tp.vB)
+	return tp
+}
+
+// apexTip reads a tip with samples on both sides: where the lines of H(t)
+// on both sides meet (a triangular sweep, whose sides are straight), or the
+// vertex of a parabola of H(t) around the extreme sample where the tip is
+// rounded (a sinusoidal sweep, a supply whose current lags its setpoint):
+// lines through the samples on both sides of a rounded tip meet above it,
+// by about the curvature times the square of the sample step. kept says
+// whether the extreme sample itself is accepted.
+func apexTip(tp Tip, l, r side, kept bool) Tip {
 	sgn := 1.0
-	if !r.top {
+	if !tp.Top {
 		sgn = -1
 	}
-	// A tip within a few samples of the start or end of the record (a
-	// sweep that starts or ends at the tip): noise may have put the extreme
-	// sample a little inside, so the samples before it belong to the same
-	// side; with noise, the line through all of them is read at the
-	// record's end.
-	if cutL, cutR := r.lo == 0 && e < 2*minWindow, r.last && r.hi-e < 2*minWindow; cutL || cutR {
-		var u, hh, bb []float64
-		if cutL {
-			for i := r.lo; i <= r.hi && len(u) < tipSide; i++ {
-				if keep(i) {
-					h, b := get(i)
-					u, hh, bb = append(u, tm(i)), append(hh, h), append(bb, b)
-				}
-			}
-		} else {
-			for i := r.hi; i >= r.lo && len(u) < tipSide; i-- {
-				if keep(i) {
-					h, b := get(i)
-					u, hh, bb = append(u, tm(i)), append(hh, h), append(bb, b)
-				}
-			}
-		}
-		if len(u) >= 2 {
-			lH, noisy := sideLine(u, hh)
-			lB, _ := sideLine(u, bb)
-			if noisy {
-				tp.T, tp.H, tp.B, tp.N = u[0], lH.at(u[0]), lB.at(u[0]), len(u)
-			}
-			// Without an accepted window the tip is its sample, with the
-			// samples' noise.
-			tp.vH, tp.vB = lH.se2(u[0]), lB.se2(u[0])
-			tp.UB = math.Sqrt(tp.vB)
-			if noisy {
-				return tp
-			}
-		}
+	lH, nl := sideLine(l.u, l.h)
+	rH, nr := sideLine(r.u, r.h)
+	if !nl && !nr {
+		return smoothApex(tp, l, r, lH, rH, kept, sgn)
 	}
-	var lu, lh, lb, ru, rh, rb []float64 // ordered from the tip outwards
-	for i := e - 1; i >= r.lo && len(lu) < tipSide; i-- {
-		if keep(i) {
-			h, b := get(i)
-			lu, lh, lb = append(lu, tm(i)), append(lh, h), append(lb, b)
-		}
-	}
-	for i := e + 1; i <= r.hi && len(ru) < tipSide; i++ {
-		if keep(i) {
-			h, b := get(i)
-			ru, rh, rb = append(ru, tm(i)), append(rh, h), append(rb, b)
-		}
-	}
-	if len(lu) < 2 && len(ru) < 2 {
-		return tp
-	}
-	if len(lu) < 2 || len(ru) < 2 {
-		// A tip at the start or end of the record: its own sample, or the
-		// line of the one side at its time when that side is noisy.
-		u, hh, bb := lu, lh, lb
-		if len(ru) >= 2 {
-			u, hh, bb = ru, rh, rb
-		}
-		u = append([]float64{tm(e)}, u...)
-		hh = append([]float64{he}, hh...)
-		bb = append([]float64{be}, bb...)
-		lH, nH := sideLine(u, hh)
-		if nH {
-			tp.H = lH.at(tm(e))
-		}
-		lB, nB := sideLine(u, bb)
-		if nB {
-			tp.B = lB.at(tm(e))
-		}
-		tp.vH, tp.vB = lH.se2(tm(e)), lB.se2(tm(e))
-		tp.UB = math.Sqrt(tp.vB)
-		return tp
-	}
-	lH, nl := sideLine(lu, lh)
-	rH, nr := sideLine(ru, rh)
-	smooth := !nl && !nr
-	if smooth && keep(e) {
-		// The extreme sample joins the side whose line it continues; the
-		// apex is recomputed with it.
-		if ta := apex(lH, rH); !math.IsNaN(ta) {
-			if tm(e) <= ta {
-				lu = append([]float64{tm(e)}, lu...)
-				lh = append([]float64{he}, lh...)
-				lb = append([]float64{be}, lb...)
-				lH = fitLine(lu, lh, 2)
-			} else {
-				ru = append([]float64{tm(e)}, ru...)
-				rh = append([]float64{he}, rh...)
-				rb = append([]float64{be}, rb...)
-				rH = fitLine(ru, rh, 2)
-			}
-		}
+	if t, ok := noisyRounded(tp, l, r, sgn); ok {
+		return t
 	}
 	ta := apex(lH, rH)
-	// The apex must lie between the samples next to the extreme one (with
-	// noise: within the samples fitted), and on smooth data beyond the
-	// extreme sample's H; otherwise the extreme sample is the tip.
-	// With noise, each side must climb to the tip by more than three
-	// standard errors of its slope (left rising to a top, right falling
-	// from it): flat sides have no apex.
+	// The apex must lie within the samples fitted, and each side must
+	// climb to the tip by more than three standard errors of its slope
+	// (left rising to a top, right falling from it): flat sides have no
+	// apex.
 	steep := func(l line, want float64) bool {
 		return want*l.b > 0 && (l.s2 == 0 || l.b*l.b*l.sxx > 9*l.s2)
 	}
-	if math.IsNaN(ta) || smooth && (ta < lu[min(1, len(lu)-1)] || ta > ru[min(1, len(ru)-1)]) ||
-		ta < lu[len(lu)-1] || ta > ru[len(ru)-1] || !smooth && (!steep(lH, sgn) || !steep(rH, -sgn)) {
-		if !smooth {
-			// No apex (a tip held flat, e.g. under closed-loop control):
-			// the extreme sample would pick the largest noise; the mean of
-			// the samples around it within two noise deviations of its H
-			// is the tip instead.
-			return plateau(tp, lu[:max(int(lH.n), 1)], lh, lb, ru[:max(int(rH.n), 1)], rh, rb)
-		}
-		return tp
+	if math.IsNaN(ta) || ta < l.u[len(l.u)-1] || ta > r.u[len(r.u)-1] || !steep(lH, sgn) || !steep(rH, -sgn) {
+		// No apex (a tip held flat, e.g. under closed-loop control):
+		// the extreme sample would pick the largest noise; the mean of
+		// the samples around it within two noise deviations of its H
+		// is the tip instead.
+		return plateau(tp, l.u[:max(int(lH.n), 1)], l.h, l.b, r.u[:max(int(rH.n), 1)], r.h, r.b)
 	}
-	ha := (lH.at(ta) + rH.at(ta)) / 2
-	if smooth && sgn*(ha-he) < 0 {
-		return tp
-	}
-	tp.T, tp.H, tp.N = ta, ha, len(lu)+len(ru)
-	// H at the intersection of y1 = a1 + b1·t and y2 = a2 + b2·t varies as
-	// (b2²·var y1 + b1²·var y2)/(b2 − b1)² at the apex.
-	if d := rH.b - lH.b; d != 0 {
-		tp.vH = (rH.b*rH.b*lH.se2(ta) + lH.b*lH.b*rH.se2(ta)) / (d * d)
-	}
-	if smooth && keep(e) && math.Abs(tm(e)-ta) <= 1e-6*math.Abs(ru[0]-lu[0]) {
-		tp.T, tp.H, tp.B = tm(e), he, be // the extreme sample is the apex
-		return tp
-	}
-	lB, _ := sideLine(lu, lb)
-	rB, _ := sideLine(ru, rb)
+	return linesApex(tp, l, r, lH, rH, ta)
+}
+
+// linesApex is the tip where the lines lH and rH of H(t) meet at ta, with B
+// read on each side at ta and averaged.
+func linesApex(tp Tip, l, r side, lH, rH line, ta float64) Tip {
+	tp.T, tp.H, tp.N = ta, (lH.at(ta)+rH.at(ta))/2, len(l.u)+len(r.u)
+	tp.vH = apexVar(lH, rH, ta)
+	lB, _ := sideLine(l.u, l.b)
+	rB, _ := sideLine(r.u, r.b)
 	bl, br := lB.at(ta), rB.at(ta)
 	tp.B = (bl + br) / 2
 	tp.vB = (lB.se2(ta) + rB.se2(ta)) / 4
 	tp.UB = math.Sqrt(tp.vB + (bl-br)*(bl-br)/4)
 	return tp
+}
+
+// apexVar is the variance of H where the lines meet at ta: H at the
+// intersection of y1 = a1 + b1·t and y2 = a2 + b2·t varies as
+// (b2²·var y1 + b1²·var y2)/(b2 − b1)².
+func apexVar(lH, rH line, ta float64) float64 {
+	d := rH.b - lH.b
+	if d == 0 {
+		return 0
+	}
+	return (rH.b*rH.b*lH.se2(ta) + lH.b*lH.b*rH.se2(ta)) / (d * d)
+}
+
+// smoothApex reads the tip of smooth data. Two models of the sweep near the
+// tip are tried on the extreme sample, left out: the lines through the two
+// nearest samples on each side (a triangular tip) and the parabola through
+// those four (a rounded one). The one that predicts the extreme sample
+// better reads the tip; its miss there is taken as its own error (it
+// enters vH). A rounded tip is the vertex of the parabola through the
+// extreme sample and its two neighbours, kept between the extreme sample
+// (which lies below the apex) and the lines' apex (which lies above a
+// concave tip), so it is never worse than the extreme sample.
+func smoothApex(tp Tip, l, r side, lH, rH line, kept bool, sgn float64) Tip {
+	te, he, be := tp.T, tp.H, tp.B
+	missK, missP := math.Inf(1), math.Inf(1)
+	if kept {
+		missK = math.Abs(sgn*math.Min(sgn*lH.at(te), sgn*rH.at(te)) - he)
+		if q, ok := fitQuad([]float64{l.u[1], l.u[0], r.u[0], r.u[1]}, []float64{l.h[1], l.h[0], r.h[0], r.h[1]}, 0, 3); ok {
+			missP = math.Abs(q.at(te) - he)
+		}
+		if missK <= roundOff*math.Abs(he) {
+			missK = 0 // straight sides, to round-off
+		}
+	}
+	floor := (lH.bias2 + rH.bias2) / 2 // the samples' own noise, if any
+	if kept {
+		// The extreme sample joins the side whose line it continues; the
+		// apex is recomputed with it.
+		if ta := apex(lH, rH); !math.IsNaN(ta) {
+			if te <= ta {
+				l = l.prepend(te, he, be)
+				lH = fitLine(l.u, l.h, 2)
+			} else {
+				r = r.prepend(te, he, be)
+				rH = fitLine(r.u, r.h, 2)
+			}
+		}
+	}
+	ta := apex(lH, rH)
+	// The apex must lie between the samples next to the extreme one and
+	// beyond the extreme sample's H; otherwise the extreme sample is the
+	// tip.
+	if math.IsNaN(ta) || ta < l.u[min(1, len(l.u)-1)] || ta > r.u[min(1, len(r.u)-1)] {
+		return tp
+	}
+	ha := (lH.at(ta) + rH.at(ta)) / 2
+	if sgn*(ha-he) < 0 {
+		return tp
+	}
+	if kept && missP < missK {
+		return roundedApex(tp, l, r, ha, missP, floor, sgn)
+	}
+	if kept && math.Abs(te-ta) <= 1e-6*math.Abs(r.u[0]-l.u[0]) {
+		tp.N = len(l.u) + len(r.u)
+		tp.vH = apexVar(lH, rH, ta) + missK*missK
+		return tp // the extreme sample is the apex
+	}
+	tp = linesApex(tp, l, r, lH, rH, ta)
+	tp.vH += missK * missK
+	return tp
+}
+
+// roundedApex is the vertex of the parabola of H(t) through the extreme
+// sample and its two neighbours (l and r already hold the extreme sample on
+// one side), kept between the extreme sample and the lines' apex ha; B is
+// read at the vertex time from the parabola of B(t) through the same
+// samples. miss is the parabola model's error on the extreme sample, floor
+// the samples' noise variance.
+func roundedApex(tp Tip, l, r side, ha, miss, floor, sgn float64) Tip {
+	// Three samples in time order: the extreme one and its neighbours.
+	var u, h, b []float64
+	if l.u[0] == tp.T {
+		u, h, b = []float64{l.u[1], l.u[0], r.u[0]}, []float64{l.h[1], l.h[0], r.h[0]}, []float64{l.b[1], l.b[0], r.b[0]}
+	} else {
+		u, h, b = []float64{l.u[0], r.u[0], r.u[1]}, []float64{l.h[0], r.h[0], r.h[1]}, []float64{l.b[0], r.b[0], r.b[1]}
+	}
+	qh, ok := fitQuad(u, h, 0, 2)
+	if !ok || !(sgn*qh.c[2] < 0) {
+		tp.vH = floor + miss*miss
+		return tp
+	}
+	x := -qh.c[1] / (2 * qh.c[2]) // vertex in the parabola's scaled time
+	tv := qh.uc + x*qh.scale
+	if tv < u[0] || tv > u[2] {
+		tp.vH = floor + miss*miss
+		return tp
+	}
+	hv := qh.at(tv)
+	// Between the extreme sample and the lines' apex.
+	hv = sgn * math.Min(math.Max(sgn*hv, sgn*tp.H), sgn*ha)
+	tp.T, tp.H, tp.N = tv, hv, 3
+	tp.vH = floor + miss*miss
+	if qb, ok := fitQuad(u, b, 0, 2); ok {
+		tp.B = qb.at(tv)
+	}
+	return tp
+}
+
+// noisyRounded reads a noisy tip as the vertex of a least-squares parabola
+// of H(t) over a window centred on the extreme sample, widened while no
+// quartic term shows in its residuals (a kink shows as one too), when the parabola bends
+// significantly and fits that window about as well as two lines meeting
+// at the extreme sample: a rounded tip, where lines would meet above the
+// tip. A triangular tip keeps the lines, which fit it better. vH is the
+// parabola's standard error at the vertex with its model error from the
+// cubic and quartic terms left in the residuals; B is read at the vertex
+// from the parabola of B(t) over the same samples. ok is false where the
+// lines are kept.
+func noisyRounded(tp Tip, l, r side, sgn float64) (Tip, bool) {
+	c := len(l.u) // the extreme sample's place in u
+	n := c + 1 + len(r.u)
+	u, h, b := make([]float64, 0, n), make([]float64, 0, n), make([]float64, 0, n)
+	for i := c - 1; i >= 0; i-- {
+		u, h, b = append(u, l.u[i]), append(h, l.h[i]), append(b, l.b[i])
+	}
+	u, h, b = append(u, tp.T), append(h, tp.H), append(b, tp.B)
+	u, h, b = append(u, r.u...), append(h, r.h...), append(b, r.b...)
+	// Every window up to the widest the sides allow is tried: a quartic
+	// term grows with the window, so a wide one passes only where there is
+	// none, while narrow ones may fail by chance.
+	var q quad
+	found := false
+	for m := 2 * minWindow; c-m >= 0 && c+m < n; m = m*3/2 + 1 {
+		if f, ok := fitQuad(u, h, c-m, c+m); ok && !quartic(f, u, h, c-m, c+m) {
+			q, found = f, true
+		}
+	}
+	if !found || !(sgn*q.c[2] < 0) || q.c[2]*q.c[2] <= 9*q.s2*q.inv[2][2] {
+		return tp, false
+	}
+	m := q.n / 2
+	kl := fitLine(u[c-m:c+1], h[c-m:c+1], m+1)
+	kr := fitLine(u[c+1:c+m+1], h[c+1:c+m+1], m)
+	ssK := kl.s2*float64(m-1) + kr.s2*float64(m-2)
+	if q.s2*float64(q.n-3)-ssK > 4*ssK/float64(q.n-4) {
+		return tp, false
+	}
+	x := -q.c[1] / (2 * q.c[2])
+	tv := q.uc + x*q.scale
+	if tv < q.lo || tv > q.hi {
+		return tp, false
+	}
+	lo, hi := c-q.n/2, c+q.n/2
+	tp.T, tp.H, tp.N = tv, q.at(tv), q.n
+	m4 := quarticLeft(q, u, h, lo, hi) * p4(x)
+	tp.vH = q.se2(tv) + m4*m4
+	if qb, ok := fitQuad(u, b, lo, hi); ok {
+		tp.B, tp.vB = qb.at(tv), qb.se2(tv)
+		tp.UB = math.Sqrt(tp.vB)
+	}
+	return tp, true
+}
+
+// p4 is the Legendre polynomial P4(x) = (35x⁴ − 30x² + 3)/8, to which a
+// parabola fitted over [−1, 1] reduces a quartic term.
+func p4(x float64) float64 { x2 := x * x; return (35*x2*x2 - 30*x2 + 3) / 8 }
+
+// quarticLeft returns the coefficient of P4 in the residuals of the
+// parabola q over samples lo…hi (their projection on P4 in q's scaled
+// time): the quartic term the parabola cannot follow.
+func quarticLeft(q quad, u, v []float64, lo, hi int) float64 {
+	var sp, pp float64
+	for i := lo; i <= hi; i++ {
+		p := p4((u[i] - q.uc) / q.scale)
+		sp += (v[i] - q.at(u[i])) * p
+		pp += p * p
+	}
+	if !(pp > 0) {
+		return 0
+	}
+	return sp / pp
+}
+
+// quartic reports whether the parabola q over samples lo…hi leaves a
+// quartic term more than twice its standard error: a wider window would
+// bias the vertex (by 3/8 of that term at the centre).
+func quartic(q quad, u, v []float64, lo, hi int) bool {
+	var pp float64
+	for i := lo; i <= hi; i++ {
+		p := p4((u[i] - q.uc) / q.scale)
+		pp += p * p
+	}
+	a := quarticLeft(q, u, v, lo, hi)
+	return pp > 0 && a*a > 4*q.s2/pp
+}
+
+// apex returns the time where two lines of H(t) meet, NaN if parallel.
+func apex(l, r line) float64 {
+	d := l.b - r.b
+	if d == 0 {
+		return nan()
+	}
+	return (r.a - l.a + l.b*l.u0 - r.b*r.u0) / d
 }
 
 // plateau returns the tip as the mean of the extreme sample and the
@@ -348,13 +562,4 @@ func plateau(tp Tip, lu, lh, lb, ru, rh, rb []float64) Tip {
 		tp.UB = math.Sqrt(tp.vB)
 	}
 	return tp
-}
-
-// apex returns the time where two lines of H(t) meet, NaN if parallel.
-func apex(l, r line) float64 {
-	d := l.b - r.b
-	if d == 0 {
-		return nan()
-	}
-	return (r.a - l.a + l.b*l.u0 - r.b*r.u0) / d
 }

@@ -634,28 +634,6 @@ var tableRows = func() []struct{ name, label string } {
 	return rows
 }()
 
-// Rounded returns v and U (expanded) as text rounded after GUM (JCGM
-// 100:2008) 7.2.6: U to two significant digits, v to the same decimal
-// place. A zero or non-finite U leaves v at 6 significant digits and U "0".
-func Rounded(v, u float64) (string, string) {
-	if !(u > 0) || math.IsInf(u, 0) || math.IsNaN(v) {
-		return strconv.FormatFloat(v, 'g', 6, 64), "0"
-	}
-	e := int(math.Floor(math.Log10(u))) - 1 // decimal exponent of U's second digit
-	q := math.Pow(10, float64(e))
-	ur := math.Round(u/q) * q
-	if ur >= 100*q { // 99.6 → 100: three digits, one place up
-		e++
-		q *= 10
-		ur = math.Round(u/q) * q
-	}
-	vr := math.Round(v/q) * q
-	if e < 0 {
-		return strconv.FormatFloat(vr, 'f', -e, 64), strconv.FormatFloat(ur, 'f', -e, 64)
-	}
-	return strconv.FormatFloat(vr, 'f', 0, 64), strconv.FormatFloat(ur, 'f', 0, 64)
-}
-
 // WriteTable writes the figures as an aligned table with units and the
 // expanded uncertainty (k = 2) of noise and the estimator, values rounded
 // to their uncertainty (GUM 7.2.6).
@@ -681,7 +659,7 @@ func (r Result) WriteTable(w io.Writer) error {
 		if u < 1e-9*math.Abs(f.Value) {
 			u = 0 // round-off, not an uncertainty
 		}
-		vs, us := Rounded(f.Value, u)
+		vs, us := units.Rounded(f.Value, u)
 		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\n", row.label, vs, us, unit)
 	}
 	if err := tw.Flush(); err != nil {

@@ -280,24 +280,3 @@ func TestAgainstAnalytic(t *testing.T) {
 		}
 	}
 }
-
-// TestRounded: U to two significant digits and the value to the same
-// decimal place (GUM, JCGM 100:2008, 7.2.6).
-func TestRounded(t *testing.T) {
-	for _, tc := range []struct {
-		v, u         float64
-		wantV, wantU string
-	}{
-		{1.2717561, 0.0028477, "1.2718", "0.0028"},
-		{999.6952, 1.068, "999.7", "1.1"},
-		{320204.6, 2834, "320200", "2800"},
-		{0.5, 0.0996, "0.50", "0.10"},
-		{-50.0116, 0.0198, "-50.012", "0.020"},
-		{12345.678, 0, "12345.7", "0"},
-	} {
-		v, u := Rounded(tc.v, tc.u)
-		if v != tc.wantV || u != tc.wantU {
-			t.Errorf("Rounded(%g, %g) = %s, %s; want %s, %s", tc.v, tc.u, v, u, tc.wantV, tc.wantU)
-		}
-	}
-}

@@ -231,3 +231,46 @@ func ParseAmperePerSecond(s string) (AmperePerSecond, error) {
 	v, err := parse(s, SymAmperePerSecond)
 	return AmperePerSecond(v), err
 }
+
+// Rounded returns a value and its expanded uncertainty u as text, rounded
+// as a result is reported after GUM (JCGM 100:2008) 7.2.6: u to two
+// significant digits, the value to the same decimal place (9.96 rounds to
+// 10, one digit fewer). This is the one rule of every report in Go: the
+// terminal, `hystd analyze`'s table and the PDF report; the store and JSON
+// keep full precision. A u of exactly 0 (evaluated, e.g. exact data) gives
+// the value to 6 significant digits and "0"; a u not evaluated (NaN,
+// infinite or negative) gives the value to 5 significant digits and "—"; a
+// value that is not a finite number gives "—" for both.
+func Rounded(v, u float64) (value, uncertainty string) {
+	switch {
+	case math.IsNaN(v) || math.IsInf(v, 0):
+		return "—", "—"
+	case u == 0:
+		return strconv.FormatFloat(v, 'g', 6, 64), "0"
+	case !(u > 0) || math.IsInf(u, 0):
+		return strconv.FormatFloat(v, 'g', 5, 64), "—"
+	}
+	e := int(math.Floor(math.Log10(u))) - 1 // decimal exponent of u's second digit
+	ur := roundAt(u, e)
+	if ur >= math.Pow(10, float64(e+2)) { // 99.6 → 100: three digits, one place up
+		e++
+		ur = roundAt(u, e)
+	}
+	vr := roundAt(v, e)
+	if vr == 0 {
+		vr = 0 // no "-0"
+	}
+	d := max(-e, 0)
+	return strconv.FormatFloat(vr, 'f', d, 64), strconv.FormatFloat(ur, 'f', d, 64)
+}
+
+// roundAt rounds x to a multiple of 10^e, dividing by 10^−e for e < 0 so
+// that 0.0028 stays the nearest float to 0.0028 (x·1e4/1e4, not x/1e-4).
+func roundAt(x float64, e int) float64 {
+	if e < 0 {
+		p := math.Pow(10, float64(-e))
+		return math.Round(x*p) / p
+	}
+	p := math.Pow(10, float64(e))
+	return math.Round(x/p) * p
+}

@@ -144,3 +144,42 @@ func TestCGSRoundTrip(t *testing.T) {
 		}
 	}
 }
+
+// TestRounded: U to two significant digits and the value to the same
+// decimal place (GUM, JCGM 100:2008, 7.2.6). The first case is the GUM's own
+// example of 7.2.4, m_S = (100.021 47 ± 0.000 79) g (quoted from memory); the
+// others are worked by hand from the rule: 9.96 rounds to 10 (two digits,
+// one place up), 99.6 to 100 (so the value goes to the tens), a negative
+// value keeps its sign, and a value that rounds to zero is written without
+// one.
+func TestRounded(t *testing.T) {
+	for _, tc := range []struct {
+		v, u   float64
+		vs, us string
+	}{
+		{100.02147, 0.00079, "100.02147", "0.00079"},
+		{50.8912, 0.6079, "50.89", "0.61"},
+		{1.807441, 0.007455, "1.8074", "0.0075"},
+		{1.2717561, 0.0028477, "1.2718", "0.0028"},
+		{12.586, 0.49, "12.59", "0.49"},
+		{9.02, 4.73, "9.0", "4.7"},
+		{999.6952, 1.068, "999.7", "1.1"},
+		{1234.5, 9.96, "1235", "10"},
+		{0.5, 0.0996, "0.50", "0.10"},
+		{320204.6, 2834, "320200", "2800"},
+		{955123, 1234, "955100", "1200"},
+		{48213.7, 99.6, "48210", "100"},
+		{-50.0116, 0.0198, "-50.012", "0.020"},
+		{-0.00004, 0.0123, "0.000", "0.012"},
+		{12345.678, 0, "12345.7", "0"},
+		{0.5, math.NaN(), "0.5", "—"},
+		{0.5, -1, "0.5", "—"},
+		{math.NaN(), 1, "—", "—"},
+		{math.Inf(1), 1, "—", "—"},
+	} {
+		vs, us := Rounded(tc.v, tc.u)
+		if vs != tc.vs || us != tc.us {
+			t.Errorf("Rounded(%g, %g) = %s ± %s, want %s ± %s", tc.v, tc.u, vs, us, tc.vs, tc.us)
+		}
+	}
+}

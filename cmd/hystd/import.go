@@ -18,7 +18,7 @@ import (
 	"hystd/acq/imports"
 	"hystd/acq/record"
 	"hystd/acq/store"
-	"hystd/calib/loopcsv"
+	"hystd/calib/units"
 )
 
 func init() { register(newImportCmd) }
@@ -133,7 +133,7 @@ func newImportCmd() *cobra.Command {
 			for _, l := range loops {
 				fmt.Fprintf(out, "loop %d:\n", l.N)
 				for _, f := range l.Figures {
-					v, u := loopcsv.Rounded(f.Value, f.U)
+					v, u := units.Rounded(f.Value, f.U)
 					fmt.Fprintf(out, "  %-12s %s ± %s %s (k = 2)\n", f.Name, v, u, f.Unit)
 				}
 			}

@@ -17,6 +17,7 @@ import (
 	"hystd/acq/reprocess"
 	"hystd/acq/store"
 	"hystd/calib/loopcsv"
+	"hystd/calib/units"
 )
 
 func init() { register(newReprocessCmd) }
@@ -145,10 +146,10 @@ func newReprocessCmd() *cobra.Command {
 				}
 				fmt.Fprintf(out, "loop %d (revision %d → %d):\n", l.N, res.Revision.N-1, res.Revision.N)
 				for _, f := range l.Figures {
-					v, u := loopcsv.Rounded(f.Value, f.U)
+					v, u := units.Rounded(f.Value, f.U)
 					line := fmt.Sprintf("  %-12s %s ± %s %s (k = 2)", f.Name, v, u, f.Unit)
 					if p, ok := was[f.Name]; ok {
-						pv, pu := loopcsv.Rounded(p.Value, p.U)
+						pv, pu := units.Rounded(p.Value, p.U)
 						line += fmt.Sprintf("   was %s ± %s", pv, pu)
 					}
 					fmt.Fprintln(out, line)

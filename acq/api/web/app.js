@@ -509,15 +509,13 @@ function drawLoop(keepZoom) {
   $("#dl-png").href = base + q + "&format=png";
 }
 
-function cgsOf(v, unit) {
+// cgsOf writes a figure and its U in the CGS unit, rounded by roundU.
+function cgsOf(v, u, unit) {
   const c = state.info.cgs;
   if (!isFinite(v)) return "";
-  switch (unit) {
-    case "A/m": return fmt(v * c.oe_per_a_m, 5) + " Oe";
-    case "T": return fmt(v * c.g_per_t, 5) + " G";
-    case "J/m3": case "J/m³": return fmt(v * c.mgoe_per_j_m3, 5) + " MGOe";
-  }
-  return "";
+  const k = { "A/m": [c.oe_per_a_m, "Oe"], "T": [c.g_per_t, "G"], "J/m3": [c.mgoe_per_j_m3, "MGOe"], "J/m³": [c.mgoe_per_j_m3, "MGOe"] }[unit];
+  if (!k) return "";
+  return withU(v * k[0], u === null || u === undefined ? u : u * k[0]) + " " + k[1];
 }
 
 function fillTables(loop) {
@@ -529,7 +527,7 @@ function fillTables(loop) {
     const how = f.note ? el("details", { class: "how" }, el("summary", { text: "how" }), el("p", { text: f.note })) : "";
     fb.append(el("tr", { "data-figure": f.name }, el("td", { text: f.name }),
       el("td", { class: "num vu", text: withU(f.value, f.u) + (f.unit ? " " + f.unit : "") }),
-      el("td", { class: "num cgs-col", text: cgsOf(f.value, f.unit) }), el("td", {}, how)));
+      el("td", { class: "num cgs-col", text: cgsOf(f.value, f.u, f.unit) }), el("td", {}, how)));
   }
   fillVerdicts(loop);
   for (const c of loop.corrections) {
@@ -538,17 +536,35 @@ function fillTables(loop) {
   if (!loop.corrections.length) cb.append(el("tr", {}, el("td", { text: "none recorded" })));
 }
 
-// withU writes value ± U as a result is reported: U to two significant
-// digits, the value to the same decimal place (GUM 7.2.6). Without U the
-// value keeps 5 significant digits.
+// roundU is the page's one rounding rule for a reported value and its
+// expanded uncertainty, GUM (JCGM 100:2008) 7.2.6 as in Go's
+// calib/units.Rounded: U to two significant digits, the value to the same
+// decimal place (9.96 → 10, 99.6 → 100). U exactly 0: the value to 6
+// significant digits and "0"; U not evaluated (null, NaN, negative): the
+// value to 5 and null. Returns [value, U] as text ("−" for minus).
+function roundU(v, u) {
+  if (v === null || v === undefined || !isFinite(v)) return ["—", null];
+  if (u === 0) return [sig(v, 6), "0"];
+  if (u === null || u === undefined || !isFinite(u) || u < 0) return [sig(v, 5), null];
+  let e = Math.floor(Math.log10(u)) - 1; // decimal exponent of U's second digit
+  if (roundAt(u, e) >= Math.pow(10, e + 2)) e += 1;
+  const d = Math.max(-e, 0);
+  const txt = (x) => { const r = roundAt(x, e); return (r === 0 ? 0 : r).toFixed(d).replace("-", "−"); };
+  return [txt(v), txt(u)];
+}
+// roundAt rounds x to a multiple of 10^e (dividing by 10^−e for e < 0, so
+// that 0.0028 stays the nearest double to 0.0028).
+function roundAt(x, e) {
+  if (e < 0) { const p = Math.pow(10, -e); return Math.round(x * p) / p; }
+  const p = Math.pow(10, e); return Math.round(x / p) * p;
+}
+function sig(v, n) { return Number(v.toPrecision(n)).toString().replace("-", "−"); }
+
+// withU writes value ± U rounded by roundU.
 function withU(v, u) {
-  if (v === null || v === undefined || !isFinite(v)) return "—";
-  if (u === null || u === undefined || !isFinite(u) || u <= 0) return fmt(v) + " (U not evaluated)";
-  let dec = 1 - Math.floor(Math.log10(u));
-  const ur = (d) => Math.round(u * Math.pow(10, d)) / Math.pow(10, d);
-  if (1 - Math.floor(Math.log10(ur(dec))) !== dec) dec -= 1;
-  const fix = (x) => (dec >= 0 ? x.toFixed(dec) : String(Math.round(x / Math.pow(10, -dec)) * Math.pow(10, -dec))).replace("-", "−");
-  return `${fix(v)} ± ${fix(dec >= 0 ? u : ur(dec))}`;
+  const [vs, us] = roundU(v, u);
+  if (vs === "—") return vs;
+  return us === null ? vs + " (U not evaluated)" : `${vs} ± ${us}`;
 }
 
 function fillVerdicts(loop) {
