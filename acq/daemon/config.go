@@ -13,6 +13,7 @@ import (
 	"github.com/spf13/viper"
 
 	"hystd/acq/api"
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/influx"
 	"hystd/acq/recipe"
@@ -24,6 +25,12 @@ const Kind = "daemon"
 
 // DefaultAddr is where the HTTP API listens when the config names no address.
 const DefaultAddr = api.DefaultAddr
+
+// Values of calibration_past_due.
+const (
+	PastDueWarn   = "warn"
+	PastDueRefuse = "refuse"
+)
 
 // DefaultPoll is how often a watched folder is looked at.
 const DefaultPoll = 2 * time.Second
@@ -63,6 +70,14 @@ type Config struct {
 	// Grades is a folder of `kind: grade` files; a specimen's grade: names
 	// one of them, and every loop is judged against it. Optional.
 	Grades string `yaml:"grades"`
+	// Calibrations is a folder of `kind: calibration` records. A run uses
+	// those for its fixture's search coil and for the instruments it finds
+	// there (by their *IDN? reply), the latest dated of each. Optional.
+	Calibrations string `yaml:"calibrations"`
+	// CalibrationPastDue is what a run does when a calibration it would
+	// use is past due: warn (default; a warning event with the run) or
+	// refuse (the run ends before any current flows).
+	CalibrationPastDue string `yaml:"calibration_past_due"`
 	// DecisionRule overrides the grades' own decision rule: guarded-U or simple. Optional.
 	DecisionRule string `yaml:"decision_rule"`
 	// ConfirmMount makes a queued run whose specimen differs from the one on
@@ -99,8 +114,10 @@ type Loaded struct {
 	TokenSet bool // a token file was given and read
 	// Registry holds the specimens and grades the config names.
 	Registry Registry
-	token    string
-	LoadedAt time.Time
+	// Calibrations are the records of the calibrations folder.
+	Calibrations []calrec.Record
+	token        string
+	LoadedAt     time.Time
 }
 
 // LoadedFixture is one fixture entry with its files parsed.
@@ -227,6 +244,21 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 		c.Influx = &ic
 	}
 	l.Registry = loadRegistry(ce, abs(c.Specimens), abs(c.Grades), c.DecisionRule)
+	switch c.CalibrationPastDue {
+	case "":
+		c.CalibrationPastDue = PastDueWarn
+	case PastDueWarn, PastDueRefuse:
+	default:
+		ce.add("calibration_past_due", "%q: want %s or %s", c.CalibrationPastDue, PastDueWarn, PastDueRefuse)
+	}
+	if c.Calibrations != "" {
+		c.Calibrations = abs(c.Calibrations)
+		recs, err := calrec.LoadDir(c.Calibrations)
+		if err != nil {
+			ce.add("calibrations", "%v", err)
+		}
+		l.Calibrations = recs
+	}
 	if len(c.Fixtures) == 0 {
 		ce.add("fixtures", "required: at least one fixture with its fixture and specimen files")
 	}
@@ -251,6 +283,10 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			continue
 		}
 		l.Registry.checkGrade(ce, p+".specimen", sp)
+		// A coil record must fit its fixture now, not at the first run.
+		if _, _, err := calrec.Use(calrec.Select(l.Calibrations, fx.Name, nil), fx, time.Time{}); err != nil {
+			ce.add("calibrations", "fixture %s: %v", fx.Name, err)
+		}
 		lf.Name, lf.Fixture, lf.Specimen = fx.Name, fx, sp
 		if prev, dup := names[fx.Name]; dup {
 			ce.add(p+".fixture", "fixture %q is already driven by %s", fx.Name, prev)

@@ -20,8 +20,10 @@ import (
 	"strings"
 	"sync"
 	"sync/atomic"
+	"time"
 
 	"hystd/acq/api"
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/recipe"
@@ -51,10 +53,17 @@ type Opened struct {
 	Process     engine.Processor
 	// Close releases the ports; it does not halt (the engine has done that).
 	Close func() error
+	// Calibrations are the records in force for the instruments opened
+	// (nil: none), and CalibrationEvents name each (a warning for one past
+	// due) for the run's events.
+	Calibrations      *calrec.Used
+	CalibrationEvents []calrec.Event
 }
 
-// Opener opens a fixture's instruments for one run with the specimen mounted.
-type Opener func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error)
+// Opener opens a fixture's instruments for one run with the specimen
+// mounted; cals are the config's calibration records, of which it applies
+// those for this fixture and the instruments it finds.
+type Opener func(ctx context.Context, fx config.Fixture, sp config.Specimen, cals []calrec.Record) (Opened, error)
 
 // Halter brings a fixture's supply to zero current with its output off,
 // opening the supply alone, and returns the confirmation as read back
@@ -117,6 +126,8 @@ type job struct {
 	fx      config.Fixture
 	sp      config.Specimen
 	source  string
+	cals    []calrec.Record // the config's calibration records at submission
+	pastDue string          // calibration_past_due at submission
 	done    func(record.Run, error)
 	// guarded by Daemon.mu
 	cancel  context.CancelCauseFunc // set while running
@@ -175,7 +186,7 @@ func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 		d.haltFixture(ctx, lf.Fixture, "start-up")
 		return
 	}
-	op, err := d.deps.Open(ctx, lf.Fixture, lf.Specimen)
+	op, err := d.deps.Open(ctx, lf.Fixture, lf.Specimen, nil)
 	if err != nil {
 		log.Error("instruments not reachable at start-up; runs will retry", "err", err)
 		return
@@ -341,7 +352,8 @@ func (d *Daemon) submit(ctx context.Context, fixture, specimen, name string, dat
 		done = func(record.Run, error) {}
 	}
 	id := plan.Run().ID
-	j := &job{plan: plan, id: id, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done}
+	j := &job{plan: plan, id: id, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done,
+		cals: cfg.Calibrations, pastDue: cfg.Config.CalibrationPastDue}
 	d.mu.Lock()
 	d.runs[id] = j
 	d.mu.Unlock()
@@ -471,7 +483,7 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 	var op Opened
 	oerr := d.awaitMount(ctx, fr, j)
 	if oerr == nil {
-		op, oerr = d.deps.Open(ctx, j.fx, j.sp)
+		op, oerr = d.deps.Open(ctx, j.fx, j.sp, j.cals)
 	}
 	switch {
 	case oerr != nil:
@@ -488,7 +500,10 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 		run = j.plan.End(ctx, st, reason)
 		err = &engine.Stop{State: st, Reason: run.Reason}
 	default:
-		if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
+		if why := useCalibrations(ctx, j.plan, op, j.pastDue, d.deps.Clock.Now()); why != "" {
+			run = j.plan.End(ctx, record.Failed, why)
+			err = &engine.Stop{State: record.Failed, Reason: run.Reason}
+		} else if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
 			run = j.plan.End(ctx, record.Failed, serr.Error())
 			err = serr
 		} else {
@@ -554,4 +569,23 @@ func (d *Daemon) Status() []FixtureStatus {
 		out = append(out, fs)
 	}
 	return out
+}
+
+// useCalibrations records with the plan's run the calibrations op applies
+// (one event each, a warning for one past due at now) and returns, when
+// policy is PastDueRefuse and one is past due, why the run must not start
+// (nothing has been energised yet); "" lets it run.
+func useCalibrations(ctx context.Context, plan *engine.Plan, op Opened, policy string, now time.Time) string {
+	for _, e := range op.CalibrationEvents {
+		plan.Event(ctx, e.Level, e.Text)
+	}
+	late := op.Calibrations.PastDue(now)
+	if policy != PastDueRefuse || len(late) == 0 {
+		return ""
+	}
+	var names []string
+	for _, r := range late {
+		names = append(names, fmt.Sprintf("%s (due %s)", r.ID, r.Due))
+	}
+	return fmt.Sprintf("refused: calibration %s past due, and the daemon config (calibration_past_due: refuse) refuses runs on an expired calibration; renew it or set calibration_past_due: warn", strings.Join(names, ", "))
 }

@@ -17,6 +17,7 @@ import (
 	"text/tabwriter"
 	"time"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/fixture"
@@ -37,6 +38,8 @@ const (
 	FixtureFile  = "fixture-ring-bench.yaml"
 	SpecimenFile = "specimen-ring-r17.yaml"
 	RecipeFile   = "recipes/demo-ring.yaml"
+	// CalibrationDir holds the calibration records of the bench's instruments.
+	CalibrationDir = "calibrations"
 )
 
 // Options configure a demo run.
@@ -139,7 +142,17 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	defer opened.Close()
-	proc, warnings, err := opened.Processor(fx, sp)
+	// The shipped calibration records (configs/calibrations) apply to the
+	// bench's instruments by the identities they gave.
+	cals, err := calrec.LoadFS(configs.Samples, CalibrationDir, "configs/"+CalibrationDir)
+	if err != nil {
+		return Result{}, err
+	}
+	used, calEvents, err := opened.Calibrations(cals, fx, clk.Now())
+	if err != nil {
+		return Result{}, err
+	}
+	proc, warnings, err := opened.Processor(fx, sp, used)
 	if err != nil {
 		return Result{}, err
 	}
@@ -158,7 +171,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	}
 	pub := &progress{out: out, hub: o.Live}
 	fmt.Fprintf(out, "running recipe %q on specimen %s (%s)\n", rc.Name, sp.ID, sp.Material)
-	run, runErr := engine.Run(ctx, engine.Setup{
+	plan, err := engine.Prepare(ctx, engine.Setup{
 		Fixture:     fx,
 		Specimen:    sp,
 		Recipe:      rc,
@@ -171,6 +184,13 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		SpoolDir:    o.DataDir,
 		Clock:       clk,
 	})
+	if err != nil {
+		return Result{}, err
+	}
+	for _, e := range calEvents {
+		plan.Event(ctx, e.Level, e.Text)
+	}
+	run, runErr := plan.Execute(ctx)
 	res := Result{Run: run, DB: db, Truth: bench.History()}
 	if run.ID != "" {
 		// Read back what was committed, whatever the ending.

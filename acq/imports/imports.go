@@ -18,7 +18,6 @@ import (
 	"hystd/acq/config"
 	"hystd/acq/process"
 	"hystd/acq/record"
-	"hystd/calib/loop"
 	"hystd/calib/loopcsv"
 )
 
@@ -177,17 +176,14 @@ func Prepare(o Options) (*Prepared, error) {
 	var rnd [3]byte
 	_, _ = rand.Read(rnd[:])
 	id := fmt.Sprintf("%s-import-%s-%s", idUnsafe.ReplaceAllString(o.Fixture.Name, "_"), o.Now.UTC().Format("20060102T150405Z"), hex.EncodeToString(rnd[:]))
-	var calEvents []calrec.Event
+	cal, calEvents, err := calrec.Use(o.Calibrations, o.Fixture, o.Now)
+	if err != nil {
+		return nil, err
+	}
+	cal.AddTo(&setup)
 	var loops []record.Loop
 	for k, st := range steps {
-		s := setup
-		s.Extra = append([]loop.Source(nil), setup.Extra...)
-		cst, evs, err := calrec.Apply(st, o.Calibrations, o.Fixture, &s, o.Now)
-		if err != nil {
-			return nil, err
-		}
-		calEvents = evs
-		pts, figs, corr, err := process.Loop(cst, s)
+		pts, figs, corr, err := process.Loop(cal.Correct(st), setup)
 		if err != nil {
 			return nil, &loopcsv.Error{File: o.File, Line: lines[k][0], Msg: fmt.Sprintf("step %d (lines %d–%d): %v", k+1, lines[k][0], lines[k][len(lines[k])-1], err)}
 		}
