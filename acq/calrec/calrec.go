@@ -200,6 +200,35 @@ func (r Record) Describe() string {
 // ("used calibration ID (…)"); the report and the page list them from it.
 const UsedPrefix = "used calibration "
 
+// pastDueText follows the id in the warning for a record past due.
+const pastDueText = " is past due"
+
+// Listed returns the calibration records a run used, as its events name
+// them ("ID (what; certificate C, date, due D)"), each followed by " — PAST
+// DUE at the run" when the run warned so: for the page and the report.
+func Listed(evs []record.Event) []string {
+	late := map[string]bool{}
+	for _, e := range evs {
+		if rest, ok := strings.CutPrefix(e.Text, "calibration "); ok && e.Level == "warn" {
+			if id, _, ok := strings.Cut(rest, pastDueText); ok {
+				late[id] = true
+			}
+		}
+	}
+	var out []string
+	for _, e := range evs {
+		rest, ok := strings.CutPrefix(e.Text, UsedPrefix)
+		if !ok {
+			continue
+		}
+		if id, _, _ := strings.Cut(rest, " "); late[id] {
+			rest += " — PAST DUE at the run"
+		}
+		out = append(out, rest)
+	}
+	return out
+}
+
 // Event is a note for the run that used the records.
 type Event struct {
 	Level, Text string
@@ -237,9 +266,9 @@ func Use(recs []Record, fx config.Fixture, at time.Time) (*Used, []Event, error)
 			return nil, nil, fmt.Errorf("%s: a second %s calibration (the first: %s)", r.File, key, prev)
 		}
 		seen[key] = r.File
-		evs = append(evs, Event{"info", "used " + r.Describe()})
+		evs = append(evs, Event{"info", "used " + r.Describe()}) // UsedPrefix
 		if r.PastDue(at) {
-			evs = append(evs, Event{"warn", fmt.Sprintf("calibration %s is past due (due %s): figures rest on an expired calibration", r.ID, r.Due)})
+			evs = append(evs, Event{"warn", fmt.Sprintf("calibration %s%s (due %s): figures rest on an expired calibration", r.ID, pastDueText, r.Due)})
 		}
 		note := "Type B: calibration " + r.ID + ", certificate " + r.Certificate
 		switch {

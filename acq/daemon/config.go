@@ -44,6 +44,11 @@ type Config struct {
 		// TokenFile holds the bearer token that mutations (submit, abort)
 		// need; empty: mutations are refused.
 		TokenFile string `yaml:"token_file"`
+		// UsersFile names users with their own tokens and roles (review,
+		// operate, admin; `kind: users`, api.LoadUsers); each mutation is
+		// recorded with the user's name. It may stand beside token_file,
+		// whose token then acts as api.SharedTokenUser with role admin.
+		UsersFile string `yaml:"users_file"`
 		// Hosts are names (besides the bound address) the API may be reached
 		// by; a request with any other Host header is refused (DNS rebinding).
 		Hosts []string `yaml:"hosts"`
@@ -111,12 +116,13 @@ type Loaded struct {
 	File     string
 	Config   Config
 	Fixtures []LoadedFixture
-	TokenSet bool // a token file was given and read
+	TokenSet bool // a token file or a users file was given and read
 	// Registry holds the specimens and grades the config names.
 	Registry Registry
 	// Calibrations are the records of the calibrations folder.
 	Calibrations []calrec.Record
 	token        string
+	users        []api.Credential
 	LoadedAt     time.Time
 }
 
@@ -141,7 +147,7 @@ type Scheduled struct {
 
 // envKeys are the settings an environment variable HYSTD_<KEY> (dots as
 // underscores, upper case) may override, e.g. HYSTD_HTTP_ADDR.
-var envKeys = []string{"http.addr", "http.token_file", "store.path", "log.level", "log.format", "spool_dir",
+var envKeys = []string{"http.addr", "http.token_file", "http.users_file", "store.path", "log.level", "log.format", "spool_dir",
 	"influx.url", "influx.org", "influx.bucket", "influx.token_file"}
 
 // Load reads, overrides from the environment and validates a daemon config
@@ -204,7 +210,16 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			l.token, l.TokenSet = tok, true
 		}
 	}
-	if !api.IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && !c.HTTP.OpenWithoutToken {
+	if c.HTTP.UsersFile != "" {
+		c.HTTP.UsersFile = abs(c.HTTP.UsersFile)
+		users, err := api.LoadUsers(c.HTTP.UsersFile)
+		if err != nil {
+			ce.add("http.users_file", "%v", err)
+		}
+		l.users = users
+		l.TokenSet = true
+	}
+	if !api.IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && c.HTTP.UsersFile == "" && !c.HTTP.OpenWithoutToken {
 		ce.add("http.addr", "%s is reachable from other machines and no http.token_file is set: every stored run (raw samples, config snapshots) would be readable from the network; set http.token_file, listen on 127.0.0.1, or set http.open_without_token: true to accept that", c.HTTP.Addr)
 	}
 	for i, h := range c.HTTP.Hosts {
@@ -333,6 +348,9 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 // Token returns the bearer token for mutations, or "" when none is set.
 func (l *Loaded) Token() string { return l.token }
 
+// Users returns the named users of http.users_file (nil: none).
+func (l *Loaded) Users() []api.Credential { return l.users }
+
 // Fixture returns the loaded fixture named name.
 func (l *Loaded) Fixture(name string) (LoadedFixture, bool) {
 	for _, f := range l.Fixtures {
@@ -414,6 +432,7 @@ func overrideFromEnv(c *Config, ce *cerr) {
 	}
 	set("http.addr", &c.HTTP.Addr)
 	set("http.token_file", &c.HTTP.TokenFile)
+	set("http.users_file", &c.HTTP.UsersFile)
 	set("store.path", &c.Store.Path)
 	set("log.level", &c.Log.Level)
 	set("log.format", &c.Log.Format)

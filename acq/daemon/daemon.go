@@ -343,10 +343,17 @@ func (d *Daemon) submit(ctx context.Context, fixture, specimen, name string, dat
 	if d.deps.Area != nil {
 		s.Area = d.deps.Area(lf.Fixture, lf.Specimen)
 	}
+	u, byUser := api.UserFrom(ctx)
+	if byUser {
+		s.Operator = u.Name
+	}
 	plan, err := engine.Prepare(ctx, s)
 	if err != nil {
 		d.metrics.refused.WithLabelValues(fixture, source).Inc()
 		return "", err
+	}
+	if byUser {
+		plan.Event(ctx, "info", api.ActionText(u, "run started (queued through the API)"))
 	}
 	if done == nil {
 		done = func(record.Run, error) {}
@@ -392,6 +399,9 @@ func (d *Daemon) Abort(ctx context.Context, runID string) error {
 
 // AbortWithReason is Abort with the reason recorded.
 func (d *Daemon) AbortWithReason(ctx context.Context, runID, reason string) error {
+	if u, ok := api.UserFrom(ctx); ok {
+		reason += " by " + u.Name
+	}
 	d.mu.Lock()
 	j := d.runs[runID]
 	if j == nil {
@@ -401,12 +411,14 @@ func (d *Daemon) AbortWithReason(ctx context.Context, runID, reason string) erro
 	if j.cancel != nil {
 		j.cancel(engine.Abort(reason))
 		d.mu.Unlock()
+		d.recordAction(ctx, runID, api.ActionAbort)
 		d.log.Info("abort requested", "run", runID, "reason", reason)
 		return nil
 	}
 	j.aborted = true
 	delete(d.runs, runID)
 	d.mu.Unlock()
+	d.recordAction(ctx, runID, api.ActionAbort)
 	run := j.plan.End(ctx, record.Aborted, reason+" (before it started)")
 	d.metrics.ended.WithLabelValues(j.fixture, string(record.Aborted)).Inc()
 	j.done(run, &engine.Stop{State: record.Aborted, Reason: run.Reason})
@@ -588,4 +600,22 @@ func useCalibrations(ctx context.Context, plan *engine.Plan, op Opened, policy s
 		names = append(names, fmt.Sprintf("%s (due %s)", r.ID, r.Due))
 	}
 	return fmt.Sprintf("refused: calibration %s past due, and the daemon config (calibration_past_due: refuse) refuses runs on an expired calibration; renew it or set calibration_past_due: warn", strings.Join(names, ", "))
+}
+
+// RecordAction stores, with a run, that the user of ctx (api.UserFrom) did
+// action; without a user it does nothing. It is how every mutation through
+// the API names who made it (api.ActionRecorder).
+func (d *Daemon) RecordAction(ctx context.Context, runID, action string) error {
+	u, ok := api.UserFrom(ctx)
+	if !ok {
+		return nil
+	}
+	return d.deps.Writer.AddEvent(context.WithoutCancel(ctx), record.Event{RunID: runID, At: d.deps.Clock.Now(), Level: "info", Text: api.ActionText(u, action)})
+}
+
+// recordAction is RecordAction with a failure logged.
+func (d *Daemon) recordAction(ctx context.Context, runID, action string) {
+	if err := d.RecordAction(ctx, runID, action); err != nil {
+		d.log.Error("event not stored", "run", runID, "action", action, "err", err)
+	}
 }
