@@ -2,8 +2,6 @@ package daemon
 
 import (
 	"bytes"
-	"hystd/acq/influx"
-
 	"os"
 	"path/filepath"
 	"strings"
@@ -11,8 +9,10 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/api"
 	"hystd/acq/check"
 	"hystd/acq/engine/enginetest"
+	"hystd/acq/influx"
 )
 
 func TestSampleConfig(t *testing.T) {
@@ -78,6 +78,8 @@ func TestConfigErrors(t *testing.T) {
 			"cal/int.yaml:8: integrator.gain.value: must be > 0, got -1"},
 		{"coil record for a fixture without coil area", "kind: daemon\nstore: {path: x.db}\ncalibrations: coil\n" + fixtures,
 			"calibrations: fixture aldermoor-ring-2: "},
+		{"bad users file", "kind: daemon\nstore: {path: x.db}\nhttp: {users_file: users.yaml}\n" + fixtures,
+			"/users.yaml:3: users.0.role: \"boss\": want review, operate or admin"},
 		{"host with port", "kind: daemon\nstore: {path: x.db}\nhttp: {hosts: [\"hystd.lab.example:8740\"]}\n" + fixtures,
 			"d.yaml:3: http.hosts.0: \"hystd.lab.example:8740\": want a host name without port or scheme"},
 	}
@@ -89,6 +91,7 @@ func TestConfigErrors(t *testing.T) {
 			_ = os.Mkdir(filepath.Join(dir, "cal"), 0o755)
 			_ = os.WriteFile(filepath.Join(dir, "cal", "int.yaml"), []byte("kind: calibration\nid: C1\napplies_to: {role: integrator, identity: \"X,Y,1\"}\n"+
 				"certificate: Z\ndate: 2026-01-01\ndue: 2027-01-01\nintegrator:\n  gain: {value: -1, u: 0}\n"), 0o644)
+			_ = os.WriteFile(filepath.Join(dir, "users.yaml"), []byte("kind: users\nusers:\n  - {name: ana, role: boss, token_sha256: "+api.TokenHash("t")+"}\n"), 0o600)
 			_ = os.Mkdir(filepath.Join(dir, "coil"), 0o755)
 			_ = os.WriteFile(filepath.Join(dir, "coil", "coil.yaml"), []byte("kind: calibration\nid: C2\napplies_to: {fixture: aldermoor-ring-2}\n"+
 				"certificate: Z\ndate: 2026-01-01\ndue: 2027-01-01\ncoil:\n  area_turns_m2: {value: 0.01, u: 0}\n"), 0o644)
