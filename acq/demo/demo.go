@@ -48,6 +48,7 @@ type Options struct {
 	Out      io.Writer    // progress and the figures table; nil: io.Discard
 	Log      *slog.Logger // nil: warnings only, to Out
 	Software string       // version recorded with the run
+	Operator string       // who runs it, recorded with the run; may be ""
 	Live     *live.Hub    // optional: also publish live events here
 	// Bench replaces the default bench (tests); zero: sim.DefaultBench().
 	Bench *sim.Config
@@ -181,6 +182,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		Live:        pub,
 		Log:         log,
 		Software:    o.Software,
+		Operator:    o.Operator,
 		SpoolDir:    o.DataDir,
 		Clock:       clk,
 	})

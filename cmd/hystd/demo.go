@@ -58,7 +58,7 @@ func newDemoCmd() *cobra.Command {
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
 			out := cmd.OutOrStdout()
-			opts := demo.Options{DataDir: dataDir, Out: out, Software: version,
+			opts := demo.Options{DataDir: dataDir, Out: out, Software: version, Operator: osUser(),
 				Log: slog.New(slog.NewTextHandler(cmd.ErrOrStderr(), &slog.HandlerOptions{Level: slog.LevelWarn}))}
 			slog.SetDefault(opts.Log) // the forwarder logs through the default logger: stderr
 			switch speed {
