@@ -85,6 +85,11 @@ func LoadUsers(path string) ([]Credential, error) {
 	if err != nil {
 		return nil, err
 	}
+	return UsersFrom(doc)
+}
+
+// UsersFrom validates a parsed users document (see LoadUsers).
+func UsersFrom(doc *configs.Doc) ([]Credential, error) {
 	var f usersFile
 	if err := doc.Decode(&f); err != nil {
 		return nil, err

@@ -6,6 +6,8 @@ import (
 	"reflect"
 	"strings"
 	"testing"
+
+	"hystd/acq/record"
 )
 
 // Tokens of the users file below; the file holds only their SHA-256.
@@ -107,5 +109,34 @@ func TestLoadUsersErrors(t *testing.T) {
 				t.Errorf("error %v\nwant it to contain %s", err, tc.want)
 			}
 		})
+	}
+}
+
+// TestRunShowsWhoAndCalibrations: a run's answer names who aborted it
+// (from the event ActionText wrote) and the calibrations it used, with a
+// past-due one among the flags.
+func TestRunShowsWhoAndCalibrations(t *testing.T) {
+	e := newEnv(t, Options{Token: testToken})
+	e.reader.mu.Lock()
+	e.reader.events["RUN-B"] = []record.Event{
+		{RunID: "RUN-B", At: t0, Level: "info", Text: "used calibration CAL-9 (integrator X,Y,1; certificate C-9, 2025-01-01, due 2026-01-01)"},
+		{RunID: "RUN-B", At: t0, Level: "warn", Text: "calibration CAL-9 is past due (due 2026-01-01): figures rest on an expired calibration"},
+		{RunID: "RUN-B", At: t0, Level: "info", Text: ActionText(User{Name: "tomas", Role: RoleAdmin}, ActionAbort)},
+	}
+	e.reader.mu.Unlock()
+	code, m, _ := e.do(t, "GET", "/api/v1/runs/RUN-B", "", "", nil)
+	if code != 200 {
+		t.Fatalf("%d %v", code, m)
+	}
+	if m["aborted_by"] != "tomas" {
+		t.Errorf("aborted_by %v", m["aborted_by"])
+	}
+	cals, _ := m["calibrations"].([]any)
+	if len(cals) != 1 || cals[0] != "CAL-9 (integrator X,Y,1; certificate C-9, 2025-01-01, due 2026-01-01) — PAST DUE at the run" {
+		t.Errorf("calibrations %v", m["calibrations"])
+	}
+	flags, _ := m["flags"].([]any)
+	if len(flags) == 0 || !strings.Contains(flags[0].(string), "calibration CAL-9 is past due") {
+		t.Errorf("flags %v", flags)
 	}
 }
