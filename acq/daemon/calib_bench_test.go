@@ -8,9 +8,11 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"hystd/acq/config"
 	"hystd/acq/engine"
+	"hystd/acq/live"
 	"hystd/acq/process"
 	"hystd/acq/record"
 	"hystd/acq/store"
@@ -176,4 +178,56 @@ func hasText(evs []record.Event, level, text string) bool {
 		}
 	}
 	return false
+}
+
+// TestDaemonRefusesPastDueCalibration: the daemon (serve) with
+// calibration_past_due: refuse and a past-due record for the bench's
+// integrator (its profile's maker and model, any serial) ends a submitted
+// run failed, naming the record, and the bench's winding never carries
+// current after the submission.
+func TestDaemonRefusesPastDueCalibration(t *testing.T) {
+	if testing.Short() {
+		t.Skip("a daemon on the simulated bench")
+	}
+	bd := startBench(t, func(bd *benchDaemon) {
+		dir := filepath.Join(bd.dir, "cal")
+		if err := os.Mkdir(dir, 0o755); err != nil {
+			t.Fatal(err)
+		}
+		rec := "kind: calibration\nid: CAL-OLD\napplies_to: {role: integrator, identity: \"HYSTD-SIM,FLUX-INTEGRATOR\"}\n" +
+			"certificate: C-OLD\ndate: 2024-01-10\ndue: 2025-01-10\nintegrator:\n  gain: {value: 1.0, u: 0.001}\n"
+		if err := os.WriteFile(filepath.Join(dir, "old.yaml"), []byte(rec), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		body := fmt.Sprintf("kind: daemon\nhttp: {addr: \"127.0.0.1:0\"}\nstore: {path: %s}\ncalibrations: cal\ncalibration_past_due: refuse\nfixtures:\n  - {fixture: fixture.yaml, specimen: specimen.yaml}\n", bd.db)
+		if err := os.WriteFile(filepath.Join(bd.dir, "daemon.yaml"), []byte(body), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	})
+	evs, cancel := bd.hub.Subscribe()
+	defer cancel()
+	before := len(bd.bench.History())
+	id, err := bd.runner.Submit(context.Background(), "aldermoor-ring-2", []byte(shortLoop))
+	if err != nil {
+		t.Fatal(err)
+	}
+	deadline := time.After(60 * time.Second)
+	for ended := false; !ended; {
+		select {
+		case e := <-evs:
+			ended = e.RunID == id && e.Kind == live.KindState && e.State.Ended()
+		case <-deadline:
+			t.Fatal("run did not end")
+		}
+	}
+	r, _ := bd.run(t, id)
+	if r.State != "failed" || !strings.Contains(r.Reason, "refused: calibration CAL-OLD (due 2025-01-10) past due") {
+		t.Errorf("stored %s %q", r.State, r.Reason)
+	}
+	for _, h := range bd.bench.History()[before:] {
+		if h.Output || math.Abs(float64(h.I)) > 1e-3 {
+			t.Fatalf("bench at %s: output %v, I = %g A for a refused run", h.T, h.Output, float64(h.I))
+		}
+	}
+	bd.assertZero(t)
 }
