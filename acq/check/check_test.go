@@ -8,6 +8,7 @@ import (
 	"testing"
 
 	"hystd/acq/check"
+	_ "hystd/acq/calrec" // registers kind calibration
 	_ "hystd/acq/recipe" // registers kind recipe
 )
 
