@@ -7,8 +7,8 @@ import (
 	"strings"
 	"testing"
 
-	"hystd/acq/check"
 	_ "hystd/acq/calrec" // registers kind calibration
+	"hystd/acq/check"
 	_ "hystd/acq/recipe" // registers kind recipe
 )
 
