@@ -23,7 +23,7 @@ import (
 
 // Samples holds every sample config shipped in this folder.
 //
-//go:embed *.yaml instruments/*.yaml recipes/*.yaml
+//go:embed *.yaml instruments/*.yaml recipes/*.yaml calibrations/*.yaml
 var Samples embed.FS
 
 // Error is one configuration problem at a place in a file.

@@ -11,12 +11,17 @@
 // Bad requests get a JSON error naming the parameter or the problem:
 // {"error": "..."} with 400, 401, 403, 404, 409, 413 or 415. A handler
 // changes nothing when it answers with an error.
+//
+// Users (users.go): LoadUsers reads a `kind: users` file; a request's
+// token is found by its SHA-256 (every entry compared in constant time),
+// the route's minimum role is checked where the route is declared (write),
+// and the user reaches the Runner through the request context (UserFrom).
+// The daemon records each action with ActionText.
 package api
 
 import (
 	"context"
 	"crypto/sha256"
-	"crypto/subtle"
 	"embed"
 	"errors"
 	"fmt"
@@ -76,6 +81,9 @@ type Options struct {
 	Token     string
 	TokenFile string
 	TokenEnv  string
+	// Users are named tokens with roles (LoadUsers); the single token
+	// above, when given, acts as SharedTokenUser with role admin.
+	Users []Credential
 	// ProtectReads requires the token for every /api/ and /metrics request too.
 	ProtectReads bool
 
@@ -92,7 +100,7 @@ var webFS embed.FS
 
 type server struct {
 	o        Options
-	token    []byte // SHA-256 of the token; nil when none
+	creds    []Credential // who may act: Users and the single token; none: mutations refused
 	log      *slog.Logger
 	mux      *http.ServeMux
 	requests *prometheus.CounterVec
@@ -129,9 +137,9 @@ func New(o Options) (http.Handler, error) {
 	if err != nil {
 		return nil, err
 	}
+	s.creds = append(s.creds, o.Users...)
 	if tok != "" {
-		sum := sha256.Sum256([]byte(tok))
-		s.token = sum[:]
+		s.creds = append(s.creds, Credential{User: User{Name: SharedTokenUser, Role: RoleAdmin}, Hash: sha256.Sum256([]byte(tok))})
 	}
 	reg := prometheus.NewRegistry()
 	s.requests = prometheus.NewCounterVec(prometheus.CounterOpts{
@@ -172,14 +180,24 @@ func loadToken(o Options) (string, error) {
 }
 
 func (s *server) routes() {
+	reads := Role(0)
+	if s.o.ProtectReads {
+		reads = RoleReview
+	}
 	read := func(route string, h http.HandlerFunc) {
-		s.mux.Handle("GET "+route, s.wrap(route, s.o.ProtectReads, true, h))
+		s.mux.Handle("GET "+route, s.wrap(route, reads, true, h))
 	}
-	write := func(route string, h http.HandlerFunc) {
-		s.mux.Handle("POST "+route, s.wrap(route, true, true, h))
+	write := func(route, what string, need Role, h http.HandlerFunc) {
+		s.mux.Handle("POST "+route, s.wrap(route, need, true, func(w http.ResponseWriter, r *http.Request) {
+			if u, _ := UserFrom(r.Context()); u.Role < need {
+				writeError(w, http.StatusForbidden, "user %s has role %s: %s needs role %s or above", u.Name, u.Role, what, need)
+				return
+			}
+			h(w, r)
+		}))
 	}
-	s.mux.Handle("GET /healthz", s.wrap("/healthz", false, true, s.health))
-	s.mux.Handle("GET /metrics", s.wrap("/metrics", s.o.ProtectReads, true,
+	s.mux.Handle("GET /healthz", s.wrap("/healthz", 0, true, s.health))
+	s.mux.Handle("GET /metrics", s.wrap("/metrics", reads, true,
 		promhttp.HandlerFor(s.gather, promhttp.HandlerOpts{}).ServeHTTP))
 	read("/api/v1/info", s.info)
 	read("/api/v1/runs", s.listRuns)
@@ -188,23 +206,23 @@ func (s *server) routes() {
 	read("/api/v1/runs/{id}/loops/{n}/plot", s.plotLoop)
 	read("/api/v1/trend", s.trend)
 	// The event stream has no request timeout: it lives as long as the client.
-	s.mux.Handle("GET /api/v1/events", s.wrap("/api/v1/events", s.o.ProtectReads, false, s.events))
-	write("/api/v1/runs", s.submit)
-	write("/api/v1/runs/{id}/abort", s.abort)
-	write("/api/v1/runs/{id}/mount", s.confirmMount)
-	write("/api/v1/runs/{id}/reprocess", s.reprocess)
+	s.mux.Handle("GET /api/v1/events", s.wrap("/api/v1/events", reads, false, s.events))
+	write("/api/v1/runs", "starting a run", RoleOperate, s.submit)
+	write("/api/v1/runs/{id}/abort", "aborting a run", RoleOperate, s.abort)
+	write("/api/v1/runs/{id}/mount", "confirming a mount", RoleOperate, s.confirmMount)
+	write("/api/v1/runs/{id}/reprocess", "re-processing a run", RoleAdmin, s.reprocess)
 	read("/api/v1/mounts", s.listMounts)
 	read("/api/v1/specimens", s.listSpecimens)
 	read("/api/v1/runs/{id}/report", s.report)
 	read("/api/v1/outbox", s.outboxList)
-	write("/api/v1/outbox/requeue", s.outboxRequeue)
-	write("/api/v1/imports", s.importRecording)
-	s.mux.Handle("/api/", s.wrap("/api/", false, true, func(w http.ResponseWriter, r *http.Request) {
+	write("/api/v1/outbox/requeue", "requeuing the outbox", RoleAdmin, s.outboxRequeue)
+	write("/api/v1/imports", "importing a recording", RoleOperate, s.importRecording)
+	s.mux.Handle("/api/", s.wrap("/api/", 0, true, func(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, "no such API endpoint: %s %s", r.Method, r.URL.Path)
 	}))
 	sub, _ := fs.Sub(webFS, "web")
 	files := http.FileServerFS(sub)
-	s.mux.Handle("/", s.wrap("/", false, true, func(w http.ResponseWriter, r *http.Request) {
+	s.mux.Handle("/", s.wrap("/", 0, true, func(w http.ResponseWriter, r *http.Request) {
 		if r.Method != http.MethodGet && r.Method != http.MethodHead {
 			w.Header().Set("Allow", "GET, HEAD")
 			writeError(w, http.StatusMethodNotAllowed, "%s %s: the page is read-only", r.Method, r.URL.Path)
@@ -248,9 +266,11 @@ func (w *statusWriter) Write(b []byte) (int, error) {
 // Unwrap lets http.ResponseController reach Flush and deadlines.
 func (w *statusWriter) Unwrap() http.ResponseWriter { return w.ResponseWriter }
 
-// wrap adds panic recovery, authentication, the body limit, the request
-// timeout and accounting to h.
-func (s *server) wrap(route string, auth, timeout bool, h http.HandlerFunc) http.Handler {
+// wrap adds panic recovery, authentication (need > 0: a token of a user;
+// the user is then in the request's context, UserFrom), the body limit, the
+// request timeout and accounting to h. The role itself is checked by the
+// route (write), which names the action refused.
+func (s *server) wrap(route string, need Role, timeout bool, h http.HandlerFunc) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		sw := &statusWriter{ResponseWriter: w}
 		start := time.Now()
@@ -268,8 +288,12 @@ func (s *server) wrap(route string, auth, timeout bool, h http.HandlerFunc) http
 			s.requests.WithLabelValues(route, strconv.Itoa(code)).Inc()
 			s.log.Debug("api: request", "method", r.Method, "path", r.URL.Path, "code", code, "took", time.Since(start))
 		}()
-		if auth && !s.authorized(sw, r) {
-			return
+		if need > 0 {
+			u, ok := s.authorized(sw, r)
+			if !ok {
+				return
+			}
+			r = r.WithContext(WithUser(r.Context(), u))
 		}
 		r.Body = http.MaxBytesReader(sw, r.Body, s.o.MaxBody)
 		if timeout {
@@ -281,23 +305,24 @@ func (s *server) wrap(route string, auth, timeout bool, h http.HandlerFunc) http
 	})
 }
 
-// authorized checks the bearer token and answers 401 or 403 when it fails.
-func (s *server) authorized(w http.ResponseWriter, r *http.Request) bool {
-	if s.token == nil {
+// authorized finds the user of the bearer token and answers 401 or 403
+// when there is none.
+func (s *server) authorized(w http.ResponseWriter, r *http.Request) (User, bool) {
+	if len(s.creds) == 0 {
 		writeError(w, http.StatusForbidden, "no API token is configured on this daemon; this request is disabled")
-		return false
+		return User{}, false
 	}
 	scheme, tok, ok := strings.Cut(r.Header.Get("Authorization"), " ")
 	if !ok || !strings.EqualFold(scheme, "Bearer") || strings.TrimSpace(tok) == "" {
 		w.Header().Set("WWW-Authenticate", `Bearer realm="hystd"`)
 		writeError(w, http.StatusUnauthorized, "missing bearer token: send the header Authorization: Bearer TOKEN")
-		return false
+		return User{}, false
 	}
-	sum := sha256.Sum256([]byte(strings.TrimSpace(tok)))
-	if subtle.ConstantTimeCompare(sum[:], s.token) != 1 {
+	u, ok := lookup(s.creds, strings.TrimSpace(tok))
+	if !ok {
 		w.Header().Set("WWW-Authenticate", `Bearer realm="hystd", error="invalid_token"`)
 		writeError(w, http.StatusUnauthorized, "bearer token not accepted")
-		return false
+		return User{}, false
 	}
-	return true
+	return u, true
 }

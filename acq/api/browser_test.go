@@ -550,6 +550,13 @@ func TestBrowserReview(t *testing.T) {
 		}
 		time.Sleep(50 * time.Millisecond)
 	}
+
+	// 7. The run's head names who started and who aborted it (the single
+	//    token acts as the shared-token user) and that it used no
+	//    calibration record.
+	b.wait("aborted run listed", fmt.Sprintf(`!!document.querySelector('#runs-list li[data-run-id=%q][data-state="aborted"]')`, liveID), 10*time.Second)
+	b.do(chromedp.Evaluate[chromedp.Void](fmt.Sprintf(`document.querySelector('#runs-list li[data-run-id=%q]').click()`, liveID)))
+	b.wait("who started and aborted", `document.querySelector('#run-head').textContent.includes('started by shared-token') && document.querySelector('#run-head').textContent.includes('aborted by shared-token') && document.querySelector('#run-calibrations').textContent.includes('no calibration record used')`, 15*time.Second)
 }
 
 func TestBrowserMagnetQuadrant(t *testing.T) {

@@ -198,11 +198,15 @@ type fakeRunner struct {
 	calls   int
 	seq     int
 	aborted map[string]bool
+	users   []string // UserFrom of each Submit and Abort call's context
 }
 
 func (f *fakeRunner) Submit(ctx context.Context, fixture string, data []byte) (string, error) {
 	f.mu.Lock()
 	f.calls++
+	if u, ok := UserFrom(ctx); ok {
+		f.users = append(f.users, "submit "+u.Name)
+	}
 	f.mu.Unlock()
 	r, err := recipe.Parse("submitted recipe", data)
 	if err != nil {
@@ -224,6 +228,9 @@ func (f *fakeRunner) Submit(ctx context.Context, fixture string, data []byte) (s
 func (f *fakeRunner) Abort(ctx context.Context, id string) error {
 	f.mu.Lock()
 	f.calls++
+	if u, ok := UserFrom(ctx); ok {
+		f.users = append(f.users, "abort "+u.Name)
+	}
 	f.mu.Unlock()
 	r, err := f.reader.Run(ctx, id)
 	if err != nil {

@@ -12,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"hystd/acq/calrec"
 	"hystd/acq/engine"
 	"hystd/acq/plot"
 	"hystd/acq/record"
@@ -24,7 +25,7 @@ func (s *server) health(w http.ResponseWriter, r *http.Request) {
 		"version":  s.o.Version,
 		"runner":   s.o.Runner != nil,
 		"live":     s.o.Live != nil,
-		"mutation": s.token != nil,
+		"mutation": len(s.creds) > 0,
 	})
 }
 
@@ -39,8 +40,8 @@ func (s *server) info(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, map[string]any{
 		"fixtures":      fixtures,
 		"version":       s.o.Version,
-		"can_submit":    s.o.Runner != nil && s.token != nil,
-		"token_set":     s.token != nil,
+		"can_submit":    s.o.Runner != nil && len(s.creds) > 0,
+		"token_set":     len(s.creds) > 0,
 		"protect_reads": s.o.ProtectReads,
 		"cgs": map[string]float64{
 			"oe_per_a_m":    oe,
@@ -209,11 +210,19 @@ func (s *server) getRun(w http.ResponseWriter, r *http.Request) {
 	// warnings (events the engine recorded) and every implausible loop.
 	flags := []string{}
 	ej := make([]eventJSON, 0, len(evs))
+	abortedBy := ""
 	for _, e := range evs {
 		ej = append(ej, eventJSON{stamp(e.At), e.Level, e.Text})
-		if e.Level == "warn" && strings.HasPrefix(e.Text, "geometry of specimen ") {
+		if e.Level == "warn" && (strings.HasPrefix(e.Text, "geometry of specimen ") || strings.HasPrefix(e.Text, "calibration ")) {
 			flags = append(flags, e.Text)
 		}
+		if name, ok := actionBy(e.Text, ActionAbort); ok {
+			abortedBy = name
+		}
+	}
+	cals := calrec.Listed(evs)
+	if cals == nil {
+		cals = []string{}
 	}
 	lj := make([]loopJSON, 0, len(loops))
 	for _, l := range loops {
@@ -225,7 +234,8 @@ func (s *server) getRun(w http.ResponseWriter, r *http.Request) {
 	}
 	rj := toRun(run, true)
 	rj.Revision, rj.Revisions = rev, toRevisions(revs)
-	writeJSON(w, http.StatusOK, map[string]any{"run": rj, "loops": lj, "events": ej, "flags": flags})
+	writeJSON(w, http.StatusOK, map[string]any{"run": rj, "loops": lj, "events": ej, "flags": flags,
+		"calibrations": cals, "aborted_by": abortedBy})
 }
 
 func (s *server) getLoop(w http.ResponseWriter, r *http.Request) {

@@ -2,6 +2,7 @@ package api
 
 import (
 	"errors"
+	"fmt"
 	"net/http"
 	"time"
 
@@ -68,6 +69,21 @@ func (s *server) outboxRequeue(w http.ResponseWriter, r *http.Request) {
 	if err != nil {
 		s.fail(w, r, err)
 		return
+	}
+	if rec, ok := s.o.Runner.(ActionRecorder); ok {
+		per := map[string]int{}
+		var runs []string
+		for _, e := range done {
+			if per[e.RunID] == 0 {
+				runs = append(runs, e.RunID)
+			}
+			per[e.RunID]++
+		}
+		for _, id := range runs {
+			if err := rec.RecordAction(r.Context(), id, fmt.Sprintf("%d quarantined loop(s) requeued for the time-series database", per[id])); err != nil {
+				s.log.Error("api: requeue not recorded with the run", "run", id, "err", err)
+			}
+		}
 	}
 	s.log.Info("api: quarantined loops requeued", "run", run, "loops", len(done), "remote", r.RemoteAddr)
 	writeJSON(w, http.StatusOK, map[string]any{"requeued": outboxJSON(done)})

@@ -56,9 +56,12 @@ func (s *server) reprocess(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	id := r.PathValue("id")
-	// WHO MADE THE CHANGE: the request's authenticated identity. The one
-	// shared token names nobody, so it is recorded as "token".
-	by := "token"
+	// Who made the change: the request's authenticated user (the shared
+	// token is the user "shared-token"); "unknown" on an open server.
+	by := "unknown"
+	if u, ok := UserFrom(r.Context()); ok {
+		by = u.Name
+	}
 	v, loops, err := rp.Reprocess(r.Context(), id, body, by)
 	if err != nil {
 		s.fail(w, r, err)

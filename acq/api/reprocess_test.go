@@ -116,7 +116,7 @@ type runReply struct {
 
 // TestReprocessAPI: POST /runs/{id}/reprocess needs the token and YAML, and
 // refuses a body that is not a specimen or fixture; with a specimen of twice
-// the area it stores revision 2 (recorded as made by "token", the shared
+// the area it stores revision 2 (recorded as made by "shared-token", the shared
 // token's name) whose figures that scale with B are half those of revision
 // 1, which stays readable: the run, its loops and plots at ?revision=1 and 2.
 func TestReprocessAPI(t *testing.T) {
@@ -153,7 +153,7 @@ func TestReprocessAPI(t *testing.T) {
 		} `json:"revision"`
 		Loops []map[string]any `json:"loops"`
 	}
-	if err := json.Unmarshal([]byte(body), &rep); err != nil || rep.Revision.N != 2 || rep.Revision.By != "token" ||
+	if err := json.Unmarshal([]byte(body), &rep); err != nil || rep.Revision.N != 2 || rep.Revision.By != api.SharedTokenUser ||
 		rep.Revision.Change != "specimen.direct.area_mm2: 50 → 100" || len(rep.Loops) != 1 {
 		t.Fatalf("reply %s (%v)", body, err)
 	}
@@ -169,7 +169,7 @@ func TestReprocessAPI(t *testing.T) {
 		return r
 	}
 	latest, r1, r2 := get(""), get("?revision=1"), get("?revision=2")
-	if latest.Run.Revision != 2 || r1.Run.Revision != 1 || len(latest.Run.Revisions) != 2 || latest.Run.Revisions[1].By != "token" ||
+	if latest.Run.Revision != 2 || r1.Run.Revision != 1 || len(latest.Run.Revisions) != 2 || latest.Run.Revisions[1].By != api.SharedTokenUser ||
 		latest.Run.Revisions[0].By != "bay 3" {
 		t.Fatalf("revisions: latest %+v, r1 %+v", latest.Run, r1.Run)
 	}

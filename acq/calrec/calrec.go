@@ -7,7 +7,12 @@ package calrec
 
 import (
 	"fmt"
+	"io/fs"
 	"math"
+	"os"
+	"path"
+	"path/filepath"
+	"strings"
 	"time"
 
 	"hystd/acq/check"
@@ -191,21 +196,65 @@ func (r Record) Describe() string {
 	return fmt.Sprintf("calibration %s (%s; certificate %s, %s, due %s)", r.ID, what, r.Certificate, r.Date, r.Due)
 }
 
+// UsedPrefix starts the event that names a calibration a run used
+// ("used calibration ID (…)"); the report and the page list them from it.
+const UsedPrefix = "used calibration "
+
+// pastDueText follows the id in the warning for a record past due.
+const pastDueText = " is past due"
+
+// Listed returns the calibration records a run used, as its events name
+// them ("ID (what; certificate C, date, due D)"), each followed by " — PAST
+// DUE at the run" when the run warned so: for the page and the report.
+func Listed(evs []record.Event) []string {
+	late := map[string]bool{}
+	for _, e := range evs {
+		if rest, ok := strings.CutPrefix(e.Text, "calibration "); ok && e.Level == "warn" {
+			if id, _, ok := strings.Cut(rest, pastDueText); ok {
+				late[id] = true
+			}
+		}
+	}
+	var out []string
+	for _, e := range evs {
+		rest, ok := strings.CutPrefix(e.Text, UsedPrefix)
+		if !ok {
+			continue
+		}
+		if id, _, _ := strings.Cut(rest, " "); late[id] {
+			rest += " — PAST DUE at the run"
+		}
+		out = append(out, rest)
+	}
+	return out
+}
+
 // Event is a note for the run that used the records.
 type Event struct {
 	Level, Text string
 }
 
-// Apply returns a copy of raw corrected with the records (coil: ψ scaled by
-// N2·A_c/(N2·A_c)_cal, A_c the fixture's coil area; integrator: ψ = (reading
-// − offset)/gain; field meter: B_probe as Probe says), adds their
-// uncertainties to s.Extra as budget sources, and returns an event per
-// record used (a warning for one past due at `at`). A coil record for
-// another fixture, or for a fixture without winding.coil_area_mm2, is an
-// error; so are two records of one kind.
-func Apply(raw []record.Sample, recs []Record, fx config.Fixture, s *process.Setup, at time.Time) ([]record.Sample, []Event, error) {
-	out := make([]record.Sample, len(raw))
-	copy(out, raw)
+// Used is a set of records checked against one fixture, ready to correct
+// samples (Correct) and to add their uncertainties to a budget (AddTo). The
+// zero of *Used (nil) corrects nothing. Import and live runs both go through
+// it, so a record changes the figures the same way whichever way the
+// samples came.
+type Used struct {
+	Records []Record
+	psiK    float64 // ψ ← (ψ − off)/gain·psiK
+	off     float64
+	gain    float64
+	probe   *Probe
+	sources []loop.Source // B-side sources; the probe's is added by AddTo when H comes from it
+	probeU  loop.Source
+}
+
+// Use checks recs against fx (a coil record for another fixture, or for a
+// fixture without winding.coil_area_mm2, is an error; so are two records of
+// one kind) and returns them ready to apply, with an event per record (a
+// warning for one past due at `at`).
+func Use(recs []Record, fx config.Fixture, at time.Time) (*Used, []Event, error) {
+	u := &Used{psiK: 1, gain: 1}
 	var evs []Event
 	seen := map[string]string{}
 	for _, r := range recs {
@@ -217,10 +266,11 @@ func Apply(raw []record.Sample, recs []Record, fx config.Fixture, s *process.Set
 			return nil, nil, fmt.Errorf("%s: a second %s calibration (the first: %s)", r.File, key, prev)
 		}
 		seen[key] = r.File
-		evs = append(evs, Event{"info", "used " + r.Describe()})
+		evs = append(evs, Event{"info", "used " + r.Describe()}) // UsedPrefix
 		if r.PastDue(at) {
-			evs = append(evs, Event{"warn", fmt.Sprintf("calibration %s is past due (due %s): figures rest on an expired calibration", r.ID, r.Due)})
+			evs = append(evs, Event{"warn", fmt.Sprintf("calibration %s%s (due %s): figures rest on an expired calibration", r.ID, pastDueText, r.Due)})
 		}
+		note := "Type B: calibration " + r.ID + ", certificate " + r.Certificate
 		switch {
 		case r.Coil != nil:
 			if r.AppliesTo.Fixture != fx.Name {
@@ -231,25 +281,69 @@ func Apply(raw []record.Sample, recs []Record, fx config.Fixture, s *process.Set
 				return nil, nil, fmt.Errorf("%s: coil area-turns need the fixture's winding.coil_area_mm2 (fixture %s gives none)", r.File, fx.Name)
 			}
 			nac := r.Coil.AreaTurns
-			k := float64(fx.Winding.N2) * ac / nac.Value
-			for i := range out {
-				out[i].Psi *= k
-			}
-			s.Extra = append(s.Extra, loop.Source{Name: "coil area-turns", BScale: nac.U / nac.Value,
-				Note: "Type B: calibration " + r.ID + ", certificate " + r.Certificate})
+			u.psiK = float64(fx.Winding.N2) * ac / nac.Value
+			u.sources = append(u.sources, loop.Source{Name: "coil area-turns", BScale: nac.U / nac.Value, Note: note})
 		case r.Integrator != nil:
 			g := r.Integrator.Gain
-			off := 0.0
+			u.gain = g.Value
 			if o := r.Integrator.OffsetWb; o != nil {
-				off = o.Value
+				u.off = o.Value
 			}
-			for i := range out {
-				out[i].Psi = (out[i].Psi - off) / g.Value
-			}
-			s.Extra = append(s.Extra, loop.Source{Name: "integrator gain (calibration)", BScale: g.U / g.Value,
-				Note: "Type B: calibration " + r.ID + ", certificate " + r.Certificate})
+			u.sources = append(u.sources, loop.Source{Name: "integrator gain (calibration)", BScale: g.U / g.Value, Note: note})
 		case r.Probe != nil:
 			p := r.Probe
+			u.probe = p
+			var uo float64
+			if p.OffsetT != nil {
+				uo = p.OffsetT.U
+			}
+			u.probeU = loop.Source{Name: "probe sensitivity (calibration)", HScale: p.Sensitivity.U / p.Sensitivity.Value,
+				HShift: uo / units.Mu0, Note: note}
+		}
+		u.Records = append(u.Records, r)
+	}
+	return u, evs, nil
+}
+
+// PastDue returns the records past due at t.
+func (u *Used) PastDue(t time.Time) []Record {
+	if u == nil {
+		return nil
+	}
+	var out []Record
+	for _, r := range u.Records {
+		if r.PastDue(t) {
+			out = append(out, r)
+		}
+	}
+	return out
+}
+
+// AddTo adds the records' uncertainties to s.Extra as budget sources (the
+// probe's only when H comes from the field meter).
+func (u *Used) AddTo(s *process.Setup) {
+	if u == nil {
+		return
+	}
+	s.Extra = append(s.Extra, u.sources...)
+	if u.probe != nil && s.HFrom == process.HFromFieldMeter {
+		s.Extra = append(s.Extra, u.probeU)
+	}
+}
+
+// Correct returns a copy of raw corrected with the records: integrator, ψ =
+// (reading − offset)/gain; then coil, ψ scaled by N2·A_c/(N2·A_c)_cal (A_c
+// the fixture's coil area); field meter, B_probe as Probe says. (With no
+// record of a kind its factors are 1 and 0, which change no bit.)
+func (u *Used) Correct(raw []record.Sample) []record.Sample {
+	out := make([]record.Sample, len(raw))
+	copy(out, raw)
+	if u == nil {
+		return out
+	}
+	for i := range out {
+		out[i].Psi = (out[i].Psi - u.off) / u.gain * u.psiK
+		if p := u.probe; p != nil {
 			var off, alpha float64
 			if p.OffsetT != nil {
 				off = p.OffsetT.Value
@@ -257,22 +351,137 @@ func Apply(raw []record.Sample, recs []Record, fx config.Fixture, s *process.Set
 			if p.TempCoeff != nil {
 				alpha = p.TempCoeff.Value
 			}
-			for i := range out {
-				dT := 0.0
-				if t := out[i].TempC; !math.IsNaN(t) {
-					dT = t - p.RefTempC
-				}
-				out[i].BProbe = (out[i].BProbe - off) / (p.Sensitivity.Value * (1 + alpha*dT))
+			dT := 0.0
+			if t := out[i].TempC; !math.IsNaN(t) {
+				dT = t - p.RefTempC
 			}
-			if s.HFrom == process.HFromFieldMeter {
-				var uo float64
-				if p.OffsetT != nil {
-					uo = p.OffsetT.U
-				}
-				s.Extra = append(s.Extra, loop.Source{Name: "probe sensitivity (calibration)", HScale: p.Sensitivity.U / p.Sensitivity.Value,
-					HShift: uo / units.Mu0, Note: "Type B: calibration " + r.ID + ", certificate " + r.Certificate})
-			}
+			out[i].BProbe = (out[i].BProbe - off) / (p.Sensitivity.Value * (1 + alpha*dT))
 		}
 	}
-	return out, evs, nil
+	return out
+}
+
+// Apply is Use, AddTo and Correct at once: raw corrected with recs, their
+// uncertainties added to s.Extra, and an event per record used.
+func Apply(raw []record.Sample, recs []Record, fx config.Fixture, s *process.Setup, at time.Time) ([]record.Sample, []Event, error) {
+	u, evs, err := Use(recs, fx, at)
+	if err != nil {
+		return nil, nil, err
+	}
+	u.AddTo(s)
+	return u.Correct(raw), evs, nil
+}
+
+// LoadDir reads every `kind: calibration` file (*.yaml, *.yml) of dir;
+// files of other kinds are skipped. Two records with one id, or two of one
+// target dated the same day (which is in force is then unclear), are
+// errors naming both files.
+func LoadDir(dir string) ([]Record, error) { return LoadFS(os.DirFS(dir), ".", dir) }
+
+// LoadFS is LoadDir on dir of fsys; errors name files as under shown.
+func LoadFS(fsys fs.FS, dir, shown string) ([]Record, error) {
+	entries, err := fs.ReadDir(fsys, dir)
+	if err != nil {
+		return nil, err
+	}
+	var out []Record
+	var es configs.Errors
+	ids, targets := map[string]string{}, map[string]string{}
+	for _, e := range entries {
+		n := e.Name()
+		if e.IsDir() || !(strings.HasSuffix(n, ".yaml") || strings.HasSuffix(n, ".yml")) {
+			continue
+		}
+		data, err := fs.ReadFile(fsys, path.Join(dir, n))
+		if err != nil {
+			return nil, err
+		}
+		file := filepath.Join(shown, n)
+		doc, err := configs.Parse(file, data)
+		if err != nil {
+			return nil, err
+		}
+		if doc.Kind() != Kind {
+			continue
+		}
+		r, err := FromDoc(doc)
+		if err != nil {
+			return nil, err
+		}
+		if prev, dup := ids[r.ID]; dup {
+			es = append(es, doc.Errorf("id", "%s is also the id of %s", r.ID, prev))
+			continue
+		}
+		ids[r.ID] = file
+		key := r.target() + "@" + r.Date
+		if prev, dup := targets[key]; dup {
+			es = append(es, doc.Errorf("date", "%s has a record of the same date for %s: which one is in force is unclear", prev, r.target()))
+			continue
+		}
+		targets[key] = file
+		out = append(out, r)
+	}
+	if len(es) > 0 {
+		return nil, es
+	}
+	return out, nil
+}
+
+// target names what r calibrates: "fixture NAME" or "ROLE IDENTITY".
+func (r Record) target() string {
+	if r.AppliesTo.Fixture != "" {
+		return "fixture " + r.AppliesTo.Fixture
+	}
+	return r.AppliesTo.Role + " " + r.AppliesTo.Identity
+}
+
+// IdentityMatches reports whether a record's identity names the instrument
+// that gave reply to *IDN?: their comma-separated fields are equal (spaces
+// around each ignored) as far as the record's go, so a record naming maker,
+// model and serial holds whatever the firmware field says.
+func IdentityMatches(identity, reply string) bool {
+	want, got := strings.Split(identity, ","), strings.Split(reply, ",")
+	if identity == "" || len(want) > len(got) {
+		return false
+	}
+	for i, w := range want {
+		if strings.TrimSpace(w) != strings.TrimSpace(got[i]) {
+			return false
+		}
+	}
+	return true
+}
+
+// Select picks from recs those for fx: its search coil's (applies_to.fixture
+// is fx's name) and each instrument's whose identity matches the *IDN? reply
+// its role gave (identities: role → reply). Of several records for one
+// target the latest dated is taken (a renewed calibration supersedes the
+// one before).
+func Select(recs []Record, fx string, identities map[string]string) []Record {
+	latest := map[string]Record{}
+	var order []string
+	for _, r := range recs {
+		t := r.AppliesTo
+		switch {
+		case t.Fixture != "":
+			if t.Fixture != fx {
+				continue
+			}
+		case !IdentityMatches(t.Identity, identities[t.Role]):
+			continue
+		}
+		key := r.target()
+		prev, seen := latest[key]
+		if !seen {
+			order = append(order, key)
+		}
+		if !seen || r.date.After(prev.date) {
+			latest[key] = r
+		}
+	}
+	out := make([]Record, 0, len(order))
+	for _, k := range order {
+		out = append(out, latest[k])
+	}
+	return out
 }

@@ -7,6 +7,7 @@ import (
 	"strings"
 	"testing"
 
+	_ "hystd/acq/calrec" // registers kind calibration
 	"hystd/acq/check"
 	_ "hystd/acq/recipe" // registers kind recipe
 )

@@ -13,6 +13,7 @@ import (
 	"github.com/spf13/viper"
 
 	"hystd/acq/api"
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/influx"
 	"hystd/acq/recipe"
@@ -24,6 +25,12 @@ const Kind = "daemon"
 
 // DefaultAddr is where the HTTP API listens when the config names no address.
 const DefaultAddr = api.DefaultAddr
+
+// Values of calibration_past_due.
+const (
+	PastDueWarn   = "warn"
+	PastDueRefuse = "refuse"
+)
 
 // DefaultPoll is how often a watched folder is looked at.
 const DefaultPoll = 2 * time.Second
@@ -37,6 +44,11 @@ type Config struct {
 		// TokenFile holds the bearer token that mutations (submit, abort)
 		// need; empty: mutations are refused.
 		TokenFile string `yaml:"token_file"`
+		// UsersFile names users with their own tokens and roles (review,
+		// operate, admin; `kind: users`, api.LoadUsers); each mutation is
+		// recorded with the user's name. It may stand beside token_file,
+		// whose token then acts as api.SharedTokenUser with role admin.
+		UsersFile string `yaml:"users_file"`
 		// Hosts are names (besides the bound address) the API may be reached
 		// by; a request with any other Host header is refused (DNS rebinding).
 		Hosts []string `yaml:"hosts"`
@@ -63,6 +75,14 @@ type Config struct {
 	// Grades is a folder of `kind: grade` files; a specimen's grade: names
 	// one of them, and every loop is judged against it. Optional.
 	Grades string `yaml:"grades"`
+	// Calibrations is a folder of `kind: calibration` records. A run uses
+	// those for its fixture's search coil and for the instruments it finds
+	// there (by their *IDN? reply), the latest dated of each. Optional.
+	Calibrations string `yaml:"calibrations"`
+	// CalibrationPastDue is what a run does when a calibration it would
+	// use is past due: warn (default; a warning event with the run) or
+	// refuse (the run ends before any current flows).
+	CalibrationPastDue string `yaml:"calibration_past_due"`
 	// DecisionRule overrides the grades' own decision rule: guarded-U or simple. Optional.
 	DecisionRule string `yaml:"decision_rule"`
 	// ConfirmMount makes a queued run whose specimen differs from the one on
@@ -96,11 +116,14 @@ type Loaded struct {
 	File     string
 	Config   Config
 	Fixtures []LoadedFixture
-	TokenSet bool // a token file was given and read
+	TokenSet bool // a token file or a users file was given and read
 	// Registry holds the specimens and grades the config names.
 	Registry Registry
-	token    string
-	LoadedAt time.Time
+	// Calibrations are the records of the calibrations folder.
+	Calibrations []calrec.Record
+	token        string
+	users        []api.Credential
+	LoadedAt     time.Time
 }
 
 // LoadedFixture is one fixture entry with its files parsed.
@@ -124,7 +147,7 @@ type Scheduled struct {
 
 // envKeys are the settings an environment variable HYSTD_<KEY> (dots as
 // underscores, upper case) may override, e.g. HYSTD_HTTP_ADDR.
-var envKeys = []string{"http.addr", "http.token_file", "store.path", "log.level", "log.format", "spool_dir",
+var envKeys = []string{"http.addr", "http.token_file", "http.users_file", "store.path", "log.level", "log.format", "spool_dir",
 	"influx.url", "influx.org", "influx.bucket", "influx.token_file"}
 
 // Load reads, overrides from the environment and validates a daemon config
@@ -187,7 +210,16 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			l.token, l.TokenSet = tok, true
 		}
 	}
-	if !api.IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && !c.HTTP.OpenWithoutToken {
+	if c.HTTP.UsersFile != "" {
+		c.HTTP.UsersFile = abs(c.HTTP.UsersFile)
+		users, err := api.LoadUsers(c.HTTP.UsersFile)
+		if err != nil {
+			ce.add("http.users_file", "%v", err)
+		}
+		l.users = users
+		l.TokenSet = true
+	}
+	if !api.IsLoopback(c.HTTP.Addr) && c.HTTP.TokenFile == "" && c.HTTP.UsersFile == "" && !c.HTTP.OpenWithoutToken {
 		ce.add("http.addr", "%s is reachable from other machines and no http.token_file is set: every stored run (raw samples, config snapshots) would be readable from the network; set http.token_file, listen on 127.0.0.1, or set http.open_without_token: true to accept that", c.HTTP.Addr)
 	}
 	for i, h := range c.HTTP.Hosts {
@@ -227,6 +259,21 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 		c.Influx = &ic
 	}
 	l.Registry = loadRegistry(ce, abs(c.Specimens), abs(c.Grades), c.DecisionRule)
+	switch c.CalibrationPastDue {
+	case "":
+		c.CalibrationPastDue = PastDueWarn
+	case PastDueWarn, PastDueRefuse:
+	default:
+		ce.add("calibration_past_due", "%q: want %s or %s", c.CalibrationPastDue, PastDueWarn, PastDueRefuse)
+	}
+	if c.Calibrations != "" {
+		c.Calibrations = abs(c.Calibrations)
+		recs, err := calrec.LoadDir(c.Calibrations)
+		if err != nil {
+			ce.add("calibrations", "%v", err)
+		}
+		l.Calibrations = recs
+	}
 	if len(c.Fixtures) == 0 {
 		ce.add("fixtures", "required: at least one fixture with its fixture and specimen files")
 	}
@@ -251,6 +298,10 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			continue
 		}
 		l.Registry.checkGrade(ce, p+".specimen", sp)
+		// A coil record must fit its fixture now, not at the first run.
+		if _, _, err := calrec.Use(calrec.Select(l.Calibrations, fx.Name, nil), fx, time.Time{}); err != nil {
+			ce.add("calibrations", "fixture %s: %v", fx.Name, err)
+		}
 		lf.Name, lf.Fixture, lf.Specimen = fx.Name, fx, sp
 		if prev, dup := names[fx.Name]; dup {
 			ce.add(p+".fixture", "fixture %q is already driven by %s", fx.Name, prev)
@@ -296,6 +347,9 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 
 // Token returns the bearer token for mutations, or "" when none is set.
 func (l *Loaded) Token() string { return l.token }
+
+// Users returns the named users of http.users_file (nil: none).
+func (l *Loaded) Users() []api.Credential { return l.users }
 
 // Fixture returns the loaded fixture named name.
 func (l *Loaded) Fixture(name string) (LoadedFixture, bool) {
@@ -378,6 +432,7 @@ func overrideFromEnv(c *Config, ce *cerr) {
 	}
 	set("http.addr", &c.HTTP.Addr)
 	set("http.token_file", &c.HTTP.TokenFile)
+	set("http.users_file", &c.HTTP.UsersFile)
 	set("store.path", &c.Store.Path)
 	set("log.level", &c.Log.Level)
 	set("log.format", &c.Log.Format)

@@ -2,8 +2,6 @@ package daemon
 
 import (
 	"bytes"
-	"hystd/acq/influx"
-
 	"os"
 	"path/filepath"
 	"strings"
@@ -11,8 +9,10 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/api"
 	"hystd/acq/check"
 	"hystd/acq/engine/enginetest"
+	"hystd/acq/influx"
 )
 
 func TestSampleConfig(t *testing.T) {
@@ -56,7 +56,7 @@ const fixtures = "fixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: sp
 
 func TestConfigErrors(t *testing.T) {
 	tests := []struct{ name, body, want string }{
-		{"unknown key", "kind: daemon\nstore: {path: x.db}\nhttp: {adress: 1}\n" + fixtures, "d.yaml:3: http.adress: unknown key (known keys: addr, hosts, open_without_token, token_file)"},
+		{"unknown key", "kind: daemon\nstore: {path: x.db}\nhttp: {adress: 1}\n" + fixtures, "d.yaml:3: http.adress: unknown key (known keys: addr, hosts, open_without_token, token_file, users_file)"},
 		{"bad addr", "kind: daemon\nstore: {path: x.db}\nhttp: {addr: localhost}\n" + fixtures, "d.yaml:3: http.addr: \"localhost\" is not host:port"},
 		{"no store", "kind: daemon\n" + fixtures, "store.path: required"},
 		{"bad level", "kind: daemon\nstore: {path: x.db}\nlog: {level: loud}\n" + fixtures, "d.yaml:3: log.level: must be debug, info, warn or error"},
@@ -72,13 +72,29 @@ func TestConfigErrors(t *testing.T) {
 			"d.yaml:3: http.addr: 0.0.0.0:8740 is reachable from other machines and no http.token_file is set"},
 		{"lab address without token", "kind: daemon\nstore: {path: x.db}\nhttp: {addr: \"192.0.2.10:8740\"}\n" + fixtures,
 			"http.open_without_token: true to accept that"},
+		{"past-due policy", "kind: daemon\nstore: {path: x.db}\ncalibration_past_due: ignore\n" + fixtures,
+			"d.yaml:3: calibration_past_due: \"ignore\": want warn or refuse"},
+		{"bad calibration record", "kind: daemon\nstore: {path: x.db}\ncalibrations: cal\n" + fixtures,
+			"cal/int.yaml:8: integrator.gain.value: must be > 0, got -1"},
+		{"coil record for a fixture without coil area", "kind: daemon\nstore: {path: x.db}\ncalibrations: coil\n" + fixtures,
+			"calibrations: fixture aldermoor-ring-2: "},
+		{"bad users file", "kind: daemon\nstore: {path: x.db}\nhttp: {users_file: users.yaml}\n" + fixtures,
+			"/users.yaml:3: users.0.role: \"boss\": want review, operate or admin"},
 		{"host with port", "kind: daemon\nstore: {path: x.db}\nhttp: {hosts: [\"hystd.lab.example:8740\"]}\n" + fixtures,
 			"d.yaml:3: http.hosts.0: \"hystd.lab.example:8740\": want a host name without port or scheme"},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
 			p := writeConfig(t, tc.body)
-			_ = os.WriteFile(filepath.Join(filepath.Dir(p), "tok"), []byte("short"), 0o600)
+			dir := filepath.Dir(p)
+			_ = os.WriteFile(filepath.Join(dir, "tok"), []byte("short"), 0o600)
+			_ = os.Mkdir(filepath.Join(dir, "cal"), 0o755)
+			_ = os.WriteFile(filepath.Join(dir, "cal", "int.yaml"), []byte("kind: calibration\nid: C1\napplies_to: {role: integrator, identity: \"X,Y,1\"}\n"+
+				"certificate: Z\ndate: 2026-01-01\ndue: 2027-01-01\nintegrator:\n  gain: {value: -1, u: 0}\n"), 0o644)
+			_ = os.WriteFile(filepath.Join(dir, "users.yaml"), []byte("kind: users\nusers:\n  - {name: ana, role: boss, token_sha256: "+api.TokenHash("t")+"}\n"), 0o600)
+			_ = os.Mkdir(filepath.Join(dir, "coil"), 0o755)
+			_ = os.WriteFile(filepath.Join(dir, "coil", "coil.yaml"), []byte("kind: calibration\nid: C2\napplies_to: {fixture: aldermoor-ring-2}\n"+
+				"certificate: Z\ndate: 2026-01-01\ndue: 2027-01-01\ncoil:\n  area_turns_m2: {value: 0.01, u: 0}\n"), 0o644)
 			_, err := Load(p)
 			if err == nil {
 				t.Fatal("accepted")

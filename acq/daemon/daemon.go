@@ -23,6 +23,7 @@ import (
 	"time"
 
 	"hystd/acq/api"
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/recipe"
@@ -52,10 +53,17 @@ type Opened struct {
 	Process     engine.Processor
 	// Close releases the ports; it does not halt (the engine has done that).
 	Close func() error
+	// Calibrations are the records in force for the instruments opened
+	// (nil: none), and CalibrationEvents name each (a warning for one past
+	// due) for the run's events.
+	Calibrations      *calrec.Used
+	CalibrationEvents []calrec.Event
 }
 
-// Opener opens a fixture's instruments for one run with the specimen mounted.
-type Opener func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error)
+// Opener opens a fixture's instruments for one run with the specimen
+// mounted; cals are the config's calibration records, of which it applies
+// those for this fixture and the instruments it finds.
+type Opener func(ctx context.Context, fx config.Fixture, sp config.Specimen, cals []calrec.Record) (Opened, error)
 
 // Halter brings a fixture's supply to zero current with its output off,
 // opening the supply alone, and returns the confirmation as read back
@@ -118,6 +126,8 @@ type job struct {
 	fx      config.Fixture
 	sp      config.Specimen
 	source  string
+	cals    []calrec.Record // the config's calibration records at submission
+	pastDue string          // calibration_past_due at submission
 	done    func(record.Run, error)
 	// guarded by Daemon.mu
 	cancel  context.CancelCauseFunc // set while running
@@ -176,7 +186,7 @@ func (d *Daemon) safeAtStart(ctx context.Context, lf LoadedFixture) {
 		d.haltFixture(ctx, lf.Fixture, "start-up")
 		return
 	}
-	op, err := d.deps.Open(ctx, lf.Fixture, lf.Specimen)
+	op, err := d.deps.Open(ctx, lf.Fixture, lf.Specimen, nil)
 	if err != nil {
 		log.Error("instruments not reachable at start-up; runs will retry", "err", err)
 		return
@@ -333,16 +343,24 @@ func (d *Daemon) submit(ctx context.Context, fixture, specimen, name string, dat
 	if d.deps.Area != nil {
 		s.Area = d.deps.Area(lf.Fixture, lf.Specimen)
 	}
+	u, byUser := api.UserFrom(ctx)
+	if byUser {
+		s.Operator = u.Name
+	}
 	plan, err := engine.Prepare(ctx, s)
 	if err != nil {
 		d.metrics.refused.WithLabelValues(fixture, source).Inc()
 		return "", err
 	}
+	if byUser {
+		plan.Event(ctx, "info", api.ActionText(u, "run started (queued through the API)"))
+	}
 	if done == nil {
 		done = func(record.Run, error) {}
 	}
 	id := plan.Run().ID
-	j := &job{plan: plan, id: id, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done}
+	j := &job{plan: plan, id: id, fixture: fixture, fx: lf.Fixture, sp: lf.Specimen, source: source, done: done,
+		cals: cfg.Calibrations, pastDue: cfg.Config.CalibrationPastDue}
 	d.mu.Lock()
 	d.runs[id] = j
 	d.mu.Unlock()
@@ -381,6 +399,9 @@ func (d *Daemon) Abort(ctx context.Context, runID string) error {
 
 // AbortWithReason is Abort with the reason recorded.
 func (d *Daemon) AbortWithReason(ctx context.Context, runID, reason string) error {
+	if u, ok := api.UserFrom(ctx); ok {
+		reason += " by " + u.Name
+	}
 	d.mu.Lock()
 	j := d.runs[runID]
 	if j == nil {
@@ -390,12 +411,14 @@ func (d *Daemon) AbortWithReason(ctx context.Context, runID, reason string) erro
 	if j.cancel != nil {
 		j.cancel(engine.Abort(reason))
 		d.mu.Unlock()
+		d.recordAction(ctx, runID, api.ActionAbort)
 		d.log.Info("abort requested", "run", runID, "reason", reason)
 		return nil
 	}
 	j.aborted = true
 	delete(d.runs, runID)
 	d.mu.Unlock()
+	d.recordAction(ctx, runID, api.ActionAbort)
 	run := j.plan.End(ctx, record.Aborted, reason+" (before it started)")
 	d.metrics.ended.WithLabelValues(j.fixture, string(record.Aborted)).Inc()
 	j.done(run, &engine.Stop{State: record.Aborted, Reason: run.Reason})
@@ -472,7 +495,7 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 	var op Opened
 	oerr := d.awaitMount(ctx, fr, j)
 	if oerr == nil {
-		op, oerr = d.deps.Open(ctx, j.fx, j.sp)
+		op, oerr = d.deps.Open(ctx, j.fx, j.sp, j.cals)
 	}
 	switch {
 	case oerr != nil:
@@ -489,7 +512,10 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 		run = j.plan.End(ctx, st, reason)
 		err = &engine.Stop{State: st, Reason: run.Reason}
 	default:
-		if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
+		if why := useCalibrations(ctx, j.plan, op, j.pastDue, d.deps.Clock.Now()); why != "" {
+			run = j.plan.End(ctx, record.Failed, why)
+			err = &engine.Stop{State: record.Failed, Reason: run.Reason}
+		} else if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
 			run = j.plan.End(ctx, record.Failed, serr.Error())
 			err = serr
 		} else {
@@ -592,4 +618,41 @@ func (d *Daemon) Status() []FixtureStatus {
 		out = append(out, fs)
 	}
 	return out
+}
+
+// useCalibrations records with the plan's run the calibrations op applies
+// (one event each, a warning for one past due at now) and returns, when
+// policy is PastDueRefuse and one is past due, why the run must not start
+// (nothing has been energised yet); "" lets it run.
+func useCalibrations(ctx context.Context, plan *engine.Plan, op Opened, policy string, now time.Time) string {
+	for _, e := range op.CalibrationEvents {
+		plan.Event(ctx, e.Level, e.Text)
+	}
+	late := op.Calibrations.PastDue(now)
+	if policy != PastDueRefuse || len(late) == 0 {
+		return ""
+	}
+	var names []string
+	for _, r := range late {
+		names = append(names, fmt.Sprintf("%s (due %s)", r.ID, r.Due))
+	}
+	return fmt.Sprintf("refused: calibration %s past due, and the daemon config (calibration_past_due: refuse) refuses runs on an expired calibration; renew it or set calibration_past_due: warn", strings.Join(names, ", "))
+}
+
+// RecordAction stores, with a run, that the user of ctx (api.UserFrom) did
+// action; without a user it does nothing. It is how every mutation through
+// the API names who made it (api.ActionRecorder).
+func (d *Daemon) RecordAction(ctx context.Context, runID, action string) error {
+	u, ok := api.UserFrom(ctx)
+	if !ok {
+		return nil
+	}
+	return d.deps.Writer.AddEvent(context.WithoutCancel(ctx), record.Event{RunID: runID, At: d.deps.Clock.Now(), Level: "info", Text: api.ActionText(u, action)})
+}
+
+// recordAction is RecordAction with a failure logged.
+func (d *Daemon) recordAction(ctx context.Context, runID, action string) {
+	if err := d.RecordAction(ctx, runID, action); err != nil {
+		d.log.Error("event not stored", "run", runID, "action", action, "err", err)
+	}
 }

@@ -12,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/engine/enginetest"
@@ -28,7 +29,7 @@ type fakeBench struct {
 	gate  chan struct{}
 }
 
-func (f *fakeBench) open(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error) {
+func (f *fakeBench) open(ctx context.Context, fx config.Fixture, sp config.Specimen, _ []calrec.Record) (Opened, error) {
 	f.mu.Lock()
 	f.opens++
 	gate := f.gate
@@ -209,7 +210,7 @@ func TestTwoFixtures(t *testing.T) {
 	clk := &schedClock{enginetest.NewClock()}
 	var mu sync.Mutex
 	sups := map[string]*enginetest.Supply{}
-	open := func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error) {
+	open := func(ctx context.Context, fx config.Fixture, sp config.Specimen, _ []calrec.Record) (Opened, error) {
 		mu.Lock()
 		defer mu.Unlock()
 		s := sups[fx.Name]
@@ -312,7 +313,7 @@ func TestRunOnceNeedsFixtureName(t *testing.T) {
 	p := twoFixtureConfig(t)
 	opened := false
 	_, err := RunOnce(context.Background(), RunOptions{ConfigPath: p, RecipePath: "none.yaml",
-		Wiring: Wiring{Stderr: io.Discard, Open: func(context.Context, config.Fixture, config.Specimen) (Opened, error) {
+		Wiring: Wiring{Stderr: io.Discard, Open: func(context.Context, config.Fixture, config.Specimen, []calrec.Record) (Opened, error) {
 			opened = true
 			return Opened{}, errors.New("not here")
 		}}})

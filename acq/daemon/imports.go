@@ -4,6 +4,8 @@ import (
 	"context"
 	"fmt"
 
+	"hystd/acq/api"
+	"hystd/acq/calrec"
 	"hystd/acq/imports"
 	"hystd/acq/record"
 )
@@ -25,10 +27,18 @@ func (d *Daemon) Import(ctx context.Context, fixture, specimen, name string, dat
 		return record.Run{}, nil, err
 	}
 	now := d.deps.Clock.Now()
+	operator := "api"
+	u, byUser := api.UserFrom(ctx)
+	if byUser {
+		operator = u.Name
+	}
 	p, err := imports.Prepare(imports.Options{File: name, Data: data, Fixture: lf.Fixture, Specimen: sp,
-		Software: d.deps.Software, Operator: "api", Now: now})
+		Software: d.deps.Software, Operator: operator, Now: now, Calibrations: calrec.Select(cfg.Calibrations, lf.Name, nil)})
 	if err != nil {
 		return record.Run{}, nil, importError{err}
+	}
+	if byUser {
+		p.Events = append(p.Events, record.Event{RunID: p.Run.ID, At: now, Level: "info", Text: api.ActionText(u, "recording imported")})
 	}
 	gr, _ := cfg.Registry.GradeOf(sp)
 	if err := p.Store(ctx, gradeWriter(d.deps.Writer, gr, cfg)); err != nil {

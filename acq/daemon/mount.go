@@ -108,15 +108,17 @@ func (d *Daemon) awaitMount(ctx context.Context, fr *fixtureRunner, j *job) erro
 
 // ConfirmMount tells the daemon that the specimen run runID waits for is
 // now mounted on its fixture; the run then starts.
-func (d *Daemon) ConfirmMount(_ context.Context, runID string) error {
+func (d *Daemon) ConfirmMount(ctx context.Context, runID string) error {
 	d.mu.Lock()
-	defer d.mu.Unlock()
 	j := d.runs[runID]
 	if j == nil || j.mount == nil {
+		d.mu.Unlock()
 		return fmt.Errorf("run %s: %w", runID, ErrNotWaiting)
 	}
 	close(j.mount)
 	j.mount = nil
+	d.mu.Unlock()
+	d.recordAction(ctx, runID, "specimen "+j.sp.ID+" mount confirmed")
 	return nil
 }
 

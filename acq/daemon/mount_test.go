@@ -3,6 +3,7 @@ package daemon
 import (
 	"context"
 	"errors"
+	"fmt"
 	"log/slog"
 	"os"
 	"path/filepath"
@@ -10,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/api"
 	"hystd/acq/engine/enginetest"
 	"hystd/acq/record"
 )
@@ -102,7 +104,7 @@ func TestBatchOfSpecimens(t *testing.T) {
 				if err := d.ConfirmMount(ctx, "nope"); !errors.Is(err, ErrNotWaiting) {
 					t.Errorf("confirm unknown: %v", err)
 				}
-				if err := d.ConfirmMount(ctx, id); err != nil {
+				if err := d.ConfirmMount(api.WithUser(ctx, api.User{Name: "mira", Role: api.RoleOperate}), id); err != nil {
 					t.Fatal(err)
 				}
 			}
@@ -128,6 +130,12 @@ func TestBatchOfSpecimens(t *testing.T) {
 			}
 			if n != 3 {
 				t.Errorf("%d mount confirmations recorded, want 3", n)
+			}
+			for i, id := range []string{id1, id2, id3} {
+				want := fmt.Sprintf("user mira (operate): specimen S-%d mount confirmed", i+1)
+				if !hasText(w.EventsOf(id), "info", want) {
+					t.Errorf("run %s: no event %q", id, want)
+				}
 			}
 		}
 	}

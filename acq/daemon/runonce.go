@@ -2,7 +2,6 @@ package daemon
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -138,7 +137,7 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		case <-rctx.Done():
 		}
 	}()
-	op, err := w.Open(rctx, lf.Fixture, lf.Specimen)
+	op, err := w.Open(rctx, lf.Fixture, lf.Specimen, cfg.Calibrations)
 	if err != nil {
 		// The supply may have been left on (a killed process): halt it
 		// alone before reporting.
@@ -154,13 +153,19 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}
 	defer op.Close()
 	p := &printer{out: o.Out}
-	run, err := engine.Run(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
+	plan, err := engine.Prepare(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
 		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Clock: w.Clock,
 		Writer: grade.Writer{Writer: st, Grade: gr, Rule: cfg.Registry.Rule}, Process: op.Process,
 		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir, Operator: o.Operator})
-	var ref *engine.Refused
-	if errors.As(err, &ref) {
-		return run, err
+	if err != nil {
+		return record.Run{}, err
+	}
+	var run record.Run
+	if why := useCalibrations(rctx, plan, op, cfg.Config.CalibrationPastDue, w.Clock.Now()); why != "" {
+		run = plan.End(rctx, record.Failed, why)
+		err = &engine.Stop{State: record.Failed, Reason: run.Reason}
+	} else {
+		run, err = plan.Execute(rctx)
 	}
 	fmt.Fprintf(o.Out, "run %s %s", run.ID, run.State)
 	if run.Reason != "" {

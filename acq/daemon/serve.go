@@ -281,6 +281,10 @@ func reload(d *Daemon, path string, log *slog.Logger) {
 	if nc.HTTP.TokenFile != old.HTTP.TokenFile {
 		restart = append(restart, "http.token_file")
 	}
+	if nc.HTTP.UsersFile != "" || old.HTTP.UsersFile != "" {
+		// The API keeps the users it started with (a changed file, too).
+		restart = append(restart, "http.users_file")
+	}
 	if len(restart) > 0 {
 		log.Warn("config reloaded; these settings take effect at the next start", "keys", strings.Join(restart, ", "))
 	}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"log/slog"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/fixture"
 	"hystd/acq/process"
@@ -13,18 +14,25 @@ import (
 
 // FixtureOpener opens a fixture's instruments through their profiles
 // (acq/fixture) and builds the loop processing for the mounted specimen with
-// the profiles' accuracies. Geometry warnings are logged.
+// the profiles' accuracies and the calibration records in force for the
+// instruments it found (fixture.Opened.Calibrations). Geometry warnings are
+// logged.
 func FixtureOpener(log *slog.Logger) Opener { return FixtureOpenerClock(log, clock.Real{}) }
 
 // FixtureOpenerClock is FixtureOpener with the drivers on clk (the
 // engine's clock; see fixture.OpenClock).
 func FixtureOpenerClock(log *slog.Logger, clk clock.Clock) Opener {
-	return func(ctx context.Context, fx config.Fixture, sp config.Specimen) (Opened, error) {
+	return func(ctx context.Context, fx config.Fixture, sp config.Specimen, cals []calrec.Record) (Opened, error) {
 		o, err := fixture.OpenClock(ctx, fx, log, clk)
 		if err != nil {
 			return Opened{}, err
 		}
-		proc, warnings, err := o.Processor(fx, sp)
+		used, evs, err := o.Calibrations(cals, fx, clk.Now())
+		if err != nil {
+			o.Close()
+			return Opened{}, err
+		}
+		proc, warnings, err := o.Processor(fx, sp, used)
 		if err != nil {
 			o.Close()
 			return Opened{}, err
@@ -32,7 +40,7 @@ func FixtureOpenerClock(log *slog.Logger, clk clock.Clock) Opener {
 		for _, w := range warnings {
 			log.Warn(w, "fixture", fx.Name, "specimen", sp.ID)
 		}
-		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close}, nil
+		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close, Calibrations: used, CalibrationEvents: evs}, nil
 	}
 }
 

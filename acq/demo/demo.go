@@ -16,6 +16,7 @@ import (
 	"text/tabwriter"
 	"time"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/fixture"
@@ -39,6 +40,8 @@ const (
 	RecipeFile   = "recipes/demo-ring.yaml"
 	// BufferedRecipeFile is RecipeFile with capture: buffered.
 	BufferedRecipeFile = "recipes/demo-ring-buffered.yaml"
+	// CalibrationDir holds the calibration records of the bench's instruments.
+	CalibrationDir = "calibrations"
 )
 
 // Options configure a demo run.
@@ -47,6 +50,7 @@ type Options struct {
 	Out      io.Writer    // progress and the figures table; nil: io.Discard
 	Log      *slog.Logger // nil: warnings only, to Out
 	Software string       // version recorded with the run
+	Operator string       // who runs it, recorded with the run; may be ""
 	Live     *live.Hub    // optional: also publish live events here
 	// Bench replaces the default bench (tests); zero: sim.DefaultBench().
 	Bench *sim.Config
@@ -147,7 +151,17 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	defer opened.Close()
-	proc, warnings, err := opened.Processor(fx, sp)
+	// The shipped calibration records (configs/calibrations) apply to the
+	// bench's instruments by the identities they gave.
+	cals, err := calrec.LoadFS(configs.Samples, CalibrationDir, "configs/"+CalibrationDir)
+	if err != nil {
+		return Result{}, err
+	}
+	used, calEvents, err := opened.Calibrations(cals, fx, clk.Now())
+	if err != nil {
+		return Result{}, err
+	}
+	proc, warnings, err := opened.Processor(fx, sp, used)
 	if err != nil {
 		return Result{}, err
 	}
@@ -166,7 +180,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	}
 	pub := &progress{out: out, hub: o.Live}
 	fmt.Fprintf(out, "running recipe %q on specimen %s (%s)\n", rc.Name, sp.ID, sp.Material)
-	run, runErr := engine.Run(ctx, engine.Setup{
+	plan, err := engine.Prepare(ctx, engine.Setup{
 		Fixture:     fx,
 		Specimen:    sp,
 		Recipe:      rc,
@@ -176,9 +190,17 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		Live:        pub,
 		Log:         log,
 		Software:    o.Software,
+		Operator:    o.Operator,
 		SpoolDir:    o.DataDir,
 		Clock:       clk,
 	})
+	if err != nil {
+		return Result{}, err
+	}
+	for _, e := range calEvents {
+		plan.Event(ctx, e.Level, e.Text)
+	}
+	run, runErr := plan.Execute(ctx)
 	res := Result{Run: run, DB: db, Truth: bench.History(), Final: bench.Truth()}
 	if run.ID != "" {
 		// Read back what was committed, whatever the ending.

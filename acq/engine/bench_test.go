@@ -129,7 +129,7 @@ func ringRunErr(t *testing.T, cfg sim.Config, recipeText string, clk *clock.Sim)
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { op.Close() })
-	proc, _, err := op.Processor(fx, sp)
+	proc, _, err := op.Processor(fx, sp, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -664,18 +664,30 @@ const IdentityPrefix = "instrument "
 // identities records each instrument's *IDN? reply, as read when it was
 // identified, for the run's provenance (instruments that can tell it).
 func (x *exec) identities(ctx context.Context) {
+	ids := Identities(x.s.Instruments)
+	for _, role := range identityRoles {
+		if id := ids[role]; id != "" {
+			x.event(ctx, "info", "%s%s: %s", IdentityPrefix, role, id)
+		}
+	}
+}
+
+var identityRoles = []string{"supply", "integrator", "field_meter", "thermometer"}
+
+// Identities returns each instrument's *IDN? reply as read when it was
+// identified, by role (supply, integrator, field_meter, thermometer);
+// instruments whose driver cannot tell are missing.
+func Identities(in Instruments) map[string]string {
 	type idn interface{ IdentityRead() string }
-	in := x.s.Instruments
-	for _, r := range []struct {
-		role string
-		dev  any
-	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field_meter", in.FieldMeter}, {"thermometer", in.Thermometer}} {
-		if d, ok := r.dev.(idn); ok && d != nil {
+	out := map[string]string{}
+	for i, dev := range []any{in.Supply, in.Integrator, in.FieldMeter, in.Thermometer} {
+		if d, ok := dev.(idn); ok && d != nil {
 			if id := d.IdentityRead(); id != "" {
-				x.event(ctx, "info", "%s%s: %s", IdentityPrefix, r.role, id)
+				out[identityRoles[i]] = id
 			}
 		}
 	}
+	return out
 }
 
 // pollErrors reads, every instrument's error_poll period, the error queue

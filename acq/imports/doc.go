@@ -10,7 +10,7 @@
 // `calib/units`, so "psi (uV s)" and "I (mA)" are SI prefixes, not special cases) into `record.Sample`s;
 // `Split` cuts it into loop steps by its phase column, or, without one, finds the static holds at the start and
 // end from the current standing still (`StillFraction` = 0.1 % of the largest |I|, at least 5 samples).
-// `Prepare` runs `calrec.Apply` and then `process.Loop` — the live path's function, with the live path's
+// `Prepare` runs the `Stepper` (`calrec.Use`, then per step `Used.Correct` and `process.Loop`) — the live path's function, with the live path's
 // `process.SetupFrom` — on each step and builds the run (recipe `import`, provenance "imported from FILE (sha256
 // …)" in `RecipeText`, the config snapshot and the first event); `Store` writes it. Everything is read and processed
 // before the store is opened, so a refused file leaves nothing (not even an empty `hystd.db`). The daemon's
@@ -27,6 +27,13 @@
 // due date adds the warning event. `calrec` tests: loader errors at FILE:LINE, the due-day boundary, the formulas
 // of `Apply` on one sample computed by hand.
 //
-// Calibration records are applied by imports only; live runs do not load them yet (a daemon-config folder, the
-// instruments' identities at open time, and the processor's `Setup.Extra` are the pieces to join).
+// Live runs take the same `calrec.Used`: `fixture.Opened.Calibrations` selects the records of the daemon config's
+// `calibrations` folder by fixture and by the `*IDN?` replies read at the open (`engine.Identities`), the
+// processor corrects each loop's raw samples with `Used.Correct` before `process.Loop`, and the daemon and `run`
+// record the events and apply `calibration_past_due` (`daemon.useCalibrations`) before `Execute`.
+// `TestCalibrationOnBench` and `TestDaemonRefusesPastDueCalibration` (`acq/daemon`, simulated bench) check the
+// 1/g scaling against the run's own stored raw samples, the warning, and the refusal by the bench's truth.
+// Re-processing (acq/reprocess) applies an imported run's records, which its config stores; a live run stores
+// only the ids of the records it used (its events), so re-processing refuses such a run rather than drop
+// their correction.
 package imports

@@ -18,7 +18,6 @@ import (
 	"hystd/acq/config"
 	"hystd/acq/process"
 	"hystd/acq/record"
-	"hystd/calib/loop"
 	"hystd/calib/loopcsv"
 )
 
@@ -119,7 +118,7 @@ type Options struct {
 	Operator string
 	Now      time.Time // when the import is recorded
 	Writer   record.Writer
-	// Calibrations are applied to every step (calrec.Apply); each is
+	// Calibrations are applied to every step (imports.Stepper); each is
 	// recorded in the run's events, one past due at Now as a warning.
 	Calibrations []calrec.Record
 }
@@ -177,17 +176,13 @@ func Prepare(o Options) (*Prepared, error) {
 	var rnd [3]byte
 	_, _ = rand.Read(rnd[:])
 	id := fmt.Sprintf("%s-import-%s-%s", idUnsafe.ReplaceAllString(o.Fixture.Name, "_"), o.Now.UTC().Format("20060102T150405Z"), hex.EncodeToString(rnd[:]))
-	var calEvents []calrec.Event
+	calEvents := stepper.Events()
 	var loops []record.Loop
 	for k, st := range steps {
-		pts, figs, corr, evs, err := stepper.Step(st)
-		if ce, ok := err.(calError); ok {
-			return nil, ce.error
-		}
+		pts, figs, corr, err := stepper.Step(st)
 		if err != nil {
 			return nil, &loopcsv.Error{File: o.File, Line: lines[k][0], Msg: fmt.Sprintf("step %d (lines %d–%d): %v", k+1, lines[k][0], lines[k][len(lines[k])-1], err)}
 		}
-		calEvents = evs
 		amp := 0.0
 		for _, x := range st {
 			if x.Phase == record.Sweep {
@@ -237,44 +232,40 @@ func Prepare(o Options) (*Prepared, error) {
 }
 
 // Stepper is the processing of one step of an imported recording: the
-// calibration records applied to the samples (calrec.Apply), then
-// process.Loop with the fixture's and specimen's setup. Import and the
-// re-processing of an imported run (package acq/reprocess) both use it.
+// calibration records applied to the samples (calrec.Used.Correct), then
+// process.Loop with the fixture's and specimen's setup, the records'
+// uncertainties among its sources. Import and the re-processing of an
+// imported run (package acq/reprocess) both use it.
 type Stepper struct {
 	setup process.Setup
-	fx    config.Fixture
-	cals  []calrec.Record
-	at    time.Time
+	cal   *calrec.Used
+	evs   []calrec.Event
 }
 
 // NewStepper builds the Stepper of a fixture and specimen with the
-// calibration records cals, judged for being past due at at. The warnings
-// are the geometry's (process.SetupFrom).
+// calibration records cals, judged for being past due at at; a record that
+// cannot apply to fx is an error here, before any step. The warnings are
+// the geometry's (process.SetupFrom).
 func NewStepper(fx config.Fixture, sp config.Specimen, cals []calrec.Record, at time.Time) (*Stepper, []string, error) {
 	setup, warns, err := process.SetupFrom(fx, sp)
 	if err != nil {
 		return nil, nil, err
 	}
-	return &Stepper{setup: setup, fx: fx, cals: cals, at: at}, warns, nil
+	cal, evs, err := calrec.Use(cals, fx, at)
+	if err != nil {
+		return nil, nil, err
+	}
+	cal.AddTo(&setup)
+	return &Stepper{setup: setup, cal: cal, evs: evs}, warns, nil
 }
 
-// calError is a calibration record that cannot be applied: an error of
-// the records, not of the step (its text unchanged).
-type calError struct{ error }
+// Events are the calibration records used: one event each, and a warning
+// for one past due.
+func (p *Stepper) Events() []calrec.Event { return p.evs }
 
-func (e calError) Unwrap() error { return e.error }
-
-// Step processes one step's raw samples (not modified); the events are the
-// calibration records used.
-func (p *Stepper) Step(raw []record.Sample) ([]record.Point, []record.Figure, []record.Correction, []calrec.Event, error) {
-	s := p.setup
-	s.Extra = append([]loop.Source(nil), p.setup.Extra...)
-	cst, evs, err := calrec.Apply(raw, p.cals, p.fx, &s, p.at)
-	if err != nil {
-		return nil, nil, nil, nil, calError{err}
-	}
-	pts, figs, corr, err := process.Loop(cst, s)
-	return pts, figs, corr, evs, err
+// Step processes one step's raw samples (not modified).
+func (p *Stepper) Step(raw []record.Sample) ([]record.Point, []record.Figure, []record.Correction, error) {
+	return process.Loop(p.cal.Correct(raw), p.setup)
 }
 
 // Store writes p as a run that goes queued → running → finished at the

@@ -15,6 +15,7 @@ import (
 	"golang.org/x/image/font/gofont/gobold"
 	"golang.org/x/image/font/gofont/goregular"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/engine"
 	"hystd/acq/grade"
@@ -281,7 +282,17 @@ func (d *doc) fixture(in Input, fx config.Fixture) {
 		}
 		rows = append(rows, [2]string{strings.ReplaceAll(r, "_", " "), v})
 	}
-	rows = append(rows, [2]string{"Calibration", "no calibration record is stored with this run: the instrument profiles' scale factors were used as configured"})
+	cals := calrec.Listed(in.Events)
+	if len(cals) == 0 {
+		cals = []string{"no calibration record is stored with this run: the instrument profiles' scale factors were used as configured"}
+	}
+	for i, c := range cals {
+		k := ""
+		if i == 0 {
+			k = "Calibration"
+		}
+		rows = append(rows, [2]string{k, c})
+	}
 	d.kv(rows)
 }
 

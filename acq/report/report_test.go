@@ -14,6 +14,7 @@ import (
 
 	"go.yaml.in/yaml/v3"
 
+	"hystd/acq/calrec"
 	"hystd/acq/config"
 	"hystd/acq/record"
 	"hystd/configs"
@@ -85,8 +86,21 @@ func sampleInput(t *testing.T) Input {
 		{Grade: "NO-R470", Figure: "Hmax", Value: 997.04, U: 5.61, Min: 900, Max: math.NaN(), Unit: "A/m", Rule: "guarded-U",
 			Outcome: record.Pass},
 	}
-	return Input{Run: run, Loops: []record.Loop{l}, Generated: t0.Add(time.Hour), Software: "1.2.4-test",
-		Events: []record.Event{{RunID: run.ID, Text: "instrument supply: LAB-SIM,SUPPLY-X,0007,2.1"}}}
+	evs := []record.Event{{RunID: run.ID, Text: "instrument supply: LAB-SIM,SUPPLY-X,0007,2.1"}}
+	// The calibration events as a run records them (calrec.Use), for a
+	// record past due at the run.
+	cal, err := calrec.Load("../calrec/testdata/integrator-expired.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, cevs, err := calrec.Use([]calrec.Record{cal}, config.Fixture{}, run.Started)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, e := range cevs {
+		evs = append(evs, record.Event{RunID: run.ID, Level: e.Level, Text: e.Text})
+	}
+	return Input{Run: run, Loops: []record.Loop{l}, Generated: t0.Add(time.Hour), Software: "1.2.4-test", Events: evs}
 }
 
 // TestReportText renders the report with poppler's pdftotext and checks
@@ -119,6 +133,7 @@ func TestReportText(t *testing.T) {
 		"overall verdict: UNDECIDED", "guarded-U: guarded acceptance",
 		"take precedence", "hystd 1.2.3-test", "hystd 1.2.4-test", "9e01509071cad04da0b15b035a7ad1f4d15552013536965bb569fe3b50a93e39",
 		"Tested by", "Approved by",
+		"Calibration CAL-INT-03 (integrator HOLLIN LAB,FLUXINT-2,0007,1.0; certificate HL-2024-0311, 2024-03-11, due 2025-03-11) — PAST DUE at the run",
 	} {
 		if !strings.Contains(text, want) {
 			t.Errorf("report text lacks %q", want)

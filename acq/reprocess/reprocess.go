@@ -132,6 +132,19 @@ func Run(ctx context.Context, st Store, o Options) (Result, error) {
 	}
 	event("info", fmt.Sprintf("re-processed from the raw samples by %s; changed %s", by, strings.Join(change, "; ")))
 
+	if !isImport(run) {
+		// A live run's calibration records were chosen by the identities
+		// its instruments gave at open, and only their ids are stored (its
+		// events): re-processing without them would silently drop their
+		// correction, so such a run is refused.
+		evs, err := st.Events(ctx, run.ID)
+		if err != nil {
+			return Result{}, err
+		}
+		if used := calrec.Listed(evs); len(used) > 0 {
+			return Result{}, bad("run %s used calibration records (%s): re-processing a live run with its calibration records is not supported yet; nothing was changed", run.ID, strings.Join(used, "; "))
+		}
+	}
 	step, warns, err := processor(run, fx, sp, snap)
 	if err != nil {
 		return Result{}, badErr(err)
@@ -211,15 +224,16 @@ func processor(run record.Run, fx config.Fixture, sp config.Specimen, snap Snaps
 		if err != nil {
 			return nil, nil, err
 		}
+		evs := s.Events()
 		return func(raw []record.Sample, _ recipe.LoopInfo) (engine.Processed, []calrec.Event, error) {
-			pts, figs, corr, evs, err := s.Step(raw)
+			pts, figs, corr, err := s.Step(raw)
 			return engine.Processed{Points: pts, Figures: figs, Corrections: corr}, evs, err
 		}, warns, nil
 	}
 	if len(snap.Calibrations) > 0 {
 		return nil, nil, errors.New("the run's stored config names calibration records, which live re-processing does not apply yet")
 	}
-	p, warns, err := fixture.Offline(fx, sp)
+	p, warns, err := fixture.Offline(fx, sp, nil)
 	if err != nil {
 		return nil, nil, err
 	}

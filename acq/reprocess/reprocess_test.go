@@ -240,7 +240,7 @@ func liveRun(t *testing.T) (*memstore.Store, record.Run, config.Fixture) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	proc, _, err := fixture.Offline(fx, sp)
+	proc, _, err := fixture.Offline(fx, sp, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

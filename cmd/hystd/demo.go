@@ -61,7 +61,7 @@ func newDemoCmd() *cobra.Command {
 			if capture != "polled" && capture != "buffered" {
 				return &exitError{code: exitUsage, err: fmt.Errorf("--capture %q: want polled or buffered", capture)}
 			}
-			opts := demo.Options{DataDir: dataDir, Out: out, Software: version, Capture: capture,
+			opts := demo.Options{DataDir: dataDir, Out: out, Software: version, Capture: capture, Operator: osUser(),
 				Log: slog.New(slog.NewTextHandler(cmd.ErrOrStderr(), &slog.HandlerOptions{Level: slog.LevelWarn}))}
 			slog.SetDefault(opts.Log) // the forwarder logs through the default logger: stderr
 			switch speed {

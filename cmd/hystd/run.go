@@ -3,6 +3,7 @@ package main
 import (
 	"errors"
 	"fmt"
+	"os/user"
 
 	"github.com/spf13/cobra"
 
@@ -23,6 +24,9 @@ func newRunCmd() *cobra.Command {
 			"Exit status: 0 finished, 1 refused or bad input, 2 usage, 3 failed, 4 aborted.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
+			if operator == "" {
+				operator = osUser()
+			}
 			_, err := daemon.RunOnce(cmd.Context(), daemon.RunOptions{
 				ConfigPath: cfgPath, Fixture: fixture, RecipePath: args[0], Out: cmd.OutOrStdout(),
 				Specimen: specimen, Operator: operator,
@@ -42,7 +46,17 @@ func newRunCmd() *cobra.Command {
 	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config file (kind: daemon)")
 	cmd.Flags().StringVar(&fixture, "fixture", "", "fixture name, when the config drives several")
 	cmd.Flags().StringVar(&specimen, "specimen", "", "specimen to run on instead of the mounted one: an id of the config's specimens folder, or a specimen file")
-	cmd.Flags().StringVar(&operator, "operator", "", "who runs it, recorded with the run and on its report")
+	cmd.Flags().StringVar(&operator, "operator", "", "who runs it, recorded with the run and on its report (default: the OS user's login name)")
 	_ = cmd.MarkFlagRequired("config")
 	return cmd
+}
+
+// osUser is the login name of the user running hystd, recorded as the
+// operator of a run started from the command line without --operator; ""
+// when the system cannot tell.
+func osUser() string {
+	if u, err := user.Current(); err == nil {
+		return u.Username
+	}
+	return ""
 }

@@ -432,6 +432,8 @@ async function selectRun(id, rev) {
   const item = (k, v) => meta.append(el("span", {}, el("span", { class: "label", text: k + " " }), v));
   item("recipe", r.recipe); item("fixture", r.fixture); item("specimen", r.specimen); item("material", r.material);
   item("started", when(r.started)); item("ended", when(r.ended));
+  if (r.operator) item("started by", r.operator);
+  if (state.run.aborted_by) item("aborted by", state.run.aborted_by);
   if (r.reason) item("reason", r.reason);
   const st = el("span", { class: "state state-" + r.state, text: r.state, id: "run-state" });
   head.append(el("h2", { text: r.id }, " ", st), meta);
@@ -449,6 +451,13 @@ async function selectRun(id, rev) {
     }
     head.append(el("div", { class: "label", text: `showing revision ${r.revision} of ${revs.length}` }), ul);
   }
+  // The calibration records the run's processing used (none: the
+  // instrument profiles' scale factors as configured).
+  const cals = state.run.calibrations || [];
+  const cl = el("ul", { class: "cals", id: "run-calibrations" });
+  for (const c of cals) cl.append(el("li", { text: "calibration " + c }));
+  if (!cals.length) cl.append(el("li", { class: "muted", text: "no calibration record used" }));
+  head.append(cl);
   if ((state.run.flags || []).length) {
     const fl = el("ul", { class: "flags", id: "run-flags" });
     for (const f of state.run.flags) fl.append(el("li", { text: f }));

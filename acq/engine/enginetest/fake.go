@@ -424,3 +424,16 @@ func (w *Writer) Run(id string) record.Run {
 	defer w.mu.Unlock()
 	return w.Runs[id]
 }
+
+// EventsOf returns the events stored for run id, in order.
+func (w *Writer) EventsOf(id string) []record.Event {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	var out []record.Event
+	for _, e := range w.Events {
+		if e.RunID == id {
+			out = append(out, e)
+		}
+	}
+	return out
+}
