@@ -17,6 +17,7 @@ import (
 	"hystd/calib/loop"
 	"hystd/calib/units"
 	"hystd/configs"
+	"hystd/drivers/instr"
 )
 
 // Kind is the document kind of a calibration record.
@@ -129,11 +130,11 @@ func FromDoc(doc *configs.Doc) (Record, error) {
 		if r.Coil == nil || r.Integrator != nil || r.Probe != nil {
 			add("applies_to.fixture", "a fixture's record holds a coil block only")
 		}
-	case t.Role == config.RoleIntegrator:
+	case t.Role == instr.RoleIntegrator:
 		if r.Integrator == nil || r.Coil != nil || r.Probe != nil {
 			add("applies_to.role", "an integrator's record holds an integrator block only")
 		}
-	case t.Role == config.RoleFieldMeter:
+	case t.Role == instr.RoleFieldMeter:
 		if r.Probe == nil || r.Coil != nil || r.Integrator != nil {
 			add("applies_to.role", "a field meter's record holds a probe block only")
 		}

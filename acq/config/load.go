@@ -6,6 +6,7 @@ import (
 	"regexp"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 )
 
 // LoadFixture reads and validates a fixture file.
@@ -133,7 +134,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 	c.name("name", f.Name)
 	for role, in := range f.Instruments {
 		p := "instruments." + role
-		c.oneOf(p, role, RoleSupply, RoleIntegrator, RoleFieldMeter, RoleThermometer)
+		c.oneOf(p, role, instr.RoleSupply, instr.RoleIntegrator, instr.RoleFieldMeter, instr.RoleThermometer)
 		if in.Port == "" && in.USB == nil {
 			c.add(p, "needs a port (device path) or usb (vid, pid, serial)")
 		}
@@ -148,7 +149,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 			c.add(p+".baud", "must not be negative, got %d", in.Baud)
 		}
 	}
-	for _, role := range []string{RoleSupply, RoleIntegrator} {
+	for _, role := range []string{instr.RoleSupply, instr.RoleIntegrator} {
 		if _, ok := f.Instruments[role]; !ok {
 			c.add("instruments", "a %s is required", role)
 		}
@@ -163,7 +164,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 	c.nonNegative("winding.resistance_ohm", f.Winding.ResistanceOhm)
 	c.nonNegative("winding.inductance_h", f.Winding.InductanceH)
 	c.oneOf("h_from", f.HFrom, "current", "field_meter")
-	if _, ok := f.Instruments[RoleFieldMeter]; f.HFrom == "field_meter" && !ok {
+	if _, ok := f.Instruments[instr.RoleFieldMeter]; f.HFrom == "field_meter" && !ok {
 		c.add("h_from", "field_meter needs an instruments.field_meter")
 	}
 	l := f.Limits
@@ -174,7 +175,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 	c.nonNegative("limits.max_resistance_rise", l.MaxResistanceRise)
 	c.nonNegative("limits.max_field_t", l.MaxFieldT)
 	if l.MaxWindingTempC > 0 {
-		if _, ok := f.Instruments[RoleThermometer]; !ok {
+		if _, ok := f.Instruments[instr.RoleThermometer]; !ok {
 			c.add("limits.max_winding_temp_c", "needs an instruments.thermometer (or set 0 and use max_resistance_rise)")
 		}
 	}

@@ -13,6 +13,7 @@ import (
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/calib/units"
+	"hystd/drivers/instr"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
 )
@@ -216,7 +217,7 @@ func TestSpontaneousErrorEndsRun(t *testing.T) {
 		t.Fatal(err)
 	}
 	inSweep(t, sub)
-	if err := bd.bench.Inject(sim.Fault{Role: sim.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature"}); err != nil {
+	if err := bd.bench.Inject(sim.Fault{Role: instr.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature"}); err != nil {
 		t.Fatal(err)
 	}
 	r, evs := bd.runEnded(t, id, 30*time.Second)
@@ -243,7 +244,7 @@ func TestLatchedTripNamed(t *testing.T) {
 		t.Fatal(err)
 	}
 	inSweep(t, sub)
-	if err := bd.bench.Inject(sim.Fault{Role: sim.RoleSupply, Kind: sim.FaultTrip}); err != nil {
+	if err := bd.bench.Inject(sim.Fault{Role: instr.RoleSupply, Kind: sim.FaultTrip}); err != nil {
 		t.Fatal(err)
 	}
 	r, _ := bd.runEnded(t, id, 30*time.Second)

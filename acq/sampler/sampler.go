@@ -18,14 +18,9 @@ import (
 	"hystd/drivers/instr"
 )
 
-// Roles are the instruments of a fixture. Supply is required; Integrator,
-// FieldMeter and Thermometer may be nil (their channels are NaN).
-type Roles struct {
-	Supply      instr.Supply
-	Integrator  instr.Integrator
-	FieldMeter  instr.FieldMeter
-	Thermometer instr.Thermometer
-}
+// Roles are the instruments of a fixture (instr.Set). Supply is required;
+// Integrator, FieldMeter and Thermometer may be nil (their channels are NaN).
+type Roles = instr.Set
 
 // Options choose what a Read reads besides the measured channels.
 type Options struct {
@@ -42,8 +37,9 @@ type Reading struct {
 	Overload bool
 }
 
-// RoleError is the I/O error of one instrument role in a Read. Role is
-// "supply", "integrator", "field meter" or "thermometer".
+// RoleError is the I/O error of one instrument role in a Read. Role is the
+// role's label (instr.RoleLabel): "supply", "integrator", "field meter" or
+// "thermometer".
 type RoleError struct {
 	Role string
 	Err  error
@@ -138,7 +134,7 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 		return nil, errors.New("sampler: a supply is required")
 	}
 	s := &Sampler{start: start}
-	s.add("supply", func(ctx context.Context, out *Reading) ([]stamped, error) {
+	s.add(instr.RoleSupply, func(ctx context.Context, out *Reading) ([]stamped, error) {
 		i, err := Retry(ctx, r.Supply.ReadCurrent)
 		if err != nil {
 			return nil, fmt.Errorf("read current: %w", err)
@@ -161,7 +157,7 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 		return got, nil
 	})
 	if r.Integrator != nil {
-		s.add("integrator", func(ctx context.Context, out *Reading) ([]stamped, error) {
+		s.add(instr.RoleIntegrator, func(ctx context.Context, out *Reading) ([]stamped, error) {
 			psi, err := Retry(ctx, r.Integrator.ReadFlux)
 			if err != nil {
 				return nil, fmt.Errorf("read flux: %w", err)
@@ -179,7 +175,7 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 		})
 	}
 	if r.FieldMeter != nil {
-		s.add("field meter", func(ctx context.Context, out *Reading) ([]stamped, error) {
+		s.add(instr.RoleFieldMeter, func(ctx context.Context, out *Reading) ([]stamped, error) {
 			b, err := Retry(ctx, r.FieldMeter.ReadField)
 			if err != nil {
 				return nil, fmt.Errorf("read field: %w", err)
@@ -189,7 +185,7 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 		})
 	}
 	if r.Thermometer != nil {
-		s.add("thermometer", func(ctx context.Context, out *Reading) ([]stamped, error) {
+		s.add(instr.RoleThermometer, func(ctx context.Context, out *Reading) ([]stamped, error) {
 			th, err := Retry(ctx, r.Thermometer.ReadTemperature)
 			if err != nil {
 				return nil, fmt.Errorf("read temperature: %w", err)
@@ -213,7 +209,7 @@ func (w *worker) loop() {
 		var fill Reading
 		rs, err := w.read(rq.ctx, &fill)
 		if err != nil {
-			err = &RoleError{Role: w.role, Err: err}
+			err = &RoleError{Role: instr.RoleLabel(w.role), Err: err}
 		}
 		rq.reply <- result{role: w.role, fill: fill, readings: rs, err: err}
 	}
@@ -269,7 +265,7 @@ func (s *Sampler) ReadAll(ctx context.Context) (Reading, error) {
 			return false
 		}
 		switch r.role {
-		case "supply":
+		case instr.RoleSupply:
 			if has(kindCurrent) {
 				out.Sample.I = r.fill.Sample.I
 			}
@@ -277,16 +273,16 @@ func (s *Sampler) ReadAll(ctx context.Context) (Reading, error) {
 				out.Sample.V = r.fill.Sample.V
 			}
 			out.Status = r.fill.Status
-		case "integrator":
+		case instr.RoleIntegrator:
 			if has(kindFlux) {
 				out.Sample.Psi = r.fill.Sample.Psi
 			}
 			out.Overload = r.fill.Overload
-		case "field meter":
+		case instr.RoleFieldMeter:
 			if r.err == nil {
 				out.Sample.BProbe = r.fill.Sample.BProbe
 			}
-		case "thermometer":
+		case instr.RoleThermometer:
 			if r.err == nil {
 				out.Sample.TempC = r.fill.Sample.TempC
 			}

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 	"hystd/drivers/link"
 )
 
@@ -21,37 +22,29 @@ const maxHaltSteps = 100000
 // Kind is the value of the top-level kind key of every profile.
 const Kind = "instrument-profile"
 
-// Roles.
-const (
-	RoleSupply      = "supply"
-	RoleIntegrator  = "integrator"
-	RoleFieldMeter  = "field_meter"
-	RoleThermometer = "thermometer"
-)
-
 // roleOps lists, per role, the operations it may have; true marks the
 // required ones. Units are the SI unit each operation must declare ("" for
 // operations without a value).
 var roleOps = map[string]map[string]opRule{
-	RoleSupply: {
+	instr.RoleSupply: {
 		OpSetCurrent:  {required: true, unit: "A", numeric: true, set: true, ranged: true},
 		OpReadCurrent: {required: true, unit: "A", numeric: true},
 		OpReadVoltage: {required: true, unit: "V", numeric: true},
 		OpSetOutput:   {required: true, set: true, boolean: true},
 		OpReadStatus:  {parse: "int"},
 	},
-	RoleIntegrator: {
+	instr.RoleIntegrator: {
 		OpReset:        {required: true, set: true},
 		OpSetRange:     {unit: "Wb", numeric: true, set: true, ranged: true},
 		OpReadFlux:     {required: true, unit: "Wb", numeric: true},
 		OpReadOverload: {parse: "bool"},
 	},
-	RoleFieldMeter: {
+	instr.RoleFieldMeter: {
 		OpReadField: {required: true, unit: "T", numeric: true},
 		OpSetRange:  {unit: "T", numeric: true, set: true, ranged: true},
 		OpZero:      {set: true},
 	},
-	RoleThermometer: {
+	instr.RoleThermometer: {
 		OpReadTemperature: {required: true, unit: "°C", numeric: true},
 	},
 }
@@ -231,10 +224,10 @@ func validateCommands(add adder, p Profile) {
 // validateHalt checks what only a supply has: how it is brought to zero
 // current (halt ramp, safe state) and how a trip is cleared.
 func validateHalt(add adder, p Profile) {
-	if p.TripClear != "" && p.Role != RoleSupply {
+	if p.TripClear != "" && p.Role != instr.RoleSupply {
 		add("trip_clear", "only for a supply")
 	}
-	if p.Role != RoleSupply {
+	if p.Role != instr.RoleSupply {
 		if p.HaltSlew != 0 {
 			add("halt_slew_a_per_s", "only for a supply")
 		}
@@ -507,7 +500,7 @@ func normalize(p Profile) Profile {
 	if p.ErrorPoll == "" {
 		p.ErrorPoll = "1s"
 	}
-	if p.Role == RoleSupply && p.TripClear == "" {
+	if p.Role == instr.RoleSupply && p.TripClear == "" {
 		p.TripClear = "remove the cause, then clear the trip at the supply (its front panel or its reset command) before the next run"
 	}
 	ops := make(map[string]Operation, len(p.Operations))
@@ -563,11 +556,11 @@ func (p Profile) AccuracyOf(op string) (a Accuracy, ok bool) {
 // when the profile gives none.
 func (p Profile) ReadAccuracy() (a Accuracy, ok bool) {
 	switch p.Role {
-	case RoleSupply:
+	case instr.RoleSupply:
 		return p.AccuracyOf(OpReadCurrent)
-	case RoleIntegrator:
+	case instr.RoleIntegrator:
 		return p.AccuracyOf(OpReadFlux)
-	case RoleFieldMeter:
+	case instr.RoleFieldMeter:
 		return p.AccuracyOf(OpReadField)
 	}
 	return Accuracy{}, false
