@@ -8,15 +8,9 @@ type Condition struct {
 }
 
 func (d *Condition) check(c *stepCheck, p string) {
-	c.positive(p+".amplitude", d.Amplitude)
-	c.level(p+".amplitude", d.Amplitude, true)
+	c.amplitude(p+".amplitude", d.Amplitude)
 	c.rate(p+".rate", d.Rate)
-	if d.Cycles == 0 {
-		d.Cycles = 5
-	}
-	if d.Cycles < 1 || d.Cycles > 1000 {
-		c.add(p+".cycles", "must be 1–1000, got %d", d.Cycles)
-	}
+	c.cycles(p+".cycles", &d.Cycles, 5, 1000)
 }
 
 func (d *Condition) expand(x *expander, src string) {

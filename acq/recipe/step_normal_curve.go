@@ -22,12 +22,7 @@ type NormalCurve struct {
 
 func (d *NormalCurve) check(c *stepCheck, p string) {
 	c.rate(p+".rate", d.Rate)
-	if d.Cycles == 0 {
-		d.Cycles = 3
-	}
-	if d.Cycles < 1 || d.Cycles > 1000 {
-		c.add(p+".cycles", "must be 1–1000, got %d", d.Cycles)
-	}
+	c.cycles(p+".cycles", &d.Cycles, 3, 1000)
 	c.sampling(p, &d.Sampling)
 	d.checkAmplitudes(c, p)
 	d.checkBAt(c, p)

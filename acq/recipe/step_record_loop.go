@@ -30,15 +30,9 @@ type Peak struct {
 }
 
 func (d *RecordLoop) check(c *stepCheck, p string) {
-	c.positive(p+".amplitude", d.Amplitude)
-	c.level(p+".amplitude", d.Amplitude, true)
+	c.amplitude(p+".amplitude", d.Amplitude)
 	c.rate(p+".rate", d.Rate)
-	if d.Cycles == 0 {
-		d.Cycles = 1
-	}
-	if d.Cycles < 1 || d.Cycles > 100 {
-		c.add(p+".cycles", "must be 1–100, got %d", d.Cycles)
-	}
+	c.cycles(p+".cycles", &d.Cycles, 1, 100)
 	c.sampling(p, &d.Sampling)
 	if d.Peak != nil {
 		c.peak(p+".peak", d.Peak)

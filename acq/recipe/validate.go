@@ -108,6 +108,22 @@ func (c *stepCheck) rate(path string, rt Rate) {
 	c.levels = append(c.levels, levelAt{path, Level(rt)})
 }
 
+// amplitude checks a test level that must be positive.
+func (c *stepCheck) amplitude(path string, l Level) {
+	c.positive(path, l)
+	c.level(path, l, true)
+}
+
+// cycles fills a count of cycles left out with def and checks it is 1 to max.
+func (c *checker) cycles(path string, n *int, def, max int) {
+	if *n == 0 {
+		*n = def
+	}
+	if *n < 1 || *n > max {
+		c.add(path, "must be 1–%d, got %d", max, *n)
+	}
+}
+
 // positive refuses a level that is not above zero.
 func (c *stepCheck) positive(path string, l Level) {
 	if !(l.Value > 0) {
