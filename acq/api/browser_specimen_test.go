@@ -15,6 +15,7 @@ import (
 	"github.com/chromedp/chromedp"
 
 	"hystd/acq/api"
+	"hystd/acq/config/configtest"
 	"hystd/acq/daemon"
 	"hystd/drivers/sim"
 )
@@ -36,17 +37,7 @@ func startRegistryServer(t *testing.T) *benchServer {
 	}
 	t.Cleanup(func() { cancel(); b.Close() })
 	dir := t.TempDir()
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, b.Ports())
 	gr, err := os.ReadFile("../../configs/grade-no-r470.yaml")
 	if err != nil {
 		t.Fatal(err)

@@ -24,6 +24,7 @@ import (
 	"github.com/chromedp/chromedp"
 
 	"hystd/acq/api"
+	"hystd/acq/config/configtest"
 	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
@@ -135,17 +136,7 @@ func startBenchServer(t *testing.T) *benchServer {
 	}
 	t.Cleanup(func() { cancel(); b.Close() })
 	dir := t.TempDir()
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, b.Ports())
 	write := func(name string, data []byte) {
 		if err := os.WriteFile(filepath.Join(dir, name), data, 0o600); err != nil {
 			t.Fatal(err)

@@ -286,14 +286,7 @@ func sample(t *testing.T, name string) []byte {
 // TestSetupFromSamples: the shipped ring R17 (50/40/10 mm, mean path) on
 // the shipped fixture: l_m = π·45 mm (IEC 60404-4), A = 50 mm², N1 200, N2 100.
 func TestSetupFromSamples(t *testing.T) {
-	fx, err := config.ParseFixture("fixture-ring-bench.yaml", sample(t, "fixture-ring-bench.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.ParseSpecimen("specimen-ring-r17.yaml", sample(t, "specimen-ring-r17.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := samples(t)
 	s, warn, err := SetupFrom(fx, sp)
 	if err != nil {
 		t.Fatal(err)

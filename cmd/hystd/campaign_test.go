@@ -19,6 +19,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/config/configtest"
 	"hystd/acq/fixture/fixturetest"
 	"hystd/acq/record"
 	"hystd/acq/store"
@@ -196,17 +197,11 @@ func newCampaign(t *testing.T, seed uint64) *campaign {
 	if _, err := sim.MakeLinks(links, b.Ports()); err != nil {
 		t.Fatal(err)
 	}
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
+	ports := map[string]string{}
+	for _, role := range sim.LinkNames {
+		ports[role] = filepath.Join(links, role)
 	}
-	for i, role := range sim.LinkNames {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(filepath.Join(links, role)))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, ports)
 	ln, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)

@@ -8,6 +8,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"hystd/acq/config/configtest"
 )
 
 // TestImportCommand imports a small raw recording built from the exact
@@ -103,15 +105,7 @@ func TestCheckCalibration(t *testing.T) {
 // config and the run goes into the config's store.
 func TestImportWithConfig(t *testing.T) {
 	dir := t.TempDir()
-	for _, f := range []string{"fixture-ring-bench.yaml", "specimen-ring-r17.yaml"} {
-		b, err := os.ReadFile(filepath.Join("../../configs", f))
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(filepath.Join(dir, f), b, 0o644); err != nil {
-			t.Fatal(err)
-		}
-	}
+	configtest.WriteRing(t, dir)
 	cfg := filepath.Join(dir, "d.yaml")
 	body := "kind: daemon\nstore: {path: " + filepath.Join(dir, "s.db") + "}\nfixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"
 	if err := os.WriteFile(cfg, []byte(body), 0o644); err != nil {
