@@ -2,7 +2,6 @@ package process
 
 import (
 	"fmt"
-	"io/fs"
 	"math"
 	"math/rand/v2"
 	"strings"
@@ -15,7 +14,6 @@ import (
 	"hystd/calib/loop"
 	"hystd/calib/synth"
 	"hystd/calib/units"
-	"hystd/configs"
 	"hystd/drivers/profile"
 )
 
@@ -272,15 +270,6 @@ func TestMissingAndBadSamples(t *testing.T) {
 			t.Errorf("%s: error %v, want one containing %q", tc.name, err, tc.msg)
 		}
 	}
-}
-
-func sample(t *testing.T, name string) []byte {
-	t.Helper()
-	b, err := fs.ReadFile(configs.Samples, name)
-	if err != nil {
-		t.Fatal(err)
-	}
-	return b
 }
 
 // TestSetupFromSamples: the shipped ring R17 (50/40/10 mm, mean path) on
