@@ -2,21 +2,13 @@ package api_test
 
 import (
 	"bytes"
-	"context"
 	"fmt"
-	"log/slog"
 	"os"
-	"path/filepath"
 	"strings"
-	"syscall"
 	"testing"
 	"time"
 
 	"github.com/chromedp/chromedp"
-
-	"hystd/acq/api"
-	"hystd/acq/daemon"
-	"hystd/drivers/sim"
 )
 
 // startRegistryServer is startBenchServer with a specimen registry (R17-003,
@@ -24,95 +16,20 @@ import (
 // shipped grade NO-R470 and confirm_mount: true.
 func startRegistryServer(t *testing.T) *benchServer {
 	t.Helper()
-	cfg, err := sim.DefaultBench()
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	b, err := sim.Start(ctx, cfg)
-	if err != nil {
-		cancel()
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { cancel(); b.Close() })
-	dir := t.TempDir()
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	gr, err := os.ReadFile("../../configs/grade-no-r470.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for _, d := range []string{"specimens", "grades"} {
-		if err := os.Mkdir(filepath.Join(dir, d), 0o755); err != nil {
-			t.Fatal(err)
-		}
-	}
-	write := func(name string, data []byte) {
-		if err := os.WriteFile(filepath.Join(dir, name), data, 0o600); err != nil {
-			t.Fatal(err)
-		}
-	}
-	write("fixture.yaml", fx)
-	write("specimen.yaml", sp)
-	write("specimens/r17-003.yaml", sp)
-	write("specimens/r17-004.yaml", bytes.Replace(sp, []byte("id: R17-003"), []byte("id: R17-004"), 1))
-	write("grades/no-r470.yaml", gr)
-	write("token", []byte(browserToken+"\n"))
-	write("daemon.yaml", []byte(fmt.Sprintf(`kind: daemon
-http: {addr: "127.0.0.1:0", token_file: %s}
-store: {path: %s}
-log: {level: info}
-specimens: specimens
-grades: grades
-confirm_mount: true
-fixtures:
-  - {fixture: fixture.yaml, specimen: specimen.yaml}
-`, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"))))
-	bs := &benchServer{bench: b, logs: &logBuf{}}
-	for _, line := range strings.Split(string(fx), "\n") {
-		if v, ok := strings.CutPrefix(line, "name:"); ok {
-			bs.fixture = strings.TrimSpace(v)
-		}
-	}
-	sigs := make(chan os.Signal, 1)
-	done := make(chan error, 1)
-	ready := make(chan string, 1)
-	go func() {
-		done <- daemon.Serve(ctx, filepath.Join(dir, "daemon.yaml"), daemon.Wiring{
-			Open: daemon.FixtureOpener(slog.New(slog.NewTextHandler(bs.logs, nil))), Area: daemon.SpecimenArea,
-			Software: "browser-test", Stderr: bs.logs, Signals: sigs, API: api.ForDaemon,
-			Listening: func(addr string) { ready <- addr },
-		})
-	}()
-	select {
-	case addr := <-ready:
-		bs.base = "http://" + addr
-	case err := <-done:
-		t.Fatalf("serve: %v\n%s", err, bs.logs)
-	case <-time.After(30 * time.Second):
-		t.Fatalf("daemon not listening\n%s", bs.logs)
-	}
-	t.Cleanup(func() {
-		sigs <- syscall.SIGTERM
-		select {
-		case <-done:
-		case <-time.After(30 * time.Second):
-			t.Error("daemon did not stop")
-		}
-		if t.Failed() {
-			t.Logf("daemon log:\n%s", bs.logs)
-		}
+	return startServer(t, serverSetup{
+		files: func(t *testing.T, sp []byte) map[string][]byte {
+			gr, err := os.ReadFile("../../configs/grade-no-r470.yaml")
+			if err != nil {
+				t.Fatal(err)
+			}
+			return map[string][]byte{
+				"specimens/r17-003.yaml": sp,
+				"specimens/r17-004.yaml": bytes.Replace(sp, []byte("id: R17-003"), []byte("id: R17-004"), 1),
+				"grades/no-r470.yaml":    gr,
+			}
+		},
+		config: "specimens: specimens\ngrades: grades\nconfirm_mount: true\n",
 	})
-	return bs
 }
 
 // TestBrowserSpecimenMountVerdicts: on the review page a recipe is started

@@ -24,6 +24,7 @@ import (
 	"github.com/chromedp/chromedp"
 
 	"hystd/acq/api"
+	"hystd/acq/config/configtest"
 	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
@@ -123,45 +124,68 @@ func (bs *benchServer) pace(step, tick time.Duration) (stop, leave func()) {
 
 func startBenchServer(t *testing.T) *benchServer {
 	t.Helper()
+	return startServer(t, serverSetup{simClock: true})
+}
+
+// serverSetup is what a test's daemon has besides the ring bench's
+// fixture and specimen (fixture.yaml, specimen.yaml) and the token.
+type serverSetup struct {
+	// simClock puts the bench, the drivers and the engine on one
+	// simulated clock (benchServer.clock); otherwise they run in real time.
+	simClock bool
+	// files returns more files to write in the config's folder (name →
+	// content; a name may be in a sub-folder), given the specimen file.
+	files func(t *testing.T, specimen []byte) map[string][]byte
+	// config is more lines of the daemon config.
+	config string
+}
+
+// startServer starts `hystd serve` on the simulated ring bench as s says;
+// the test's end stops both.
+func startServer(t *testing.T, s serverSetup) *benchServer {
+	t.Helper()
 	cfg, err := sim.DefaultBench()
 	if err != nil {
 		t.Fatal(err)
 	}
 	ctx, cancel := context.WithCancel(context.Background())
-	clk := clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC))
-	b, err := sim.Start(ctx, cfg, sim.WithClock(clk))
+	var clk *clock.Sim
+	var opts []sim.Option
+	if s.simClock {
+		clk = clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC))
+		opts = append(opts, sim.WithClock(clk))
+	}
+	b, err := sim.Start(ctx, cfg, opts...)
 	if err != nil {
 		cancel()
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { cancel(); b.Close() })
 	dir := t.TempDir()
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, b.Ports())
 	write := func(name string, data []byte) {
+		if err := os.MkdirAll(filepath.Dir(filepath.Join(dir, name)), 0o755); err != nil {
+			t.Fatal(err)
+		}
 		if err := os.WriteFile(filepath.Join(dir, name), data, 0o600); err != nil {
 			t.Fatal(err)
 		}
 	}
 	write("fixture.yaml", fx)
 	write("specimen.yaml", sp)
+	if s.files != nil {
+		for name, data := range s.files(t, sp) {
+			write(name, data)
+		}
+	}
 	write("token", []byte(browserToken+"\n"))
 	write("daemon.yaml", []byte(fmt.Sprintf(`kind: daemon
 http: {addr: "127.0.0.1:0", token_file: %s}
 store: {path: %s}
 log: {level: info}
-fixtures:
+%sfixtures:
   - {fixture: fixture.yaml, specimen: specimen.yaml}
-`, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"))))
+`, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"), s.config)))
 	bs := &benchServer{bench: b, clock: clk, logs: &logBuf{}}
 	for _, line := range strings.Split(string(fx), "\n") {
 		if v, ok := strings.CutPrefix(line, "name:"); ok {
@@ -171,18 +195,19 @@ fixtures:
 	sigs := make(chan os.Signal, 1)
 	done := make(chan error, 1)
 	ready := make(chan string, 1)
-	go func() {
-		done <- daemon.Serve(ctx, filepath.Join(dir, "daemon.yaml"), daemon.Wiring{
-			Open:      daemon.FixtureOpenerClock(slog.New(slog.NewTextHandler(bs.logs, nil)), clk),
-			Clock:     clk,
-			Area:      daemon.SpecimenArea,
-			Software:  "browser-test",
-			Stderr:    bs.logs,
-			Signals:   sigs,
-			API:       api.ForDaemon,
-			Listening: func(addr string) { ready <- addr },
-		})
-	}()
+	w := daemon.Wiring{
+		Open:      daemon.FixtureOpener(slog.New(slog.NewTextHandler(bs.logs, nil))),
+		Area:      daemon.SpecimenArea,
+		Software:  "browser-test",
+		Stderr:    bs.logs,
+		Signals:   sigs,
+		API:       api.ForDaemon,
+		Listening: func(addr string) { ready <- addr },
+	}
+	if clk != nil {
+		w.Open, w.Clock = daemon.FixtureOpenerClock(slog.New(slog.NewTextHandler(bs.logs, nil)), clk), clk
+	}
+	go func() { done <- daemon.Serve(ctx, filepath.Join(dir, "daemon.yaml"), w) }()
 	select {
 	case addr := <-ready:
 		bs.base = "http://" + addr

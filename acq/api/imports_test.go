@@ -5,16 +5,15 @@ import (
 	"encoding/json"
 	"errors"
 	"io"
-	"math"
 	"net/http"
 	"net/http/httptest"
-	"strconv"
 	"strings"
 	"testing"
 	"time"
 
 	"hystd/acq/config"
 	"hystd/acq/imports"
+	"hystd/acq/imports/importstest"
 	"hystd/acq/record"
 	"hystd/acq/store/memstore"
 )
@@ -37,36 +36,6 @@ func (r importRunner) Import(ctx context.Context, fixture, specimen, name string
 	}
 	return imports.Import(ctx, imports.Options{File: name, Data: data, Fixture: r.fx, Specimen: r.sp,
 		Now: time.Date(2026, 3, 4, 9, 0, 0, 0, time.UTC), Writer: r.st})
-}
-
-// tanhCSV is the exact loop of acq/imports' tests, coarse (400 samples per
-// segment): B = 1.5 T·tanh((H ± 100 A/m)/50 A/m), I in mA = H in A/m on
-// that fixture, ψ = 2.5e-3 m²·B plus a 20 µV integrator offset.
-func tanhCSV() string {
-	var b strings.Builder
-	b.WriteString("t (s),I (mA),psi (uV s)\n")
-	k := 0
-	row := func(h, dir float64) {
-		t := float64(k) * 0.01
-		k++
-		b.WriteString(strings.Join([]string{ftoa(t), ftoa(h), ftoa((2.5e-3*1.5*tanh((h+dir*100)/50) + 20e-6*t) * 1e6)}, ",") + "\n")
-	}
-	for range 100 {
-		row(0, 1)
-	}
-	seg := func(from, to, dir float64) {
-		for j := 1; j <= 400; j++ {
-			row(from+(to-from)*float64(j)/400, dir)
-		}
-	}
-	seg(0, -1000, 1)
-	seg(-1000, 1000, -1)
-	seg(1000, -1000, 1)
-	seg(-1000, 0, -1)
-	for range 100 {
-		row(0, -1)
-	}
-	return b.String()
 }
 
 func TestImportEndpoint(t *testing.T) {
@@ -100,7 +69,7 @@ func TestImportEndpoint(t *testing.T) {
 		return resp.StatusCode, string(b)
 	}
 	q := "fixture=hollin-ring-1&specimen=HX-001&name=old.csv"
-	if code, _ := post("", q, tanhCSV()); code != http.StatusUnauthorized {
+	if code, _ := post("", q, importstest.CoarseTanh()); code != http.StatusUnauthorized {
 		t.Errorf("no token: %d, want 401", code)
 	}
 	code, body := post("s3cret", q, "t,I (mA),psi\n0,0,0\n1,zero,0\n")
@@ -110,7 +79,7 @@ func TestImportEndpoint(t *testing.T) {
 	if runs, _ := st.Runs(context.Background(), record.RunFilter{}); len(runs) != 0 {
 		t.Fatalf("%d runs stored by refused requests", len(runs))
 	}
-	code, body = post("s3cret", q, tanhCSV())
+	code, body = post("s3cret", q, importstest.CoarseTanh())
 	if code != http.StatusCreated {
 		t.Fatalf("import: %d %s", code, body)
 	}
@@ -134,7 +103,3 @@ func TestImportEndpoint(t *testing.T) {
 		t.Errorf("stored run: %v", err)
 	}
 }
-
-func ftoa(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
-
-func tanh(x float64) float64 { return math.Tanh(x) }

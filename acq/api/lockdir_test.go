@@ -4,19 +4,8 @@ import (
 	"os"
 	"testing"
 
-	"hystd/drivers/link"
+	"hystd/acq/fixture/fixturetest"
 )
 
-// TestMain gives this package's tests a lock directory of their own, so
-// that fixture locks (every test fixture has the same name) never collide
-// with another test binary or another hystd on the machine.
-func TestMain(m *testing.M) {
-	dir, err := os.MkdirTemp("", "hystd-locks-")
-	if err != nil {
-		panic(err)
-	}
-	os.Setenv(link.LockDirEnv, dir)
-	code := m.Run()
-	os.RemoveAll(dir)
-	os.Exit(code)
-}
+// TestMain gives this package's tests a lock directory of their own.
+func TestMain(m *testing.M) { os.Exit(fixturetest.RunWithLockDir(m)) }

@@ -1,6 +1,7 @@
 package api
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"net/http"
@@ -78,38 +79,19 @@ func (f trendFilter) active() bool {
 }
 
 func (s *server) filteredTrend(w http.ResponseWriter, r *http.Request, spec, fig string, f trendFilter, pts []record.TrendPoint) {
-	runs := map[string]record.Run{}
-	loops := map[string][]record.Loop{}
+	rl := runLoops{runs: map[string]record.Run{}, loops: map[string][]record.Loop{}}
 	out := []trendJSON{}
 	// Limits of the grade, from the verdicts stored with the points' loops:
 	// drawn when no limits are given and all those verdicts agree on them.
-	var gradeLim *record.Verdict
-	gradeSame := true
+	var lim gradeLimits
 	for _, p := range pts {
-		run, ok := runs[p.RunID]
-		if !ok {
-			var err error
-			if run, err = s.o.Reader.Run(r.Context(), p.RunID); err != nil {
-				s.fail(w, r, err)
-				return
-			}
-			runs[p.RunID] = run
-			if loops[p.RunID], err = s.o.Reader.Loops(r.Context(), p.RunID); err != nil {
-				s.fail(w, r, err)
-				return
-			}
+		run, loops, err := rl.get(r.Context(), s.o.Reader, p.RunID)
+		if err != nil {
+			s.fail(w, r, err)
+			return
 		}
-		var l *record.Loop
-		for i := range loops[p.RunID] {
-			if loops[p.RunID][i].N == p.Loop {
-				l = &loops[p.RunID][i]
-			}
-		}
-		if l == nil {
-			continue
-		}
-		if (f.kind != "" && l.Kind != f.kind) || (f.recipe != "" && run.Recipe != f.recipe) || (f.fixture != "" && run.Fixture != f.fixture) ||
-			(!math.IsNaN(f.amp) && !(math.Abs(l.Amplitude-f.amp) <= f.tol*math.Abs(f.amp))) {
+		l := loopN(loops, p.Loop)
+		if l == nil || !f.keeps(run, l) {
 			continue
 		}
 		amp := num(l.Amplitude)
@@ -119,17 +101,7 @@ func (s *server) filteredTrend(w http.ResponseWriter, r *http.Request, spec, fig
 			o, _ := grade.Decide(f.rule, p.Value, p.U, f.lo, f.hi)
 			tp.Verdict = string(o)
 		} else {
-			for _, v := range l.Verdicts {
-				if v.Figure == fig {
-					tp.Verdict = string(v.Outcome)
-					if gradeLim == nil {
-						vv := v
-						gradeLim = &vv
-					} else if !sameNum(gradeLim.Min, v.Min) || !sameNum(gradeLim.Max, v.Max) || gradeLim.Rule != v.Rule || gradeLim.Grade != v.Grade {
-						gradeSame = false
-					}
-				}
-			}
+			tp.Verdict = lim.add(l.Verdicts, fig)
 		}
 		out = append(out, tp)
 	}
@@ -137,10 +109,74 @@ func (s *server) filteredTrend(w http.ResponseWriter, r *http.Request, spec, fig
 	switch {
 	case f.given:
 		resp["limits"] = map[string]any{"lo": num(f.lo), "hi": num(f.hi), "rule": f.rule, "source": "given"}
-	case gradeLim != nil && gradeSame:
-		resp["limits"] = map[string]any{"lo": num(gradeLim.Min), "hi": num(gradeLim.Max), "rule": gradeLim.Rule, "source": "grade " + gradeLim.Grade}
+	case lim.first != nil && !lim.differ:
+		resp["limits"] = map[string]any{"lo": num(lim.first.Min), "hi": num(lim.first.Max), "rule": lim.first.Rule, "source": "grade " + lim.first.Grade}
 	}
 	writeJSON(w, http.StatusOK, resp)
+}
+
+// runLoops reads each run and its loops once.
+type runLoops struct {
+	runs  map[string]record.Run
+	loops map[string][]record.Loop
+}
+
+func (c runLoops) get(ctx context.Context, rd record.Reader, id string) (record.Run, []record.Loop, error) {
+	if run, ok := c.runs[id]; ok {
+		return run, c.loops[id], nil
+	}
+	run, err := rd.Run(ctx, id)
+	if err != nil {
+		return record.Run{}, nil, err
+	}
+	c.runs[id] = run
+	if c.loops[id], err = rd.Loops(ctx, id); err != nil {
+		return record.Run{}, nil, err
+	}
+	return run, c.loops[id], nil
+}
+
+// loopN returns the (last) loop numbered n, or nil.
+func loopN(loops []record.Loop, n int) *record.Loop {
+	var l *record.Loop
+	for i := range loops {
+		if loops[i].N == n {
+			l = &loops[i]
+		}
+	}
+	return l
+}
+
+// keeps reports whether the filter keeps loop l of run.
+func (f trendFilter) keeps(run record.Run, l *record.Loop) bool {
+	return (f.kind == "" || l.Kind == f.kind) && (f.recipe == "" || run.Recipe == f.recipe) && (f.fixture == "" || run.Fixture == f.fixture) &&
+		(math.IsNaN(f.amp) || math.Abs(l.Amplitude-f.amp) <= f.tol*math.Abs(f.amp))
+}
+
+// gradeLimits collects the limits of the stored verdicts of a figure:
+// the first seen, and whether any other differs from it.
+type gradeLimits struct {
+	first  *record.Verdict
+	differ bool
+}
+
+// add takes the verdicts of figure fig among vs and returns the outcome of
+// the last ("" when none).
+func (g *gradeLimits) add(vs []record.Verdict, fig string) string {
+	outcome := ""
+	for _, v := range vs {
+		if v.Figure != fig {
+			continue
+		}
+		outcome = string(v.Outcome)
+		if g.first == nil {
+			vv := v
+			g.first = &vv
+		} else if !sameNum(g.first.Min, v.Min) || !sameNum(g.first.Max, v.Max) || g.first.Rule != v.Rule || g.first.Grade != v.Grade {
+			g.differ = true
+		}
+	}
+	return outcome
 }
 
 func sameNum(a, b float64) bool { return a == b || (math.IsNaN(a) && math.IsNaN(b)) }

@@ -22,6 +22,7 @@ import (
 	"hystd/calib/loop"
 	"hystd/calib/units"
 	"hystd/configs"
+	"hystd/drivers/instr"
 )
 
 // Kind is the document kind of a calibration record.
@@ -108,6 +109,21 @@ func FromDoc(doc *configs.Doc) (Record, error) {
 	r.File = doc.File
 	var es configs.Errors
 	add := func(path, f string, a ...any) { es = append(es, doc.Errorf(path, f, a...)) }
+	r.checkHead(add)
+	r.AppliesTo.check(add, &r)
+	r.checkValues(add)
+	if len(es) > 0 {
+		return Record{}, es
+	}
+	return r, nil
+}
+
+// adder reports one problem of a record at the key at path.
+type adder = func(path, f string, a ...any)
+
+// checkHead checks the record's kind, id, certificate and dates, and
+// fills its parsed dates.
+func (r *Record) checkHead(add adder) {
 	if r.Kind != Kind {
 		add("kind", "want %q, got %q", Kind, r.Kind)
 	}
@@ -126,7 +142,11 @@ func FromDoc(doc *configs.Doc) (Record, error) {
 	} else if !r.date.IsZero() && !r.due.After(r.date) {
 		add("due", "%s is not after the calibration date %s", r.Due, r.Date)
 	}
-	t := r.AppliesTo
+}
+
+// check checks that the record applies to a fixture or to an instrument,
+// and holds the one block that fits it.
+func (t Target) check(add adder, r *Record) {
 	switch {
 	case t.Fixture != "" && (t.Role != "" || t.Identity != ""):
 		add("applies_to", "a fixture (its search coil) or an instrument (role and identity), not both")
@@ -134,11 +154,11 @@ func FromDoc(doc *configs.Doc) (Record, error) {
 		if r.Coil == nil || r.Integrator != nil || r.Probe != nil {
 			add("applies_to.fixture", "a fixture's record holds a coil block only")
 		}
-	case t.Role == config.RoleIntegrator:
+	case t.Role == instr.RoleIntegrator:
 		if r.Integrator == nil || r.Coil != nil || r.Probe != nil {
 			add("applies_to.role", "an integrator's record holds an integrator block only")
 		}
-	case t.Role == config.RoleFieldMeter:
+	case t.Role == instr.RoleFieldMeter:
 		if r.Probe == nil || r.Coil != nil || r.Integrator != nil {
 			add("applies_to.role", "a field meter's record holds a probe block only")
 		}
@@ -150,35 +170,37 @@ func FromDoc(doc *configs.Doc) (Record, error) {
 	if t.Role != "" && t.Identity == "" {
 		add("applies_to.identity", "required: the instrument's identity (*IDN? reply) as recorded with a run")
 	}
-	val := func(path string, v *Value, required, positive bool) {
-		switch {
-		case v == nil && required:
-			add(path, "required")
-		case v == nil:
-		case !(v.U >= 0) || math.IsInf(v.U, 0):
-			add(path+".u", "must be a finite standard uncertainty ≥ 0, got %g", v.U)
-		case positive && !(v.Value > 0):
-			add(path+".value", "must be > 0, got %g", v.Value)
-		case math.IsInf(v.Value, 0) || math.IsNaN(v.Value):
-			add(path+".value", "must be finite")
-		}
-	}
+}
+
+// checkValues checks every calibrated value of the record's block.
+func (r *Record) checkValues(add adder) {
 	if r.Coil != nil {
-		val("coil.area_turns_m2", r.Coil.AreaTurns, true, true)
+		checkValue(add, "coil.area_turns_m2", r.Coil.AreaTurns, true, true)
 	}
 	if r.Integrator != nil {
-		val("integrator.gain", r.Integrator.Gain, true, true)
-		val("integrator.offset_wb", r.Integrator.OffsetWb, false, false)
+		checkValue(add, "integrator.gain", r.Integrator.Gain, true, true)
+		checkValue(add, "integrator.offset_wb", r.Integrator.OffsetWb, false, false)
 	}
 	if r.Probe != nil {
-		val("probe.sensitivity", r.Probe.Sensitivity, true, true)
-		val("probe.temp_coeff_per_k", r.Probe.TempCoeff, false, false)
-		val("probe.offset_t", r.Probe.OffsetT, false, false)
+		checkValue(add, "probe.sensitivity", r.Probe.Sensitivity, true, true)
+		checkValue(add, "probe.temp_coeff_per_k", r.Probe.TempCoeff, false, false)
+		checkValue(add, "probe.offset_t", r.Probe.OffsetT, false, false)
 	}
-	if len(es) > 0 {
-		return Record{}, es
+}
+
+// checkValue checks one value and its standard uncertainty.
+func checkValue(add adder, path string, v *Value, required, positive bool) {
+	switch {
+	case v == nil && required:
+		add(path, "required")
+	case v == nil:
+	case !(v.U >= 0) || math.IsInf(v.U, 0):
+		add(path+".u", "must be a finite standard uncertainty ≥ 0, got %g", v.U)
+	case positive && !(v.Value > 0):
+		add(path+".value", "must be > 0, got %g", v.Value)
+	case math.IsInf(v.Value, 0) || math.IsNaN(v.Value):
+		add(path+".value", "must be finite")
 	}
-	return r, nil
 }
 
 // DueDate returns the date the record falls due (midnight UTC).

@@ -15,6 +15,7 @@ import (
 	"hystd/acq/process"
 	"hystd/acq/recipe"
 	"hystd/configs"
+	"hystd/drivers/instr"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
 )
@@ -155,7 +156,7 @@ func validateFixture(doc *configs.Doc) error {
 			es = append(es, doc.Errorf("instruments."+role+".profile", "profile %s is for a %s, not a %s", p.Name, p.Role, role))
 			continue
 		}
-		if role != config.RoleSupply {
+		if role != instr.RoleSupply {
 			continue
 		}
 		// The fixture may not promise more current than the supply can be set to.

@@ -5,14 +5,6 @@ package config
 
 import "hystd/configs"
 
-// Role names of a fixture's instruments.
-const (
-	RoleSupply      = "supply"
-	RoleIntegrator  = "integrator"
-	RoleFieldMeter  = "field_meter"
-	RoleThermometer = "thermometer"
-)
-
 // Fixture is one test fixture: its instruments, windings and limits.
 type Fixture struct {
 	Kind        string                `yaml:"kind"` // "fixture"

@@ -6,6 +6,7 @@ import (
 	"regexp"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 )
 
 // LoadFixture reads and validates a fixture file.
@@ -133,7 +134,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 	c.name("name", f.Name)
 	for role, in := range f.Instruments {
 		p := "instruments." + role
-		c.oneOf(p, role, RoleSupply, RoleIntegrator, RoleFieldMeter, RoleThermometer)
+		c.oneOf(p, role, instr.RoleSupply, instr.RoleIntegrator, instr.RoleFieldMeter, instr.RoleThermometer)
 		if in.Port == "" && in.USB == nil {
 			c.add(p, "needs a port (device path) or usb (vid, pid, serial)")
 		}
@@ -148,7 +149,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 			c.add(p+".baud", "must not be negative, got %d", in.Baud)
 		}
 	}
-	for _, role := range []string{RoleSupply, RoleIntegrator} {
+	for _, role := range []string{instr.RoleSupply, instr.RoleIntegrator} {
 		if _, ok := f.Instruments[role]; !ok {
 			c.add("instruments", "a %s is required", role)
 		}
@@ -163,7 +164,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 	c.nonNegative("winding.resistance_ohm", f.Winding.ResistanceOhm)
 	c.nonNegative("winding.inductance_h", f.Winding.InductanceH)
 	c.oneOf("h_from", f.HFrom, "current", "field_meter")
-	if _, ok := f.Instruments[RoleFieldMeter]; f.HFrom == "field_meter" && !ok {
+	if _, ok := f.Instruments[instr.RoleFieldMeter]; f.HFrom == "field_meter" && !ok {
 		c.add("h_from", "field_meter needs an instruments.field_meter")
 	}
 	l := f.Limits
@@ -174,7 +175,7 @@ func (f *Fixture) validate(doc *configs.Doc) configs.Errors {
 	c.nonNegative("limits.max_resistance_rise", l.MaxResistanceRise)
 	c.nonNegative("limits.max_field_t", l.MaxFieldT)
 	if l.MaxWindingTempC > 0 {
-		if _, ok := f.Instruments[RoleThermometer]; !ok {
+		if _, ok := f.Instruments[instr.RoleThermometer]; !ok {
 			c.add("limits.max_winding_temp_c", "needs an instruments.thermometer (or set 0 and use max_resistance_rise)")
 		}
 	}
@@ -195,6 +196,20 @@ func (s *Specimen) validate(doc *configs.Doc) configs.Errors {
 	c.oneOf("class", s.Class, "soft", "magnet")
 	c.nonNegative("density_kg_m3", s.DensityKgM3)
 	c.nonNegative("mass_kg", s.MassKg)
+	s.checkShapeBlocks(c)
+	if b := s.MuInitialBmT; b < 0 || b > MaxMuInitialBmT || math.IsNaN(b) {
+		c.add("mu_initial_b_mt", "must be a low flux density in mT, above 0 and at most %d (0 or left out: %d mT), got %v", MaxMuInitialBmT, DefaultMuInitialBmT, b)
+	}
+	if t := s.Tolerances; t != nil {
+		t.check(c)
+	}
+	s.checkShape(c)
+	return c.es
+}
+
+// checkShapeBlocks checks that the shape is known and that its block, and
+// no other, is given.
+func (s *Specimen) checkShapeBlocks(c *checker) {
 	blocks := map[string]bool{"ring": s.Ring != nil, "epstein": s.Epstein != nil, "strip": s.Strip != nil, "direct": s.Direct != nil}
 	c.oneOf("shape", s.Shape, "ring", "epstein", "strip", "direct")
 	for name, given := range blocks {
@@ -205,32 +220,25 @@ func (s *Specimen) validate(doc *configs.Doc) configs.Errors {
 			c.add(name, "given, but shape is %q", s.Shape)
 		}
 	}
-	if b := s.MuInitialBmT; b < 0 || b > MaxMuInitialBmT || math.IsNaN(b) {
-		c.add("mu_initial_b_mt", "must be a low flux density in mT, above 0 and at most %d (0 or left out: %d mT), got %v", MaxMuInitialBmT, DefaultMuInitialBmT, b)
-	}
-	if t := s.Tolerances; t != nil {
-		tol := func(key string, v *float64, max float64, unit string) {
-			if v != nil && (*v < 0 || *v > max || math.IsNaN(*v)) {
-				c.add("tolerances."+key, "must be from 0 (exact) to %g %s, got %v", max, unit, *v)
-			}
+}
+
+// check checks the tolerances of the specimen's dimensions.
+func (t *Tolerances) check(c *checker) {
+	tol := func(key string, v *float64, max float64, unit string) {
+		if v != nil && (*v < 0 || *v > max || math.IsNaN(*v)) {
+			c.add("tolerances."+key, "must be from 0 (exact) to %g %s, got %v", max, unit, *v)
 		}
-		tol("length_mm", t.LengthMM, MaxLengthTolMM, "mm")
-		tol("mass_g", t.MassG, MaxMassTolG, "g")
-		tol("density_pct", t.DensityPct, MaxDensityTolPct, "%")
 	}
+	tol("length_mm", t.LengthMM, MaxLengthTolMM, "mm")
+	tol("mass_g", t.MassG, MaxMassTolG, "g")
+	tol("density_pct", t.DensityPct, MaxDensityTolPct, "%")
+}
+
+// checkShape checks the block of the specimen's shape.
+func (s *Specimen) checkShape(c *checker) {
 	switch {
 	case s.Shape == "ring" && s.Ring != nil:
-		r := s.Ring
-		c.positive("ring.outer_diameter_mm", r.OuterMM)
-		c.positive("ring.inner_diameter_mm", r.InnerMM)
-		c.positive("ring.height_mm", r.HeightMM)
-		if r.InnerMM >= r.OuterMM && r.OuterMM > 0 {
-			c.add("ring.inner_diameter_mm", "must be smaller than outer_diameter_mm (%v ≥ %v)", r.InnerMM, r.OuterMM)
-		}
-		c.oneOf("ring.path", r.Path, "mean", "effective")
-		if r.StackingFactor < 0 || r.StackingFactor > 1 {
-			c.add("ring.stacking_factor", "must be in (0, 1], got %v", r.StackingFactor)
-		}
+		s.Ring.check(c)
 	case s.Shape == "epstein" && s.Epstein != nil:
 		c.positive("epstein.strip_length_m", s.Epstein.StripLengthM)
 		if s.Epstein.Strips <= 0 || s.Epstein.Strips%4 != 0 {
@@ -249,7 +257,20 @@ func (s *Specimen) validate(doc *configs.Doc) configs.Errors {
 		c.positive("direct.area_mm2", s.Direct.AreaMM2)
 		demag(c, "direct.demag_factor", s.Direct.DemagFactor)
 	}
-	return c.es
+}
+
+// check checks a ring's dimensions, path and stacking factor.
+func (r *Ring) check(c *checker) {
+	c.positive("ring.outer_diameter_mm", r.OuterMM)
+	c.positive("ring.inner_diameter_mm", r.InnerMM)
+	c.positive("ring.height_mm", r.HeightMM)
+	if r.InnerMM >= r.OuterMM && r.OuterMM > 0 {
+		c.add("ring.inner_diameter_mm", "must be smaller than outer_diameter_mm (%v ≥ %v)", r.InnerMM, r.OuterMM)
+	}
+	c.oneOf("ring.path", r.Path, "mean", "effective")
+	if r.StackingFactor < 0 || r.StackingFactor > 1 {
+		c.add("ring.stacking_factor", "must be in (0, 1], got %v", r.StackingFactor)
+	}
 }
 
 func demag(c *checker, path string, n float64) {

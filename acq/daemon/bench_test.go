@@ -15,6 +15,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/config/configtest"
 	"hystd/acq/engine"
 	"hystd/acq/live"
 	"hystd/acq/record"
@@ -98,18 +99,7 @@ func benchFilesOn(t *testing.T, clk clock.Clock, before func(*benchDaemon), faul
 	if err := os.Mkdir(bd.watch, 0o755); err != nil {
 		t.Fatal(err)
 	}
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	ports := b.Ports()
-	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(ports[role]))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, b.Ports())
 	write := func(name string, data []byte) {
 		if err := os.WriteFile(filepath.Join(bd.dir, name), data, 0o644); err != nil {
 			t.Fatal(err)

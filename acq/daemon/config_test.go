@@ -11,6 +11,7 @@ import (
 
 	"hystd/acq/api"
 	"hystd/acq/check"
+	"hystd/acq/config/configtest"
 	"hystd/acq/engine/enginetest"
 	"hystd/acq/influx"
 )
@@ -36,15 +37,7 @@ func TestSampleConfig(t *testing.T) {
 func writeConfig(t *testing.T, body string) string {
 	t.Helper()
 	dir := t.TempDir()
-	for _, f := range []string{"fixture-ring-bench.yaml", "specimen-ring-r17.yaml"} {
-		b, err := os.ReadFile(filepath.Join("../../configs", f))
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(filepath.Join(dir, f), b, 0o644); err != nil {
-			t.Fatal(err)
-		}
-	}
+	configtest.WriteRing(t, dir)
 	p := filepath.Join(dir, "d.yaml")
 	if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
 		t.Fatal(err)

@@ -19,6 +19,7 @@ import (
 	"hystd/acq/store"
 	"hystd/calib/units"
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim"
 
@@ -230,7 +231,7 @@ func hasEvent(evs []record.Event, sub string) bool {
 // ramp-down. Before, such errors were never read and the next open's *CLS
 // erased them.
 func TestSpontaneousErrorEndsRun(t *testing.T) {
-	bd := benchFiles(t, nil, sim.Fault{Role: sim.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature", At: benchAt(2 * time.Second)})
+	bd := benchFiles(t, nil, sim.Fault{Role: instr.RoleFieldMeter, Kind: sim.FaultError, Code: -310, Message: "System error;probe temperature", At: benchAt(2 * time.Second)})
 	bd.serve(t)
 	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
 	if err != nil {
@@ -252,7 +253,7 @@ func TestSpontaneousErrorEndsRun(t *testing.T) {
 // and the next one fail naming a latched trip and what clears it (the next
 // one used to fail as "lost communication with the supply").
 func TestLatchedTripNamed(t *testing.T) {
-	bd := benchFiles(t, nil, sim.Fault{Role: sim.RoleSupply, Kind: sim.FaultTrip, At: benchAt(2 * time.Second)})
+	bd := benchFiles(t, nil, sim.Fault{Role: instr.RoleSupply, Kind: sim.FaultTrip, At: benchAt(2 * time.Second)})
 	bd.serve(t)
 	id, err := bd.runner.Submit(context.Background(), "", []byte(shortLoop))
 	if err != nil {

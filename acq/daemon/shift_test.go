@@ -10,6 +10,7 @@ import (
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/configs"
+	"hystd/drivers/instr"
 	"hystd/drivers/sim"
 )
 
@@ -34,7 +35,7 @@ steps:
 // again: no stored sample has its field one step behind (before, the
 // channel stayed one reading behind for the rest of the run).
 func TestLateReplyNoShiftedSample(t *testing.T) {
-	for _, role := range []string{sim.RoleFieldMeter, sim.RoleSupply} {
+	for _, role := range []string{instr.RoleFieldMeter, instr.RoleSupply} {
 		t.Run(role, func(t *testing.T) { lateReply(t, role) })
 	}
 }

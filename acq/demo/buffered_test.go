@@ -10,6 +10,7 @@ import (
 	"hystd/acq/record"
 	"hystd/configs"
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 	"hystd/drivers/sim"
 )
 
@@ -96,8 +97,8 @@ func TestBufferedFaultsEndAtZero(t *testing.T) {
 	for _, tc := range []struct {
 		role, kind, want string
 	}{
-		{sim.RoleIntegrator, sim.FaultNoTrigger, "the trigger did not arrive"},
-		{sim.RoleFieldMeter, sim.FaultShortBuffer, "the block holds 11250 fields"},
+		{instr.RoleIntegrator, sim.FaultNoTrigger, "the trigger did not arrive"},
+		{instr.RoleFieldMeter, sim.FaultShortBuffer, "the block holds 11250 fields"},
 	} {
 		t.Run(tc.kind, func(t *testing.T) {
 			cfg, err := sim.DefaultBench()

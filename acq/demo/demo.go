@@ -30,6 +30,7 @@ import (
 	"hystd/calib/units"
 	"hystd/configs"
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 	"hystd/drivers/sim"
 )
 
@@ -124,7 +125,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	}
 	defer bench.Close()
 	fx = withPorts(fx, bench.Ports())
-	for _, role := range []string{config.RoleSupply, config.RoleIntegrator, config.RoleFieldMeter, config.RoleThermometer} {
+	for _, role := range []string{instr.RoleSupply, instr.RoleIntegrator, instr.RoleFieldMeter, instr.RoleThermometer} {
 		if in, ok := fx.Instruments[role]; ok {
 			fmt.Fprintf(out, "  %-12s %s (profile %s)\n", role, in.Port, in.Profile)
 		}

@@ -1,18 +1,12 @@
 package engine_test
 
 import (
-	"context"
-	"log/slog"
 	"math"
 	"slices"
 	"strings"
-	"sync"
 	"testing"
 	"time"
 
-	"hystd/acq/config"
-	"hystd/acq/engine"
-	"hystd/acq/fixture"
 	"hystd/acq/fixture/fixturetest"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
@@ -21,22 +15,6 @@ import (
 	"hystd/drivers/sim"
 	"hystd/drivers/sim/physics"
 )
-
-// loops is a record.Writer keeping loops in memory.
-type loops struct {
-	mu sync.Mutex
-	ls []record.Loop
-}
-
-func (w *loops) CreateRun(context.Context, record.Run) error                             { return nil }
-func (w *loops) SetState(context.Context, string, record.State, string, time.Time) error { return nil }
-func (w *loops) AddEvent(context.Context, record.Event) error                            { return nil }
-func (w *loops) AddLoop(_ context.Context, l record.Loop) error {
-	w.mu.Lock()
-	defer w.mu.Unlock()
-	w.ls = append(w.ls, l)
-	return nil
-}
 
 func figure(t *testing.T, l record.Loop, name string) record.Figure {
 	t.Helper()
@@ -103,44 +81,9 @@ func ringRunErr(t *testing.T, cfg sim.Config, recipeText string, clk *clock.Sim)
 	if clk == nil {
 		clk = clock.NewSim(fixturetest.Epoch)
 	}
-	ctx := context.Background()
-	b, err := sim.Start(ctx, cfg, sim.WithClock(clk))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { b.Close() })
-	fx, err := config.LoadFixture("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.LoadSpecimen("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	ins := map[string]config.Instrument{}
-	for role, in := range fx.Instruments {
-		in.Port = b.Ports()[role]
-		ins[role] = in
-	}
-	fx.Instruments = ins
-	log := slog.New(slog.DiscardHandler)
-	op, err := fixture.OpenClock(ctx, fx, log, clk)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { op.Close() })
-	proc, _, err := op.Processor(fx, sp, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	rc, err := recipe.Parse("recipe.yaml", []byte(recipeText))
-	if err != nil {
-		t.Fatal(err)
-	}
-	w := &loops{}
-	_, err = engine.Run(ctx, engine.Setup{Fixture: fx, Specimen: sp, Recipe: rc, Instruments: op.Instruments,
-		Writer: w, Process: proc, Log: log, SpoolDir: t.TempDir(), Clock: clk})
-	return w.ls, b, err
+	r := fixturetest.StartRing(t, cfg, clk)
+	w, _, err := r.Run(t, recipeText)
+	return w.Loops, r.Bench, err
 }
 
 // TestQuasiStatic is the usual quasi-static check (REFERENCE §2, from
@@ -191,12 +134,10 @@ func TestQuasiStatic(t *testing.T) {
 // zero. (The figures of open curves need the absolute level of B at the
 // start, which the processing takes from elsewhere; they are logged only.)
 func TestMagnetOnYoke(t *testing.T) {
-	ctx := context.Background()
 	y := fixturetest.StartYoke(t, 0)
-	b, fx, sp, op, proc := y.Bench, y.Fixture, y.Specimen, y.Opened, y.Process
-	log := slog.New(slog.DiscardHandler)
+	b := y.Bench
 	// H = 0.9·N1·I/gap = 90 kA/m per A on this yoke: the gain is about 1/90000 A per A/m.
-	rc, err := recipe.Parse("yoke.yaml", []byte(`kind: recipe
+	w, run, err := y.Run(t, `kind: recipe
 name: yoke-demag
 control: field
 field_gain_a_per_a_m: 1.1e-5
@@ -204,27 +145,21 @@ integrator_range_wb: 0.05   # N2·A_c·(μ0·H + J) ≈ 50 × 330 mm² × 1.9 T 
 period: 20ms
 steps:
   - demag_curve: {saturate: 1.2 MA/m, to: -600 kA/m, rate: 400 kA/m/s, sample_interval: 20ms, hold: 500ms, recoil_at: [-300 kA/m]}
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	w := &loops{}
-	run, err := engine.Run(ctx, engine.Setup{Fixture: fx, Specimen: sp, Recipe: rc, Instruments: op.Instruments,
-		Writer: w, Process: proc, Log: log, SpoolDir: t.TempDir(), Clock: y.Clock})
+`)
 	if err != nil {
 		t.Fatalf("run %s: %v", run.State, err)
 	}
 	if tr := b.Truth(); math.Abs(float64(tr.I)) > 1e-3 || tr.Output {
 		t.Errorf("bench left at %g A, output %v", float64(tr.I), tr.Output)
 	}
-	if len(w.ls) != 2 || w.ls[0].Kind != recipe.LoopKindDemag || w.ls[1].Kind != recipe.LoopKindRecoil {
-		t.Fatalf("loops %d", len(w.ls))
+	if len(w.Loops) != 2 || w.Loops[0].Kind != recipe.LoopKindDemag || w.Loops[1].Kind != recipe.LoopKindRecoil {
+		t.Fatalf("loops %d", len(w.Loops))
 	}
 	// The closed loop kept the measured H on the setpoint during the sweep:
 	// the probe is read while the current is being set, so a reading may lag
 	// its setpoint by the time since the previous sample plus one period of
 	// the 400 kA/m/s ramp; 2 kA/m more for the probe's noise and offset.
-	raw := w.ls[0].Raw
+	raw := w.Loops[0].Raw
 	for k := 1; k < len(raw); k++ {
 		s := raw[k]
 		if s.Phase != record.Sweep {
@@ -235,11 +170,11 @@ steps:
 			t.Errorf("sample %d at %s: measured H %.0f A/m, setpoint %.0f A/m (allowed %.0f)", k, s.T, s.BProbe/units.Mu0, s.Setpoint, allowed)
 		}
 	}
-	for _, f := range w.ls[0].Figures {
+	for _, f := range w.Loops[0].Figures {
 		t.Logf("figure %s = %.4g ± %.2g %s", f.Name, f.Value, f.U, f.Unit)
 	}
 	// The recoil loop goes down the curve to −300 kA/m, up to 0 and back.
-	rec := w.ls[1].Raw
+	rec := w.Loops[1].Raw
 	lo, hiAfter := math.Inf(1), math.Inf(-1)
 	for _, s := range rec {
 		if s.Phase != record.Sweep {

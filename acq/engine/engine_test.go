@@ -11,6 +11,7 @@ import (
 	"testing"
 
 	"hystd/acq/config"
+	"hystd/acq/config/configtest"
 	"hystd/acq/engine/enginetest"
 	"hystd/acq/live"
 	"hystd/acq/recipe"
@@ -33,14 +34,7 @@ type rig struct {
 
 func newRig(t *testing.T) *rig {
 	t.Helper()
-	fx, err := config.LoadFixture("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.LoadSpecimen("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.Ring(t)
 	clk := enginetest.NewClock()
 	sup := enginetest.NewSupply(clk)
 	return &rig{clk: clk, sup: sup, integ: &enginetest.Integrator{Sup: sup, K: 1e-3, Drift: 1e-6, ZeroAt: clk.Now()},

@@ -118,8 +118,7 @@ func (x *exec) steps(ctx context.Context) error {
 	x.setState(ctx, record.Running, "", x.start)
 	sup := x.s.Instruments.Supply
 	in := x.s.Instruments
-	smp, err := sampler.NewWith(sampler.Roles{Supply: in.Supply, Integrator: in.Integrator, FieldMeter: in.FieldMeter,
-		Thermometer: in.Thermometer}, x.start, sampler.Options{Status: true})
+	smp, err := sampler.NewWith(in, x.start, sampler.Options{Status: true})
 	if err != nil {
 		return err
 	}
@@ -486,7 +485,8 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 	// failing on another instrument).
 	if x.reconn != nil {
 		now := x.reconnects()
-		for _, role := range []string{"supply", "integrator", "field meter", "thermometer"} {
+		for _, m := range x.s.Instruments.Members() {
+			role := instr.RoleLabel(m.Role)
 			if n := now[role] - x.reconn[role]; n > 0 {
 				x.event(ctx, "warn", "the %s's port was lost (hang-up or unplug) and reconnected %d time(s) during the run", role, n)
 			}
@@ -644,14 +644,10 @@ func (x *exec) halt(ctx context.Context) error {
 // tell has lost and reconnected its port.
 func (x *exec) reconnects() map[string]int64 {
 	type reconnector interface{ Reconnects() int64 }
-	in := x.s.Instruments
 	out := map[string]int64{}
-	for _, r := range []struct {
-		role string
-		dev  any
-	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field meter", in.FieldMeter}, {"thermometer", in.Thermometer}} {
-		if d, ok := r.dev.(reconnector); ok && d != nil {
-			out[r.role] = d.Reconnects()
+	for _, r := range x.s.Instruments.Members() {
+		if d, ok := r.Dev.(reconnector); ok && d != nil {
+			out[instr.RoleLabel(r.Role)] = d.Reconnects()
 		}
 	}
 	return out
@@ -665,14 +661,12 @@ const IdentityPrefix = "instrument "
 // identified, for the run's provenance (instruments that can tell it).
 func (x *exec) identities(ctx context.Context) {
 	ids := Identities(x.s.Instruments)
-	for _, role := range identityRoles {
-		if id := ids[role]; id != "" {
-			x.event(ctx, "info", "%s%s: %s", IdentityPrefix, role, id)
+	for _, m := range x.s.Instruments.Members() {
+		if id := ids[m.Role]; id != "" {
+			x.event(ctx, "info", "%s%s: %s", IdentityPrefix, m.Role, id)
 		}
 	}
 }
-
-var identityRoles = []string{"supply", "integrator", "field_meter", "thermometer"}
 
 // Identities returns each instrument's *IDN? reply as read when it was
 // identified, by role (supply, integrator, field_meter, thermometer);
@@ -680,10 +674,10 @@ var identityRoles = []string{"supply", "integrator", "field_meter", "thermometer
 func Identities(in Instruments) map[string]string {
 	type idn interface{ IdentityRead() string }
 	out := map[string]string{}
-	for i, dev := range []any{in.Supply, in.Integrator, in.FieldMeter, in.Thermometer} {
-		if d, ok := dev.(idn); ok && d != nil {
+	for _, r := range in.Members() {
+		if d, ok := r.Dev.(idn); ok && d != nil {
 			if id := d.IdentityRead(); id != "" {
-				out[identityRoles[i]] = id
+				out[r.Role] = id
 			}
 		}
 	}
@@ -696,31 +690,27 @@ func Identities(in Instruments) map[string]string {
 // the run (the caller's ending ramps the supply down). Called between
 // sample rounds, when no read is pending.
 func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error {
-	in := x.s.Instruments
-	roles := []struct {
-		name string
-		r    any
-	}{{"supply", in.Supply}, {"integrator", in.Integrator}, {"field meter", in.FieldMeter}, {"thermometer", in.Thermometer}}
 	if x.polled == nil {
 		x.polled = map[string]time.Time{}
 	}
 	var ferr, ffail error // the final poll's: first failure, first fatal entry
-	for _, r := range roles {
-		p, ok := r.r.(instr.ErrorPoller)
-		if !ok || r.r == nil {
+	for _, m := range x.s.Instruments.Members() {
+		p, ok := m.Dev.(instr.ErrorPoller)
+		if !ok || m.Dev == nil {
 			continue
 		}
+		name := instr.RoleLabel(m.Role)
 		period := p.ErrorPollPeriod()
 		if period <= 0 {
 			continue
 		}
 		// The first poll comes with the first sample: it returns what the
 		// open found in the queue (raised while nobody listened).
-		last, seen := x.polled[r.name]
+		last, seen := x.polled[name]
 		if !final && seen && now.Sub(last) < period {
 			continue
 		}
-		x.polled[r.name] = now
+		x.polled[name] = now
 		// A lost or spoiled reply of the error query is asked again (the
 		// driver resynchronises first), like a reading.
 		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
@@ -729,12 +719,12 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 		if err != nil && !final {
 			// What the failed poll read stays with the driver for the
 			// ending's last poll.
-			return x.stopErr(ctx, safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err)))
+			return x.stopErr(ctx, safety.Comm(name, fmt.Errorf("error queue poll: %w", err)))
 		}
 		if err != nil {
 			// The ending's last poll: the entries read before the line
 			// failed are named, and the other instruments still polled.
-			ferr = cmp.Or(ferr, error(safety.Comm(r.name, fmt.Errorf("error queue poll: %w", err))))
+			ferr = cmp.Or(ferr, error(safety.Comm(name, fmt.Errorf("error queue poll: %w", err))))
 		}
 		var fail *safety.Violation
 		for _, e := range errs {
@@ -742,12 +732,12 @@ func (x *exec) pollErrors(ctx context.Context, now time.Time, final bool) error 
 			if e.Fail {
 				sev = "fail"
 			}
-			text := fmt.Sprintf("the %s raised error %d %q by itself (severity %s in its profile)", r.name, e.Code, e.Msg, sev)
+			text := fmt.Sprintf("the %s raised error %d %q by itself (severity %s in its profile)", name, e.Code, e.Msg, sev)
 			level := "warn"
 			if e.Fail {
 				level = "error"
 				if fail == nil {
-					fail = &safety.Violation{Limit: "instrument." + strings.ReplaceAll(r.name, " ", "_"), Value: float64(e.Code), Text: text}
+					fail = &safety.Violation{Limit: "instrument." + m.Role, Value: float64(e.Code), Text: text}
 				}
 			}
 			x.event(ctx, level, "%s", text)

@@ -16,12 +16,7 @@ import (
 // Instruments are the opened roles of one fixture. Supply is required; the
 // others may be nil when the fixture lacks them. The engine uses each from
 // one goroutine at a time; the caller keeps ownership and closes them.
-type Instruments struct {
-	Supply      instr.Supply
-	Integrator  instr.Integrator
-	FieldMeter  instr.FieldMeter
-	Thermometer instr.Thermometer
-}
+type Instruments = instr.Set
 
 // setThenRead sets the supply to set, A, and waits until that setting is
 // complete — the command written and the supply's error queue drained
@@ -44,7 +39,7 @@ func setThenRead(ctx context.Context, sup instr.Supply, smp *sampler.Sampler, se
 	}); err != nil {
 		nan := math.NaN()
 		return sampler.Reading{Sample: record.Sample{I: nan, V: nan, Psi: nan, BProbe: nan, TempC: nan}},
-			&sampler.RoleError{Role: "supply", Err: fmt.Errorf("set current %.6g A: %w", set, err)}
+			&sampler.RoleError{Role: instr.RoleLabel(instr.RoleSupply), Err: fmt.Errorf("set current %.6g A: %w", set, err)}
 	}
 	return smp.ReadAll(ctx)
 }

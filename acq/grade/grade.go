@@ -126,55 +126,69 @@ func FromDoc(doc *configs.Doc) (Grade, error) {
 	if len(g.Limits) == 0 {
 		add("limits", "required: at least one limit")
 	}
-	finite := func(p string, v *float64) {
-		if v != nil && (math.IsNaN(*v) || math.IsInf(*v, 0)) {
-			add(p, "must be a finite number")
-		}
-	}
 	for i, l := range g.Limits {
-		p := fmt.Sprintf("limits.%d", i)
-		unit, ok := figureUnit(l.Figure)
-		switch {
-		case l.Figure == "":
-			add(p+".figure", "required")
-		case !ok:
-			add(p+".figure", "unknown figure %q", l.Figure)
-		case l.Unit != "" && l.Unit != unit:
-			add(p+".unit", "%s is stored in %q, not %q (limits are in the stored SI unit)", l.Figure, unit, l.Unit)
-		}
-		if l.Min == nil && l.Max == nil {
-			add(p, "needs min, max or both")
-		}
-		finite(p+".min", l.Min)
-		finite(p+".max", l.Max)
-		if l.Min != nil && l.Max != nil && *l.Min > *l.Max {
-			add(p+".min", "min %g is above max %g", *l.Min, *l.Max)
-		}
-		w := l.When
-		if w.HAmplitude < 0 || math.IsInf(w.HAmplitude, 0) || math.IsNaN(w.HAmplitude) {
-			add(p+".when.h_amplitude_a_m", "must be a positive number")
-		}
-		if w.BPeak < 0 || math.IsInf(w.BPeak, 0) || math.IsNaN(w.BPeak) {
-			add(p+".when.b_peak_t", "must be a positive number")
-		}
-		if !(w.Tolerance >= 0 && w.Tolerance < 1) {
-			add(p+".when.tolerance", "must be a fraction in [0, 1), e.g. 0.05")
-		}
-		finite(p+".when.temp_min_c", w.TempMinC)
-		finite(p+".when.temp_max_c", w.TempMaxC)
-		if w.TempMinC != nil && w.TempMaxC != nil && *w.TempMinC > *w.TempMaxC {
-			add(p+".when.temp_min_c", "above temp_max_c")
-		}
-		switch w.LoopKind {
-		case "", "loop", "normal-curve", "demag-curve", "recoil":
-		default:
-			add(p+".when.loop_kind", "%q is not one of [loop normal-curve demag-curve recoil]", w.LoopKind)
-		}
+		l.check(add, fmt.Sprintf("limits.%d", i))
 	}
 	if len(es) > 0 {
 		return Grade{}, es
 	}
 	return g, nil
+}
+
+// adder reports one problem of a grade at the key at path.
+type adder = func(path, f string, a ...any)
+
+// check checks one limit at key p: its figure and unit, its bounds and
+// its conditions.
+func (l Limit) check(add adder, p string) {
+	unit, ok := figureUnit(l.Figure)
+	switch {
+	case l.Figure == "":
+		add(p+".figure", "required")
+	case !ok:
+		add(p+".figure", "unknown figure %q", l.Figure)
+	case l.Unit != "" && l.Unit != unit:
+		add(p+".unit", "%s is stored in %q, not %q (limits are in the stored SI unit)", l.Figure, unit, l.Unit)
+	}
+	if l.Min == nil && l.Max == nil {
+		add(p, "needs min, max or both")
+	}
+	checkFinite(add, p+".min", l.Min)
+	checkFinite(add, p+".max", l.Max)
+	if l.Min != nil && l.Max != nil && *l.Min > *l.Max {
+		add(p+".min", "min %g is above max %g", *l.Min, *l.Max)
+	}
+	l.When.check(add, p+".when")
+}
+
+// check checks the conditions of a limit at key p.
+func (w When) check(add adder, p string) {
+	if w.HAmplitude < 0 || math.IsInf(w.HAmplitude, 0) || math.IsNaN(w.HAmplitude) {
+		add(p+".h_amplitude_a_m", "must be a positive number")
+	}
+	if w.BPeak < 0 || math.IsInf(w.BPeak, 0) || math.IsNaN(w.BPeak) {
+		add(p+".b_peak_t", "must be a positive number")
+	}
+	if !(w.Tolerance >= 0 && w.Tolerance < 1) {
+		add(p+".tolerance", "must be a fraction in [0, 1), e.g. 0.05")
+	}
+	checkFinite(add, p+".temp_min_c", w.TempMinC)
+	checkFinite(add, p+".temp_max_c", w.TempMaxC)
+	if w.TempMinC != nil && w.TempMaxC != nil && *w.TempMinC > *w.TempMaxC {
+		add(p+".temp_min_c", "above temp_max_c")
+	}
+	switch w.LoopKind {
+	case "", "loop", "normal-curve", "demag-curve", "recoil":
+	default:
+		add(p+".loop_kind", "%q is not one of [loop normal-curve demag-curve recoil]", w.LoopKind)
+	}
+}
+
+// checkFinite refuses a NaN or infinite number given at path.
+func checkFinite(add adder, path string, v *float64) {
+	if v != nil && (math.IsNaN(*v) || math.IsInf(*v, 0)) {
+		add(path, "must be a finite number")
+	}
 }
 
 // Decide applies the decision rule to value ± u against the limits lo and hi

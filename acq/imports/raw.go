@@ -99,67 +99,14 @@ func ReadRaw(r io.Reader, name string) (Raw, error) {
 	cr.Comment = '#'
 	cr.TrimLeadingSpace = true
 	cr.FieldsPerRecord = -1
-	header, err := cr.Read()
+	c, err := readRawHeader(cr, name)
 	if err != nil {
-		if errors.Is(err, io.EOF) {
-			return Raw{}, &loopcsv.Error{File: name, Msg: "empty file: want a header naming t, I and psi"}
-		}
-		return Raw{}, csvErr(name, err)
+		return Raw{}, err
 	}
-	hl, _ := cr.FieldPos(0)
-	idx := map[string]int{}
-	factor := map[string]float64{}
-	var names []string
-	for i, h := range header {
-		h = strings.TrimSpace(strings.TrimPrefix(h, "\ufeff"))
-		names = append(names, h)
-		n, u := h, ""
-		if m := headerName.FindStringSubmatch(h); m != nil {
-			n, u = m[1], m[2]
-		}
-		for _, k := range known {
-			if k.name != n {
-				continue
-			}
-			if _, dup := idx[n]; dup {
-				return Raw{}, &loopcsv.Error{File: name, Line: hl, Column: n, Msg: "named twice in the header"}
-			}
-			idx[n] = i
-			f := 1.0
-			switch {
-			case u == "" || u == k.si:
-			case k.parse == nil:
-				if !(n == "temp" && (u == "degC" || u == "C")) {
-					return Raw{}, &loopcsv.Error{File: name, Line: hl, Column: n, Msg: fmt.Sprintf("unit %q: want %s", u, k.si)}
-				}
-			default:
-				v, err := k.parse("1 " + u)
-				if err != nil || !(v > 0) {
-					return Raw{}, &loopcsv.Error{File: name, Line: hl, Column: n, Msg: fmt.Sprintf("unit %q is not a unit of %s", u, k.si)}
-				}
-				f = v
-			}
-			factor[n] = f
-		}
-	}
-	for _, k := range known {
-		if _, ok := idx[k.name]; k.required && !ok {
-			return Raw{}, &loopcsv.Error{File: name, Line: hl, Msg: fmt.Sprintf("header has no column %q (columns: %s); want t (s), I (A), psi (Wb-turns), optional B_probe (T), temp (°C), phase",
-				k.name, strings.Join(names, ", "))}
-		}
-	}
-	_, hasPhase := idx["phase"]
-	_, hasProbe := idx["B_probe"]
-	_, hasTemp := idx["temp"]
-	out := Raw{HasPhase: hasPhase, HasProbe: hasProbe, HasTemp: hasTemp, Columns: names}
-	num := func(rec []string, col string, line int) (float64, error) {
-		s := strings.TrimSpace(rec[idx[col]])
-		v, err := strconv.ParseFloat(s, 64)
-		if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
-			return 0, &loopcsv.Error{File: name, Line: line, Column: col, Msg: fmt.Sprintf("%q is not a finite number", s)}
-		}
-		return v * factor[col], nil
-	}
+	_, hasPhase := c.idx["phase"]
+	_, hasProbe := c.idx["B_probe"]
+	_, hasTemp := c.idx["temp"]
+	out := Raw{HasPhase: hasPhase, HasProbe: hasProbe, HasTemp: hasTemp, Columns: c.names}
 	prevT := math.Inf(-1)
 	for {
 		rec, err := cr.Read()
@@ -170,50 +117,22 @@ func ReadRaw(r io.Reader, name string) (Raw, error) {
 			return Raw{}, csvErr(name, err)
 		}
 		line, _ := cr.FieldPos(0)
-		if len(rec) != len(header) {
-			return Raw{}, &loopcsv.Error{File: name, Line: line, Msg: fmt.Sprintf("%d fields, the header has %d", len(rec), len(header))}
+		if len(rec) != len(c.names) {
+			return Raw{}, &loopcsv.Error{File: name, Line: line, Msg: fmt.Sprintf("%d fields, the header has %d", len(rec), len(c.names))}
 		}
-		s := record.Sample{BProbe: math.NaN(), TempC: math.NaN(), V: math.NaN(), Setpoint: math.NaN()}
-		t, err := num(rec, "t", line)
+		t, err := c.time(rec, line, prevT)
 		if err != nil {
 			return Raw{}, err
-		}
-		if math.Abs(t) > MaxTime {
-			return Raw{}, &loopcsv.Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s out of range (|t| ≤ %g s)", t, MaxTime)}
-		}
-		if t < prevT {
-			return Raw{}, &loopcsv.Error{File: name, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t, prevT)}
 		}
 		if len(out.Samples) == 0 {
 			out.FirstTime = t
 		}
 		prevT = t
+		s, err := c.sample(rec, line, &out)
+		if err != nil {
+			return Raw{}, err
+		}
 		s.T = time.Duration(math.Round((t - out.FirstTime) * 1e9))
-		if s.I, err = num(rec, "I", line); err != nil {
-			return Raw{}, err
-		}
-		if s.Psi, err = num(rec, "psi", line); err != nil {
-			return Raw{}, err
-		}
-		if hasProbe {
-			if s.BProbe, err = num(rec, "B_probe", line); err != nil {
-				return Raw{}, err
-			}
-		}
-		if hasTemp {
-			if s.TempC, err = num(rec, "temp", line); err != nil {
-				return Raw{}, err
-			}
-		}
-		if hasPhase {
-			switch p := record.Phase(strings.TrimSpace(rec[idx["phase"]])); p {
-			case record.PreHold, record.Sweep, record.PostHold:
-				s.Phase = p
-			default:
-				return Raw{}, &loopcsv.Error{File: name, Line: line, Column: "phase", Msg: fmt.Sprintf("%q: want pre, sweep or post", p)}
-			}
-		}
-		s.Setpoint = s.I
 		out.Samples = append(out.Samples, s)
 		out.Line = append(out.Line, line)
 	}
@@ -221,6 +140,134 @@ func ReadRaw(r io.Reader, name string) (Raw, error) {
 		return Raw{}, &loopcsv.Error{File: name, Msg: "no data rows after the header"}
 	}
 	return out, nil
+}
+
+// rawColumns is a raw recording's header: the place and the factor to SI
+// of each known column, by name, and every column's name.
+type rawColumns struct {
+	file   string
+	idx    map[string]int
+	factor map[string]float64
+	names  []string
+}
+
+// readRawHeader reads the header and the units it gives the known columns.
+func readRawHeader(cr *csv.Reader, name string) (rawColumns, error) {
+	c := rawColumns{file: name, idx: map[string]int{}, factor: map[string]float64{}}
+	header, err := cr.Read()
+	if err != nil {
+		if errors.Is(err, io.EOF) {
+			return c, &loopcsv.Error{File: name, Msg: "empty file: want a header naming t, I and psi"}
+		}
+		return c, csvErr(name, err)
+	}
+	hl, _ := cr.FieldPos(0)
+	for i, h := range header {
+		h = strings.TrimSpace(strings.TrimPrefix(h, "\ufeff"))
+		c.names = append(c.names, h)
+		n, u := h, ""
+		if m := headerName.FindStringSubmatch(h); m != nil {
+			n, u = m[1], m[2]
+		}
+		for _, k := range known {
+			if k.name != n {
+				continue
+			}
+			if _, dup := c.idx[n]; dup {
+				return c, &loopcsv.Error{File: name, Line: hl, Column: n, Msg: "named twice in the header"}
+			}
+			c.idx[n] = i
+			f, msg := k.factor(u)
+			if msg != "" {
+				return c, &loopcsv.Error{File: name, Line: hl, Column: n, Msg: msg}
+			}
+			c.factor[n] = f
+		}
+	}
+	for _, k := range known {
+		if _, ok := c.idx[k.name]; k.required && !ok {
+			return c, &loopcsv.Error{File: name, Line: hl, Msg: fmt.Sprintf("header has no column %q (columns: %s); want t (s), I (A), psi (Wb-turns), optional B_probe (T), temp (°C), phase",
+				k.name, strings.Join(c.names, ", "))}
+		}
+	}
+	return c, nil
+}
+
+// factor is the factor to SI of the column written in unit u, or why u
+// is not a unit of the column.
+func (k colSpec) factor(u string) (float64, string) {
+	switch {
+	case u == "" || u == k.si:
+		return 1, ""
+	case k.parse == nil:
+		if !(k.name == "temp" && (u == "degC" || u == "C")) {
+			return 0, fmt.Sprintf("unit %q: want %s", u, k.si)
+		}
+		return 1, ""
+	}
+	v, err := k.parse("1 " + u)
+	if err != nil || !(v > 0) {
+		return 0, fmt.Sprintf("unit %q is not a unit of %s", u, k.si)
+	}
+	return v, ""
+}
+
+// num is the value of column col in SI.
+func (c rawColumns) num(rec []string, col string, line int) (float64, error) {
+	s := strings.TrimSpace(rec[c.idx[col]])
+	v, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0, &loopcsv.Error{File: c.file, Line: line, Column: col, Msg: fmt.Sprintf("%q is not a finite number", s)}
+	}
+	return v * c.factor[col], nil
+}
+
+// time is the row's time in s: within MaxTime, never before prevT.
+func (c rawColumns) time(rec []string, line int, prevT float64) (float64, error) {
+	t, err := c.num(rec, "t", line)
+	if err != nil {
+		return 0, err
+	}
+	if math.Abs(t) > MaxTime {
+		return 0, &loopcsv.Error{File: c.file, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s out of range (|t| ≤ %g s)", t, MaxTime)}
+	}
+	if t < prevT {
+		return 0, &loopcsv.Error{File: c.file, Line: line, Column: "t", Msg: fmt.Sprintf("time %g s runs backwards (previous %g s)", t, prevT)}
+	}
+	return t, nil
+}
+
+// sample is the row's channels (its time is the caller's): I and psi, and
+// B_probe, temp and phase when the recording has them.
+func (c rawColumns) sample(rec []string, line int, r *Raw) (record.Sample, error) {
+	s := record.Sample{BProbe: math.NaN(), TempC: math.NaN(), V: math.NaN(), Setpoint: math.NaN()}
+	var err error
+	if s.I, err = c.num(rec, "I", line); err != nil {
+		return s, err
+	}
+	if s.Psi, err = c.num(rec, "psi", line); err != nil {
+		return s, err
+	}
+	if r.HasProbe {
+		if s.BProbe, err = c.num(rec, "B_probe", line); err != nil {
+			return s, err
+		}
+	}
+	if r.HasTemp {
+		if s.TempC, err = c.num(rec, "temp", line); err != nil {
+			return s, err
+		}
+	}
+	if r.HasPhase {
+		switch p := record.Phase(strings.TrimSpace(rec[c.idx["phase"]])); p {
+		case record.PreHold, record.Sweep, record.PostHold:
+			s.Phase = p
+		default:
+			return s, &loopcsv.Error{File: c.file, Line: line, Column: "phase", Msg: fmt.Sprintf("%q: want pre, sweep or post", p)}
+		}
+	}
+	s.Setpoint = s.I
+	return s, nil
 }
 
 func csvErr(name string, err error) error {

@@ -155,6 +155,26 @@ func finite(v ...float64) bool {
 
 // build lays out the scene for loops under o.
 func build(loops []record.Loop, o Options) (*scene, error) {
+	o, err := withDefaults(o)
+	if err != nil {
+		return nil, err
+	}
+	e, ok := dataExtent(loops, o)
+	if !ok {
+		return nil, ErrNoPoints
+	}
+	hmax, ymax := e.square(o.SecondQuadrant)
+	sc := newScale(o, hmax, ymax)
+	s, m := layout(o, e, sc)
+	s.addTraces(loops, o, m)
+	if o.SecondQuadrant {
+		s.mark = bhMarker(loops, e.hlo, m)
+	}
+	return s, nil
+}
+
+// withDefaults fills the options' defaults and refuses impossible ones.
+func withDefaults(o Options) (Options, error) {
 	if o.Width == 0 {
 		o.Width = 800
 	}
@@ -162,21 +182,28 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 		o.Height = 560
 	}
 	if o.Width < 200 || o.Height < 150 || o.Width > 8000 || o.Height > 8000 {
-		return nil, fmt.Errorf("plot: canvas %d×%d px outside 200×150 … 8000×8000", o.Width, o.Height)
+		return o, fmt.Errorf("plot: canvas %d×%d px outside 200×150 … 8000×8000", o.Width, o.Height)
 	}
 	switch o.Y {
 	case "":
 		o.Y = FluxDensity
 	case FluxDensity, Polarization:
 	default:
-		return nil, fmt.Errorf("plot: ordinate %q: want \"B\" or \"J\"", o.Y)
+		return o, fmt.Errorf("plot: ordinate %q: want \"B\" or \"J\"", o.Y)
 	}
 	if o.MaxPoints <= 0 {
 		o.MaxPoints = 4000
 	}
+	return o, nil
+}
 
-	// Data extents in SI.
-	var hlo, hhi, ylo, yhi = math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)
+// extent is the range of the drawn data in SI: H and the ordinate.
+type extent struct{ hlo, hhi, ylo, yhi float64 }
+
+// dataExtent is the range of the finite points drawn under o (those of the
+// second quadrant only, when o asks for it); false when there are none.
+func dataExtent(loops []record.Loop, o Options) (extent, bool) {
+	e := extent{math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)}
 	n := 0
 	for _, l := range loops {
 		for _, p := range l.Points {
@@ -184,8 +211,8 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 				if !finite(p.H, p.B, p.J) || p.H > 0 {
 					continue
 				}
-				hlo = math.Min(hlo, p.H)
-				yhi = math.Max(yhi, math.Max(p.B, p.J))
+				e.hlo = math.Min(e.hlo, p.H)
+				e.yhi = math.Max(e.yhi, math.Max(p.B, p.J))
 				n++
 				continue
 			}
@@ -193,38 +220,57 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 			if !finite(p.H, y) {
 				continue
 			}
-			hlo, hhi = math.Min(hlo, p.H), math.Max(hhi, p.H)
-			ylo, yhi = math.Min(ylo, y), math.Max(yhi, y)
+			e.hlo, e.hhi = math.Min(e.hlo, p.H), math.Max(e.hhi, p.H)
+			e.ylo, e.yhi = math.Min(e.ylo, y), math.Max(e.yhi, y)
 			n++
 		}
 	}
-	if n == 0 {
-		return nil, ErrNoPoints
-	}
-	var hmax, ymax float64
-	if o.SecondQuadrant {
-		hhi, ylo = 0, 0
-		if hlo >= 0 {
-			hlo = -1
-		}
-		if yhi <= 0 {
-			yhi = 1
-		}
-		hmax, ymax = -hlo, yhi
-	} else {
-		hmax = math.Max(math.Abs(hlo), math.Abs(hhi))
-		ymax = math.Max(math.Abs(ylo), math.Abs(yhi))
-		if hmax == 0 {
-			hmax = 1
-		}
-		if ymax == 0 {
-			ymax = 1
-		}
-		// Loops are drawn on symmetric axes so the origin sits in the middle.
-		hlo, hhi, ylo, yhi = -hmax, hmax, -ymax, ymax
-	}
-	sc := newScale(o, hmax, ymax)
+	return e, n > 0
+}
 
+// square turns the data range into the drawn one, and returns the largest
+// |H| and |ordinate| drawn: the second quadrant from the origin, or axes
+// symmetric about the origin so that it sits in the middle of a loop.
+func (e *extent) square(secondQuadrant bool) (hmax, ymax float64) {
+	if secondQuadrant {
+		e.hhi, e.ylo = 0, 0
+		if e.hlo >= 0 {
+			e.hlo = -1
+		}
+		if e.yhi <= 0 {
+			e.yhi = 1
+		}
+		return -e.hlo, e.yhi
+	}
+	hmax = math.Max(math.Abs(e.hlo), math.Abs(e.hhi))
+	ymax = math.Max(math.Abs(e.ylo), math.Abs(e.yhi))
+	if hmax == 0 {
+		hmax = 1
+	}
+	if ymax == 0 {
+		ymax = 1
+	}
+	e.hlo, e.hhi, e.ylo, e.yhi = -hmax, hmax, -ymax, ymax
+	return hmax, ymax
+}
+
+// mapping takes SI values to pixels of a scene.
+type mapping struct {
+	s      *scene
+	sc     scale
+	xa, ya axis
+}
+
+func (m mapping) px(h float64) float64 {
+	return m.s.x0 + (h*m.sc.hMul-m.xa.lo)/(m.xa.hi-m.xa.lo)*(m.s.x1-m.s.x0)
+}
+
+func (m mapping) py(y float64) float64 {
+	return m.s.y1 - (y*m.sc.yMul-m.ya.lo)/(m.ya.hi-m.ya.lo)*(m.s.y1-m.s.y0)
+}
+
+// layout places the plot area, the axes with their ticks and labels.
+func layout(o Options, e extent, sc scale) (*scene, mapping) {
 	s := &scene{w: o.Width, h: o.Height, title: o.Title}
 	s.x0, s.y0 = 78, 40
 	if o.Title == "" {
@@ -232,20 +278,19 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 	}
 	s.x1, s.y1 = float64(o.Width)-20, float64(o.Height)-56
 
-	xa := niceAxis(hlo*sc.hMul, hhi*sc.hMul, 8)
-	ya := niceAxis(ylo*sc.yMul, yhi*sc.yMul, 7)
+	xa := niceAxis(e.hlo*sc.hMul, e.hhi*sc.hMul, 8)
+	ya := niceAxis(e.ylo*sc.yMul, e.yhi*sc.yMul, 7)
 	if o.SecondQuadrant {
 		xa.hi, ya.lo = 0, 0
 	}
-	px := func(h float64) float64 { return s.x0 + (h*sc.hMul-xa.lo)/(xa.hi-xa.lo)*(s.x1-s.x0) }
-	py := func(y float64) float64 { return s.y1 - (y*sc.yMul-ya.lo)/(ya.hi-ya.lo)*(s.y1-s.y0) }
+	m := mapping{s: s, sc: sc, xa: xa, ya: ya}
 	for _, v := range xa.ticks() {
 		s.xticks = append(s.xticks, tick{px: s.x0 + (v-xa.lo)/(xa.hi-xa.lo)*(s.x1-s.x0), label: xa.format(v)})
 	}
 	for _, v := range ya.ticks() {
 		s.yticks = append(s.yticks, tick{px: s.y1 - (v-ya.lo)/(ya.hi-ya.lo)*(s.y1-s.y0), label: ya.format(v)})
 	}
-	s.xzero, s.yzero = px(0), py(0)
+	s.xzero, s.yzero = m.px(0), m.py(0)
 	s.xlabel = "H (" + sc.hUnit + ")"
 	switch {
 	case o.SecondQuadrant:
@@ -255,7 +300,12 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 	default:
 		s.ylabel = "B (" + sc.yUnit + ")"
 	}
+	return s, m
+}
 
+// addTraces draws each loop (B and J of the second quadrant, when o asks
+// for it) with its label and colour, and lists it in the legend.
+func (s *scene) addTraces(loops []record.Loop, o Options, m mapping) {
 	minStep := 0.5 // px
 	for i, l := range loops {
 		label := fmt.Sprintf("%s #%d", l.RunID, l.N)
@@ -267,10 +317,10 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 			b := trace{label: label, col: col}
 			j := trace{label: label + " J", col: col, dashed: true}
 			b.segs = decimate(l.Points, func(p record.Point) (float64, float64, bool) {
-				return px(p.H), py(p.B), p.H <= 0 && p.B >= 0
+				return m.px(p.H), m.py(p.B), p.H <= 0 && p.B >= 0
 			}, minStep, o.MaxPoints)
 			j.segs = decimate(l.Points, func(p record.Point) (float64, float64, bool) {
-				return px(p.H), py(p.J), p.H <= 0 && p.J >= 0
+				return m.px(p.H), m.py(p.J), p.H <= 0 && p.J >= 0
 			}, minStep, o.MaxPoints)
 			s.traces = append(s.traces, b, j)
 			s.legend = append(s.legend, b)
@@ -278,32 +328,35 @@ func build(loops []record.Loop, o Options) (*scene, error) {
 		}
 		t := trace{label: label, col: col}
 		t.segs = decimate(l.Points, func(p record.Point) (float64, float64, bool) {
-			return px(p.H), py(yOf(p, o.Y)), true
+			return m.px(p.H), m.py(yOf(p, o.Y)), true
 		}, minStep, o.MaxPoints)
 		s.traces = append(s.traces, t)
 		s.legend = append(s.legend, t)
 	}
+}
 
-	if o.SecondQuadrant {
-		if h, b, e, ok := BHMax(loops); ok {
-			m := &marker{at: pt{px(h), py(b)}}
-			m.label = fmt.Sprintf("(BH)max %s %s", formatSig(e*sc.eMul, 3), sc.eUnit)
-			// B·H = −e through the marker, clipped to the plot area.
-			for k := 0; k <= 80; k++ {
-				hh := hlo + (float64(k)/80)*(-hlo)
-				if hh >= 0 {
-					break
-				}
-				bb := -e / hh
-				if bb*sc.yMul > ya.hi {
-					continue
-				}
-				m.curve = append(m.curve, pt{px(hh), py(bb)})
-			}
-			s.mark = m
-		}
+// bhMarker marks (BH)max of the second quadrant with the hyperbola B·H =
+// −(BH)max through it, clipped to the plot area (H from hlo to 0); nil when
+// no point lies in the quadrant.
+func bhMarker(loops []record.Loop, hlo float64, m mapping) *marker {
+	h, b, e, ok := BHMax(loops)
+	if !ok {
+		return nil
 	}
-	return s, nil
+	mk := &marker{at: pt{m.px(h), m.py(b)}}
+	mk.label = fmt.Sprintf("(BH)max %s %s", formatSig(e*m.sc.eMul, 3), m.sc.eUnit)
+	for k := 0; k <= 80; k++ {
+		hh := hlo + (float64(k)/80)*(-hlo)
+		if hh >= 0 {
+			break
+		}
+		bb := -e / hh
+		if bb*m.sc.yMul > m.ya.hi {
+			continue
+		}
+		mk.curve = append(mk.curve, pt{m.px(hh), m.py(bb)})
+	}
+	return mk
 }
 
 // BHMax returns the plotted point of largest energy product |B·H| in the

@@ -2,7 +2,6 @@ package process
 
 import (
 	"fmt"
-	"io/fs"
 	"math"
 	"math/rand/v2"
 	"strings"
@@ -15,7 +14,6 @@ import (
 	"hystd/calib/loop"
 	"hystd/calib/synth"
 	"hystd/calib/units"
-	"hystd/configs"
 	"hystd/drivers/profile"
 )
 
@@ -274,26 +272,10 @@ func TestMissingAndBadSamples(t *testing.T) {
 	}
 }
 
-func sample(t *testing.T, name string) []byte {
-	t.Helper()
-	b, err := fs.ReadFile(configs.Samples, name)
-	if err != nil {
-		t.Fatal(err)
-	}
-	return b
-}
-
 // TestSetupFromSamples: the shipped ring R17 (50/40/10 mm, mean path) on
 // the shipped fixture: l_m = π·45 mm (IEC 60404-4), A = 50 mm², N1 200, N2 100.
 func TestSetupFromSamples(t *testing.T) {
-	fx, err := config.ParseFixture("fixture-ring-bench.yaml", sample(t, "fixture-ring-bench.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.ParseSpecimen("specimen-ring-r17.yaml", sample(t, "specimen-ring-r17.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := samples(t)
 	s, warn, err := SetupFrom(fx, sp)
 	if err != nil {
 		t.Fatal(err)

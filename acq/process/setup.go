@@ -7,6 +7,7 @@ import (
 	"hystd/acq/config"
 	"hystd/calib/geometry"
 	"hystd/calib/units"
+	"hystd/drivers/instr"
 )
 
 const mm = 1e-3
@@ -60,11 +61,11 @@ func SetupFrom(fx config.Fixture, sp config.Specimen) (Setup, []string, error) {
 // field meter's field reading. Other roles change nothing.
 func (s *Setup) SetAccuracy(role string, a Accuracy) {
 	switch role {
-	case config.RoleSupply:
+	case instr.RoleSupply:
 		s.Current = a
-	case config.RoleIntegrator:
+	case instr.RoleIntegrator:
 		s.Flux = a
-	case config.RoleFieldMeter:
+	case instr.RoleFieldMeter:
 		s.Field = a
 	}
 }

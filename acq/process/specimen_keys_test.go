@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"hystd/acq/config"
+	"hystd/acq/config/configtest"
 	"hystd/calib/loop"
 	"hystd/calib/synth"
 	"hystd/calib/units"
@@ -14,18 +15,7 @@ import (
 func ptr(v float64) *float64 { return &v }
 
 // samples returns the shipped fixture and ring R17 (50/40/10 mm, mean path).
-func samples(t *testing.T) (config.Fixture, config.Specimen) {
-	t.Helper()
-	fx, err := config.ParseFixture("fixture-ring-bench.yaml", sample(t, "fixture-ring-bench.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.ParseSpecimen("specimen-ring-r17.yaml", sample(t, "specimen-ring-r17.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	return fx, sp
-}
+func samples(t *testing.T) (config.Fixture, config.Specimen) { return configtest.Ring(t) }
 
 // TestSpecimenTolerances: the specimen's tolerances block drives the
 // geometry's share of the budget as the law of propagation of uncertainty

@@ -8,6 +8,7 @@ import (
 
 	"go.yaml.in/yaml/v3"
 
+	"hystd/calib/units"
 	"hystd/configs"
 )
 
@@ -49,19 +50,17 @@ func fmtSI(v float64, unit string) string {
 	return strconv.FormatFloat(v, 'g', 6, 64) + " " + unit
 }
 
-var prefixes = map[string]float64{"": 1, "m": 1e-3, "k": 1e3, "M": 1e6}
+// prefixes are the SI prefixes a recipe's levels and rates may carry.
+var prefixes = map[string]bool{"": true, "m": true, "k": true, "M": true}
 
 // parseAmount splits "1.2 kA/m" into 1200 and "A/m". perSecond asks for a
-// rate ("…/s"). The unit must be A or A/m with an optional m, k or M prefix.
+// rate ("…/s"). The number and the prefix are read by the grammar of every
+// quantity (units.SplitNumber, units.Scale); a recipe asks in addition for
+// a unit, A or A/m, with an optional m, k or M prefix.
 func parseAmount(s string, perSecond bool) (float64, string, error) {
 	s = strings.TrimSpace(s)
-	i := 0
-	for i < len(s) && strings.ContainsRune("+-0123456789.eE", rune(s[i])) {
-		// stop at an 'e' that starts no exponent (none of our units start with e)
-		i++
-	}
-	num, rest := s[:i], strings.TrimSpace(s[i:])
-	if num == "" {
+	num, rest := units.SplitNumber(s)
+	if !strings.ContainsAny(num, "0123456789") {
 		return 0, "", fmt.Errorf("%q does not start with a number", s)
 	}
 	v, err := strconv.ParseFloat(num, 64)
@@ -81,18 +80,18 @@ func parseAmount(s string, perSecond bool) (float64, string, error) {
 	}
 	var unit string
 	switch {
-	case strings.HasSuffix(rest, "A/m"):
+	case strings.HasSuffix(rest, UnitApm):
 		unit = UnitApm
-	case strings.HasSuffix(rest, "A"):
+	case strings.HasSuffix(rest, UnitA):
 		unit = UnitA
 	default:
 		return 0, "", fmt.Errorf("unit %q of %q is not %s", rest, s, want)
 	}
-	p, ok := prefixes[strings.TrimSuffix(rest, unit)]
-	if !ok {
+	si, ok := units.Scale(v, rest, unit)
+	if !ok || !prefixes[strings.TrimSuffix(rest, unit)] {
 		return 0, "", fmt.Errorf("unit %q of %q: prefix not one of m, k, M; write %s", rest, s, want)
 	}
-	return v * p, unit, nil
+	return si, unit, nil
 }
 
 func scalar(n *yaml.Node) (string, error) {
@@ -155,22 +154,18 @@ func (b *Induction) UnmarshalYAML(n *yaml.Node) error {
 		return configs.ValueError(n, "%s has no unit; write it in T, e.g. \"%s T\"", n.Value, n.Value)
 	}
 	s := strings.TrimSpace(n.Value)
-	i := 0
-	for i < len(s) && strings.ContainsRune("+-0123456789.eE", rune(s[i])) {
-		i++
-	}
-	v, err := strconv.ParseFloat(s[:i], 64)
+	num, unit := units.SplitNumber(s)
+	v, err := strconv.ParseFloat(num, 64)
 	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
 		return configs.ValueError(n, "%q does not start with a number", s)
 	}
-	switch strings.TrimSpace(s[i:]) {
-	case "T":
-	case "mT":
-		v *= 1e-3
+	switch unit {
+	case "T", "mT":
+		v, _ = units.Scale(v, unit, units.SymTesla)
 	case "":
 		return configs.ValueError(n, "%q has no unit; write it in T, e.g. \"1.5 T\" or \"800 mT\"", s)
 	default:
-		return configs.ValueError(n, "unit %q of %q is not T or mT", strings.TrimSpace(s[i:]), s)
+		return configs.ValueError(n, "unit %q of %q is not T or mT", unit, s)
 	}
 	*b = Induction(v)
 	return nil

@@ -406,22 +406,14 @@ func (x *expander) init() {
 	}
 }
 
-// recipeUnit is the unit the recipe is written in.
+// recipeUnit is the unit the recipe is written in: that of the first step
+// that gives one.
 func (x *expander) recipeUnit() string {
 	for _, s := range x.r.Steps {
-		switch {
-		case s.Demagnetize != nil:
-			return s.Demagnetize.From.Unit
-		case s.Condition != nil:
-			return s.Condition.Amplitude.Unit
-		case s.RecordLoop != nil:
-			return s.RecordLoop.Amplitude.Unit
-		case s.NormalCurve != nil:
-			return s.NormalCurve.Rate.Unit
-		case s.DemagCurve != nil:
-			return s.DemagCurve.Saturate.Unit
-		case s.DriftHold != nil && s.DriftHold.At != nil:
-			return s.DriftHold.At.Unit
+		if _, b, _ := s.kind(); b != nil {
+			if u, ok := b.unit(); ok {
+				return u
+			}
 		}
 	}
 	return UnitA
@@ -524,112 +516,11 @@ func (x *expander) checkLimits(s Step, path string, peak float64) {
 	}
 }
 
-// period of a recorded sweep: interval, or the sweep time over the points.
-func period(s Sampling, sweep time.Duration) time.Duration {
-	if s.Interval > 0 {
-		return s.Interval.D()
-	}
-	p := (sweep / time.Duration(s.Points)).Round(time.Microsecond)
-	return max(p, time.Millisecond)
-}
-
 func (x *expander) step(i int, s StepSpec) {
-	kind, _ := s.kindOf()
-	src := stepPath(i, kind)
+	key, b, _ := s.kind()
+	src := stepPath(i, key)
 	x.src = src + "."
-	switch {
-	case s.Demagnetize != nil:
-		d := s.Demagnetize
-		rate := x.rt(d.Rate)
-		if n := math.Log(d.DownTo.Value/d.From.Value)/math.Log(d.Ratio) + 1; !(n <= MaxReversals) {
-			x.refuse(src+".down_to", "step %s: from %s down to %s at ratio %g takes %.3g reversals, more than %d; raise down_to or lower ratio",
-				src, d.From, d.DownTo, d.Ratio, n, MaxReversals)
-			return
-		}
-		var levels []float64
-		for a, sign := x.lv(d.From), 1.0; a >= x.lv(d.DownTo); a, sign = a*d.Ratio, -sign {
-			levels = append(levels, sign*a)
-		}
-		levels = append(levels, 0)
-		x.push(Step{Source: src, Kind: KindDemagnetize, Period: x.r.PeriodOr(),
-			Segments: x.program(x.level, rate, "", 2*x.r.PeriodOr(), levels...)}, src+".from", rate)
-	case s.Condition != nil:
-		x.condition(src, src+".amplitude", x.lv(s.Condition.Amplitude), x.rt(s.Condition.Rate), s.Condition.Cycles)
-	case s.RecordLoop != nil:
-		d := s.RecordLoop
-		for range d.Cycles {
-			if d.Peak == nil {
-				x.loop(src, src+".amplitude", LoopKindLoop, d.Amplitude, x.rt(d.Rate), d.Sampling)
-				continue
-			}
-			a := x.lv(d.Amplitude)
-			aim := &Aim{Of: "B", Tolerance: float64(d.Peak.Tolerance), Tries: d.Peak.Tries, First: a, Max: math.NaN(), perRecipe: x.conv}
-			if d.Peak.B != nil {
-				aim.Target = float64(*d.Peak.B)
-			} else {
-				aim.Of, aim.Target = "J", float64(*d.Peak.J)
-			}
-			if m := x.fx.Limits.MaxCurrentA; m > 0 && x.toAmp > 0 {
-				aim.Max = m / x.toAmp
-				if a > aim.Max {
-					x.c.add(src+".amplitude", "the first try %s is above the fixture limit limits.max_current_a = %g A of %q", d.Amplitude, m, x.fx.Name)
-					return
-				}
-			}
-			info := LoopInfo{Kind: LoopKindLoop, Amplitude: d.Amplitude.Value, AmpUnit: d.Amplitude.Unit}
-			x.recordedAim(src, src+".peak", info, x.rt(d.Rate), d.Sampling, aim, a, -a, a)
-		}
-	case s.NormalCurve != nil:
-		d := s.NormalCurve
-		amps := d.Amplitudes
-		if len(amps) == 0 {
-			q := math.Pow(d.To.Value/d.From.Value, 1/float64(d.Count-1))
-			for k := range d.Count {
-				amps = append(amps, Level{d.From.Value * math.Pow(q, float64(k)), d.From.Unit})
-			}
-		}
-		var bAt []float64
-		for _, h := range d.BAt {
-			bAt = append(bAt, h.Value)
-		}
-		for j, a := range amps {
-			path := src + ".amplitudes." + itoa(j)
-			if len(d.Amplitudes) == 0 {
-				path = src + ".to"
-			}
-			x.condition(src, path, x.lv(a), x.rt(d.Rate), d.Cycles)
-			info := LoopInfo{Kind: LoopKindNormal, Amplitude: a.Value, AmpUnit: a.Unit, Family: src, Member: j + 1, Of: len(amps), BAt: bAt}
-			x.recorded(src, path, info, x.rt(d.Rate), d.Sampling, x.lv(a), -x.lv(a), x.lv(a))
-		}
-	case s.DemagCurve != nil:
-		d := s.DemagCurve
-		rate := x.rt(d.Rate)
-		sat, to := x.lv(d.Saturate), x.lv(d.To)
-		x.recorded(src, src+".saturate", LoopInfo{Kind: LoopKindDemag, Amplitude: d.Saturate.Value, AmpUnit: d.Saturate.Unit}, rate, d.Sampling, sat, to)
-		for j, rc := range d.RecoilAt {
-			at := x.lv(rc)
-			x.recorded(src, src+".recoil_at."+itoa(j), LoopInfo{Kind: LoopKindRecoil, Amplitude: rc.Value, AmpUnit: rc.Unit}, rate, d.Sampling, sat, at, x.lv(*d.RecoilTo), at)
-		}
-	case s.DriftHold != nil:
-		d := s.DriftHold
-		at, rate := 0.0, x.lastRate
-		if d.At != nil {
-			at = x.lv(*d.At)
-		}
-		if d.Rate != nil {
-			rate = x.rt(*d.Rate)
-		}
-		if at != x.level && !(rate > 0) {
-			x.c.add(src+".rate", "required: no earlier step gives a rate to reach the hold level")
-			return
-		}
-		segs := x.program(x.level, rate, "", 2*x.r.PeriodOr(), at)
-		segs = append(segs, Segment{To: at, Dur: d.Duration.D(), Phase: record.PreHold})
-		x.push(Step{Source: src, Kind: KindDriftHold, Period: x.r.PeriodOr(), Segments: segs}, src, rate)
-	case s.Wait != nil:
-		x.push(Step{Source: src, Kind: KindWait, Period: x.r.PeriodOr(),
-			Segments: []Segment{{To: x.level, Dur: s.Wait.Duration.D()}}}, "", x.lastRate)
-	}
+	b.expand(x, src)
 }
 
 func (x *expander) condition(src, path string, a, rate float64, cycles int) {

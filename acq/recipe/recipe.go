@@ -12,6 +12,11 @@
 //	drift_hold       the field held static while the integrator drift is measured
 //	wait             the level held for a while, nothing measured
 //
+// Each kind is declared once: its type in step_<key>.go (the YAML, its
+// checks and defaults, its expansion) and its entry in stepTable
+// (steps.go); a new kind is a field of StepSpec, that entry, its file and
+// its test.
+//
 // Expand turns a recipe into []Step for a fixture: levels in the unit the
 // engine commands (A for control: current, A/m for control: field), segment
 // durations from the rates, and a refusal, naming the step and the limit, of
@@ -71,114 +76,6 @@ type Recipe struct {
 
 	doc  *configs.Doc
 	text []byte
-}
-
-// StepSpec is one step as written: exactly one field is set.
-type StepSpec struct {
-	Demagnetize *Demagnetize `yaml:"demagnetize"`
-	Condition   *Condition   `yaml:"condition"`
-	RecordLoop  *RecordLoop  `yaml:"record_loop"`
-	NormalCurve *NormalCurve `yaml:"normal_curve"`
-	DemagCurve  *DemagCurve  `yaml:"demag_curve"`
-	DriftHold   *DriftHold   `yaml:"drift_hold"`
-	Wait        *Wait        `yaml:"wait"`
-}
-
-// Demagnetize reverses the level with an amplitude that shrinks by Ratio at
-// each reversal, from From down to below DownTo, then returns to zero.
-type Demagnetize struct {
-	From   Level   `yaml:"from"`    // first amplitude; must exceed every test level of the recipe
-	Ratio  float64 `yaml:"ratio"`   // amplitude of each reversal over the previous one, 0.5–0.98; default 0.9
-	DownTo Level   `yaml:"down_to"` // stop below this amplitude; default From/100
-	Rate   Rate    `yaml:"rate"`
-}
-
-// Condition cycles ±Amplitude Cycles times, recording nothing.
-type Condition struct {
-	Amplitude Level `yaml:"amplitude"`
-	Cycles    int   `yaml:"cycles"` // default 5
-	Rate      Rate  `yaml:"rate"`
-}
-
-// Sampling says how densely a recorded sweep is sampled: Points per sweep or
-// one sample every Interval. One of the two is required.
-type Sampling struct {
-	Points   int              `yaml:"points"`
-	Interval configs.Duration `yaml:"sample_interval"`
-	// Hold is the static pre and post hold around the sweep (drift rate);
-	// default 2s.
-	Hold configs.Duration `yaml:"hold"`
-	// Capture and BufferPeriod choose how the sweep's flux and field are
-	// read: polled (default) or buffered; see capture.go.
-	Capture      string           `yaml:"capture"`
-	BufferPeriod configs.Duration `yaml:"buffer_period"`
-}
-
-// RecordLoop records Cycles symmetric loops of ±Amplitude, each stored.
-// With Peak, Amplitude is the first try of a search for the amplitude that
-// gives the loop the stated peak induction (see Peak).
-type RecordLoop struct {
-	Amplitude Level `yaml:"amplitude"`
-	Rate      Rate  `yaml:"rate"`
-	Cycles    int   `yaml:"cycles"` // recorded loops, default 1
-	Peak      *Peak `yaml:"peak"`
-	Sampling  `yaml:",inline"`
-}
-
-// Peak aims a recorded loop at a peak induction B or polarization J (soft
-// materials are quoted at a stated peak, e.g. 1.0 or 1.5 T, common
-// practice). Before recording, the engine tries loops at amplitudes chosen
-// by secant steps on the measured tip against the amplitude, at most Tries,
-// never above the fixture's max current, until the tip is within Tolerance
-// of the target; it then conditions at that amplitude and records.
-type Peak struct {
-	B         *Induction `yaml:"b"`         // target peak B; or
-	J         *Induction `yaml:"j"`         // target peak J = B − μ0·H
-	Tolerance Induction  `yaml:"tolerance"` // default 1 % of the target
-	Tries     int        `yaml:"tries"`     // default 8
-}
-
-// NormalCurve records one loop at each amplitude, each after Cycles
-// conditioning cycles; the tips form the normal (commutation) curve. Give
-// Amplitudes, or From, To and Count for geometric spacing.
-type NormalCurve struct {
-	Amplitudes []Level `yaml:"amplitudes"`
-	From       *Level  `yaml:"from"`
-	To         *Level  `yaml:"to"`
-	Count      int     `yaml:"count"`
-	Cycles     int     `yaml:"cycles"` // conditioning cycles per amplitude, default 3
-	Rate       Rate    `yaml:"rate"`
-	// BAt lists fields (A/m) at which B is read on the normal curve and
-	// reported as figures b_at_<H>_a_m (electrical steel is quoted at 800,
-	// 2500 and 5000 A/m, common practice); each must lie within the
-	// family's amplitudes.
-	BAt      []Level `yaml:"b_at"`
-	Sampling `yaml:",inline"`
-}
-
-// DemagCurve magnetizes to +Saturate and records the sweep down to To (a
-// negative level, through the 2nd quadrant). Each entry of RecoilAt adds a
-// recorded recoil loop: saturate again, sweep down to that level, up to
-// RecoilTo (default 0) and back.
-type DemagCurve struct {
-	Saturate Level   `yaml:"saturate"`
-	To       Level   `yaml:"to"`
-	Rate     Rate    `yaml:"rate"`
-	RecoilAt []Level `yaml:"recoil_at"`
-	RecoilTo *Level  `yaml:"recoil_to"`
-	Sampling `yaml:",inline"`
-}
-
-// DriftHold holds At (default 0) for Duration while the integrator drift is measured.
-type DriftHold struct {
-	At       *Level           `yaml:"at"`
-	Duration configs.Duration `yaml:"duration"`
-	Rate     *Rate            `yaml:"rate"` // to reach At; required when At is not 0
-}
-
-// Wait holds the present level for Duration.
-type Wait struct {
-	Duration configs.Duration `yaml:"duration"`
 }
 
 // Load reads and parses a recipe file.
@@ -269,26 +166,3 @@ func (r *Recipe) PeriodOr() time.Duration {
 	}
 	return DefaultPeriod
 }
-
-// kindOf returns the kind name and the number of kinds set.
-func (s StepSpec) kindOf() (string, int) {
-	name, n := "", 0
-	set := func(ok bool, k string) {
-		if ok {
-			name = k
-			n++
-		}
-	}
-	set(s.Demagnetize != nil, "demagnetize")
-	set(s.Condition != nil, "condition")
-	set(s.RecordLoop != nil, "record_loop")
-	set(s.NormalCurve != nil, "normal_curve")
-	set(s.DemagCurve != nil, "demag_curve")
-	set(s.DriftHold != nil, "drift_hold")
-	set(s.Wait != nil, "wait")
-	return name, n
-}
-
-const stepKinds = "demagnetize, condition, record_loop, normal_curve, demag_curve, drift_hold, wait"
-
-func stepPath(i int, kind string) string { return fmt.Sprintf("steps.%d.%s", i, kind) }

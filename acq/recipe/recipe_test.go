@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"hystd/acq/config"
+	"hystd/acq/config/configtest"
 	"hystd/acq/record"
 )
 
@@ -17,14 +18,7 @@ var update = flag.Bool("update", false, "rewrite the golden plan listings")
 
 func ringFixture(t *testing.T) (config.Fixture, Geometry) {
 	t.Helper()
-	fx, err := config.LoadFixture("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	sp, err := config.LoadSpecimen("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.Ring(t)
 	g, err := GeometryOf(fx, sp)
 	if err != nil {
 		t.Fatal(err)

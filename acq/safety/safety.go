@@ -113,7 +113,22 @@ func NewChecker(l Limits) *Checker { return &Checker{lim: l} }
 
 // Check returns the first limit o crosses, or nil.
 func (c *Checker) Check(o Observation) *Violation {
-	l := c.lim
+	if v := statusViolation(o, c.lim); v != nil {
+		return v
+	}
+	if v := levelViolation(o, c.lim); v != nil {
+		return v
+	}
+	didt, ok := c.slew(o)
+	if v := c.slewViolation(o, ok); v != nil {
+		return v
+	}
+	return c.resistance(o, didt, ok)
+}
+
+// statusViolation is what the supply's status and the integrator's
+// overload flag say, or nil.
+func statusViolation(o Observation, l Limits) *Violation {
 	if o.HaveStatus {
 		switch {
 		case o.Status.Tripped:
@@ -130,6 +145,12 @@ func (c *Checker) Check(o Observation) *Violation {
 	if o.Overload {
 		return &Violation{Limit: "integrator.overload", Value: math.NaN(), Text: "integrator overload: the flux left the selected range"}
 	}
+	return nil
+}
+
+// levelViolation is the first reading beyond its fixture limit (current,
+// voltage, field-meter reading, winding temperature), or nil.
+func levelViolation(o Observation, l Limits) *Violation {
 	if l.MaxCurrent > 0 && !math.IsNaN(o.I) && math.Abs(o.I) > l.MaxCurrent*(1+CurrentTolerance)+CurrentToleranceA {
 		return &Violation{Limit: "limits.max_current_a", Value: o.I, Max: l.MaxCurrent, Unit: "A",
 			Text: fmt.Sprintf("current %.4g A crossed the fixture limit limits.max_current_a = %g A", o.I, l.MaxCurrent)}
@@ -146,38 +167,41 @@ func (c *Checker) Check(o Observation) *Violation {
 		return &Violation{Limit: "limits.max_winding_temp_c", Value: o.TempC, Max: l.MaxTempC, Unit: "°C",
 			Text: fmt.Sprintf("winding temperature %.4g °C crossed the fixture limit limits.max_winding_temp_c = %g °C", o.TempC, l.MaxTempC)}
 	}
-	didt, ok := c.slew(o)
-	if l.MaxSlew > 0 && !math.IsNaN(o.I) {
-		// Over the window (a slow run-away) and over the short window (a
-		// collapse within a few samples), each allowing for the read-back
-		// noise and for the time-stamp uncertainty of both samples.
-		check := func(a obsIV) *Violation {
-			span := o.T - a.t
-			sec := span.Seconds()
-			if sec <= 0 {
-				return nil
-			}
-			rate := (o.I - a.i) / sec
-			unc := (o.TUnc + a.u).Seconds()
-			if math.Abs(rate) > l.MaxSlew*SlewMargin*(1+unc/sec)+2*SlewNoiseA/sec {
-				return &Violation{Limit: "limits.max_slew_a_per_s", Value: rate, Max: l.MaxSlew, Unit: "A/s",
-					Text: fmt.Sprintf("current changed at %.4g A/s, beyond the fixture limit limits.max_slew_a_per_s = %g A/s", rate, l.MaxSlew)}
-			}
-			return nil
-		}
-		if ok {
-			if v := check(c.hist[0]); v != nil {
-				return v
-			}
-		}
-		if a, found := c.before(o.T - ShortWindow); found {
-			if v := check(a); v != nil {
-				return v
-			}
+	return nil
+}
+
+// slewViolation checks the current's rate of change over the window
+// (a slow run-away, when ok says the window is covered) and over the
+// short window (a collapse within a few samples), each allowing for the
+// read-back noise and for the time-stamp uncertainty of both samples.
+func (c *Checker) slewViolation(o Observation, ok bool) *Violation {
+	if !(c.lim.MaxSlew > 0) || math.IsNaN(o.I) {
+		return nil
+	}
+	if ok {
+		if v := c.slewSince(o, c.hist[0]); v != nil {
+			return v
 		}
 	}
-	if v := c.resistance(o, didt, ok); v != nil {
-		return v
+	if a, found := c.before(o.T - ShortWindow); found {
+		return c.slewSince(o, a)
+	}
+	return nil
+}
+
+// slewSince checks the rate of change from the earlier sample a to o.
+func (c *Checker) slewSince(o Observation, a obsIV) *Violation {
+	l := c.lim
+	span := o.T - a.t
+	sec := span.Seconds()
+	if sec <= 0 {
+		return nil
+	}
+	rate := (o.I - a.i) / sec
+	unc := (o.TUnc + a.u).Seconds()
+	if math.Abs(rate) > l.MaxSlew*SlewMargin*(1+unc/sec)+2*SlewNoiseA/sec {
+		return &Violation{Limit: "limits.max_slew_a_per_s", Value: rate, Max: l.MaxSlew, Unit: "A/s",
+			Text: fmt.Sprintf("current changed at %.4g A/s, beyond the fixture limit limits.max_slew_a_per_s = %g A/s", rate, l.MaxSlew)}
 	}
 	return nil
 }

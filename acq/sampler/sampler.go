@@ -39,14 +39,9 @@ import (
 	"hystd/drivers/instr"
 )
 
-// Roles are the instruments of a fixture. Supply is required; Integrator,
-// FieldMeter and Thermometer may be nil (their channels are NaN).
-type Roles struct {
-	Supply      instr.Supply
-	Integrator  instr.Integrator
-	FieldMeter  instr.FieldMeter
-	Thermometer instr.Thermometer
-}
+// Roles are the instruments of a fixture (instr.Set). Supply is required;
+// Integrator, FieldMeter and Thermometer may be nil (their channels are NaN).
+type Roles = instr.Set
 
 // Options choose what a Read reads besides the measured channels.
 type Options struct {
@@ -63,8 +58,9 @@ type Reading struct {
 	Overload bool
 }
 
-// RoleError is the I/O error of one instrument role in a Read. Role is
-// "supply", "integrator", "field meter" or "thermometer".
+// RoleError is the I/O error of one instrument role in a Read. Role is the
+// role's label (instr.RoleLabel): "supply", "integrator", "field meter" or
+// "thermometer".
 type RoleError struct {
 	Role string
 	Err  error
@@ -193,20 +189,20 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 	if o.Status {
 		sup = append(sup, state("read status", instr.ReadStatus, r.Supply.Status, func(out *Reading, v instr.SupplyStatus) { out.Status = v }))
 	}
-	s.add("supply", r.Supply, sup)
+	s.add(instr.RoleLabel(instr.RoleSupply), r.Supply, sup)
 	if r.Integrator != nil {
 		st := []step{reading("read flux", instr.ReadFlux, kindFlux, r.Integrator.ReadFlux, func(out *Reading, v float64) { out.Sample.Psi = v })}
 		if o.Status {
 			st = append(st, state("read overload", instr.ReadOverload, r.Integrator.Overloaded, func(out *Reading, v bool) { out.Overload = v }))
 		}
-		s.add("integrator", r.Integrator, st)
+		s.add(instr.RoleLabel(instr.RoleIntegrator), r.Integrator, st)
 	}
 	if r.FieldMeter != nil {
-		s.add("field meter", r.FieldMeter, []step{
+		s.add(instr.RoleLabel(instr.RoleFieldMeter), r.FieldMeter, []step{
 			reading("read field", instr.ReadField, kindField, r.FieldMeter.ReadField, func(out *Reading, v float64) { out.Sample.BProbe = v })})
 	}
 	if r.Thermometer != nil {
-		s.add("thermometer", r.Thermometer, []step{
+		s.add(instr.RoleLabel(instr.RoleThermometer), r.Thermometer, []step{
 			reading("read temperature", instr.ReadTemperature, kindOther, r.Thermometer.ReadTemperature, func(out *Reading, v float64) { out.Sample.TempC = v })})
 	}
 	return s, nil

@@ -250,59 +250,28 @@ func parseDecimal(s string) (float64, bool) {
 		neg = s[i] == '-'
 		i++
 	}
-	var mant uint64
-	digits, exp := 0, 0
-	for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
-		if digits < 18 {
-			mant = mant*10 + uint64(s[i]-'0')
-		} else {
+	start := i
+	i, mant, digits, ok := digitRun(s, i, 0, 0)
+	if !ok {
+		return 0, false
+	}
+	seen, exp := i > start, 0
+	if i < len(s) && s[i] == '.' {
+		frac := i + 1
+		if i, mant, _, ok = digitRun(s, frac, mant, digits); !ok {
 			return 0, false
 		}
-		if mant > 0 {
-			digits++
-		}
-	}
-	seen := i > 0 && s[i-1] >= '0' && s[i-1] <= '9'
-	if i < len(s) && s[i] == '.' {
-		i++
-		for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
-			if digits < 18 {
-				mant = mant*10 + uint64(s[i]-'0')
-			} else {
-				return 0, false
-			}
-			if mant > 0 {
-				digits++
-			}
-			exp--
-			seen = true
-		}
+		exp = frac - i
+		seen = seen || i > frac
 	}
 	if !seen {
 		return 0, false
 	}
-	if i < len(s) && (s[i] == 'e' || s[i] == 'E') {
-		i++
-		eneg := false
-		if i < len(s) && (s[i] == '+' || s[i] == '-') {
-			eneg = s[i] == '-'
-			i++
-		}
-		start, e := i, 0
-		for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
-			if e > 1000 {
-				return 0, false
-			}
-			e = e*10 + int(s[i]-'0')
-		}
-		if i == start {
-			return 0, false
-		}
-		if eneg {
-			e = -e
-		}
-		exp += e
+	e, i, ok := exponent(s, i)
+	if !ok {
+		return 0, false
 	}
+	exp += e
 	if i != len(s) || mant >= 1<<53 || exp < -22 || exp > 22 {
 		return 0, false
 	}
@@ -316,6 +285,51 @@ func parseDecimal(s string) (float64, bool) {
 		f = -f
 	}
 	return f, true
+}
+
+// digitRun reads the digits at s[i:] into mant, which holds digits
+// significant digits so far; false when they would be more than 18 (the
+// fast path does not apply).
+func digitRun(s string, i int, mant uint64, digits int) (int, uint64, int, bool) {
+	for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+		if digits >= 18 {
+			return i, mant, digits, false
+		}
+		mant = mant*10 + uint64(s[i]-'0')
+		if mant > 0 {
+			digits++
+		}
+	}
+	return i, mant, digits, true
+}
+
+// exponent reads an exponent ((e|E)[+-]digits) at s[i:], if one is there:
+// its value and where it ends; false when it has no digits or is beyond
+// any the fast path takes.
+func exponent(s string, i int) (int, int, bool) {
+	if i >= len(s) || (s[i] != 'e' && s[i] != 'E') {
+		return 0, i, true
+	}
+	i++
+	neg := false
+	if i < len(s) && (s[i] == '+' || s[i] == '-') {
+		neg = s[i] == '-'
+		i++
+	}
+	start, e := i, 0
+	for ; i < len(s) && s[i] >= '0' && s[i] <= '9'; i++ {
+		if e > 1000 {
+			return 0, i, false
+		}
+		e = e*10 + int(s[i]-'0')
+	}
+	if i == start {
+		return 0, i, false
+	}
+	if neg {
+		e = -e
+	}
+	return e, i, true
 }
 
 // isSpaceStart reports whether a byte may be (the first or last byte of) a

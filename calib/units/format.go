@@ -88,10 +88,7 @@ func parse(s, sym string) (float64, error) {
 	if in == "" {
 		return 0, fmt.Errorf("empty value, want a number with unit %s", sym)
 	}
-	// Split the number from the unit at the first character that cannot
-	// belong to a number.
-	end := numberEnd(in)
-	num, unit := in[:end], strings.TrimSpace(in[end:])
+	num, unit := SplitNumber(in)
 	v, err := strconv.ParseFloat(num, 64)
 	if err == nil && (math.IsNaN(v) || math.IsInf(v, 0)) {
 		return 0, fmt.Errorf("%q: not a finite number", s)
@@ -102,9 +99,29 @@ func parse(s, sym string) (float64, error) {
 	if unit == "" {
 		return v, nil
 	}
+	if v, ok := Scale(v, unit, sym); ok {
+		return v, nil
+	}
+	return 0, fmt.Errorf("%q: unknown unit %q for a quantity in %s (known: %s)", s, unit, sym, known(tables[sym]))
+}
+
+// SplitNumber splits a quantity as written, "NUMBER UNIT" ("1.2 kA/m"),
+// into the text of its number ("1.2") and its unit ("kA/m"), at the first
+// character that cannot belong to the number. Every ParseX, and the
+// recipe's levels and rates, read a quantity so.
+func SplitNumber(s string) (num, unit string) {
+	end := numberEnd(s)
+	return s[:end], strings.TrimSpace(s[end:])
+}
+
+// Scale converts v, written in unit, to the SI unit of the quantity whose
+// symbol is sym, with the SI prefixes and other spellings ParseX accept
+// ("kA/m" for "A/m": ×1000, "mT" for "T": ÷1000, correctly rounded); ok
+// is false for a unit that is not one of sym's.
+func Scale(v float64, unit, sym string) (float64, bool) {
 	table := tables[sym]
 	if d, ok := table[unit]; ok {
-		return v * d.mul / d.div, nil
+		return v * d.mul / d.div, true
 	}
 	for p, f := range prefixes {
 		rest, ok := strings.CutPrefix(unit, p)
@@ -119,9 +136,9 @@ func parse(s, sym string) (float64, error) {
 		for i := 1; i < d.power; i++ {
 			mul, div = mul*f.mul, div*f.div
 		}
-		return v * d.mul * mul / (d.div * div), nil
+		return v * d.mul * mul / (d.div * div), true
 	}
-	return 0, fmt.Errorf("%q: unknown unit %q for a quantity in %s (known: %s)", s, unit, sym, known(table))
+	return 0, false
 }
 
 func known(t map[string]unitDef) string {
@@ -141,28 +158,19 @@ func sortStrings(a []string) {
 	}
 }
 
-// numberEnd returns the length of the leading floating-point literal of s.
+// numberEnd returns the length of the leading floating-point literal of s:
+// sign, digits and point, then an exponent when one follows. Without
+// digits (Inf and NaN spellings) the first word is taken, for ParseFloat to
+// reject or accept.
 func numberEnd(s string) int {
 	i := 0
 	if i < len(s) && (s[i] == '+' || s[i] == '-') {
 		i++
 	}
-	for i < len(s) && (s[i] >= '0' && s[i] <= '9' || s[i] == '.') {
+	for i < len(s) && (isDigit(s[i]) || s[i] == '.') {
 		i++
 	}
-	if i < len(s) && (s[i] == 'e' || s[i] == 'E') {
-		j := i + 1
-		if j < len(s) && (s[j] == '+' || s[j] == '-') {
-			j++
-		}
-		if j < len(s) && s[j] >= '0' && s[j] <= '9' {
-			for j < len(s) && s[j] >= '0' && s[j] <= '9' {
-				j++
-			}
-			i = j
-		}
-	}
-	// Inf and NaN spellings are left to ParseFloat to reject or accept.
+	i = exponentEnd(s, i)
 	if i == 0 || (i == 1 && (s[0] == '+' || s[0] == '-')) {
 		for i < len(s) && s[i] != ' ' {
 			i++
@@ -170,6 +178,27 @@ func numberEnd(s string) int {
 	}
 	return i
 }
+
+// exponentEnd returns the end of an exponent ("e-3") starting at i, or i
+// when none starts there (an "e" not followed by digits is not one).
+func exponentEnd(s string, i int) int {
+	if i >= len(s) || (s[i] != 'e' && s[i] != 'E') {
+		return i
+	}
+	j := i + 1
+	if j < len(s) && (s[j] == '+' || s[j] == '-') {
+		j++
+	}
+	if j >= len(s) || !isDigit(s[j]) {
+		return i
+	}
+	for j < len(s) && isDigit(s[j]) {
+		j++
+	}
+	return j
+}
+
+func isDigit(c byte) bool { return c >= '0' && c <= '9' }
 
 // ParseAmpere parses a current such as "2.5 A", "250 mA" or "2.5".
 func ParseAmpere(s string) (Ampere, error) { v, err := parse(s, SymAmpere); return Ampere(v), err }

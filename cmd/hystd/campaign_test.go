@@ -19,10 +19,12 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/config/configtest"
 	"hystd/acq/fixture/fixturetest"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/configs"
+	"hystd/drivers/instr"
 	"hystd/drivers/link"
 	"hystd/drivers/sim"
 )
@@ -195,17 +197,11 @@ func newCampaign(t *testing.T, seed uint64) *campaign {
 	if _, err := sim.MakeLinks(links, b.Ports()); err != nil {
 		t.Fatal(err)
 	}
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
+	ports := map[string]string{}
+	for _, role := range sim.LinkNames {
+		ports[role] = filepath.Join(links, role)
 	}
-	for i, role := range sim.LinkNames {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(filepath.Join(links, role)))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, ports)
 	ln, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)
@@ -383,7 +379,7 @@ var faultKinds = []struct {
 	weight float64
 }{{sim.FaultDrop, 0.35}, {sim.FaultDelay, 0.2}, {sim.FaultGarble, 0.35}, {sim.FaultError, 0.04}, {sim.FaultHangup, 0.03}, {sim.FaultTrip, 0.03}}
 
-var faultRoles = []string{sim.RoleSupply, sim.RoleIntegrator, sim.RoleFieldMeter, sim.RoleThermometer}
+var faultRoles = []string{instr.RoleSupply, instr.RoleIntegrator, instr.RoleFieldMeter, instr.RoleThermometer}
 
 func (c *campaign) randomFault(n int) sim.Fault {
 	x := c.rng.Float64()
@@ -398,7 +394,7 @@ func (c *campaign) randomFault(n int) sim.Fault {
 	f := sim.Fault{Kind: kind, Role: faultRoles[c.rng.IntN(len(faultRoles))]}
 	switch kind {
 	case sim.FaultTrip:
-		f.Role = sim.RoleSupply
+		f.Role = instr.RoleSupply
 	case sim.FaultDelay:
 		f.Delay = configs.Duration(600*time.Millisecond + time.Duration(c.rng.IntN(300))*time.Millisecond)
 	case sim.FaultError:
@@ -685,7 +681,7 @@ func (c *campaign) run(plan campaignPlan) {
 // trip_clear): *RST to the supply, once the winding has cooled. The daemon
 // is idle and holds no port between runs.
 func (c *campaign) clearTrip() {
-	f, err := os.OpenFile(c.bench.Ports()[sim.RoleSupply], os.O_RDWR, 0)
+	f, err := os.OpenFile(c.bench.Ports()[instr.RoleSupply], os.O_RDWR, 0)
 	if err != nil {
 		c.t.Fatal(err)
 	}

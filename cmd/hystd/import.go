@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
@@ -27,9 +28,7 @@ func init() { register(newImportCmd) }
 // recording (t, I, psi, optional B_probe, temp, phase) processed like a live
 // run's loops and stored as a run.
 func newImportCmd() *cobra.Command {
-	var dataDir, cfgPath, fixture, specimen, operator string
-	var asJSON bool
-	var calFiles []string
+	var o importFlags
 	c := &cobra.Command{
 		Use:   "import FILE.csv --fixture F --specimen S [--data DIR | --config FILE] [--json]",
 		Short: "Store a raw recording (t, I, psi) made elsewhere as a run, processed like a live one",
@@ -44,108 +43,145 @@ func newImportCmd() *cobra.Command {
 			"id of the config's specimens (its loops are then judged against the specimen's grade).\n" +
 			"--json prints one line per stored loop with analyze's keys.",
 		Args: cobra.ExactArgs(1),
-		RunE: func(cmd *cobra.Command, args []string) error {
-			if fixture == "" || specimen == "" {
-				return &exitError{code: exitUsage, err: errors.New("--fixture and --specimen are required")}
-			}
-			data, err := os.ReadFile(args[0])
-			if err != nil {
-				return err
-			}
-			var db string
-			var w func(record.Writer) record.Writer = func(x record.Writer) record.Writer { return x }
-			var fx config.Fixture
-			var sp config.Specimen
-			if cfgPath != "" {
-				cfg, err := daemon.Load(cfgPath)
-				if err != nil {
-					return err
-				}
-				db = cfg.Config.Store.Path
-				if lf, ok := cfg.Fixture(fixture); ok {
-					fx = lf.Fixture
-				} else if fx, err = config.LoadFixture(fixture); err != nil {
-					return fmt.Errorf("--fixture %s: not a fixture of %s, and %w", fixture, cfgPath, err)
-				}
-				if sp, err = cfg.Registry.Specimen(specimen); err != nil {
-					return fmt.Errorf("--specimen: %w", err)
-				}
-				gr, note := cfg.Registry.GradeOf(sp)
-				if note != "" {
-					fmt.Fprintln(cmd.ErrOrStderr(), "note:", note)
-				}
-				if gr != nil {
-					w = func(x record.Writer) record.Writer {
-						return grade.Writer{Writer: x, Grade: gr, Rule: cfg.Registry.Rule}
-					}
-				}
-			} else {
-				if fx, err = config.LoadFixture(fixture); err != nil {
-					return fmt.Errorf("--fixture: %w", err)
-				}
-				if sp, err = config.LoadSpecimen(specimen); err != nil {
-					return fmt.Errorf("--specimen: %w", err)
-				}
-				db = filepath.Join(dataDir, "hystd.db")
-			}
-			// Read and process before the store is touched: a bad file
-			// leaves no trace, not even an empty store.
-			var cals []calrec.Record
-			for _, f := range calFiles {
-				r, err := calrec.Load(f)
-				if err != nil {
-					return err
-				}
-				cals = append(cals, r)
-			}
-			p, err := imports.Prepare(imports.Options{File: args[0], Data: data, Fixture: fx, Specimen: sp,
-				Software: version, Operator: operator, Now: time.Now(), Calibrations: cals})
-			if err != nil {
-				return err
-			}
-			if cfgPath == "" {
-				if err := os.MkdirAll(dataDir, 0o755); err != nil && !errors.Is(err, fs.ErrExist) {
-					return err
-				}
-			}
-			ctx := cmd.Context()
-			st, err := store.Open(ctx, db)
-			if err != nil {
-				return err
-			}
-			defer st.Close()
-			if err := p.Store(ctx, w(st)); err != nil {
-				return err
-			}
-			run, loops := p.Run, p.Loops
-			out := cmd.OutOrStdout()
-			if asJSON {
-				for _, l := range loops {
-					b, err := json.Marshal(imports.Summary(l))
-					if err != nil {
-						return err
-					}
-					fmt.Fprintf(out, "%s\n", b)
-				}
-				return nil
-			}
-			fmt.Fprintf(out, "run %s: %s, %d loop(s), stored in %s\n", run.ID, run.RecipeText, len(loops), db)
-			for _, l := range loops {
-				fmt.Fprintf(out, "loop %d:\n", l.N)
-				for _, f := range l.Figures {
-					v, u := units.Rounded(f.Value, f.U)
-					fmt.Fprintf(out, "  %-12s %s ± %s %s (k = 2)\n", f.Name, v, u, f.Unit)
-				}
-			}
-			return nil
-		},
+		RunE: func(cmd *cobra.Command, args []string) error { return o.run(cmd, args[0]) },
 	}
-	c.Flags().StringVar(&dataDir, "data", "hystd-data", "folder holding hystd.db (created if missing)")
-	c.Flags().StringVar(&cfgPath, "config", "", "daemon config (kind: daemon): its store, fixtures and specimens, instead of --data")
-	c.Flags().StringVar(&fixture, "fixture", "", "fixture file, or a fixture name of --config")
-	c.Flags().StringVar(&specimen, "specimen", "", "specimen file, or a specimen id of --config")
-	c.Flags().StringVar(&operator, "operator", "", "who imported it, recorded with the run")
-	c.Flags().StringArrayVar(&calFiles, "calibration", nil, "calibration record (kind: calibration) of the recording's coil or instruments; repeatable")
-	c.Flags().BoolVar(&asJSON, "json", false, "print one JSON object per stored loop with the keys of analyze --json")
+	c.Flags().StringVar(&o.dataDir, "data", "hystd-data", "folder holding hystd.db (created if missing)")
+	c.Flags().StringVar(&o.cfgPath, "config", "", "daemon config (kind: daemon): its store, fixtures and specimens, instead of --data")
+	c.Flags().StringVar(&o.fixture, "fixture", "", "fixture file, or a fixture name of --config")
+	c.Flags().StringVar(&o.specimen, "specimen", "", "specimen file, or a specimen id of --config")
+	c.Flags().StringVar(&o.operator, "operator", "", "who imported it, recorded with the run")
+	c.Flags().StringArrayVar(&o.calFiles, "calibration", nil, "calibration record (kind: calibration) of the recording's coil or instruments; repeatable")
+	c.Flags().BoolVar(&o.asJSON, "json", false, "print one JSON object per stored loop with the keys of analyze --json")
 	return c
+}
+
+// importFlags are the flags of `hystd import`.
+type importFlags struct {
+	dataDir, cfgPath, fixture, specimen, operator string
+	asJSON                                        bool
+	calFiles                                      []string
+}
+
+// importTarget is where an import goes: the store, the writer wrapping it
+// (a grade's judge), the fixture and the specimen.
+type importTarget struct {
+	db string
+	w  func(record.Writer) record.Writer
+	fx config.Fixture
+	sp config.Specimen
+}
+
+func (o *importFlags) run(cmd *cobra.Command, file string) error {
+	if o.fixture == "" || o.specimen == "" {
+		return &exitError{code: exitUsage, err: errors.New("--fixture and --specimen are required")}
+	}
+	data, err := os.ReadFile(file)
+	if err != nil {
+		return err
+	}
+	var t importTarget
+	if o.cfgPath != "" {
+		t, err = o.fromConfig(cmd)
+	} else {
+		t, err = o.fromFiles()
+	}
+	if err != nil {
+		return err
+	}
+	// Read and process before the store is touched: a bad file
+	// leaves no trace, not even an empty store.
+	var cals []calrec.Record
+	for _, f := range o.calFiles {
+		r, err := calrec.Load(f)
+		if err != nil {
+			return err
+		}
+		cals = append(cals, r)
+	}
+	p, err := imports.Prepare(imports.Options{File: file, Data: data, Fixture: t.fx, Specimen: t.sp,
+		Software: version, Operator: o.operator, Now: time.Now(), Calibrations: cals})
+	if err != nil {
+		return err
+	}
+	if o.cfgPath == "" {
+		if err := os.MkdirAll(o.dataDir, 0o755); err != nil && !errors.Is(err, fs.ErrExist) {
+			return err
+		}
+	}
+	ctx := cmd.Context()
+	st, err := store.Open(ctx, t.db)
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	if err := p.Store(ctx, t.w(st)); err != nil {
+		return err
+	}
+	return o.print(cmd.OutOrStdout(), p.Run, p.Loops, t.db)
+}
+
+// fromConfig takes the store, fixture, specimen and grade from --config.
+func (o *importFlags) fromConfig(cmd *cobra.Command) (importTarget, error) {
+	t := importTarget{w: func(x record.Writer) record.Writer { return x }}
+	cfg, err := daemon.Load(o.cfgPath)
+	if err != nil {
+		return t, err
+	}
+	t.db = cfg.Config.Store.Path
+	if lf, ok := cfg.Fixture(o.fixture); ok {
+		t.fx = lf.Fixture
+	} else if t.fx, err = config.LoadFixture(o.fixture); err != nil {
+		return t, fmt.Errorf("--fixture %s: not a fixture of %s, and %w", o.fixture, o.cfgPath, err)
+	}
+	if t.sp, err = cfg.Registry.Specimen(o.specimen); err != nil {
+		return t, fmt.Errorf("--specimen: %w", err)
+	}
+	gr, note := cfg.Registry.GradeOf(t.sp)
+	if note != "" {
+		fmt.Fprintln(cmd.ErrOrStderr(), "note:", note)
+	}
+	if gr != nil {
+		t.w = func(x record.Writer) record.Writer {
+			return grade.Writer{Writer: x, Grade: gr, Rule: cfg.Registry.Rule}
+		}
+	}
+	return t, nil
+}
+
+// fromFiles takes the fixture and specimen files and the store in --data.
+func (o *importFlags) fromFiles() (importTarget, error) {
+	t := importTarget{w: func(x record.Writer) record.Writer { return x }}
+	var err error
+	if t.fx, err = config.LoadFixture(o.fixture); err != nil {
+		return t, fmt.Errorf("--fixture: %w", err)
+	}
+	if t.sp, err = config.LoadSpecimen(o.specimen); err != nil {
+		return t, fmt.Errorf("--specimen: %w", err)
+	}
+	t.db = filepath.Join(o.dataDir, "hystd.db")
+	return t, nil
+}
+
+// print lists the stored loops: their figures, or (--json) one line each
+// with analyze's keys.
+func (o *importFlags) print(out io.Writer, run record.Run, loops []record.Loop, db string) error {
+	if o.asJSON {
+		for _, l := range loops {
+			b, err := json.Marshal(imports.Summary(l))
+			if err != nil {
+				return err
+			}
+			fmt.Fprintf(out, "%s\n", b)
+		}
+		return nil
+	}
+	fmt.Fprintf(out, "run %s: %s, %d loop(s), stored in %s\n", run.ID, run.RecipeText, len(loops), db)
+	for _, l := range loops {
+		fmt.Fprintf(out, "loop %d:\n", l.N)
+		for _, f := range l.Figures {
+			v, u := units.Rounded(f.Value, f.U)
+			fmt.Fprintf(out, "  %-12s %s ± %s %s (k = 2)\n", f.Name, v, u, f.Unit)
+		}
+	}
+	return nil
 }

@@ -2,12 +2,13 @@ package main
 
 import (
 	"encoding/json"
-	"fmt"
-	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"hystd/acq/config/configtest"
+	"hystd/acq/imports/importstest"
 )
 
 // TestImportCommand imports a small raw recording built from the exact
@@ -17,7 +18,7 @@ import (
 func TestImportCommand(t *testing.T) {
 	dir := t.TempDir()
 	csv := filepath.Join(dir, "old.csv")
-	if err := os.WriteFile(csv, []byte(tanhRecording()), 0o644); err != nil {
+	if err := os.WriteFile(csv, []byte(importstest.CoarseTanh()), 0o644); err != nil {
 		t.Fatal(err)
 	}
 	out, err := runCLI("import", csv, "--fixture", "../../acq/imports/testdata/fixture-import.yaml",
@@ -56,38 +57,6 @@ func TestImportCommand(t *testing.T) {
 	}
 }
 
-// tanhRecording is the exact loop of acq/imports' tests, coarse: branches
-// B = 1.5 T·tanh((H ± 100 A/m)/50 A/m), H = N1·I/l with N1 = 100 and l =
-// 0.1 m (so I in mA equals H in A/m), ψ = N2·A·B with N2·A = 2.5e-3 m²,
-// plus a 20 µV integrator offset; holds at H = 0 of 100 samples each.
-func tanhRecording() string {
-	var b strings.Builder
-	b.WriteString("t (s),I (mA),psi (uV s)\n")
-	k := 0
-	row := func(h float64, dir float64) {
-		t := float64(k) * 0.01
-		k++
-		bb := 1.5 * math.Tanh((h+dir*100)/50)
-		fmt.Fprintf(&b, "%g,%g,%g\n", t, h, (2.5e-3*bb+20e-6*t)*1e6)
-	}
-	for range 100 {
-		row(0, 1)
-	}
-	seg := func(from, to, dir float64) {
-		for j := 1; j <= 400; j++ {
-			row(from+(to-from)*float64(j)/400, dir)
-		}
-	}
-	seg(0, -1000, 1)
-	seg(-1000, 1000, -1)
-	seg(1000, -1000, 1)
-	seg(-1000, 0, -1)
-	for range 100 {
-		row(0, -1)
-	}
-	return b.String()
-}
-
 // TestCheckCalibration: `hystd check` knows kind: calibration.
 func TestCheckCalibration(t *testing.T) {
 	if _, err := runCLI("check", "../../acq/calrec/testdata/integrator-ok.yaml"); err != nil {
@@ -103,22 +72,14 @@ func TestCheckCalibration(t *testing.T) {
 // config and the run goes into the config's store.
 func TestImportWithConfig(t *testing.T) {
 	dir := t.TempDir()
-	for _, f := range []string{"fixture-ring-bench.yaml", "specimen-ring-r17.yaml"} {
-		b, err := os.ReadFile(filepath.Join("../../configs", f))
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(filepath.Join(dir, f), b, 0o644); err != nil {
-			t.Fatal(err)
-		}
-	}
+	configtest.WriteRing(t, dir)
 	cfg := filepath.Join(dir, "d.yaml")
 	body := "kind: daemon\nstore: {path: " + filepath.Join(dir, "s.db") + "}\nfixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"
 	if err := os.WriteFile(cfg, []byte(body), 0o644); err != nil {
 		t.Fatal(err)
 	}
 	csv := filepath.Join(dir, "old.csv")
-	if err := os.WriteFile(csv, []byte(tanhRecording()), 0o644); err != nil {
+	if err := os.WriteFile(csv, []byte(importstest.CoarseTanh()), 0o644); err != nil {
 		t.Fatal(err)
 	}
 	out, err := runCLI("import", csv, "--config", cfg, "--fixture", "aldermoor-ring-2", "--specimen", filepath.Join(dir, "specimen-ring-r17.yaml"))

@@ -9,6 +9,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/config/configtest"
 	"hystd/acq/record"
 	"hystd/acq/store"
 	"hystd/acq/store/storetest"
@@ -38,15 +39,7 @@ func storeJudgedLoop(t *testing.T, dir string) {
 func daemonConfigFor(t *testing.T, db string) string {
 	t.Helper()
 	dir := t.TempDir()
-	for _, f := range []string{"fixture-ring-bench.yaml", "specimen-ring-r17.yaml"} {
-		b, err := os.ReadFile(filepath.Join("../../configs", f))
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := os.WriteFile(filepath.Join(dir, f), b, 0o644); err != nil {
-			t.Fatal(err)
-		}
-	}
+	configtest.WriteRing(t, dir)
 	p := filepath.Join(dir, "d.yaml")
 	body := "kind: daemon\nstore: {path: " + db + "}\nfixtures:\n  - {fixture: fixture-ring-bench.yaml, specimen: specimen-ring-r17.yaml}\n"
 	if err := os.WriteFile(p, []byte(body), 0o644); err != nil {

@@ -17,6 +17,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/config/configtest"
 	"hystd/drivers/clock"
 	"hystd/drivers/sim"
 )
@@ -55,17 +56,7 @@ func TestServeChildOnSimulatedTime(t *testing.T) {
 	addr := ln.Addr().String()
 	ln.Close()
 	dir := t.TempDir()
-	fx, err := os.ReadFile("../../configs/fixture-ring-bench.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i, role := range []string{"supply", "integrator", "field_meter", "thermometer"} {
-		fx = bytes.ReplaceAll(fx, []byte(fmt.Sprintf("/dev/ttyUSB%d", i)), []byte(b.Ports()[role]))
-	}
-	sp, err := os.ReadFile("../../configs/specimen-ring-r17.yaml")
-	if err != nil {
-		t.Fatal(err)
-	}
+	fx, sp := configtest.RingBytes(t, b.Ports())
 	const token = "child-test-token-0123456789abcdef"
 	files := map[string]string{
 		"fixture.yaml": string(fx), "specimen.yaml": string(sp), "token": token + "\n",

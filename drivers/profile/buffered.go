@@ -69,7 +69,7 @@ type Fetch struct {
 const DefaultClockAccuracy = 1e-4
 
 // bufferedUnit is the unit a role's buffer holds.
-var bufferedUnit = map[string]string{RoleIntegrator: "Wb", RoleFieldMeter: "T"}
+var bufferedUnit = map[string]string{instr.RoleIntegrator: "Wb", instr.RoleFieldMeter: "T"}
 
 // validateBuffered checks the buffered section (called from validate).
 func validateBuffered(p Profile, add func(string, string, ...any)) {

@@ -66,7 +66,7 @@
 // `daemon.Serve` and `daemon.RunOnce` take `hystd-fixture-<name>.lock` (`daemon.LockFixtures`). `LockDir()` is
 // `$HYSTD_LOCK_DIR`, else `/run/lock`, else `os.TempDir()`. Root is bound too (flock has no bypass; the serial
 // exclusive mode has one). Test binaries that start daemons set `HYSTD_LOCK_DIR` to a directory of their own in
-// `TestMain` (`acq/daemon`, `acq/api`: every test fixture has the same name); `link.Options.NoLock` exists for tools
+// `TestMain` (`fixturetest.RunWithLockDir`, used by `acq/daemon` and `acq/api`: every test fixture has the same name); `link.Options.NoLock` exists for tools
 // that must look at a held port.
 //
 // After a disconnect the profile device reconnects (backoff, USB identity resolved again, so a re-enumerated adapter is

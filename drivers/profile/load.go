@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 	"hystd/drivers/link"
 )
 
@@ -21,37 +22,29 @@ const maxHaltSteps = 100000
 // Kind is the value of the top-level kind key of every profile.
 const Kind = "instrument-profile"
 
-// Roles.
-const (
-	RoleSupply      = "supply"
-	RoleIntegrator  = "integrator"
-	RoleFieldMeter  = "field_meter"
-	RoleThermometer = "thermometer"
-)
-
 // roleOps lists, per role, the operations it may have; true marks the
 // required ones. Units are the SI unit each operation must declare ("" for
 // operations without a value).
 var roleOps = map[string]map[string]opRule{
-	RoleSupply: {
+	instr.RoleSupply: {
 		OpSetCurrent:  {required: true, unit: "A", numeric: true, set: true, ranged: true},
 		OpReadCurrent: {required: true, unit: "A", numeric: true},
 		OpReadVoltage: {required: true, unit: "V", numeric: true},
 		OpSetOutput:   {required: true, set: true, boolean: true},
 		OpReadStatus:  {parse: "int"},
 	},
-	RoleIntegrator: {
+	instr.RoleIntegrator: {
 		OpReset:        {required: true, set: true},
 		OpSetRange:     {unit: "Wb", numeric: true, set: true, ranged: true},
 		OpReadFlux:     {required: true, unit: "Wb", numeric: true},
 		OpReadOverload: {parse: "bool"},
 	},
-	RoleFieldMeter: {
+	instr.RoleFieldMeter: {
 		OpReadField: {required: true, unit: "T", numeric: true},
 		OpSetRange:  {unit: "T", numeric: true, set: true, ranged: true},
 		OpZero:      {set: true},
 	},
-	RoleThermometer: {
+	instr.RoleThermometer: {
 		OpReadTemperature: {required: true, unit: "°C", numeric: true},
 	},
 }
@@ -150,14 +143,30 @@ type errorf func(key, format string, args ...any) *configs.Error
 func validate(p Profile, ef errorf) error {
 	var es configs.Errors
 	add := func(key, format string, args ...any) { es = append(es, ef(key, format, args...)) }
+	validateHead(add, p)
+	validateCommands(add, p)
+	validateHalt(add, p)
+	if rules := roleOps[p.Role]; rules != nil {
+		validateOps(add, p, rules)
+	}
+	validateBuffered(p, add)
+	sort.SliceStable(es, func(i, j int) bool { return es[i].Line < es[j].Line })
+	return es.Err()
+}
+
+// adder reports one problem of a profile at its key.
+type adder = func(key, format string, args ...any)
+
+// validateHead checks what says which instrument it is and how to talk to
+// it: kind, name, role, serial line, terminators, timeout and identity.
+func validateHead(add adder, p Profile) {
 	if p.Kind != Kind {
 		add("kind", "want %q, got %q", Kind, p.Kind)
 	}
 	if !nameRE.MatchString(p.Name) {
 		add("name", "%q: want lower-case letters, digits and dashes", p.Name)
 	}
-	rules, ok := roleOps[p.Role]
-	if !ok {
+	if _, ok := roleOps[p.Role]; !ok {
 		add("role", "%q: want one of supply, integrator, field_meter, thermometer", p.Role)
 	}
 	if err := p.LineSettings().Check(); err != nil {
@@ -165,22 +174,28 @@ func validate(p Profile, ef errorf) error {
 			add("serial", "%s", e)
 		}
 	}
-	checkTerm := func(key, t string) {
-		switch {
-		case t == "":
-			add(key, "required, e.g. \"\\n\" or \"\\r\\n\"")
-		case len(t) > 4:
-			add(key, "%q: at most 4 bytes", t)
-		case strings.ContainsAny(t, "{}"):
-			add(key, "%q: must not contain braces", t)
-		}
-	}
-	checkTerm("terminators.write", p.Terminators.Write)
-	checkTerm("terminators.read", p.Terminators.Read)
+	checkTerm(add, "terminators.write", p.Terminators.Write)
+	checkTerm(add, "terminators.read", p.Terminators.Read)
 	checkDur(add, "timeout", p.Timeout, true)
 	if strings.TrimSpace(p.Identity) == "" {
 		add("identity", "required: a text the *IDN? reply must contain")
 	}
+}
+
+func checkTerm(add adder, key, t string) {
+	switch {
+	case t == "":
+		add(key, "required, e.g. \"\\n\" or \"\\r\\n\"")
+	case len(t) > 4:
+		add(key, "%q: at most 4 bytes", t)
+	case strings.ContainsAny(t, "{}"):
+		add(key, "%q: must not contain braces", t)
+	}
+}
+
+// validateCommands checks the fixed commands (init, safe state), the
+// resynchronization query and the error polling.
+func validateCommands(add adder, p Profile) {
 	for i, c := range p.Init {
 		if strings.TrimSpace(c) == "" || strings.Contains(c, "{}") {
 			add(fmt.Sprintf("init.%d", i), "%q: want a command without placeholder", c)
@@ -205,64 +220,69 @@ func validate(p Profile, ef errorf) error {
 			add("error_severity."+k, "%q: want warn or fail", v)
 		}
 	}
-	if p.TripClear != "" && p.Role != RoleSupply {
+}
+
+// validateHalt checks what only a supply has: how it is brought to zero
+// current (halt ramp, safe state) and how a trip is cleared.
+func validateHalt(add adder, p Profile) {
+	if p.TripClear != "" && p.Role != instr.RoleSupply {
 		add("trip_clear", "only for a supply")
 	}
-	if p.Role == RoleSupply {
-		if !(p.HaltSlew > 0) || math.IsInf(p.HaltSlew, 0) {
-			add("halt_slew_a_per_s", "required for a supply: a positive slew rate in A/s")
-		}
-		checkDur(add, "halt_period", p.HaltPeriod, true)
-		if per, err := time.ParseDuration(p.HaltPeriod); err == nil && per > 0 && p.HaltSlew > 0 {
-			if r := p.Operations[OpSetCurrent].Range; len(r) == 2 {
-				full := math.Max(math.Abs(r[0]), math.Abs(r[1]))
-				if steps := full / (p.HaltSlew * per.Seconds()); steps > maxHaltSteps {
-					add("halt_slew_a_per_s", "%g A/s in steps of %s needs %.0f steps to ramp down from %g A; at most %d", p.HaltSlew, p.HaltPeriod, steps, full, maxHaltSteps)
-				}
-			}
-		}
-		if len(p.SafeState) == 0 {
-			add("safe_state", "required for a supply: the commands that leave it at zero current, output off")
-		}
-	} else {
+	if p.Role != instr.RoleSupply {
 		if p.HaltSlew != 0 {
 			add("halt_slew_a_per_s", "only for a supply")
 		}
 		if p.HaltPeriod != "" {
 			add("halt_period", "only for a supply")
 		}
+		return
 	}
-	if rules != nil {
-		names := make([]string, 0, len(rules))
-		for n := range rules {
-			names = append(names, n)
-		}
-		sort.Strings(names)
-		for _, n := range names {
-			if _, ok := p.Operations[n]; !ok && rules[n].required {
-				add("operations", "%s: required for %s", n, article(p.Role))
+	if !(p.HaltSlew > 0) || math.IsInf(p.HaltSlew, 0) {
+		add("halt_slew_a_per_s", "required for a supply: a positive slew rate in A/s")
+	}
+	checkDur(add, "halt_period", p.HaltPeriod, true)
+	if per, err := time.ParseDuration(p.HaltPeriod); err == nil && per > 0 && p.HaltSlew > 0 {
+		if r := p.Operations[OpSetCurrent].Range; len(r) == 2 {
+			full := math.Max(math.Abs(r[0]), math.Abs(r[1]))
+			if steps := full / (p.HaltSlew * per.Seconds()); steps > maxHaltSteps {
+				add("halt_slew_a_per_s", "%g A/s in steps of %s needs %.0f steps to ramp down from %g A; at most %d", p.HaltSlew, p.HaltPeriod, steps, full, maxHaltSteps)
 			}
 		}
-		ops := make([]string, 0, len(p.Operations))
-		for n := range p.Operations {
-			ops = append(ops, n)
-		}
-		sort.Strings(ops)
-		for _, n := range ops {
-			r, ok := rules[n]
-			if !ok {
-				add("operations."+n, "not an operation of %s (known: %s)", article(p.Role), strings.Join(names, ", "))
-				continue
-			}
-			validateOp(add, "operations."+n, p.Operations[n], r)
-		}
 	}
-	validateBuffered(p, add)
-	sort.SliceStable(es, func(i, j int) bool { return es[i].Line < es[j].Line })
-	return es.Err()
+	if len(p.SafeState) == 0 {
+		add("safe_state", "required for a supply: the commands that leave it at zero current, output off")
+	}
 }
 
-func checkDur(add func(string, string, ...any), key, v string, required bool) {
+// validateOps checks that the role's required operations are given and
+// that each operation given is one of the role's, as its rule says.
+func validateOps(add adder, p Profile, rules map[string]opRule) {
+	names := make([]string, 0, len(rules))
+	for n := range rules {
+		names = append(names, n)
+	}
+	sort.Strings(names)
+	for _, n := range names {
+		if _, ok := p.Operations[n]; !ok && rules[n].required {
+			add("operations", "%s: required for %s", n, article(p.Role))
+		}
+	}
+	ops := make([]string, 0, len(p.Operations))
+	for n := range p.Operations {
+		ops = append(ops, n)
+	}
+	sort.Strings(ops)
+	for _, n := range ops {
+		r, ok := rules[n]
+		if !ok {
+			add("operations."+n, "not an operation of %s (known: %s)", article(p.Role), strings.Join(names, ", "))
+			continue
+		}
+		validateOp(add, "operations."+n, p.Operations[n], r)
+	}
+}
+
+func checkDur(add adder, key, v string, required bool) {
 	if v == "" {
 		if required {
 			add(key, "required: a duration with a unit, e.g. \"500ms\"")
@@ -279,19 +299,40 @@ func checkDur(add func(string, string, ...any), key, v string, required bool) {
 
 var verbRE = regexp.MustCompile(`%[-+ 0#]*[0-9]*(\.[0-9]+)?([eEfFgGd])`)
 
-func validateOp(add func(string, string, ...any), key string, o Operation, r opRule) {
+func validateOp(add adder, key string, o Operation, r opRule) {
+	if !validateOpForm(add, key, o, r) {
+		return
+	}
+	validateOpValue(add, key, o, r)
+	validateOpTiming(add, key, o)
+	if o.Set != "" {
+		validateSetting(add, key, o, r)
+		return
+	}
+	kind := validateParse(add, key, o, r)
+	validateReply(add, key, o, kind)
+}
+
+// validateOpForm checks that the operation is the setting or the query its
+// rule asks for; false when it is not (nothing more is checked).
+func validateOpForm(add adder, key string, o Operation, r opRule) bool {
 	if (o.Set == "") == (o.Query == "") {
 		add(key, "give exactly one of set and query")
-		return
+		return false
 	}
 	if r.set && o.Set == "" {
 		add(key, "must be a setting (set:)")
-		return
+		return false
 	}
 	if !r.set && o.Query == "" {
 		add(key, "must be a query (query:)")
-		return
+		return false
 	}
+	return true
+}
+
+// validateOpValue checks the value's unit, scale, range and accuracy.
+func validateOpValue(add adder, key string, o Operation, r opRule) {
 	if r.unit != "" && o.Unit != r.unit {
 		add(key+".unit", "%q: want %q", o.Unit, r.unit)
 	}
@@ -313,44 +354,56 @@ func validateOp(add func(string, string, ...any), key string, o Operation, r opR
 	if o.Accuracy != nil && (o.Accuracy.Gain < 0 || o.Accuracy.Offset < 0) {
 		add(key+".accuracy", "gain and offset must not be negative")
 	}
+}
+
+// validateOpTiming checks the settle time and the polling until done.
+func validateOpTiming(add adder, key string, o Operation) {
 	checkDur(add, key+".settle", o.Settle, false)
 	checkDur(add, key+".poll_period", o.PollPeriod, false)
 	checkDur(add, key+".poll_timeout", o.PollTimeout, false)
 	if (o.Poll == "") != (o.PollDone == "") {
 		add(key, "poll and poll_done go together")
 	}
-	if o.Set != "" {
-		n := strings.Count(o.Set, "{}")
-		switch {
-		case n > 1:
-			add(key+".set", "%q: at most one {}", o.Set)
-		case (r.numeric || r.boolean) && n == 0:
-			add(key+".set", "%q: needs {} where the value goes", o.Set)
-		case !r.numeric && !r.boolean && n == 1:
-			add(key+".set", "%q: this operation takes no value; remove {}", o.Set)
-		}
-		if o.Parse != "" {
-			add(key+".parse", "only for queries")
-		}
-		if r.boolean {
-			if o.Map["true"] == "" || o.Map["false"] == "" {
-				add(key+".map", "needs \"true\" and \"false\" entries")
-			}
-		} else if r.numeric {
-			if o.Format != "" {
-				if m := verbRE.FindAllString(o.Format, -1); len(m) != 1 || strings.Count(o.Format, "%") != 1 {
-					add(key+".format", "%q: want one number verb such as %%g, %%.6E, %%+.3f, %%d", o.Format)
-				}
-			}
-			for k := range o.Map {
-				if _, err := strconv.ParseFloat(k, 64); err != nil {
-					add(key+".map", "key %q: for a numeric setting the keys are the allowed values", k)
-				}
-			}
+}
+
+// validateSetting checks a setting: its placeholder, its map and its format.
+func validateSetting(add adder, key string, o Operation, r opRule) {
+	n := strings.Count(o.Set, "{}")
+	switch {
+	case n > 1:
+		add(key+".set", "%q: at most one {}", o.Set)
+	case (r.numeric || r.boolean) && n == 0:
+		add(key+".set", "%q: needs {} where the value goes", o.Set)
+	case !r.numeric && !r.boolean && n == 1:
+		add(key+".set", "%q: this operation takes no value; remove {}", o.Set)
+	}
+	if o.Parse != "" {
+		add(key+".parse", "only for queries")
+	}
+	if r.boolean {
+		if o.Map["true"] == "" || o.Map["false"] == "" {
+			add(key+".map", "needs \"true\" and \"false\" entries")
 		}
 		return
 	}
-	// A query.
+	if !r.numeric {
+		return
+	}
+	if o.Format != "" {
+		if m := verbRE.FindAllString(o.Format, -1); len(m) != 1 || strings.Count(o.Format, "%") != 1 {
+			add(key+".format", "%q: want one number verb such as %%g, %%.6E, %%+.3f, %%d", o.Format)
+		}
+	}
+	for k := range o.Map {
+		if _, err := strconv.ParseFloat(k, 64); err != nil {
+			add(key+".map", "key %q: for a numeric setting the keys are the allowed values", k)
+		}
+	}
+}
+
+// validateParse checks a query's parse: and returns its kind (number,
+// number-unit, field, bool, int, enum; as written when unknown).
+func validateParse(add adder, key string, o Operation, r opRule) string {
 	kind := o.Parse
 	if f, ok := strings.CutPrefix(o.Parse, "field:"); ok {
 		kind = "field"
@@ -375,6 +428,13 @@ func validateOp(add func(string, string, ...any), key string, o Operation, r opR
 	if r.parse != "" && kind != r.parse && kind != "" {
 		add(key+".parse", "%q: want %s", o.Parse, r.parse)
 	}
+	return kind
+}
+
+// validateReply checks the keys that say how a query's reply of the given
+// parse kind is read: map, suffixes, separator, bits; and that it has no
+// format (a setting's).
+func validateReply(add adder, key string, o Operation, kind string) {
 	if kind == "bool" && o.Map != nil {
 		for k, v := range o.Map {
 			if v != "true" && v != "false" {
@@ -397,21 +457,27 @@ func validateOp(add func(string, string, ...any), key string, o Operation, r opR
 	if o.Separator != "" && kind != "field" {
 		add(key+".separator", "only for parse: field:N")
 	}
-	if len(o.Bits) > 0 {
-		if kind != "int" {
-			add(key+".bits", "only for parse: int")
-		}
-		for b, n := range o.Bits {
-			if !statusBits[b] {
-				add(key+".bits", "%q: want compliance, overtemp, trip or output", b)
-			}
-			if n < 0 || n > 62 {
-				add(key+".bits", "%q: bit %d out of 0..62", b, n)
-			}
-		}
-	}
+	validateBits(add, key, o, kind)
 	if o.Format != "" {
 		add(key+".format", "only for settings")
+	}
+}
+
+// validateBits checks the status bits of an int reply.
+func validateBits(add adder, key string, o Operation, kind string) {
+	if len(o.Bits) == 0 {
+		return
+	}
+	if kind != "int" {
+		add(key+".bits", "only for parse: int")
+	}
+	for b, n := range o.Bits {
+		if !statusBits[b] {
+			add(key+".bits", "%q: want compliance, overtemp, trip or output", b)
+		}
+		if n < 0 || n > 62 {
+			add(key+".bits", "%q: bit %d out of 0..62", b, n)
+		}
 	}
 }
 
@@ -435,7 +501,7 @@ func normalize(p Profile) Profile {
 	if p.ErrorPoll == "" {
 		p.ErrorPoll = "1s"
 	}
-	if p.Role == RoleSupply && p.TripClear == "" {
+	if p.Role == instr.RoleSupply && p.TripClear == "" {
 		p.TripClear = "remove the cause, then clear the trip at the supply (its front panel or its reset command) before the next run"
 	}
 	ops := make(map[string]Operation, len(p.Operations))
@@ -491,11 +557,11 @@ func (p Profile) AccuracyOf(op string) (a Accuracy, ok bool) {
 // when the profile gives none.
 func (p Profile) ReadAccuracy() (a Accuracy, ok bool) {
 	switch p.Role {
-	case RoleSupply:
+	case instr.RoleSupply:
 		return p.AccuracyOf(OpReadCurrent)
-	case RoleIntegrator:
+	case instr.RoleIntegrator:
 		return p.AccuracyOf(OpReadFlux)
-	case RoleFieldMeter:
+	case instr.RoleFieldMeter:
 		return p.AccuracyOf(OpReadField)
 	}
 	return Accuracy{}, false

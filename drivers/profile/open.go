@@ -60,20 +60,20 @@ func OpenProfile(ctx context.Context, p Profile, s Spec, o Options) (instr.Resou
 	}
 	var r instr.Resource
 	switch p.Role {
-	case RoleSupply:
+	case instr.RoleSupply:
 		var d *Device
-		d, err = attach(ctx, RoleSupply, p, conn, o)
+		d, err = attach(ctx, instr.RoleSupply, p, conn, o)
 		switch {
 		case err == nil:
 			r = &Supply{Device: d}
 		case d != nil && errors.Is(err, ErrIdentity):
 			err = haltUnidentified(ctx, &Supply{Device: d}, err)
 		}
-	case RoleIntegrator:
+	case instr.RoleIntegrator:
 		r, err = NewIntegrator(ctx, p, conn, o)
-	case RoleFieldMeter:
+	case instr.RoleFieldMeter:
 		r, err = NewFieldMeter(ctx, p, conn, o)
-	case RoleThermometer:
+	case instr.RoleThermometer:
 		r, err = NewThermometer(ctx, p, conn, o)
 	}
 	if err != nil {
@@ -106,17 +106,17 @@ func openAs[T instr.Resource](ctx context.Context, role string, s Spec, o Option
 
 // OpenSupply opens a supply from a spec (see Open).
 func OpenSupply(ctx context.Context, s Spec, o Options) (instr.Supply, error) {
-	return openAs[instr.Supply](ctx, RoleSupply, s, o)
+	return openAs[instr.Supply](ctx, instr.RoleSupply, s, o)
 }
 
 // OpenIntegrator opens an integrator from a spec (see Open).
 func OpenIntegrator(ctx context.Context, s Spec, o Options) (instr.Integrator, error) {
-	return openAs[instr.Integrator](ctx, RoleIntegrator, s, o)
+	return openAs[instr.Integrator](ctx, instr.RoleIntegrator, s, o)
 }
 
 // OpenFieldMeter opens a field meter from a spec (see Open).
 func OpenFieldMeter(ctx context.Context, s Spec, o Options) (instr.FieldMeter, error) {
-	return openAs[instr.FieldMeter](ctx, RoleFieldMeter, s, o)
+	return openAs[instr.FieldMeter](ctx, instr.RoleFieldMeter, s, o)
 }
 
 // haltUnidentified brings a supply that answers but fails identification to

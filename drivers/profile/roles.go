@@ -52,7 +52,7 @@ func attach(ctx context.Context, role string, p Profile, port Port, o Options) (
 // fails, the port stays the caller's to close. p is validated again (a
 // profile built in code gets the same checks as one loaded from a file).
 func NewSupply(ctx context.Context, p Profile, port Port, o Options) (*Supply, error) {
-	d, err := attach(ctx, RoleSupply, p, port, o)
+	d, err := attach(ctx, instr.RoleSupply, p, port, o)
 	if err != nil {
 		return nil, err
 	}
@@ -61,7 +61,7 @@ func NewSupply(ctx context.Context, p Profile, port Port, o Options) (*Supply, e
 
 // NewIntegrator is NewSupply for an integrator.
 func NewIntegrator(ctx context.Context, p Profile, port Port, o Options) (*Integrator, error) {
-	d, err := attach(ctx, RoleIntegrator, p, port, o)
+	d, err := attach(ctx, instr.RoleIntegrator, p, port, o)
 	if err != nil {
 		return nil, err
 	}
@@ -70,7 +70,7 @@ func NewIntegrator(ctx context.Context, p Profile, port Port, o Options) (*Integ
 
 // NewFieldMeter is NewSupply for a field meter.
 func NewFieldMeter(ctx context.Context, p Profile, port Port, o Options) (*FieldMeter, error) {
-	d, err := attach(ctx, RoleFieldMeter, p, port, o)
+	d, err := attach(ctx, instr.RoleFieldMeter, p, port, o)
 	if err != nil {
 		return nil, err
 	}
@@ -79,7 +79,7 @@ func NewFieldMeter(ctx context.Context, p Profile, port Port, o Options) (*Field
 
 // NewThermometer is NewSupply for a thermometer.
 func NewThermometer(ctx context.Context, p Profile, port Port, o Options) (*Thermometer, error) {
-	d, err := attach(ctx, RoleThermometer, p, port, o)
+	d, err := attach(ctx, instr.RoleThermometer, p, port, o)
 	if err != nil {
 		return nil, err
 	}

@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"hystd/calib/units"
+	"hystd/drivers/instr"
 )
 
 func num(t *testing.T, s string) float64 {
@@ -72,7 +73,7 @@ func TestCommonsAndErrorQueue(t *testing.T) {
 // (Ampère's law on the mean path π·(D+d)/2, IEC 60404-4), voltage R·I.
 func TestSupplyFollowsPort(t *testing.T) {
 	b, clk := startBench(t, quiet(t))
-	c := dial(t, b.Ports()[RoleSupply])
+	c := dial(t, b.Ports()[instr.RoleSupply])
 	c.write("SOUR:CURR 2.0")
 	c.write("OUTP ON")
 	if r := c.query("SYST:ERR?"); r != `0,"No error"` {
@@ -125,7 +126,7 @@ func TestSupplyFollowsPort(t *testing.T) {
 func TestSensorsFollowTruth(t *testing.T) {
 	b, clk := startBench(t, quiet(t))
 	p := b.Ports()
-	sup, integ, fm, th := dial(t, p[RoleSupply]), dial(t, p[RoleIntegrator]), dial(t, p[RoleFieldMeter]), dial(t, p[RoleThermometer])
+	sup, integ, fm, th := dial(t, p[instr.RoleSupply]), dial(t, p[instr.RoleIntegrator]), dial(t, p[instr.RoleFieldMeter]), dial(t, p[instr.RoleThermometer])
 	integ.write("INT:RES")
 	sup.write("SOUR:CURR 1.5")
 	sup.write("OUTP ON")

@@ -5,6 +5,7 @@ import (
 	"strconv"
 	"strings"
 
+	"hystd/drivers/instr"
 	"hystd/drivers/profile"
 	"hystd/drivers/scpi"
 )
@@ -21,7 +22,7 @@ import (
 // interpolated linearly between the two physics steps around that instant,
 // with its own noise. The engine does not know clockDrift: it estimates
 // the rate from two clock readings (buffered.clock), as on a real bench.
-var clockDrift = map[string]float64{RoleIntegrator: 40e-6, RoleFieldMeter: -25e-6}
+var clockDrift = map[string]float64{instr.RoleIntegrator: 40e-6, instr.RoleFieldMeter: -25e-6}
 
 // clockOffset is where an instrument's clock stood when the bench started.
 func clockOffset(serial int) float64 { return 3600 + 97.25*float64(serial) }
@@ -86,7 +87,7 @@ func bufferedMatchers(p profile.Profile) []matcher {
 // reading is the instrument's noise-free reading of its physics now, or
 // with the noise of one draw; ok is false for a field beyond range.
 func (b *Bench) reading(in *instrument, noise float64) (float64, bool) {
-	if in.role == RoleIntegrator {
+	if in.role == instr.RoleIntegrator {
 		return b.rig.ReadFlux(noise), true
 	}
 	return b.rig.ReadField(noise)

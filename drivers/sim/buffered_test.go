@@ -36,7 +36,7 @@ func openBuffered(t *testing.T, role string) (*Bench, *clock.Manual, instr.Suppl
 		t.Cleanup(func() { r.Close() })
 		return r
 	}
-	sup := open(RoleSupply).(instr.Supply)
+	sup := open(instr.RoleSupply).(instr.Supply)
 	return b, clk, sup, open(role).(instr.Buffered)
 }
 
@@ -48,7 +48,7 @@ func openBuffered(t *testing.T, role string) (*Bench, *clock.Manual, instr.Suppl
 // this relation.
 func TestBufferedFieldMeterSamplesTruth(t *testing.T) {
 	ctx := context.Background()
-	b, clk, sup, fm := openBuffered(t, RoleFieldMeter)
+	b, clk, sup, fm := openBuffered(t, instr.RoleFieldMeter)
 	if !fm.CanBuffer() || !fm.HasBufferClock() {
 		t.Fatal("sim-fieldmeter: want a buffered section with a clock")
 	}
@@ -125,7 +125,7 @@ func truthAt(t *testing.T, hist []Truth, sec float64) float64 {
 
 func TestBufferedFaults(t *testing.T) {
 	ctx := context.Background()
-	b, clk, _, in := openBuffered(t, RoleIntegrator)
+	b, clk, _, in := openBuffered(t, instr.RoleIntegrator)
 	plan := instr.BufferPlan{Period: time.Millisecond, Count: 100}
 	arm := func() {
 		t.Helper()
@@ -135,7 +135,7 @@ func TestBufferedFaults(t *testing.T) {
 	}
 	// A lost trigger: the acquisition never completes.
 	arm()
-	if err := b.Inject(Fault{Role: RoleIntegrator, Kind: FaultNoTrigger}); err != nil {
+	if err := b.Inject(Fault{Role: instr.RoleIntegrator, Kind: FaultNoTrigger}); err != nil {
 		t.Fatal(err)
 	}
 	if _, _, err := in.TriggerBuffer(ctx); err != nil {
@@ -147,7 +147,7 @@ func TestBufferedFaults(t *testing.T) {
 	}
 	// A short buffer: fewer values than programmed is an error, not values.
 	arm()
-	if err := b.Inject(Fault{Role: RoleIntegrator, Kind: FaultShortBuffer}); err != nil {
+	if err := b.Inject(Fault{Role: instr.RoleIntegrator, Kind: FaultShortBuffer}); err != nil {
 		t.Fatal(err)
 	}
 	if _, _, err := in.TriggerBuffer(ctx); err != nil {
@@ -166,7 +166,7 @@ func TestBufferedFaults(t *testing.T) {
 		t.Fatalf("fetch after the faults: %d values, %v", len(vs), err)
 	}
 	// A fault kind only for a timed acquisition, on the supply: refused.
-	if err := b.Inject(Fault{Role: RoleSupply, Kind: FaultNoTrigger}); err == nil {
+	if err := b.Inject(Fault{Role: instr.RoleSupply, Kind: FaultNoTrigger}); err == nil {
 		t.Fatal("no_trigger on the supply accepted")
 	}
 }
@@ -174,7 +174,7 @@ func TestBufferedFaults(t *testing.T) {
 // A profile without a buffered section says so when asked to buffer.
 func TestBufferedUnsupported(t *testing.T) {
 	ctx := context.Background()
-	_, _, sup, _ := openBuffered(t, RoleIntegrator)
+	_, _, sup, _ := openBuffered(t, instr.RoleIntegrator)
 	d, ok := sup.(instr.Buffered)
 	if !ok || d.CanBuffer() {
 		t.Fatalf("the supply profile: want the Buffered methods and CanBuffer false")

@@ -9,31 +9,24 @@ import (
 	"strings"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 	"hystd/drivers/profile"
 	"hystd/drivers/sim/physics"
 )
 
-// Roles the bench can serve, as named in fixtures and profiles.
-const (
-	RoleSupply      = "supply"
-	RoleIntegrator  = "integrator"
-	RoleFieldMeter  = "field_meter"
-	RoleThermometer = "thermometer"
-)
-
 var defaultProfiles = map[string]string{
-	RoleSupply:      "sim-supply",
-	RoleIntegrator:  "sim-integrator",
-	RoleFieldMeter:  "sim-fieldmeter",
-	RoleThermometer: "sim-thermometer",
+	instr.RoleSupply:      "sim-supply",
+	instr.RoleIntegrator:  "sim-integrator",
+	instr.RoleFieldMeter:  "sim-fieldmeter",
+	instr.RoleThermometer: "sim-thermometer",
 }
 
 // simulated lists, per role, the profile operations the bench implements.
 var simulated = map[string][]string{
-	RoleSupply:      {profile.OpSetCurrent, profile.OpReadCurrent, profile.OpReadVoltage, profile.OpSetOutput, profile.OpReadStatus},
-	RoleIntegrator:  {profile.OpReset, profile.OpSetRange, profile.OpReadFlux, profile.OpReadOverload},
-	RoleFieldMeter:  {profile.OpReadField, profile.OpSetRange, profile.OpZero},
-	RoleThermometer: {profile.OpReadTemperature},
+	instr.RoleSupply:      {profile.OpSetCurrent, profile.OpReadCurrent, profile.OpReadVoltage, profile.OpSetOutput, profile.OpReadStatus},
+	instr.RoleIntegrator:  {profile.OpReset, profile.OpSetRange, profile.OpReadFlux, profile.OpReadOverload},
+	instr.RoleFieldMeter:  {profile.OpReadField, profile.OpSetRange, profile.OpZero},
+	instr.RoleThermometer: {profile.OpReadTemperature},
 }
 
 // Config is a bench file (kind: bench): which instruments are served with
@@ -243,7 +236,7 @@ func (f Fault) check(instruments map[string]InstrumentConfig) error {
 			return fmt.Errorf("delay: must be > 0 for kind delay")
 		}
 	case FaultTrip:
-		if f.Role != RoleSupply {
+		if f.Role != instr.RoleSupply {
 			return fmt.Errorf("kind: trip is a supply fault, not %s", f.Role)
 		}
 	case FaultNoTrigger, FaultShortBuffer:

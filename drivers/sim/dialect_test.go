@@ -3,6 +3,7 @@ package sim
 import (
 	"bytes"
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 	"math"
 	"os"
 	"strings"
@@ -25,7 +26,7 @@ func TestServesAnyProfile(t *testing.T) {
 	}
 	cfg = withoutNoise(cfg)
 	b, clk := startBench(t, cfg)
-	c := dial(t, b.Ports()[RoleSupply])
+	c := dial(t, b.Ports()[instr.RoleSupply])
 	ask := func(cmd string) string {
 		t.Helper()
 		if err := c.send(cmd + "\r"); err != nil { // with the "\n" of send: CR LF
@@ -71,7 +72,7 @@ func TestServesAnyProfile(t *testing.T) {
 // bench's own slave fd stays open) does not stop the instrument.
 func TestKeepsServingAfterClientLeaves(t *testing.T) {
 	b, _ := startBench(t, demoBench(t))
-	path := b.Ports()[RoleIntegrator]
+	path := b.Ports()[instr.RoleIntegrator]
 	for i := 0; i < 3; i++ {
 		c := dial(t, path)
 		if id := c.query("*IDN?"); len(fields(id)) != 4 {
@@ -100,7 +101,7 @@ func BenchmarkQueryRoundTrip(b *testing.B) {
 		b.Fatal(err)
 	}
 	defer bench.Close()
-	c := dial(b, bench.Ports()[RoleIntegrator])
+	c := dial(b, bench.Ports()[instr.RoleIntegrator])
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		clk.Advance(time.Millisecond)

@@ -23,8 +23,8 @@ func benchWith(t *testing.T, role, name string) Config {
 	if err != nil {
 		t.Fatal(err)
 	}
-	old := map[string]string{RoleSupply: "supply:      {profile: sim-supply}", RoleIntegrator: "integrator:  {profile: sim-integrator}",
-		RoleFieldMeter: "field_meter: {profile: sim-fieldmeter}", RoleThermometer: "thermometer: {profile: sim-thermometer}"}[role]
+	old := map[string]string{instr.RoleSupply: "supply:      {profile: sim-supply}", instr.RoleIntegrator: "integrator:  {profile: sim-integrator}",
+		instr.RoleFieldMeter: "field_meter: {profile: sim-fieldmeter}", instr.RoleThermometer: "thermometer: {profile: sim-thermometer}"}[role]
 	data = bytes.Replace(data, []byte(old), []byte(role+": {profile: "+name+"}"), 1)
 	c, err := ParseBench("bench-"+name+".yaml", data)
 	if err != nil {
@@ -145,8 +145,8 @@ func TestFaultsThroughProfileDrivers(t *testing.T) {
 	}
 	t.Run("overrange reading", func(t *testing.T) {
 		b, clk := startBench(t, quiet(t))
-		fm := open(t, b, clk, RoleFieldMeter).(instr.FieldMeter)
-		sup := open(t, b, clk, RoleSupply).(instr.Supply)
+		fm := open(t, b, clk, instr.RoleFieldMeter).(instr.FieldMeter)
+		sup := open(t, b, clk, instr.RoleSupply).(instr.Supply)
 		if err := fm.SetRange(ctx, 0.01); err != nil {
 			t.Fatal(err)
 		}
@@ -164,7 +164,7 @@ func TestFaultsThroughProfileDrivers(t *testing.T) {
 		// Command 1 is *IDN?, 2 the error-queue read before init, 3 the init
 		// *CLS with its error-queue read: the 5th line is the first reading.
 		b, clk := startBench(t, faultBench(t, "  - {role: thermometer, kind: drop, after_commands: 5}\n"))
-		th := open(t, b, clk, RoleThermometer).(instr.Thermometer)
+		th := open(t, b, clk, instr.RoleThermometer).(instr.Thermometer)
 		_, err := th.ReadTemperature(ctx)
 		var oe *profile.OpError
 		if !errors.Is(err, link.ErrTimeout) || !errors.As(err, &oe) {
@@ -176,7 +176,7 @@ func TestFaultsThroughProfileDrivers(t *testing.T) {
 	})
 	t.Run("trip", func(t *testing.T) {
 		b, clk := startBench(t, faultBench(t, "  - {role: supply, kind: trip, at: 2s}\n"))
-		sup := open(t, b, clk, RoleSupply).(instr.Supply)
+		sup := open(t, b, clk, instr.RoleSupply).(instr.Supply)
 		sup.SetOutput(ctx, true)
 		if err := sup.SetCurrent(ctx, 2); err != nil {
 			t.Fatal(err)

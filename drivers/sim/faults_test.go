@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 	"hystd/drivers/link"
 	"hystd/drivers/scpi"
 )
@@ -49,7 +50,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 	ctx := context.Background()
 	t.Run("drop is a timeout", func(t *testing.T) {
 		b, _ := startBench(t, faultBench(t, "  - {role: thermometer, kind: drop, after_commands: 2}\n"))
-		_, c := driver(t, b, RoleThermometer)
+		_, c := driver(t, b, instr.RoleThermometer)
 		if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); err != nil {
 			t.Fatalf("1st query: %v", err)
 		}
@@ -63,7 +64,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 	})
 	t.Run("garble is a parse error", func(t *testing.T) {
 		b, _ := startBench(t, faultBench(t, "  - {role: field_meter, kind: garble, after_commands: 1}\n"))
-		_, c := driver(t, b, RoleFieldMeter)
+		_, c := driver(t, b, instr.RoleFieldMeter)
 		_, err := c.QueryNumber(ctx, "MEAS:FIEL?")
 		var pe *scpi.ParseError
 		if !errors.As(err, &pe) {
@@ -75,7 +76,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 	})
 	t.Run("delay is a timeout, then the late reply is discarded", func(t *testing.T) {
 		b, clk := startBench(t, faultBench(t, "  - {role: thermometer, kind: delay, delay: 5s, after_commands: 1}\n"))
-		_, c := driver(t, b, RoleThermometer)
+		_, c := driver(t, b, instr.RoleThermometer)
 		_, err := c.QueryNumber(ctx, "MEAS:TEMP?")
 		if !errors.Is(err, link.ErrTimeout) {
 			t.Fatalf("delayed reply: err = %v, want link.ErrTimeout", err)
@@ -86,7 +87,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 		clk.Advance(5 * time.Second)
 		// State, not time: the late reply is out once the line neither
 		// holds it nor is busy writing it.
-		th := b.insts[RoleThermometer]
+		th := b.insts[instr.RoleThermometer]
 		for k := 0; ; k++ {
 			b.mu.Lock()
 			out := !th.holding && !th.busy
@@ -109,7 +110,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 			t.Skip("hanging up a pty (TIOCVHANGUP) needs CAP_SYS_ADMIN; run as root, as CI does")
 		}
 		b, clk := startBench(t, faultBench(t, "  - {role: integrator, kind: hangup, at: 1s}\n"))
-		conn, c := driver(t, b, RoleIntegrator)
+		conn, c := driver(t, b, instr.RoleIntegrator)
 		if _, err := c.Identify(ctx); err != nil {
 			t.Fatal(err)
 		}
@@ -134,7 +135,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 	})
 	t.Run("error is an instrument error", func(t *testing.T) {
 		b, clk := startBench(t, faultBench(t, "  - {role: field_meter, kind: error, at: 1s, code: -310, message: \"System error;probe \\\"B\\\"\"}\n"))
-		_, c := driver(t, b, RoleFieldMeter)
+		_, c := driver(t, b, instr.RoleFieldMeter)
 		if err := c.Set(ctx, "FIEL:RANG 1.0E-01"); err != nil {
 			t.Fatal(err)
 		}
@@ -147,7 +148,7 @@ func TestFaultsSeenAsTypedErrors(t *testing.T) {
 	})
 	t.Run("trip shows in the status register and refuses output", func(t *testing.T) {
 		b, clk := startBench(t, faultBench(t, "  - {role: supply, kind: trip, at: 1s}\n"))
-		_, c := driver(t, b, RoleSupply)
+		_, c := driver(t, b, instr.RoleSupply)
 		for _, cmd := range []string{"SOUR:CURR 1.0", "OUTP ON"} {
 			if err := c.Set(ctx, cmd); err != nil {
 				t.Fatal(err)
@@ -183,7 +184,7 @@ func TestRandomFaultsFollowTheSeed(t *testing.T) {
 	ctx := context.Background()
 	pattern := func() string {
 		b, _ := startBench(t, faultBench(t, "  - {role: thermometer, kind: garble, probability: 0.3}\n"))
-		_, c := driver(t, b, RoleThermometer)
+		_, c := driver(t, b, instr.RoleThermometer)
 		var s strings.Builder
 		for i := 0; i < 30; i++ {
 			if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); err != nil {
@@ -218,7 +219,7 @@ func TestLateReplyInSimulatedTime(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { b.Close() })
-	_, c := driver(t, b, RoleThermometer)
+	_, c := driver(t, b, instr.RoleThermometer)
 	t0 := clk.Now()
 	if _, err := c.QueryNumber(ctx, "MEAS:TEMP?"); !errors.Is(err, link.ErrTimeout) {
 		t.Fatalf("delayed reply: err = %v, want link.ErrTimeout", err)

@@ -13,6 +13,7 @@ import (
 	"math/rand/v2"
 
 	"hystd/drivers/clock"
+	"hystd/drivers/instr"
 	"hystd/drivers/profile"
 )
 
@@ -309,13 +310,13 @@ func (b *Bench) common(in *instrument, up string) (string, bool) {
 func (b *Bench) reset(in *instrument) {
 	r := b.rig
 	switch in.role {
-	case RoleSupply:
+	case instr.RoleSupply:
 		r.Supply.Setpoint, r.Supply.Output = 0, false
 		r.Supply.ClearTrip()
-	case RoleIntegrator:
+	case instr.RoleIntegrator:
 		r.Integrator.Range = r.P.Integrator.RangeWb
 		r.ResetIntegrator()
-	case RoleFieldMeter:
+	case instr.RoleFieldMeter:
 		r.FieldMeter.Range = r.P.FieldMeter.RangeT
 	}
 }
@@ -344,7 +345,7 @@ func (b *Bench) set(in *instrument, name string, v value) *scpiError {
 		if !(v.Num > 0) {
 			return &errOutOfRange
 		}
-		if in.role == RoleIntegrator {
+		if in.role == instr.RoleIntegrator {
 			r.Integrator.Range = v.Num
 		} else {
 			r.FieldMeter.Range = v.Num

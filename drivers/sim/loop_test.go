@@ -43,8 +43,8 @@ func TestLoopThroughDrivers(t *testing.T) {
 		t.Cleanup(func() { r.Close() })
 		return r
 	}
-	sup := open(RoleSupply).(instr.Supply)
-	integ := open(RoleIntegrator).(instr.Integrator)
+	sup := open(instr.RoleSupply).(instr.Supply)
+	integ := open(instr.RoleIntegrator).(instr.Integrator)
 	const iMax, di = 2.0, 0.02 // A; 20 A/s at one step per ms
 	lm, area, n1, n2 := math.Pi*0.045, 50e-6, 200.0, 100.0
 	if err := sup.SetOutput(ctx, true); err != nil {

@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 )
 
 // TruthReport is the JSON body of GET /truth: the bench's ground truth as
@@ -118,7 +119,7 @@ func ListenLoopback(addr string) (net.Listener, error) {
 }
 
 // LinkNames are the stable link names MakeLinks creates, one per role.
-var LinkNames = []string{RoleSupply, RoleIntegrator, RoleFieldMeter, RoleThermometer}
+var LinkNames = []string{instr.RoleSupply, instr.RoleIntegrator, instr.RoleFieldMeter, instr.RoleThermometer}
 
 // MakeLinks creates (or replaces) dir/<role> as a symbolic link to each
 // role's pty, so that fixture files can name dir/supply and need no editing

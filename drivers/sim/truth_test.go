@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"hystd/configs"
+	"hystd/drivers/instr"
 )
 
 // realBench starts the demo bench on the wall clock (delays are real).
@@ -33,7 +34,7 @@ func TestStaleLineSurvivesReopen(t *testing.T) {
 		fault *Fault
 	}{
 		{"reply not read before close", nil},
-		{"reply sent after close", &Fault{Role: RoleFieldMeter, Kind: FaultDelay, Delay: configs.Duration(200 * time.Millisecond)}},
+		{"reply sent after close", &Fault{Role: instr.RoleFieldMeter, Kind: FaultDelay, Delay: configs.Duration(200 * time.Millisecond)}},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -43,13 +44,13 @@ func TestStaleLineSurvivesReopen(t *testing.T) {
 					t.Fatal(err)
 				}
 			}
-			c := dial(t, b.Ports()[RoleFieldMeter])
+			c := dial(t, b.Ports()[instr.RoleFieldMeter])
 			if err := c.send("MEAS:FIEL?"); err != nil {
 				t.Fatal(err)
 			}
 			c.port.Close()
 			time.Sleep(400 * time.Millisecond)
-			c2 := dial(t, b.Ports()[RoleFieldMeter])
+			c2 := dial(t, b.Ports()[instr.RoleFieldMeter])
 			l, err := c2.readLine(time.Second)
 			if err != nil || !strings.Contains(l, "E") {
 				t.Fatalf("the next opener found %q, %v; want the stale field reading", l, err)
@@ -64,19 +65,19 @@ func TestStaleLineSurvivesReopen(t *testing.T) {
 func TestInjectChecksFaults(t *testing.T) {
 	b := realBench(t)
 	for _, f := range []Fault{
-		{Role: RoleIntegrator, Kind: FaultTrip},
+		{Role: instr.RoleIntegrator, Kind: FaultTrip},
 		{Role: "oven", Kind: FaultDrop},
-		{Role: RoleSupply, Kind: "melt"},
-		{Role: RoleSupply, Kind: FaultDelay},
+		{Role: instr.RoleSupply, Kind: "melt"},
+		{Role: instr.RoleSupply, Kind: FaultDelay},
 	} {
 		if err := b.Inject(f); err == nil {
 			t.Errorf("%+v accepted", f)
 		}
 	}
-	if err := b.Inject(Fault{Role: RoleFieldMeter, Kind: FaultError, Code: -310, Message: "probe"}); err != nil {
+	if err := b.Inject(Fault{Role: instr.RoleFieldMeter, Kind: FaultError, Code: -310, Message: "probe"}); err != nil {
 		t.Fatal(err)
 	}
-	c := dial(t, b.Ports()[RoleFieldMeter])
+	c := dial(t, b.Ports()[instr.RoleFieldMeter])
 	if r := c.query("SYST:ERR?"); r != `-310,"probe"` {
 		t.Errorf("error queue after an injected error: %q", r)
 	}

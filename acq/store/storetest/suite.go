@@ -154,61 +154,60 @@ func SameLoop(got, want record.Loop) string {
 		return fmt.Sprintf("header: got %v %d %q %g %q %v rev %d, want %v %d %q %g %q %v rev %d", got.RunID, got.N, got.Kind, got.Amplitude,
 			got.AmpUnit, got.Started, got.Revision, want.RunID, want.N, want.Kind, want.Amplitude, want.AmpUnit, want.Started, want.Revision)
 	}
-	if len(got.Raw) != len(want.Raw) {
-		return fmt.Sprintf("raw: %d samples, want %d", len(got.Raw), len(want.Raw))
-	}
-	for i, w := range want.Raw {
-		g := got.Raw[i]
-		if g.T != w.T || g.TUnc != w.TUnc || g.DtI != w.DtI || g.DtB != w.DtB || g.Phase != w.Phase || !same(g.Setpoint, w.Setpoint) || !same(g.I, w.I) ||
-			!same(g.V, w.V) || !same(g.Psi, w.Psi) || !same(g.BProbe, w.BProbe) || !same(g.TempC, w.TempC) {
-			return fmt.Sprintf("raw %d: got %+v, want %+v", i, g, w)
-		}
-	}
-	if len(got.Points) != len(want.Points) {
-		return fmt.Sprintf("points: %d, want %d", len(got.Points), len(want.Points))
-	}
-	for i, w := range want.Points {
-		g := got.Points[i]
-		if g.T != w.T || !same(g.H, w.H) || !same(g.B, w.B) || !same(g.J, w.J) || g.Branch != w.Branch {
-			return fmt.Sprintf("point %d: got %+v, want %+v", i, g, w)
-		}
-	}
-	if d := sameDerived(got, want); d != "" {
+	if d := firstDiff("raw: %d samples, want %d", "raw", got.Raw, want.Raw, sameSample); d != "" {
 		return d
+	}
+	if d := firstDiff("points: %d, want %d", "point", got.Points, want.Points, samePoint); d != "" {
+		return d
+	}
+	return sameDerived(got, want)
+}
+
+func sameDerived(got, want record.Loop) string {
+	if d := firstDiff("figures: %d, want %d", "figure", got.Figures, want.Figures, sameFigure); d != "" {
+		return d
+	}
+	if d := firstDiff("corrections: %d, want %d", "correction", got.Corrections, want.Corrections, sameCorrection); d != "" {
+		return d
+	}
+	return firstDiff("verdicts: %d, want %d", "verdict", got.Verdicts, want.Verdicts, sameVerdict)
+}
+
+// firstDiff reports a difference in length (with the format count, given
+// both lengths) or the first element that differs (as "item N: got …,
+// want …"), or "".
+func firstDiff[T any](count, item string, got, want []T, eq func(g, w T) bool) string {
+	if len(got) != len(want) {
+		return fmt.Sprintf(count, len(got), len(want))
+	}
+	for i, w := range want {
+		if g := got[i]; !eq(g, w) {
+			return fmt.Sprintf("%s %d: got %+v, want %+v", item, i, g, w)
+		}
 	}
 	return ""
 }
 
-func sameDerived(got, want record.Loop) string {
-	if len(got.Figures) != len(want.Figures) {
-		return fmt.Sprintf("figures: %d, want %d", len(got.Figures), len(want.Figures))
-	}
-	for i, w := range want.Figures {
-		g := got.Figures[i]
-		if g.Name != w.Name || !same(g.Value, w.Value) || !same(g.U, w.U) || g.Unit != w.Unit || g.Note != w.Note {
-			return fmt.Sprintf("figure %d: got %+v, want %+v", i, g, w)
-		}
-	}
-	if len(got.Corrections) != len(want.Corrections) {
-		return fmt.Sprintf("corrections: %d, want %d", len(got.Corrections), len(want.Corrections))
-	}
-	for i, w := range want.Corrections {
-		g := got.Corrections[i]
-		if g.Name != w.Name || !same(g.Size, w.Size) || g.Unit != w.Unit || g.Note != w.Note {
-			return fmt.Sprintf("correction %d: got %+v, want %+v", i, g, w)
-		}
-	}
-	if len(got.Verdicts) != len(want.Verdicts) {
-		return fmt.Sprintf("verdicts: %d, want %d", len(got.Verdicts), len(want.Verdicts))
-	}
-	for i, w := range want.Verdicts {
-		g := got.Verdicts[i]
-		if g.Grade != w.Grade || g.Figure != w.Figure || !same(g.Value, w.Value) || !same(g.U, w.U) || !same(g.Min, w.Min) ||
-			!same(g.Max, w.Max) || g.Unit != w.Unit || g.Rule != w.Rule || g.Outcome != w.Outcome || g.Note != w.Note {
-			return fmt.Sprintf("verdict %d: got %+v, want %+v", i, g, w)
-		}
-	}
-	return ""
+func sameSample(g, w record.Sample) bool {
+	return g.T == w.T && g.TUnc == w.TUnc && g.DtI == w.DtI && g.DtB == w.DtB && g.Phase == w.Phase && same(g.Setpoint, w.Setpoint) &&
+		same(g.I, w.I) && same(g.V, w.V) && same(g.Psi, w.Psi) && same(g.BProbe, w.BProbe) && same(g.TempC, w.TempC)
+}
+
+func samePoint(g, w record.Point) bool {
+	return g.T == w.T && same(g.H, w.H) && same(g.B, w.B) && same(g.J, w.J) && g.Branch == w.Branch
+}
+
+func sameFigure(g, w record.Figure) bool {
+	return g.Name == w.Name && same(g.Value, w.Value) && same(g.U, w.U) && g.Unit == w.Unit && g.Note == w.Note
+}
+
+func sameCorrection(g, w record.Correction) bool {
+	return g.Name == w.Name && same(g.Size, w.Size) && g.Unit == w.Unit && g.Note == w.Note
+}
+
+func sameVerdict(g, w record.Verdict) bool {
+	return g.Grade == w.Grade && g.Figure == w.Figure && same(g.Value, w.Value) && same(g.U, w.U) && same(g.Min, w.Min) &&
+		same(g.Max, w.Max) && g.Unit == w.Unit && g.Rule == w.Rule && g.Outcome == w.Outcome && g.Note == w.Note
 }
 
 func testRunRoundTrip(t *testing.T, b Backend) {
