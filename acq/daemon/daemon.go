@@ -51,6 +51,9 @@ type Opened struct {
 	Process     engine.Processor
 	// Close releases the ports; it does not halt (the engine has done that).
 	Close func() error
+	// Notes say what the open met on the way (an attempt that failed and
+	// was tried again): recorded as the run's warn events.
+	Notes []string
 }
 
 // Opener opens a fixture's instruments for one run with the specimen mounted.
@@ -488,6 +491,9 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 		run = j.plan.End(ctx, st, reason)
 		err = &engine.Stop{State: st, Reason: run.Reason}
 	default:
+		for _, n := range op.Notes {
+			j.plan.Event(ctx, "warn", n)
+		}
 		if serr := j.plan.SetInstruments(op.Instruments, op.Process); serr != nil {
 			run = j.plan.End(ctx, record.Failed, serr.Error())
 			err = serr

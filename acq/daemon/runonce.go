@@ -154,13 +154,20 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}
 	defer op.Close()
 	p := &printer{out: o.Out}
-	run, err := engine.Run(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
+	plan, err := engine.Prepare(rctx, engine.Setup{Fixture: lf.Fixture, Specimen: lf.Specimen, Recipe: rc, Geometry: lf.Geometry,
 		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Clock: w.Clock,
 		Writer: grade.Writer{Writer: st, Grade: gr, Rule: cfg.Registry.Rule}, Process: op.Process,
 		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir, Operator: o.Operator})
 	var ref *engine.Refused
 	if errors.As(err, &ref) {
-		return run, err
+		return record.Run{}, err
+	}
+	var run record.Run
+	if err == nil {
+		for _, n := range op.Notes {
+			plan.Event(rctx, "warn", n)
+		}
+		run, err = plan.Execute(rctx)
 	}
 	fmt.Fprintf(o.Out, "run %s %s", run.ID, run.State)
 	if run.Reason != "" {

@@ -32,7 +32,7 @@ func FixtureOpenerClock(log *slog.Logger, clk clock.Clock) Opener {
 		for _, w := range warnings {
 			log.Warn(w, "fixture", fx.Name, "specimen", sp.ID)
 		}
-		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close}, nil
+		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close, Notes: o.Notes}, nil
 	}
 }
 

@@ -104,6 +104,10 @@ type Options struct {
 	Now func() time.Time
 	// ReconnectWithin bounds a reconnect after a disconnect (default 10 s).
 	ReconnectWithin time.Duration
+	// Carried are error-queue entries an earlier, failed open of the same
+	// instrument read (QueueEntries): the first PollErrors returns them,
+	// before what this open finds.
+	Carried []instr.InstrumentError
 }
 
 // Device is the part common to every role: the SCPI client on its port,
@@ -148,7 +152,7 @@ func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, e
 	if o.ReconnectWithin <= 0 {
 		o.ReconnectWithin = 10 * time.Second
 	}
-	d := &Device{p: p, port: port, o: o, ident: p.Identity}
+	d := &Device{p: p, port: port, o: o, ident: p.Identity, pending: append([]instr.InstrumentError(nil), o.Carried...)}
 	if o.Identity != "" {
 		d.ident = o.Identity
 	}
@@ -255,6 +259,13 @@ func (d *Device) ready(ctx context.Context) error {
 
 // Profile returns the (normalized) profile the device speaks.
 func (d *Device) Profile() Profile { return d.p }
+
+// LineBreaks returns how many exchanges broke off since the device was
+// opened (a reply lost, late or spoiled, or a call cut short: the line
+// is resynchronised before the next), without any I/O: for a run's
+// record, as the read that met the fault may have been retried unseen or
+// failed while the run was failing on another instrument.
+func (d *Device) LineBreaks() int64 { return d.c.Breaks() }
 
 // Reconnects returns how many times the port was lost and reconnected
 // since the device was opened, without any I/O: for a run's record, as the
@@ -622,8 +633,14 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 		// queue: kept for the next poll, with those found before.
 		// They are returned with the failure too (and kept): a caller
 		// that gives up on the line can still name them.
+		// The failure is named without them (they are returned, and
+		// would be named twice).
 		d.pending = out
 		d.keepDrained(err, "")
+		var de *scpi.DrainError
+		if errors.As(err, &de) {
+			err = de.Err
+		}
 		return append([]instr.InstrumentError(nil), d.pending...), d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
 	}
 	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {

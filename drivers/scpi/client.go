@@ -16,6 +16,7 @@ import (
 	"io"
 	"log/slog"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"hystd/drivers/instr"
@@ -77,6 +78,8 @@ type Client struct {
 	buf   []byte // bytes read beyond the last reply
 	stale bool   // an exchange broke off: a late reply may still arrive
 	rbuf  []byte
+	// breaks counts the exchanges that broke off (Breaks).
+	breaks atomic.Int64
 }
 
 // New returns a Client on s.
@@ -135,7 +138,7 @@ func (c *Client) Write(ctx context.Context, cmd string) error {
 		return err
 	}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		c.o.Log.Debug("scpi write failed", "instr", c.o.Name, "cmd", cmd, "err", err)
 		return fmt.Errorf("scpi %q: %w", cmd, err)
 	}
@@ -166,7 +169,7 @@ func (c *Client) QueryTimed(ctx context.Context, cmd string) (Reply, error) {
 	}
 	sent := c.o.Now()
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "err", err)
 		return Reply{}, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
@@ -204,7 +207,7 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 		return nil, err
 	}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		return nil, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
 	parent := ctx
@@ -223,7 +226,7 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 				for len(c.buf) < len(c.o.ReadTerm) && strings.HasPrefix(c.o.ReadTerm, string(c.buf)) {
 					if err := c.fill(ctx); err != nil {
 						if errors.Is(c.asTimeout(parent, err), link.ErrTimeout) {
-							c.stale = true
+							c.broke()
 							break
 						}
 						return nil, fmt.Errorf("scpi %q: %w", cmd, err)
@@ -235,11 +238,11 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 			return out, nil
 		}
 		if !errors.Is(err, ErrShortBlock) {
-			c.stale = true
+			c.broke()
 			return nil, fmt.Errorf("scpi %q: %w", cmd, err)
 		}
 		if len(c.buf) > MaxBlock+32 {
-			c.stale = true
+			c.broke()
 			return nil, fmt.Errorf("scpi %q: block longer than %d bytes", cmd, MaxBlock)
 		}
 		if err := c.fill(ctx); err != nil {
@@ -307,13 +310,13 @@ func (c *Client) QueryMatch(ctx context.Context, cmd string, accept func(string)
 	qctx, cancel := context.WithTimeout(ctx, c.o.SyncTimeout)
 	defer cancel()
 	if _, err := c.s.Write(qctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		return "", nil, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
 	for {
 		l, err := c.readLine(qctx)
 		if err != nil {
-			c.stale = true
+			c.broke()
 			if ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, link.ErrTimeout) {
 				err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: fmt.Errorf("no acceptable reply within %v: %w", c.o.SyncTimeout, err)}
 			}
@@ -389,7 +392,7 @@ func (c *Client) readLine(ctx context.Context) (string, error) {
 		if len(c.buf) > c.o.MaxReply {
 			partial := string(c.buf[:80])
 			c.buf = c.buf[:0]
-			c.stale = true
+			c.broke()
 			return partial, fmt.Errorf("reply longer than %d bytes without terminator %q", c.o.MaxReply, c.o.ReadTerm)
 		}
 		if err := c.fill(ctx); err != nil {
@@ -403,7 +406,7 @@ func (c *Client) fill(ctx context.Context) error {
 	n, err := c.s.Read(ctx, c.rbuf)
 	c.buf = append(c.buf, c.rbuf[:n]...)
 	if err != nil {
-		c.stale = true
+		c.broke()
 		if errors.Is(err, io.EOF) {
 			return fmt.Errorf("%w: %w", link.ErrDisconnected, err)
 		}
@@ -419,10 +422,24 @@ const DefaultQuiet = 20 * time.Millisecond
 // MarkStale records that the line cannot be trusted (a reply did not parse
 // for its query, the port was reopened, or a previous process may have left
 // replies on it): the next exchange resynchronises first.
-func (c *Client) MarkStale() { c.stale = true }
+func (c *Client) MarkStale() { c.broke() }
 
 // Stale reports whether the next exchange will resynchronise first.
 func (c *Client) Stale() bool { return c.stale }
+
+// Breaks returns how many times an exchange broke off and left the line
+// to be resynchronised before the next one (a reply lost, late or
+// spoiled, a write failed, or a call cut short by its context), counted
+// when it broke. Safe to call from any goroutine.
+func (c *Client) Breaks() int64 { return c.breaks.Load() }
+
+// broke records that an exchange broke off: the line is stale.
+func (c *Client) broke() {
+	if !c.stale {
+		c.breaks.Add(1)
+	}
+	c.stale = true
+}
 
 // Resync resynchronises the line now if it is stale (see MarkStale).
 func (c *Client) Resync(ctx context.Context) error { return c.resync(ctx) }
@@ -430,7 +447,7 @@ func (c *Client) Resync(ctx context.Context) error { return c.resync(ctx) }
 // Desync marks the line stale and returns err wrapped as ErrDesync, for a
 // reply that does not parse as the answer to cmd.
 func (c *Client) Desync(cmd string, err error) error {
-	c.stale = true
+	c.broke()
 	c.o.Log.Warn("scpi reply does not answer its query: line out of step, resynchronising", "instr", c.o.Name, "cmd", cmd, "err", err)
 	return fmt.Errorf("scpi %q: %w: %w", cmd, ErrDesync, err)
 }
@@ -526,7 +543,7 @@ func (c *Client) resync(ctx context.Context) error {
 }
 
 func (c *Client) resyncErr(ctx context.Context, err error) error {
-	c.stale = true
+	c.stale = true // still: the break that made it stale is counted
 	if ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, link.ErrTimeout) {
 		err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: err}
 	}
