@@ -223,7 +223,13 @@ func (d *Device) start(ctx context.Context) error {
 			}
 			d.o.Log.Warn("errors found in the instrument's queue when it was opened", "profile", d.p.Name, "err", ie)
 		case err != nil:
+			// The entries read are kept (the open's caller gets them with
+			// a *QueueError): the failure is named without them.
 			d.keepDrained(err, " (in the queue when the port was opened)")
+			var de *scpi.DrainError
+			if errors.As(err, &de) {
+				err = de.Err
+			}
 			return &OpError{Profile: d.p.Name, Op: "identify", Command: d.p.ErrorQuery, Err: err}
 		}
 	}

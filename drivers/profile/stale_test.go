@@ -155,6 +155,11 @@ func TestErrorReadBeforeSpoiledReplyKept(t *testing.T) {
 	if !errors.Is(err, scpi.ErrDesync) || len(errs) != 1 || errs[0].Code != -310 {
 		t.Fatalf("first poll: got %+v, %v; want scpi.ErrDesync with the -310 entry read before it", errs, err)
 	}
+	// The entry is returned (and kept): the failure does not name it as
+	// well, or a run names it twice (the campaign saw both in one run).
+	if strings.Contains(err.Error(), "campaign fault 7") {
+		t.Errorf("the failure %q names the entry it returns", err)
+	}
 	errs, err = f.PollErrors(context.Background())
 	if err != nil || len(errs) != 1 || errs[0].Code != -310 || errs[0].Msg != "campaign fault 7" {
 		t.Fatalf("second poll: got %+v, %v; want the -310 entry read before the spoiled reply", errs, err)
