@@ -58,7 +58,8 @@ import (
 // goes once the bench and the daemon share one.
 //
 // Figures of a long run are printed at the end (t.Log) and, with
-// HYSTD_CAMPAIGN_REPORT=FILE, written as JSON to FILE.
+// HYSTD_CAMPAIGN_REPORT=FILE, written as JSON to FILE. HYSTD_CAMPAIGN_LOGS=DIR
+// keeps the daemon child's logs (serve-NNN.log, one per start) in DIR.
 func TestCampaignFaultsAndKills(t *testing.T) {
 	if _, err := exec.LookPath("go"); err != nil {
 		t.Skip("the campaign builds hystd with the go command, which is not on PATH")
@@ -244,7 +245,11 @@ func newCampaign(t *testing.T, seed uint64) *campaign {
 // supply before it listens, so the truth must be safe at once.
 func (c *campaign) start(why string) {
 	t := c.t
-	logf := filepath.Join(c.dir, fmt.Sprintf("serve-%03d.log", len(c.logs)))
+	dir := c.dir
+	if d := os.Getenv("HYSTD_CAMPAIGN_LOGS"); d != "" {
+		dir = d // kept after the test, for a diagnosis
+	}
+	logf := filepath.Join(dir, fmt.Sprintf("serve-%03d.log", len(c.logs)))
 	f, err := os.Create(logf)
 	if err != nil {
 		t.Fatal(err)
@@ -568,6 +573,13 @@ func (c *campaign) run(plan campaignPlan) {
 			}
 		}
 		c.fig.States[string(r.State)]++
+		fired := map[string]int{}
+		for kind, n := range after {
+			if d := n - before[kind]; d > 0 {
+				fired[kind] = d
+			}
+		}
+		t.Logf("run %d %s: %s (killed %v) faults %v: %.300s", k, id, r.State, killed, fired, r.Reason)
 		// Killed under way: failed, interrupted; killed while still queued
 		// (the open not begun): aborted, never started.
 		if killed && !(r.State == record.Failed && strings.Contains(r.Reason, "interrupted")) &&

@@ -214,7 +214,11 @@ func (d *Device) start(ctx context.Context) error {
 	// (often *CLS) erases them.
 	if d.p.ErrorQuery != "" {
 		var ie *scpi.InstrumentError
-		switch err := d.c.DrainErrors(ctx, "(found at open)"); {
+		err := d.c.DrainErrors(ctx, "(found at open)")
+		// A late reply of the error query, left on the line (by a killed
+		// process, or an earlier attempt) and discarded by the flush.
+		d.pending = append(d.pending, d.salvaged(" (in the queue when the port was opened)")...)
+		switch {
 		case errors.As(err, &ie):
 			for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
 				if e.Code != 0 {
@@ -630,6 +634,9 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 	out := d.pending
 	d.pending = nil
 	err := d.c.DrainErrors(ctx, "(error poll)")
+	// Entries whose reply came late (discarded by a resync, here or since
+	// the last poll) are off the queue too.
+	out = append(out, d.salvaged("")...)
 	if err == nil {
 		return out, nil
 	}
@@ -656,6 +663,16 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg, Fail: d.p.Severity(e.Code) == SeverityFail})
 	}
 	return out, nil
+}
+
+// salvaged returns the error-queue entries the client found in late
+// replies (scpi.Client.Salvaged), with note after each message.
+func (d *Device) salvaged(note string) []instr.InstrumentError {
+	var out []instr.InstrumentError
+	for _, e := range d.c.Salvaged() {
+		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg + note, Fail: d.p.Severity(e.Code) == SeverityFail})
+	}
+	return out
 }
 
 // keepDrained adds to the pending errors the entries a failed drain read

@@ -165,3 +165,24 @@ func TestErrorReadBeforeSpoiledReplyKept(t *testing.T) {
 		t.Fatalf("second poll: got %+v, %v; want the -310 entry read before the spoiled reply", errs, err)
 	}
 }
+
+// A reply of the error query that comes late carries an entry the
+// instrument has already removed from its queue: the resync that discards
+// it keeps the entry, and the next poll returns it. The campaign found an
+// error the supply raised lost this way (seen only in the log's
+// "resynchronised … stale_lines").
+func TestLateErrorReplyKept(t *testing.T) {
+	r := newRig(t, simSupply,
+		ex{Send: "SYST:ERR?", Reply: `-315,"campaign fault 4000"`, Err: scpitest.Timeout},
+		simSupply.sync(),
+		simSupply.noErr,
+	)
+	s := r.supply(t)
+	if errs, err := s.PollErrors(context.Background()); err == nil || len(errs) != 0 {
+		t.Fatalf("first poll: got %+v, %v; want the timeout and nothing read", errs, err)
+	}
+	errs, err := s.PollErrors(context.Background())
+	if err != nil || len(errs) != 1 || errs[0].Code != -315 || errs[0].Msg != "campaign fault 4000" {
+		t.Fatalf("second poll: got %+v, %v; want the -315 entry whose reply came late", errs, err)
+	}
+}

@@ -80,6 +80,10 @@ type Client struct {
 	rbuf  []byte
 	// breaks counts the exchanges that broke off (Breaks).
 	breaks atomic.Int64
+	// salvaged are error-queue entries found among the stale input a
+	// resync discarded (a late reply to the error query: the instrument
+	// had already removed the entry from its queue), for Salvaged.
+	salvaged []QueueEntry
 }
 
 // New returns a Client on s.
@@ -328,6 +332,7 @@ func (c *Client) QueryMatch(ctx context.Context, cmd string, accept func(string)
 			}
 			return l, skipped, nil
 		}
+		c.salvage(l)
 		if len(skipped) < 16 {
 			skipped = append(skipped, l)
 		}
@@ -433,6 +438,31 @@ func (c *Client) Stale() bool { return c.stale }
 // when it broke. Safe to call from any goroutine.
 func (c *Client) Breaks() int64 { return c.breaks.Load() }
 
+// salvage keeps line when it is an error-queue entry (`code,"message"`,
+// code not 0) found among discarded stale input: a late reply to the
+// error query, whose entry the instrument has removed from its queue.
+func (c *Client) salvage(line string) {
+	if c.o.ErrorQuery == "" || !strings.Contains(line, `,"`) {
+		return
+	}
+	e, err := ParseQueueEntry(line)
+	if err != nil || e.Code == 0 {
+		return
+	}
+	c.salvaged = append(c.salvaged, e)
+	c.o.Log.Warn("scpi: an error-queue entry found in a late reply is kept", "instr", c.o.Name, "code", e.Code, "msg", e.Msg)
+}
+
+// Salvaged returns, and forgets, the error-queue entries found among
+// stale input that resyncs discarded (late replies to the error query):
+// the instrument removed them from its queue, so a caller that reports the
+// queue must report them too.
+func (c *Client) Salvaged() []QueueEntry {
+	out := c.salvaged
+	c.salvaged = nil
+	return out
+}
+
 // broke records that an exchange broke off: the line is stale.
 func (c *Client) broke() {
 	if !c.stale {
@@ -463,6 +493,12 @@ func (c *Client) Drain(ctx context.Context) (int, error) {
 
 func (c *Client) drain(ctx context.Context) (int, error) {
 	discarded := 0
+	var junk []byte
+	defer func() {
+		for _, l := range strings.Split(string(junk), c.o.ReadTerm) {
+			c.salvage(l)
+		}
+	}()
 	for {
 		if discarded > c.o.MaxReply {
 			return discarded, fmt.Errorf("scpi: the instrument keeps sending (%d bytes discarded while resynchronising)", discarded)
@@ -473,6 +509,9 @@ func (c *Client) drain(ctx context.Context) (int, error) {
 		discarded += n
 		if n > 0 {
 			c.o.Log.Debug("scpi discarded stale input", "instr", c.o.Name, "bytes", string(c.rbuf[:n]))
+			if len(junk)+n <= c.o.MaxReply {
+				junk = append(junk, c.rbuf[:n]...)
+			}
 		}
 		if err != nil {
 			if ctx.Err() != nil {
@@ -533,6 +572,7 @@ func (c *Client) resync(ctx context.Context) error {
 		if c.o.SyncReply(line) {
 			break
 		}
+		c.salvage(line)
 		if len(skipped) < 8 {
 			skipped = append(skipped, line)
 		}
