@@ -13,6 +13,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"regexp"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -115,14 +116,15 @@ type campaignFigures struct {
 	States           map[string]int `json:"states"`
 	FaultsByKind     map[string]int `json:"faults_by_kind"`
 	FaultsTotal      int            `json:"faults_total"`
-	FaultsInRuns     int            `json:"faults_in_runs"`              // fired while a run was under way, not killed
-	FaultsInvisible  int            `json:"faults_invisible"`            // of those, without evidence in the run (garble excepted)
-	GarbleInvisible  int            `json:"garble_invisible"`            // garbles with no evidence (a flipped letter in a message text parses)
-	FaultsKilledRuns int            `json:"faults_killed_runs"`          // fired in runs ended by kill -9 (not checked)
-	FaultsBetween    int            `json:"faults_between_runs"`         // fired after a run's ending: at halts, opens, start-ups
-	ErrorsCarried    int            `json:"errors_found_in_a_later_run"` // error faults fired after a run's last poll, named by the next run's open
-	TripsCarried     int            `json:"trips_named_by_a_later_run"`  // trips fired during a run's ending, named by the next run
-	NoEffect         int            `json:"hangups_outside_runs"`        // hangups before a run opened its ports or after its ending
+	FaultsInRuns     int            `json:"faults_in_runs"`                    // fired while a run was under way, not killed
+	FaultsInvisible  int            `json:"faults_invisible"`                  // of those, without evidence in the run (garble excepted)
+	GarbleInvisible  int            `json:"garble_invisible"`                  // garbles with no evidence (a flipped letter in a message text parses)
+	FaultsKilledRuns int            `json:"faults_killed_runs"`                // fired in runs ended by kill -9 (not checked)
+	FaultsBetween    int            `json:"faults_between_runs"`               // fired after a run's ending: at halts, opens, start-ups
+	ErrorsCarried    int            `json:"errors_found_in_a_later_run"`       // error faults fired after a run's last poll, named by the next run's open
+	ErrorsDestroyed  int            `json:"errors_destroyed_with_their_reply"` // named by no run: a drop or garble spoiled the reply that carried the entry (Bench.DestroyedErrors)
+	TripsCarried     int            `json:"trips_named_by_a_later_run"`        // trips fired during a run's ending, named by the next run
+	NoEffect         int            `json:"hangups_outside_runs"`              // hangups before a run opened its ports or after its ending
 	Kills            int            `json:"kills"`
 	Restarts         int            `json:"restarts"`
 	Loops            int            `json:"loops"`
@@ -627,6 +629,8 @@ func (c *campaign) run(plan campaignPlan) {
 				}
 			case pe.run == k || r.Started.IsZero():
 				still = append(still, pe) // for the next run that starts
+			case c.destroyed(pe.msg):
+				c.fig.ErrorsDestroyed++
 			default:
 				c.fig.FaultsInvisible++
 				c.invisible("run %d (%s %s): error %q fired in run %d and was named by neither run:\n%s", k, id, r.State, pe.msg, pe.run, text)
@@ -685,6 +689,10 @@ func (c *campaign) run(plan campaignPlan) {
 		}
 	}
 	for _, pe := range pendErrs {
+		if c.destroyed(pe.msg) {
+			c.fig.ErrorsDestroyed++
+			continue
+		}
 		c.fig.FaultsInvisible++
 		c.invisible("error %q fired in run %d and was named by no run up to the last", pe.msg, pe.run)
 	}
@@ -724,6 +732,14 @@ func (c *campaign) clearTrip() {
 		f.WriteString("*RST\n")
 	}
 	// The replies to nothing stay on the line: the next open discards them.
+}
+
+// destroyed reports whether the error with message msg was carried by a
+// reply that a drop or garble spoiled beyond reading (the bench's truth):
+// the instrument removed it from its queue and nobody can read it; what
+// a run can name is the lost reply, checked as that fault's evidence.
+func (c *campaign) destroyed(msg string) bool {
+	return slices.Contains(c.bench.DestroyedErrors(), msg)
 }
 
 // containsNear reports whether text holds msg with at most one character
