@@ -58,6 +58,9 @@ type Opened struct {
 	// due) for the run's events.
 	Calibrations      *calrec.Used
 	CalibrationEvents []calrec.Event
+	// Notes say what the open met on the way (an attempt that failed and
+	// was tried again): recorded as the run's warn events.
+	Notes []string
 }
 
 // Opener opens a fixture's instruments for one run with the specimen
@@ -512,6 +515,9 @@ func (d *Daemon) execute(fr *fixtureRunner, j *job) {
 		run = j.plan.End(ctx, st, reason)
 		err = &engine.Stop{State: st, Reason: run.Reason}
 	default:
+		for _, n := range op.Notes {
+			j.plan.Event(ctx, "warn", n)
+		}
 		if why := useCalibrations(ctx, j.plan, op, j.pastDue, d.deps.Clock.Now()); why != "" {
 			run = j.plan.End(ctx, record.Failed, why)
 			err = &engine.Stop{State: record.Failed, Reason: run.Reason}

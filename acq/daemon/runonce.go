@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -157,15 +158,21 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		Area: w.Area(lf.Fixture, lf.Specimen), Instruments: op.Instruments, Clock: w.Clock,
 		Writer: grade.Writer{Writer: st, Grade: gr, Rule: cfg.Registry.Rule}, Process: op.Process,
 		Live: p, Log: log, Software: w.Software, SpoolDir: cfg.Config.SpoolDir, Operator: o.Operator})
-	if err != nil {
+	var ref *engine.Refused
+	if errors.As(err, &ref) {
 		return record.Run{}, err
 	}
 	var run record.Run
-	if why := useCalibrations(rctx, plan, op, cfg.Config.CalibrationPastDue, w.Clock.Now()); why != "" {
-		run = plan.End(rctx, record.Failed, why)
-		err = &engine.Stop{State: record.Failed, Reason: run.Reason}
-	} else {
-		run, err = plan.Execute(rctx)
+	if err == nil {
+		for _, n := range op.Notes {
+			plan.Event(rctx, "warn", n)
+		}
+		if why := useCalibrations(rctx, plan, op, cfg.Config.CalibrationPastDue, w.Clock.Now()); why != "" {
+			run = plan.End(rctx, record.Failed, why)
+			err = &engine.Stop{State: record.Failed, Reason: run.Reason}
+		} else {
+			run, err = plan.Execute(rctx)
+		}
 	}
 	fmt.Fprintf(o.Out, "run %s %s", run.ID, run.State)
 	if run.Reason != "" {

@@ -40,7 +40,7 @@ func FixtureOpenerClock(log *slog.Logger, clk clock.Clock) Opener {
 		for _, w := range warnings {
 			log.Warn(w, "fixture", fx.Name, "specimen", sp.ID)
 		}
-		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close, Calibrations: used, CalibrationEvents: evs}, nil
+		return Opened{Instruments: o.Instruments, Process: proc, Close: o.Close, Calibrations: used, CalibrationEvents: evs, Notes: o.Notes}, nil
 	}
 }
 

@@ -63,7 +63,7 @@ type exec struct {
 	notes     []string             // added to the final reason
 	polled    map[string]time.Time // last error-queue poll, by role
 	tryRaw    *[]record.Sample     // not nil: a loop is a try of a peak search, kept here instead of stored
-	reconn    map[string]int64     // port reconnects by role when the run started
+	lines     map[string]lineCount // port reconnects and broken exchanges by role when the run started
 }
 
 func newExec(p *Plan) *exec {
@@ -123,6 +123,7 @@ func (x *exec) steps(ctx context.Context) error {
 		return err
 	}
 	x.smp = smp
+	x.lines = x.lineCounts()
 
 	// A supply found energised is brought to zero before anything else.
 	cctx, cancel := context.WithTimeout(ctx, x.comm)
@@ -160,7 +161,6 @@ func (x *exec) steps(ctx context.Context) error {
 	}
 	x.event(ctx, "warn", "%s", Caution(x.s.Fixture, peak))
 	x.identities(ctx)
-	x.reconn = x.reconnects()
 
 	cctx, cancel = context.WithTimeout(ctx, x.comm)
 	err = sup.SetCurrent(cctx, 0)
@@ -480,18 +480,6 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			x.event(ctx, "warn", "last error-queue poll after the ramp-down: %v", perr)
 		}
 	}
-	// A port lost and reconnected during the run is named, also when the
-	// operation that met the loss failed unseen (the run was already
-	// failing on another instrument).
-	if x.reconn != nil {
-		now := x.reconnects()
-		for _, m := range x.s.Instruments.Members() {
-			role := instr.RoleLabel(m.Role)
-			if n := now[role] - x.reconn[role]; n > 0 {
-				x.event(ctx, "warn", "the %s's port was lost (hang-up or unplug) and reconnected %d time(s) during the run", role, n)
-			}
-		}
-	}
 	// A trip while the run was failing for another reason is named too.
 	if x.start != (time.Time{}) && !strings.Contains(reason, "tripped") {
 		sctx, cancel := bg(ctx, x.comm)
@@ -500,6 +488,23 @@ func (x *exec) end(ctx context.Context, err error) (record.Run, error) {
 			state = record.Failed
 		}
 		cancel()
+	}
+	// A port lost and reconnected, or an exchange broken off, during the
+	// run (up to and with the ramp-down, the last poll and the trip
+	// check) is named, also
+	// when the operation that met it was retried unseen or failed while
+	// the run was already failing on another instrument.
+	if x.lines != nil {
+		now := x.lineCounts()
+		for _, m := range x.s.Instruments.Members() {
+			role := instr.RoleLabel(m.Role)
+			if n := now[role].reconnects - x.lines[role].reconnects; n > 0 {
+				x.event(ctx, "warn", "the %s's port was lost (hang-up or unplug) and reconnected %d time(s) during the run", role, n)
+			}
+			if n := now[role].breaks - x.lines[role].breaks; n > 0 {
+				x.event(ctx, "warn", "the %s's line broke off %d exchange(s) during the run (a reply lost, late or spoiled, or a call cut short); the line is resynchronised before the next", role, n)
+			}
+		}
 	}
 	if herr != nil {
 		state = record.Failed
@@ -640,15 +645,24 @@ func (x *exec) halt(ctx context.Context) error {
 	return err
 }
 
-// reconnects returns, by role, how many times each instrument that can
-// tell has lost and reconnected its port.
-func (x *exec) reconnects() map[string]int64 {
+// lineCount is what an instrument's driver counts of its line's troubles.
+type lineCount struct{ reconnects, breaks int64 }
+
+// lineCounts returns, by role, how many times each instrument that can
+// tell has lost and reconnected its port, and broken off an exchange.
+func (x *exec) lineCounts() map[string]lineCount {
 	type reconnector interface{ Reconnects() int64 }
-	out := map[string]int64{}
+	type breaker interface{ LineBreaks() int64 }
+	out := map[string]lineCount{}
 	for _, r := range x.s.Instruments.Members() {
+		var c lineCount
 		if d, ok := r.Dev.(reconnector); ok && d != nil {
-			out[instr.RoleLabel(r.Role)] = d.Reconnects()
+			c.reconnects = d.Reconnects()
 		}
+		if d, ok := r.Dev.(breaker); ok && d != nil {
+			c.breaks = d.LineBreaks()
+		}
+		out[instr.RoleLabel(r.Role)] = c
 	}
 	return out
 }

@@ -99,3 +99,47 @@ func TestReconnectNamedInEvents(t *testing.T) {
 		t.Errorf("%d events name the thermometer's reconnect, want 1", named)
 	}
 }
+
+// breakingThermometer counts broken exchanges, as profile.Device does;
+// one breaks inside its halt (during the ending).
+type breakingThermometer struct {
+	*enginetest.Thermometer
+	n *atomic.Int64
+}
+
+func (t breakingThermometer) LineBreaks() int64 { return t.n.Load() }
+func (t breakingThermometer) Halt(ctx context.Context) error {
+	t.n.Add(1)
+	return t.Thermometer.Halt(ctx)
+}
+
+// An exchange broken off during a run (a reply lost or late, whose read
+// was abandoned when the run failed on another instrument, or broken
+// inside the ramp-down) is named by the run's events: before, the
+// campaign found such faults only in the daemon's log. Breaks before the
+// run are not its own; one during the ending counts.
+func TestLineBreaksNamedInEvents(t *testing.T) {
+	r := newRig(t)
+	s := r.setup(t, twoLoops)
+	var n atomic.Int64
+	n.Store(3)
+	s.Instruments.Thermometer = breakingThermometer{r.therm, &n}
+	r.sup.OnRead = func(k int) {
+		if k == 40 {
+			n.Add(1)
+		}
+	}
+	run, err := Run(context.Background(), s)
+	if err != nil {
+		t.Fatalf("run %s: %v", run.State, err)
+	}
+	var named int
+	for _, e := range r.w.Events {
+		if strings.Contains(e.Text, "thermometer's line broke off 2 exchange(s)") && strings.Contains(e.Text, "resynchronised") {
+			named++
+		}
+	}
+	if named != 1 {
+		t.Errorf("%d events name the thermometer's 2 broken exchanges, want 1", named)
+	}
+}

@@ -78,7 +78,7 @@ func TestVMClusterPathTags(t *testing.T) {
 				}
 			}
 			for _, f := range p.FieldList() {
-				want[key(p.Name()+"_"+f.Key, labels, p.Time().UnixMilli())] = f.Value.(float64)
+				want[vmtest.Key(p.Name()+"_"+f.Key, labels, p.Time().UnixMilli())] = f.Value.(float64)
 			}
 		}
 	}

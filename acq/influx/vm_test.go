@@ -10,7 +10,6 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
-	"sort"
 	"strings"
 	"testing"
 	"time"
@@ -71,20 +70,8 @@ func demoRun(t *testing.T, st *store.Store, id string, start time.Time, loops, n
 	return r, ls
 }
 
-// key names one sample of one series: metric, labels, millisecond.
-func key(name string, labels map[string]string, ms int64) string {
-	var ks []string
-	for k, v := range labels {
-		if k != "__name__" {
-			ks = append(ks, k+"="+v)
-		}
-	}
-	sort.Strings(ks)
-	return fmt.Sprintf("%s{%s}@%d", name, strings.Join(ks, ","), ms)
-}
-
 // expected lists every field value the points of the loops carry, as the
-// server names them (measurement_field, tags as labels, ms timestamps).
+// server names them (vmtest.AddPoints).
 func expected(t *testing.T, r record.Run, loops []record.Loop) map[string]float64 {
 	t.Helper()
 	want := map[string]float64{}
@@ -93,18 +80,8 @@ func expected(t *testing.T, r record.Run, loops []record.Loop) map[string]float6
 		if err != nil {
 			t.Fatal(err)
 		}
-		for _, p := range pts {
-			labels := map[string]string{}
-			for _, tg := range p.TagList() {
-				labels[tg.Key] = tg.Value
-			}
-			for _, f := range p.FieldList() {
-				k := key(p.Name()+"_"+f.Key, labels, p.Time().UnixMilli())
-				if _, dup := want[k]; dup {
-					t.Fatalf("two points of the same series share a millisecond: %s", k)
-				}
-				want[k] = f.Value.(float64)
-			}
+		if err := vmtest.AddPoints(want, pts); err != nil {
+			t.Fatal(err)
 		}
 	}
 	return want
@@ -133,7 +110,7 @@ func checkOnce(t *testing.T, srv *vmtest.Server, runIDs []string, want map[strin
 	}
 	for _, s := range series {
 		for i, v := range s.Values {
-			k := key(s.Metric["__name__"], s.Metric, s.Timestamps[i])
+			k := vmtest.Key(s.Metric["__name__"], s.Metric, s.Timestamps[i])
 			seen[k]++
 			w, ok := want[k]
 			if !ok {

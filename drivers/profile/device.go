@@ -104,6 +104,10 @@ type Options struct {
 	Now func() time.Time
 	// ReconnectWithin bounds a reconnect after a disconnect (default 10 s).
 	ReconnectWithin time.Duration
+	// Carried are error-queue entries an earlier, failed open of the same
+	// instrument read (QueueEntries): the first PollErrors returns them,
+	// before what this open finds.
+	Carried []instr.InstrumentError
 }
 
 // Device is the part common to every role: the SCPI client on its port,
@@ -186,7 +190,7 @@ func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, e
 	if o.ReconnectWithin <= 0 {
 		o.ReconnectWithin = 10 * time.Second
 	}
-	d := &Device{p: p, port: port, o: o, ident: p.Identity}
+	d := &Device{p: p, port: port, o: o, ident: p.Identity, pending: append([]instr.InstrumentError(nil), o.Carried...)}
 	if o.Identity != "" {
 		d.ident = o.Identity
 	}
@@ -248,7 +252,11 @@ func (d *Device) start(ctx context.Context) error {
 	// (often *CLS) erases them.
 	if d.p.ErrorQuery != "" {
 		var ie *scpi.InstrumentError
-		switch err := d.c.DrainErrors(ctx, "(found at open)"); {
+		err := d.c.DrainErrors(ctx, "(found at open)")
+		// A late reply of the error query, left on the line (by a killed
+		// process, or an earlier attempt) and discarded by the flush.
+		d.pending = append(d.pending, d.salvaged(" (in the queue when the port was opened)")...)
+		switch {
 		case errors.As(err, &ie):
 			for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
 				if e.Code != 0 {
@@ -257,7 +265,13 @@ func (d *Device) start(ctx context.Context) error {
 			}
 			d.o.Log.Warn("errors found in the instrument's queue when it was opened", "profile", d.p.Name, "err", ie)
 		case err != nil:
+			// The entries read are kept (the open's caller gets them with
+			// a *QueueError): the failure is named without them.
 			d.keepDrained(err, " (in the queue when the port was opened)")
+			var de *scpi.DrainError
+			if errors.As(err, &de) {
+				err = de.Err
+			}
 			return &OpError{Profile: d.p.Name, Op: "identify", Command: d.p.ErrorQuery, Err: err}
 		}
 	}
@@ -293,6 +307,13 @@ func (d *Device) ready(ctx context.Context) error {
 
 // Profile returns the (normalized) profile the device speaks.
 func (d *Device) Profile() Profile { return d.p }
+
+// LineBreaks returns how many exchanges broke off since the device was
+// opened (a reply lost, late or spoiled, or a call cut short: the line
+// is resynchronised before the next), without any I/O: for a run's
+// record, as the read that met the fault may have been retried unseen or
+// failed while the run was failing on another instrument.
+func (d *Device) LineBreaks() int64 { return d.c.Breaks() }
 
 // Reconnects returns how many times the port was lost and reconnected
 // since the device was opened, without any I/O: for a run's record, as the
@@ -688,6 +709,9 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 	out := d.pending
 	d.pending = nil
 	err := d.c.DrainErrors(ctx, "(error poll)")
+	// Entries whose reply came late (discarded by a resync, here or since
+	// the last poll) are off the queue too.
+	out = append(out, d.salvaged("")...)
 	if err == nil {
 		return out, nil
 	}
@@ -697,8 +721,14 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 		// queue: kept for the next poll, with those found before.
 		// They are returned with the failure too (and kept): a caller
 		// that gives up on the line can still name them.
+		// The failure is named without them (they are returned, and
+		// would be named twice).
 		d.pending = out
 		d.keepDrained(err, "")
+		var de *scpi.DrainError
+		if errors.As(err, &de) {
+			err = de.Err
+		}
 		return append([]instr.InstrumentError(nil), d.pending...), d.fail(ctx, "poll_errors", d.p.ErrorQuery, err)
 	}
 	for _, e := range append([]scpi.QueueEntry{{Code: ie.Code, Msg: ie.Msg}}, ie.More...) {
@@ -708,6 +738,16 @@ func (d *Device) PollErrors(ctx context.Context) ([]instr.InstrumentError, error
 		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg, Fail: d.p.Severity(e.Code) == SeverityFail})
 	}
 	return out, nil
+}
+
+// salvaged returns the error-queue entries the client found in late
+// replies (scpi.Client.Salvaged), with note after each message.
+func (d *Device) salvaged(note string) []instr.InstrumentError {
+	var out []instr.InstrumentError
+	for _, e := range d.c.Salvaged() {
+		out = append(out, instr.InstrumentError{Code: e.Code, Msg: e.Msg + note, Fail: d.p.Severity(e.Code) == SeverityFail})
+	}
+	return out
 }
 
 // keepDrained adds to the pending errors the entries a failed drain read

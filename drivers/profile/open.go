@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"strings"
 
 	"hystd/drivers/instr"
 	"hystd/drivers/link"
@@ -59,22 +60,26 @@ func OpenProfile(ctx context.Context, p Profile, s Spec, o Options) (instr.Resou
 		return nil, fmt.Errorf("instrument with profile %s: %w", p.Name, err)
 	}
 	var r instr.Resource
-	switch p.Role {
-	case instr.RoleSupply:
-		var d *Device
-		d, err = attach(ctx, instr.RoleSupply, p, conn, o)
-		switch {
-		case err == nil:
+	d, err := attach(ctx, p.Role, p, conn, o)
+	switch {
+	case err == nil:
+		switch p.Role {
+		case instr.RoleSupply:
 			r = &Supply{Device: d}
-		case d != nil && errors.Is(err, ErrIdentity):
-			err = haltUnidentified(ctx, &Supply{Device: d}, err)
+		case instr.RoleIntegrator:
+			r = &Integrator{d}
+		case instr.RoleFieldMeter:
+			r = &FieldMeter{d}
+		case instr.RoleThermometer:
+			r = &Thermometer{d}
 		}
-	case instr.RoleIntegrator:
-		r, err = NewIntegrator(ctx, p, conn, o)
-	case instr.RoleFieldMeter:
-		r, err = NewFieldMeter(ctx, p, conn, o)
-	case instr.RoleThermometer:
-		r, err = NewThermometer(ctx, p, conn, o)
+	case d != nil && p.Role == instr.RoleSupply && errors.Is(err, ErrIdentity):
+		err = haltUnidentified(ctx, &Supply{Device: d}, err)
+	}
+	if err != nil && d != nil && len(d.pending) > 0 {
+		// Entries the failed open read are off the instrument's queue:
+		// they go with the error, for the caller to carry or name.
+		err = &QueueError{Err: err, Entries: d.pending}
 	}
 	if err != nil {
 		conn.Close()
@@ -117,6 +122,43 @@ func OpenIntegrator(ctx context.Context, s Spec, o Options) (instr.Integrator, e
 // OpenFieldMeter opens a field meter from a spec (see Open).
 func OpenFieldMeter(ctx context.Context, s Spec, o Options) (instr.FieldMeter, error) {
 	return openAs[instr.FieldMeter](ctx, instr.RoleFieldMeter, s, o)
+}
+
+// QueueError is an open that failed after it had read entries from the
+// instrument's error queue (and so removed them from it): unless the
+// caller carries them into its next attempt (Options.Carried) or names
+// them, they are lost. Its text names them. It unwraps to Err.
+type QueueError struct {
+	Err     error
+	Entries []instr.InstrumentError
+}
+
+func (e *QueueError) Error() string {
+	return fmt.Sprintf("%v (read from the error queue before the failure: %s)", e.Err, EntriesText(e.Entries))
+}
+
+func (e *QueueError) Unwrap() error { return e.Err }
+
+// QueueEntries returns the error-queue entries a failed open read
+// (*QueueError), or nil.
+func QueueEntries(err error) []instr.InstrumentError {
+	var qe *QueueError
+	if errors.As(err, &qe) {
+		return qe.Entries
+	}
+	return nil
+}
+
+// EntriesText lists error-queue entries as `-301 "message"; …`.
+func EntriesText(es []instr.InstrumentError) string {
+	var b strings.Builder
+	for i, e := range es {
+		if i > 0 {
+			b.WriteString("; ")
+		}
+		fmt.Fprintf(&b, "%d %q", e.Code, e.Msg)
+	}
+	return b.String()
 }
 
 // haltUnidentified brings a supply that answers but fails identification to

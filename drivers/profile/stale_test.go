@@ -155,8 +155,34 @@ func TestErrorReadBeforeSpoiledReplyKept(t *testing.T) {
 	if !errors.Is(err, scpi.ErrDesync) || len(errs) != 1 || errs[0].Code != -310 {
 		t.Fatalf("first poll: got %+v, %v; want scpi.ErrDesync with the -310 entry read before it", errs, err)
 	}
+	// The entry is returned (and kept): the failure does not name it as
+	// well, or a run names it twice (the campaign saw both in one run).
+	if strings.Contains(err.Error(), "campaign fault 7") {
+		t.Errorf("the failure %q names the entry it returns", err)
+	}
 	errs, err = f.PollErrors(context.Background())
 	if err != nil || len(errs) != 1 || errs[0].Code != -310 || errs[0].Msg != "campaign fault 7" {
 		t.Fatalf("second poll: got %+v, %v; want the -310 entry read before the spoiled reply", errs, err)
+	}
+}
+
+// A reply of the error query that comes late carries an entry the
+// instrument has already removed from its queue: the resync that discards
+// it keeps the entry, and the next poll returns it. The campaign found an
+// error the supply raised lost this way (seen only in the log's
+// "resynchronised … stale_lines").
+func TestLateErrorReplyKept(t *testing.T) {
+	r := newRig(t, simSupply,
+		ex{Send: "SYST:ERR?", Reply: `-315,"campaign fault 4000"`, Err: scpitest.Timeout},
+		simSupply.sync(),
+		simSupply.noErr,
+	)
+	s := r.supply(t)
+	if errs, err := s.PollErrors(context.Background()); err == nil || len(errs) != 0 {
+		t.Fatalf("first poll: got %+v, %v; want the timeout and nothing read", errs, err)
+	}
+	errs, err := s.PollErrors(context.Background())
+	if err != nil || len(errs) != 1 || errs[0].Code != -315 || errs[0].Msg != "campaign fault 4000" {
+		t.Fatalf("second poll: got %+v, %v; want the -315 entry whose reply came late", errs, err)
 	}
 }

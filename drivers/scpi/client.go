@@ -16,6 +16,7 @@ import (
 	"io"
 	"log/slog"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"hystd/drivers/instr"
@@ -78,6 +79,12 @@ type Client struct {
 	stale bool   // an exchange broke off: a late reply may still arrive
 	rbuf  []byte
 	asked *asked // a query sent by Ask whose reply QueryTimed has not returned
+	// breaks counts the exchanges that broke off (Breaks).
+	breaks atomic.Int64
+	// salvaged are error-queue entries found among the stale input a
+	// resync discarded (a late reply to the error query: the instrument
+	// had already removed the entry from its queue), for Salvaged.
+	salvaged []QueueEntry
 }
 
 // Poller is a Stream that can also look for input without blocking:
@@ -154,7 +161,7 @@ func (c *Client) Write(ctx context.Context, cmd string) error {
 		return err
 	}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		c.o.Log.Debug("scpi write failed", "instr", c.o.Name, "cmd", cmd, "err", err)
 		return fmt.Errorf("scpi %q: %w", cmd, err)
 	}
@@ -211,7 +218,7 @@ func (c *Client) Ask(ctx context.Context, cmd string) error {
 	}
 	a := &asked{cmd: cmd, sent: c.o.Now()}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "err", err)
 		return fmt.Errorf("scpi %q: %w", cmd, err)
 	}
@@ -249,7 +256,7 @@ func (c *Client) Await(ctx context.Context, wait time.Duration) bool {
 			return true
 		}
 		if !a.deadline.IsZero() && !time.Now().Before(a.deadline) {
-			c.stale = true
+			c.broke()
 			c.answered(a, string(c.buf), &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout,
 				Cause: fmt.Errorf("no complete reply within %v", c.o.Timeout)})
 			return true
@@ -303,7 +310,7 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 		return nil, err
 	}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		return nil, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
 	parent := ctx
@@ -322,7 +329,7 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 				for len(c.buf) < len(c.o.ReadTerm) && strings.HasPrefix(c.o.ReadTerm, string(c.buf)) {
 					if err := c.fill(ctx); err != nil {
 						if errors.Is(c.asTimeout(parent, err), link.ErrTimeout) {
-							c.stale = true
+							c.broke()
 							break
 						}
 						return nil, fmt.Errorf("scpi %q: %w", cmd, err)
@@ -334,11 +341,11 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 			return out, nil
 		}
 		if !errors.Is(err, ErrShortBlock) {
-			c.stale = true
+			c.broke()
 			return nil, fmt.Errorf("scpi %q: %w", cmd, err)
 		}
 		if len(c.buf) > MaxBlock+32 {
-			c.stale = true
+			c.broke()
 			return nil, fmt.Errorf("scpi %q: block longer than %d bytes", cmd, MaxBlock)
 		}
 		if err := c.fill(ctx); err != nil {
@@ -406,13 +413,13 @@ func (c *Client) QueryMatch(ctx context.Context, cmd string, accept func(string)
 	qctx, cancel := context.WithTimeout(ctx, c.o.SyncTimeout)
 	defer cancel()
 	if _, err := c.s.Write(qctx, []byte(cmd+c.o.WriteTerm)); err != nil {
-		c.stale = true
+		c.broke()
 		return "", nil, fmt.Errorf("scpi %q: %w", cmd, err)
 	}
 	for {
 		l, err := c.readLine(qctx)
 		if err != nil {
-			c.stale = true
+			c.broke()
 			if ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, link.ErrTimeout) {
 				err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: fmt.Errorf("no acceptable reply within %v: %w", c.o.SyncTimeout, err)}
 			}
@@ -424,6 +431,7 @@ func (c *Client) QueryMatch(ctx context.Context, cmd string, accept func(string)
 			}
 			return l, skipped, nil
 		}
+		c.salvage(l)
 		if len(skipped) < 16 {
 			skipped = append(skipped, l)
 		}
@@ -500,7 +508,7 @@ func (c *Client) takeLine() (line string, ok bool, err error) {
 	if len(c.buf) > c.o.MaxReply {
 		partial := string(c.buf[:80])
 		c.buf = c.buf[:0]
-		c.stale = true
+		c.broke()
 		return partial, false, fmt.Errorf("reply longer than %d bytes without terminator %q", c.o.MaxReply, c.o.ReadTerm)
 	}
 	return "", false, nil
@@ -515,7 +523,7 @@ func (c *Client) fill(ctx context.Context) error {
 func (c *Client) took(n int, err error) error {
 	c.buf = append(c.buf, c.rbuf[:n]...)
 	if err != nil {
-		c.stale = true
+		c.broke()
 		if errors.Is(err, io.EOF) {
 			return fmt.Errorf("%w: %w", link.ErrDisconnected, err)
 		}
@@ -531,10 +539,49 @@ const DefaultQuiet = 20 * time.Millisecond
 // MarkStale records that the line cannot be trusted (a reply did not parse
 // for its query, the port was reopened, or a previous process may have left
 // replies on it): the next exchange resynchronises first.
-func (c *Client) MarkStale() { c.stale = true }
+func (c *Client) MarkStale() { c.broke() }
 
 // Stale reports whether the next exchange will resynchronise first.
 func (c *Client) Stale() bool { return c.stale }
+
+// Breaks returns how many times an exchange broke off and left the line
+// to be resynchronised before the next one (a reply lost, late or
+// spoiled, a write failed, or a call cut short by its context), counted
+// when it broke. Safe to call from any goroutine.
+func (c *Client) Breaks() int64 { return c.breaks.Load() }
+
+// salvage keeps line when it is an error-queue entry (`code,"message"`,
+// code not 0) found among discarded stale input: a late reply to the
+// error query, whose entry the instrument has removed from its queue.
+func (c *Client) salvage(line string) {
+	if c.o.ErrorQuery == "" || !strings.Contains(line, `,"`) {
+		return
+	}
+	e, err := ParseQueueEntry(line)
+	if err != nil || e.Code == 0 {
+		return
+	}
+	c.salvaged = append(c.salvaged, e)
+	c.o.Log.Warn("scpi: an error-queue entry found in a late reply is kept", "instr", c.o.Name, "code", e.Code, "msg", e.Msg)
+}
+
+// Salvaged returns, and forgets, the error-queue entries found among
+// stale input that resyncs discarded (late replies to the error query):
+// the instrument removed them from its queue, so a caller that reports the
+// queue must report them too.
+func (c *Client) Salvaged() []QueueEntry {
+	out := c.salvaged
+	c.salvaged = nil
+	return out
+}
+
+// broke records that an exchange broke off: the line is stale.
+func (c *Client) broke() {
+	if !c.stale {
+		c.breaks.Add(1)
+	}
+	c.stale = true
+}
 
 // Resync resynchronises the line now if it is stale (see MarkStale).
 func (c *Client) Resync(ctx context.Context) error { return c.resync(ctx) }
@@ -542,7 +589,7 @@ func (c *Client) Resync(ctx context.Context) error { return c.resync(ctx) }
 // Desync marks the line stale and returns err wrapped as ErrDesync, for a
 // reply that does not parse as the answer to cmd.
 func (c *Client) Desync(cmd string, err error) error {
-	c.stale = true
+	c.broke()
 	c.o.Log.Warn("scpi reply does not answer its query: line out of step, resynchronising", "instr", c.o.Name, "cmd", cmd, "err", err)
 	return fmt.Errorf("scpi %q: %w: %w", cmd, ErrDesync, err)
 }
@@ -558,6 +605,12 @@ func (c *Client) Drain(ctx context.Context) (int, error) {
 
 func (c *Client) drain(ctx context.Context) (int, error) {
 	discarded := 0
+	var junk []byte
+	defer func() {
+		for _, l := range strings.Split(string(junk), c.o.ReadTerm) {
+			c.salvage(l)
+		}
+	}()
 	for {
 		if discarded > c.o.MaxReply {
 			return discarded, fmt.Errorf("scpi: the instrument keeps sending (%d bytes discarded while resynchronising)", discarded)
@@ -568,6 +621,9 @@ func (c *Client) drain(ctx context.Context) (int, error) {
 		discarded += n
 		if n > 0 {
 			c.o.Log.Debug("scpi discarded stale input", "instr", c.o.Name, "bytes", string(c.rbuf[:n]))
+			if len(junk)+n <= c.o.MaxReply {
+				junk = append(junk, c.rbuf[:n]...)
+			}
 		}
 		if err != nil {
 			if ctx.Err() != nil {
@@ -599,7 +655,7 @@ func (c *Client) resync(ctx context.Context) error {
 	if a := c.asked; a != nil { // abandoned: its reply may still come
 		c.asked = nil
 		if !a.done {
-			c.stale = true
+			c.broke()
 		}
 	}
 	if !c.stale {
@@ -634,6 +690,7 @@ func (c *Client) resync(ctx context.Context) error {
 		if c.o.SyncReply(line) {
 			break
 		}
+		c.salvage(line)
 		if len(skipped) < 8 {
 			skipped = append(skipped, line)
 		}
@@ -644,7 +701,7 @@ func (c *Client) resync(ctx context.Context) error {
 }
 
 func (c *Client) resyncErr(ctx context.Context, err error) error {
-	c.stale = true
+	c.stale = true // still: the break that made it stale is counted
 	if ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, link.ErrTimeout) {
 		err = &link.Error{Op: "read", Port: c.o.Name, Kind: link.ErrTimeout, Cause: err}
 	}

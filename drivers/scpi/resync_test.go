@@ -104,3 +104,48 @@ func TestQueryMatchSkipsStaleLines(t *testing.T) {
 		t.Fatalf("got %q %q %v", l, skipped, err)
 	}
 }
+
+// Every exchange that breaks off is counted once, when it breaks, whether
+// the reply timed out, did not parse, or the call was cut short by its own
+// context (a read abandoned when the run failed on another instrument): a
+// run names the count, so a fault whose call never reached anyone still
+// leaves a trace. A failed sync does not count again, and a good exchange
+// not at all.
+func TestBreaksCounted(t *testing.T) {
+	ctx := context.Background()
+	c := syncClient(t,
+		ex{Send: "MEAS:FIEL?", Err: scpitest.Timeout}, // 1: lost
+		ex{Send: "*IDN?", Reply: "7.0"},               // the sync fails: still 1
+		ex{Send: "*IDN?", Reply: "HYSTD-TEST,UNIT,1,1.0"},
+		ex{Send: "MEAS:FIEL?", Reply: "0.25"},         // good
+		ex{Send: "MEAS:CURR?", Reply: `0,"No error"`}, // 2: does not parse
+		ex{Send: "*IDN?", Reply: "HYSTD-TEST,UNIT,1,1.0"},
+		ex{Send: "MEAS:CURR?", Err: context.Canceled}, // 3: cut short by the caller's context
+	)
+	c.o.SyncTimeout = 50e6 // 50 ms
+	_, _ = c.Query(ctx, "MEAS:FIEL?")
+	if _, err := c.Query(ctx, "MEAS:FIEL?"); err == nil {
+		t.Fatal("the sync answered by 7.0 succeeded")
+	}
+	if n := c.Breaks(); n != 1 {
+		t.Fatalf("after a timeout and a failed sync: %d breaks, want 1", n)
+	}
+	if _, err := c.QueryNumber(ctx, "MEAS:FIEL?"); err != nil {
+		t.Fatal(err)
+	}
+	s, err := c.Query(ctx, "MEAS:CURR?")
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, perr := ParseNumber(s)
+	_ = c.Desync("MEAS:CURR?", perr)
+	if n := c.Breaks(); n != 2 {
+		t.Fatalf("after a reply that does not parse: %d breaks, want 2", n)
+	}
+	if _, err := c.Query(ctx, "MEAS:CURR?"); !errors.Is(err, context.Canceled) {
+		t.Fatalf("got %v, want the call cut short (context.Canceled)", err)
+	}
+	if n := c.Breaks(); n != 3 {
+		t.Fatalf("after a call cut short: %d breaks, want 3", n)
+	}
+}

@@ -65,6 +65,9 @@ type Bench struct {
 	faults []*faultState
 	// injected counts fired faults by kind.
 	injected map[string]int
+	// destroyed are the messages of error-queue entries whose reply a
+	// reply fault spoiled beyond reading (DestroyedErrors).
+	destroyed []string
 
 	cancel    context.CancelFunc
 	unquiet   func() // unregisters quiet from a *clock.Sim

@@ -3,6 +3,9 @@ package sim
 import (
 	"fmt"
 	"math/rand/v2"
+	"strings"
+
+	"hystd/drivers/scpi"
 )
 
 // faultState is a configured fault and how often it has fired.
@@ -87,9 +90,13 @@ func (b *Bench) spoil(in *instrument, a *action) {
 	}
 	f := in.armed[0]
 	in.armed = in.armed[1:]
+	entry, isEntry := queueEntry(a.reply, in.outTerm)
 	switch f.Kind {
 	case FaultDrop:
 		a.reply = nil
+		if isEntry {
+			b.destroyed = append(b.destroyed, entry.Msg)
+		}
 	case FaultDelay:
 		a.delay = f.Delay.D()
 	case FaultGarble:
@@ -100,7 +107,33 @@ func (b *Bench) spoil(in *instrument, a *action) {
 			// letter into a character no number parser accepts.
 			a.reply[i] ^= 0x40
 		}
+		// A flip in the code or the quotes leaves no entry to read; one
+		// inside the message leaves it readable, one letter changed.
+		if e, ok := queueEntry(a.reply, in.outTerm); isEntry && (!ok || e.Code != entry.Code) {
+			b.destroyed = append(b.destroyed, entry.Msg)
+		}
 	}
+}
+
+// queueEntry parses a reply as an error-queue entry with a non-zero code
+// (`code,"message"`).
+func queueEntry(reply []byte, term string) (scpi.QueueEntry, bool) {
+	line := strings.TrimSuffix(string(reply), term)
+	if !strings.Contains(line, `,"`) {
+		return scpi.QueueEntry{}, false
+	}
+	e, err := scpi.ParseQueueEntry(line)
+	return e, err == nil && e.Code != 0
+}
+
+// DestroyedErrors returns the messages of the error-queue entries whose
+// reply a drop or a garble spoiled beyond reading: the instrument removed
+// them from its queue and no client can read them any more (the lost or
+// spoiled reply is what a run can name). In fault order.
+func (b *Bench) DestroyedErrors() []string {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return append([]string(nil), b.destroyed...)
 }
 
 // Injected returns how many faults have fired so far, by kind (drop,

@@ -20,11 +20,14 @@ import (
 	"os/exec"
 	"path/filepath"
 	"regexp"
+	"sort"
 	"strings"
 	"sync"
 	"syscall"
 	"testing"
 	"time"
+
+	"github.com/influxdata/influxdb-client-go/v2/api/write"
 )
 
 // Module is the server's Go package and version, built with `go install`.
@@ -350,4 +353,42 @@ func (s *Server) Query(ctx context.Context, expr string, at time.Time) ([]QueryR
 		return nil, fmt.Errorf("vmtest: query %s: %s", expr, ans.Error)
 	}
 	return ans.Data.Result, nil
+}
+
+// Key names one sample of one series as the server exports it: metric,
+// labels but __name__ (sorted), millisecond timestamp.
+func Key(name string, labels map[string]string, ms int64) string {
+	var ks []string
+	for k, v := range labels {
+		if k != "__name__" {
+			ks = append(ks, k+"="+v)
+		}
+	}
+	sort.Strings(ks)
+	return fmt.Sprintf("%s{%s}@%d", name, strings.Join(ks, ","), ms)
+}
+
+// AddPoints adds to want, under Key, every field value of pts as the server
+// names it (measurement_field, tags as labels, ms timestamps). Two values
+// of one series in one millisecond are an error: they could not be told
+// apart when read back.
+func AddPoints(want map[string]float64, pts []*write.Point) error {
+	for _, p := range pts {
+		labels := map[string]string{}
+		for _, tg := range p.TagList() {
+			labels[tg.Key] = tg.Value
+		}
+		for _, f := range p.FieldList() {
+			k := Key(p.Name()+"_"+f.Key, labels, p.Time().UnixMilli())
+			if _, dup := want[k]; dup {
+				return fmt.Errorf("two points of the same series share a millisecond: %s", k)
+			}
+			v, ok := f.Value.(float64)
+			if !ok {
+				return fmt.Errorf("%s: field value %v is not a float", k, f.Value)
+			}
+			want[k] = v
+		}
+	}
+	return nil
 }
