@@ -179,15 +179,43 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 	ce := &cerr{doc: doc, env: map[string]string{}}
 	overrideFromEnv(&c, ce)
 	base := filepath.Dir(doc.File)
-	abs := func(p string) string {
+	ld := &loader{c: &c, ce: ce, l: &Loaded{File: doc.File}, abs: func(p string) string {
 		if p == "" || filepath.IsAbs(p) {
 			return p
 		}
 		return filepath.Join(base, p)
-	}
+	}}
 	if c.Kind != Kind {
 		ce.add("kind", "must be %q, got %q", Kind, c.Kind)
 	}
+	ld.http()
+	ld.store()
+	ld.log()
+	ld.influx()
+	ld.l.Registry = loadRegistry(ce, ld.abs(c.Specimens), ld.abs(c.Grades), c.DecisionRule)
+	ld.calibrations()
+	ld.fixtures()
+	if err := ce.es.Err(); err != nil {
+		return nil, err
+	}
+	ld.l.Config = c
+	return ld.l, nil
+}
+
+// loader is one FromDoc under way: the config it completes (defaults,
+// absolute paths), the problems found so far and what it has loaded. Its
+// methods take the config's sections in order.
+type loader struct {
+	c   *Config
+	ce  *cerr
+	l   *Loaded
+	abs func(string) string // a path relative to the config file's folder made absolute
+}
+
+// http checks the HTTP section: the address, the token and users files,
+// the exposure without a token and the extra host names.
+func (ld *loader) http() {
+	c, ce, l := ld.c, ld.ce, ld.l
 	if c.HTTP.Addr == "" {
 		c.HTTP.Addr = DefaultAddr
 	}
@@ -196,9 +224,8 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 	} else if n, err := strconv.Atoi(port); err != nil || n < 0 || n > 65535 {
 		ce.add("http.addr", "port %q is not a number 0–65535", port)
 	}
-	l := &Loaded{File: doc.File}
 	if c.HTTP.TokenFile != "" {
-		c.HTTP.TokenFile = abs(c.HTTP.TokenFile)
+		c.HTTP.TokenFile = ld.abs(c.HTTP.TokenFile)
 		b, err := os.ReadFile(c.HTTP.TokenFile)
 		tok := strings.TrimSpace(string(b))
 		switch {
@@ -211,7 +238,7 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 		}
 	}
 	if c.HTTP.UsersFile != "" {
-		c.HTTP.UsersFile = abs(c.HTTP.UsersFile)
+		c.HTTP.UsersFile = ld.abs(c.HTTP.UsersFile)
 		users, err := api.LoadUsers(c.HTTP.UsersFile)
 		if err != nil {
 			ce.add("http.users_file", "%v", err)
@@ -227,14 +254,25 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 			ce.add(fmt.Sprintf("http.hosts.%d", i), "%q: want a host name without port or scheme, e.g. hystd.lab.example", h)
 		}
 	}
+}
+
+// store checks the store path and puts the spool folder beside the store
+// when none is named.
+func (ld *loader) store() {
+	c := ld.c
 	if c.Store.Path == "" {
-		ce.add("store.path", "required: the SQLite file runs are stored in")
+		ld.ce.add("store.path", "required: the SQLite file runs are stored in")
 	}
-	c.Store.Path = abs(c.Store.Path)
+	c.Store.Path = ld.abs(c.Store.Path)
 	if c.SpoolDir == "" && c.Store.Path != "" {
 		c.SpoolDir = filepath.Join(filepath.Dir(c.Store.Path), "spool")
 	}
-	c.SpoolDir = abs(c.SpoolDir)
+	c.SpoolDir = ld.abs(c.SpoolDir)
+}
+
+// log checks the log level and format, with their defaults.
+func (ld *loader) log() {
+	c, ce := ld.c, ld.ce
 	switch c.Log.Level {
 	case "":
 		c.Log.Level = "info"
@@ -249,16 +287,25 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 	default:
 		ce.add("log.format", "must be text or json, got %q", c.Log.Format)
 	}
+}
+
+// influx checks the forwarder's section, when there is one, with its defaults.
+func (ld *loader) influx() {
+	c := ld.c
 	if c.Influx != nil {
 		ic := c.Influx.WithDefaults()
-		ic.TokenFile = abs(ic.TokenFile)
-		ic.TLS.CAFile = abs(ic.TLS.CAFile)
+		ic.TokenFile = ld.abs(ic.TokenFile)
+		ic.TLS.CAFile = ld.abs(ic.TLS.CAFile)
 		for _, p := range ic.Problems() {
-			ce.add("influx."+p.Key, "%s", p.Msg)
+			ld.ce.add("influx."+p.Key, "%s", p.Msg)
 		}
 		c.Influx = &ic
 	}
-	l.Registry = loadRegistry(ce, abs(c.Specimens), abs(c.Grades), c.DecisionRule)
+}
+
+// calibrations checks calibration_past_due and loads the calibrations folder.
+func (ld *loader) calibrations() {
+	c, ce := ld.c, ld.ce
 	switch c.CalibrationPastDue {
 	case "":
 		c.CalibrationPastDue = PastDueWarn
@@ -267,82 +314,107 @@ func FromDoc(doc *configs.Doc) (*Loaded, error) {
 		ce.add("calibration_past_due", "%q: want %s or %s", c.CalibrationPastDue, PastDueWarn, PastDueRefuse)
 	}
 	if c.Calibrations != "" {
-		c.Calibrations = abs(c.Calibrations)
+		c.Calibrations = ld.abs(c.Calibrations)
 		recs, err := calrec.LoadDir(c.Calibrations)
 		if err != nil {
 			ce.add("calibrations", "%v", err)
 		}
-		l.Calibrations = recs
+		ld.l.Calibrations = recs
 	}
-	if len(c.Fixtures) == 0 {
-		ce.add("fixtures", "required: at least one fixture with its fixture and specimen files")
+}
+
+// fixtures loads every fixture entry; a fixture name or a watched folder
+// may appear once.
+func (ld *loader) fixtures() {
+	if len(ld.c.Fixtures) == 0 {
+		ld.ce.add("fixtures", "required: at least one fixture with its fixture and specimen files")
 	}
 	names, watches := map[string]string{}, map[string]string{}
-	for i, fe := range c.Fixtures {
-		p := fmt.Sprintf("fixtures.%d", i)
-		lf := LoadedFixture{Watch: abs(fe.Watch), Poll: fe.Poll.D()}
-		if lf.Poll == 0 {
-			lf.Poll = DefaultPoll
+	for i, fe := range ld.c.Fixtures {
+		if lf, ok := ld.fixture(fmt.Sprintf("fixtures.%d", i), fe, names, watches); ok {
+			ld.l.Fixtures = append(ld.l.Fixtures, lf)
 		}
-		if lf.Poll < 100*time.Millisecond {
-			ce.add(p+".poll", "must be at least 100ms, got %s", lf.Poll)
-		}
-		fx, err := config.LoadFixture(abs(fe.Fixture))
+	}
+}
+
+// fixture loads the fixture entry at p: its fixture and specimen files,
+// the specimen's grade, the fixture's coil record, the geometry, the
+// watched folder and the schedule. ok is false when the fixture or the
+// specimen file could not be loaded (the entry is then left out).
+func (ld *loader) fixture(p string, fe FixtureEntry, names, watches map[string]string) (lf LoadedFixture, ok bool) {
+	ce, l := ld.ce, ld.l
+	lf = LoadedFixture{Watch: ld.abs(fe.Watch), Poll: fe.Poll.D()}
+	if lf.Poll == 0 {
+		lf.Poll = DefaultPoll
+	}
+	if lf.Poll < 100*time.Millisecond {
+		ce.add(p+".poll", "must be at least 100ms, got %s", lf.Poll)
+	}
+	fx, err := config.LoadFixture(ld.abs(fe.Fixture))
+	if err != nil {
+		ce.add(p+".fixture", "%v", err)
+		return lf, false
+	}
+	sp, err := config.LoadSpecimen(ld.abs(fe.Specimen))
+	if err != nil {
+		ce.add(p+".specimen", "%v", err)
+		return lf, false
+	}
+	l.Registry.checkGrade(ce, p+".specimen", sp)
+	// A coil record must fit its fixture now, not at the first run.
+	if _, _, err := calrec.Use(calrec.Select(l.Calibrations, fx.Name, nil), fx, time.Time{}); err != nil {
+		ce.add("calibrations", "fixture %s: %v", fx.Name, err)
+	}
+	lf.Name, lf.Fixture, lf.Specimen = fx.Name, fx, sp
+	if prev, dup := names[fx.Name]; dup {
+		ce.add(p+".fixture", "fixture %q is already driven by %s", fx.Name, prev)
+	}
+	names[fx.Name] = p
+	if g, err := recipe.GeometryOf(fx, sp); err == nil {
+		lf.Geometry = g
+	} else if fx.HFrom == "current" {
+		ce.add(p+".specimen", "%v", err)
+	}
+	if lf.Watch != "" {
+		ld.watch(p, lf.Watch, watches)
+	}
+	lf.Schedule = ld.schedule(p, fe.Schedule, fx, lf.Geometry)
+	return lf, true
+}
+
+// watch checks the watched folder of the fixture entry at p: watched by no
+// other entry, and a folder if it exists.
+func (ld *loader) watch(p, dir string, watches map[string]string) {
+	ce := ld.ce
+	if prev, dup := watches[dir]; dup {
+		ce.add(p+".watch", "folder %s is already watched by %s", dir, prev)
+	}
+	watches[dir] = p
+	if st, err := os.Stat(dir); err == nil && !st.IsDir() {
+		ce.add(p+".watch", "%s is not a folder", dir)
+	} else if err != nil && !os.IsNotExist(err) {
+		ce.add(p+".watch", "%v", err)
+	}
+}
+
+// schedule parses the schedule of the fixture entry at p and checks each
+// recipe against the fixture; the entries with a problem are left out.
+func (ld *loader) schedule(p string, entries []ScheduleEntry, fx config.Fixture, g recipe.Geometry) []Scheduled {
+	var out []Scheduled
+	for j, se := range entries {
+		sp := fmt.Sprintf("%s.schedule.%d", p, j)
+		s, err := parseSchedule(se, ld.abs)
 		if err != nil {
-			ce.add(p+".fixture", "%v", err)
+			ld.ce.add(sp+"."+err.key, "%s", err.msg)
 			continue
 		}
-		sp, err := config.LoadSpecimen(abs(fe.Specimen))
-		if err != nil {
-			ce.add(p+".specimen", "%v", err)
+		if _, err := recipe.Expand(s.Recipe, fx, g); err != nil {
+			ld.ce.add(sp+".recipe", "refused on fixture %q: %v", fx.Name, err)
 			continue
 		}
-		l.Registry.checkGrade(ce, p+".specimen", sp)
-		// A coil record must fit its fixture now, not at the first run.
-		if _, _, err := calrec.Use(calrec.Select(l.Calibrations, fx.Name, nil), fx, time.Time{}); err != nil {
-			ce.add("calibrations", "fixture %s: %v", fx.Name, err)
-		}
-		lf.Name, lf.Fixture, lf.Specimen = fx.Name, fx, sp
-		if prev, dup := names[fx.Name]; dup {
-			ce.add(p+".fixture", "fixture %q is already driven by %s", fx.Name, prev)
-		}
-		names[fx.Name] = p
-		if g, err := recipe.GeometryOf(fx, sp); err == nil {
-			lf.Geometry = g
-		} else if fx.HFrom == "current" {
-			ce.add(p+".specimen", "%v", err)
-		}
-		if lf.Watch != "" {
-			if prev, dup := watches[lf.Watch]; dup {
-				ce.add(p+".watch", "folder %s is already watched by %s", lf.Watch, prev)
-			}
-			watches[lf.Watch] = p
-			if st, err := os.Stat(lf.Watch); err == nil && !st.IsDir() {
-				ce.add(p+".watch", "%s is not a folder", lf.Watch)
-			} else if err != nil && !os.IsNotExist(err) {
-				ce.add(p+".watch", "%v", err)
-			}
-		}
-		for j, se := range fe.Schedule {
-			sp := fmt.Sprintf("%s.schedule.%d", p, j)
-			s, err := parseSchedule(se, abs)
-			if err != nil {
-				ce.add(sp+"."+err.key, "%s", err.msg)
-				continue
-			}
-			if _, err := recipe.Expand(s.Recipe, fx, lf.Geometry); err != nil {
-				ce.add(sp+".recipe", "refused on fixture %q: %v", fx.Name, err)
-				continue
-			}
-			lf.Schedule = append(lf.Schedule, s)
-		}
-		l.Fixtures = append(l.Fixtures, lf)
+		out = append(out, s)
 	}
-	if err := ce.es.Err(); err != nil {
-		return nil, err
-	}
-	l.Config = c
-	return l, nil
+	return out
 }
 
 // Token returns the bearer token for mutations, or "" when none is set.

@@ -6,10 +6,10 @@ import (
 	"fmt"
 	"io"
 	"os"
-	"os/signal"
 	"sync"
 	"syscall"
 
+	"hystd/acq/config"
 	"hystd/acq/demo"
 	"hystd/acq/engine"
 	"hystd/acq/grade"
@@ -17,7 +17,6 @@ import (
 	"hystd/acq/recipe"
 	"hystd/acq/record"
 	"hystd/acq/store"
-	"hystd/drivers/clock"
 	"hystd/drivers/link"
 )
 
@@ -52,50 +51,19 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		return record.Run{}, err
 	}
 	log := NewLogger(cfg, w.Stderr)
-	for _, name := range UnknownEnv(os.Environ(), cfg.Config) {
-		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
-	}
-	var lf LoadedFixture
-	switch {
-	case o.Fixture != "":
-		f, ok := cfg.Fixture(o.Fixture)
-		if !ok {
-			return record.Run{}, fmt.Errorf("%w %q in %s", ErrUnknownFixture, o.Fixture, o.ConfigPath)
-		}
-		lf = f
-	case len(cfg.Fixtures) == 1:
-		lf = cfg.Fixtures[0]
-	default:
-		return record.Run{}, fmt.Errorf("%w: %s drives %s; name one with --fixture", ErrFixtureNeeded, o.ConfigPath, fixtureNames(cfg))
+	warnUnknownEnv(log, cfg.Config)
+	lf, err := o.pickFixture(cfg)
+	if err != nil {
+		return record.Run{}, err
 	}
 	l, err := link.Acquire("fixture", lf.Name)
 	if err != nil {
 		return record.Run{}, fmt.Errorf("fixture %s: %w", lf.Name, err)
 	}
 	defer l.Unlock()
-	rc, err := recipe.Load(o.RecipePath)
+	rc, gr, err := o.loadRecipe(cfg, &lf)
 	if err != nil {
 		return record.Run{}, err
-	}
-	if o.Specimen != "" {
-		sp, err := cfg.Registry.Specimen(o.Specimen)
-		if err != nil {
-			return record.Run{}, fmt.Errorf("--specimen: %w", err)
-		}
-		lf.Specimen = sp
-		if g, err := recipe.GeometryOf(lf.Fixture, sp); err == nil {
-			lf.Geometry = g
-		} else if lf.Fixture.HFrom == "current" {
-			return record.Run{}, &engine.Refused{Err: fmt.Errorf("specimen %s: %w", sp.ID, err)}
-		}
-	}
-	gr, gradeNote := cfg.Registry.GradeOf(lf.Specimen)
-	if gradeNote != "" {
-		fmt.Fprintln(o.Out, "note:", gradeNote)
-	}
-	// Refuse before touching any instrument.
-	if _, err := recipe.Expand(rc, lf.Fixture, lf.Geometry); err != nil {
-		return record.Run{}, &engine.Refused{Err: err}
 	}
 	st, err := store.Open(ctx, cfg.Config.Store.Path)
 	if err != nil {
@@ -103,18 +71,7 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 	}
 	defer st.Close()
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
-	if w.Clock == nil {
-		w.Clock = clock.Real{}
-	}
-	if w.Open == nil {
-		w.Open = FixtureOpenerClock(log, w.Clock)
-		if w.Halt == nil {
-			w.Halt = FixtureHalter(log, w.Clock)
-		}
-	}
-	if w.Area == nil {
-		w.Area = SpecimenArea
-	}
+	w.fillDefaults(log)
 	rctx, cancel := context.WithCancelCause(context.WithoutCancel(ctx))
 	defer cancel(nil)
 	go func() {
@@ -124,13 +81,8 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		case <-rctx.Done():
 		}
 	}()
-	sigs := w.Signals
-	if sigs == nil {
-		c := make(chan os.Signal, 2)
-		signal.Notify(c, syscall.SIGINT, syscall.SIGTERM)
-		defer signal.Stop(c)
-		sigs = c
-	}
+	sigs, stopSignals := notifySignals(w.Signals, 2, syscall.SIGINT, syscall.SIGTERM)
+	defer stopSignals()
 	go func() {
 		select {
 		case s := <-sigs:
@@ -138,18 +90,8 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 		case <-rctx.Done():
 		}
 	}()
-	op, err := w.Open(rctx, lf.Fixture, lf.Specimen, cfg.Calibrations)
+	op, err := openOrHalt(ctx, rctx, w, lf, cfg, o.Out)
 	if err != nil {
-		// The supply may have been left on (a killed process): halt it
-		// alone before reporting.
-		if w.Halt != nil {
-			text, herr := w.Halt(context.WithoutCancel(ctx), lf.Fixture)
-			if herr != nil && text == "" {
-				text = "SUPPLY HALT FAILED: " + herr.Error()
-			}
-			fmt.Fprintln(o.Out, text)
-			return record.Run{}, fmt.Errorf("%w; %s", err, text)
-		}
 		return record.Run{}, err
 	}
 	defer op.Close()
@@ -174,19 +116,93 @@ func RunOnce(ctx context.Context, o RunOptions) (record.Run, error) {
 			run, err = plan.Execute(rctx)
 		}
 	}
-	fmt.Fprintf(o.Out, "run %s %s", run.ID, run.State)
-	if run.Reason != "" {
-		fmt.Fprintf(o.Out, ": %s", run.Reason)
+	report(ctx, o.Out, run, st, lf.Specimen)
+	return run, err
+}
+
+// pickFixture returns the fixture o names, or the config's only one.
+func (o RunOptions) pickFixture(cfg *Loaded) (LoadedFixture, error) {
+	switch {
+	case o.Fixture != "":
+		f, ok := cfg.Fixture(o.Fixture)
+		if !ok {
+			return LoadedFixture{}, fmt.Errorf("%w %q in %s", ErrUnknownFixture, o.Fixture, o.ConfigPath)
+		}
+		return f, nil
+	case len(cfg.Fixtures) == 1:
+		return cfg.Fixtures[0], nil
+	default:
+		return LoadedFixture{}, fmt.Errorf("%w: %s drives %s; name one with --fixture", ErrFixtureNeeded, o.ConfigPath, fixtureNames(cfg))
 	}
-	fmt.Fprintf(o.Out, "\nstored in %s\n", st.Path())
-	if run.ID != "" {
-		if loops, lerr := st.Loops(ctx, run.ID); lerr == nil {
-			fmt.Fprintf(o.Out, "specimen %s (%s)\n", lf.Specimen.ID, lf.Specimen.Material)
-			demo.PrintFigures(o.Out, loops)
-			grade.Print(o.Out, loops)
+}
+
+// loadRecipe loads o's recipe, mounts o's specimen on lf when o names one,
+// notes the specimen's grade and refuses the recipe, before any instrument
+// is touched, when it does not fit the fixture.
+func (o RunOptions) loadRecipe(cfg *Loaded, lf *LoadedFixture) (*recipe.Recipe, *grade.Grade, error) {
+	rc, err := recipe.Load(o.RecipePath)
+	if err != nil {
+		return nil, nil, err
+	}
+	if o.Specimen != "" {
+		sp, err := cfg.Registry.Specimen(o.Specimen)
+		if err != nil {
+			return nil, nil, fmt.Errorf("--specimen: %w", err)
+		}
+		lf.Specimen = sp
+		if g, err := recipe.GeometryOf(lf.Fixture, sp); err == nil {
+			lf.Geometry = g
+		} else if lf.Fixture.HFrom == "current" {
+			return nil, nil, &engine.Refused{Err: fmt.Errorf("specimen %s: %w", sp.ID, err)}
 		}
 	}
-	return run, err
+	gr, gradeNote := cfg.Registry.GradeOf(lf.Specimen)
+	if gradeNote != "" {
+		fmt.Fprintln(o.Out, "note:", gradeNote)
+	}
+	// Refuse before touching any instrument.
+	if _, err := recipe.Expand(rc, lf.Fixture, lf.Geometry); err != nil {
+		return nil, nil, &engine.Refused{Err: err}
+	}
+	return rc, gr, nil
+}
+
+// openOrHalt opens lf's instruments; when they do not open, it halts the
+// supply alone (it may have been left on by a killed process), prints what
+// the halt said and returns the opening's error with it.
+func openOrHalt(ctx, rctx context.Context, w Wiring, lf LoadedFixture, cfg *Loaded, out io.Writer) (Opened, error) {
+	op, err := w.Open(rctx, lf.Fixture, lf.Specimen, cfg.Calibrations)
+	if err != nil {
+		// The supply may have been left on (a killed process): halt it
+		// alone before reporting.
+		if w.Halt != nil {
+			text, herr := w.Halt(context.WithoutCancel(ctx), lf.Fixture)
+			if herr != nil && text == "" {
+				text = "SUPPLY HALT FAILED: " + herr.Error()
+			}
+			fmt.Fprintln(out, text)
+			return Opened{}, fmt.Errorf("%w; %s", err, text)
+		}
+		return Opened{}, err
+	}
+	return op, nil
+}
+
+// report prints how run ended, where it is stored and, for a run that was
+// recorded, its specimen, figures and grading.
+func report(ctx context.Context, out io.Writer, run record.Run, st *store.Store, sp config.Specimen) {
+	fmt.Fprintf(out, "run %s %s", run.ID, run.State)
+	if run.Reason != "" {
+		fmt.Fprintf(out, ": %s", run.Reason)
+	}
+	fmt.Fprintf(out, "\nstored in %s\n", st.Path())
+	if run.ID != "" {
+		if loops, lerr := st.Loops(ctx, run.ID); lerr == nil {
+			fmt.Fprintf(out, "specimen %s (%s)\n", sp.ID, sp.Material)
+			demo.PrintFigures(out, loops)
+			grade.Print(out, loops)
+		}
+	}
 }
 
 // printer writes one line per step and per tenth of the run.

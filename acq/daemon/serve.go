@@ -82,9 +82,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	log := NewLogger(cfg, w.Stderr)
 	bi := buildinfo.Read()
 	log.Info("hystd starting", "version", bi.Version, "revision", bi.Revision, "modified", bi.Modified, "go", bi.GoVersion, "software", w.Software)
-	for _, name := range UnknownEnv(os.Environ(), cfg.Config) {
-		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
-	}
+	warnUnknownEnv(log, cfg.Config)
 	locks, err := LockFixtures(cfg)
 	if err != nil {
 		return err
@@ -98,18 +96,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	ReplaySpool(ctx, cfg.Config.SpoolDir, st, log)
 	RecoverRuns(ctx, cfg, st, st, log)
 
-	if w.Clock == nil {
-		w.Clock = clock.Real{}
-	}
-	if w.Open == nil {
-		w.Open = FixtureOpenerClock(log, w.Clock)
-		if w.Halt == nil {
-			w.Halt = FixtureHalter(log, w.Clock)
-		}
-	}
-	if w.Area == nil {
-		w.Area = SpecimenArea
-	}
+	w.fillDefaults(log)
 	hub := live.NewHub(0)
 	d, err := New(cfg, Deps{Open: w.Open, Halt: w.Halt, Writer: st, Live: hub, Log: log, Software: w.Software, Area: w.Area, Clock: w.Clock})
 	if err != nil {
@@ -119,19 +106,11 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	fctx, fstop := context.WithCancel(context.WithoutCancel(ctx))
 	defer func() { fstop(); fwg.Wait() }()
 	if ic := cfg.Config.Influx; ic != nil {
-		f, err := influx.New(*ic, st, influx.Options{Log: log.With("part", "forwarder")})
+		f, err := startForwarder(fctx, &fwg, *ic, st, d, log)
 		if err != nil {
 			return fmt.Errorf("%s: influx: %w", configPath, err)
 		}
 		defer f.Close()
-		d.metrics.Registry.MustRegister(f.Collectors()...)
-		fwg.Add(1)
-		go func() {
-			defer fwg.Done()
-			if err := f.Run(fctx); err != nil && !errors.Is(err, context.Canceled) {
-				log.Error("forwarder stopped", "err", err)
-			}
-		}()
 	}
 	var h http.Handler
 	if w.API != nil {
@@ -150,28 +129,97 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		d.Stop("http.addr unusable")
 		return fmt.Errorf("%s: http.addr: %w", configPath, err)
 	}
+	srv := startHTTP(ctx, ln, cfg, d.Handler(h), log)
+	if w.Listening != nil {
+		w.Listening(ln.Addr().String())
+	}
+	sigs, stopSignals := notifySignals(w.Signals, 4, syscall.SIGHUP, syscall.SIGTERM, syscall.SIGINT)
+	defer stopSignals()
+	log.Info("hystd serving", "config", cfg.File, "http", ln.Addr().String(), "store", st.Path(), "fixtures", len(cfg.Fixtures))
+	notify(log, "READY=1\nSTATUS=serving "+fmt.Sprint(len(cfg.Fixtures))+" fixture(s)")
+	reason := awaitStop(ctx, sigs, d, configPath, log)
+	stopRuns(d, cfg, reason, sigs, log)
+	sctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
+	defer cancel()
+	_ = srv.Shutdown(sctx)
+	log.Info("stopped")
+	return nil
+}
+
+// fillDefaults puts the machine's clock, the fixture opener and halter and
+// the specimen's area where w leaves them nil.
+func (w *Wiring) fillDefaults(log *slog.Logger) {
+	if w.Clock == nil {
+		w.Clock = clock.Real{}
+	}
+	if w.Open == nil {
+		w.Open = FixtureOpenerClock(log, w.Clock)
+		if w.Halt == nil {
+			w.Halt = FixtureHalter(log, w.Clock)
+		}
+	}
+	if w.Area == nil {
+		w.Area = SpecimenArea
+	}
+}
+
+// warnUnknownEnv logs the HYSTD_* variables no setting reads (UnknownEnv).
+func warnUnknownEnv(log *slog.Logger, c Config) {
+	for _, name := range UnknownEnv(os.Environ(), c) {
+		log.Warn("environment variable not used by hystd (misspelt override?)", "name", name)
+	}
+}
+
+// startForwarder builds the InfluxDB forwarder over st, registers its
+// metrics with d's and runs it until fctx ends (fwg waits for it).
+func startForwarder(fctx context.Context, fwg *sync.WaitGroup, ic influx.Config, st *store.Store, d *Daemon, log *slog.Logger) (*influx.Forwarder, error) {
+	f, err := influx.New(ic, st, influx.Options{Log: log.With("part", "forwarder")})
+	if err != nil {
+		return nil, err
+	}
+	d.metrics.Registry.MustRegister(f.Collectors()...)
+	fwg.Add(1)
+	go func() {
+		defer fwg.Done()
+		if err := f.Run(fctx); err != nil && !errors.Is(err, context.Canceled) {
+			log.Error("forwarder stopped", "err", err)
+		}
+	}()
+	return f, nil
+}
+
+// startHTTP serves h on ln, behind the host guard, until the returned
+// server is shut down; it warns when ln is reachable from other machines
+// without a token.
+func startHTTP(ctx context.Context, ln net.Listener, cfg *Loaded, h http.Handler, log *slog.Logger) *http.Server {
 	if !api.IsLoopback(cfg.Config.HTTP.Addr) && !cfg.TokenSet {
 		log.Warn("listening on an address other machines reach, without a token (http.open_without_token): every stored run, with raw samples and config snapshots, is readable from the network",
 			"http", ln.Addr().String())
 	}
-	srv := api.NewHTTPServer(context.WithoutCancel(ctx), api.HostGuard(d.Handler(h), ln.Addr().String(), cfg.Config.HTTP.Hosts), api.DefaultHTTPTimeouts)
+	srv := api.NewHTTPServer(context.WithoutCancel(ctx), api.HostGuard(h, ln.Addr().String(), cfg.Config.HTTP.Hosts), api.DefaultHTTPTimeouts)
 	go func() {
 		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
 			log.Error("http server stopped", "err", err)
 		}
 	}()
-	if w.Listening != nil {
-		w.Listening(ln.Addr().String())
+	return srv
+}
+
+// notifySignals returns given when it is not nil (tests), else a channel
+// of buf the process's signals which are delivered to, with the function
+// that stops their delivery.
+func notifySignals(given <-chan os.Signal, buf int, which ...os.Signal) (<-chan os.Signal, func()) {
+	if given != nil {
+		return given, func() {}
 	}
-	sigs := w.Signals
-	if sigs == nil {
-		c := make(chan os.Signal, 4)
-		signal.Notify(c, syscall.SIGHUP, syscall.SIGTERM, syscall.SIGINT)
-		defer signal.Stop(c)
-		sigs = c
-	}
-	log.Info("hystd serving", "config", cfg.File, "http", ln.Addr().String(), "store", st.Path(), "fixtures", len(cfg.Fixtures))
-	notify(log, "READY=1\nSTATUS=serving "+fmt.Sprint(len(cfg.Fixtures))+" fixture(s)")
+	c := make(chan os.Signal, buf)
+	signal.Notify(c, which...)
+	return c, func() { signal.Stop(c) }
+}
+
+// awaitStop serves until SIGTERM, SIGINT or ctx's end, reloading the
+// config on SIGHUP and pinging the watchdog; it returns why it stopped.
+func awaitStop(ctx context.Context, sigs <-chan os.Signal, d *Daemon, configPath string, log *slog.Logger) string {
 	var wd <-chan time.Time
 	if iv, ok := WatchdogInterval(); ok {
 		t := time.NewTicker(iv)
@@ -195,6 +243,13 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 			notify(log, "WATCHDOG=1")
 		}
 	}
+	return reason
+}
+
+// stopRuns ends every run safely for reason, waiting at most StopBound;
+// past the bound, or at a second SIGTERM or SIGINT, it abandons the halts
+// not yet confirmed (Daemon.Abandon).
+func stopRuns(d *Daemon, cfg *Loaded, reason string, sigs <-chan os.Signal, log *slog.Logger) {
 	bound := StopBound(cfg)
 	log.Warn("stopping: ending every run safely", "reason", reason, "bound", bound)
 	notify(log, "STOPPING=1")
@@ -219,11 +274,6 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 			waiting = false
 		}
 	}
-	sctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
-	defer cancel()
-	_ = srv.Shutdown(sctx)
-	log.Info("stopped")
-	return nil
 }
 
 // StopMargin is the part of StopBound beyond the ramp-downs and the
