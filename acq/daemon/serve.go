@@ -103,14 +103,21 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 		return err
 	}
 	var fwg sync.WaitGroup
+	var f *influx.Forwarder
 	fctx, fstop := context.WithCancel(context.WithoutCancel(ctx))
-	defer func() { fstop(); fwg.Wait() }()
+	// The forwarder is stopped and waited for before its client closes:
+	// a write under way ends on its context, not on a closed client.
+	defer func() {
+		fstop()
+		fwg.Wait()
+		if f != nil {
+			f.Close()
+		}
+	}()
 	if ic := cfg.Config.Influx; ic != nil {
-		f, err := startForwarder(fctx, &fwg, *ic, st, d, log)
-		if err != nil {
+		if f, err = startForwarder(fctx, &fwg, *ic, st, d, log); err != nil {
 			return fmt.Errorf("%s: influx: %w", configPath, err)
 		}
-		defer f.Close()
 	}
 	var h http.Handler
 	if w.API != nil {
