@@ -102,26 +102,13 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 
-	benchCfg := o.Bench
-	if benchCfg == nil {
-		c, err := sim.DefaultBench()
-		if err != nil {
-			return Result{}, fmt.Errorf("demo bench: %w", err)
-		}
-		benchCfg = &c
-	}
 	clk := o.Clock
 	if clk == nil {
 		clk = clock.Real{}
 	}
-	pace := "real time"
-	if clock.IsSimulated(clk) {
-		pace = "simulated time"
-	}
-	fmt.Fprintf(out, "starting the simulated bench %q on pseudo-terminals (%s)\n", benchCfg.Name, pace)
-	bench, err := sim.Start(ctx, *benchCfg, sim.WithClock(clk))
+	bench, err := startBench(ctx, o.Bench, clk, out)
 	if err != nil {
-		return Result{}, fmt.Errorf("simulated bench: %w", err)
+		return Result{}, err
 	}
 	defer bench.Close()
 	fx = withPorts(fx, bench.Ports())
@@ -152,32 +139,13 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	defer opened.Close()
-	// The shipped calibration records (configs/calibrations) apply to the
-	// bench's instruments by the identities they gave.
-	cals, err := calrec.LoadFS(configs.Samples, CalibrationDir, "configs/"+CalibrationDir)
+	proc, calEvents, err := processor(opened, fx, sp, clk.Now(), log)
 	if err != nil {
 		return Result{}, err
 	}
-	used, calEvents, err := opened.Calibrations(cals, fx, clk.Now())
+	gr, err := specimenGrade(sp)
 	if err != nil {
 		return Result{}, err
-	}
-	proc, warnings, err := opened.Processor(fx, sp, used)
-	if err != nil {
-		return Result{}, err
-	}
-	for _, w := range warnings {
-		log.Warn(w) // a log line: stderr under hystd demo
-	}
-
-	// The demo specimen's grade comes from the shipped sample grades.
-	grades, err := grade.LoadFS(configs.Samples, ".", "configs")
-	if err != nil {
-		return Result{}, err
-	}
-	gr, err := grades.Lookup(sp.Grade)
-	if err != nil {
-		return Result{}, fmt.Errorf("demo specimen %s: %w", sp.ID, err)
 	}
 	pub := &progress{out: out, hub: o.Live}
 	fmt.Fprintf(out, "running recipe %q on specimen %s (%s)\n", rc.Name, sp.ID, sp.Material)
@@ -203,22 +171,8 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	}
 	run, runErr := plan.Execute(ctx)
 	res := Result{Run: run, DB: db, Truth: bench.History(), Final: bench.Truth()}
-	if run.ID != "" {
-		// Read back what was committed, whatever the ending.
-		if r, err := st.Run(ctx, run.ID); err == nil {
-			res.Run = r
-		}
-		loops, err := st.Loops(ctx, run.ID)
-		if err != nil {
-			return res, err
-		}
-		for _, l := range loops {
-			full, err := st.Loop(ctx, run.ID, l.N)
-			if err != nil {
-				return res, err
-			}
-			res.Loops = append(res.Loops, full)
-		}
+	if err := readBack(ctx, st, &res); err != nil {
+		return res, err
 	}
 	if runErr != nil {
 		return res, runErr
@@ -235,24 +189,118 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	PrintFigures(out, res.Loops)
 	grade.Print(out, res.Loops)
 	if o.Influx != nil {
-		wait := o.InfluxWait
-		if wait <= 0 {
-			wait = time.Minute
-		}
-		dctx, cancel := context.WithTimeout(ctx, wait)
-		defer cancel()
-		n, err := influx.DeliverAll(dctx, st, *o.Influx)
-		if err != nil {
-			return res, &ForwardError{URL: o.Influx.URL, Sent: n, Err: fmt.Errorf("%w (the rest stay in the outbox of %s)", err, db)}
-		}
-		if q, err := quarantinedOf(ctx, st, res.Run.ID); err != nil {
+		if err := forward(ctx, o, st, res, out); err != nil {
 			return res, err
-		} else if len(q) > 0 || n == 0 && len(res.Loops) > 0 {
-			return res, &ForwardError{URL: o.Influx.URL, Sent: n, Quarantined: q, DB: db}
 		}
-		fmt.Fprintf(out, "\nsent %d points to %s (bucket %s)\n", n, o.Influx.URL, o.Influx.Bucket)
 	}
 	return res, nil
+}
+
+// startBench starts the simulated bench cfg (nil: sim.DefaultBench) on
+// clk's time and says so on out.
+func startBench(ctx context.Context, cfg *sim.Config, clk clock.Clock, out io.Writer) (*sim.Bench, error) {
+	if cfg == nil {
+		c, err := sim.DefaultBench()
+		if err != nil {
+			return nil, fmt.Errorf("demo bench: %w", err)
+		}
+		cfg = &c
+	}
+	pace := "real time"
+	if clock.IsSimulated(clk) {
+		pace = "simulated time"
+	}
+	fmt.Fprintf(out, "starting the simulated bench %q on pseudo-terminals (%s)\n", cfg.Name, pace)
+	bench, err := sim.Start(ctx, *cfg, sim.WithClock(clk))
+	if err != nil {
+		return nil, fmt.Errorf("simulated bench: %w", err)
+	}
+	return bench, nil
+}
+
+// processor returns the loop processor of the opened bench with the
+// shipped calibration records that apply to its instruments at now, and
+// the events that say which were used; the processor's warnings go to log.
+func processor(opened *fixture.Opened, fx config.Fixture, sp config.Specimen, now time.Time, log *slog.Logger) (engine.Processor, []calrec.Event, error) {
+	// The shipped calibration records (configs/calibrations) apply to the
+	// bench's instruments by the identities they gave.
+	cals, err := calrec.LoadFS(configs.Samples, CalibrationDir, "configs/"+CalibrationDir)
+	if err != nil {
+		return nil, nil, err
+	}
+	used, calEvents, err := opened.Calibrations(cals, fx, now)
+	if err != nil {
+		return nil, nil, err
+	}
+	proc, warnings, err := opened.Processor(fx, sp, used)
+	if err != nil {
+		return nil, nil, err
+	}
+	for _, w := range warnings {
+		log.Warn(w) // a log line: stderr under hystd demo
+	}
+	return proc, calEvents, nil
+}
+
+// specimenGrade is the demo specimen's grade, from the shipped sample
+// grades.
+func specimenGrade(sp config.Specimen) (*grade.Grade, error) {
+	grades, err := grade.LoadFS(configs.Samples, ".", "configs")
+	if err != nil {
+		return nil, err
+	}
+	gr, err := grades.Lookup(sp.Grade)
+	if err != nil {
+		return nil, fmt.Errorf("demo specimen %s: %w", sp.ID, err)
+	}
+	return gr, nil
+}
+
+// readBack reads res.Run and its loops, with samples, back from the store:
+// what was committed, whatever the ending.
+func readBack(ctx context.Context, st *store.Store, res *Result) error {
+	id := res.Run.ID
+	if id == "" {
+		return nil
+	}
+	if r, err := st.Run(ctx, id); err == nil {
+		res.Run = r
+	}
+	loops, err := st.Loops(ctx, id)
+	if err != nil {
+		return err
+	}
+	for _, l := range loops {
+		full, err := st.Loop(ctx, id, l.N)
+		if err != nil {
+			return err
+		}
+		res.Loops = append(res.Loops, full)
+	}
+	return nil
+}
+
+// forward sends the stored loops to o.Influx and waits (up to o.InfluxWait)
+// until the server acknowledged those of res.Run.
+func forward(ctx context.Context, o Options, st *store.Store, res Result, out io.Writer) error {
+	db := res.DB
+	wait := o.InfluxWait
+	if wait <= 0 {
+		wait = time.Minute
+	}
+	dctx, cancel := context.WithTimeout(ctx, wait)
+	defer cancel()
+	n, err := influx.DeliverAll(dctx, st, *o.Influx)
+	if err != nil {
+		return &ForwardError{URL: o.Influx.URL, Sent: n, Err: fmt.Errorf("%w (the rest stay in the outbox of %s)", err, db)}
+	}
+	if q, err := quarantinedOf(ctx, st, res.Run.ID); err != nil {
+		return err
+	} else if len(q) > 0 || n == 0 && len(res.Loops) > 0 {
+		return &ForwardError{URL: o.Influx.URL, Sent: n, Quarantined: q, DB: db}
+	}
+	fmt.Fprintf(out, "\nsent %d points to %s (bucket %s)\n", n, o.Influx.URL, o.Influx.Bucket)
+	return nil
 }
 
 func loadSamples(capture string) (config.Fixture, config.Specimen, *recipe.Recipe, error) {

@@ -238,6 +238,8 @@ func (x *exec) command(st recipe.Step, level float64) (float64, error) {
 	return i, nil
 }
 
+// step runs one recipe step round by round on its schedule, then ends it
+// (endStep).
 func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	n := len(x.p.Steps)
 	x.event(ctx, "info", "step %d/%d %s (%s) started, planned %s", st.N, n, st.Kind, st.Source, st.Duration())
@@ -247,7 +249,6 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	stepStart := x.s.Clock.Now()
 	lastProgress := stepStart
 	prevPhase := record.Phase("")
-	in := x.s.Instruments
 	cpt, err := x.newCapture(st)
 	if err != nil {
 		return err
@@ -274,18 +275,8 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		level, phase, done := st.At(t)
 		if st.Loop != nil && phase == record.PreHold && prevPhase != record.PreHold {
 			loopStart = now
-			if in.Integrator != nil { // the field is static: zero the integrator
-				cctx, cancel := context.WithTimeout(ctx, x.comm)
-				err := in.Integrator.Reset(cctx)
-				cancel()
-				if err != nil {
-					return x.stopErr(ctx, safety.Comm("integrator", fmt.Errorf("reset: %w", err)))
-				}
-			}
-			if cpt != nil {
-				if err := cpt.arm(ctx); err != nil {
-					return x.stopErr(ctx, err)
-				}
+			if err := x.startLoop(ctx, cpt); err != nil {
+				return err
 			}
 		}
 		prevPhase = phase
@@ -293,24 +284,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if err != nil {
 			return err
 		}
-		if cpt != nil {
-			if err := cpt.round(ctx, phase); err != nil {
-				return x.stopErr(ctx, err)
-			}
-		}
-		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
-		var rd sampler.Reading
-		if cpt != nil && phase == record.Sweep {
-			rd, err = cpt.readThenSet(cctx, set)
-		} else {
-			rd, err = setThenRead(cctx, in.Supply, x.smp, set)
-			if cpt != nil && err == nil {
-				cpt.note(rd.Sample, set, phase)
-			}
-		}
-		cancel()
+		rd, err := x.readRound(ctx, cpt, phase, set)
 		if err != nil {
-			return x.stopErr(ctx, violationOf(err))
+			return err
 		}
 		s := rd.Sample
 		s.Phase, s.Setpoint = phase, level
@@ -343,6 +319,61 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			return err
 		}
 	}
+	x.stepWarnings(ctx, st, stalls, stalled)
+	return x.endStep(ctx, st, cpt, raw, drift, loopStart)
+}
+
+// startLoop zeroes the integrator (the field is static) and arms a
+// buffered capture (cpt, when not nil) at the start of a loop's pre-hold.
+func (x *exec) startLoop(ctx context.Context, cpt *capture) error {
+	in := x.s.Instruments
+	if in.Integrator != nil { // the field is static: zero the integrator
+		cctx, cancel := context.WithTimeout(ctx, x.comm)
+		err := in.Integrator.Reset(cctx)
+		cancel()
+		if err != nil {
+			return x.stopErr(ctx, safety.Comm("integrator", fmt.Errorf("reset: %w", err)))
+		}
+	}
+	if cpt != nil {
+		if err := cpt.arm(ctx); err != nil {
+			return x.stopErr(ctx, err)
+		}
+	}
+	return nil
+}
+
+// readRound sets the supply to set and reads the instruments once: in that
+// order when polled, the other way round in the sweep of a buffered capture
+// (cpt, when not nil).
+func (x *exec) readRound(ctx context.Context, cpt *capture, phase record.Phase, set float64) (sampler.Reading, error) {
+	in := x.s.Instruments
+	if cpt != nil {
+		if err := cpt.round(ctx, phase); err != nil {
+			return sampler.Reading{}, x.stopErr(ctx, err)
+		}
+	}
+	cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
+	var rd sampler.Reading
+	var err error
+	if cpt != nil && phase == record.Sweep {
+		rd, err = cpt.readThenSet(cctx, set)
+	} else {
+		rd, err = setThenRead(cctx, in.Supply, x.smp, set)
+		if cpt != nil && err == nil {
+			cpt.note(rd.Sample, set, phase)
+		}
+	}
+	cancel()
+	if err != nil {
+		return sampler.Reading{}, x.stopErr(ctx, violationOf(err))
+	}
+	return rd, nil
+}
+
+// stepWarnings records the stalled rounds of step st and the late replies
+// read again during it.
+func (x *exec) stepWarnings(ctx context.Context, st recipe.Step, stalls int, stalled time.Duration) {
 	if stalls > 0 {
 		x.event(ctx, "warn", "step %d: %d stalled rounds (%s in all): the sweep waited and resumed where it stopped",
 			st.N, stalls, stalled.Round(time.Millisecond))
@@ -350,7 +381,14 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 	if n := x.retries.Swap(0); n > 0 {
 		x.event(ctx, "warn", "step %d: %d late replies were read again within limits.comm_timeout", st.N, n)
 	}
+}
+
+// endStep completes step st once its last round is read: merges a buffered
+// capture's readings into raw, stores the loop, and records the drift rate
+// of a drift hold.
+func (x *exec) endStep(ctx context.Context, st recipe.Step, cpt *capture, raw, drift []record.Sample, loopStart time.Time) error {
 	if cpt != nil {
+		var err error
 		if raw, err = cpt.merge(ctx, raw); err != nil {
 			return x.stopErr(ctx, err)
 		}

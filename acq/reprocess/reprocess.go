@@ -156,18 +156,44 @@ func Run(ctx context.Context, st Store, o Options) (Result, error) {
 	if o.Judge != nil {
 		judge = o.Judge(sp)
 	}
-	prev, err := st.LoopsOf(ctx, run.ID, cur.N)
+	loops, err := reprocessLoops(ctx, st, run.ID, cur.N, n, step, judge, event)
 	if err != nil {
 		return Result{}, err
+	}
+	cfg := snap.With(fx, sp)
+	sum := sha256.Sum256([]byte(cfg))
+	v := record.Revision{RunID: run.ID, N: n, At: o.Now, By: by, Change: strings.Join(change, "\n"),
+		Fixture: fx.Name, Specimen: sp.ID, Material: sp.Material, Grade: sp.Grade,
+		Config: cfg, ConfigHash: hex.EncodeToString(sum[:])}
+	if err := st.AddRevision(ctx, v, loops); err != nil {
+		return Result{}, err
+	}
+	for _, e := range events {
+		if err := st.AddEvent(ctx, e); err != nil {
+			return Result{}, fmt.Errorf("revision %d stored, but its event was not: %w", n, err)
+		}
+	}
+	run.Revision = n
+	return Result{Run: run, Revision: v, Loops: loops, Events: events}, nil
+}
+
+// reprocessLoops recomputes with step every loop of revision cur of run
+// runID from its raw samples as loops of revision n, judged by judge when
+// not nil; event records what the run is told.
+func reprocessLoops(ctx context.Context, st Store, runID string, cur, n int, step stepFunc,
+	judge func(record.Loop) []record.Verdict, event func(level, text string)) ([]record.Loop, error) {
+	prev, err := st.LoopsOf(ctx, runID, cur)
+	if err != nil {
+		return nil, err
 	}
 	var loops []record.Loop
 	calSeen := map[string]bool{}
 	for _, pl := range prev {
-		full, err := st.LoopOf(ctx, run.ID, pl.N, cur.N)
+		full, err := st.LoopOf(ctx, runID, pl.N, cur)
 		if err != nil {
-			return Result{}, err
+			return nil, err
 		}
-		l := record.Loop{RunID: run.ID, N: pl.N, Revision: n, Kind: pl.Kind, Amplitude: pl.Amplitude,
+		l := record.Loop{RunID: runID, N: pl.N, Revision: n, Kind: pl.Kind, Amplitude: pl.Amplitude,
 			AmpUnit: pl.AmpUnit, Started: pl.Started}
 		pr, cals, err := step(full.Raw, loopInfo(pl))
 		for _, c := range cals {
@@ -196,21 +222,7 @@ func Run(ctx context.Context, st Store, o Options) (Result, error) {
 		}
 		loops = append(loops, l)
 	}
-	cfg := snap.With(fx, sp)
-	sum := sha256.Sum256([]byte(cfg))
-	v := record.Revision{RunID: run.ID, N: n, At: o.Now, By: by, Change: strings.Join(change, "\n"),
-		Fixture: fx.Name, Specimen: sp.ID, Material: sp.Material, Grade: sp.Grade,
-		Config: cfg, ConfigHash: hex.EncodeToString(sum[:])}
-	if err := st.AddRevision(ctx, v, loops); err != nil {
-		return Result{}, err
-	}
-	for _, e := range events {
-		if err := st.AddEvent(ctx, e); err != nil {
-			return Result{}, fmt.Errorf("revision %d stored, but its event was not: %w", n, err)
-		}
-	}
-	run.Revision = n
-	return Result{Run: run, Revision: v, Loops: loops, Events: events}, nil
+	return loops, nil
 }
 
 // stepFunc processes one loop's raw samples; the events are calibration

@@ -1,9 +1,11 @@
 package main
 
 import (
+	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"os/user"
 	"strings"
 	"time"
@@ -61,46 +63,12 @@ func newReprocessCmd() *cobra.Command {
 			var db string
 			var err error
 			if cfgPath != "" {
-				cfg, err := daemon.Load(cfgPath)
-				if err != nil {
-					return err
-				}
-				db = cfg.Config.Store.Path
-				o.Judge = daemon.Judge(cfg)
-				if fixture != "" {
-					if lf, ok := cfg.Fixture(fixture); ok {
-						o.Fixture = &lf.Fixture
-					} else if fx, err := config.LoadFixture(fixture); err == nil {
-						o.Fixture = &fx
-					} else {
-						return fmt.Errorf("--fixture %s: not a fixture of %s, and %w", fixture, cfgPath, err)
-					}
-				}
-				if specimen != "" {
-					sp, err := cfg.Registry.Specimen(specimen)
-					if err != nil {
-						return fmt.Errorf("--specimen: %w", err)
-					}
-					o.Specimen = &sp
-				}
+				db, err = reprocessFromConfig(cfgPath, fixture, specimen, &o)
 			} else {
-				if fixture != "" {
-					fx, err := config.LoadFixture(fixture)
-					if err != nil {
-						return fmt.Errorf("--fixture: %w", err)
-					}
-					o.Fixture = &fx
-				}
-				if specimen != "" {
-					sp, err := config.LoadSpecimen(specimen)
-					if err != nil {
-						return fmt.Errorf("--specimen: %w", err)
-					}
-					o.Specimen = &sp
-				}
-				if db, err = storePath(dataDir, ""); err != nil {
-					return err
-				}
+				db, err = reprocessFromFiles(dataDir, fixture, specimen, &o)
+			}
+			if err != nil {
+				return err
 			}
 			ctx := cmd.Context()
 			st, err := store.Open(ctx, db)
@@ -117,45 +85,9 @@ func newReprocessCmd() *cobra.Command {
 			}
 			out := cmd.OutOrStdout()
 			if asJSON {
-				j := reprocessJSON{RunID: res.Run.ID, Revision: res.Revision.N, By: res.Revision.By,
-					Change: strings.Split(res.Revision.Change, "\n"), Loops: []loopcsv.Summary{}}
-				for _, l := range res.Loops {
-					j.Loops = append(j.Loops, imports.Summary(l))
-				}
-				enc := json.NewEncoder(out)
-				enc.SetIndent("", "  ")
-				return enc.Encode(j)
+				return printReprocessJSON(out, res)
 			}
-			fmt.Fprintf(out, "run %s: revision %d by %s, stored in %s\n", res.Run.ID, res.Revision.N, res.Revision.By, db)
-			for _, ch := range strings.Split(res.Revision.Change, "\n") {
-				fmt.Fprintf(out, "  changed %s\n", ch)
-			}
-			for _, e := range res.Events {
-				if e.Level != "info" {
-					fmt.Fprintf(out, "  %s: %s\n", e.Level, e.Text)
-				}
-			}
-			for _, l := range res.Loops {
-				prev, err := st.LoopOf(ctx, res.Run.ID, l.N, res.Revision.N-1)
-				if err != nil {
-					return err
-				}
-				was := map[string]record.Figure{}
-				for _, f := range prev.Figures {
-					was[f.Name] = f
-				}
-				fmt.Fprintf(out, "loop %d (revision %d → %d):\n", l.N, res.Revision.N-1, res.Revision.N)
-				for _, f := range l.Figures {
-					v, u := units.Rounded(f.Value, f.U)
-					line := fmt.Sprintf("  %-12s %s ± %s %s (k = 2)", f.Name, v, u, f.Unit)
-					if p, ok := was[f.Name]; ok {
-						pv, pu := units.Rounded(p.Value, p.U)
-						line += fmt.Sprintf("   was %s ± %s", pv, pu)
-					}
-					fmt.Fprintln(out, line)
-				}
-			}
-			return nil
+			return printReprocess(ctx, out, st, res, db)
 		},
 	}
 	c.Flags().StringVar(&dataDir, "data", "hystd-data", "folder holding hystd.db")
@@ -166,4 +98,101 @@ func newReprocessCmd() *cobra.Command {
 	c.Flags().BoolVar(&asJSON, "json", false, "print the revision and, per loop, the keys of analyze --json")
 	c.ValidArgsFunction = completeRunIDs(&dataDir)
 	return c
+}
+
+// reprocessFromConfig fills o's fixture, specimen and judge from the daemon
+// config at cfgPath (a fixture name of it, or else a fixture file; a
+// specimen id of its registry) and returns its store's path.
+func reprocessFromConfig(cfgPath, fixture, specimen string, o *reprocess.Options) (string, error) {
+	cfg, err := daemon.Load(cfgPath)
+	if err != nil {
+		return "", err
+	}
+	db := cfg.Config.Store.Path
+	o.Judge = daemon.Judge(cfg)
+	if fixture != "" {
+		if lf, ok := cfg.Fixture(fixture); ok {
+			o.Fixture = &lf.Fixture
+		} else if fx, err := config.LoadFixture(fixture); err == nil {
+			o.Fixture = &fx
+		} else {
+			return "", fmt.Errorf("--fixture %s: not a fixture of %s, and %w", fixture, cfgPath, err)
+		}
+	}
+	if specimen != "" {
+		sp, err := cfg.Registry.Specimen(specimen)
+		if err != nil {
+			return "", fmt.Errorf("--specimen: %w", err)
+		}
+		o.Specimen = &sp
+	}
+	return db, nil
+}
+
+// reprocessFromFiles fills o's fixture and specimen from files and returns
+// the path of the store in dataDir.
+func reprocessFromFiles(dataDir, fixture, specimen string, o *reprocess.Options) (string, error) {
+	if fixture != "" {
+		fx, err := config.LoadFixture(fixture)
+		if err != nil {
+			return "", fmt.Errorf("--fixture: %w", err)
+		}
+		o.Fixture = &fx
+	}
+	if specimen != "" {
+		sp, err := config.LoadSpecimen(specimen)
+		if err != nil {
+			return "", fmt.Errorf("--specimen: %w", err)
+		}
+		o.Specimen = &sp
+	}
+	return storePath(dataDir, "")
+}
+
+// printReprocessJSON prints res as reprocessJSON.
+func printReprocessJSON(out io.Writer, res reprocess.Result) error {
+	j := reprocessJSON{RunID: res.Run.ID, Revision: res.Revision.N, By: res.Revision.By,
+		Change: strings.Split(res.Revision.Change, "\n"), Loops: []loopcsv.Summary{}}
+	for _, l := range res.Loops {
+		j.Loops = append(j.Loops, imports.Summary(l))
+	}
+	enc := json.NewEncoder(out)
+	enc.SetIndent("", "  ")
+	return enc.Encode(j)
+}
+
+// printReprocess prints the stored revision res: what changed, the events
+// that were not info, and per loop its figures beside the previous
+// revision's (read from st).
+func printReprocess(ctx context.Context, out io.Writer, st *store.Store, res reprocess.Result, db string) error {
+	fmt.Fprintf(out, "run %s: revision %d by %s, stored in %s\n", res.Run.ID, res.Revision.N, res.Revision.By, db)
+	for _, ch := range strings.Split(res.Revision.Change, "\n") {
+		fmt.Fprintf(out, "  changed %s\n", ch)
+	}
+	for _, e := range res.Events {
+		if e.Level != "info" {
+			fmt.Fprintf(out, "  %s: %s\n", e.Level, e.Text)
+		}
+	}
+	for _, l := range res.Loops {
+		prev, err := st.LoopOf(ctx, res.Run.ID, l.N, res.Revision.N-1)
+		if err != nil {
+			return err
+		}
+		was := map[string]record.Figure{}
+		for _, f := range prev.Figures {
+			was[f.Name] = f
+		}
+		fmt.Fprintf(out, "loop %d (revision %d → %d):\n", l.N, res.Revision.N-1, res.Revision.N)
+		for _, f := range l.Figures {
+			v, u := units.Rounded(f.Value, f.U)
+			line := fmt.Sprintf("  %-12s %s ± %s %s (k = 2)", f.Name, v, u, f.Unit)
+			if p, ok := was[f.Name]; ok {
+				pv, pu := units.Rounded(p.Value, p.U)
+				line += fmt.Sprintf("   was %s ± %s", pv, pu)
+			}
+			fmt.Fprintln(out, line)
+		}
+	}
+	return nil
 }

@@ -82,48 +82,59 @@ func validateBuffered(p Profile, add func(string, string, ...any)) {
 		add("buffered", "only for an integrator or a field meter, not %s", article(p.Role))
 		return
 	}
-	setting := func(key string, o Operation, required, numeric bool, unit string) {
-		key = "buffered." + key
-		switch {
-		case o.Set == "" && o.Query == "":
-			if required {
-				add(key, "required: a setting (set:)")
-			}
-			return
-		case o.Query != "" || o.Parse != "":
-			add(key, "must be a setting (set:), not a query")
-			return
+	validateBufferedSetting(add, "trigger", b.Trigger, false, false, "")
+	validateBufferedSetting(add, "period", b.Period, true, true, "s")
+	validateBufferedSetting(add, "count", b.Count, true, true, "")
+	validateBufferedSetting(add, "delay", b.Delay, false, true, "s")
+	validateBufferedSetting(add, "arm", b.Arm, true, false, "")
+	validateBufferedSetting(add, "start", b.Start, true, false, "")
+	validateBufferedRanges(add, b)
+	validateBufferedQueries(add, b)
+	validateFetch(add, b.Fetch, unit)
+}
+
+// validateBufferedSetting checks the setting buffered.<key>: whether it is
+// required, whether it takes a value (numeric) and the unit of that value.
+func validateBufferedSetting(add adder, key string, o Operation, required, numeric bool, unit string) {
+	key = "buffered." + key
+	switch {
+	case o.Set == "" && o.Query == "":
+		if required {
+			add(key, "required: a setting (set:)")
 		}
-		n := strings.Count(o.Set, "{}")
-		switch {
-		case numeric && n != 1:
-			add(key+".set", "%q: needs exactly one {} where the value goes", o.Set)
-		case !numeric && n != 0:
-			add(key+".set", "%q: this operation takes no value; remove {}", o.Set)
-		}
-		if o.Unit != unit {
-			add(key+".unit", "%q: want %q", o.Unit, unit)
-		}
-		if numeric {
-			if len(o.Range) != 2 || !(o.Range[0] < o.Range[1]) {
-				add(key+".range", "required: [min, max] with min below max")
-			}
-			if o.Format != "" {
-				if m := verbRE.FindAllString(o.Format, -1); len(m) != 1 || strings.Count(o.Format, "%") != 1 {
-					add(key+".format", "%q: want one number verb such as %%g, %%.6E, %%d", o.Format)
-				}
-			}
-		} else if o.Format != "" || o.Range != nil {
-			add(key, "format and range are for settings with a value")
-		}
-		checkDur(add, key+".settle", o.Settle, false)
+		return
+	case o.Query != "" || o.Parse != "":
+		add(key, "must be a setting (set:), not a query")
+		return
 	}
-	setting("trigger", b.Trigger, false, false, "")
-	setting("period", b.Period, true, true, "s")
-	setting("count", b.Count, true, true, "")
-	setting("delay", b.Delay, false, true, "s")
-	setting("arm", b.Arm, true, false, "")
-	setting("start", b.Start, true, false, "")
+	n := strings.Count(o.Set, "{}")
+	switch {
+	case numeric && n != 1:
+		add(key+".set", "%q: needs exactly one {} where the value goes", o.Set)
+	case !numeric && n != 0:
+		add(key+".set", "%q: this operation takes no value; remove {}", o.Set)
+	}
+	if o.Unit != unit {
+		add(key+".unit", "%q: want %q", o.Unit, unit)
+	}
+	if numeric {
+		if len(o.Range) != 2 || !(o.Range[0] < o.Range[1]) {
+			add(key+".range", "required: [min, max] with min below max")
+		}
+		if o.Format != "" {
+			if m := verbRE.FindAllString(o.Format, -1); len(m) != 1 || strings.Count(o.Format, "%") != 1 {
+				add(key+".format", "%q: want one number verb such as %%g, %%.6E, %%d", o.Format)
+			}
+		}
+	} else if o.Format != "" || o.Range != nil {
+		add(key, "format and range are for settings with a value")
+	}
+	checkDur(add, key+".settle", o.Settle, false)
+}
+
+// validateBufferedRanges checks the ranges of period, count and delay
+// against what a timed acquisition can be.
+func validateBufferedRanges(add adder, b *Buffered) {
 	if r := b.Period.Range; len(r) == 2 && !(r[0] > 0) {
 		add("buffered.period.range", "the shortest period must be positive, got %g s", r[0])
 	}
@@ -133,6 +144,10 @@ func validateBuffered(p Profile, add func(string, string, ...any)) {
 	if r := b.Delay.Range; len(r) == 2 && r[0] < 0 {
 		add("buffered.delay.range", "a delay cannot be negative, got %g s", r[0])
 	}
+}
+
+// validateBufferedQueries checks done, clock and clock_accuracy.
+func validateBufferedQueries(add adder, b *Buffered) {
 	if b.Done.Query == "" || b.Done.Set != "" {
 		add("buffered.done", "required: a query (query:, parse: bool) that says the acquisition is complete")
 	} else if b.Done.Parse != "bool" {
@@ -146,7 +161,11 @@ func validateBuffered(p Profile, add func(string, string, ...any)) {
 	if !(b.ClockAccuracy >= 0 && b.ClockAccuracy < 0.01) {
 		add("buffered.clock_accuracy", "%g: want a fraction within 0..0.01 (e.g. 1.0e-4 for 100 ppm)", b.ClockAccuracy)
 	}
-	f := b.Fetch
+}
+
+// validateFetch checks buffered.fetch; unit is the one the role's buffer
+// holds.
+func validateFetch(add adder, f Fetch, unit string) {
 	if strings.TrimSpace(f.Query) == "" || strings.Contains(f.Query, "{}") {
 		add("buffered.fetch.query", "required: the query whose reply is the buffer as a definite-length block")
 	}

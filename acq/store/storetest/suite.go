@@ -652,6 +652,27 @@ func testRevisions(t *testing.T, b Backend) {
 	must(t, b.SetState(ctx(), run.ID, record.Running, "", t0))
 	must(t, b.SetState(ctx(), run.ID, record.Finished, "", t0.Add(time.Hour)))
 	run.State, run.Ended = record.Finished, t0.Add(time.Hour)
+	checkRevisionRefusals(t, b, run, orig, v2, l2)
+	must(t, b.AddRevision(ctx(), v2, l2))
+	if err := b.AddRevision(ctx(), v2, l2); err == nil {
+		t.Fatal("revision 2 stored twice")
+	}
+	r := checkRevisionHeads(t, b, run, v2)
+	checkRevisionLoops(t, b, run, orig, l2)
+	checkRevisionOutbox(t, b, run, orig)
+	v3, l3 := revisionOf(r, 3, "bo", orig)
+	must(t, b.AddRevision(ctx(), v3, l3))
+	revs, err = b.Revisions(ctx(), run.ID)
+	must(t, err)
+	if len(revs) != 3 || revs[2].By != "bo" || revs[1].By != "alba" {
+		t.Fatalf("three revisions: %+v", revs)
+	}
+}
+
+// checkRevisionRefusals checks that revisions of the ended run that skip a
+// number, carry a wrong config hash, name a loop the run does not have or
+// have no loops are refused, storing nothing.
+func checkRevisionRefusals(t *testing.T, b Backend, run record.Run, orig []record.Loop, v2 record.Revision, l2 []record.Loop) {
 	v3, _ := revisionOf(run, 3, "alba", orig)
 	badHash := v2
 	badHash.ConfigHash = "00"
@@ -674,16 +695,17 @@ func testRevisions(t *testing.T, b Backend) {
 	if p, _ := b.Pending(ctx(), 0); len(p) != 2 {
 		t.Fatalf("%d outbox entries after refusals, want 2", len(p))
 	}
-	must(t, b.AddRevision(ctx(), v2, l2))
-	if err := b.AddRevision(ctx(), v2, l2); err == nil {
-		t.Fatal("revision 2 stored twice")
-	}
+}
+
+// checkRevisionHeads checks the run row and the revision list once
+// revision 2 (v2) is stored, and returns the run as read back.
+func checkRevisionHeads(t *testing.T, b Backend, run record.Run, v2 record.Revision) record.Run {
 	r, err := b.Run(ctx(), run.ID)
 	must(t, err)
 	if r.Revision != 2 || r.Specimen != run.Specimen || r.Config != run.Config {
 		t.Fatalf("run after revision 2: revision %d, specimen %q (the run row keeps revision 1's)", r.Revision, r.Specimen)
 	}
-	revs, err = b.Revisions(ctx(), run.ID)
+	revs, err := b.Revisions(ctx(), run.ID)
 	must(t, err)
 	first := record.FirstRevision(run)
 	if len(revs) != 2 || revs[0].N != 1 || revs[0].Specimen != first.Specimen || revs[0].ConfigHash != first.ConfigHash ||
@@ -695,6 +717,12 @@ func testRevisions(t *testing.T, b Backend) {
 		g.ConfigHash != v2.ConfigHash || !g.At.Equal(v2.At) || g.Fixture != v2.Fixture {
 		t.Fatalf("revision 2: %+v, want %+v", g, v2)
 	}
+	return r
+}
+
+// checkRevisionLoops checks the loops of both revisions once revision 2
+// (l2, over the raw samples of orig) is stored.
+func checkRevisionLoops(t *testing.T, b Backend, run record.Run, orig, l2 []record.Loop) {
 	for n := 1; n <= 2; n++ {
 		// Revision 1 reads back exactly as stored; revision 2 has its own
 		// points and figures over the same raw samples.
@@ -734,6 +762,11 @@ func testRevisions(t *testing.T, b Backend) {
 	if _, err := b.Revisions(ctx(), "ghost"); !errors.Is(err, record.ErrNotFound) {
 		t.Fatalf("revisions of an unknown run: %v", err)
 	}
+}
+
+// checkRevisionOutbox checks the outbox and the trend once revision 2 is
+// stored.
+func checkRevisionOutbox(t *testing.T, b Backend, run record.Run, orig []record.Loop) {
 	// The outbox sends revision 2 beside revision 1: nothing is replaced.
 	p, err := b.Pending(ctx(), 0)
 	must(t, err)
@@ -749,12 +782,5 @@ func testRevisions(t *testing.T, b Backend) {
 	must(t, err)
 	if len(tr) != 2 || tr[0].Value != orig[0].Figures[0].Value/2 {
 		t.Fatalf("trend after revision 2: %+v", tr)
-	}
-	v3, l3 := revisionOf(r, 3, "bo", orig)
-	must(t, b.AddRevision(ctx(), v3, l3))
-	revs, err = b.Revisions(ctx(), run.ID)
-	must(t, err)
-	if len(revs) != 3 || revs[2].By != "bo" || revs[1].By != "alba" {
-		t.Fatalf("three revisions: %+v", revs)
 	}
 }
