@@ -27,9 +27,9 @@ func recorded(id string, evs []record.Event, recs []calrec.Record, dir string) (
 	for _, r := range recs {
 		byID[r.ID] = r
 	}
-	folder := "the calibrations folder " + dir
+	missing := "which the calibrations folder " + dir + " does not hold"
 	if dir == "" {
-		folder = "the calibrations folder (none given: re-process with the daemon config the run was recorded under, --config)"
+		missing = "but no calibrations folder was given to take it from (the daemon config's calibrations; hystd reprocess --config)"
 	}
 	var out []calrec.Record
 	seen := map[string]bool{}
@@ -46,7 +46,7 @@ func recorded(id string, evs []record.Event, recs []calrec.Record, dir string) (
 		want := "calibration " + rest
 		r, ok := byID[rid]
 		if !ok {
-			return nil, bad("run %s used %s, which %s does not hold: re-processing without it would drop its correction; nothing was changed", id, want, folder)
+			return nil, bad("run %s used %s, %s: re-processing without it would drop its correction; nothing was changed", id, want, missing)
 		}
 		if got := r.Describe(); got != want {
 			return nil, bad("run %s used %s, but %s now holds %s: the record differs from the one the run used; nothing was changed", id, want, r.File, got)

@@ -45,7 +45,7 @@ func TestLiveRunCalibrationRecords(t *testing.T) {
 		dir  string
 		want string // in the error; "" when it is re-processed
 	}{
-		{"no folder", nil, "", "which the calibrations folder (none given: re-process with the daemon config the run was recorded under, --config) does not hold"},
+		{"no folder", nil, "", "but no calibrations folder was given"},
 		{"missing", []calrec.Record{calRecord(t, "CAL-8", "CERT-9", "2025-02-01", "2027-02-01")}, "/lab/cal", "the calibrations folder /lab/cal does not hold"},
 		{"certificate", []calrec.Record{calRecord(t, "CAL-9", "CERT-9b", "2025-02-01", "2027-02-01")}, "/lab/cal", "cal/CAL-9.yaml now holds calibration CAL-9 (integrator HYSTD-SIM,FLUX-INTEGRATOR,7; certificate CERT-9b"},
 		{"date", []calrec.Record{calRecord(t, "CAL-9", "CERT-9", "2025-02-02", "2027-02-01")}, "/lab/cal", "2025-02-02, due 2027-02-01"},
