@@ -12,8 +12,9 @@ import (
 // Reprocess re-processes stored run id with the specimen and/or fixture of
 // body (YAML documents, reprocess.ParseChange) and stores the result as
 // the run's next revision, recorded as made by by (package acq/reprocess).
-// Its loops are judged against the new specimen's grade. It runs no
-// instrument.
+// Its loops are judged against the new specimen's grade; a live run's
+// calibration records are taken from the config's calibrations folder. It
+// runs no instrument.
 func (d *Daemon) Reprocess(ctx context.Context, id string, body []byte, by string) (record.Revision, []record.Loop, error) {
 	st, ok := d.deps.Writer.(reprocess.Store)
 	if !ok {
@@ -23,8 +24,9 @@ func (d *Daemon) Reprocess(ctx context.Context, id string, body []byte, by strin
 	if err != nil {
 		return record.Revision{}, nil, err
 	}
+	cfg := d.cfg.Load()
 	res, err := reprocess.Run(ctx, st, reprocess.Options{RunID: id, Fixture: fx, Specimen: sp, By: by,
-		Now: d.deps.Clock.Now(), Judge: Judge(d.cfg.Load())})
+		Now: d.deps.Clock.Now(), Judge: Judge(cfg), Calibrations: cfg.Calibrations, CalibrationsDir: cfg.Config.Calibrations})
 	if err != nil {
 		return record.Revision{}, nil, err
 	}

@@ -33,7 +33,11 @@
 // record the events and apply `calibration_past_due` (`daemon.useCalibrations`) before `Execute`.
 // `TestCalibrationOnBench` and `TestDaemonRefusesPastDueCalibration` (`acq/daemon`, simulated bench) check the
 // 1/g scaling against the run's own stored raw samples, the warning, and the refusal by the bench's truth.
-// Re-processing (acq/reprocess) applies an imported run's records, which its config stores; a live run stores
-// only the ids of the records it used (its events), so re-processing refuses such a run rather than drop
-// their correction.
+// Re-processing (acq/reprocess) applies an imported run's records, which its config stores. A live run's config is
+// written before its instruments open and holds none: its events name the records it used (`calrec.UsedPrefix`,
+// with target, certificate, date and due date), and re-processing takes each from the daemon config's
+// `calibrations` folder, refusing the run, naming the record, when one is missing there or its `Describe` differs
+// from what the run recorded; the records go through `calrec.Use` and `fixture.Offline`, the live path.
+// `TestReprocessCalibratedRun` (`acq/daemon`, simulated bench) checks the exact halving with the record applied
+// in both revisions and both refusals.
 package imports

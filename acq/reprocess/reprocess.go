@@ -7,9 +7,12 @@
 // The loops go through the same processing as when the run was recorded:
 // a live run's through the live processor (fixture.Offline: the one
 // fixture.Opened.Processor builds, with the profiles' accuracies, open
-// curves placed from the run's own saturating loops), an imported run's
-// through the import's (imports.Stepper, with the calibration records the
-// import used). Only the fixture or specimen differs.
+// curves placed from the run's own saturating loops, and the calibration
+// records the run used: those its events name, taken from the daemon
+// config's calibrations folder and refused unless each is there as the run
+// recorded it), an imported run's through the import's (imports.Stepper,
+// with the calibration records its config stores). Only the fixture or
+// specimen differs; the new revision's events name the records applied.
 //
 // What changed is written into the revision as "specimen.direct.area_mm2:
 // 50 → 100" lines, with who made it; the run gets an event saying so.
@@ -64,6 +67,12 @@ type Options struct {
 	// Judge, when set, returns the verdicts of a loop of the new revision
 	// against the specimen's grade (nil: none).
 	Judge func(sp config.Specimen) func(record.Loop) []record.Verdict
+	// Calibrations are the records a live run's calibrations are taken
+	// from: those of the daemon config's calibrations folder (named
+	// CalibrationsDir in errors). Each record the run used (its events)
+	// must be among them as it was recorded, or the run is refused.
+	Calibrations    []calrec.Record
+	CalibrationsDir string
 }
 
 // Result is the stored revision.
@@ -132,20 +141,19 @@ func Run(ctx context.Context, st Store, o Options) (Result, error) {
 	}
 	event("info", fmt.Sprintf("re-processed from the raw samples by %s; changed %s", by, strings.Join(change, "; ")))
 
+	var cals []calrec.Record
 	if !isImport(run) {
-		// A live run's calibration records were chosen by the identities
-		// its instruments gave at open, and only their ids are stored (its
-		// events): re-processing without them would silently drop their
-		// correction, so such a run is refused.
+		// A live run's calibration records: those its events name, from
+		// the daemon config's folder, as recorded (recorded).
 		evs, err := st.Events(ctx, run.ID)
 		if err != nil {
 			return Result{}, err
 		}
-		if used := calrec.Listed(evs); len(used) > 0 {
-			return Result{}, bad("run %s used calibration records (%s): re-processing a live run with its calibration records is not supported yet; nothing was changed", run.ID, strings.Join(used, "; "))
+		if cals, err = recorded(run.ID, evs, o.Calibrations, o.CalibrationsDir); err != nil {
+			return Result{}, err
 		}
 	}
-	step, warns, err := processor(run, fx, sp, snap)
+	step, warns, err := processor(run, fx, sp, snap, cals)
 	if err != nil {
 		return Result{}, badErr(err)
 	}
@@ -229,8 +237,10 @@ func reprocessLoops(ctx context.Context, st Store, runID string, cur, n int, ste
 // records used.
 type stepFunc func(raw []record.Sample, li recipe.LoopInfo) (engine.Processed, []calrec.Event, error)
 
-// processor is the processing the run was recorded with, on fx and sp.
-func processor(run record.Run, fx config.Fixture, sp config.Specimen, snap Snapshot) (stepFunc, []string, error) {
+// processor is the processing the run was recorded with, on fx and sp; a
+// live run's with cals, the calibration records it used (recorded),
+// applied as when it ran (calrec.Use, judged past due at its start).
+func processor(run record.Run, fx config.Fixture, sp config.Specimen, snap Snapshot, cals []calrec.Record) (stepFunc, []string, error) {
 	if isImport(run) {
 		s, warns, err := imports.NewStepper(fx, sp, snap.Calibrations, run.Queued)
 		if err != nil {
@@ -243,15 +253,19 @@ func processor(run record.Run, fx config.Fixture, sp config.Specimen, snap Snaps
 		}, warns, nil
 	}
 	if len(snap.Calibrations) > 0 {
-		return nil, nil, errors.New("the run's stored config names calibration records, which live re-processing does not apply yet")
+		return nil, nil, errors.New("the run's stored config names calibration records, which a live run's never does")
 	}
-	p, warns, err := fixture.Offline(fx, sp, nil)
+	used, evs, err := calrec.Use(cals, fx, ranAt(run))
+	if err != nil {
+		return nil, nil, err
+	}
+	p, warns, err := fixture.Offline(fx, sp, used)
 	if err != nil {
 		return nil, nil, err
 	}
 	return func(raw []record.Sample, li recipe.LoopInfo) (engine.Processed, []calrec.Event, error) {
 		pr, err := p(raw, li)
-		return pr, nil, err
+		return pr, evs, err
 	}, warns, nil
 }
 

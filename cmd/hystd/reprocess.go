@@ -48,7 +48,9 @@ func newReprocessCmd() *cobra.Command {
 			"the earlier revisions are kept and stay readable (export --revision N, the API's ?revision=N, the\n" +
 			"page). The revision records what changed and who made the change (--by, default the OS user).\n" +
 			"--specimen is a specimen file, or an id of --config's specimens (loops are then judged against its\n" +
-			"grade); --fixture a fixture file, or a fixture name of --config. No instrument is touched.",
+			"grade); --fixture a fixture file, or a fixture name of --config. A live run that used calibration\n" +
+			"records is re-processed with them, taken from --config's calibrations folder; it is refused when\n" +
+			"one is missing there or differs from what the run recorded. No instrument is touched.",
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if fixture == "" && specimen == "" {
@@ -110,6 +112,7 @@ func reprocessFromConfig(cfgPath, fixture, specimen string, o *reprocess.Options
 	}
 	db := cfg.Config.Store.Path
 	o.Judge = daemon.Judge(cfg)
+	o.Calibrations, o.CalibrationsDir = cfg.Calibrations, cfg.Config.Calibrations
 	if fixture != "" {
 		if lf, ok := cfg.Fixture(fixture); ok {
 			o.Fixture = &lf.Fixture
