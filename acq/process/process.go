@@ -135,7 +135,7 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	}
 	hFrom := s.hSource()
 	al := alignH(raw, hFrom)
-	sw, pre, post, err := splitPhases(raw, al.h, s, hFrom)
+	sw, pre, post, err := splitPhases(raw, al.h, hFrom)
 	if err != nil {
 		return nil, nil, nil, err
 	}
@@ -168,7 +168,8 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	if figs, err = c.figures(s, sources); err != nil {
 		return nil, nil, nil, err
 	}
-	return pointsOf(sw.td, h, b, shape), figs, corr, nil
+	// The times in s are not needed any more: their storage takes J.
+	return pointsOf(sw.td, h, b, correct.Polarization(sw.t, h, b), shape), figs, corr, nil
 }
 
 // hSource is s.HFrom with its default.
@@ -228,24 +229,21 @@ type sweep struct {
 	t   []float64       // s
 	td  []time.Duration // the same times as stamped
 	psi []float64       // Wb-turns; B in place from the B stage on
-	// x is H = N1·I/l_m (A/m, computed while gathering to save a pass) for
-	// H from current, the probe reading (T) with its temperature (°C) in
-	// temp for H from the field meter.
+	// x is the H channel as read: the current (A), or the probe reading
+	// (T) with its temperature (°C) in temp. H in place from field on.
 	x, temp    []float64
 	n, missing int // sweep samples in the step, and those left out
 }
 
-func (sw *sweep) add(r *record.Sample, hv, kH float64, fromCurrent bool) {
+func (sw *sweep) add(r *record.Sample, hv float64, fromCurrent bool) {
 	sw.n++
 	if !finite(r.Psi) || !finite(hv) {
 		sw.missing++
 		return
 	}
 	sw.t = append(sw.t, seconds(r.T))
-	if fromCurrent {
-		sw.x = append(sw.x, kH*hv) // H = N1·I/l_m (correct.HFromCurrent)
-	} else {
-		sw.x = append(sw.x, hv)
+	sw.x = append(sw.x, hv)
+	if !fromCurrent {
 		sw.temp = append(sw.temp, r.TempC)
 	}
 	sw.psi = append(sw.psi, r.Psi)
@@ -256,7 +254,7 @@ func (sw *sweep) add(r *record.Sample, hv, kH float64, fromCurrent bool) {
 // reading, and the usable sweep samples with hAt, the aligned H channel
 // of each raw sample. It refuses an unknown phase, fewer than 3 sweep
 // samples, more than half of them unusable, and time running backwards.
-func splitPhases(raw []record.Sample, hAt []float64, s Setup, hFrom string) (sw sweep, pre, post hold, err error) {
+func splitPhases(raw []record.Sample, hAt []float64, hFrom string) (sw sweep, pre, post hold, err error) {
 	// Capacity len(raw): the holds are short, and one pass is cheaper than
 	// counting the sweep samples first.
 	n := len(raw)
@@ -268,7 +266,6 @@ func splitPhases(raw []record.Sample, hAt []float64, s Setup, hFrom string) (sw 
 	if !fromCurrent {
 		sw.temp = make([]float64, 0, n)
 	}
-	kH := float64(s.N1) / float64(s.PathLength)
 	for i := range raw {
 		r := &raw[i] // a Sample is 96 bytes: do not copy it
 		switch r.Phase {
@@ -277,7 +274,7 @@ func splitPhases(raw []record.Sample, hAt []float64, s Setup, hFrom string) (sw 
 		case record.PostHold:
 			post.add(r, hAt[i])
 		case record.Sweep:
-			sw.add(r, hAt[i], kH, fromCurrent)
+			sw.add(r, hAt[i], fromCurrent)
 		default:
 			return sweep{}, hold{}, hold{}, fmt.Errorf("sample %d: unknown phase %q", i, r.Phase)
 		}
@@ -302,11 +299,12 @@ func (sw *sweep) check(raw []record.Sample, hFrom string) error {
 	return nil
 }
 
-// field returns H (A/m) of the sweep samples: from the current, as
-// gathered; from the field meter, B_probe/μ0 after its calibration.
+// field turns the H channel of the sweep samples into H (A/m) in place:
+// N1·I/l_m from the current, B_probe/μ0 after the probe's calibration from
+// the field meter.
 func (sw *sweep) field(s Setup, hFrom string) []float64 {
 	if hFrom == HFromCurrent {
-		return sw.x
+		return correct.HFromCurrent(sw.x, sw.x, s.N1, s.PathLength)
 	}
 	return correct.HFromProbe(sw.x, sw.x, sw.temp, s.Probe)
 }
@@ -602,12 +600,11 @@ func (c curve) figures(s Setup, sources []loop.Source) ([]record.Figure, error) 
 	return figs, nil
 }
 
-// pointsOf returns the corrected points, J = B − μ0·H, labelled with
-// their branch.
-func pointsOf(td []time.Duration, h, b []float64, shape loop.Shape) []record.Point {
+// pointsOf returns the corrected points labelled with their branch.
+func pointsOf(td []time.Duration, h, b, j []float64, shape loop.Shape) []record.Point {
 	points := make([]record.Point, len(td))
 	for i := range td {
-		points[i] = record.Point{T: td[i], H: h[i], B: b[i], J: b[i] - units.Mu0*h[i]}
+		points[i] = record.Point{T: td[i], H: h[i], B: b[i], J: j[i]}
 	}
 	shape.Label(func(i, branch int) { points[i].Branch = branch })
 	return points
