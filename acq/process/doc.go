@@ -6,25 +6,31 @@
 //
 // # Processing chain (process.Loop(raw, setup))
 //
-//  1. Split the step's samples by phase. Pre and post holds (field static) give the integrator drift
-//     rates by least squares, each with its standard error. Each hold is fitted as ψ = a + r·t + c·H:
-//     the c term takes up the flux of a field still settling after a ramp (a closed loop on a yoke
-//     overshoots by some kA/m for ~0.2 s), which a straight line in time would read as drift 100 times
-//     the real one; with H static or moving in step with t it is the plain line ψ = a + r·t.
+//  1. Split the step's samples by phase (`splitPhases`). Pre and post holds (field static) give the
+//     integrator drift rates by least squares, each with its standard error. Each hold is fitted as
+//     ψ = a + r·t + c·H: the c term takes up the flux of a field still settling after a ramp (a closed loop
+//     on a yoke overshoots by some kA/m for ~0.2 s), which a straight line in time would read as drift 100
+//     times the real one; with H static or moving in step with t it is the plain line ψ = a + r·t
+//     (`holdRate`, `driftRates`).
 //  2. H from the current (N1·I/l_m) or from the field meter (B_probe/μ0 after its calibration), the current or
 //     probe reading first interpolated linearly in time onto the flux reading's time `T` (it was read at `T + DtI`,
-//     `T + DtB`) between neighbouring samples of the same setpoint.
+//     `T + DtB`) between neighbouring samples of the same setpoint (`alignH`, `alignTo`; `sweep.field`).
 //  3. Drift baseline on ψ: the rate is interpolated linearly in time between the pre and post rates and
-//     integrated (a straight line when the rates agree). No holds: no baseline, closure only.
-//  4. B = ψ/(N2·A); air flux −μ0·H·(A_c − A)/A when the search coil is larger than the specimen.
-//  5. Level of B, by drift mode: `cyclic-centred` (default) removes the closure error ε between the first
-//     and last tips of the same kind linearly in time, then centres on (B_top + B_bottom)/2; both compare
-//     the tips at the same |H| (the tips' H difference times dB/dH fitted at the tips is taken out first,
-//     since a closed loop may leave a tip kA/m short of ±H_m); `demagnetized-start` sets B = 0 at the
-//     first sweep sample (initial curve, μ_initial); `from-level` sets B = `Setup.StartB` there, with
-//     `Setup.UStartB` as a "start level" component of every budget (open demagnetization or recoil curves).
-//  6. Demagnetizing correction of open specimens: M = (B/μ0 − H)/(1 − N), H_int = H − N·M. Then J.
-//  7. Figures and budgets; every correction is returned with its size (`geometry`, `drift-baseline`,
+//     integrated (a straight line when the rates agree). No holds: no baseline, closure only
+//     (`drift.baseline`).
+//  4. B = ψ/(N2·A); air flux −μ0·H·(A_c − A)/A when the search coil is larger than the specimen
+//     (`appendAirFlux`).
+//  5. Level of B, by drift mode (`curve.level`): `cyclic-centred` (default, `curve.centre`) removes the
+//     closure error ε between the first and last tips of the same kind linearly in time, then centres on
+//     (B_top + B_bottom)/2; both compare the tips at the same |H| (the tips' H difference times dB/dH fitted
+//     at the tips is taken out first, since a closed loop may leave a tip kA/m short of ±H_m);
+//     `demagnetized-start` (`curve.anchor`) sets B = 0 at the first sweep sample (initial curve, μ_initial);
+//     `from-level` sets B = `Setup.StartB` there (or what `Setup.StartLevel` gives at its H, `curve.startAt`),
+//     with `Setup.UStartB` as a "start level" component of every budget (open demagnetization or recoil curves).
+//  6. Demagnetizing correction of open specimens: M = (B/μ0 − H)/(1 − N), H_int = H − N·M (`appendDemag`).
+//     Then J (`pointsOf`).
+//  7. Figures and budgets (`curve.figures`; the sources of the level stage, then `instrumentSources`, then
+//     `Setup.Extra`); every correction is returned with its size (`geometry`, `drift-baseline`,
 //     `air-flux`, `closure`, `centering`, `anchor`, `demag`, `missing-samples`, `time-alignment`).
 //
 // # Normal curve of a run (acq/fixture processor, process.Family)
