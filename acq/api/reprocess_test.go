@@ -226,7 +226,7 @@ func TestBrowserRevisions(t *testing.T) {
 		t.Fatalf("%d revision buttons, want 2", n)
 	}
 	text := js[string](b, `document.querySelector('#run-revisions').textContent`)
-	if !strings.Contains(text, "by token: specimen.direct.area_mm2: 50 → 100") || !strings.Contains(text, "by bay 3: as recorded") {
+	if !strings.Contains(text, "by "+api.SharedTokenUser+": specimen.direct.area_mm2: 50 → 100") || !strings.Contains(text, "by bay 3: as recorded") {
 		t.Errorf("revision list: %q", text)
 	}
 	br := func() string {
