@@ -21,6 +21,7 @@ import (
 
 	"hystd/acq/live"
 	"hystd/acq/record"
+	"hystd/acq/store/memstore"
 )
 
 const testToken = "s3cret-bench-token"
@@ -29,27 +30,39 @@ var t0 = time.Date(2026, 11, 30, 7, 30, 0, 0, time.UTC)
 
 type env struct {
 	srv    *httptest.Server
-	reader *memReader
+	store  *testStore
 	runner *fakeRunner
 	hub    *live.Hub
 }
 
+// newEnv serves three finished runs (RUN-A, RUN-B of specimen R-17,
+// RUN-C of M-3), one loop each, through o.
 func newEnv(t *testing.T, o Options) *env {
 	t.Helper()
-	rd := newMemReader()
+	return newEnvEdit(t, o, nil)
+}
+
+// newEnvEdit is newEnv with edit (if not nil) applied to each of the
+// three loops before it is stored.
+func newEnvEdit(t *testing.T, o Options, edit func(*record.Loop)) *env {
+	t.Helper()
+	st := newTestStore()
 	for i, spec := range []struct{ id, specimen, material string }{
 		{"RUN-A", "R-17", "FeSi3"}, {"RUN-B", "R-17", "FeSi3"}, {"RUN-C", "M-3", "NdFeB-demo"},
 	} {
 		l := tanhLoop(spec.id, 200, 6000, 400+float64(i)*10, 900, 1.6)
-		rd.put(record.Run{ID: spec.id, Recipe: "ring-soft-loop", Fixture: "ring-bench", Specimen: spec.specimen,
+		if edit != nil {
+			edit(&l)
+		}
+		put(t, st, record.Run{ID: spec.id, Recipe: "ring-soft-loop", Fixture: "ring-bench", Specimen: spec.specimen,
 			Material: spec.material, State: record.Finished, Started: t0.Add(time.Duration(i) * 24 * time.Hour),
 			Ended: t0.Add(time.Duration(i)*24*time.Hour + time.Minute)}, l)
 	}
-	rd.events["RUN-A"] = []record.Event{{RunID: "RUN-A", At: t0, Level: "info", Text: "step 1 demagnetize"}}
+	addEvents(t, st, record.Event{RunID: "RUN-A", At: t0, Level: "info", Text: "step 1 demagnetize"})
 	hub := live.NewHub(64)
 	clock := t0
-	rn := &fakeRunner{reader: rd, hub: hub, now: func() time.Time { clock = clock.Add(time.Second); return clock }}
-	o.Reader = rd
+	rn := &fakeRunner{store: st, hub: hub, now: func() time.Time { clock = clock.Add(time.Second); return clock }}
+	o.Reader = st
 	if o.Runner == nil {
 		o.Runner = rn
 	}
@@ -60,7 +73,7 @@ func newEnv(t *testing.T, o Options) *env {
 	}
 	srv := httptest.NewServer(h)
 	t.Cleanup(srv.Close)
-	return &env{srv: srv, reader: rd, runner: rn, hub: hub}
+	return &env{srv: srv, store: st, runner: rn, hub: hub}
 }
 
 func (e *env) do(t *testing.T, method, path, token, ctype string, body io.Reader) (int, map[string]any, http.Header) {
@@ -130,7 +143,7 @@ func TestMutationsNeedToken(t *testing.T) {
 	if code != 202 {
 		t.Fatalf("abort with token: %d %v", code, m)
 	}
-	if r, _ := e.reader.Run(context.Background(), "RUN-001"); r.State != record.Aborted {
+	if r, _ := e.store.Run(context.Background(), "RUN-001"); r.State != record.Aborted {
 		t.Errorf("run state %s after abort", r.State)
 	}
 	code, m, _ = e.do(t, "POST", "/api/v1/runs/RUN-001/abort", testToken, "", nil)
@@ -191,7 +204,7 @@ func TestTokenSources(t *testing.T) {
 		{"empty file", Options{TokenFile: empty}, "", "first line is empty"},
 	}
 	for _, tc := range tests {
-		tc.o.Reader = newMemReader()
+		tc.o.Reader = memstore.New(nil)
 		tc.o.Runner = &fakeRunner{}
 		h, err := New(tc.o)
 		if tc.wantErr != "" {
@@ -223,7 +236,7 @@ func TestOversizedBody(t *testing.T) {
 	if n := e.runner.callCount(); n != 0 {
 		t.Errorf("runner called for an oversized body")
 	}
-	runs, _ := e.reader.Runs(context.Background(), record.RunFilter{})
+	runs, _ := e.store.Runs(context.Background(), record.RunFilter{})
 	if len(runs) != 3 {
 		t.Errorf("%d runs after refused submit, want 3", len(runs))
 	}
@@ -283,7 +296,7 @@ func TestMalformedRecipe(t *testing.T) {
 	if code, m, _ := e.do(t, "POST", "/api/v1/runs?fixture=yoke-9", testToken, "application/yaml", strings.NewReader(goodRecipe)); code != 400 {
 		t.Errorf("unknown fixture: %d %v", code, m)
 	}
-	runs, _ := e.reader.Runs(context.Background(), record.RunFilter{})
+	runs, _ := e.store.Runs(context.Background(), record.RunFilter{})
 	if len(runs) != 3 {
 		t.Errorf("%d runs after refused submits, want 3", len(runs))
 	}
@@ -463,9 +476,7 @@ func TestEventStream(t *testing.T) {
 
 func TestPanicBecomes500(t *testing.T) {
 	e := newEnv(t, Options{})
-	e.reader.mu.Lock()
-	e.reader.panic = true
-	e.reader.mu.Unlock()
+	e.store.explode.Store(true)
 	code, m, _ := e.do(t, "GET", "/api/v1/runs", "", "", nil)
 	if code != 500 || m["error"] != "internal error" {
 		t.Errorf("%d %v", code, m)
@@ -505,7 +516,7 @@ func TestPageAndHeaders(t *testing.T) {
 }
 
 func TestServeShutsDownOnCancel(t *testing.T) {
-	h, err := New(Options{Reader: newMemReader()})
+	h, err := New(Options{Reader: memstore.New(nil)})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -536,7 +547,7 @@ func TestServeShutsDownOnCancel(t *testing.T) {
 
 func TestPlotEndpoint(t *testing.T) {
 	e := newEnv(t, Options{})
-	e.reader.put(record.Run{ID: "EMPTY", State: record.Failed}, record.Loop{RunID: "EMPTY", N: 1})
+	put(t, e.store, record.Run{ID: "EMPTY", State: record.Failed}, record.Loop{RunID: "EMPTY", N: 1})
 	tests := []struct {
 		query string
 		code  int
@@ -577,7 +588,7 @@ func TestPlotEndpoint(t *testing.T) {
 func TestReviewOnlyServer(t *testing.T) {
 	// Without a Runner (hystd demo --serve) the token is still checked
 	// first, then mutations answer 503.
-	h, err := New(Options{Reader: newMemReader(), Token: testToken})
+	h, err := New(Options{Reader: memstore.New(nil), Token: testToken})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -595,8 +606,8 @@ func TestReviewOnlyServer(t *testing.T) {
 
 func BenchmarkLoopJSON100k(b *testing.B) {
 	// Encoding a 100 k-point loop for the page (points as columns).
-	rd := newMemReader()
-	rd.put(record.Run{ID: "BIG"}, tanhLoop("BIG", 50000, 6000, 400, 900, 1.6))
+	rd := memstore.New(nil)
+	put(b, rd, record.Run{ID: "BIG"}, tanhLoop("BIG", 50000, 6000, 400, 900, 1.6))
 	h, err := New(Options{Reader: rd})
 	if err != nil {
 		b.Fatal(err)
@@ -656,7 +667,7 @@ func (f *fakeTicker) new(time.Duration) (<-chan time.Time, func()) { return f.c,
 
 func TestEventStreamHeartbeatAndLimit(t *testing.T) {
 	ft := &fakeTicker{c: make(chan time.Time)}
-	h, err := New(Options{Reader: newMemReader(), Live: live.NewHub(4), MaxStreams: 1})
+	h, err := New(Options{Reader: memstore.New(nil), Live: live.NewHub(4), MaxStreams: 1})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -806,7 +817,7 @@ func TestSubmitWithoutFixture(t *testing.T) {
 func TestEventStreamOutlivesServerTimeouts(t *testing.T) {
 	const limit = 150 * time.Millisecond
 	hub := live.NewHub(4)
-	h, err := New(Options{Reader: newMemReader(), Live: hub, Heartbeat: limit / 3})
+	h, err := New(Options{Reader: memstore.New(nil), Live: hub, Heartbeat: limit / 3})
 	if err != nil {
 		t.Fatal(err)
 	}

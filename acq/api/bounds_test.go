@@ -11,14 +11,15 @@ import (
 	"time"
 
 	"hystd/acq/record"
+	"hystd/acq/store/memstore"
 )
 
 // TestPlotSemaphore: while MaxRenders drawings are under way, another waits
 // for its turn until its request timeout and then gets 503; once a turn is
 // free it is drawn.
 func TestPlotSemaphore(t *testing.T) {
-	rd := newMemReader()
-	rd.put(record.Run{ID: "RUN-A", State: record.Finished}, tanhLoop("RUN-A", 200, 6000, 400, 900, 1.6))
+	rd := memstore.New(nil)
+	put(t, rd, record.Run{ID: "RUN-A", State: record.Finished}, tanhLoop("RUN-A", 200, 6000, 400, 900, 1.6))
 	h, err := New(Options{Reader: rd, RequestTimeout: 200 * time.Millisecond})
 	if err != nil {
 		t.Fatal(err)
@@ -93,8 +94,7 @@ func TestHostGuard(t *testing.T) {
 
 // TestServeRefusesForeignHost: the API's own server applies the guard.
 func TestServeRefusesForeignHost(t *testing.T) {
-	rd := newMemReader()
-	h, err := New(Options{Reader: rd})
+	h, err := New(Options{Reader: memstore.New(nil)})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -126,12 +126,12 @@ func TestServeRefusesForeignHost(t *testing.T) {
 // a plausible loop carries none.
 func TestImplausibleFlags(t *testing.T) {
 	e := newEnv(t, Options{})
-	e.reader.put(record.Run{ID: "E-305", State: record.Finished, Specimen: "E-305"},
+	put(t, e.store, record.Run{ID: "E-305", State: record.Finished, Specimen: "E-305"},
 		record.Loop{RunID: "E-305", N: 1, Kind: "loop", Figures: []record.Figure{
 			{Name: "Bmax", Value: 1802, Unit: "T"}, {Name: "Hmax", Value: 1000, Unit: "A/m"}, {Name: "mu_a", Value: 1.43e6}},
 			Points: []record.Point{{H: 1000, B: 1802, J: 1802}}})
-	e.reader.events["E-305"] = []record.Event{{RunID: "E-305", At: t0, Level: "warn",
-		Text: "geometry of specimen E-305: epstein: strip length 305.000 m is outside 0.28–0.32 m; the 0.94 m path convention assumes that range"}}
+	addEvents(t, e.store, record.Event{RunID: "E-305", At: t0, Level: "warn",
+		Text: "geometry of specimen E-305: epstein: strip length 305.000 m is outside 0.28–0.32 m; the 0.94 m path convention assumes that range"})
 	code, m, _ := e.do(t, "GET", "/api/v1/runs/E-305", "", "", nil)
 	if code != 200 {
 		t.Fatalf("%d %v", code, m)
@@ -159,8 +159,8 @@ func TestImplausibleFlags(t *testing.T) {
 // its peer, the default size, through the handler. With MaxRenders = 2 the
 // memory plots hold at once is at most twice the largest one's.
 func BenchmarkPlotPNG(b *testing.B) {
-	rd := newMemReader()
-	rd.put(record.Run{ID: "RUN-A", State: record.Finished}, tanhLoop("RUN-A", 2000, 6000, 400, 900, 1.6))
+	rd := memstore.New(nil)
+	put(b, rd, record.Run{ID: "RUN-A", State: record.Finished}, tanhLoop("RUN-A", 2000, 6000, 400, 900, 1.6))
 	h, err := New(Options{Reader: rd})
 	if err != nil {
 		b.Fatal(err)

@@ -28,6 +28,7 @@ import (
 	"hystd/acq/daemon"
 	"hystd/acq/live"
 	"hystd/acq/record"
+	"hystd/acq/store/memstore"
 	"hystd/calib/units"
 	"hystd/drivers/clock"
 	"hystd/drivers/sim"
@@ -593,11 +594,11 @@ func TestBrowserMagnetQuadrant(t *testing.T) {
 		t.Skip("browser test: skipped with -short")
 	}
 	chromium := findChromium(t)
-	rd := api.NewMemReader()
+	rd := memstore.New(nil)
 	mag := api.StraightLineMagnet("MAG-1", 4000, 1.30, 1.05)
 	mag.Figures = append(mag.Figures, record.Figure{Name: "Hk", Value: 931117.5, U: 2834, Unit: "A/m"},
 		record.Figure{Name: "HcB", Value: 985245.31, U: 99.6, Unit: "A/m"})
-	api.Put(rd, record.Run{ID: "MAG-1", Recipe: "magnet-demag-curve", Fixture: "yoke-demo", Specimen: "M-3",
+	api.Put(t, rd, record.Run{ID: "MAG-1", Recipe: "magnet-demag-curve", Fixture: "yoke-demo", Specimen: "M-3",
 		Material: "sintered magnet (invented grade)", State: record.Finished, Started: time.Date(2026, 11, 30, 9, 0, 0, 0, time.UTC)},
 		mag)
 	h, err := api.New(api.Options{Reader: rd})
@@ -679,8 +680,8 @@ func TestBrowserProtectedReads(t *testing.T) {
 		t.Skip("browser test: skipped with -short")
 	}
 	chromium := findChromium(t)
-	rd := api.NewMemReader()
-	api.Put(rd, record.Run{ID: "RUN-P", Recipe: "r", Fixture: "fx", Specimen: "S-1", Material: "m", State: record.Finished,
+	rd := memstore.New(nil)
+	api.Put(t, rd, record.Run{ID: "RUN-P", Recipe: "r", Fixture: "fx", Specimen: "S-1", Material: "m", State: record.Finished,
 		Started: time.Date(2026, 11, 30, 9, 0, 0, 0, time.UTC)})
 	h, err := api.New(api.Options{Reader: rd, Token: browserToken, ProtectReads: true, Live: live.NewHub(4)})
 	if err != nil {

@@ -7,11 +7,8 @@ import (
 	"hystd/calib/units"
 )
 
-// Test hooks for the external browser tests.
-var NewMemReader = newMemReader
-
-// Put stores a run with its loops in a memReader.
-func Put(r record.Reader, run record.Run, loops ...record.Loop) { r.(*memReader).put(run, loops...) }
+// Put stores a run with its loops, for the external browser tests.
+var Put = put
 
 // StraightLineMagnet is the demagnetization curve of an ideal magnet,
 // B = Br + μ0·μrec·H from H = 0 down to HcB, n+1 points.

@@ -4,156 +4,59 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"sort"
 	"sync"
+	"sync/atomic"
+	"testing"
 	"time"
 
 	"hystd/acq/live"
 	"hystd/acq/recipe"
 	"hystd/acq/record"
+	"hystd/acq/store/memstore"
 	"hystd/calib/units"
 )
 
-// memReader is an in-memory record.Reader for the API tests.
-type memReader struct {
-	mu     sync.Mutex
-	runs   map[string]record.Run
-	loops  map[string][]record.Loop
-	events map[string][]record.Event
-	last   record.RunFilter
-	panic  bool
+// testStore is the store of the API tests: a memstore (the one in-memory
+// store, held to the shared suite acq/store/storetest) with one test hook,
+// a panic injected into Runs to show that a handler's panic becomes a 500.
+type testStore struct {
+	*memstore.Store
+	explode atomic.Bool
 }
 
-func newMemReader() *memReader {
-	return &memReader{runs: map[string]record.Run{}, loops: map[string][]record.Loop{}, events: map[string][]record.Event{}}
-}
+func newTestStore() *testStore { return &testStore{Store: memstore.New(nil)} }
 
-func (m *memReader) put(r record.Run, loops ...record.Loop) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	m.runs[r.ID] = r
-	m.loops[r.ID] = loops
-}
-
-func (m *memReader) setState(id string, s record.State, reason string, at time.Time) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	r := m.runs[id]
-	r.State, r.Reason = s, reason
-	if s == record.Running {
-		r.Started = at
-	}
-	if s.Ended() {
-		r.Ended = at
-	}
-	m.runs[id] = r
-}
-
-func (m *memReader) Runs(ctx context.Context, f record.RunFilter) ([]record.Run, error) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	if m.panic {
+// Runs panics once explode is set; otherwise it is memstore's.
+func (s *testStore) Runs(ctx context.Context, f record.RunFilter) ([]record.Run, error) {
+	if s.explode.Load() {
 		panic("store exploded")
 	}
-	m.last = f
-	var out []record.Run
-	for _, r := range m.runs {
-		if (f.Fixture != "" && r.Fixture != f.Fixture) || (f.Specimen != "" && r.Specimen != f.Specimen) ||
-			(f.Material != "" && r.Material != f.Material) || (f.State != "" && r.State != f.State) ||
-			(!f.Since.IsZero() && r.Started.Before(f.Since)) || (!f.Until.IsZero() && !r.Started.Before(f.Until)) {
-			continue
-		}
-		out = append(out, r)
-	}
-	sort.Slice(out, func(i, j int) bool { return out[i].Started.After(out[j].Started) })
-	if f.Limit > 0 && len(out) > f.Limit {
-		out = out[:f.Limit]
-	}
-	return out, nil
+	return s.Store.Runs(ctx, f)
 }
 
-func (m *memReader) Run(ctx context.Context, id string) (record.Run, error) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	r, ok := m.runs[id]
-	if !ok {
-		return r, fmt.Errorf("run %q: %w", id, record.ErrNotFound)
+// put stores a run with its loops as the engine does (CreateRun, AddLoop)
+// and fails the test if the store refuses them.
+func put(t testing.TB, w record.Writer, r record.Run, loops ...record.Loop) {
+	t.Helper()
+	ctx := context.Background()
+	if err := w.CreateRun(ctx, r); err != nil {
+		t.Fatal(err)
 	}
-	return r, nil
-}
-
-func (m *memReader) Loops(ctx context.Context, id string) ([]record.Loop, error) {
-	if _, err := m.Run(ctx, id); err != nil {
-		return nil, err
-	}
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	var out []record.Loop
-	for _, l := range m.loops[id] {
-		l.Points, l.Raw = nil, nil
-		out = append(out, l)
-	}
-	return out, nil
-}
-
-func (m *memReader) Loop(ctx context.Context, id string, n int) (record.Loop, error) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	for _, l := range m.loops[id] {
-		if l.N == n {
-			return l, nil
+	for _, l := range loops {
+		if err := w.AddLoop(ctx, l); err != nil {
+			t.Fatal(err)
 		}
 	}
-	return record.Loop{}, fmt.Errorf("run %q loop %d: %w", id, n, record.ErrNotFound)
 }
 
-// The fake keeps one revision per run (re-processing is tested on memstore).
-func (m *memReader) Revisions(ctx context.Context, id string) ([]record.Revision, error) {
-	r, err := m.Run(ctx, id)
-	if err != nil {
-		return nil, err
-	}
-	return []record.Revision{record.FirstRevision(r)}, nil
-}
-
-func (m *memReader) LoopsOf(ctx context.Context, id string, rev int) ([]record.Loop, error) {
-	if rev > 1 {
-		return nil, fmt.Errorf("run %q revision %d: %w", id, rev, record.ErrNotFound)
-	}
-	return m.Loops(ctx, id)
-}
-
-func (m *memReader) LoopOf(ctx context.Context, id string, n, rev int) (record.Loop, error) {
-	if rev > 1 {
-		return record.Loop{}, fmt.Errorf("run %q revision %d: %w", id, rev, record.ErrNotFound)
-	}
-	return m.Loop(ctx, id, n)
-}
-
-func (m *memReader) Events(ctx context.Context, id string) ([]record.Event, error) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	return m.events[id], nil
-}
-
-func (m *memReader) Trend(ctx context.Context, specimen, figure string, since time.Time) ([]record.TrendPoint, error) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	var out []record.TrendPoint
-	for id, r := range m.runs {
-		if r.Specimen != specimen || r.Started.Before(since) {
-			continue
-		}
-		for _, l := range m.loops[id] {
-			for _, f := range l.Figures {
-				if f.Name == figure {
-					out = append(out, record.TrendPoint{RunID: id, Loop: l.N, At: r.Started, Value: f.Value, U: f.U})
-				}
-			}
+// addEvents stores events and fails the test if the store refuses one.
+func addEvents(t testing.TB, w record.Writer, evs ...record.Event) {
+	t.Helper()
+	for _, e := range evs {
+		if err := w.AddEvent(context.Background(), e); err != nil {
+			t.Fatal(err)
 		}
 	}
-	sort.Slice(out, func(i, j int) bool { return out[i].At.Before(out[j].At) })
-	return out, nil
 }
 
 // tanhLoop is an analytic major loop B = Bs·tanh((H ∓ Hc)/a) + μ0·H, 2n+1
@@ -186,13 +89,12 @@ func tanhLoop(id string, n int, hmax, hc, a, bs float64) record.Loop {
 	return l
 }
 
-// fakeRunner validates recipes with the real recipe parser and plays a run
-// into a memReader and a hub: queued → running → live samples → finished,
-// unless aborted. Steps advance only when the test calls step, so no test
-// sleeps.
+// fakeRunner validates recipes with the real recipe parser, stores a
+// submitted run as queued and ends it as aborted on request, in the store
+// and on the hub, at the times of its injected clock (no test sleeps).
 type fakeRunner struct {
 	mu      sync.Mutex
-	reader  *memReader
+	store   *testStore
 	hub     *live.Hub
 	now     func() time.Time
 	calls   int
@@ -220,7 +122,9 @@ func (f *fakeRunner) Submit(ctx context.Context, fixture string, data []byte) (s
 	id := fmt.Sprintf("RUN-%03d", f.seq)
 	f.mu.Unlock()
 	at := f.now()
-	f.reader.put(record.Run{ID: id, Recipe: r.Name, Fixture: "ring-bench", Specimen: "R-17", Material: "FeSi3", State: record.Queued, Queued: at})
+	if err := f.store.CreateRun(ctx, record.Run{ID: id, Recipe: r.Name, Fixture: "ring-bench", Specimen: "R-17", Material: "FeSi3", State: record.Queued, Queued: at}); err != nil {
+		return "", err
+	}
 	f.hub.Publish(live.Event{Kind: live.KindState, RunID: id, State: record.Queued, At: at})
 	return id, nil
 }
@@ -232,7 +136,7 @@ func (f *fakeRunner) Abort(ctx context.Context, id string) error {
 		f.users = append(f.users, "abort "+u.Name)
 	}
 	f.mu.Unlock()
-	r, err := f.reader.Run(ctx, id)
+	r, err := f.store.Run(ctx, id)
 	if err != nil {
 		return err
 	}
@@ -246,7 +150,9 @@ func (f *fakeRunner) Abort(ctx context.Context, id string) error {
 	f.aborted[id] = true
 	f.mu.Unlock()
 	at := f.now()
-	f.reader.setState(id, record.Aborted, "aborted on request", at)
+	if err := f.store.SetState(ctx, id, record.Aborted, "aborted on request", at); err != nil {
+		return err
+	}
 	f.hub.Publish(live.Event{Kind: live.KindState, RunID: id, State: record.Aborted, Reason: "aborted on request", At: at})
 	return nil
 }

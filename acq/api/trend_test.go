@@ -45,13 +45,15 @@ func trendOf(t *testing.T, e *env, query string) (int, []string) {
 // the verdict stored with its loop. RUN-A and RUN-B hold HcB 400 ± 3 and
 // 410 ± 3 A/m at 6 kA/m; RUN-D a 30 A/m normal curve of the same specimen.
 func TestTrendFiltered(t *testing.T) {
-	e := newEnv(t, Options{Token: testToken})
+	e := newEnvEdit(t, Options{Token: testToken}, func(l *record.Loop) {
+		if l.RunID == "RUN-B" {
+			l.Verdicts = []record.Verdict{{Grade: "G", Figure: "HcB", Value: 410, U: 3, Max: 405, Rule: "guarded-U", Outcome: record.Fail}}
+		}
+	})
 	l := tanhLoop("RUN-D", 50, 30, 5, 900, 0.1)
 	l.Kind = "normal-curve"
-	e.reader.put(record.Run{ID: "RUN-D", Recipe: "ring-normal-curve", Fixture: "ring-bench", Specimen: "R-17", Material: "FeSi3",
+	put(t, e.store, record.Run{ID: "RUN-D", Recipe: "ring-normal-curve", Fixture: "ring-bench", Specimen: "R-17", Material: "FeSi3",
 		State: record.Finished, Started: t0.Add(72 * time.Hour)}, l)
-	b := e.reader.loops["RUN-B"]
-	b[0].Verdicts = []record.Verdict{{Grade: "G", Figure: "HcB", Value: 410, U: 3, Max: 405, Rule: "guarded-U", Outcome: record.Fail}}
 	base := "specimen=R-17&figure=HcB"
 	cases := []struct {
 		q    string

@@ -117,13 +117,11 @@ func TestLoadUsersErrors(t *testing.T) {
 // past-due one among the flags.
 func TestRunShowsWhoAndCalibrations(t *testing.T) {
 	e := newEnv(t, Options{Token: testToken})
-	e.reader.mu.Lock()
-	e.reader.events["RUN-B"] = []record.Event{
-		{RunID: "RUN-B", At: t0, Level: "info", Text: "used calibration CAL-9 (integrator X,Y,1; certificate C-9, 2025-01-01, due 2026-01-01)"},
-		{RunID: "RUN-B", At: t0, Level: "warn", Text: "calibration CAL-9 is past due (due 2026-01-01): figures rest on an expired calibration"},
-		{RunID: "RUN-B", At: t0, Level: "info", Text: ActionText(User{Name: "tomas", Role: RoleAdmin}, ActionAbort)},
-	}
-	e.reader.mu.Unlock()
+	addEvents(t, e.store,
+		record.Event{RunID: "RUN-B", At: t0, Level: "info", Text: "used calibration CAL-9 (integrator X,Y,1; certificate C-9, 2025-01-01, due 2026-01-01)"},
+		record.Event{RunID: "RUN-B", At: t0, Level: "warn", Text: "calibration CAL-9 is past due (due 2026-01-01): figures rest on an expired calibration"},
+		record.Event{RunID: "RUN-B", At: t0, Level: "info", Text: ActionText(User{Name: "tomas", Role: RoleAdmin}, ActionAbort)},
+	)
 	code, m, _ := e.do(t, "GET", "/api/v1/runs/RUN-B", "", "", nil)
 	if code != 200 {
 		t.Fatalf("%d %v", code, m)

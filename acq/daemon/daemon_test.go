@@ -144,7 +144,7 @@ func TestSubmitRefusals(t *testing.T) {
 		}
 	}
 	if len(w.RunList()) != 0 || fb.opens != 1 { // the start-up check only
-		t.Errorf("refusals recorded %d runs, opened instruments %d times", len(w.Runs), fb.opens)
+		t.Errorf("refusals recorded %d runs, opened instruments %d times", len(w.RunList()), fb.opens)
 	}
 }
 

@@ -276,7 +276,7 @@ func TestRefused(t *testing.T) {
 			if !errors.As(err, &ref) || !strings.Contains(err.Error(), tc.want) || !strings.Contains(err.Error(), "steps.0.record_loop") {
 				t.Fatalf("error %v, want a refusal naming steps.0.record_loop and %q", err, tc.want)
 			}
-			if len(r.w.Runs) != 0 || r.sup.Reads != 0 {
+			if len(r.w.RunList()) != 0 || r.sup.Reads != 0 {
 				t.Error("a refused recipe touched the store or the supply")
 			}
 		})

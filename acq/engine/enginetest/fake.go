@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"hystd/acq/record"
+	"hystd/acq/store/memstore"
 	"hystd/calib/units"
 	"hystd/drivers/clock"
 	"hystd/drivers/instr"
@@ -334,30 +335,33 @@ func (f *Thermometer) ReadTemperature(ctx context.Context) (instr.Reading, error
 	return instr.Reading{Value: f.C, Unit: "°C", At: at}, nil
 }
 
-// Writer is an in-memory record.Writer.
+// Writer is the record.Writer of the engine tests: it stores in a memstore
+// (the one in-memory store, held to the shared suite acq/store/storetest),
+// so the engine is held to the store's contract, and records what it was
+// given — every state in order, the loops and events as written — with
+// an injected AddLoop failure.
 type Writer struct {
+	st       *memstore.Store
 	mu       sync.Mutex
-	Runs     map[string]record.Run
-	States   []record.State
-	Loops    []record.Loop
-	Events   []record.Event
-	LoopFail error // AddLoop returns it when set
+	States   []record.State // the state of each CreateRun and SetState, in order
+	Loops    []record.Loop  // as written, in order
+	Events   []record.Event // as written, in order
+	LoopFail error          // AddLoop returns it when set
 }
 
 var _ record.Writer = (*Writer)(nil)
 
 // NewWriter returns an empty Writer.
-func NewWriter() *Writer { return &Writer{Runs: map[string]record.Run{}} }
+func NewWriter() *Writer { return &Writer{st: memstore.New(nil)} }
 
 // CreateRun stores a new run.
 func (w *Writer) CreateRun(ctx context.Context, r record.Run) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
-	if _, dup := w.Runs[r.ID]; dup {
-		return fmt.Errorf("run %s exists", r.ID)
+	if err := w.st.CreateRun(ctx, r); err != nil {
+		return err
 	}
-	w.Runs[r.ID] = r
-	w.States = append(w.States, r.State)
+	w.States = append(w.States, w.Run(r.ID).State)
 	return nil
 }
 
@@ -368,17 +372,14 @@ func (w *Writer) SetState(ctx context.Context, id string, s record.State, reason
 	}
 	w.mu.Lock()
 	defer w.mu.Unlock()
-	r, ok := w.Runs[id]
-	if !ok {
-		return record.ErrNotFound
+	if err := w.st.SetState(ctx, id, s, reason, at); err != nil {
+		return err
 	}
-	r.State, r.Reason = s, reason
-	w.Runs[id] = r
 	w.States = append(w.States, s)
 	return nil
 }
 
-// AddLoop keeps the loop, or returns LoopFail.
+// AddLoop stores the loop, or returns LoopFail.
 func (w *Writer) AddLoop(ctx context.Context, l record.Loop) error {
 	if err := ctx.Err(); err != nil {
 		return err
@@ -388,27 +389,28 @@ func (w *Writer) AddLoop(ctx context.Context, l record.Loop) error {
 	if w.LoopFail != nil {
 		return w.LoopFail
 	}
+	if err := w.st.AddLoop(ctx, l); err != nil {
+		return err
+	}
 	w.Loops = append(w.Loops, l)
 	return nil
 }
 
-// AddEvent keeps the event.
+// AddEvent stores the event.
 func (w *Writer) AddEvent(ctx context.Context, e record.Event) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
+	if err := w.st.AddEvent(ctx, e); err != nil {
+		return err
+	}
 	w.Events = append(w.Events, e)
 	return nil
 }
 
-// RunList returns a copy of the stored runs.
+// RunList returns the stored runs, newest first.
 func (w *Writer) RunList() []record.Run {
-	w.mu.Lock()
-	defer w.mu.Unlock()
-	out := make([]record.Run, 0, len(w.Runs))
-	for _, r := range w.Runs {
-		out = append(out, r)
-	}
-	return out
+	runs, _ := w.st.Runs(context.Background(), record.RunFilter{Limit: math.MaxInt})
+	return runs
 }
 
 // LoopCount returns the number of loops added.
@@ -418,11 +420,10 @@ func (w *Writer) LoopCount() int {
 	return len(w.Loops)
 }
 
-// Run returns the stored run id.
+// Run returns the stored run id (the zero Run if there is none).
 func (w *Writer) Run(id string) record.Run {
-	w.mu.Lock()
-	defer w.mu.Unlock()
-	return w.Runs[id]
+	r, _ := w.st.Run(context.Background(), id)
+	return r
 }
 
 // EventsOf returns the events stored for run id, in order.
