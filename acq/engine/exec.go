@@ -294,9 +294,11 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			return err
 		}
 		if cpt != nil {
-			if err := cpt.round(ctx, phase); err != nil {
+			held, err := cpt.round(ctx, phase)
+			if err != nil {
 				return x.stopErr(ctx, err)
 			}
+			shift += held
 		}
 		cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
 		var rd sampler.Reading
