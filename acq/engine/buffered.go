@@ -350,8 +350,9 @@ func (c *capture) collect(ctx context.Context) error {
 				return err
 			}
 		}
-		// A real transfer takes 10 bits a byte: allow for it beyond comm_timeout.
-		cctx, cancel := context.WithTimeout(ctx, c.x.comm+time.Duration(k.plan.Count)*time.Millisecond)
+		// A real transfer takes 10 bits a byte: allow for it beyond
+		// comm_timeout (2 ms a value: 23 bytes of ASCII at 115200 Bd).
+		cctx, cancel := context.WithTimeout(ctx, c.x.comm+time.Duration(k.plan.Count)*2*time.Millisecond)
 		var err error
 		if r.dev.HasBufferClock() {
 			k.c1, err = r.dev.ReadBufferClock(cctx)
