@@ -229,3 +229,37 @@ func (s *spaced) SleepUntil(ctx context.Context, t time.Time) error {
 	}
 	return s.Sim.SleepUntil(ctx, t)
 }
+
+// A host that cannot keep any schedule (the engine woken 450 ms late at
+// every other sleep from the first loop's sweep on) exhausts the new
+// acquisitions a sweep may take: the run ends failed with an error that
+// says so, no loop is stored, and the bench's truth shows the supply at
+// zero with its output off.
+func TestBufferedHostTooSlowEndsAtZero(t *testing.T) {
+	var out strings.Builder
+	clean, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock()})
+	if err != nil || len(clean.Loops) != 2 {
+		t.Fatalf("clean run: %v, %d loops\n%s", err, len(clean.Loops), out.String())
+	}
+	sw := sweepOf(clean.Loops[0])
+	late := &lateHost{extra: 450 * time.Millisecond, times: 1 << 30}
+	late.from = clean.Run.Started.Add(sw[0].T + 200*time.Millisecond)
+	late.to = late.from.Add(time.Hour)
+	out.Reset()
+	every := 0
+	res, _ := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock(),
+		lateHost: func(c clock.Clock) clock.Clock {
+			late.Sim = c.(*clock.Sim)
+			return &spaced{lateHost: late, every: 2, n: &every}
+		}})
+	if res.Run.State != record.Failed || !strings.Contains(res.Run.Reason, "fell behind its schedule again") {
+		t.Fatalf("run %s: %q; want failed, the host unable to keep the schedule\n%s", res.Run.State, res.Run.Reason, out.String())
+	}
+	if last := res.Final; math.Abs(float64(last.I)) > 1e-3 || last.Output {
+		t.Fatalf("bench truth at the end: I %g A, output %v; want zero and off", last.I, last.Output)
+	}
+	if len(res.Loops) != 0 {
+		t.Fatalf("%d loops stored", len(res.Loops))
+	}
+	t.Logf("reason: %s", res.Run.Reason)
+}
