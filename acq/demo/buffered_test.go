@@ -122,3 +122,144 @@ func TestBufferedFaultsEndAtZero(t *testing.T) {
 		})
 	}
 }
+
+// lateHost is the engine's view of a simulated clock on a busy host: each
+// of its sleeps that ends within [from, to) wakes late by extra, at most
+// times times.
+type lateHost struct {
+	*clock.Sim
+	from, to time.Time
+	extra    time.Duration
+	times    int
+	n        int
+}
+
+func (h *lateHost) SleepUntil(ctx context.Context, t time.Time) error {
+	if h.n < h.times && !t.Before(h.from) && t.Before(h.to) {
+		h.n++
+		t = t.Add(h.extra)
+	}
+	return h.Sim.SleepUntil(ctx, t)
+}
+
+// A host that falls behind the sweep's schedule (the engine woken 450 ms
+// late six times during the second loop's sweep: 2.7 s of stalls in a 5 s
+// sweep, beyond the quarter its buffers are armed for beyond the planned
+// sweep) must not lose the loop: the run finishes with both loops whole.
+// The stalled loop's Br and HcB must still agree with the specimen's truth
+// of that cycle within their own U (as in
+// TestBufferedDemoAgreesWithPolledAndTruth), every setpoint level of its
+// sweep must hold buffered readings (no uncovered part), and the bench's
+// truth shows the supply at zero at the end.
+func TestBufferedSweepOutlastsItsBuffer(t *testing.T) {
+	var out strings.Builder
+	clean, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock()})
+	if err != nil || len(clean.Loops) != 2 {
+		t.Fatalf("clean run: %v, %d loops\n%s", err, len(clean.Loops), out.String())
+	}
+	// The second loop's sweep on the clock: its samples' times are from the
+	// run's start.
+	sw := sweepOf(clean.Loops[1])
+	const stalls = 6
+	late := &lateHost{extra: 450 * time.Millisecond, times: stalls}
+	late.from = clean.Run.Started.Add(sw[0].T + 500*time.Millisecond)
+	late.to = late.from.Add(4 * time.Second)
+	out.Reset()
+	every := 0
+	res, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock(),
+		lateHost: func(c clock.Clock) clock.Clock {
+			late.Sim = c.(*clock.Sim)
+			return &spaced{lateHost: late, every: 20, n: &every}
+		}})
+	if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
+		t.Fatalf("stalled run: %v, %s %q, %d loops\n%s", err, res.Run.State, res.Run.Reason, len(res.Loops), out.String())
+	}
+	if last := res.Final; math.Abs(float64(last.I)) > 1e-3 || last.Output {
+		t.Fatalf("bench truth at the end: I %g A, output %v; want zero and off", last.I, last.Output)
+	}
+	if !strings.Contains(out.String(), "the sweep fell behind its schedule") {
+		t.Errorf("no warning names the held setpoint and the new acquisition\n%s", out.String())
+	}
+	if late.n != stalls {
+		t.Fatalf("%d stalls injected, want %d", late.n, stalls)
+	}
+	l := res.Loops[1]
+	sb := sweepOf(l)
+	span := sb[len(sb)-1].T - sb[0].T
+	cleanSpan := sw[len(sw)-1].T - sw[0].T
+	t.Logf("stalled loop: %d sweep samples over %s (clean: %d over %s)", len(sb), span, len(sw), cleanSpan)
+	if span < cleanSpan+2*time.Second {
+		t.Fatalf("the sweep spans %s: the stalls did not lengthen it", span)
+	}
+	// Every level the sweep stepped through holds buffered readings.
+	levels := map[float64]int{}
+	for _, s := range sb {
+		levels[s.Setpoint]++
+	}
+	for _, s := range sw {
+		if levels[s.Setpoint] == 0 {
+			t.Errorf("setpoint %.6g A of the sweep has no buffered reading", s.Setpoint)
+		}
+	}
+	br, hc := truthOfLastCycle(t, res.Truth, l.Amplitude)
+	for _, c := range []struct {
+		name  string
+		truth float64
+	}{{"Br", br}, {"HcB", hc}} {
+		f, _ := figure(l, c.name)
+		t.Logf("stalled loop: %s = %.5g ± %.2g, truth %.5g", c.name, f.Value, f.U, c.truth)
+		if math.Abs(f.Value-c.truth) > f.U {
+			t.Errorf("stalled loop: %s = %.5g ± %.2g, truth %.5g: off by more than U", c.name, f.Value, f.U, c.truth)
+		}
+	}
+}
+
+// spaced passes every every-th sleep to lateHost, the others straight to
+// the clock: stalls spread over the sweep.
+type spaced struct {
+	*lateHost
+	every int
+	n     *int
+}
+
+func (s *spaced) SleepUntil(ctx context.Context, t time.Time) error {
+	*s.n++
+	if *s.n%s.every == 0 {
+		return s.lateHost.SleepUntil(ctx, t)
+	}
+	return s.Sim.SleepUntil(ctx, t)
+}
+
+// A host that cannot keep any schedule (the engine woken 450 ms late at
+// every other sleep from the first loop's sweep on) exhausts the new
+// acquisitions a sweep may take: the run ends failed with an error that
+// says so, no loop is stored, and the bench's truth shows the supply at
+// zero with its output off.
+func TestBufferedHostTooSlowEndsAtZero(t *testing.T) {
+	var out strings.Builder
+	clean, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock()})
+	if err != nil || len(clean.Loops) != 2 {
+		t.Fatalf("clean run: %v, %d loops\n%s", err, len(clean.Loops), out.String())
+	}
+	sw := sweepOf(clean.Loops[0])
+	late := &lateHost{extra: 450 * time.Millisecond, times: 1 << 30}
+	late.from = clean.Run.Started.Add(sw[0].T + 200*time.Millisecond)
+	late.to = late.from.Add(time.Hour)
+	out.Reset()
+	every := 0
+	res, _ := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock(),
+		lateHost: func(c clock.Clock) clock.Clock {
+			late.Sim = c.(*clock.Sim)
+			return &spaced{lateHost: late, every: 2, n: &every}
+		}})
+	if res.Run.State != record.Failed || !strings.Contains(res.Run.Reason, "fell behind its schedule again") {
+		t.Fatalf("run %s: %q; want failed, the host unable to keep the schedule\n%s", res.Run.State, res.Run.Reason, out.String())
+	}
+	if last := res.Final; math.Abs(float64(last.I)) > 1e-3 || last.Output {
+		t.Fatalf("bench truth at the end: I %g A, output %v; want zero and off", last.I, last.Output)
+	}
+	if len(res.Loops) != 0 {
+		t.Fatalf("%d loops stored", len(res.Loops))
+	}
+	t.Logf("reason: %s", res.Run.Reason)
+}

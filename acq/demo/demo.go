@@ -71,6 +71,9 @@ type Options struct {
 	// (BufferedRecipeFile: the same sweep, flux and field sampled by the
 	// instruments on their own clocks).
 	Capture string
+	// lateHost, in tests, wraps the engine's clock (not the bench's): a host
+	// that wakes the engine late.
+	lateHost func(clock.Clock) clock.Clock
 }
 
 // Result is what a demo run produced.
@@ -161,7 +164,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		Software:    o.Software,
 		Operator:    o.Operator,
 		SpoolDir:    o.DataDir,
-		Clock:       clk,
+		Clock:       engineClock(clk, o.lateHost),
 	})
 	if err != nil {
 		return Result{}, err
@@ -460,4 +463,12 @@ func quarantinedOf(ctx context.Context, st *store.Store, runID string) ([]store.
 		}
 	}
 	return out, nil
+}
+
+// engineClock is the engine's clock: clk, or late(clk) in a test.
+func engineClock(clk clock.Clock, late func(clock.Clock) clock.Clock) clock.Clock {
+	if late == nil {
+		return clk
+	}
+	return late(clk)
 }

@@ -22,16 +22,35 @@ import (
 // Sequence of a recorded step: at the start of the pre hold (after the
 // integrator's reset) the integrator and, when the fixture has one, the
 // field meter are armed for N = 1.25·sweep/buffer_period + 1 readings (a
-// quarter more than the planned sweep: stalled rounds lengthen a sweep),
-// one every buffer_period on their own time base, and their clocks are
-// read; at the sweep's first round each gets its trigger, before the
+// quarter more than the planned sweep), one every buffer_period on their
+// own time base, and their clocks are read; at the sweep's first round each gets its trigger, before the
 // supply's setpoint of that round; the sweep runs at the recipe's setpoint
 // period, reading only the supply (and the thermometer) each round,
 // *before* its setpoint is changed; the post hold is polled as usual; at
 // the end of the step the engine waits for both acquisitions to complete,
 // reads the clocks again and fetches both buffers. Readings after the
-// sweep's last step are left out; a sweep that outlasted the buffers is an
-// error.
+// sweep's last step are left out.
+//
+// A late host. Stalled rounds (a busy host, late replies) shift the
+// sweep's schedule (exec.step), so a sweep can outlast buffers sized for
+// its plan. Before every sweep round, and at the round that ends the
+// sweep, the engine checks that the buffers still cover the step being
+// sent (their end on its clock, with twice the time base's rate error, at
+// least cutMargin setpoint periods ahead). When they do not, it cuts the
+// acquisition there: the setpoint stays where it is, the engine waits for
+// the buffers to fill, fetches them with their clocks, arms and triggers
+// the next acquisition (sized from what is left of the sweep), and holds
+// the level until the settled part of its step lies in the new buffers
+// (the step is then twice as long as the gap); the schedule shifts by the
+// hold, as for a stall. A DC loop is the locus of settled states (common
+// practice), so a held level changes nothing but the loop's duration. Each
+// acquisition keeps its own trigger and clock readings (the alignment model
+// below, per acquisition); a reading of one instrument is interpolated
+// from the other's only within one of its acquisitions, never across a
+// gap. The run's events name each cut. More than maxCuts cuts in one step
+// end the run (the host cannot keep any schedule); so does a sweep that
+// still outlasted its buffers. A lab would rather repeat a run than keep a
+// loop it cannot trust; the supply is brought to zero as at every ending.
 //
 // Alignment model. Instrument i takes reading k at instrument time
 // delay + k·period after it received the trigger. Its clock runs at
@@ -75,20 +94,43 @@ const (
 	keepTo   = 0.9
 )
 
-// bufRole is one armed instrument.
+// Cutting an acquisition short of the sweep (a late host, see above).
+const (
+	// cutMargin is how many setpoint periods ahead the buffers must reach.
+	cutMargin = 4
+	// maxCuts is the most acquisitions after the first in one step.
+	maxCuts = 8
+)
+
+// bufRole is one buffered instrument and its acquisitions in the step.
 type bufRole struct {
-	role    string
-	dev     instr.Buffered
+	role   string
+	dev    instr.Buffered
+	chunks []*chunk // the last is the one armed or running
+}
+
+// chunk is one acquisition: armed, triggered, fetched.
+type chunk struct {
+	plan    instr.BufferPlan
 	c0, c1  instr.Reading // clock readings (Value in instrument seconds)
 	trig    time.Time
 	trigUnc time.Duration
 	values  []float64
 }
 
+func (r *bufRole) cur() *chunk { return r.chunks[len(r.chunks)-1] }
+
 // capture is the buffered capture of one recorded step.
 type capture struct {
-	x      *exec
+	x *exec
+	// plan is the acquisition to arm next; after merge its Count is the
+	// readings of all the step's acquisitions.
 	plan   instr.BufferPlan
+	period time.Duration // the recipe step's setpoint period
+	sweep  time.Duration // planned sweep time
+	swept  time.Duration // planned sweep time of the rounds sent so far
+	inSwp  bool          // the last round was a sweep round
+	cuts   int
 	roles  []*bufRole
 	supply *sampler.Sampler // reads the supply and thermometer only
 	// rounds are the supply readings of the step, each with the time its
@@ -164,8 +206,8 @@ func (x *exec) newCapture(st recipe.Step) (*capture, error) {
 			sweep += g.Dur
 		}
 	}
-	n := int(sweep / st.Capture.Period)
-	c := &capture{x: x, plan: instr.BufferPlan{Period: st.Capture.Period, Count: n + n/4 + 1}}
+	c := &capture{x: x, period: st.Period, sweep: sweep, plan: instr.BufferPlan{Period: st.Capture.Period}}
+	c.plan.Count = c.countFor(sweep)
 	in := x.s.Instruments
 	if in.Integrator != nil {
 		if b, ok := bufferedOf(in.Integrator); ok {
@@ -195,13 +237,23 @@ func (c *capture) fail(role, format string, args ...any) error {
 	return safety.Instrument(role, fmt.Errorf("buffered capture: "+format, args...))
 }
 
-// arm programs and arms every buffered instrument and reads its clock.
+// countFor is the readings an acquisition needs to cover d: a quarter
+// more than d takes at the buffer period, plus one.
+func (c *capture) countFor(d time.Duration) int {
+	n := int(d / c.plan.Period)
+	return n + n/4 + 1
+}
+
+// arm programs and arms every buffered instrument for c.plan (a new
+// acquisition) and reads its clock.
 func (c *capture) arm(ctx context.Context) error {
 	for _, r := range c.roles {
+		k := &chunk{plan: c.plan}
+		r.chunks = append(r.chunks, k)
 		cctx, cancel := context.WithTimeout(ctx, c.x.comm)
 		err := r.dev.ArmBuffer(cctx, c.plan)
 		if err == nil && r.dev.HasBufferClock() {
-			r.c0, err = r.dev.ReadBufferClock(cctx)
+			k.c0, err = r.dev.ReadBufferClock(cctx)
 		}
 		cancel()
 		if err != nil {
@@ -216,8 +268,9 @@ func (c *capture) trigger(ctx context.Context) error {
 	c.triggered = true
 	for _, r := range c.roles {
 		cctx, cancel := context.WithTimeout(ctx, c.x.comm)
+		k := r.cur()
 		var err error
-		r.trig, r.trigUnc, err = r.dev.TriggerBuffer(cctx)
+		k.trig, k.trigUnc, err = r.dev.TriggerBuffer(cctx)
 		cancel()
 		if err != nil {
 			return c.fail(r.role, "trigger: %w", err)
@@ -252,42 +305,8 @@ func (c *capture) note(s record.Sample, level float64, phase record.Phase) {
 // is short, garbled or holds a value out of range.
 func (c *capture) finish(ctx context.Context) error {
 	c.fetched = true
-	span := time.Duration(float64(c.plan.Delay+time.Duration(c.plan.Count-1)*c.plan.Period) * 1.01)
-	grace := max(time.Second, span/50)
-	for _, r := range c.roles {
-		due := r.trig.Add(span + grace)
-		poll := max(c.plan.Period, 20*time.Millisecond)
-		for {
-			cctx, cancel := context.WithTimeout(ctx, c.x.comm)
-			done, err := r.dev.BufferDone(cctx)
-			cancel()
-			if err != nil {
-				return c.fail(r.role, "ask whether the acquisition is complete: %w", err)
-			}
-			if done {
-				break
-			}
-			if now := c.x.s.Clock.Now(); now.After(due) {
-				return c.fail(r.role, "acquisition of %d readings every %s not complete %s after its trigger (it should have taken %s): the trigger did not arrive or the instrument stopped",
-					c.plan.Count, c.plan.Period, now.Sub(r.trig).Round(time.Millisecond), span.Round(time.Millisecond))
-			}
-			if err := c.x.s.Clock.SleepUntil(ctx, c.x.s.Clock.Now().Add(poll)); err != nil {
-				return err
-			}
-		}
-		// A real transfer takes 10 bits a byte: allow for it beyond comm_timeout.
-		cctx, cancel := context.WithTimeout(ctx, c.x.comm+time.Duration(c.plan.Count)*time.Millisecond)
-		var err error
-		if r.dev.HasBufferClock() {
-			r.c1, err = r.dev.ReadBufferClock(cctx)
-		}
-		if err == nil {
-			r.values, err = r.dev.FetchBuffer(cctx, c.plan.Count)
-		}
-		cancel()
-		if err != nil {
-			return c.fail(r.role, "fetch %d readings: %w", c.plan.Count, err)
-		}
+	if err := c.collect(ctx); err != nil {
+		return err
 	}
 	if ig := c.x.s.Instruments.Integrator; ig != nil && c.roles[0].role == "integrator" {
 		cctx, cancel := context.WithTimeout(ctx, c.x.comm)
@@ -304,25 +323,128 @@ func (c *capture) finish(ctx context.Context) error {
 	return nil
 }
 
-// times places each reading of r on the engine's clock, relative to the
-// run's start (the alignment model above), with each time's uncertainty.
-func (c *capture) times(r *bufRole) ([]time.Duration, []time.Duration) {
-	rate, rateU := 1.0, r.dev.BufferClockAccuracy()
-	if r.dev.HasBufferClock() {
-		db := r.c1.At.Sub(r.c0.At).Seconds()
-		dc := r.c1.Value - r.c0.Value
-		if db > 0 && dc > 0 {
-			rate = db / dc
-			rateU = (r.c0.AtUncertainty + r.c1.AtUncertainty).Seconds() / db
+// collect waits for the running acquisition of every role to complete,
+// reads the clocks and fetches the buffers.
+func (c *capture) collect(ctx context.Context) error {
+	for _, r := range c.roles {
+		k := r.cur()
+		span := time.Duration(float64(k.plan.Delay+time.Duration(k.plan.Count-1)*k.plan.Period) * 1.01)
+		grace := max(time.Second, span/50)
+		due := k.trig.Add(span + grace)
+		poll := max(k.plan.Period, 20*time.Millisecond)
+		for {
+			cctx, cancel := context.WithTimeout(ctx, c.x.comm)
+			done, err := r.dev.BufferDone(cctx)
+			cancel()
+			if err != nil {
+				return c.fail(r.role, "ask whether the acquisition is complete: %w", err)
+			}
+			if done {
+				break
+			}
+			if now := c.x.s.Clock.Now(); now.After(due) {
+				return c.fail(r.role, "acquisition of %d readings every %s not complete %s after its trigger (it should have taken %s): the trigger did not arrive or the instrument stopped",
+					k.plan.Count, k.plan.Period, now.Sub(k.trig).Round(time.Millisecond), span.Round(time.Millisecond))
+			}
+			if err := c.x.s.Clock.SleepUntil(ctx, c.x.s.Clock.Now().Add(poll)); err != nil {
+				return err
+			}
+		}
+		// A real transfer takes 10 bits a byte: allow for it beyond
+		// comm_timeout (2 ms a value: 23 bytes of ASCII at 115200 Bd).
+		cctx, cancel := context.WithTimeout(ctx, c.x.comm+time.Duration(k.plan.Count)*2*time.Millisecond)
+		var err error
+		if r.dev.HasBufferClock() {
+			k.c1, err = r.dev.ReadBufferClock(cctx)
+		}
+		if err == nil {
+			k.values, err = r.dev.FetchBuffer(cctx, k.plan.Count)
+		}
+		cancel()
+		if err != nil {
+			return c.fail(r.role, "fetch %d readings: %w", k.plan.Count, err)
 		}
 	}
-	ts := make([]time.Duration, len(r.values))
-	us := make([]time.Duration, len(r.values))
-	base := r.trig.Sub(c.x.start)
-	for k := range r.values {
-		inst := (c.plan.Delay + time.Duration(k)*c.plan.Period).Seconds()
+	return nil
+}
+
+// end is when the running acquisitions end, at the earliest, on the
+// engine's clock: their last reading, with twice the time base's rate error.
+func (c *capture) end() time.Time {
+	var end time.Time
+	for i, r := range c.roles {
+		k := r.cur()
+		inst := (k.plan.Delay + time.Duration(k.plan.Count-1)*k.plan.Period).Seconds()
+		e := k.trig.Add(time.Duration(inst * (1 - 2*r.dev.BufferClockAccuracy()) * float64(time.Second)))
+		if i == 0 || e.Before(end) {
+			end = e
+		}
+	}
+	return end
+}
+
+// cut ends the running acquisitions before the sweep does, the setpoint
+// held (see "A late host" above), and starts the next; it returns how long
+// the level was held.
+func (c *capture) cut(ctx context.Context) (time.Duration, error) {
+	clk := c.x.s.Clock
+	t0 := clk.Now()
+	if c.cuts == maxCuts {
+		return 0, c.fail(c.roles[0].role, "the sweep fell behind its schedule again after %d acquisitions: the host cannot keep the setpoint period %s; run it on a less loaded computer, or use a longer period or capture: polled",
+			maxCuts+1, c.period)
+	}
+	c.cuts++
+	if err := c.collect(ctx); err != nil {
+		return 0, err
+	}
+	// The level held is that of the last round: its step started then.
+	s0 := c.x.start.Add(c.rounds[len(c.rounds)-1].setAt)
+	gap := clk.Now().Sub(s0)
+	c.plan.Count = c.countFor(max(0, c.sweep-c.swept) + 2*gap + (cutMargin+2)*c.period)
+	if err := c.arm(ctx); err != nil {
+		return 0, err
+	}
+	if err := c.trigger(ctx); err != nil {
+		return 0, err
+	}
+	// The settled part of the held step, from its middle on, lies in the
+	// new buffers when the step lasts twice the time to the last trigger.
+	var trig time.Time
+	for _, r := range c.roles {
+		if t := r.cur().trig; t.After(trig) {
+			trig = t
+		}
+	}
+	until := trig.Add(trig.Sub(s0) + c.period)
+	if err := clk.SleepUntil(ctx, until); err != nil {
+		return 0, err
+	}
+	held := clk.Now().Sub(t0)
+	c.x.event(ctx, "warn", "buffered capture: the sweep fell behind its schedule (a late host or late replies) and its buffers would end before it; the setpoint was held %s at %.6g A while %d readings were fetched from the %s and a new acquisition of %d was started",
+		held.Round(time.Millisecond), c.rounds[len(c.rounds)-1].level, c.roles[0].cur().plan.Count, c.names(), c.plan.Count)
+	return held, nil
+}
+
+// times places each reading of one acquisition of r on the engine's
+// clock, relative to the run's start (the alignment model above), with
+// each time's uncertainty.
+func (c *capture) times(r *bufRole, a *chunk) ([]time.Duration, []time.Duration) {
+	rate, rateU := 1.0, r.dev.BufferClockAccuracy()
+	if r.dev.HasBufferClock() {
+		db := a.c1.At.Sub(a.c0.At).Seconds()
+		dc := a.c1.Value - a.c0.Value
+		if db > 0 && dc > 0 {
+			rate = db / dc
+			rateU = (a.c0.AtUncertainty + a.c1.AtUncertainty).Seconds() / db
+		}
+	}
+	ts := make([]time.Duration, len(a.values))
+	us := make([]time.Duration, len(a.values))
+	base := a.trig.Sub(c.x.start)
+	for k := range a.values {
+		inst := (a.plan.Delay + time.Duration(k)*a.plan.Period).Seconds()
 		ts[k] = base + time.Duration(rate*inst*float64(time.Second))
-		us[k] = r.trigUnc + time.Duration(rateU*inst*float64(time.Second))
+		us[k] = a.trigUnc + time.Duration(rateU*inst*float64(time.Second))
 	}
 	return ts, us
 }
@@ -334,22 +456,33 @@ func (c *capture) samples() ([]record.Sample, error) {
 		return nil, errors.New("buffered capture: the sweep ended before its buffers were fetched")
 	}
 	main := c.roles[0]
-	ts, us := c.times(main)
+	var ts, us []time.Duration
+	var vs []float64
+	for _, a := range main.chunks {
+		t, u := c.times(main, a)
+		ts, us, vs = append(ts, t...), append(us, u...), append(vs, a.values...)
+	}
 	// The sweep's last step ends at the first setpoint after it.
 	for i, r := range c.rounds {
 		if r.phase == record.Sweep && i+1 < len(c.rounds) && c.rounds[i+1].phase != record.Sweep {
 			if end := c.rounds[i+1].setAt; len(ts) == 0 || ts[len(ts)-1] < end {
-				return nil, c.fail(main.role, "the sweep lasted until %s, beyond its %d readings (to %s): it stalled for more than a quarter of its planned time; use a longer buffer_period or capture: polled",
+				return nil, c.fail(main.role, "the sweep lasted until %s, beyond its %d readings (to %s): it stalled after its buffers were last armed; use a longer buffer_period or capture: polled",
 					end.Round(time.Millisecond), len(ts), ts[len(ts)-1].Round(time.Millisecond))
 			}
 			break
 		}
 	}
-	var other []float64
-	var ots []time.Duration
+	// The other instrument's acquisitions, each interpolated within itself.
+	type span struct {
+		ts []time.Duration
+		vs []float64
+	}
+	var other []span
 	if len(c.roles) > 1 {
-		ots, _ = c.times(c.roles[1])
-		other = c.roles[1].values
+		for _, a := range c.roles[1].chunks {
+			t, _ := c.times(c.roles[1], a)
+			other = append(other, span{t, a.values})
+		}
 	}
 	nan := math.NaN()
 	out := make([]record.Sample, 0, len(ts))
@@ -365,15 +498,19 @@ func (c *capture) samples() ([]record.Sample, error) {
 		}
 		rd := c.rounds[j]
 		s := record.Sample{T: t, TUnc: max(us[k], rd.s.TUnc), Phase: record.Sweep, I: rd.s.I, V: rd.s.V, TempC: rd.s.TempC,
-			Psi: nan, BProbe: nan, Setpoint: rd.level}
-		s.Setpoint = c.rounds[j-1].level // the level of the step the reading falls in
+			Psi: nan, BProbe: nan, Setpoint: c.rounds[j-1].level} // the level of the step the reading falls in
 		if main.role == "integrator" {
-			s.Psi = main.values[k]
+			s.Psi = vs[k]
 			if other != nil {
-				s.BProbe = interp(ots, other, t)
+				i := sort.Search(len(other), func(i int) bool { return other[i].ts[len(other[i].ts)-1] >= t })
+				if i == len(other) || other[i].ts[0] > t {
+					c.left++ // between two of the field meter's acquisitions
+					continue
+				}
+				s.BProbe = interp(other[i].ts, other[i].vs, t)
 			}
 		} else {
-			s.BProbe = main.values[k]
+			s.BProbe = vs[k]
 		}
 		out = append(out, s)
 	}
@@ -395,12 +532,33 @@ func interp(ts []time.Duration, vs []float64, t time.Duration) float64 {
 }
 
 // round is called at the start of every round of a buffered step, before
-// its reading: it triggers at the sweep's first round.
-func (c *capture) round(ctx context.Context, phase record.Phase) error {
-	if phase == record.Sweep && !c.triggered {
-		return c.trigger(ctx)
+// its reading: it triggers at the sweep's first round; at every later
+// sweep round, and at the round that ends the sweep, it cuts the
+// acquisition when the buffers would not cover the step about to be sent
+// (see "A late host"). It returns how long it held the setpoint, by which
+// the step's schedule shifts.
+func (c *capture) round(ctx context.Context, phase record.Phase) (time.Duration, error) {
+	sweep := phase == record.Sweep
+	defer func() {
+		if sweep {
+			c.swept += c.period
+		}
+		c.inSwp = sweep
+	}()
+	if sweep && !c.triggered {
+		return 0, c.trigger(ctx)
 	}
-	return nil
+	if !c.triggered || c.fetched || !(sweep || c.inSwp) {
+		return 0, nil
+	}
+	ahead := time.Duration(cutMargin) * c.period
+	if !sweep {
+		ahead = c.period // the sweep's last step ends with this round
+	}
+	if c.end().Before(c.x.s.Clock.Now().Add(ahead)) {
+		return c.cut(ctx)
+	}
+	return 0, nil
 }
 
 // merge replaces the sweep's polled samples of raw (supply readings only)
@@ -414,6 +572,10 @@ func (c *capture) merge(ctx context.Context, raw []record.Sample) ([]record.Samp
 	buf, err := c.samples()
 	if err != nil {
 		return nil, err
+	}
+	c.plan.Count = 0
+	for _, a := range c.roles[0].chunks {
+		c.plan.Count += a.plan.Count
 	}
 	out := make([]record.Sample, 0, len(raw)+len(buf))
 	for _, s := range raw {

@@ -284,7 +284,8 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if err != nil {
 			return err
 		}
-		rd, err := x.readRound(ctx, cpt, phase, set)
+		rd, held, err := x.readRound(ctx, cpt, phase, set)
+		shift += held // a buffered capture held the level to re-arm
 		if err != nil {
 			return err
 		}
@@ -345,12 +346,15 @@ func (x *exec) startLoop(ctx context.Context, cpt *capture) error {
 
 // readRound sets the supply to set and reads the instruments once: in that
 // order when polled, the other way round in the sweep of a buffered capture
-// (cpt, when not nil).
-func (x *exec) readRound(ctx context.Context, cpt *capture, phase record.Phase, set float64) (sampler.Reading, error) {
+// (cpt, when not nil). held is how long a buffered capture held the level
+// to fetch and re-arm (0 otherwise): the schedule shifts by it.
+func (x *exec) readRound(ctx context.Context, cpt *capture, phase record.Phase, set float64) (sampler.Reading, time.Duration, error) {
 	in := x.s.Instruments
+	var held time.Duration
 	if cpt != nil {
-		if err := cpt.round(ctx, phase); err != nil {
-			return sampler.Reading{}, x.stopErr(ctx, err)
+		var err error
+		if held, err = cpt.round(ctx, phase); err != nil {
+			return sampler.Reading{}, held, x.stopErr(ctx, err)
 		}
 	}
 	cctx, cancel := context.WithTimeout(sampler.WithRetryCounter(ctx, &x.retries), x.comm)
@@ -366,9 +370,9 @@ func (x *exec) readRound(ctx context.Context, cpt *capture, phase record.Phase, 
 	}
 	cancel()
 	if err != nil {
-		return sampler.Reading{}, x.stopErr(ctx, violationOf(err))
+		return sampler.Reading{}, held, x.stopErr(ctx, violationOf(err))
 	}
-	return rd, nil
+	return rd, held, nil
 }
 
 // stepWarnings records the stalled rounds of step st and the late replies

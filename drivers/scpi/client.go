@@ -304,7 +304,9 @@ func (c *Client) QueryNumber(ctx context.Context, cmd string) (float64, error) {
 
 // QueryBlock sends a query whose reply is an arbitrary block and returns
 // the block's data; the read terminator after a definite-length block is
-// consumed when present.
+// consumed when present. Options.Timeout bounds the silence before the
+// reply and between its chunks, not the whole block: a block of 100 k
+// values takes seconds on a serial line (10 bits a byte); ctx bounds it all.
 func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 	if err := c.resync(ctx); err != nil {
 		return nil, err
@@ -315,7 +317,7 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 	}
 	parent := ctx
 	ctx, cancel := c.replyCtx(ctx)
-	defer cancel()
+	defer func() { cancel() }()
 	for {
 		data, rest, err := ParseBlock(c.buf, c.o.ReadTerm)
 		if err == nil {
@@ -348,8 +350,13 @@ func (c *Client) QueryBlock(ctx context.Context, cmd string) ([]byte, error) {
 			c.broke()
 			return nil, fmt.Errorf("scpi %q: block longer than %d bytes", cmd, MaxBlock)
 		}
+		n := len(c.buf)
 		if err := c.fill(ctx); err != nil {
 			return nil, fmt.Errorf("scpi %q: %w", cmd, c.asTimeout(parent, err))
+		}
+		if len(c.buf) > n { // the block is coming: the reply timeout starts again
+			cancel()
+			ctx, cancel = c.replyCtx(parent)
 		}
 	}
 }

@@ -314,3 +314,47 @@ func TestBlockTerminatorInLaterChunk(t *testing.T) {
 		t.Fatalf("next reply %q, %v", v, err)
 	}
 }
+
+// deadlines delivers a fixed byte sequence two bytes per Read and records
+// the deadline of each Read's context.
+type deadlines struct {
+	data []byte
+	seen []time.Time
+}
+
+func (s *deadlines) Write(ctx context.Context, p []byte) (int, error) { return len(p), nil }
+func (s *deadlines) Read(ctx context.Context, p []byte) (int, error) {
+	d, _ := ctx.Deadline()
+	s.seen = append(s.seen, d)
+	if len(s.data) == 0 {
+		return 0, scpitest.Timeout
+	}
+	n := copy(p[:min(2, len(p))], s.data)
+	s.data = s.data[n:]
+	return n, nil
+}
+
+// The reply timeout of a block bounds the silence, not the transfer: every
+// chunk that arrives starts it again (a block of 100 k values takes seconds
+// at 115200 Bd). Checked on the deadlines the stream is read with, not on
+// the wall clock: each Read's deadline is at least the one before, and the
+// last is later than the first.
+func TestBlockTimeoutRestartsWithEachChunk(t *testing.T) {
+	s := &deadlines{data: []byte("#210abcdefghij\r\n")}
+	c := New(s, Options{ReadTerm: "\r\n", Timeout: time.Hour})
+	got, err := c.QueryBlock(context.Background(), "Q?")
+	if err != nil || string(got) != "abcdefghij" {
+		t.Fatalf("block %q, %v", got, err)
+	}
+	if len(s.seen) < 5 {
+		t.Fatalf("%d reads", len(s.seen))
+	}
+	for i := 1; i < len(s.seen); i++ {
+		if s.seen[i].Before(s.seen[i-1]) {
+			t.Fatalf("read %d: deadline %v before the previous %v", i, s.seen[i], s.seen[i-1])
+		}
+	}
+	if !s.seen[len(s.seen)-1].After(s.seen[0]) {
+		t.Fatal("the reply deadline never moved while the block came in")
+	}
+}
