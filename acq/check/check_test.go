@@ -114,7 +114,7 @@ func TestWarnings(t *testing.T) {
 		{"../../configs/specimen-ring-r17.yaml", nil},
 		// A demag_curve needs a centred symmetric loop before it reaching its
 		// saturate field: the absolute B of the curve is read at that loop's
-		// top tip (see acq/fixture/level.go).
+		// top tip (see acq/process/run.go).
 		{"testdata/recipe-demag-no-loop.yaml", []string{"testdata/recipe-demag-no-loop.yaml:12: steps.0.demag_curve.saturate: warning: no record_loop before this step saturates the specimen (at least 1.2 MA/m)"}},
 		{"testdata/recipe-demag-small-loop.yaml", []string{"testdata/recipe-demag-small-loop.yaml:17: steps.1.demag_curve.saturate: warning: no record_loop before this step reaches 1.2 MA/m (the largest is 300 kA/m)"}},
 		{"../../configs/recipes/magnet-demag-curve.yaml", nil},

@@ -45,12 +45,9 @@ type Refused struct{ Err error }
 func (r *Refused) Error() string { return "recipe refused: " + r.Err.Error() }
 func (r *Refused) Unwrap() error { return r.Err }
 
-// Processed is what a Processor derives from a loop's raw samples.
-type Processed struct {
-	Points      []record.Point
-	Figures     []record.Figure
-	Corrections []record.Correction
-}
+// Processed is what a Processor derives from a loop's raw samples (the
+// run's processor, process.Run, returns it).
+type Processed = process.Processed
 
 // Processor turns a recorded loop's raw samples (with Phase pre, sweep,
 // post) into corrected points, figures and corrections. It must not keep raw.

@@ -1,8 +1,10 @@
 // Package process is the glue between a recorded loop step and the calib
 // numerics: it turns the raw samples of one step into corrected points, the
 // figures with their uncertainties and the list of corrections applied. It
-// does no I/O and keeps no state; Loop may be called from several goroutines
-// at once.
+// does no I/O. Loop keeps no state and may be called from several goroutines
+// at once; Run is the per-run processor the engine calls (through its
+// engine.Processor func type): it carries the level of open curves and the
+// normal-curve family from loop to loop.
 //
 // # Processing chain (process.Loop(raw, setup))
 //
@@ -33,10 +35,10 @@
 //     `Setup.Extra`); every correction is returned with its size (`geometry`, `drift-baseline`,
 //     `air-flux`, `closure`, `centering`, `anchor`, `demag`, `missing-samples`, `time-alignment`).
 //
-// # Normal curve of a run (acq/fixture processor, process.Family)
+// # Normal curve of a run (process.Run, process.Family)
 //
 // The expansion gives every loop of a `normal_curve` step its step key, its place (`Member` of `Of`) and the
-// step's `b_at` fields (A/m) in `recipe.LoopInfo`. The run's processor feeds each such loop's figures to a
+// step's `b_at` fields (A/m) in `LoopInfo` (`recipe.LoopInfo`). The run's processor feeds each such loop's figures to a
 // `process.Family`; with the last member it returns `mu_max`, `H_mu_max`, `b_at_<H>_a_m`
 // (`loop.NormalFigures`) and `mu_initial` at the specimen's level (`loop.NormalMuInitial`), stored with that loop. A loop that failed is simply absent from the family.
 // Tests: `TestNormalFigures` (calib/loop, analytic curve, within U at 4 and 10 tips per decade and
@@ -47,7 +49,7 @@
 // (calib/loop, analytic curve at 20–200 mT), `TestNormalCurveFigures` (acq/fixture, the wiring).
 // `hystd check` warns about a `demag_curve` without a saturating loop before it (`recipe.Warnings`).
 //
-// # Level of open curves (acq/fixture processor, process.TopOf)
+// # Level of open curves (process.Run, process.TopOf)
 //
 // An integrator gives only changes of flux, so a curve that starts at saturation and never returns (a
 // demagnetization curve, a recoil loop) has no level of its own. hystd sets it the way the trade does with
@@ -56,17 +58,18 @@
 //   - A magnet recipe records a `record_loop` at the saturating field first, then the `demag_curve` with
 //     `saturate` equal to it (`configs/recipes/magnet-demag-curve.yaml`). The recoil loops of a `demag_curve`
 //     re-saturate before each one (see the plan listing), so they start from the same tip.
-//   - The processor (`fixture.Opened.Processor`) is built per run and sees the loops in order. After each
+//   - The processor (`process.Run`, built by `fixture.Opened.Processor`) is built per run and sees the loops in order. After each
 //     centred loop it keeps `process.TopOf(points)`: a straight line B(H) fitted to the points within 5 % of
-//     the H range below the top tip. An open curve is processed first to learn H at its first sweep sample;
-//     then the latest kept line whose window holds that H (±1 % of the loop's range) gives
-//     `StartB`, and its standard error at that H gives `UStartB`. The curve is reprocessed with
-//     `from-level` and gets a `start-level` correction naming the loop, the field and the fit.
-//   - No centred loop before the curve, or none whose tip is at its start field: `fixture.ErrNoLevel`
+//     the H range below the top tip. An open curve is processed in one pass with
+//     `from-level` and `Setup.StartLevel`: once H at its first sweep sample is known, the latest kept
+//     line whose window holds that H (±1 % of the loop's range) gives the start B, and its standard
+//     error at that H its uncertainty; the curve gets a `start-level` correction naming the loop, the
+//     field and the fit.
+//   - No centred loop before the curve, or none whose tip is at its start field: `process.ErrNoLevel`
 //     with the reason; the engine stores the curve raw only and says so in an event (the raw samples can be
 //     reprocessed later). The level is right only if that loop saturates the specimen. A saturated
 //     specimen is reversible near the tip, so the loop's falling and rising branches coincide there; the
-//     `start-level` note gives their difference, and above `fixture.GapLimit` (2 mT) flags it CHECK. On the
+//     `start-level` note gives their difference, and above `process.GapLimit` (2 mT) flags it CHECK. On the
 //     simulated disc: 0.3–0.5 mT at ±1.2 MA/m, 19–22 mT at ±300 kA/m (not saturating; its demag curve's
 //     Br came out 6–9 mT off the loop's own).
 //   - On the simulated yoke (bench-magnet, SW random ensemble, 400 kA/m/s) the demagnetization curve gives

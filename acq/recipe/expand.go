@@ -27,12 +27,13 @@ const (
 	KindReturn      StepKind = "return"
 )
 
-// Loop kinds of record.Loop written by Record steps.
+// Loop kinds of record.Loop written by Record steps (defined with the
+// run's processor, which treats each kind its own way).
 const (
-	LoopKindLoop   = "loop"
-	LoopKindNormal = "normal-curve"
-	LoopKindDemag  = "demag-curve"
-	LoopKindRecoil = "recoil"
+	LoopKindLoop   = process.LoopKindLoop
+	LoopKindNormal = process.LoopKindNormal
+	LoopKindDemag  = process.LoopKindDemag
+	LoopKindRecoil = process.LoopKindRecoil
 )
 
 // Segment is one piece of a setpoint program: the level moves linearly from
@@ -43,18 +44,9 @@ type Segment struct {
 	Phase record.Phase  // "" when not recorded; PreHold, Sweep or PostHold
 }
 
-// LoopInfo describes the record.Loop a Record step produces.
-type LoopInfo struct {
-	Kind      string  // LoopKind*
-	Amplitude float64 // as written in the recipe, in AmpUnit
-	AmpUnit   string  // "A" or "A/m"
-	// Family is the recipe key of the normal_curve step a loop of kind
-	// LoopKindNormal belongs to ("" otherwise); Member is its 1-based place
-	// among the step's Of loops, and BAt the step's b_at fields in A/m.
-	Family     string
-	Member, Of int
-	BAt        []float64
-}
+// LoopInfo describes the record.Loop a Record step produces; it is defined
+// with the run's processor (process.LoopInfo), which reads it.
+type LoopInfo = process.LoopInfo
 
 // Step is one concrete setpoint program of an expanded recipe.
 type Step struct {

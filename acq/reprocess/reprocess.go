@@ -5,7 +5,7 @@
 // are never changed.
 //
 // The loops go through the same processing as when the run was recorded:
-// a live run's through the live processor (fixture.Offline: the one
+// a live run's through the live processor (fixture.Offline: the process.Run
 // fixture.Opened.Processor builds, with the profiles' accuracies, open
 // curves placed from the run's own saturating loops, and the calibration
 // records the run used: those its events name, taken from the daemon
