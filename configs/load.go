@@ -11,6 +11,8 @@ import (
 	"embed"
 	"errors"
 	"fmt"
+	"io/fs"
+	"path"
 	"reflect"
 	"regexp"
 	"sort"
@@ -444,3 +446,33 @@ func (d Duration) MarshalYAML() (any, error) { return time.Duration(d).String(),
 
 // D returns the value as a time.Duration.
 func (d Duration) D() time.Duration { return time.Duration(d) }
+
+// ParseKindDir parses every *.yaml and *.yml file directly in dir of fsys
+// and returns, in name order, the documents whose `kind:` is kind (files of
+// other kinds are skipped). shown is the folder as errors name it. A file
+// that cannot be read or parsed ends the listing with its error.
+func ParseKindDir(fsys fs.FS, dir, shown, kind string) ([]*Doc, error) {
+	entries, err := fs.ReadDir(fsys, dir)
+	if err != nil {
+		return nil, err
+	}
+	var docs []*Doc
+	for _, e := range entries {
+		n := e.Name()
+		if e.IsDir() || !(strings.HasSuffix(n, ".yaml") || strings.HasSuffix(n, ".yml")) {
+			continue
+		}
+		data, err := fs.ReadFile(fsys, path.Join(dir, n))
+		if err != nil {
+			return nil, err
+		}
+		doc, err := Parse(path.Join(shown, n), data)
+		if err != nil {
+			return nil, err
+		}
+		if doc.Kind() == kind {
+			docs = append(docs, doc)
+		}
+	}
+	return docs, nil
+}

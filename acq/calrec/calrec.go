@@ -10,8 +10,6 @@ import (
 	"io/fs"
 	"math"
 	"os"
-	"path"
-	"path/filepath"
 	"strings"
 	"time"
 
@@ -402,30 +400,15 @@ func LoadDir(dir string) ([]Record, error) { return LoadFS(os.DirFS(dir), ".", d
 
 // LoadFS is LoadDir on dir of fsys; errors name files as under shown.
 func LoadFS(fsys fs.FS, dir, shown string) ([]Record, error) {
-	entries, err := fs.ReadDir(fsys, dir)
+	docs, err := configs.ParseKindDir(fsys, dir, shown, Kind)
 	if err != nil {
 		return nil, err
 	}
 	var out []Record
 	var es configs.Errors
 	ids, targets := map[string]string{}, map[string]string{}
-	for _, e := range entries {
-		n := e.Name()
-		if e.IsDir() || !(strings.HasSuffix(n, ".yaml") || strings.HasSuffix(n, ".yml")) {
-			continue
-		}
-		data, err := fs.ReadFile(fsys, path.Join(dir, n))
-		if err != nil {
-			return nil, err
-		}
-		file := filepath.Join(shown, n)
-		doc, err := configs.Parse(file, data)
-		if err != nil {
-			return nil, err
-		}
-		if doc.Kind() != Kind {
-			continue
-		}
+	for _, doc := range docs {
+		file := doc.File
 		r, err := FromDoc(doc)
 		if err != nil {
 			return nil, err

@@ -7,7 +7,6 @@ import (
 	"io/fs"
 	"math"
 	"os"
-	"path"
 	"sort"
 	"strings"
 
@@ -27,29 +26,14 @@ func LoadDir(dir string) (Set, error) {
 
 // LoadFS is LoadDir on a file system; shown names file paths in errors.
 func LoadFS(fsys fs.FS, dir, shown string) (Set, error) {
-	entries, err := fs.ReadDir(fsys, dir)
+	docs, err := configs.ParseKindDir(fsys, dir, shown, Kind)
 	if err != nil {
 		return nil, err
 	}
 	set := Set{}
 	from := map[string]string{}
-	for _, e := range entries {
-		n := e.Name()
-		if e.IsDir() || !(strings.HasSuffix(n, ".yaml") || strings.HasSuffix(n, ".yml")) {
-			continue
-		}
-		data, err := fs.ReadFile(fsys, path.Join(dir, n))
-		if err != nil {
-			return nil, err
-		}
-		file := path.Join(shown, n)
-		doc, err := configs.Parse(file, data)
-		if err != nil {
-			return nil, err
-		}
-		if doc.Kind() != Kind {
-			continue
-		}
+	for _, doc := range docs {
+		file := doc.File
 		g, err := FromDoc(doc)
 		if err != nil {
 			return nil, err
