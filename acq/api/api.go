@@ -84,6 +84,10 @@ type Options struct {
 	// Users are named tokens with roles (LoadUsers); the single token
 	// above, when given, acts as SharedTokenUser with role admin.
 	Users []Credential
+	// UsersNow, when set, is asked for the named users on every request
+	// instead of Users, so a reloaded users file applies at once (a user
+	// removed from it is refused from the next request on).
+	UsersNow func() []Credential
 	// ProtectReads requires the token for every /api/ and /metrics request too.
 	ProtectReads bool
 
@@ -100,7 +104,7 @@ var webFS embed.FS
 
 type server struct {
 	o        Options
-	creds    []Credential // who may act: Users and the single token; none: mutations refused
+	shared   []Credential // the single token's user (none or one)
 	log      *slog.Logger
 	mux      *http.ServeMux
 	requests *prometheus.CounterVec
@@ -137,9 +141,8 @@ func New(o Options) (http.Handler, error) {
 	if err != nil {
 		return nil, err
 	}
-	s.creds = append(s.creds, o.Users...)
 	if tok != "" {
-		s.creds = append(s.creds, Credential{User: User{Name: SharedTokenUser, Role: RoleAdmin}, Hash: sha256.Sum256([]byte(tok))})
+		s.shared = []Credential{{User: User{Name: SharedTokenUser, Role: RoleAdmin}, Hash: sha256.Sum256([]byte(tok))}}
 	}
 	reg := prometheus.NewRegistry()
 	s.requests = prometheus.NewCounterVec(prometheus.CounterOpts{
@@ -305,10 +308,21 @@ func (s *server) wrap(route string, need Role, timeout bool, h http.HandlerFunc)
 	})
 }
 
+// creds are who may act now: the named users and the single token's user;
+// none: mutations are refused.
+func (s *server) creds() []Credential {
+	users := s.o.Users
+	if s.o.UsersNow != nil {
+		users = s.o.UsersNow()
+	}
+	return append(users[:len(users):len(users)], s.shared...)
+}
+
 // authorized finds the user of the bearer token and answers 401 or 403
 // when there is none.
 func (s *server) authorized(w http.ResponseWriter, r *http.Request) (User, bool) {
-	if len(s.creds) == 0 {
+	creds := s.creds()
+	if len(creds) == 0 {
 		writeError(w, http.StatusForbidden, "no API token is configured on this daemon; this request is disabled")
 		return User{}, false
 	}
@@ -318,7 +332,7 @@ func (s *server) authorized(w http.ResponseWriter, r *http.Request) (User, bool)
 		writeError(w, http.StatusUnauthorized, "missing bearer token: send the header Authorization: Bearer TOKEN")
 		return User{}, false
 	}
-	u, ok := lookup(s.creds, strings.TrimSpace(tok))
+	u, ok := lookup(creds, strings.TrimSpace(tok))
 	if !ok {
 		w.Header().Set("WWW-Authenticate", `Bearer realm="hystd", error="invalid_token"`)
 		writeError(w, http.StatusUnauthorized, "bearer token not accepted")

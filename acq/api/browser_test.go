@@ -103,6 +103,8 @@ type benchServer struct {
 	bench   *sim.Bench
 	clock   *clock.Sim // the bench's, the drivers' and the engine's time
 	logs    *logBuf
+	dir     string         // the config's folder
+	sigs    chan os.Signal // the daemon's signals (SIGHUP reloads)
 }
 
 // pace joins the test to the bench's simulated time as a second actor that
@@ -139,6 +141,9 @@ type serverSetup struct {
 	files func(t *testing.T, specimen []byte) map[string][]byte
 	// config is more lines of the daemon config.
 	config string
+	// users, when set, is the content of users.yaml, named as the
+	// config's http.users_file.
+	users string
 }
 
 // startServer starts `hystd serve` on the simulated ring bench as s says;
@@ -180,20 +185,26 @@ func startServer(t *testing.T, s serverSetup) *benchServer {
 		}
 	}
 	write("token", []byte(browserToken+"\n"))
+	users := ""
+	if s.users != "" {
+		write("users.yaml", []byte(s.users))
+		users = ", users_file: users.yaml"
+	}
 	write("daemon.yaml", []byte(fmt.Sprintf(`kind: daemon
-http: {addr: "127.0.0.1:0", token_file: %s}
+http: {addr: "127.0.0.1:0", token_file: %s%s}
 store: {path: %s}
 log: {level: info}
 %sfixtures:
   - {fixture: fixture.yaml, specimen: specimen.yaml}
-`, filepath.Join(dir, "token"), filepath.Join(dir, "hystd.db"), s.config)))
-	bs := &benchServer{bench: b, clock: clk, logs: &logBuf{}}
+`, filepath.Join(dir, "token"), users, filepath.Join(dir, "hystd.db"), s.config)))
+	bs := &benchServer{bench: b, clock: clk, logs: &logBuf{}, dir: dir}
 	for _, line := range strings.Split(string(fx), "\n") {
 		if v, ok := strings.CutPrefix(line, "name:"); ok {
 			bs.fixture = strings.TrimSpace(v)
 		}
 	}
 	sigs := make(chan os.Signal, 1)
+	bs.sigs = sigs
 	done := make(chan error, 1)
 	ready := make(chan string, 1)
 	w := daemon.Wiring{

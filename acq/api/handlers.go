@@ -25,7 +25,7 @@ func (s *server) health(w http.ResponseWriter, r *http.Request) {
 		"version":  s.o.Version,
 		"runner":   s.o.Runner != nil,
 		"live":     s.o.Live != nil,
-		"mutation": len(s.creds) > 0,
+		"mutation": len(s.creds()) > 0,
 	})
 }
 
@@ -40,8 +40,8 @@ func (s *server) info(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, map[string]any{
 		"fixtures":      fixtures,
 		"version":       s.o.Version,
-		"can_submit":    s.o.Runner != nil && len(s.creds) > 0,
-		"token_set":     len(s.creds) > 0,
+		"can_submit":    s.o.Runner != nil && len(s.creds()) > 0,
+		"token_set":     len(s.creds()) > 0,
 		"protect_reads": s.o.ProtectReads,
 		"cgs": map[string]float64{
 			"oe_per_a_m":    oe,

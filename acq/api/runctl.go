@@ -52,7 +52,8 @@ type DaemonParts struct {
 	Reader  record.Reader
 	Runner  Runner
 	Live    *live.Hub
-	Token   string              // bearer token for mutations; "": mutations refused
+	Token   string              // bearer token for mutations (user SharedTokenUser, role admin)
+	Users   func() []Credential // the named users in force (http.users_file), asked on every request; nil: none
 	Metrics prometheus.Gatherer // the daemon's metrics, for the API's /metrics
 	Outbox  outbox.Store        // quarantined loops, for the API's /api/v1/outbox
 	Version string

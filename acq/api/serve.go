@@ -57,5 +57,5 @@ func serveListener(ctx context.Context, ln net.Listener, h http.Handler, t HTTPT
 // `hystd serve` hands it (store, daemon, live hub, token, metrics).
 func ForDaemon(p DaemonParts) (http.Handler, error) {
 	return New(Options{Reader: p.Reader, Runner: p.Runner, Live: p.Live, Gatherer: p.Metrics,
-		Token: p.Token, Version: p.Version, Logger: p.Log, Outbox: p.Outbox})
+		Token: p.Token, UsersNow: p.Users, Version: p.Version, Logger: p.Log, Outbox: p.Outbox})
 }

@@ -121,7 +121,7 @@ func Serve(ctx context.Context, configPath string, w Wiring) error {
 	}
 	var h http.Handler
 	if w.API != nil {
-		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Metrics: d.metrics.Registry, Outbox: st,
+		h, err = w.API(APIParts{Reader: st, Runner: d, Live: hub, Token: cfg.Token(), Users: func() []api.Credential { return d.Config().Users() }, Metrics: d.metrics.Registry, Outbox: st,
 			Version: w.Software, Log: log.With("part", "api")})
 		if err != nil {
 			d.Stop("the HTTP API could not be built")
@@ -337,10 +337,6 @@ func reload(d *Daemon, path string, log *slog.Logger) {
 	}
 	if nc.HTTP.TokenFile != old.HTTP.TokenFile {
 		restart = append(restart, "http.token_file")
-	}
-	if nc.HTTP.UsersFile != "" || old.HTTP.UsersFile != "" {
-		// The API keeps the users it started with (a changed file, too).
-		restart = append(restart, "http.users_file")
 	}
 	if len(restart) > 0 {
 		log.Warn("config reloaded; these settings take effect at the next start", "keys", strings.Join(restart, ", "))
