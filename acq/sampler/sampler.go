@@ -137,18 +137,24 @@ type line struct {
 	role  string
 	steps []step
 	ov    instr.Overlapped // nil: read in a goroutine of its own
+	// queued is how many of the line's reads the overlapped round sends
+	// back to back (instr.Queued; 1 without it); q is ov as instr.Queued.
+	queued int
+	q      instr.Queued
 	// rtt is each step's last round trip (machine clock): when its reply
 	// is due in the overlapped round.
 	rtt []time.Duration
 }
 
 // step is one read: r names it for Overlapped.Begin; take makes it (or
-// collects it once begun), fills its field of out and returns its stamped
-// reading (ok false for status reads, which carry no time).
+// collects it once begun) and returns its stamped reading (ok false for
+// status reads, which carry no time) and put, which fills its field of a
+// Reading: the overlapped round puts a group of queued reads only once
+// all of them are in.
 type step struct {
 	what string // for errors: "read current"
 	r    instr.Read
-	take func(ctx context.Context, out *Reading) (s stamped, ok bool, err error)
+	take func(ctx context.Context) (s stamped, ok bool, put func(*Reading), err error)
 }
 
 // outcome is what one line's reads of one Read gave.
@@ -210,33 +216,34 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 
 // reading is the step of a timed read: its value goes to out by set.
 func reading(what string, r instr.Read, kind int, read func(context.Context) (instr.Reading, error), set func(*Reading, float64)) step {
-	return step{what: what, r: r, take: func(ctx context.Context, out *Reading) (stamped, bool, error) {
+	return step{what: what, r: r, take: func(ctx context.Context) (stamped, bool, func(*Reading), error) {
 		v, err := read(ctx)
 		if err != nil {
-			return stamped{}, false, err
+			return stamped{}, false, nil, err
 		}
-		set(out, v.Value)
-		return stamped{v, kind}, true, nil
+		return stamped{v, kind}, true, func(out *Reading) { set(out, v.Value) }, nil
 	}}
 }
 
 // state is the step of a read without a time (status, overload).
 func state[T any](what string, r instr.Read, read func(context.Context) (T, error), set func(*Reading, T)) step {
-	return step{what: what, r: r, take: func(ctx context.Context, out *Reading) (stamped, bool, error) {
+	return step{what: what, r: r, take: func(ctx context.Context) (stamped, bool, func(*Reading), error) {
 		v, err := read(ctx)
 		if err != nil {
-			return stamped{}, false, err
+			return stamped{}, false, nil, err
 		}
-		set(out, v)
-		return stamped{}, false, nil
+		return stamped{}, false, func(out *Reading) { set(out, v) }, nil
 	}}
 }
 
 func (s *Sampler) add(role string, res instr.Resource, steps []step) {
-	l := &line{role: role, steps: steps, rtt: make([]time.Duration, len(steps))}
+	l := &line{role: role, steps: steps, rtt: make([]time.Duration, len(steps)), queued: 1}
 	s.lines = append(s.lines, l)
 	if ov, ok := res.(instr.Overlapped); ok {
 		l.ov = ov
+		if q, ok := res.(instr.Queued); ok && q.Queued() > 1 {
+			l.q, l.queued = q, q.Queued()
+		}
 		return
 	}
 	w := &worker{l: l, req: make(chan request), done: make(chan struct{})}
@@ -259,8 +266,12 @@ func (l *line) readInTurn(ctx context.Context, out *Reading) outcome {
 		var got stamped
 		var ok bool
 		_, err := Retry(ctx, func(ctx context.Context) (struct{}, error) {
+			var put func(*Reading)
 			var err error
-			got, ok, err = st.take(ctx, out)
+			got, ok, put, err = st.take(ctx)
+			if err == nil {
+				put(out)
+			}
 			return struct{}{}, err
 		})
 		if err != nil {
