@@ -157,8 +157,9 @@ func portTime(baud, queued int, cmds, replies []int, reply func(at time.Time)) t
 // read concurrently by the Sampler versus one after another: with no delay,
 // with a 1 ms processing time per reply, and on emulated 115 200 Bd lines,
 // where line-% is the achieved rate as a percentage of what the emulated
-// lines allow (see lineLimit) and nominal-line-% the same against the exact
-// line times.
+// lines allow a client that queues as the profiles permit (see lineLimit;
+// reading in turn cannot reach it) and nominal-line-% the same against the
+// exact line times.
 func BenchmarkSample(b *testing.B) {
 	cases := []struct {
 		name  string

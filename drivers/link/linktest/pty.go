@@ -101,7 +101,8 @@ func Serve(p *PTY, readTerm, writeTerm string, delay time.Duration, h Handler) *
 // is written when its last byte would have left. A reader goroutine stamps
 // arrivals and a writer goroutine writes each reply at its absolute time,
 // so a late wake-up of the writer does not push the line's timeline back.
-// baud 0 emulates no line: replies go out delay after their command.
+// baud 0 emulates no line: replies go out delay after their command (at
+// once, from the reader, without a delay either).
 func ServeLine(p *PTY, readTerm, writeTerm string, delay time.Duration, baud int, h Handler) *Responder {
 	r := &Responder{pty: p, term: writeTerm, h: h, line: Timeline{Baud: baud, Delay: delay},
 		out: make(chan outgoing, 64), stop: make(chan struct{})}
@@ -185,6 +186,14 @@ func (r *Responder) read(readTerm string) {
 			if !ok {
 				continue
 			}
+			if r.line.Baud == 0 && r.line.Delay <= 0 {
+				// No line and no delay: the reply is due now; written
+				// here, as without a writer, it costs no goroutine hop.
+				if !r.send(reply + r.term) {
+					return
+				}
+				continue
+			}
 			select {
 			case r.out <- outgoing{text: reply + r.term, at: r.line.Reply(in, len(reply)+len(r.term))}:
 			case <-r.stop:
@@ -213,11 +222,17 @@ func (r *Responder) write() {
 				return
 			}
 		}
-		r.pty.Master.SetWriteDeadline(time.Now().Add(time.Second))
-		if _, err := r.pty.Master.Write([]byte(o.text)); err != nil && !errors.Is(err, unix.EIO) {
+		if !r.send(o.text) {
 			return
 		}
 	}
+}
+
+// send writes text to the master; false when the master is closed.
+func (r *Responder) send(text string) bool {
+	r.pty.Master.SetWriteDeadline(time.Now().Add(time.Second))
+	_, err := r.pty.Master.Write([]byte(text))
+	return err == nil || errors.Is(err, unix.EIO)
 }
 
 // Stop ends the responder and waits for it. It is safe to call more than
