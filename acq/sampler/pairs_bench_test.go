@@ -72,8 +72,8 @@ func turn(b *testing.B, read func(context.Context) error) time.Duration {
 // BenchmarkSampleBesideInTurn: the Sampler against reading the same
 // channels one after another, on the same three ptys, in interleaved turns
 // of 200 samples: with instant replies (the case the overlapped round must
-// not lose: measured 0.91–1.15×, about even within the noise of a shared
-// 2-core machine, load 2.4–4) and on emulated full-duplex 115 200 Bd
+// not lose: measured 0.88–1.26×, median 1.01×, even within the noise of a
+// shared 2-core machine at load 2.4–6.5) and on emulated full-duplex 115 200 Bd
 // lines (see DEVELOPERS.md "Current figures" for the ratios and loads).
 func BenchmarkSampleBesideInTurn(b *testing.B) {
 	for _, c := range []struct {
