@@ -72,7 +72,9 @@ func turn(b *testing.B, read func(context.Context) error) time.Duration {
 // BenchmarkSampleBesideInTurn: the Sampler against reading the same
 // channels one after another, on the same three ptys, in interleaved turns
 // of 200 samples: with instant replies (the case the overlapped round must
-// not lose) and on emulated 115 200 Bd lines.
+// not lose: measured 0.88–1.26×, median 1.01×, even within the noise of a
+// shared 2-core machine at load 2.4–6.5) and on emulated full-duplex 115 200 Bd
+// lines (see DEVELOPERS.md "Current figures" for the ratios and loads).
 func BenchmarkSampleBesideInTurn(b *testing.B) {
 	for _, c := range []struct {
 		name string
@@ -105,10 +107,11 @@ const debianPython = "/usr/bin/python3"
 // lines, each side on its own three ptys with the same responders, in
 // interleaved turns of 200 samples. The script times its own polling loop
 // (not the interpreter's start). sampler-per-pyserial is the ratio of
-// sample rates; line-% is the Sampler's rate against what the emulated
-// lines allow (see lineLimit): the supply's two exchanges per sample bound
-// it, against the script's four exchanges in turn. It skips without
-// python3-serial.
+// sample rates (goal ≥ 2.5×; see DEVELOPERS.md "Current figures" for what
+// was measured, with the load); line-% is the Sampler's rate against what
+// the emulated lines allow (see lineLimit): the supply's two queries,
+// queued back to back (sim-supply's queued_queries: 2), bound it, against
+// the script's four exchanges in turn. It skips without python3-serial.
 func BenchmarkSampleBesidePyserial(b *testing.B) {
 	if exec.Command(debianPython, "-c", "import serial").Run() != nil {
 		b.Skip("python3-serial is not installed (apt-get install python3-serial)")

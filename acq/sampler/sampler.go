@@ -8,7 +8,15 @@
 // overlapped round: the first query of every such instrument is written
 // before any reply is read, and each line's next query goes out as soon as
 // its previous reply is in, so one query is in flight on every port at once
-// while no instrument gets a second query before it answered the first.
+// while no instrument gets a second query before it answered the first —
+// unless its profile says it accepts more (queued_queries, instr.Queued):
+// then up to that many of the line's reads go out back to back as a group
+// (the simulated supply's current and voltage), their replies read in
+// order. A group is used only whole: when any of its replies is late,
+// lost, garbled or out of step (a lost reply shifts the later ones up, so
+// the group's last query then has no reply and times out), none of its
+// values is used and the whole group is asked again after the driver's
+// resync, so a voltage never lands in the current channel.
 // The round looks at each line without blocking and, when nothing is in,
 // waits on the line whose reply is due first (from the line's last round
 // trip) until the next one is due. No goroutine, channel or timer per read:
@@ -21,9 +29,20 @@
 // kernel's buffer while another line was being waited on only widens its
 // interval, which still contains the instant it stands for (unless the
 // profile's timeout passed meanwhile: it is then late, as in a blocking
-// read, and read again after the driver's resync). Other
-// instruments (fakes in tests) are read one goroutine each, beside the
-// round.
+// read, and read again after the driver's resync). A queued reply's
+// interval runs from its own query's write to its own terminator's read.
+// Other instruments (fakes in tests) are read one goroutine each, beside
+// the round.
+//
+// Speed (BenchmarkSampleBesidePyserial, BenchmarkSampleBesideInTurn; the
+// figures with their load are in DEVELOPERS.md "Current figures"): on
+// emulated 115 200 Bd lines (linktest.ServeLine, full duplex like RS-232)
+// the round reaches about 3× the sequential pyserial script's sample rate:
+// the script's 4 exchanges in turn take 4 × 25 characters plus a timer's
+// overshoot each, the round's busiest port (the supply, 2 queued queries)
+// 11 + 14 + 14 characters plus one or two. With instant replies it is
+// about as fast as reading in turn (0.88–1.26×, median 1.01×: CPU-bound on
+// 2 cores shared with the three responders).
 package sampler
 
 import (
@@ -137,18 +156,24 @@ type line struct {
 	role  string
 	steps []step
 	ov    instr.Overlapped // nil: read in a goroutine of its own
+	// queued is how many of the line's reads the overlapped round sends
+	// back to back (instr.Queued; 1 without it); q is ov as instr.Queued.
+	queued int
+	q      instr.Queued
 	// rtt is each step's last round trip (machine clock): when its reply
 	// is due in the overlapped round.
 	rtt []time.Duration
 }
 
 // step is one read: r names it for Overlapped.Begin; take makes it (or
-// collects it once begun), fills its field of out and returns its stamped
-// reading (ok false for status reads, which carry no time).
+// collects it once begun) and returns its stamped reading (ok false for
+// status reads, which carry no time) and put, which fills its field of a
+// Reading: the overlapped round puts a group of queued reads only once
+// all of them are in.
 type step struct {
 	what string // for errors: "read current"
 	r    instr.Read
-	take func(ctx context.Context, out *Reading) (s stamped, ok bool, err error)
+	take func(ctx context.Context) (s stamped, ok bool, put func(*Reading), err error)
 }
 
 // outcome is what one line's reads of one Read gave.
@@ -210,33 +235,34 @@ func NewWith(r Roles, start time.Time, o Options) (*Sampler, error) {
 
 // reading is the step of a timed read: its value goes to out by set.
 func reading(what string, r instr.Read, kind int, read func(context.Context) (instr.Reading, error), set func(*Reading, float64)) step {
-	return step{what: what, r: r, take: func(ctx context.Context, out *Reading) (stamped, bool, error) {
+	return step{what: what, r: r, take: func(ctx context.Context) (stamped, bool, func(*Reading), error) {
 		v, err := read(ctx)
 		if err != nil {
-			return stamped{}, false, err
+			return stamped{}, false, nil, err
 		}
-		set(out, v.Value)
-		return stamped{v, kind}, true, nil
+		return stamped{v, kind}, true, func(out *Reading) { set(out, v.Value) }, nil
 	}}
 }
 
 // state is the step of a read without a time (status, overload).
 func state[T any](what string, r instr.Read, read func(context.Context) (T, error), set func(*Reading, T)) step {
-	return step{what: what, r: r, take: func(ctx context.Context, out *Reading) (stamped, bool, error) {
+	return step{what: what, r: r, take: func(ctx context.Context) (stamped, bool, func(*Reading), error) {
 		v, err := read(ctx)
 		if err != nil {
-			return stamped{}, false, err
+			return stamped{}, false, nil, err
 		}
-		set(out, v)
-		return stamped{}, false, nil
+		return stamped{}, false, func(out *Reading) { set(out, v) }, nil
 	}}
 }
 
 func (s *Sampler) add(role string, res instr.Resource, steps []step) {
-	l := &line{role: role, steps: steps, rtt: make([]time.Duration, len(steps))}
+	l := &line{role: role, steps: steps, rtt: make([]time.Duration, len(steps)), queued: 1}
 	s.lines = append(s.lines, l)
 	if ov, ok := res.(instr.Overlapped); ok {
 		l.ov = ov
+		if q, ok := res.(instr.Queued); ok && q.Queued() > 1 {
+			l.q, l.queued = q, q.Queued()
+		}
 		return
 	}
 	w := &worker{l: l, req: make(chan request), done: make(chan struct{})}
@@ -259,8 +285,12 @@ func (l *line) readInTurn(ctx context.Context, out *Reading) outcome {
 		var got stamped
 		var ok bool
 		_, err := Retry(ctx, func(ctx context.Context) (struct{}, error) {
+			var put func(*Reading)
 			var err error
-			got, ok, err = st.take(ctx, out)
+			got, ok, put, err = st.take(ctx)
+			if err == nil {
+				put(out)
+			}
 			return struct{}{}, err
 		})
 		if err != nil {

@@ -147,3 +147,16 @@ type Overlapped interface {
 	Begin(ctx context.Context, r Read) error
 	Ready(ctx context.Context, wait time.Duration) bool
 }
+
+// Queued is an Overlapped instrument that may accept more than one query
+// before its first reply is read, answering them in order. Queued tells
+// how many (1: one at a time, BeginBehind is Begin). BeginBehind sends
+// read r's query behind the reads begun and not yet collected when fewer
+// than Queued are (otherwise it is Begin); the read methods then collect
+// the replies in the order of the queries, Ready looking at the first
+// one not collected. A reply that fails abandons the reads behind it.
+type Queued interface {
+	Overlapped
+	Queued() int
+	BeginBehind(ctx context.Context, r Read) error
+}

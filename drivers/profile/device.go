@@ -202,6 +202,7 @@ func newDevice(ctx context.Context, p Profile, port Port, o Options) (*Device, e
 		Name: p.Name, WriteTerm: p.Terminators.Write, ReadTerm: p.Terminators.Read,
 		ErrorQuery: p.ErrorQuery, Log: o.Log, Now: o.Now, Timeout: p.LineSettings().ReadTimeout,
 		SyncQuery: p.SyncQuery, SyncReply: func(l string) bool { return strings.Contains(l, syncReply) },
+		Queued: p.Queued(),
 	})
 	if err := d.start(ctx); err != nil {
 		return d, err
@@ -559,6 +560,27 @@ func (d *Device) Begin(ctx context.Context, r instr.Read) error {
 	}
 	return nil
 }
+
+// BeginBehind is Begin that keeps the reads begun and not yet collected
+// when the profile's queued_queries allows one more (see instr.Queued):
+// r's query goes out behind theirs and the read methods collect the
+// replies in order.
+func (d *Device) BeginBehind(ctx context.Context, r instr.Read) error {
+	if err := d.ready(ctx); err != nil {
+		return err
+	}
+	o, err := d.op(string(r))
+	if err != nil {
+		return err
+	}
+	if err := d.c.AskBehind(ctx, o.Query); err != nil {
+		return d.fail(ctx, string(r), o.Query, err)
+	}
+	return nil
+}
+
+// Queued is the profile's queued_queries (see instr.Queued).
+func (d *Device) Queued() int { return d.p.Queued() }
 
 // Ready reports whether the reply of the read started by Begin is in (or
 // its exchange failed), waiting at most wait.

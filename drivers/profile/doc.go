@@ -83,7 +83,9 @@
 // `acq/sampler` is the one concurrent reader: the engine samples through it. Profile instruments
 // (`instr.Overlapped`: a read can be started ahead, `scpi.Client.Ask`/`Await`) are read in an overlapped round in
 // the caller's goroutine: every line's first query is written before any reply is read, a line's next query goes out
-// when its reply is in (one query per instrument at a time), and a line is looked at without blocking
+// when its reply is in (one query per instrument at a time, or up to the profile's `queued_queries` written back to
+// back — `Device.BeginBehind`, `scpi.Client.AskBehind` — whose replies are used only when all of them are in),
+// and a line is looked at without blocking
 // (`link.Conn.ReadWithin`); no goroutine, channel or timer per read, and writes get a goroutine only with RTS/CTS flow
 // control. go.bug.st/serial hides the descriptor, so Go's runtime poller cannot watch the ports. Other roles (test
 // fakes) get one goroutine each. A reply that times out on a live line is read again (`sampler.Retry`, counted with
@@ -130,7 +132,10 @@
 //  2. Set `role` (supply, integrator, field_meter, thermometer), `serial` (baud, data_bits, parity none/even/odd/mark/space,
 //     stop_bits "1"/"1.5"/"2", flow none/rtscts; `dtr`/`rts` true/false only for adapters that need
 //     the modem lines driven — leave them out for ptys), `terminators` (write and read; `"\n"`, `"\r\n"`, `"\r"`), `timeout`
-//     (per reply, with a unit), `identity` (a text the `*IDN?` reply contains), `error_query` (empty if there is no queue;
+//     (per reply, with a unit), `queued_queries` (how many queries the instrument accepts before its first reply is
+//     read, answering them in order; default 1 — keep 1 unless the instrument is known to queue them: an IEEE 488.2
+//     instrument may discard an unread reply when a new query arrives, and every bundled real-instrument profile has 1),
+//     `identity` (a text the `*IDN?` reply contains), `error_query` (empty if there is no queue;
 //     a reply is `code,"message"` or a bare code, 0 meaning empty), `init` and `safe_state` commands.
 //  3. For each operation of the role, give `query:` or `set:`. Required: supply `set_current`, `read_current`,
 //     `read_voltage`, `set_output` (optional `read_status`); integrator `reset`, `read_flux` (optional `set_range`,

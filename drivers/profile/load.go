@@ -177,6 +177,9 @@ func validateHead(add adder, p Profile) {
 	checkTerm(add, "terminators.write", p.Terminators.Write)
 	checkTerm(add, "terminators.read", p.Terminators.Read)
 	checkDur(add, "timeout", p.Timeout, true)
+	if q := p.QueuedQueries; q != nil && (*q < 1 || *q > MaxQueued) {
+		add("queued_queries", "%d: want 1 to %d (how many queries the instrument answers in order before its first reply is read)", *q, MaxQueued)
+	}
 	if strings.TrimSpace(p.Identity) == "" {
 		add("identity", "required: a text the *IDN? reply must contain")
 	}
@@ -527,6 +530,19 @@ func normalize(p Profile) Profile {
 	}
 	p.Operations = ops
 	return p
+}
+
+// MaxQueued is the largest queued_queries a profile may declare: enough
+// for all of one sample's reads of a supply (current, voltage, status).
+const MaxQueued = 4
+
+// Queued is how many queries the instrument accepts before its first
+// reply is read (queued_queries; 1 when absent).
+func (p Profile) Queued() int {
+	if p.QueuedQueries == nil {
+		return 1
+	}
+	return *p.QueuedQueries
 }
 
 // LineSettings returns the profile's serial settings for drivers/link, with

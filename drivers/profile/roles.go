@@ -38,6 +38,10 @@ var (
 	_ instr.Overlapped = (*Integrator)(nil)
 	_ instr.Overlapped = (*FieldMeter)(nil)
 	_ instr.Overlapped = (*Thermometer)(nil)
+	_ instr.Queued     = (*Supply)(nil)
+	_ instr.Queued     = (*Integrator)(nil)
+	_ instr.Queued     = (*FieldMeter)(nil)
+	_ instr.Queued     = (*Thermometer)(nil)
 )
 
 func attach(ctx context.Context, role string, p Profile, port Port, o Options) (*Device, error) {

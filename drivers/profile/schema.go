@@ -12,6 +12,14 @@ type Profile struct {
 	Serial      SerialSettings `yaml:"serial"`
 	Terminators Terminators    `yaml:"terminators"`
 	Timeout     string         `yaml:"timeout"` // per reply, e.g. "500ms"
+	// QueuedQueries is how many queries the instrument accepts before its
+	// first reply is read, answering them in order (1 to MaxQueued;
+	// absent: 1, a query only once the previous reply is in). Declare more
+	// only for an instrument known to keep queued queries and their
+	// replies in order: an IEEE 488.2 instrument may discard an unread
+	// reply when a new query arrives (a query error), so the bundled
+	// profiles of real instruments keep 1. See Profile.Queued.
+	QueuedQueries *int `yaml:"queued_queries"`
 
 	// Identity is a substring that the *IDN? reply must contain.
 	Identity string `yaml:"identity"`

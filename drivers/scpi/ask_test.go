@@ -141,3 +141,88 @@ func TestAskedReplyReadAfterTimeoutIsLate(t *testing.T) {
 		t.Fatalf("got %+v, %v; want link.ErrTimeout", r, err)
 	}
 }
+
+// AskBehind queues a query behind an uncollected one when Options.Queued
+// allows: both go out, the replies are collected in the order of their
+// queries, each stamped from its own send to when its own terminator was
+// seen. With Queued 1 it is Ask (the first query is abandoned).
+func TestAskBehindCollectsInOrder(t *testing.T) {
+	s := &held{now: time.Unix(100, 0)}
+	c := New(s, Options{Timeout: time.Minute, Queued: 2, Now: func() time.Time { return s.now }})
+	ctx := context.Background()
+	if err := c.Ask(ctx, "MEAS:CURR?"); err != nil {
+		t.Fatal(err)
+	}
+	s.now = s.now.Add(time.Millisecond)
+	if err := c.AskBehind(ctx, "MEAS:VOLT?"); err != nil {
+		t.Fatal(err)
+	}
+	if len(s.wrote) != 2 || s.wrote[1] != "MEAS:VOLT?\n" || c.Stale() {
+		t.Fatalf("wrote %q, stale %v", s.wrote, c.Stale())
+	}
+	s.now = s.now.Add(2 * time.Millisecond)
+	s.ready = []byte("+2.0E+00\n+1.6E+00\n")
+	if !c.Await(ctx, 0) {
+		t.Fatal("first reply not ready")
+	}
+	i, err := c.QueryTimed(ctx, "MEAS:CURR?")
+	if err != nil || i.Text != "+2.0E+00" || i.Received.Sub(i.Sent) != 3*time.Millisecond {
+		t.Fatalf("current %+v, %v", i, err)
+	}
+	s.now = s.now.Add(time.Millisecond)
+	if !c.Await(ctx, 0) {
+		t.Fatal("second reply not ready")
+	}
+	v, err := c.QueryTimed(ctx, "MEAS:VOLT?")
+	if err != nil || v.Text != "+1.6E+00" || v.Sent.Sub(i.Sent) != time.Millisecond || v.Received.Sub(v.Sent) != 3*time.Millisecond {
+		t.Fatalf("voltage %+v, %v", v, err)
+	}
+	if len(s.wrote) != 2 || c.Stale() {
+		t.Fatalf("asked again: %q (stale %v)", s.wrote, c.Stale())
+	}
+
+	one := New(&silent{}, Options{Timeout: time.Minute, Quiet: time.Millisecond})
+	if err := one.Ask(ctx, "MEAS:CURR?"); err != nil {
+		t.Fatal(err)
+	}
+	if err := one.AskBehind(ctx, "MEAS:VOLT?"); err != nil {
+		t.Fatal(err)
+	}
+	if one.Breaks() != 1 || len(one.asked) != 1 || one.asked[0].cmd != "MEAS:VOLT?" {
+		t.Fatal("with Queued 1, AskBehind did not abandon the first query")
+	}
+}
+
+// silent is a stream on which nothing arrives: a read times out.
+type silent struct{ held }
+
+func (s *silent) Read(ctx context.Context, p []byte) (int, error) {
+	return 0, &link.Error{Op: "read", Kind: link.ErrTimeout}
+}
+
+// A queued reply that is late abandons the queries behind it: collecting
+// the first gives the timeout, the line is stale and no query is left
+// asked, so the second is asked again after the resync rather than
+// collected from whatever arrives next (a reply shifted up by a lost one
+// would otherwise answer it).
+func TestAskBehindLateFirstAbandonsRest(t *testing.T) {
+	s := &held{}
+	c := New(s, Options{Timeout: time.Millisecond, Queued: 2})
+	ctx := context.Background()
+	if err := c.Ask(ctx, "MEAS:CURR?"); err != nil {
+		t.Fatal(err)
+	}
+	if err := c.AskBehind(ctx, "MEAS:VOLT?"); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(2 * time.Millisecond) // past the Timeout: this test's subject, not a speed bound
+	if !c.Await(ctx, 0) {
+		t.Fatal("a late reply is settled")
+	}
+	if _, err := c.QueryTimed(ctx, "MEAS:CURR?"); !errors.Is(err, link.ErrTimeout) {
+		t.Fatalf("got %v, want a timeout", err)
+	}
+	if !c.Stale() || len(c.asked) != 0 {
+		t.Fatalf("stale %v, %d queries still asked", c.Stale(), len(c.asked))
+	}
+}

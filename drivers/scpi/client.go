@@ -60,6 +60,9 @@ type Options struct {
 	// SyncTimeout bounds a whole resync (drain and sync query); default
 	// 2·Timeout, or 1 s without Timeout.
 	SyncTimeout time.Duration
+	// Queued is how many queries the instrument accepts before its first
+	// reply is read, answering them in order (AskBehind); default 1.
+	Queued int
 }
 
 // ErrDesync is the error of an exchange whose reply cannot belong to the
@@ -78,7 +81,7 @@ type Client struct {
 	buf   []byte // bytes read beyond the last reply
 	stale bool   // an exchange broke off: a late reply may still arrive
 	rbuf  []byte
-	asked *asked // a query sent by Ask whose reply QueryTimed has not returned
+	asked []*asked // queries sent by Ask and AskBehind whose replies QueryTimed has not returned, in order
 	// breaks counts the exchanges that broke off (Breaks).
 	breaks atomic.Int64
 	// salvaged are error-queue entries found among the stale input a
@@ -127,6 +130,9 @@ func New(s Stream, o Options) *Client {
 	}
 	if o.Quiet <= 0 {
 		o.Quiet = DefaultQuiet
+	}
+	if o.Queued <= 0 {
+		o.Queued = 1
 	}
 	if o.SyncTimeout <= 0 {
 		o.SyncTimeout = time.Second
@@ -185,39 +191,69 @@ func (c *Client) Query(ctx context.Context, cmd string) (string, error) {
 }
 
 // QueryTimed sends a query and returns its reply with the send and
-// receive times (monotonic clock). When Ask sent the same query last, its
-// reply is collected instead (no second query), stamped from Ask's send.
+// receive times (monotonic clock). When the first query sent by Ask or
+// AskBehind and not yet collected is the same query, its reply is
+// collected instead (no second query), stamped from its send. A reply
+// that failed (late, lost, cut off) abandons the queries queued behind it:
+// the line is resynchronised before the next exchange and none of their
+// replies is taken.
 func (c *Client) QueryTimed(ctx context.Context, cmd string) (Reply, error) {
-	if c.asked == nil || c.asked.cmd != cmd {
+	if len(c.asked) == 0 || c.asked[0].cmd != cmd {
 		if err := c.Ask(ctx, cmd); err != nil {
 			return Reply{}, err
 		}
 	}
-	a := c.asked
-	c.asked = nil
-	if !a.done {
-		rctx, cancel := ctx, context.CancelFunc(func() {})
-		if !a.deadline.IsZero() {
-			rctx, cancel = context.WithDeadline(ctx, a.deadline)
-		}
-		line, err := c.readLine(rctx)
-		cancel()
-		c.answered(a, line, c.asTimeout(ctx, err))
+	a := c.asked[0]
+	c.asked = c.asked[1:]
+	c.collect(ctx, a)
+	if a.err != nil {
+		c.abandon()
 	}
 	return a.reply, a.err
+}
+
+// collect reads a's reply unless it is settled already.
+func (c *Client) collect(ctx context.Context, a *asked) {
+	if a.done {
+		return
+	}
+	rctx, cancel := ctx, context.CancelFunc(func() {})
+	if !a.deadline.IsZero() {
+		rctx, cancel = context.WithDeadline(ctx, a.deadline)
+	}
+	line, err := c.readLine(rctx)
+	cancel()
+	c.answered(a, line, c.asTimeout(ctx, err))
 }
 
 // Ask sends a query without waiting for its reply, so that one goroutine
 // can have queries on several lines at once; Await tells when the reply is
 // in and QueryTimed (with the same query) returns it. Its Timeout counts
-// from the send. Any other exchange before that abandons the query (the
-// line is then resynchronised: its reply may still come).
+// from the send. Any other exchange before that, Ask included, abandons
+// the query (the line is then resynchronised: its reply may still come).
 func (c *Client) Ask(ctx context.Context, cmd string) error {
 	if err := c.resync(ctx); err != nil {
 		return err
 	}
+	return c.send(ctx, cmd)
+}
+
+// AskBehind is Ask that keeps the queries already asked and not yet
+// collected when fewer than Options.Queued are and the line is in step:
+// cmd goes out behind them, and QueryTimed collects the replies in the
+// order of their queries. Otherwise it is Ask.
+func (c *Client) AskBehind(ctx context.Context, cmd string) error {
+	if len(c.asked) == 0 || len(c.asked) >= c.o.Queued || c.stale {
+		return c.Ask(ctx, cmd)
+	}
+	return c.send(ctx, cmd)
+}
+
+// send writes a query and queues it for its reply.
+func (c *Client) send(ctx context.Context, cmd string) error {
 	a := &asked{cmd: cmd, sent: c.o.Now()}
 	if _, err := c.s.Write(ctx, []byte(cmd+c.o.WriteTerm)); err != nil {
+		c.abandon()
 		c.broke()
 		c.o.Log.Debug("scpi query failed", "instr", c.o.Name, "cmd", cmd, "err", err)
 		return fmt.Errorf("scpi %q: %w", cmd, err)
@@ -225,12 +261,24 @@ func (c *Client) Ask(ctx context.Context, cmd string) error {
 	if c.o.Timeout > 0 {
 		a.deadline = time.Now().Add(c.o.Timeout)
 	}
-	c.asked = a
+	c.asked = append(c.asked, a)
 	return nil
 }
 
-// Await reports whether the reply to the query of Ask is in, or its
-// exchange has failed (late past Timeout, the line lost, ctx done), so that
+// abandon drops the queries asked and not collected; one whose reply is
+// not in yet leaves the line to be resynchronised (its reply may still
+// come).
+func (c *Client) abandon() {
+	for _, a := range c.asked {
+		if !a.done {
+			c.broke()
+		}
+	}
+	c.asked = nil
+}
+
+// Await reports whether the reply to the first query asked (Ask,
+// AskBehind) and not yet collected is in, or its exchange has failed (late past Timeout, the line lost, ctx done), so that
 // QueryTimed returns without waiting; it waits at most wait for input
 // (0: only looks), and stamps the reply when its terminator arrives. As in
 // QueryTimed, nothing is read once the Timeout has passed: a reply not
@@ -238,14 +286,13 @@ func (c *Client) Ask(ctx context.Context, cmd string) error {
 // resync discards them). On a Stream that is not a Poller it waits for the
 // reply. Without a query asked it returns true.
 func (c *Client) Await(ctx context.Context, wait time.Duration) bool {
-	a := c.asked
-	if a == nil || a.done {
+	if len(c.asked) == 0 || c.asked[0].done {
 		return true
 	}
+	a := c.asked[0]
 	p, ok := c.s.(Poller)
 	if !ok {
-		_, _ = c.QueryTimed(ctx, a.cmd) // collects; keep it for the caller's QueryTimed
-		c.asked = a
+		c.collect(ctx, a) // kept for the caller's QueryTimed
 		return true
 	}
 	end := time.Now().Add(wait)
@@ -659,12 +706,7 @@ func (c *Client) drain(ctx context.Context) (int, error) {
 // stays stale and the error matches link.ErrTimeout (or the transport's
 // error).
 func (c *Client) resync(ctx context.Context) error {
-	if a := c.asked; a != nil { // abandoned: its reply may still come
-		c.asked = nil
-		if !a.done {
-			c.broke()
-		}
-	}
+	c.abandon()
 	if !c.stale {
 		return nil
 	}

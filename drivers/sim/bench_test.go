@@ -165,3 +165,33 @@ func TestSensorsFollowTruth(t *testing.T) {
 		t.Errorf("over range field = %q, want the SCPI overflow value 9.9E37", r)
 	}
 }
+
+// TestSupplyAnswersQueuedQueries: the simulated supply takes two queries
+// written back to back, before either reply is read, and answers them in
+// order on its pty (what sim-supply's queued_queries: 2 declares). With
+// the current held at 2 A the two replies differ (V = R·I, R of the
+// winding from the bench's truth), so an answer out of order would show.
+func TestSupplyAnswersQueuedQueries(t *testing.T) {
+	b, clk := startBench(t, quiet(t))
+	c := dial(t, b.Ports()[instr.RoleSupply])
+	c.write("SOUR:CURR 2.0")
+	c.write("OUTP ON")
+	clk.Advance(time.Second)
+	for k := range 3 {
+		if _, err := c.port.Write([]byte("MEAS:CURR?\nMEAS:VOLT?\n")); err != nil {
+			t.Fatal(err)
+		}
+		var got [2]float64
+		for j := range got {
+			r, err := c.readLine(2 * time.Second)
+			if err != nil {
+				t.Fatalf("round %d, reply %d: %v", k, j, err)
+			}
+			got[j] = num(t, r)
+		}
+		tr := b.Truth()
+		if math.Abs(got[0]-float64(tr.I)) > 1e-5 || math.Abs(got[1]-float64(tr.I)*tr.Resistance) > 1e-5 {
+			t.Fatalf("round %d: replies %v, want I = %g A then V = R·I = %g V", k, got, tr.I, float64(tr.I)*tr.Resistance)
+		}
+	}
+}
