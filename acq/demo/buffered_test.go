@@ -263,3 +263,69 @@ func TestBufferedHostTooSlowEndsAtZero(t *testing.T) {
 	}
 	t.Logf("reason: %s", res.Run.Reason)
 }
+
+// latencyUnknown is a buffered integrator whose trigger latency the engine
+// is not told (a profile that leaves buffered.trigger_latency out).
+type latencyUnknown struct {
+	instr.Integrator
+	b instr.Buffered
+}
+
+func (l latencyUnknown) CanBuffer() bool { return l.b.CanBuffer() }
+func (l latencyUnknown) ArmBuffer(ctx context.Context, p instr.BufferPlan) error {
+	return l.b.ArmBuffer(ctx, p)
+}
+func (l latencyUnknown) TriggerBuffer(ctx context.Context) (time.Time, time.Duration, error) {
+	return l.b.TriggerBuffer(ctx)
+}
+func (l latencyUnknown) BufferDone(ctx context.Context) (bool, error) { return l.b.BufferDone(ctx) }
+func (l latencyUnknown) FetchBuffer(ctx context.Context, n int) ([]float64, error) {
+	return l.b.FetchBuffer(ctx, n)
+}
+func (l latencyUnknown) HasBufferClock() bool { return l.b.HasBufferClock() }
+func (l latencyUnknown) ReadBufferClock(ctx context.Context) (instr.Reading, error) {
+	return l.b.ReadBufferClock(ctx)
+}
+func (l latencyUnknown) BufferClockAccuracy() float64        { return l.b.BufferClockAccuracy() }
+func (l latencyUnknown) BufferTriggerLatency() time.Duration { return 0 }
+
+// The simulated integrator starts its first buffered reading 2 ms (on its
+// own clock) after the trigger, and its profile says so. With the latency
+// taken into account the buffered loop's Br and HcB agree with the bench's
+// truth within U (TestBufferedDemoAgreesWithPolledAndTruth); this test runs
+// the same demo with the latency withheld from the engine: every reading
+// is then placed 2 ms early, a sixth of a 12.5 ms setpoint step, so the
+// readings kept from the end of a step belong partly to the next one and
+// pair its B with this step's H. Br (read where the loop is steepest in
+// time) must then move by more than the U of the loop with the latency
+// known, so that comparison against the truth can fail. (Measured: Br
+// 0.652 → 0.579 T, 17 U; HcB moves 0.1 A/m, within its U, and the loop
+// with the latency withheld reports a Br U of 0.078 T from the scatter of
+// the mixed readings: its own U alone would hide the error.)
+func TestBufferedTriggerLatencyMatters(t *testing.T) {
+	run := func(hide bool) record.Loop {
+		var out strings.Builder
+		o := Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock()}
+		if hide {
+			o.instruments = func(in *instr.Set) {
+				in.Integrator = latencyUnknown{Integrator: in.Integrator, b: in.Integrator.(instr.Buffered)}
+			}
+		}
+		res, err := Run(context.Background(), o)
+		if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
+			t.Fatalf("demo (latency hidden %v): %v %s %q\n%s", hide, err, res.Run.State, res.Run.Reason, out.String())
+		}
+		return res.Loops[1]
+	}
+	known, hidden := run(false), run(true)
+	for _, name := range []string{"Br", "HcB"} {
+		fk, _ := figure(known, name)
+		fh, _ := figure(hidden, name)
+		t.Logf("%s: latency known %.5g ± %.2g, withheld %.5g ± %.2g, shift %.3g (%.1f U)", name, fk.Value, fk.U, fh.Value, fh.U, fh.Value-fk.Value, math.Abs(fh.Value-fk.Value)/fk.U)
+	}
+	fk, _ := figure(known, "Br")
+	fh, _ := figure(hidden, "Br")
+	if math.Abs(fh.Value-fk.Value) <= 2*fk.U {
+		t.Errorf("withholding the 2 ms trigger latency moved Br by %.3g T, within twice its U %.2g: the latency would not matter", fh.Value-fk.Value, fk.U)
+	}
+}

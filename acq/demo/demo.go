@@ -74,6 +74,9 @@ type Options struct {
 	// lateHost, in tests, wraps the engine's clock (not the bench's): a host
 	// that wakes the engine late.
 	lateHost func(clock.Clock) clock.Clock
+	// instruments, in tests, changes the opened instruments before the
+	// engine gets them.
+	instruments func(*engine.Instruments)
 }
 
 // Result is what a demo run produced.
@@ -142,6 +145,9 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	defer opened.Close()
+	if o.instruments != nil {
+		o.instruments(&opened.Instruments)
+	}
 	proc, calEvents, err := processor(opened, fx, sp, clk.Now(), log)
 	if err != nil {
 		return Result{}, err

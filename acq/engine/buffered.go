@@ -53,7 +53,9 @@ import (
 // loop it cannot trust; the supply is brought to zero as at every ending.
 //
 // Alignment model. Instrument i takes reading k at instrument time
-// delay + k·period after it received the trigger. Its clock runs at
+// L_i + delay + k·period after it received the trigger, L_i being its own
+// trigger latency (its profile's buffered.trigger_latency; 0 when none is
+// stated) and delay the programmed one. Its clock runs at
 // r_i bench seconds per instrument second, estimated from its two clock
 // readings (c0 at arming, c1 after the acquisition, each stamped at the
 // midpoint of its exchange on the engine's clock: r_i = (b1−b0)/(c1−c0)),
@@ -61,7 +63,7 @@ import (
 // clock query. The trigger reached it at T_i, the time the trigger
 // command was written (± its transmission time). So reading k is placed at
 //
-//	t_ik = T_i + r_i·(delay + k·period)
+//	t_ik = T_i + r_i·(L_i + delay + k·period)
 //
 // on the engine's clock. The integrator's times are the samples' times;
 // the field meter's buffer is interpolated linearly onto them.
@@ -119,6 +121,13 @@ type chunk struct {
 }
 
 func (r *bufRole) cur() *chunk { return r.chunks[len(r.chunks)-1] }
+
+// at is when, on the instrument's clock after the trigger, reading k of
+// acquisition a is taken: its trigger latency, the programmed delay and k
+// periods.
+func (r *bufRole) at(a *chunk, k int) time.Duration {
+	return r.dev.BufferTriggerLatency() + a.plan.Delay + time.Duration(k)*a.plan.Period
+}
 
 // capture is the buffered capture of one recorded step.
 type capture struct {
@@ -328,7 +337,7 @@ func (c *capture) finish(ctx context.Context) error {
 func (c *capture) collect(ctx context.Context) error {
 	for _, r := range c.roles {
 		k := r.cur()
-		span := time.Duration(float64(k.plan.Delay+time.Duration(k.plan.Count-1)*k.plan.Period) * 1.01)
+		span := time.Duration(float64(r.at(k, k.plan.Count-1)) * 1.01)
 		grace := max(time.Second, span/50)
 		due := k.trig.Add(span + grace)
 		poll := max(k.plan.Period, 20*time.Millisecond)
@@ -374,7 +383,7 @@ func (c *capture) end() time.Time {
 	var end time.Time
 	for i, r := range c.roles {
 		k := r.cur()
-		inst := (k.plan.Delay + time.Duration(k.plan.Count-1)*k.plan.Period).Seconds()
+		inst := r.at(k, k.plan.Count-1).Seconds()
 		e := k.trig.Add(time.Duration(inst * (1 - 2*r.dev.BufferClockAccuracy()) * float64(time.Second)))
 		if i == 0 || e.Before(end) {
 			end = e
@@ -442,7 +451,7 @@ func (c *capture) times(r *bufRole, a *chunk) ([]time.Duration, []time.Duration)
 	us := make([]time.Duration, len(a.values))
 	base := a.trig.Sub(c.x.start)
 	for k := range a.values {
-		inst := (a.plan.Delay + time.Duration(k)*a.plan.Period).Seconds()
+		inst := r.at(a, k).Seconds()
 		ts[k] = base + time.Duration(rate*inst*float64(time.Second))
 		us[k] = a.trigUnc + time.Duration(rateU*inst*float64(time.Second))
 	}

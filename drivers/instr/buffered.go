@@ -36,4 +36,8 @@ type Buffered interface {
 	ReadBufferClock(ctx context.Context) (Reading, error)
 	// BufferClockAccuracy is the time base's rate error, a fraction.
 	BufferClockAccuracy() float64
+	// BufferTriggerLatency is the instrument's own latency between
+	// receiving the trigger and starting to count the programmed delay, on
+	// its time base (0 when its profile states none).
+	BufferTriggerLatency() time.Duration
 }

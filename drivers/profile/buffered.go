@@ -32,8 +32,10 @@ import (
 //
 // Each entry but fetch is an Operation as in `operations:`. The engine
 // arms (trigger, period, count, delay, arm), sends start at the sweep's
-// first round, polls done, and fetches. Sample k is taken at delay + k·period
-// after the trigger on the instrument's clock; clock, when given, is read
+// first round, polls done, and fetches. Sample k is taken at
+// trigger_latency + delay + k·period after the trigger on the instrument's
+// clock (trigger_latency is the instrument's own, from its manual; delay is
+// what the engine programs); clock, when given, is read
 // at the trigger and after the acquisition so that the engine can convert
 // instrument time to its own (see acq/engine).
 type Buffered struct {
@@ -50,6 +52,11 @@ type Buffered struct {
 	// fraction (e.g. 1.0e-4 for 100 ppm); default 1e-4. Used for the time
 	// uncertainty of the samples when clock is not given.
 	ClockAccuracy float64 `yaml:"clock_accuracy"`
+	// TriggerLatency is the instrument's own time from receiving the
+	// trigger to starting the programmed delay, as its manual states it: a
+	// duration with a unit ("2ms", "350us"), not negative, under 1 s.
+	// Empty: none.
+	TriggerLatency string `yaml:"trigger_latency"`
 }
 
 // Fetch is the query that returns the buffer as a definite-length block.
@@ -161,6 +168,15 @@ func validateBufferedQueries(add adder, b *Buffered) {
 	if !(b.ClockAccuracy >= 0 && b.ClockAccuracy < 0.01) {
 		add("buffered.clock_accuracy", "%g: want a fraction within 0..0.01 (e.g. 1.0e-4 for 100 ppm)", b.ClockAccuracy)
 	}
+	if v := b.TriggerLatency; v != "" {
+		d, err := time.ParseDuration(v)
+		switch {
+		case err != nil:
+			add("buffered.trigger_latency", "%q is not a duration (use a unit: us, ms, s)", v)
+		case d < 0 || d >= time.Second:
+			add("buffered.trigger_latency", "%q: want a latency within 0..1s", v)
+		}
+	}
 }
 
 // validateFetch checks buffered.fetch; unit is the one the role's buffer
@@ -195,6 +211,16 @@ func (d *Device) BufferClockAccuracy() float64 {
 		return DefaultClockAccuracy
 	}
 	return d.p.Buffered.ClockAccuracy
+}
+
+// BufferTriggerLatency is the instrument's own trigger latency
+// (buffered.trigger_latency), 0 when the profile states none.
+func (d *Device) BufferTriggerLatency() time.Duration {
+	if d.p.Buffered == nil {
+		return 0
+	}
+	l, _ := time.ParseDuration(d.p.Buffered.TriggerLatency) // validated at load
+	return l
 }
 
 func (d *Device) buffered(ctx context.Context, op string) (*Buffered, error) {

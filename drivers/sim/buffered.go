@@ -17,12 +17,20 @@ import (
 //
 // with a small rate error of its own (clockDrift, within the profiles'
 // stated 100 ppm) and an arbitrary offset. After the trigger it takes sample
-// k at delay + k·period on that clock, i.e. at bench time
-// t_trigger + (delay + k·period)/(1 + clockDrift), reading its physics
+// k at latency + delay + k·period on that clock, i.e. at bench time
+// t_trigger + (latency + delay + k·period)/(1 + clockDrift), where latency
+// is its own trigger latency (triggerLatency, which its profile states as
+// buffered.trigger_latency) and delay the programmed one; reading its physics
 // interpolated linearly between the two physics steps around that instant,
 // with its own noise. The engine does not know clockDrift: it estimates
 // the rate from two clock readings (buffered.clock), as on a real bench.
 var clockDrift = map[string]float64{instr.RoleIntegrator: 40e-6, instr.RoleFieldMeter: -25e-6}
+
+// triggerLatency is each instrument's own time, in seconds on its clock,
+// between receiving the trigger and starting the programmed delay: what a
+// manual states as trigger latency. The shipped sim profiles state the
+// same values (configs/instruments/sim-*.yaml, buffered.trigger_latency).
+var triggerLatency = map[string]float64{instr.RoleIntegrator: 2.0e-3, instr.RoleFieldMeter: 3.5e-3}
 
 // clockOffset is where an instrument's clock stood when the bench started.
 func clockOffset(serial int) float64 { return 3600 + 97.25*float64(serial) }
@@ -162,7 +170,7 @@ func (b *Bench) sampleBuffer(in *instrument) {
 	cur, ok := b.reading(in, 0)
 	rate := 1 + clockDrift[in.role]
 	for len(a.values) < a.count {
-		tk := a.trigAt + (a.delay+float64(len(a.values))*a.period)/rate
+		tk := a.trigAt + (triggerLatency[in.role]+a.delay+float64(len(a.values))*a.period)/rate
 		if tk > now+1e-12 {
 			break
 		}
