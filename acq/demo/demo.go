@@ -41,6 +41,8 @@ const (
 	RecipeFile   = "recipes/demo-ring.yaml"
 	// BufferedRecipeFile is RecipeFile with capture: buffered.
 	BufferedRecipeFile = "recipes/demo-ring-buffered.yaml"
+	// RampRecipeFile is BufferedRecipeFile with sweep_mode: ramp.
+	RampRecipeFile = "recipes/demo-ring-ramp.yaml"
 	// CalibrationDir holds the calibration records of the bench's instruments.
 	CalibrationDir = "calibrations"
 )
@@ -71,6 +73,9 @@ type Options struct {
 	// (BufferedRecipeFile: the same sweep, flux and field sampled by the
 	// instruments on their own clocks).
 	Capture string
+	// Sweep is "steps" (default) or "ramp" (RampRecipeFile: with capture
+	// buffered only, the supply ramping continuously from tip to tip).
+	Sweep string
 	// lateHost, in tests, wraps the engine's clock (not the bench's): a host
 	// that wakes the engine late.
 	lateHost func(clock.Clock) clock.Clock
@@ -103,7 +108,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	if log == nil {
 		log = slog.New(slog.NewTextHandler(out, &slog.HandlerOptions{Level: slog.LevelWarn}))
 	}
-	fx, sp, rc, err := loadSamples(o.Capture)
+	fx, sp, rc, err := loadSamples(o.Capture, o.Sweep)
 	if err != nil {
 		return Result{}, err
 	}
@@ -312,7 +317,7 @@ func forward(ctx context.Context, o Options, st *store.Store, res Result, out io
 	return nil
 }
 
-func loadSamples(capture string) (config.Fixture, config.Specimen, *recipe.Recipe, error) {
+func loadSamples(capture, sweep string) (config.Fixture, config.Specimen, *recipe.Recipe, error) {
 	recipeFile := RecipeFile
 	switch capture {
 	case "", recipe.CapturePolled:
@@ -320,6 +325,16 @@ func loadSamples(capture string) (config.Fixture, config.Specimen, *recipe.Recip
 		recipeFile = BufferedRecipeFile
 	default:
 		return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: capture %q: want polled or buffered", capture)
+	}
+	switch sweep {
+	case "", recipe.SweepSteps:
+	case recipe.SweepRamp:
+		if recipeFile != BufferedRecipeFile {
+			return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: sweep ramp needs capture buffered")
+		}
+		recipeFile = RampRecipeFile
+	default:
+		return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: sweep %q: want steps or ramp", sweep)
 	}
 	read := func(name string) ([]byte, error) { return fs.ReadFile(configs.Samples, name) }
 	b, err := read(FixtureFile)

@@ -148,6 +148,7 @@ type capture struct {
 	triggered bool
 	fetched   bool
 	left      int // readings outside the settled part of their step
+	ramp      *rampState // sweep_mode: ramp (nil: steps)
 }
 
 type round struct {
@@ -180,6 +181,9 @@ func checkCapture(s Setup, steps []recipe.Step) error {
 		in := s.Instruments
 		if in.Supply == nil {
 			continue // checked again when the instruments are set
+		}
+		if err := checkRamp(s, st); err != nil {
+			return err
 		}
 		if in.Integrator == nil && in.FieldMeter == nil {
 			return &Refused{s.Recipe.Errorf(st.Source, "step %d (%s): capture: buffered needs an integrator or a field meter", st.N, st.Source)}
@@ -236,6 +240,9 @@ func (x *exec) newCapture(st recipe.Step) (*capture, error) {
 		return nil, err
 	}
 	c.supply = smp
+	if st.Capture.Ramp {
+		c.ramp = newRampState(st, in.Supply)
+	}
 	return c, nil
 }
 
@@ -295,6 +302,9 @@ func (c *capture) readThenSet(ctx context.Context, level float64) (sampler.Readi
 		return rd, err
 	}
 	c.note(rd.Sample, level, record.Sweep)
+	if c.ramp != nil {
+		return rd, c.ramp.program(ctx, c.x.s.Instruments.Supply)
+	}
 	if _, err := sampler.Retry(ctx, func(ctx context.Context) (struct{}, error) {
 		return struct{}{}, c.x.s.Instruments.Supply.SetCurrent(ctx, units.Ampere(level))
 	}); err != nil {
@@ -403,6 +413,12 @@ func (c *capture) cut(ctx context.Context) (time.Duration, error) {
 			maxCuts+1, c.period)
 	}
 	c.cuts++
+	sup := c.x.s.Instruments.Supply
+	if c.ramp != nil { // stop the ramp where it is while the buffers are fetched
+		if err := c.ramp.hold(ctx, sup, c.rounds[len(c.rounds)-1].s.I, c.period); err != nil {
+			return 0, err
+		}
+	}
 	if err := c.collect(ctx); err != nil {
 		return 0, err
 	}
@@ -427,6 +443,11 @@ func (c *capture) cut(ctx context.Context) (time.Duration, error) {
 	until := trig.Add(trig.Sub(s0) + c.period)
 	if err := clk.SleepUntil(ctx, until); err != nil {
 		return 0, err
+	}
+	if c.ramp != nil {
+		if err := c.ramp.resume(ctx, sup); err != nil {
+			return 0, err
+		}
 	}
 	held := clk.Now().Sub(t0)
 	c.x.event(ctx, "warn", "buffered capture: the sweep fell behind its schedule (a late host or late replies) and its buffers would end before it; the setpoint was held %s at %.6g A while %d readings were fetched from the %s and a new acquisition of %d was started",
@@ -495,19 +516,17 @@ func (c *capture) samples() ([]record.Sample, error) {
 	}
 	nan := math.NaN()
 	out := make([]record.Sample, 0, len(ts))
+	supplyAt := c.stepAt
+	if c.ramp != nil {
+		supplyAt = c.rampAt
+	}
 	for k, t := range ts {
-		j := sort.Search(len(c.rounds), func(i int) bool { return c.rounds[i].setAt >= t })
-		if j == len(c.rounds) || j == 0 || c.rounds[j-1].phase != record.Sweep {
+		s, ok := supplyAt(t, us[k])
+		if !ok {
 			c.left++
 			continue
 		}
-		if pos := float64(t-c.rounds[j-1].setAt) / float64(c.rounds[j].setAt-c.rounds[j-1].setAt); pos < keepFrom || pos >= keepTo {
-			c.left++
-			continue
-		}
-		rd := c.rounds[j]
-		s := record.Sample{T: t, TUnc: max(us[k], rd.s.TUnc), Phase: record.Sweep, I: rd.s.I, V: rd.s.V, TempC: rd.s.TempC,
-			Psi: nan, BProbe: nan, Setpoint: c.rounds[j-1].level} // the level of the step the reading falls in
+		s.Psi, s.BProbe = nan, nan
 		if main.role == "integrator" {
 			s.Psi = vs[k]
 			if other != nil {
@@ -524,6 +543,23 @@ func (c *capture) samples() ([]record.Sample, error) {
 		out = append(out, s)
 	}
 	return out, nil
+}
+
+// stepAt is the supply's side of a buffered reading at t (time
+// uncertainty u) on a stepped sweep: the current read at the end of the
+// step the reading falls in, when it falls in the settled part of that
+// step (keepFrom, keepTo); ok is false otherwise.
+func (c *capture) stepAt(t, u time.Duration) (record.Sample, bool) {
+	j := sort.Search(len(c.rounds), func(i int) bool { return c.rounds[i].setAt >= t })
+	if j == len(c.rounds) || j == 0 || c.rounds[j-1].phase != record.Sweep {
+		return record.Sample{}, false
+	}
+	if pos := float64(t-c.rounds[j-1].setAt) / float64(c.rounds[j].setAt-c.rounds[j-1].setAt); pos < keepFrom || pos >= keepTo {
+		return record.Sample{}, false
+	}
+	rd := c.rounds[j]
+	return record.Sample{T: t, TUnc: max(u, rd.s.TUnc), Phase: record.Sweep, I: rd.s.I, V: rd.s.V, TempC: rd.s.TempC,
+		Setpoint: c.rounds[j-1].level}, true // the level of the step the reading falls in
 }
 
 // interp is the linear interpolation of vs (at ascending times ts) at t,

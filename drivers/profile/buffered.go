@@ -103,7 +103,13 @@ func validateBuffered(p Profile, add func(string, string, ...any)) {
 // validateBufferedSetting checks the setting buffered.<key>: whether it is
 // required, whether it takes a value (numeric) and the unit of that value.
 func validateBufferedSetting(add adder, key string, o Operation, required, numeric bool, unit string) {
-	key = "buffered." + key
+	validateSectionSetting(add, "buffered."+key, o, required, numeric, unit)
+}
+
+// validateSectionSetting checks the setting at key of an optional section
+// (buffered, ramp): whether it is required, whether it takes a value
+// (numeric) and the unit of that value.
+func validateSectionSetting(add adder, key string, o Operation, required, numeric bool, unit string) {
 	switch {
 	case o.Set == "" && o.Query == "":
 		if required {
