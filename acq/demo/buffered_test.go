@@ -7,6 +7,7 @@ import (
 	"testing"
 	"time"
 
+	"hystd/acq/fixture"
 	"hystd/acq/record"
 	"hystd/configs"
 	"hystd/drivers/clock"
@@ -91,16 +92,18 @@ func TestBufferedDemoAgreesWithPolledAndTruth(t *testing.T) {
 }
 
 // A trigger that never comes and a buffer that comes back short each end
-// the run failed with an error naming the instrument and the fault, and
+// the run failed, with the supply stepped and with it ramping, with an error naming the instrument and the fault, and
 // the bench's own truth shows the supply at zero with its output off.
 func TestBufferedFaultsEndAtZero(t *testing.T) {
 	for _, tc := range []struct {
-		role, kind, want string
+		role, kind, want, sweep string
 	}{
-		{instr.RoleIntegrator, sim.FaultNoTrigger, "the trigger did not arrive"},
-		{instr.RoleFieldMeter, sim.FaultShortBuffer, "the block holds 11250 fields"},
+		{instr.RoleIntegrator, sim.FaultNoTrigger, "the trigger did not arrive", "steps"},
+		{instr.RoleFieldMeter, sim.FaultShortBuffer, "the block holds 11250 fields", "steps"},
+		{instr.RoleIntegrator, sim.FaultNoTrigger, "the trigger did not arrive", "ramp"},
+		{instr.RoleFieldMeter, sim.FaultShortBuffer, "the block holds 11250 fields", "ramp"},
 	} {
-		t.Run(tc.kind, func(t *testing.T) {
+		t.Run(tc.kind+" "+tc.sweep, func(t *testing.T) {
 			cfg, err := sim.DefaultBench()
 			if err != nil {
 				t.Fatal(err)
@@ -108,7 +111,7 @@ func TestBufferedFaultsEndAtZero(t *testing.T) {
 			at := configs.Duration(0)
 			cfg.Faults = append(cfg.Faults, sim.Fault{Role: tc.role, Kind: tc.kind, At: &at})
 			var out strings.Builder
-			res, _ := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock(), Bench: &cfg})
+			res, _ := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: tc.sweep, Clock: simClock(), Bench: &cfg})
 			if res.Run.State != record.Failed || !strings.Contains(res.Run.Reason, tc.want) || !strings.Contains(res.Run.Reason, "buffered capture") {
 				t.Fatalf("run %s: %q; want failed with %q\n%s", res.Run.State, res.Run.Reason, tc.want, out.String())
 			}
@@ -327,5 +330,308 @@ func TestBufferedTriggerLatencyMatters(t *testing.T) {
 	fh, _ := figure(hidden, "Br")
 	if math.Abs(fh.Value-fk.Value) <= 2*fk.U {
 		t.Errorf("withholding the 2 ms trigger latency moved Br by %.3g T, within twice its U %.2g: the latency would not matter", fh.Value-fk.Value, fk.U)
+	}
+}
+
+// The demo's buffered recipe with sweep_mode: ramp (the supply ramping on
+// its own at 800 A/m/s from tip to tip, H from its current read every
+// 12.5 ms and interpolated to each buffered reading's instant), beside the
+// polled demo on the same bench and seed: at least ten times the points
+// per loop, and Hmax, Bmax, Br, HcB, HcJ and the loss within the combined
+// U of the polled ones (the ramped loop's U includes the timing term). Its
+// Br and HcB must agree within their own U with the bench's truth of the
+// last cycle: here every physics state of that cycle (the current ramps,
+// so no state is a settled step), B against the applied H.
+func TestRampedDemoAgreesWithPolledAndTruth(t *testing.T) {
+	run := func(capture, sweep string) Result {
+		var out strings.Builder
+		res, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: capture, Sweep: sweep, Clock: simClock()})
+		if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
+			t.Fatalf("%s %s demo: %v %s %s\n%s", capture, sweep, err, res.Run.State, res.Run.Reason, out.String())
+		}
+		return res
+	}
+	pol, rmp := run("polled", ""), run("buffered", "ramp")
+	lp, lr := pol.Loops[1], rmp.Loops[1]
+	sp, sr := sweepOf(lp), sweepOf(lr)
+	t.Logf("sweep samples per loop: polled %d, ramped %d", len(sp), len(sr))
+	if len(sr) < 10*len(sp) {
+		t.Errorf("ramped loop has %d sweep samples, less than 10× the polled %d", len(sr), len(sp))
+	}
+	for _, name := range []string{"Hmax", "Bmax", "Br", "HcB", "HcJ", "loss_j_m3"} {
+		fp, ok1 := figure(lp, name)
+		fr, ok2 := figure(lr, name)
+		if !ok1 || !ok2 {
+			t.Errorf("%s missing", name)
+			continue
+		}
+		u := math.Hypot(fp.U, fr.U)
+		t.Logf("%-9s polled %.5g ± %.2g, ramped %.5g ± %.2g, difference %.2g, combined U %.2g", name, fp.Value, fp.U, fr.Value, fr.U, fp.Value-fr.Value, u)
+		if math.Abs(fp.Value-fr.Value) > u {
+			t.Errorf("%s: polled %.5g and ramped %.5g differ by more than their combined U %.2g", name, fp.Value, fr.Value, u)
+		}
+		if name != "Hmax" && name != "Bmax" && !strings.Contains(fr.Note, "timing") {
+			t.Errorf("%s of the ramped loop has no timing term: %s", name, fr.Note)
+		}
+	}
+	br, hc := crossingsOf(t, lastCycle(t, rmp.Truth, lr.Amplitude))
+	t.Logf("truth of the last ramped cycle: Br %.5g T, HcB %.5g A/m", br, hc)
+	for _, c := range []struct {
+		name  string
+		truth float64
+	}{{"Br", br}, {"HcB", hc}} {
+		f, _ := figure(lr, c.name)
+		if math.Abs(f.Value-c.truth) > f.U {
+			t.Errorf("ramped %s = %.5g ± %.2g, truth %.5g: off by more than U", c.name, f.Value, f.U, c.truth)
+		}
+	}
+	// The bench's truth shows a ramp, not a staircase: during the sweep the
+	// setpoint changes only at the tips.
+	changes := 0
+	for i := 1; i < len(rmp.Truth); i++ {
+		if tr := rmp.Truth[i]; tr.T >= rmp.Loops[1].Started.Sub(rmp.Run.Started)+sr[0].T-sr[0].T && rmp.Truth[i-1].Setpoint != tr.Setpoint {
+			changes++
+		}
+	}
+	t.Logf("setpoint changes in the truth from loop 2's start: %d", changes)
+}
+
+// abortAt is the engine's view of a simulated clock that cancels the run
+// at the first sleep that would end at or after at.
+type abortAt struct {
+	*clock.Sim
+	at     time.Time
+	cancel context.CancelFunc
+	fired  time.Time
+}
+
+func (a *abortAt) SleepUntil(ctx context.Context, t time.Time) error {
+	if a.fired.IsZero() && !t.Before(a.at) {
+		a.fired = a.Sim.Now()
+		a.cancel()
+	}
+	return a.Sim.SleepUntil(ctx, t)
+}
+
+// An abort in the middle of a ramp (2 s into the second loop's sweep,
+// the supply ramping at 800 A/m/s towards the bottom tip) ends the run
+// aborted, and the bench's own truth shows the ramp stopped and the
+// supply at zero with its output off: after the abort the current never
+// goes beyond where it was (the programmed ramp does not carry on to its
+// tip) and falls to zero.
+func TestRampAbortMidRampEndsAtZero(t *testing.T) {
+	var out strings.Builder
+	clean, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock()})
+	if err != nil || len(clean.Loops) != 2 {
+		t.Fatalf("clean run: %v, %d loops\n%s", err, len(clean.Loops), out.String())
+	}
+	sw := sweepOf(clean.Loops[1])
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	ab := &abortAt{at: clean.Run.Started.Add(sw[0].T + 2*time.Second), cancel: cancel}
+	out.Reset()
+	res, _ := Run(ctx, Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock(),
+		lateHost: func(c clock.Clock) clock.Clock { ab.Sim = c.(*clock.Sim); return ab }})
+	if ab.fired.IsZero() {
+		t.Fatal("the abort never fired")
+	}
+	if res.Run.State != record.Aborted {
+		t.Fatalf("run %s %q; want aborted\n%s", res.Run.State, res.Run.Reason, out.String())
+	}
+	stoppedMidRamp(t, res, ab.fired.Sub(res.Run.Started), 0)
+}
+
+// stoppedMidRamp checks by the bench's truth that the supply was ramping
+// at at (since the run's start), that from at+within on the current never
+// went beyond where it was then, and that it ends at zero with the output
+// off. within is how long the fault may take to be noticed.
+func stoppedMidRamp(t *testing.T, res Result, at, within time.Duration) {
+	t.Helper()
+	var i0, peak, rate float64
+	for k, tr := range res.Truth {
+		if k > 0 && tr.T < at {
+			rate = float64(tr.I-res.Truth[k-1].I) / (tr.T - res.Truth[k-1].T).Seconds()
+		}
+		if tr.T < at+within {
+			i0 = float64(tr.I)
+			continue
+		}
+		peak = max(peak, math.Abs(float64(tr.I)))
+	}
+	t.Logf("stopped at %s: I %.4g A ramping at %.3g A/s; largest |I| after it %.4g A; final I %.3g A, output %v", at, i0, rate, peak, float64(res.Final.I), res.Final.Output)
+	if math.Abs(rate) < 0.1 {
+		t.Fatalf("the supply was not ramping then (%.3g A/s): the test checks nothing", rate)
+	}
+	if peak > math.Abs(i0)+0.01 {
+		t.Errorf("afterwards the current reached %.4g A, beyond the %.4g A it had: the ramp went on", peak, math.Abs(i0))
+	}
+	if math.Abs(float64(res.Final.I)) > 1e-3 || res.Final.Output {
+		t.Fatalf("bench truth at the end: I %g A, output %v; want zero and off", float64(res.Final.I), res.Final.Output)
+	}
+}
+
+// A fault in the middle of a ramp (2 s into the second loop's sweep, 0.5 s
+// before the bottom tip: an instrument error the supply raises by itself)
+// ends the run failed, the ramp stopped once
+// the fault is noticed and the supply at zero by the bench's truth
+// (stoppedMidRamp).
+func TestRampFaultMidRampEndsAtZero(t *testing.T) {
+	var out strings.Builder
+	clean, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock()})
+	if err != nil || len(clean.Loops) != 2 {
+		t.Fatalf("clean run: %v, %d loops\n%s", err, len(clean.Loops), out.String())
+	}
+	at := sweepOf(clean.Loops[1])[0].T + 2*time.Second
+	// The supply's error queue is read every round while it ramps: its
+	// error is noticed within a round (12.5 ms, 25 ms allowed; without the
+	// per-round read it was noticed only at the next leg, 0.5 s later at
+	// the bottom tip, the ramp having gone on to it).
+	for _, tc := range []struct {
+		role, kind string
+		within     time.Duration
+	}{{instr.RoleSupply, sim.FaultError, 25 * time.Millisecond}} {
+		t.Run(tc.role+" "+tc.kind, func(t *testing.T) {
+			cfg, err := sim.DefaultBench()
+			if err != nil {
+				t.Fatal(err)
+			}
+			when := configs.Duration(at)
+			cfg.Faults = append(cfg.Faults, sim.Fault{Role: tc.role, Kind: tc.kind, At: &when})
+			out.Reset()
+			res, _ := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock(), Bench: &cfg})
+			if res.Run.State != record.Failed {
+				t.Fatalf("run %s %q; want failed\n%s", res.Run.State, res.Run.Reason, out.String())
+			}
+			t.Logf("reason: %s", res.Run.Reason)
+			stoppedMidRamp(t, res, at, tc.within)
+		})
+	}
+}
+
+// A run killed in the middle of a ramp (kill -9: no halt of its own) leaves
+// the supply ramping towards its target at the programmed rate. The
+// start-up halt the daemon runs before anything else (fixture.HaltSupply,
+// through engine.SafeHalt) opens the supply afresh and must bring it to
+// zero with its output off, by the bench's truth. Here the ramp is slow
+// (0.05 A/s towards 2 A) and 0.4 A is flowing: the supply's own Halt,
+// which steps its setpoint down, would leave the current following those
+// setpoints at 0.05 A/s (8 s to zero, beyond the 5 s its read-back may
+// take); SafeHalt ends the programmed ramp first. Both are run, so that
+// the difference is shown.
+func TestRampKilledMidRampHaltsAtZero(t *testing.T) {
+	for _, tc := range []struct {
+		name     string
+		safeHalt bool
+	}{{"start-up halt", true}, {"supply's own halt alone", false}} {
+		t.Run(tc.name, func(t *testing.T) {
+			ctx := context.Background()
+			clk := clock.NewSim(time.Date(2026, 3, 2, 7, 30, 0, 0, time.UTC))
+			var out strings.Builder
+			fx, _, _, err := loadSamples("buffered", "ramp")
+			if err != nil {
+				t.Fatal(err)
+			}
+			bench, err := startBench(ctx, nil, clk, &out)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer bench.Close()
+			fx = withPorts(fx, bench.Ports())
+			run, err := fixture.OpenClock(ctx, fx, nil, clk)
+			if err != nil {
+				t.Fatal(err)
+			}
+			sup := run.Instruments.Supply
+			r := sup.(instr.Ramper)
+			if err := sup.SetOutput(ctx, true); err != nil {
+				t.Fatal(err)
+			}
+			if err := r.SetRampRate(ctx, 0.05); err != nil {
+				t.Fatal(err)
+			}
+			if err := sup.SetCurrent(ctx, 2); err != nil {
+				t.Fatal(err)
+			}
+			if err := clk.SleepUntil(ctx, clk.Now().Add(8*time.Second)); err != nil {
+				t.Fatal(err)
+			}
+			run.Close() // killed: no halt, the ports simply close
+			killed := bench.Truth()
+			if float64(killed.I) < 0.39 || float64(killed.I) > 0.41 {
+				t.Fatalf("at the kill the bench carries %.4g A, want about 0.4 A (8 s at 0.05 A/s)", float64(killed.I))
+			}
+			var herr error
+			if tc.safeHalt {
+				_, herr = fixture.HaltSupply(ctx, fx, nil, clk)
+			} else {
+				again, err := fixture.OpenClock(ctx, fx, nil, clk)
+				if err != nil {
+					t.Fatal(err)
+				}
+				herr = again.Instruments.Supply.Halt(ctx)
+				again.Close()
+			}
+			end := bench.Truth()
+			t.Logf("killed at %.4g A; after the halt (err %v): I %.4g A, output %v", float64(killed.I), herr, float64(end.I), end.Output)
+			atZero := math.Abs(float64(end.I)) < 1e-3 && !end.Output
+			if tc.safeHalt && (herr != nil || !atZero) {
+				t.Fatalf("start-up halt: %v; bench at %.4g A, output %v; want zero and off", herr, float64(end.I), end.Output)
+			}
+			if !tc.safeHalt && herr == nil {
+				t.Fatalf("the supply's own halt reported success with the programmed ramp still set (bench at %.4g A): the control case shows nothing", float64(end.I))
+			}
+		})
+	}
+}
+
+// A host that falls behind a ramped sweep (as in
+// TestBufferedSweepOutlastsItsBuffer: the engine woken 450 ms late six
+// times during the second loop's sweep) makes the engine cut the
+// acquisition: the ramp is held a setpoint period's travel beyond the last
+// current read while the buffers are fetched and re-armed, then resumed.
+// The run must finish with both loops, the stalled loop's Br and HcB
+// within their U of the bench's truth of its own cycle, the supply at zero
+// at the end.
+func TestRampSweepOutlastsItsBuffer(t *testing.T) {
+	var out strings.Builder
+	clean, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock()})
+	if err != nil || len(clean.Loops) != 2 {
+		t.Fatalf("clean run: %v, %d loops\n%s", err, len(clean.Loops), out.String())
+	}
+	sw := sweepOf(clean.Loops[1])
+	const stalls = 6
+	late := &lateHost{extra: 450 * time.Millisecond, times: stalls}
+	late.from = clean.Run.Started.Add(sw[0].T + 500*time.Millisecond)
+	late.to = late.from.Add(4 * time.Second)
+	out.Reset()
+	every := 0
+	res, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock(),
+		lateHost: func(c clock.Clock) clock.Clock {
+			late.Sim = c.(*clock.Sim)
+			return &spaced{lateHost: late, every: 20, n: &every}
+		}})
+	if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
+		t.Fatalf("stalled run: %v, %s %q, %d loops\n%s", err, res.Run.State, res.Run.Reason, len(res.Loops), out.String())
+	}
+	if late.n != stalls {
+		t.Fatalf("%d stalls injected, want %d", late.n, stalls)
+	}
+	if !strings.Contains(out.String(), "the sweep fell behind its schedule") {
+		t.Errorf("no cut: the stalls did not outlast the buffers\n%s", out.String())
+	}
+	if last := res.Final; math.Abs(float64(last.I)) > 1e-3 || last.Output {
+		t.Fatalf("bench truth at the end: I %g A, output %v; want zero and off", float64(last.I), last.Output)
+	}
+	l := res.Loops[1]
+	br, hc := crossingsOf(t, lastCycle(t, res.Truth, l.Amplitude))
+	for _, c := range []struct {
+		name  string
+		truth float64
+	}{{"Br", br}, {"HcB", hc}} {
+		f, _ := figure(l, c.name)
+		t.Logf("stalled ramped loop: %s = %.5g ± %.2g, truth %.5g", c.name, f.Value, f.U, c.truth)
+		if math.Abs(f.Value-c.truth) > f.U {
+			t.Errorf("stalled ramped loop: %s = %.5g ± %.2g, truth %.5g: off by more than U", c.name, f.Value, f.U, c.truth)
+		}
 	}
 }

@@ -117,7 +117,9 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	if clk == nil {
 		clk = clock.Real{}
 	}
-	bench, err := startBench(ctx, o.Bench, clk, out)
+	// The bench outlives a cancelled ctx until Run returns: the run's
+	// ending ramps the supply down through it (the deferred Close stops it).
+	bench, err := startBench(context.WithoutCancel(ctx), o.Bench, clk, out)
 	if err != nil {
 		return Result{}, err
 	}

@@ -147,7 +147,7 @@ type capture struct {
 	rounds    []round
 	triggered bool
 	fetched   bool
-	left      int // readings outside the settled part of their step
+	left      int        // readings outside the settled part of their step
 	ramp      *rampState // sweep_mode: ramp (nil: steps)
 }
 

@@ -300,6 +300,12 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			Status: rd.Status, HaveStatus: true, Energised: x.energd, Overload: rd.Overload}); v != nil {
 			return v
 		}
+		if cpt != nil && cpt.ramp != nil && cpt.ramp.ramping {
+			// Ramping, the supply gets no setpoint (whose error-queue read
+			// would show what it raised) for a whole leg: its queue is read
+			// every round instead, as often as a stepped sweep reads it.
+			delete(x.polled, instr.RoleLabel(instr.RoleSupply))
+		}
 		if err := x.pollErrors(ctx, now, false); err != nil {
 			return err
 		}

@@ -148,8 +148,11 @@ func (b *Bench) trigger(in *instrument) {
 		return
 	}
 	a.triggered = true
-	a.trigAt = b.simT.Seconds()
-	a.prevT = a.trigAt
+	// The trigger arrives now, on the clock, which may lie up to one
+	// physics step beyond the last step computed (simT): the instrument
+	// counts from the trigger's own instant, not from that step.
+	a.trigAt = b.clock.Now().Sub(b.start).Seconds()
+	a.prevT = b.simT.Seconds()
 	a.prev, _ = b.reading(in, 0)
 	b.sampleBuffer(in)
 }

@@ -369,7 +369,7 @@ func (b *Bench) query(in *instrument, m matcher) (reply, *scpiError) {
 	r := b.rig
 	switch m.name {
 	case profile.OpReadCurrent:
-		return reply{Num: r.Supply.I}, nil
+		return reply{Num: b.currentNow()}, nil
 	case profile.OpReadVoltage:
 		return reply{Num: r.Supply.V}, nil
 	case profile.OpReadStatus:

@@ -54,3 +54,17 @@ func (b *Bench) rampSet(name string, v value) *scpiError {
 	}
 	return nil
 }
+
+// currentNow is the supply's current at the clock's present, which may lie
+// up to one physics step beyond the last step computed: on a programmed
+// ramp the current has moved on by the rate over that time (towards the
+// setpoint, never past it); otherwise that of the last step. b.mu is held.
+func (b *Bench) currentNow() float64 {
+	s := b.rig.Supply
+	if !(s.Ramp > 0) || !s.Output || s.Tripped {
+		return s.I
+	}
+	ahead := (b.clock.Now().Sub(b.start) - b.simT).Seconds()
+	step := s.Ramp * ahead
+	return s.I + max(-step, min(step, s.Setpoint-s.I))
+}
