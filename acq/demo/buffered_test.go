@@ -635,3 +635,35 @@ func TestRampSweepOutlastsItsBuffer(t *testing.T) {
 		}
 	}
 }
+
+// On a ramp the trigger latency matters in proportion to the sweep rate:
+// with the latency L withheld, every flux reading is placed L early and
+// paired with the H of L earlier, H(t − L) = H(t) − L·dH/dt on a straight
+// ramp (exact analytic result), so on both branches |HcB| shrinks by
+// L·|dH/dt|. With L = 2 ms and 800 A/m/s that is 1.6 A/m, four times the
+// ramped loop's U of HcB: the shift withholding the latency causes must be
+// that, within a fifth. (Measured: −1.6 A/m.)
+func TestRampTriggerLatencyShiftsHcBByRate(t *testing.T) {
+	run := func(hide bool) record.Loop {
+		var out strings.Builder
+		o := Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Sweep: "ramp", Clock: simClock()}
+		if hide {
+			o.instruments = func(in *instr.Set) {
+				in.Integrator = latencyUnknown{Integrator: in.Integrator, b: in.Integrator.(instr.Buffered)}
+			}
+		}
+		res, err := Run(context.Background(), o)
+		if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
+			t.Fatalf("ramped demo (latency hidden %v): %v %s %q\n%s", hide, err, res.Run.State, res.Run.Reason, out.String())
+		}
+		return res.Loops[1]
+	}
+	known, hidden := run(false), run(true)
+	fk, _ := figure(known, "HcB")
+	fh, _ := figure(hidden, "HcB")
+	want := -2e-3 * 800.0
+	t.Logf("HcB: latency known %.5g ± %.2g, withheld %.5g ± %.2g; shift %.3g A/m, L·dH/dt = %.3g A/m", fk.Value, fk.U, fh.Value, fh.U, fh.Value-fk.Value, want)
+	if d := fh.Value - fk.Value; math.Abs(d-want) > math.Abs(want)/5 {
+		t.Errorf("withholding the 2 ms latency moved HcB by %.3g A/m, want %.3g (L·dH/dt) within a fifth", d, want)
+	}
+}
