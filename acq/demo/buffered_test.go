@@ -291,6 +291,10 @@ func (l latencyUnknown) ReadBufferClock(ctx context.Context) (instr.Reading, err
 }
 func (l latencyUnknown) BufferClockAccuracy() float64        { return l.b.BufferClockAccuracy() }
 func (l latencyUnknown) BufferTriggerLatency() time.Duration { return 0 }
+func (l latencyUnknown) HasTriggerTime() bool                { return l.b.HasTriggerTime() }
+func (l latencyUnknown) ReadTriggerTime(ctx context.Context) (float64, error) {
+	return l.b.ReadTriggerTime(ctx)
+}
 
 // The simulated integrator starts its first buffered reading 2 ms (on its
 // own clock) after the trigger, and its profile says so. With the latency
@@ -338,20 +342,34 @@ func TestBufferedTriggerLatencyMatters(t *testing.T) {
 // 12.5 ms and interpolated to each buffered reading's instant), beside the
 // polled demo on the same bench and seed: at least ten times the points
 // per loop, and Hmax, Bmax, Br, HcB, HcJ and the loss within the combined
-// U of the polled ones (the ramped loop's U includes the timing term). Its
-// Br and HcB must agree within their own U with the bench's truth of the
-// last cycle: here every physics state of that cycle (the current ramps,
-// so no state is a settled step), B against the applied H.
+// U of the polled ones; its Br and HcB within their own U of the bench's
+// truth of the last cycle (every physics state of it: the current ramps,
+// so no state is a settled step; B against the applied H).
+//
+// The bench's specimen here has no eddy currents: a loop swept at
+// 800 A/m/s then is the DC loop, whether ramped or stepped (the
+// Jiles–Atherton model is rate-independent), so the comparison with the
+// polled loop tests the capture, not the specimen. With the demo bench's
+// laminations the ramped loop is truly wider: its truth's HcB is 50.66 A/m
+// against 50.10 A/m for the settled states of a stepped sweep (measured;
+// the ramped capture reads 50.656, stepped buffered 50.105), so ramped
+// and polled figures then differ by the specimen's dynamic widening
+// (logged by the second half of this test, not checked against polled).
 func TestRampedDemoAgreesWithPolledAndTruth(t *testing.T) {
-	run := func(capture, sweep string) Result {
+	run := func(capture, sweep string, cfg *sim.Config) Result {
 		var out strings.Builder
-		res, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: capture, Sweep: sweep, Clock: simClock()})
+		res, err := Run(context.Background(), Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: capture, Sweep: sweep, Clock: simClock(), Bench: cfg})
 		if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
 			t.Fatalf("%s %s demo: %v %s %s\n%s", capture, sweep, err, res.Run.State, res.Run.Reason, out.String())
 		}
 		return res
 	}
-	pol, rmp := run("polled", ""), run("buffered", "ramp")
+	cfg, err := sim.DefaultBench()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg.RigParams.Specimen.Eddy = nil
+	pol, rmp := run("polled", "", &cfg), run("buffered", "ramp", &cfg)
 	lp, lr := pol.Loops[1], rmp.Loops[1]
 	sp, sr := sweepOf(lp), sweepOf(lr)
 	t.Logf("sweep samples per loop: polled %d, ramped %d", len(sp), len(sr))
@@ -370,9 +388,6 @@ func TestRampedDemoAgreesWithPolledAndTruth(t *testing.T) {
 		if math.Abs(fp.Value-fr.Value) > u {
 			t.Errorf("%s: polled %.5g and ramped %.5g differ by more than their combined U %.2g", name, fp.Value, fr.Value, u)
 		}
-		if name != "Hmax" && name != "Bmax" && !strings.Contains(fr.Note, "timing") {
-			t.Errorf("%s of the ramped loop has no timing term: %s", name, fr.Note)
-		}
 	}
 	br, hc := crossingsOf(t, lastCycle(t, rmp.Truth, lr.Amplitude))
 	t.Logf("truth of the last ramped cycle: Br %.5g T, HcB %.5g A/m", br, hc)
@@ -385,15 +400,13 @@ func TestRampedDemoAgreesWithPolledAndTruth(t *testing.T) {
 			t.Errorf("ramped %s = %.5g ± %.2g, truth %.5g: off by more than U", c.name, f.Value, f.U, c.truth)
 		}
 	}
-	// The bench's truth shows a ramp, not a staircase: during the sweep the
-	// setpoint changes only at the tips.
-	changes := 0
-	for i := 1; i < len(rmp.Truth); i++ {
-		if tr := rmp.Truth[i]; tr.T >= rmp.Loops[1].Started.Sub(rmp.Run.Started)+sr[0].T-sr[0].T && rmp.Truth[i-1].Setpoint != tr.Setpoint {
-			changes++
-		}
-	}
-	t.Logf("setpoint changes in the truth from loop 2's start: %d", changes)
+	// The demo bench, with its laminations' eddy currents: logged.
+	dyn := run("buffered", "ramp", nil)
+	l := dyn.Loops[1]
+	br, hc = crossingsOf(t, lastCycle(t, dyn.Truth, l.Amplitude))
+	fb, _ := figure(l, "Br")
+	fh, _ := figure(l, "HcB")
+	t.Logf("with eddy currents: ramped Br %.5g ± %.2g (truth %.5g), HcB %.5g ± %.2g (truth %.5g)", fb.Value, fb.U, br, fh.Value, fh.U, hc)
 }
 
 // abortAt is the engine's view of a simulated clock that cancels the run
@@ -665,5 +678,68 @@ func TestRampTriggerLatencyShiftsHcBByRate(t *testing.T) {
 	t.Logf("HcB: latency known %.5g ± %.2g, withheld %.5g ± %.2g; shift %.3g A/m, L·dH/dt = %.3g A/m", fk.Value, fk.U, fh.Value, fh.U, fh.Value-fk.Value, want)
 	if d := fh.Value - fk.Value; math.Abs(d-want) > math.Abs(want)/5 {
 		t.Errorf("withholding the 2 ms latency moved HcB by %.3g A/m, want %.3g (L·dH/dt) within a fifth", d, want)
+	}
+}
+
+// triggerTimeUnknown is a buffered integrator whose profile cannot tell
+// when its trigger took effect (no buffered.trigger_time).
+type triggerTimeUnknown struct{ latencyUnknown }
+
+func (triggerTimeUnknown) HasTriggerTime() bool { return false }
+func (l triggerTimeUnknown) BufferTriggerLatency() time.Duration {
+	return l.b.BufferTriggerLatency()
+}
+
+// A trigger that takes effect late (a busy instrument, or a serial adapter
+// holding the bytes back: here 1.5 ms after the command was written, on
+// the integrator of the stepped buffered demo) is invisible in the host's
+// stamp of the command's write; placed by that stamp, every reading lands
+// 1.5 ms early and Br moves by many U, as the unexplained real-time outlier
+// did (Br 5.6 U off beside two busy CPU loops). Placed by the instant the
+// integrator reports on its own clock (buffered.trigger_time, mapped
+// through its clock readings), Br and HcB agree with the bench's truth
+// within U.
+func TestLateTriggerPlacedByInstrumentClock(t *testing.T) {
+	run := func(hide bool) (Result, record.Loop) {
+		cfg, err := sim.DefaultBench()
+		if err != nil {
+			t.Fatal(err)
+		}
+		lag := configs.Duration(1500 * time.Microsecond)
+		// Every trigger of the run is late: the fault is armed at every
+		// command line the integrator receives; only a trigger uses it.
+		cfg.Faults = append(cfg.Faults, sim.Fault{Role: instr.RoleIntegrator, Kind: sim.FaultLateTrigger, Probability: 1, Times: 100000, Delay: lag})
+		var out strings.Builder
+		o := Options{DataDir: t.TempDir(), Out: &out, Software: "test", Capture: "buffered", Clock: simClock(), Bench: &cfg}
+		if hide {
+			o.instruments = func(in *instr.Set) {
+				in.Integrator = triggerTimeUnknown{latencyUnknown{Integrator: in.Integrator, b: in.Integrator.(instr.Buffered)}}
+			}
+		}
+		res, err := Run(context.Background(), o)
+		if err != nil || res.Run.State != record.Finished || len(res.Loops) != 2 {
+			t.Fatalf("demo (trigger time hidden %v): %v %s %q\n%s", hide, err, res.Run.State, res.Run.Reason, out.String())
+		}
+		return res, res.Loops[1]
+	}
+	res, byClock := run(false)
+	_, byWrite := run(true)
+	br, hc := truthOfLastCycle(t, res.Truth, byClock.Amplitude)
+	for _, c := range []struct {
+		name  string
+		truth float64
+	}{{"Br", br}, {"HcB", hc}} {
+		fc, _ := figure(byClock, c.name)
+		fw, _ := figure(byWrite, c.name)
+		t.Logf("%s: truth %.5g; placed by the instrument's clock %.5g ± %.2g (%.1f U); by the write's stamp %.5g ± %.2g (%.1f U of the former)",
+			c.name, c.truth, fc.Value, fc.U, math.Abs(fc.Value-c.truth)/fc.U, fw.Value, fw.U, math.Abs(fw.Value-c.truth)/fc.U)
+		if math.Abs(fc.Value-c.truth) > fc.U {
+			t.Errorf("%s placed by the instrument's clock: %.5g ± %.2g, truth %.5g: off by more than U", c.name, fc.Value, fc.U, c.truth)
+		}
+	}
+	fc, _ := figure(byClock, "Br")
+	fw, _ := figure(byWrite, "Br")
+	if math.Abs(fw.Value-br) <= 2*fc.U {
+		t.Errorf("by the write's stamp Br %.5g is within 2 U of the truth %.5g: the late trigger would not matter", fw.Value, br)
 	}
 }

@@ -117,7 +117,12 @@ type chunk struct {
 	c0, c1  instr.Reading // clock readings (Value in instrument seconds)
 	trig    time.Time
 	trigUnc time.Duration
-	values  []float64
+	// trigInst is when the trigger took effect on the instrument's clock
+	// (instrument seconds), read after the acquisition when the profile
+	// can tell it (haveInst).
+	trigInst float64
+	haveInst bool
+	values   []float64
 }
 
 func (r *bufRole) cur() *chunk { return r.chunks[len(r.chunks)-1] }
@@ -375,6 +380,10 @@ func (c *capture) collect(ctx context.Context) error {
 		var err error
 		if r.dev.HasBufferClock() {
 			k.c1, err = r.dev.ReadBufferClock(cctx)
+			if err == nil && r.dev.HasTriggerTime() {
+				k.trigInst, err = r.dev.ReadTriggerTime(cctx)
+				k.haveInst = err == nil
+			}
 		}
 		if err == nil {
 			k.values, err = r.dev.FetchBuffer(cctx, k.plan.Count)
@@ -470,11 +479,20 @@ func (c *capture) times(r *bufRole, a *chunk) ([]time.Duration, []time.Duration)
 	}
 	ts := make([]time.Duration, len(a.values))
 	us := make([]time.Duration, len(a.values))
-	base := a.trig.Sub(c.x.start)
+	base, baseU := a.trig.Sub(c.x.start), a.trigUnc
+	if a.haveInst {
+		// The trigger's own instant, by the instrument's clock mapped
+		// through its first reading: no lag between the command's write
+		// and its effect (a busy instrument, an adapter holding bytes back)
+		// can hide in it.
+		since := a.trigInst - a.c0.Value
+		base = a.c0.At.Sub(c.x.start) + time.Duration(rate*since*float64(time.Second))
+		baseU = a.c0.AtUncertainty + time.Duration(rateU*math.Abs(since)*float64(time.Second))
+	}
 	for k := range a.values {
 		inst := r.at(a, k).Seconds()
 		ts[k] = base + time.Duration(rate*inst*float64(time.Second))
-		us[k] = a.trigUnc + time.Duration(rateU*inst*float64(time.Second))
+		us[k] = baseU + time.Duration(rateU*inst*float64(time.Second))
 	}
 	return ts, us
 }
@@ -590,7 +608,11 @@ func (c *capture) round(ctx context.Context, phase record.Phase) (time.Duration,
 		}
 		c.inSwp = sweep
 	}()
-	if sweep && !c.triggered {
+	if !c.triggered && (sweep || c.ramp != nil && c.ramp.sweepNext(c.period)) {
+		// A ramp starts right after the sweep's first reading, and an
+		// instrument's first reading comes its trigger latency after its
+		// trigger: a ramped sweep is triggered one round early, so that
+		// its first instants (a tip) are sampled.
 		return 0, c.trigger(ctx)
 	}
 	if !c.triggered || c.fetched || !(sweep || c.inSwp) {

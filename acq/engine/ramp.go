@@ -94,6 +94,14 @@ func (r *rampState) legAt(t time.Duration) (int, float64, recipe.Segment, bool) 
 	return 0, 0, recipe.Segment{}, false
 }
 
+// sweepNext reports whether the round after the one being read (period
+// later) is the sweep's first.
+func (r *rampState) sweepNext(period time.Duration) bool {
+	_, _, _, now := r.legAt(r.at)
+	_, _, _, next := r.legAt(r.at + period)
+	return !now && next
+}
+
 // program starts the ramp of the leg the round falls in when it is not
 // the one programmed: the leg's rate, then its end as the setpoint.
 func (r *rampState) program(ctx context.Context, sup instr.Supply) error {

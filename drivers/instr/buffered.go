@@ -41,6 +41,11 @@ type Buffered interface {
 	// receiving the trigger and starting to count the programmed delay, on
 	// its time base (0 when its profile states none).
 	BufferTriggerLatency() time.Duration
+	// HasTriggerTime reports whether ReadTriggerTime works.
+	HasTriggerTime() bool
+	// ReadTriggerTime reads when the last trigger took effect, in seconds
+	// on the instrument's time base (that of ReadBufferClock).
+	ReadTriggerTime(ctx context.Context) (float64, error)
 }
 
 // Ramper is a supply that can ramp its output to each new setpoint at a

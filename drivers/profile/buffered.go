@@ -48,6 +48,11 @@ type Buffered struct {
 	Done    Operation `yaml:"done"`
 	Fetch   Fetch     `yaml:"fetch"`
 	Clock   Operation `yaml:"clock"`
+	// TriggerTime (optional, with clock) is the query of the instant the
+	// last trigger took effect, in seconds on the instrument's time base:
+	// the engine then places the trigger by the instrument's clock instead
+	// of by the moment the trigger's command was written.
+	TriggerTime Operation `yaml:"trigger_time"`
 	// ClockAccuracy is the rate error of the instrument's time base as a
 	// fraction (e.g. 1.0e-4 for 100 ppm); default 1e-4. Used for the time
 	// uncertainty of the samples when clock is not given.
@@ -170,6 +175,14 @@ func validateBufferedQueries(add adder, b *Buffered) {
 		add("buffered.clock", "a query with parse: number, unit: s (the instrument's time base)")
 	} else if b.Clock.Query != "" && b.Clock.Unit != "s" {
 		add("buffered.clock.unit", "%q: want \"s\"", b.Clock.Unit)
+	}
+	if t := b.TriggerTime; t.Set != "" || t.Query != "" {
+		switch {
+		case t.Set != "" || t.Parse != "number" || t.Unit != "s":
+			add("buffered.trigger_time", "a query with parse: number, unit: s (the trigger's instant on the instrument's clock)")
+		case b.Clock.Query == "":
+			add("buffered.trigger_time", "needs buffered.clock (to map the instrument's time onto the host's)")
+		}
 	}
 	if !(b.ClockAccuracy >= 0 && b.ClockAccuracy < 0.01) {
 		add("buffered.clock_accuracy", "%g: want a fraction within 0..0.01 (e.g. 1.0e-4 for 100 ppm)", b.ClockAccuracy)
@@ -336,6 +349,37 @@ func (d *Device) BufferDone(ctx context.Context) (bool, error) {
 	}
 	return false, &OpError{Profile: d.p.Name, Op: "buffer_done", Command: b.Done.Query,
 		Err: d.c.Desync(b.Done.Query, &scpi.ParseError{Reply: r, Want: "an on/off value"})}
+}
+
+// HasTriggerTime reports whether the instrument can tell when the last
+// trigger took effect on its clock (buffered.trigger_time).
+func (d *Device) HasTriggerTime() bool {
+	return d.p.Buffered != nil && d.p.Buffered.TriggerTime.Query != ""
+}
+
+// ReadTriggerTime reads the instant the last trigger took effect, in
+// seconds on the instrument's time base.
+func (d *Device) ReadTriggerTime(ctx context.Context) (float64, error) {
+	b, err := d.buffered(ctx, "buffer_trigger_time")
+	if err != nil {
+		return 0, err
+	}
+	q := b.TriggerTime.Query
+	if q == "" {
+		return 0, &OpError{Profile: d.p.Name, Op: "buffer_trigger_time", Err: fmt.Errorf("%w: no buffered.trigger_time", ErrUnsupported)}
+	}
+	r, err := d.c.Query(ctx, q)
+	if err != nil {
+		return 0, d.fail(ctx, "buffer_trigger_time", q, err)
+	}
+	v, err := scpi.ParseNumber(r)
+	if err == nil && (math.IsInf(v, 0) || math.IsNaN(v)) {
+		err = &scpi.ParseError{Reply: r, Want: "a finite time in seconds"}
+	}
+	if err != nil {
+		return 0, &OpError{Profile: d.p.Name, Op: "buffer_trigger_time", Command: q, Err: d.c.Desync(q, err)}
+	}
+	return v, nil
 }
 
 // ReadBufferClock reads the instrument's time base (seconds on its own

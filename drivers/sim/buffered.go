@@ -42,6 +42,12 @@ const (
 	// FaultShortBuffer: the next buffer fetched lacks its last quarter
 	// (the block's header says so: the count is wrong, not the framing).
 	FaultShortBuffer = "short_buffer"
+	// FaultLateTrigger: the next trigger takes effect Delay after its
+	// command arrives, as on a busy instrument or behind a serial adapter
+	// that holds bytes back; the host's stamp of the trigger's write does
+	// not show it. An instrument whose profile has buffered.trigger_time
+	// reports the instant on its clock all the same.
+	FaultLateTrigger = "late_trigger"
 )
 
 const bufPrefix = "buffered."
@@ -58,6 +64,7 @@ type acquisition struct {
 	prev          float64 // noise-free reading at prevT
 	lostTriggers  int     // pending no_trigger faults
 	shortBuffers  int     // pending short_buffer faults
+	lateBy        float64 // s: a pending late_trigger fault's lag
 }
 
 // bufferedMatchers recognises the commands of a profile's buffered section.
@@ -68,7 +75,7 @@ func bufferedMatchers(p profile.Profile) []matcher {
 	}
 	ops := map[string]profile.Operation{
 		"trigger": b.Trigger, "period": b.Period, "count": b.Count, "delay": b.Delay, "arm": b.Arm,
-		"done": b.Done, "clock": b.Clock, "fetch": {Query: b.Fetch.Query},
+		"done": b.Done, "clock": b.Clock, "fetch": {Query: b.Fetch.Query}, "trigger_time": b.TriggerTime,
 	}
 	var ms []matcher
 	for name, op := range ops {
@@ -151,7 +158,8 @@ func (b *Bench) trigger(in *instrument) {
 	// The trigger arrives now, on the clock, which may lie up to one
 	// physics step beyond the last step computed (simT): the instrument
 	// counts from the trigger's own instant, not from that step.
-	a.trigAt = b.clock.Now().Sub(b.start).Seconds()
+	a.trigAt = b.clock.Now().Sub(b.start).Seconds() + a.lateBy
+	a.lateBy = 0
 	a.prevT = b.simT.Seconds()
 	a.prev, _ = b.reading(in, 0)
 	b.sampleBuffer(in)
@@ -200,6 +208,12 @@ func (b *Bench) bufferedQuery(in *instrument, m matcher) (reply, *scpiError) {
 		return reply{Bool: a.triggered && len(a.values) == a.count}, nil
 	case "clock":
 		return reply{Raw: strconv.FormatFloat(b.instClock(in), 'f', 9, 64)}, nil
+	case "trigger_time":
+		if !a.triggered {
+			return reply{}, &scpiError{-230, "Data corrupt or stale"}
+		}
+		at := clockOffset(in.serial) + (1+clockDrift[in.role])*a.trigAt
+		return reply{Raw: strconv.FormatFloat(at, 'f', 9, 64)}, nil
 	case "fetch":
 		if !a.triggered || len(a.values) < a.count {
 			return reply{}, &scpiError{-230, "Data corrupt or stale"}
@@ -231,8 +245,10 @@ func (b *Bench) bufferedQuery(in *instrument, m matcher) (reply, *scpiError) {
 }
 
 // fireBuffered arms a fault of the timed acquisition; b.mu is held.
-func fireBuffered(in *instrument, kind string) {
+func fireBuffered(in *instrument, kind string, lag float64) {
 	switch kind {
+	case FaultLateTrigger:
+		in.acq.lateBy = lag
 	case FaultNoTrigger:
 		in.acq.lostTriggers++
 	case FaultShortBuffer:
