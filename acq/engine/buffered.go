@@ -60,8 +60,20 @@ import (
 // readings (c0 at arming, c1 after the acquisition, each stamped at the
 // midpoint of its exchange on the engine's clock: r_i = (b1−b0)/(c1−c0)),
 // or taken as 1 ± the profile's clock_accuracy when the profile has no
-// clock query. The trigger reached it at T_i, the time the trigger
-// command was written (± its transmission time). So reading k is placed at
+// clock query. The trigger took effect at T_i: when the profile has
+// trigger_time (the instrument reports that instant on its clock, c_T),
+// T_i = b0 + r_i·(c_T − c0), within b0's stamp uncertainty and the rate's
+// over c_T − c0; otherwise the time the trigger command was written (± its
+// transmission time). The write's stamp cannot show a trigger that takes
+// effect late (an instrument busy with something else, a serial adapter
+// holding the bytes back, a late host's simulated bench): every reading
+// would be placed that much early. This is the likely cause of one
+// real-time demo's Br 5.6 U off the truth beside two busy CPU loops (the
+// simulated bench, on the same loaded host, took the trigger late): the
+// mechanism is reproduced on simulated time with the fault late_trigger
+// (1.5 ms: Br 9 U off by the write's stamp, 0.3 U by the instrument's
+// clock; acq/demo TestLateTriggerPlacedByInstrumentClock). So reading k is
+// placed at
 //
 //	t_ik = T_i + r_i·(L_i + delay + k·period)
 //
