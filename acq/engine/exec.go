@@ -280,8 +280,8 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			}
 		}
 		prevPhase = phase
-		if cpt != nil && cpt.ramp != nil {
-			cpt.ramp.at = t
+		if cpt != nil {
+			cpt.beforeRound(t, x.polled)
 		}
 		set, err := x.command(st, level)
 		if err != nil {
@@ -299,12 +299,6 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 		if v := x.check.Check(safety.Observation{T: s.T + s.DtI, TUnc: s.TUnc, I: s.I, V: s.V, BProbe: s.BProbe, TempC: s.TempC,
 			Status: rd.Status, HaveStatus: true, Energised: x.energd, Overload: rd.Overload}); v != nil {
 			return v
-		}
-		if cpt != nil && cpt.ramp != nil && cpt.ramp.ramping {
-			// Ramping, the supply gets no setpoint (whose error-queue read
-			// would show what it raised) for a whole leg: its queue is read
-			// every round instead, as often as a stepped sweep reads it.
-			delete(x.polled, instr.RoleLabel(instr.RoleSupply))
 		}
 		if err := x.pollErrors(ctx, now, false); err != nil {
 			return err

@@ -94,6 +94,21 @@ func (r *rampState) legAt(t time.Duration) (int, float64, recipe.Segment, bool) 
 	return 0, 0, recipe.Segment{}, false
 }
 
+// beforeRound tells a ramped capture the recipe time t of the round about
+// to be read. Ramping, the supply gets no setpoint (whose error-queue read
+// would show what it raised) for a whole leg: its queue is made due every
+// round instead (polled: the engine's last error poll of each role), as
+// often as a stepped sweep reads it.
+func (c *capture) beforeRound(t time.Duration, polled map[string]time.Time) {
+	if c.ramp == nil {
+		return
+	}
+	c.ramp.at = t
+	if c.ramp.ramping {
+		delete(polled, instr.RoleLabel(instr.RoleSupply))
+	}
+}
+
 // sweepNext reports whether the round after the one being read (period
 // later) is the sweep's first.
 func (r *rampState) sweepNext(period time.Duration) bool {
