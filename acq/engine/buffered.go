@@ -72,7 +72,12 @@ import (
 // simulated bench, on the same loaded host, took the trigger late): the
 // mechanism is reproduced on simulated time with the fault late_trigger
 // (1.5 ms: Br 9 U off by the write's stamp, 0.3 U by the instrument's
-// clock; acq/demo TestLateTriggerPlacedByInstrumentClock). So reading k is
+// clock; acq/demo TestLateTriggerPlacedByInstrumentClock). It is not the
+// only one: with trigger_time, a real-time run beside two busy loops still
+// gave one loop's Br 0.615 ± 0.068 T (truth about 0.651 T) after six holds.
+// A suspect not yet reproduced: a setpoint stamped before its command is
+// written (round.setAt) but applied late, so that readings at the start of
+// a step's kept part still belong to the step before. So reading k is
 // placed at
 //
 //	t_ik = T_i + r_i·(L_i + delay + k·period)
