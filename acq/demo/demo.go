@@ -41,6 +41,8 @@ const (
 	RecipeFile   = "recipes/demo-ring.yaml"
 	// BufferedRecipeFile is RecipeFile with capture: buffered.
 	BufferedRecipeFile = "recipes/demo-ring-buffered.yaml"
+	// RampRecipeFile is BufferedRecipeFile with sweep_mode: ramp.
+	RampRecipeFile = "recipes/demo-ring-ramp.yaml"
 	// CalibrationDir holds the calibration records of the bench's instruments.
 	CalibrationDir = "calibrations"
 )
@@ -71,9 +73,15 @@ type Options struct {
 	// (BufferedRecipeFile: the same sweep, flux and field sampled by the
 	// instruments on their own clocks).
 	Capture string
+	// Sweep is "steps" (default) or "ramp" (RampRecipeFile: with capture
+	// buffered only, the supply ramping continuously from tip to tip).
+	Sweep string
 	// lateHost, in tests, wraps the engine's clock (not the bench's): a host
 	// that wakes the engine late.
 	lateHost func(clock.Clock) clock.Clock
+	// instruments, in tests, changes the opened instruments before the
+	// engine gets them.
+	instruments func(*engine.Instruments)
 }
 
 // Result is what a demo run produced.
@@ -100,7 +108,7 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	if log == nil {
 		log = slog.New(slog.NewTextHandler(out, &slog.HandlerOptions{Level: slog.LevelWarn}))
 	}
-	fx, sp, rc, err := loadSamples(o.Capture)
+	fx, sp, rc, err := loadSamples(o.Capture, o.Sweep)
 	if err != nil {
 		return Result{}, err
 	}
@@ -109,7 +117,9 @@ func Run(ctx context.Context, o Options) (Result, error) {
 	if clk == nil {
 		clk = clock.Real{}
 	}
-	bench, err := startBench(ctx, o.Bench, clk, out)
+	// The bench outlives a cancelled ctx until Run returns: the run's
+	// ending ramps the supply down through it (the deferred Close stops it).
+	bench, err := startBench(context.WithoutCancel(ctx), o.Bench, clk, out)
 	if err != nil {
 		return Result{}, err
 	}
@@ -142,6 +152,9 @@ func Run(ctx context.Context, o Options) (Result, error) {
 		return Result{}, err
 	}
 	defer opened.Close()
+	if o.instruments != nil {
+		o.instruments(&opened.Instruments)
+	}
 	proc, calEvents, err := processor(opened, fx, sp, clk.Now(), log)
 	if err != nil {
 		return Result{}, err
@@ -306,7 +319,7 @@ func forward(ctx context.Context, o Options, st *store.Store, res Result, out io
 	return nil
 }
 
-func loadSamples(capture string) (config.Fixture, config.Specimen, *recipe.Recipe, error) {
+func loadSamples(capture, sweep string) (config.Fixture, config.Specimen, *recipe.Recipe, error) {
 	recipeFile := RecipeFile
 	switch capture {
 	case "", recipe.CapturePolled:
@@ -314,6 +327,16 @@ func loadSamples(capture string) (config.Fixture, config.Specimen, *recipe.Recip
 		recipeFile = BufferedRecipeFile
 	default:
 		return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: capture %q: want polled or buffered", capture)
+	}
+	switch sweep {
+	case "", recipe.SweepSteps:
+	case recipe.SweepRamp:
+		if recipeFile != BufferedRecipeFile {
+			return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: sweep ramp needs capture buffered")
+		}
+		recipeFile = RampRecipeFile
+	default:
+		return config.Fixture{}, config.Specimen{}, nil, fmt.Errorf("demo: sweep %q: want steps or ramp", sweep)
 	}
 	read := func(name string) ([]byte, error) { return fs.ReadFile(configs.Samples, name) }
 	b, err := read(FixtureFile)

@@ -157,7 +157,13 @@ func figure(l record.Loop, name string) (record.Figure, bool) {
 // each setpoint change, the settled one, is used.
 func truthOfLastCycle(t *testing.T, hist []sim.Truth, amp float64) (br, hc float64) {
 	t.Helper()
-	seg := lastSettledCycle(t, hist, amp)
+	return crossingsOf(t, lastSettledCycle(t, hist, amp))
+}
+
+// crossingsOf is Br and HcB of one true cycle: |B| at H = 0 and |H| at
+// B = 0, interpolated between states, each the mean of its two crossings.
+func crossingsOf(t *testing.T, seg []sim.Truth) (br, hc float64) {
+	t.Helper()
 	var brs, hcs []float64
 	for i := 1; i < len(seg); i++ {
 		a, b := seg[i-1], seg[i]
@@ -186,7 +192,13 @@ func lastSettledCycle(t *testing.T, hist []sim.Truth, amp float64) []sim.Truth {
 			settled = append(settled, hist[i])
 		}
 	}
-	hist = settled
+	return lastCycle(t, settled, amp)
+}
+
+// lastCycle is the last full cycle of ±amp among the states hist, from one
+// fall through +amp/2 to the next.
+func lastCycle(t *testing.T, hist []sim.Truth, amp float64) []sim.Truth {
+	t.Helper()
 	var falls []int
 	armed := true
 	for i := 1; i < len(hist); i++ {

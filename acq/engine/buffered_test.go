@@ -37,3 +37,20 @@ func TestBufferedRefusedAtCheck(t *testing.T) {
 		t.Fatalf("polled: %v", err)
 	}
 }
+
+// sweep_mode: ramp asked of a supply whose profile has no ramp section
+// (the fakes have none) is refused before anything is energised or
+// recorded, naming the recipe's file and line, the step and the profile.
+func TestRampRefusedAtCheck(t *testing.T) {
+	r := newRig(t)
+	_, err := Run(context.Background(), r.setup(t, "kind: recipe\nname: b\nsteps:\n  - record_loop: {amplitude: 1 A, rate: 1 A/s, points: 100,\n      capture: buffered, sweep_mode: ramp}\n"))
+	var ref *Refused
+	if !errors.As(err, &ref) || !strings.Contains(err.Error(), "sweep_mode: ramp, but the supply's instrument profile") ||
+		!strings.Contains(err.Error(), ":4: steps.0.record_loop") {
+		t.Fatalf("error %v, want a refusal naming line 4, steps.0.record_loop and the supply's profile", err)
+	}
+	t.Log(err)
+	if len(r.w.RunList()) != 0 || r.sup.Reads != 0 {
+		t.Error("a refused recipe touched the store or the supply")
+	}
+}

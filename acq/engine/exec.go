@@ -280,6 +280,9 @@ func (x *exec) step(ctx context.Context, st recipe.Step) error {
 			}
 		}
 		prevPhase = phase
+		if cpt != nil {
+			cpt.beforeRound(t, x.polled)
+		}
 		set, err := x.command(st, level)
 		if err != nil {
 			return err
@@ -363,7 +366,12 @@ func (x *exec) readRound(ctx context.Context, cpt *capture, phase record.Phase, 
 	if cpt != nil && phase == record.Sweep {
 		rd, err = cpt.readThenSet(cctx, set)
 	} else {
-		rd, err = setThenRead(cctx, in.Supply, x.smp, set)
+		if cpt != nil && cpt.ramp != nil {
+			err = cpt.ramp.end(cctx) // the sweep is over: setpoints apply at once again
+		}
+		if err == nil {
+			rd, err = setThenRead(cctx, in.Supply, x.smp, set)
+		}
 		if cpt != nil && err == nil {
 			cpt.note(rd.Sample, set, phase)
 		}
@@ -475,7 +483,7 @@ func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sampl
 		AmpUnit: st.Loop.AmpUnit, Started: started, Raw: raw}
 	if x.s.Process == nil {
 		x.event(ctx, "warn", "loop %d stored raw only: no processing configured", l.N)
-	} else if pr, err := x.s.Process(raw, *st.Loop); err != nil {
+	} else if pr, err := x.s.Process(raw, loopInfo(st)); err != nil {
 		x.event(ctx, "warn", "loop %d stored raw only: processing failed: %v", l.N, err)
 	} else {
 		l.Points, l.Figures, l.Corrections = pr.Points, pr.Figures, pr.Corrections
@@ -495,6 +503,13 @@ func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sampl
 		return
 	}
 	x.event(ctx, "info", "loop %d (%s, %d samples) committed", l.N, l.Kind, len(raw))
+}
+
+// loopInfo is what the processor is told of the loop of step st.
+func loopInfo(st recipe.Step) process.LoopInfo {
+	li := *st.Loop
+	li.Ramped = st.Capture.Ramp
+	return li
 }
 
 // end halts the instruments, retries refused loops, records the final state
@@ -608,7 +623,8 @@ func endingText(state record.State, d time.Duration, reason string) string {
 func zeroTol(fx config.Fixture) float64 { return 0.005 + 0.002*fx.Limits.MaxCurrentA }
 
 // SafeHalt brings a fixture's supply to zero and its output off the safe
-// way, as every run's ending does: the supply's Halt (instr.Supply's
+// way, as every run's ending does: a programmed ramp ended (instr.Ramper),
+// then the supply's Halt (instr.Supply's
 // contract: ramp to zero at its slew limit — profile.Supply uses the lower of
 // the profile's and the fixture's, acq/fixture passes the fixture's — wait
 // for the read-back near zero, then output off), tried twice if it fails,
@@ -643,6 +659,15 @@ func safeHalt(ctx context.Context, in Instruments, fx config.Fixture, lastI floa
 	}
 	hctx, cancel := bg(ctx, d)
 	defer cancel()
+	// A programmed ramp (sweep_mode: ramp) goes on towards its target
+	// until told otherwise, also after a crash of the run that set it: end
+	// it first, so that the halt's own steps apply.
+	if r, ok := sup.(instr.Ramper); ok && r.CanRamp() {
+		if rerr := r.RampOff(hctx); rerr != nil {
+			log.Error("ending the programmed ramp failed; halting all the same", "err", rerr)
+			note(fmt.Sprintf("ending the programmed ramp failed: %v", rerr))
+		}
+	}
 	err := sup.Halt(hctx)
 	if err != nil {
 		log.Error("supply halt failed; trying again", "err", err)

@@ -83,6 +83,11 @@ type Setup struct {
 	// Extra are further budget sources (standard uncertainties), e.g. of
 	// calibration records applied to the samples before Loop.
 	Extra []loop.Source
+	// Ramped says the supply ramped continuously during the sweep and H
+	// was interpolated at each flux reading's instant (LoopInfo.Ramped):
+	// the samples' time uncertainty × dH/dt then enters every budget as
+	// "timing" (timing.go).
+	Ramped bool
 }
 
 // Validate reports the first problem of s that makes Loop impossible.
@@ -168,6 +173,11 @@ func Loop(raw []record.Sample, s Setup) (points []record.Point, figs []record.Fi
 	if figs, err = c.figures(s, sources); err != nil {
 		return nil, nil, nil, err
 	}
+	if s.Ramped {
+		if figs, err = c.addTiming(s, figs, sw.tu); err != nil {
+			return nil, nil, nil, err
+		}
+	}
 	// The times in s are not needed any more: their storage takes J.
 	return pointsOf(sw.td, h, b, correct.Polarization(sw.t, h, b), shape), figs, corr, nil
 }
@@ -228,6 +238,7 @@ func (hd *hold) add(r *record.Sample, x float64) {
 type sweep struct {
 	t   []float64       // s
 	td  []time.Duration // the same times as stamped
+	tu  []time.Duration // their uncertainties (record.Sample.TUnc)
 	psi []float64       // Wb-turns; B in place from the B stage on
 	// x is the H channel as read: the current (A), or the probe reading
 	// (T) with its temperature (°C) in temp. H in place from field on.
@@ -248,6 +259,7 @@ func (sw *sweep) add(r *record.Sample, hv float64, fromCurrent bool) {
 	}
 	sw.psi = append(sw.psi, r.Psi)
 	sw.td = append(sw.td, r.T)
+	sw.tu = append(sw.tu, r.TUnc)
 }
 
 // splitPhases sorts the samples of a step by phase: the holds with a flux

@@ -14,6 +14,18 @@ const (
 	CaptureBuffered = "buffered"
 )
 
+// Sweep modes of a buffered sweep (key sweep_mode:).
+const (
+	// SweepSteps sends the supply one setpoint per setpoint period, a
+	// staircase (default).
+	SweepSteps = "steps"
+	// SweepRamp programs the supply to ramp at the sweep's rate from tip to
+	// tip on its own (its profile needs a ramp section); the engine reads
+	// its current every setpoint period and takes H at each buffered
+	// reading's instant from those readings. See acq/engine.
+	SweepRamp = "ramp"
+)
+
 // DefaultBufferDivisor: without buffer_period, a buffered sweep is sampled
 // this many times per setpoint period (of which the engine keeps the twelve
 // in the settled part of each step, see acq/engine).
@@ -30,10 +42,22 @@ type Capture struct {
 	Buffered bool
 	// Period is the buffered sample period (0 when polled).
 	Period time.Duration
+	// Ramp: the supply ramps continuously during the sweep (sweep_mode:
+	// ramp), instead of stepping.
+	Ramp bool
 }
 
 // capture checks the capture keys of a recorded step's sampling.
 func (c *checker) capture(p string, s *Sampling) {
+	switch s.SweepMode {
+	case "", SweepSteps:
+	case SweepRamp:
+		if s.Capture != CaptureBuffered {
+			c.add(p+".sweep_mode", "ramp only with capture: buffered (a polled sweep reads every channel at each setpoint step)")
+		}
+	default:
+		c.add(p+".sweep_mode", "must be %s or %s, got %q", SweepSteps, SweepRamp, s.SweepMode)
+	}
 	switch s.Capture {
 	case "", CapturePolled:
 		if s.BufferPeriod != 0 {
@@ -57,5 +81,5 @@ func captureOf(s Sampling, per time.Duration) Capture {
 	if d == 0 {
 		d = max(per/DefaultBufferDivisor, MinBufferPeriod)
 	}
-	return Capture{Buffered: true, Period: d}
+	return Capture{Buffered: true, Period: d, Ramp: s.SweepMode == SweepRamp}
 }

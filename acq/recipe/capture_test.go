@@ -12,6 +12,8 @@ func TestCaptureKeys(t *testing.T) {
 		{", capture: sampled}", `steps.0.record_loop.capture: must be polled or buffered, got "sampled"`},
 		{", buffer_period: 1ms}", "steps.0.record_loop.buffer_period: only with capture: buffered"},
 		{", capture: buffered, buffer_period: 1us}", "steps.0.record_loop.buffer_period: must be 10µs to 1s, got 1µs"},
+		{", sweep_mode: ramp}", "c.yaml:4: steps.0.record_loop.sweep_mode: ramp only with capture: buffered"},
+		{", capture: buffered, sweep_mode: glide}", `c.yaml:4: steps.0.record_loop.sweep_mode: must be steps or ramp, got "glide"`},
 	} {
 		_, err := Parse("c.yaml", []byte(head+tc.keys+"\n"))
 		if err == nil || !strings.Contains(err.Error(), tc.err) {
@@ -28,6 +30,8 @@ func TestCaptureKeys(t *testing.T) {
 		{", capture: polled}", Capture{}},
 		{", capture: buffered}", Capture{Buffered: true, Period: 40 * time.Millisecond / DefaultBufferDivisor}},
 		{", capture: buffered, buffer_period: 2ms}", Capture{Buffered: true, Period: 2 * time.Millisecond}},
+		{", capture: buffered, sweep_mode: steps}", Capture{Buffered: true, Period: 40 * time.Millisecond / DefaultBufferDivisor}},
+		{", capture: buffered, sweep_mode: ramp}", Capture{Buffered: true, Period: 40 * time.Millisecond / DefaultBufferDivisor, Ramp: true}},
 	} {
 		r, err := Parse("c.yaml", []byte(head+tc.keys+"\n"))
 		if err != nil {

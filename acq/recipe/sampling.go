@@ -18,6 +18,9 @@ type Sampling struct {
 	// read: polled (default) or buffered; see capture.go.
 	Capture      string           `yaml:"capture"`
 	BufferPeriod configs.Duration `yaml:"buffer_period"`
+	// SweepMode is how the supply moves during a buffered sweep: steps
+	// (default) or ramp; see capture.go.
+	SweepMode string `yaml:"sweep_mode"`
 }
 
 func (c *checker) sampling(p string, s *Sampling) {

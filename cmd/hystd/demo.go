@@ -34,7 +34,7 @@ func demoExit(err error) error {
 }
 
 func newDemoCmd() *cobra.Command {
-	var dataDir, serveAddr, speed, capture string
+	var dataDir, serveAddr, speed, capture, sweep string
 	var ic influx.Config
 	var tags []string
 	cmd := &cobra.Command{
@@ -61,7 +61,10 @@ func newDemoCmd() *cobra.Command {
 			if capture != "polled" && capture != "buffered" {
 				return &exitError{code: exitUsage, err: fmt.Errorf("--capture %q: want polled or buffered", capture)}
 			}
-			opts := demo.Options{DataDir: dataDir, Out: out, Software: version, Capture: capture, Operator: osUser(),
+			if sweep != "steps" && (sweep != "ramp" || capture != "buffered") {
+				return &exitError{code: exitUsage, err: fmt.Errorf("--sweep %q: want steps, or ramp with --capture buffered", sweep)}
+			}
+			opts := demo.Options{DataDir: dataDir, Out: out, Software: version, Capture: capture, Sweep: sweep, Operator: osUser(),
 				Log: slog.New(slog.NewTextHandler(cmd.ErrOrStderr(), &slog.HandlerOptions{Level: slog.LevelWarn}))}
 			slog.SetDefault(opts.Log) // the forwarder logs through the default logger: stderr
 			switch speed {
@@ -139,6 +142,7 @@ func newDemoCmd() *cobra.Command {
 	cmd.Flags().StringVar(&ic.Bucket, "influx-bucket", "", "bucket for --influx-url")
 	cmd.Flags().StringVar(&ic.TokenFile, "influx-token-file", "", "file holding the API token (else $"+influx.DefaultTokenEnv+")")
 	cmd.Flags().StringVar(&capture, "capture", "polled", "polled: every channel read once per setpoint; buffered: the integrator and field meter sample on their own clocks ten times as often during each sweep")
+	cmd.Flags().StringVar(&sweep, "sweep", "steps", "steps: the supply is stepped from setpoint to setpoint; ramp (with --capture buffered): the supply ramps continuously from tip to tip at a programmed rate (caution: on a real fixture the program drives the winding's current itself)")
 	cmd.Flags().StringVar(&speed, "speed", "real", "real: the sweep's own pace; max: simulated time, as fast as the computer allows")
 	cmd.Flags().StringVar(&serveAddr, "serve", "", "also serve the review page and API on this address (e.g. 127.0.0.1:8740) until SIGINT/SIGTERM")
 	return cmd

@@ -2,6 +2,7 @@ package instr
 
 import (
 	"context"
+	"hystd/calib/units"
 	"time"
 )
 
@@ -36,4 +37,24 @@ type Buffered interface {
 	ReadBufferClock(ctx context.Context) (Reading, error)
 	// BufferClockAccuracy is the time base's rate error, a fraction.
 	BufferClockAccuracy() float64
+	// BufferTriggerLatency is the instrument's own latency between
+	// receiving the trigger and starting to count the programmed delay, on
+	// its time base (0 when its profile states none).
+	BufferTriggerLatency() time.Duration
+	// HasTriggerTime reports whether ReadTriggerTime works.
+	HasTriggerTime() bool
+	// ReadTriggerTime reads when the last trigger took effect, in seconds
+	// on the instrument's time base (that of ReadBufferClock).
+	ReadTriggerTime(ctx context.Context) (float64, error)
+}
+
+// Ramper is a supply that can ramp its output to each new setpoint at a
+// programmed rate (a continuous ramp). drivers/profile implements it for
+// every supply profile; CanRamp says whether the profile defines it.
+type Ramper interface {
+	CanRamp() bool
+	// SetRampRate programs the rate, A/s, of the setpoints that follow.
+	SetRampRate(ctx context.Context, rate units.AmperePerSecond) error
+	// RampOff ends the programmed ramp: setpoints apply at once again.
+	RampOff(ctx context.Context) error
 }

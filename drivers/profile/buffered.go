@@ -32,8 +32,10 @@ import (
 //
 // Each entry but fetch is an Operation as in `operations:`. The engine
 // arms (trigger, period, count, delay, arm), sends start at the sweep's
-// first round, polls done, and fetches. Sample k is taken at delay + k·period
-// after the trigger on the instrument's clock; clock, when given, is read
+// first round, polls done, and fetches. Sample k is taken at
+// trigger_latency + delay + k·period after the trigger on the instrument's
+// clock (trigger_latency is the instrument's own, from its manual; delay is
+// what the engine programs); clock, when given, is read
 // at the trigger and after the acquisition so that the engine can convert
 // instrument time to its own (see acq/engine).
 type Buffered struct {
@@ -46,10 +48,20 @@ type Buffered struct {
 	Done    Operation `yaml:"done"`
 	Fetch   Fetch     `yaml:"fetch"`
 	Clock   Operation `yaml:"clock"`
+	// TriggerTime (optional, with clock) is the query of the instant the
+	// last trigger took effect, in seconds on the instrument's time base:
+	// the engine then places the trigger by the instrument's clock instead
+	// of by the moment the trigger's command was written.
+	TriggerTime Operation `yaml:"trigger_time"`
 	// ClockAccuracy is the rate error of the instrument's time base as a
 	// fraction (e.g. 1.0e-4 for 100 ppm); default 1e-4. Used for the time
 	// uncertainty of the samples when clock is not given.
 	ClockAccuracy float64 `yaml:"clock_accuracy"`
+	// TriggerLatency is the instrument's own time from receiving the
+	// trigger to starting the programmed delay, as its manual states it: a
+	// duration with a unit ("2ms", "350us"), not negative, under 1 s.
+	// Empty: none.
+	TriggerLatency string `yaml:"trigger_latency"`
 }
 
 // Fetch is the query that returns the buffer as a definite-length block.
@@ -96,7 +108,13 @@ func validateBuffered(p Profile, add func(string, string, ...any)) {
 // validateBufferedSetting checks the setting buffered.<key>: whether it is
 // required, whether it takes a value (numeric) and the unit of that value.
 func validateBufferedSetting(add adder, key string, o Operation, required, numeric bool, unit string) {
-	key = "buffered." + key
+	validateSectionSetting(add, "buffered."+key, o, required, numeric, unit)
+}
+
+// validateSectionSetting checks the setting at key of an optional section
+// (buffered, ramp): whether it is required, whether it takes a value
+// (numeric) and the unit of that value.
+func validateSectionSetting(add adder, key string, o Operation, required, numeric bool, unit string) {
 	switch {
 	case o.Set == "" && o.Query == "":
 		if required {
@@ -158,8 +176,25 @@ func validateBufferedQueries(add adder, b *Buffered) {
 	} else if b.Clock.Query != "" && b.Clock.Unit != "s" {
 		add("buffered.clock.unit", "%q: want \"s\"", b.Clock.Unit)
 	}
+	if t := b.TriggerTime; t.Set != "" || t.Query != "" {
+		switch {
+		case t.Set != "" || t.Parse != "number" || t.Unit != "s":
+			add("buffered.trigger_time", "a query with parse: number, unit: s (the trigger's instant on the instrument's clock)")
+		case b.Clock.Query == "":
+			add("buffered.trigger_time", "needs buffered.clock (to map the instrument's time onto the host's)")
+		}
+	}
 	if !(b.ClockAccuracy >= 0 && b.ClockAccuracy < 0.01) {
 		add("buffered.clock_accuracy", "%g: want a fraction within 0..0.01 (e.g. 1.0e-4 for 100 ppm)", b.ClockAccuracy)
+	}
+	if v := b.TriggerLatency; v != "" {
+		d, err := time.ParseDuration(v)
+		switch {
+		case err != nil:
+			add("buffered.trigger_latency", "%q is not a duration (use a unit: us, ms, s)", v)
+		case d < 0 || d >= time.Second:
+			add("buffered.trigger_latency", "%q: want a latency within 0..1s", v)
+		}
 	}
 }
 
@@ -195,6 +230,16 @@ func (d *Device) BufferClockAccuracy() float64 {
 		return DefaultClockAccuracy
 	}
 	return d.p.Buffered.ClockAccuracy
+}
+
+// BufferTriggerLatency is the instrument's own trigger latency
+// (buffered.trigger_latency), 0 when the profile states none.
+func (d *Device) BufferTriggerLatency() time.Duration {
+	if d.p.Buffered == nil {
+		return 0
+	}
+	l, _ := time.ParseDuration(d.p.Buffered.TriggerLatency) // validated at load
+	return l
 }
 
 func (d *Device) buffered(ctx context.Context, op string) (*Buffered, error) {
@@ -304,6 +349,37 @@ func (d *Device) BufferDone(ctx context.Context) (bool, error) {
 	}
 	return false, &OpError{Profile: d.p.Name, Op: "buffer_done", Command: b.Done.Query,
 		Err: d.c.Desync(b.Done.Query, &scpi.ParseError{Reply: r, Want: "an on/off value"})}
+}
+
+// HasTriggerTime reports whether the instrument can tell when the last
+// trigger took effect on its clock (buffered.trigger_time).
+func (d *Device) HasTriggerTime() bool {
+	return d.p.Buffered != nil && d.p.Buffered.TriggerTime.Query != ""
+}
+
+// ReadTriggerTime reads the instant the last trigger took effect, in
+// seconds on the instrument's time base.
+func (d *Device) ReadTriggerTime(ctx context.Context) (float64, error) {
+	b, err := d.buffered(ctx, "buffer_trigger_time")
+	if err != nil {
+		return 0, err
+	}
+	q := b.TriggerTime.Query
+	if q == "" {
+		return 0, &OpError{Profile: d.p.Name, Op: "buffer_trigger_time", Err: fmt.Errorf("%w: no buffered.trigger_time", ErrUnsupported)}
+	}
+	r, err := d.c.Query(ctx, q)
+	if err != nil {
+		return 0, d.fail(ctx, "buffer_trigger_time", q, err)
+	}
+	v, err := scpi.ParseNumber(r)
+	if err == nil && (math.IsInf(v, 0) || math.IsNaN(v)) {
+		err = &scpi.ParseError{Reply: r, Want: "a finite time in seconds"}
+	}
+	if err != nil {
+		return 0, &OpError{Profile: d.p.Name, Op: "buffer_trigger_time", Command: q, Err: d.c.Desync(q, err)}
+	}
+	return v, nil
 }
 
 // ReadBufferClock reads the instrument's time base (seconds on its own

@@ -151,8 +151,11 @@
 //     - `settle` waits after a setting; `poll`/`poll_done` repeat a query until done (`poll_period`, `poll_timeout`).
 //  4. Supplies: `halt_slew_a_per_s`, `halt_period`, and a `safe_state` that leaves zero current, output off.
 //     Integrators and field meters that sample on their own clock: an optional `buffered:` section (arm, start,
-//     done, fetch as a definite-length block in `ascii`/`float32-le`/…, clock); its keys and the engine's
-//     alignment model are in the doc comments of `drivers/profile/buffered.go` and `acq/engine/buffered.go`.
+//     done, fetch as a definite-length block in `ascii`/`float32-le`/…, clock, `trigger_time`, the
+//     instrument's own `trigger_latency` as a duration with a unit); its keys and the engine's alignment model
+//     are in the doc comments of `drivers/profile/buffered.go` and `acq/engine/buffered.go`. Supplies that
+//     can ramp to a setpoint at a programmed rate: an optional `ramp:` section (`rate`, `off`;
+//     `drivers/profile/ramp.go`, used by `sweep_mode: ramp`, `acq/engine/ramp.go`).
 //  5. `hystd check configs/instruments/NAME.yaml` (prints `FILE:LINE: key: problem` for each problem) and
 //     `go test ./drivers/profile` (every shipped profile is loaded by `TestShippedProfilesLoad`).
 //  6. Add a scripted test beside `supply_test.go` / `roles_test.go`: a `dialect` with the startup exchanges and one

@@ -150,6 +150,7 @@ func validate(p Profile, ef errorf) error {
 		validateOps(add, p, rules)
 	}
 	validateBuffered(p, add)
+	validateRamp(p, add)
 	sort.SliceStable(es, func(i, j int) bool { return es[i].Line < es[j].Line })
 	return es.Err()
 }

@@ -60,6 +60,8 @@ type Profile struct {
 
 	// Buffered (integrator, field meter; optional): timed acquisition, see buffered.go.
 	Buffered *Buffered `yaml:"buffered"`
+	// Ramp (supply; optional): a programmed ramp at a set rate, see ramp.go.
+	Ramp *Ramp `yaml:"ramp"`
 }
 
 // SerialSettings are the line settings of the port.

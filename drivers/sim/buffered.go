@@ -17,12 +17,20 @@ import (
 //
 // with a small rate error of its own (clockDrift, within the profiles'
 // stated 100 ppm) and an arbitrary offset. After the trigger it takes sample
-// k at delay + k·period on that clock, i.e. at bench time
-// t_trigger + (delay + k·period)/(1 + clockDrift), reading its physics
+// k at latency + delay + k·period on that clock, i.e. at bench time
+// t_trigger + (latency + delay + k·period)/(1 + clockDrift), where latency
+// is its own trigger latency (triggerLatency, which its profile states as
+// buffered.trigger_latency) and delay the programmed one; reading its physics
 // interpolated linearly between the two physics steps around that instant,
 // with its own noise. The engine does not know clockDrift: it estimates
 // the rate from two clock readings (buffered.clock), as on a real bench.
 var clockDrift = map[string]float64{instr.RoleIntegrator: 40e-6, instr.RoleFieldMeter: -25e-6}
+
+// triggerLatency is each instrument's own time, in seconds on its clock,
+// between receiving the trigger and starting the programmed delay: what a
+// manual states as trigger latency. The shipped sim profiles state the
+// same values (configs/instruments/sim-*.yaml, buffered.trigger_latency).
+var triggerLatency = map[string]float64{instr.RoleIntegrator: 2.0e-3, instr.RoleFieldMeter: 3.5e-3}
 
 // clockOffset is where an instrument's clock stood when the bench started.
 func clockOffset(serial int) float64 { return 3600 + 97.25*float64(serial) }
@@ -34,6 +42,12 @@ const (
 	// FaultShortBuffer: the next buffer fetched lacks its last quarter
 	// (the block's header says so: the count is wrong, not the framing).
 	FaultShortBuffer = "short_buffer"
+	// FaultLateTrigger: the next trigger takes effect Delay after its
+	// command arrives, as on a busy instrument or behind a serial adapter
+	// that holds bytes back; the host's stamp of the trigger's write does
+	// not show it. An instrument whose profile has buffered.trigger_time
+	// reports the instant on its clock all the same.
+	FaultLateTrigger = "late_trigger"
 )
 
 const bufPrefix = "buffered."
@@ -50,6 +64,7 @@ type acquisition struct {
 	prev          float64 // noise-free reading at prevT
 	lostTriggers  int     // pending no_trigger faults
 	shortBuffers  int     // pending short_buffer faults
+	lateBy        float64 // s: a pending late_trigger fault's lag
 }
 
 // bufferedMatchers recognises the commands of a profile's buffered section.
@@ -60,7 +75,7 @@ func bufferedMatchers(p profile.Profile) []matcher {
 	}
 	ops := map[string]profile.Operation{
 		"trigger": b.Trigger, "period": b.Period, "count": b.Count, "delay": b.Delay, "arm": b.Arm,
-		"done": b.Done, "clock": b.Clock, "fetch": {Query: b.Fetch.Query},
+		"done": b.Done, "clock": b.Clock, "fetch": {Query: b.Fetch.Query}, "trigger_time": b.TriggerTime,
 	}
 	var ms []matcher
 	for name, op := range ops {
@@ -140,8 +155,12 @@ func (b *Bench) trigger(in *instrument) {
 		return
 	}
 	a.triggered = true
-	a.trigAt = b.simT.Seconds()
-	a.prevT = a.trigAt
+	// The trigger arrives now, on the clock, which may lie up to one
+	// physics step beyond the last step computed (simT): the instrument
+	// counts from the trigger's own instant, not from that step.
+	a.trigAt = b.clock.Now().Sub(b.start).Seconds() + a.lateBy
+	a.lateBy = 0
+	a.prevT = b.simT.Seconds()
 	a.prev, _ = b.reading(in, 0)
 	b.sampleBuffer(in)
 }
@@ -162,7 +181,7 @@ func (b *Bench) sampleBuffer(in *instrument) {
 	cur, ok := b.reading(in, 0)
 	rate := 1 + clockDrift[in.role]
 	for len(a.values) < a.count {
-		tk := a.trigAt + (a.delay+float64(len(a.values))*a.period)/rate
+		tk := a.trigAt + (triggerLatency[in.role]+a.delay+float64(len(a.values))*a.period)/rate
 		if tk > now+1e-12 {
 			break
 		}
@@ -189,6 +208,12 @@ func (b *Bench) bufferedQuery(in *instrument, m matcher) (reply, *scpiError) {
 		return reply{Bool: a.triggered && len(a.values) == a.count}, nil
 	case "clock":
 		return reply{Raw: strconv.FormatFloat(b.instClock(in), 'f', 9, 64)}, nil
+	case "trigger_time":
+		if !a.triggered {
+			return reply{}, &scpiError{-230, "Data corrupt or stale"}
+		}
+		at := clockOffset(in.serial) + (1+clockDrift[in.role])*a.trigAt
+		return reply{Raw: strconv.FormatFloat(at, 'f', 9, 64)}, nil
 	case "fetch":
 		if !a.triggered || len(a.values) < a.count {
 			return reply{}, &scpiError{-230, "Data corrupt or stale"}
@@ -220,8 +245,10 @@ func (b *Bench) bufferedQuery(in *instrument, m matcher) (reply, *scpiError) {
 }
 
 // fireBuffered arms a fault of the timed acquisition; b.mu is held.
-func fireBuffered(in *instrument, kind string) {
+func fireBuffered(in *instrument, kind string, lag float64) {
 	switch kind {
+	case FaultLateTrigger:
+		in.acq.lateBy = lag
 	case FaultNoTrigger:
 		in.acq.lostTriggers++
 	case FaultShortBuffer:

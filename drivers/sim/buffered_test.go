@@ -41,7 +41,8 @@ func openBuffered(t *testing.T, role string) (*Bench, *clock.Manual, instr.Suppl
 }
 
 // The field meter's buffer holds, for each k, its reading of the field at
-// bench time t_trigger + (delay + k·period)/(1 + drift): checked against
+// bench time t_trigger + (latency + delay + k·period)/(1 + drift), latency
+// being the trigger latency its profile states (3.5 ms): checked against
 // the bench's own truth of μ0·H at that time (the meter's stated
 // sensitivity error and offset applied), while the supply ramps at its
 // slew limit. The engine's alignment model (acq/engine) relies on exactly
@@ -94,9 +95,13 @@ func TestBufferedFieldMeterSamplesTruth(t *testing.T) {
 	}
 	hist := b.History()
 	p := b.Config().FieldMeter
+	lat := fm.BufferTriggerLatency()
+	if lat != 3500*time.Microsecond {
+		t.Fatalf("sim-fieldmeter states a trigger latency of %s, want 3.5ms", lat)
+	}
 	moved := false
 	for k, v := range vs {
-		tk := trig.Seconds() + (plan.Delay.Seconds()+float64(k)*plan.Period.Seconds())/(1-25e-6)
+		tk := trig.Seconds() + (lat.Seconds()+plan.Delay.Seconds()+float64(k)*plan.Period.Seconds())/(1-25e-6)
 		h := truthAt(t, hist, tk)
 		want := (1+p.SensitivityError)*units.Mu0*h + p.OffsetT
 		if math.Abs(v-want) > 1e-6*math.Abs(want)+1e-12 {

@@ -75,7 +75,7 @@ type Fault struct {
 	AfterCommands int               `yaml:"after_commands"`
 	Probability   float64           `yaml:"probability"`
 	Times         int               `yaml:"times"`
-	Delay         configs.Duration  `yaml:"delay"`   // kind delay: how long the reply is held (in simulated time, up to 3× the profile timeout: until the next command line, see lateWithin)
+	Delay         configs.Duration  `yaml:"delay"`   // kind late_trigger: the trigger's lag; kind delay: how long the reply is held (in simulated time, up to 3× the profile timeout: until the next command line, see lateWithin)
 	Code          int               `yaml:"code"`    // kind error: SCPI code (default -300)
 	Message       string            `yaml:"message"` // kind error (default "Device-specific error")
 }
@@ -239,12 +239,15 @@ func (f Fault) check(instruments map[string]InstrumentConfig) error {
 		if f.Role != instr.RoleSupply {
 			return fmt.Errorf("kind: trip is a supply fault, not %s", f.Role)
 		}
-	case FaultNoTrigger, FaultShortBuffer:
+	case FaultNoTrigger, FaultShortBuffer, FaultLateTrigger:
+		if f.Kind == FaultLateTrigger && f.Delay.D() <= 0 {
+			return fmt.Errorf("delay: must be > 0 for kind late_trigger")
+		}
 		if _, ok := clockDrift[f.Role]; !ok {
 			return fmt.Errorf("kind: %s is a fault of a timed acquisition (integrator, field meter), not %s", f.Kind, f.Role)
 		}
 	default:
-		return fmt.Errorf("kind: must be drop, delay, garble, hangup, error, trip, no_trigger or short_buffer, got %q", f.Kind)
+		return fmt.Errorf("kind: must be drop, delay, garble, hangup, error, trip, no_trigger, short_buffer or late_trigger, got %q", f.Kind)
 	}
 	n := 0
 	if f.At != nil {

@@ -123,7 +123,13 @@
 // `hangup`, `error` (pushed into the error queue, default `-300,"Device-specific error"`) and `trip` (supply
 // only: output off, latched until `*RST` once the winding is below `overtemp_c`) act at once. `no_trigger`
 // (the next trigger of a timed acquisition is lost) and `short_buffer` (the next buffer fetched lacks its last
-// quarter) are for an integrator or a field meter with a `buffered:` profile (`drivers/sim/buffered.go`).
+// quarter) are for an integrator or a field meter with a `buffered:` profile (`drivers/sim/buffered.go`), as
+// is `late_trigger` (with `delay`: the next trigger takes effect that long after its command arrives, as
+// behind a serial adapter that holds bytes back; the instrument's `trigger_time` query still reports the
+// instant on its clock). The integrator and the field meter start their first buffered reading 2 ms and
+// 3.5 ms (their own trigger latencies, which their profiles state) after the trigger, on their own clocks.
+// The supply's `ramp:` section (`drivers/sim/ramp.go`): with a rate set, its current moves to each new
+// setpoint at that rate on its own clock (60 ppm fast) and reads at the present instant.
 //
 // At run time: `Bench.Inject(fault)` adds one (no trigger: a reply fault spoils the role's next reply, the others
 // act at once), `Bench.Injected()` counts fired faults by kind, `Bench.Report()` is the truth as `hystd sim --truth`

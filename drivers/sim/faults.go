@@ -78,8 +78,8 @@ func (b *Bench) fire(f *faultState) {
 		in.st.push(scpiError{code, msg})
 	case FaultTrip:
 		b.rig.Supply.Trip()
-	case FaultNoTrigger, FaultShortBuffer:
-		fireBuffered(in, f.Kind)
+	case FaultNoTrigger, FaultShortBuffer, FaultLateTrigger:
+		fireBuffered(in, f.Kind, f.Delay.D().Seconds())
 	}
 }
 

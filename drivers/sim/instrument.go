@@ -311,7 +311,7 @@ func (b *Bench) reset(in *instrument) {
 	r := b.rig
 	switch in.role {
 	case instr.RoleSupply:
-		r.Supply.Setpoint, r.Supply.Output = 0, false
+		r.Supply.Setpoint, r.Supply.Output, r.Supply.Ramp = 0, false, 0
 		r.Supply.ClearTrip()
 	case instr.RoleIntegrator:
 		r.Integrator.Range = r.P.Integrator.RangeWb
@@ -325,6 +325,9 @@ func (b *Bench) reset(in *instrument) {
 func (b *Bench) set(in *instrument, name string, v value) *scpiError {
 	if strings.HasPrefix(name, bufPrefix) {
 		return b.bufferedSet(in, name, v)
+	}
+	if strings.HasPrefix(name, rampPrefix) {
+		return b.rampSet(name, v)
 	}
 	r := b.rig
 	switch name {
@@ -366,7 +369,7 @@ func (b *Bench) query(in *instrument, m matcher) (reply, *scpiError) {
 	r := b.rig
 	switch m.name {
 	case profile.OpReadCurrent:
-		return reply{Num: r.Supply.I}, nil
+		return reply{Num: b.currentNow()}, nil
 	case profile.OpReadVoltage:
 		return reply{Num: r.Supply.V}, nil
 	case profile.OpReadStatus:

@@ -132,6 +132,7 @@ func newMatchers(p profile.Profile) []matcher {
 		}
 	}
 	ms = append(ms, bufferedMatchers(p)...)
+	ms = append(ms, rampMatchers(p)...)
 	for _, l := range append(append([]string{}, p.Init...), p.SafeState...) {
 		if _, _, ok := match(ms, normalize(l)); !ok && !strings.HasPrefix(l, "*") {
 			ms = append(ms, matcher{name: opLiteral, prefix: strings.ToUpper(normalize(l))})

@@ -89,6 +89,10 @@ type Supply struct {
 	Compliance bool
 	OverTemp   bool
 	Tripped    bool
+	// Ramp, A/s of bench time, is a programmed ramp rate (0: none): the
+	// current then moves towards the setpoint at no more than this rate
+	// (and the slew limit).
+	Ramp float64
 }
 
 // NewSupply returns a supply at zero current, output off, winding at ambient.
@@ -112,6 +116,9 @@ func (s *Supply) Step(dt float64) {
 	}
 	r, l := s.Resistance(), s.W.InductanceH
 	max := s.P.SlewAPerS * dt
+	if s.Ramp > 0 && s.Output && !s.Tripped {
+		max = math.Min(max, s.Ramp*dt)
+	}
 	di := math.Max(-max, math.Min(max, target-s.I))
 	v := r*(s.I+di) + l*di/dt
 	s.Compliance = false
@@ -134,6 +141,7 @@ func (s *Supply) Step(dt float64) {
 func (s *Supply) Trip() {
 	s.Tripped = true
 	s.Output = false
+	s.Ramp = 0
 }
 
 // ClearTrip re-arms the supply when the winding is below the warning
