@@ -480,7 +480,7 @@ func (x *exec) storeLoop(ctx context.Context, st recipe.Step, raw []record.Sampl
 	}
 	x.loopN++
 	l := record.Loop{RunID: x.p.run.ID, N: x.loopN, Kind: st.Loop.Kind, Amplitude: st.Loop.Amplitude,
-		AmpUnit: st.Loop.AmpUnit, Started: started, Raw: raw}
+		AmpUnit: st.Loop.AmpUnit, Started: started, Raw: raw, Ramped: st.Capture.Ramp}
 	if x.s.Process == nil {
 		x.event(ctx, "warn", "loop %d stored raw only: no processing configured", l.N)
 	} else if pr, err := x.s.Process(raw, loopInfo(st)); err != nil {

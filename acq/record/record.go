@@ -169,6 +169,11 @@ type Loop struct {
 	// corrections, verdicts) belong to; 0 is read as 1. Raw samples are
 	// the same in every revision.
 	Revision int
+	// Ramped says the supply ramped continuously during the sweep
+	// (buffered capture, sweep_mode: ramp) and H was interpolated at each
+	// flux reading's instant; re-processing the loop budgets the timing
+	// uncertainty again (acq/process, Setup.Ramped).
+	Ramped bool
 }
 
 // Outcome is a conformity verdict.

@@ -93,7 +93,7 @@ func bad(f string, a ...any) error  { return BadRequest{fmt.Errorf(f, a...)} }
 func badErr(err error) error        { return BadRequest{err} }
 func isImport(r record.Run) bool    { return r.Recipe == "import" }
 func loopInfo(l record.Loop) recipe.LoopInfo {
-	return recipe.LoopInfo{Kind: l.Kind, Amplitude: l.Amplitude, AmpUnit: l.AmpUnit}
+	return recipe.LoopInfo{Kind: l.Kind, Amplitude: l.Amplitude, AmpUnit: l.AmpUnit, Ramped: l.Ramped}
 }
 
 // Run recomputes every loop of run o.RunID from its raw samples with the
@@ -202,7 +202,7 @@ func reprocessLoops(ctx context.Context, st Store, runID string, cur, n int, ste
 			return nil, err
 		}
 		l := record.Loop{RunID: runID, N: pl.N, Revision: n, Kind: pl.Kind, Amplitude: pl.Amplitude,
-			AmpUnit: pl.AmpUnit, Started: pl.Started}
+			AmpUnit: pl.AmpUnit, Started: pl.Started, Ramped: pl.Ramped}
 		pr, cals, err := step(full.Raw, loopInfo(pl))
 		for _, c := range cals {
 			if !calSeen[c.Text] {

@@ -32,7 +32,7 @@ const (
 )
 
 // OpenV4 copies the real schema-4 file into a temporary folder and opens it
-// with this build (migrating it to schema 5).
+// with this build (migrating it to the latest schema).
 func openV4(t *testing.T) *store.Store {
 	t.Helper()
 	src, err := os.ReadFile("../store/testdata/v4.db")

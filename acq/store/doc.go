@@ -27,12 +27,12 @@
 //   - Migrations: `PRAGMA user_version` holds the schema version; `Open` applies missing migrations in
 //     order, each in its own transaction, and refuses a file written by a newer build.
 //
-// # Tables (schema version 5)
+// # Tables (schema version 6)
 //
 //	| table | key | columns |
 //	| `runs` | `id` | recipe, recipe_text, fixture, specimen, material, config (snapshot), config_hash (SHA-256), software, state, reason, queued_ns, started_ns, ended_ns, grade, operator (all as recorded: revision 1), revision (the latest) |
 //	| `revisions` | (run_id, n) | at_ns, by_name, change, fixture, specimen, material, grade, config, config_hash — rows only for re-processed runs, revision 1 included |
-//	| `loops` | `id`; unique (run_id, revision, n) | kind, amplitude, amp_unit, started_ns, n_raw, n_points; raw samples hang on the revision-1 row only |
+//	| `loops` | `id`; unique (run_id, revision, n) | kind, amplitude, amp_unit, started_ns, n_raw, n_points, ramped (1: the supply ramped continuously during the sweep; schema 6); raw samples hang on the revision-1 row only |
 //	| `raw_samples` | (loop_id, seq) | t_ns (the flux reading's time), t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns (current's and field meter's read times minus t_ns) |
 //	| `points` | (loop_id, seq) | t_ns, h_a_m, b_t, j_t, branch (+1, −1, 0) |
 //	| `figures` | (loop_id, seq) | name, value, u (expanded, k = 2), unit, note |

@@ -129,7 +129,7 @@ func (s *Store) LoopsOf(ctx context.Context, runID string, rev int) ([]record.Lo
 	if err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
-	rows, err := tx.QueryContext(ctx, `SELECT id, n, kind, amplitude, amp_unit, started_ns FROM loops WHERE run_id = ? AND revision = ? ORDER BY n`, runID, rev)
+	rows, err := tx.QueryContext(ctx, `SELECT id, n, kind, amplitude, amp_unit, started_ns, ramped FROM loops WHERE run_id = ? AND revision = ? ORDER BY n`, runID, rev)
 	if err != nil {
 		return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 	}
@@ -140,7 +140,7 @@ func (s *Store) LoopsOf(ctx context.Context, runID string, rev int) ([]record.Lo
 		var amp sql.NullFloat64
 		var st sql.NullInt64
 		var id int64
-		if err := rows.Scan(&id, &l.N, &l.Kind, &amp, &l.AmpUnit, &st); err != nil {
+		if err := rows.Scan(&id, &l.N, &l.Kind, &amp, &l.AmpUnit, &st, &l.Ramped); err != nil {
 			rows.Close()
 			return nil, fmt.Errorf("store: loops of run %s: %w", runID, err)
 		}
@@ -246,8 +246,8 @@ func (s *Store) loop(ctx context.Context, runID string, n, rev int) (record.Loop
 	var st sql.NullInt64
 	var nRaw, nPts int
 	var id, rawID int64
-	err = tx.QueryRowContext(ctx, `SELECT id, kind, amplitude, amp_unit, started_ns, n_points FROM loops WHERE run_id = ? AND revision = ? AND n = ?`,
-		runID, rev, n).Scan(&id, &l.Kind, &amp, &l.AmpUnit, &st, &nPts)
+	err = tx.QueryRowContext(ctx, `SELECT id, kind, amplitude, amp_unit, started_ns, n_points, ramped FROM loops WHERE run_id = ? AND revision = ? AND n = ?`,
+		runID, rev, n).Scan(&id, &l.Kind, &amp, &l.AmpUnit, &st, &nPts, &l.Ramped)
 	if errors.Is(err, sql.ErrNoRows) {
 		return record.Loop{}, record.ErrNotFound
 	}

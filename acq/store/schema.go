@@ -296,4 +296,10 @@ ALTER TABLE outbox_v5 RENAME TO outbox;
 CREATE INDEX loops_by_run ON loops(run_id, revision, n);
 CREATE INDEX outbox_by_state ON outbox(state, id);
 `,
+	// 6: loops remember whether the supply ramped continuously during the
+	// sweep (buffered capture, sweep_mode: ramp), so that re-processing
+	// budgets the timing uncertainty again; earlier loops were stepped.
+	`
+ALTER TABLE loops ADD COLUMN ramped INTEGER NOT NULL DEFAULT 0 CHECK (ramped IN (0, 1));
+`,
 }

@@ -378,7 +378,7 @@ func TestMigrateFromV2(t *testing.T) {
 
 // TestMigrateFromV3File: testdata/v3.db is a real store file written by
 // hystd with schema 3 (one finished run, one loop). Opened by this build it
-// is migrated to schema 4 (and on to 5) keeping every value; its run reads back without
+// is migrated to schema 4 (and on to the latest) keeping every value; its run reads back without
 // grade or operator and its loop without verdicts; a new loop with verdicts
 // is stored beside it.
 func TestMigrateFromV3File(t *testing.T) {
@@ -397,8 +397,8 @@ func TestMigrateFromV3File(t *testing.T) {
 	}
 	defer s.Close()
 	var v int
-	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 5 || v != store.SchemaVersion() {
-		t.Fatalf("schema version %d (%v), want 5", v, err)
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 6 || v != store.SchemaVersion() {
+		t.Fatalf("schema version %d (%v), want 6", v, err)
 	}
 	r, err := s.Run(ctx, "ring-v3-run")
 	if err != nil {
@@ -488,8 +488,9 @@ func dumpV4(t *testing.T, db interface {
 
 // TestMigrateFromV4File: testdata/v4.db is a real store file written by the
 // schema-4 build (testdata/v4-source/README.md: two imported runs, one loop
-// of 1280 raw samples each). Opened by this build it is migrated to schema
-// 5: every row of every table reads back identical, each run is revision 1
+// of 1280 raw samples each). Opened by this build it is migrated to the
+// latest schema: every row of every table reads back identical (a loop of
+// schema 4 reads back stepped: not ramped), each run is revision 1
 // with FirstRevision as its one revision, its loops are revision 1 and its
 // outbox entries send revision 1. A revision 2 is then stored beside it.
 func TestMigrateFromV4File(t *testing.T) {
@@ -521,8 +522,8 @@ func TestMigrateFromV4File(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer s.Close()
-	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != 5 {
-		t.Fatalf("schema version %d (%v), want 5", v, err)
+	if err := s.WriterForTest().QueryRow("PRAGMA user_version").Scan(&v); err != nil || v != store.SchemaVersion() {
+		t.Fatalf("schema version %d (%v), want %d", v, err, store.SchemaVersion())
 	}
 	after := dumpV4(t, s.WriterForTest())
 	for name, rows := range before {
@@ -545,7 +546,7 @@ func TestMigrateFromV4File(t *testing.T) {
 			t.Fatalf("run %s: revision %d, revisions %+v (%v)", r.ID, r.Revision, revs, err)
 		}
 		l1, err := s.LoopOf(ctx, r.ID, 1, 1)
-		if err != nil || l1.Revision != 1 || len(l1.Raw) != 1280 || len(l1.Points) == 0 || len(l1.Figures) == 0 {
+		if err != nil || l1.Revision != 1 || len(l1.Raw) != 1280 || len(l1.Points) == 0 || len(l1.Figures) == 0 || l1.Ramped {
 			t.Fatalf("run %s loop 1 revision 1: %d raw, %d points, %d figures (%v)", r.ID, len(l1.Raw), len(l1.Points), len(l1.Figures), err)
 		}
 		if l, err := s.Loop(ctx, r.ID, 1); err != nil || storetest.SameLoop(l, l1) != "" {

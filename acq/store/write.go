@@ -267,9 +267,9 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 	if rev > 1 {
 		l.Raw = nil // the raw samples stay with the revision-1 row
 	}
-	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, revision, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)`,
-		l.RunID, rev, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points))
+	res, err := tx.ExecContext(ctx, `INSERT INTO loops (run_id, revision, n, kind, amplitude, amp_unit, started_ns, n_raw, n_points, ramped)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+		l.RunID, rev, l.N, l.Kind, real(l.Amplitude), l.AmpUnit, nsOf(l.Started), len(l.Raw), len(l.Points), l.Ramped)
 	if err != nil {
 		return err
 	}

@@ -150,9 +150,9 @@ func same(a, b float64) bool { return a == b || (math.IsNaN(a) && math.IsNaN(b))
 // SameLoop reports the first difference between two loops, or "".
 func SameLoop(got, want record.Loop) string {
 	if got.RunID != want.RunID || got.N != want.N || got.Kind != want.Kind || !same(got.Amplitude, want.Amplitude) ||
-		got.AmpUnit != want.AmpUnit || !got.Started.Equal(want.Started) || max(got.Revision, 1) != max(want.Revision, 1) {
-		return fmt.Sprintf("header: got %v %d %q %g %q %v rev %d, want %v %d %q %g %q %v rev %d", got.RunID, got.N, got.Kind, got.Amplitude,
-			got.AmpUnit, got.Started, got.Revision, want.RunID, want.N, want.Kind, want.Amplitude, want.AmpUnit, want.Started, want.Revision)
+		got.AmpUnit != want.AmpUnit || !got.Started.Equal(want.Started) || max(got.Revision, 1) != max(want.Revision, 1) || got.Ramped != want.Ramped {
+		return fmt.Sprintf("header: got %v %d %q %g %q %v rev %d ramped %v, want %v %d %q %g %q %v rev %d ramped %v", got.RunID, got.N, got.Kind, got.Amplitude,
+			got.AmpUnit, got.Started, got.Revision, got.Ramped, want.RunID, want.N, want.Kind, want.Amplitude, want.AmpUnit, want.Started, want.Revision, want.Ramped)
 	}
 	if d := firstDiff("raw: %d samples, want %d", "raw", got.Raw, want.Raw, sameSample); d != "" {
 		return d
@@ -355,8 +355,9 @@ func testLoopRoundTrip(t *testing.T, b Backend) {
 	if !math.IsNaN(got.Raw[0].BProbe) || !math.IsNaN(got.Figures[1].U) {
 		t.Fatal("NaN channel did not read back as NaN")
 	}
-	// A loop without samples (figures only) is kept too.
-	empty := record.Loop{RunID: "run-a", N: 2, Kind: "demag-curve", Amplitude: math.NaN(), Figures: want.Figures}
+	// A loop without samples (figures only) is kept too, and a ramped
+	// sweep reads back as ramped (the first loop as stepped).
+	empty := record.Loop{RunID: "run-a", N: 2, Kind: "demag-curve", Amplitude: math.NaN(), Figures: want.Figures, Ramped: true}
 	must(t, b.AddLoop(ctx(), empty))
 	got, err = b.Loop(ctx(), "run-a", 2)
 	must(t, err)
@@ -390,8 +391,13 @@ func testLoopFloatsExact(t *testing.T, b Backend) {
 
 func testLoopsSummary(t *testing.T, b Backend) {
 	must(t, b.CreateRun(ctx(), SampleRun("run-a", t0)))
+	loop := func(n int) record.Loop {
+		l := SampleLoop("run-a", n, 50, t0.Add(time.Duration(n)*time.Minute))
+		l.Ramped = n == 2
+		return l
+	}
 	for n := 1; n <= 3; n++ {
-		must(t, b.AddLoop(ctx(), SampleLoop("run-a", n, 50, t0.Add(time.Duration(n)*time.Minute))))
+		must(t, b.AddLoop(ctx(), loop(n)))
 	}
 	ls, err := b.Loops(ctx(), "run-a")
 	must(t, err)
@@ -399,7 +405,7 @@ func testLoopsSummary(t *testing.T, b Backend) {
 		t.Fatalf("%d loops, want 3", len(ls))
 	}
 	for i, l := range ls {
-		want := SampleLoop("run-a", i+1, 50, t0.Add(time.Duration(i+1)*time.Minute))
+		want := loop(i + 1)
 		if l.Raw != nil || l.Points != nil {
 			t.Errorf("loop %d: Loops returned samples", l.N)
 		}
