@@ -21,9 +21,11 @@ import (
 // the writer connection's temp schema (never in the store file), the table
 // bulkTable with the columns src, seq, c0 … c10; `SELECT … FROM bulkTable
 // WHERE src = K` yields the rows of the source registered under key K, row
-// i with seq = i and its typed values (INTEGER, REAL, TEXT or NULL) in c0,
-// c1, …. insertBulk copies them into the store's table with one INSERT …
-// SELECT: the stored rows are the same typed rows a bound INSERT writes.
+// i with seq = rowid = i and its typed values (INTEGER, REAL, TEXT or NULL)
+// in c0, c1, …. insertBulk copies them into the store's table with one
+// INSERT … SELECT: the stored rows are the same typed rows a bound INSERT
+// writes. It takes the sequence number as the rowid, which SQLite reads as
+// an integer, where a column value would be a Go value boxed for each row.
 const (
 	bulkModule = "hystd_bulk"
 	bulkTable  = "temp.hystd_bulk"
@@ -148,7 +150,7 @@ func insertBulk(ctx context.Context, tx *sql.Tx, loopID int64, src bulkSource) e
 	for c := range vals {
 		vals[c] = fmt.Sprintf("c%d", c)
 	}
-	q := "INSERT INTO " + src.table + " (loop_id, seq, " + strings.Join(src.cols, ", ") + ") SELECT ?1, seq, " +
+	q := "INSERT INTO " + src.table + " (loop_id, seq, " + strings.Join(src.cols, ", ") + ") SELECT ?1, rowid, " +
 		strings.Join(vals, ", ") + " FROM " + bulkTable + " WHERE src = ?2"
 	res, err := tx.ExecContext(ctx, q, loopID, key)
 	if err != nil {

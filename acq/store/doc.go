@@ -82,8 +82,9 @@
 // connection creates the table `temp.hystd_bulk` in its own temp schema (created inside the loop's
 // transaction if the connection has none; never in the store file, which holds only the tables below). A
 // query on it with `src = K` yields the rows of the loop's samples or points that AddLoop registered under
-// key K for the length of that statement: column `seq` is the row's index, `c0` … the row's values as
-// INTEGER, REAL, TEXT or NULL (a NaN). So `INSERT INTO raw_samples (loop_id, seq, t_ns, …) SELECT ?1, seq,
+// key K for the length of that statement: column `seq` and the rowid are the row's index (the INSERT takes
+// the rowid, which reaches SQLite without a Go value boxed per row), `c0` … the row's values as INTEGER,
+// REAL, TEXT or NULL (a NaN). So `INSERT INTO raw_samples (loop_id, seq, t_ns, …) SELECT ?1, rowid,
 // c0, … FROM temp.hystd_bulk WHERE src = ?2` writes the same typed rows a bound INSERT writes, in sequence
 // order, with the foreign-key and NOT NULL checks of the schema, and the statement's count of rows must
 // equal the loop's. A value equal to the one in the row before is handed over as that same Go value,
