@@ -17,7 +17,7 @@ import (
 // The bulk of a loop (raw samples, points) reaches SQLite through a
 // virtual table, not through bound parameters: binding costs the driver a
 // call into SQLite per value, each taking the connection's mutex, and that
-// was a third of a commit's processor time. Module bulkModule serves, in
+// was 25–30 % of a commit's processor time. Module bulkModule serves, in
 // the writer connection's temp schema (never in the store file), the table
 // bulkTable with the columns src, seq, c0 … c10; `SELECT … FROM bulkTable
 // WHERE src = K` yields the rows of the source registered under key K, row
