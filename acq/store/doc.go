@@ -70,13 +70,36 @@
 // `acq/store/storetest` is the one suite every store and outbox passes (`storetest.Run(t, open)`); the SQLite
 // store and `acq/store/memstore` (in memory, for tests of code that consumes a store) both run it.
 //
-// How a loop is committed. One transaction per loop (`BEGIN IMMEDIATE` … `COMMIT`, synchronous=FULL).
-// Raw samples and points go to the driver's prepared statements on the transaction's own connection
-// (`sql.Conn.Raw`): multi-row `INSERT … VALUES (?1,?2,…),(?1,?2+1,…)` of 256 rows, the loop id and the
-// first sequence number bound once per statement, the row values in one argument slice reused for every
-// batch, and a value equal to the previous row's reuses that row's interface value instead of being boxed
-// again. The rows are ordinary typed SQLite values, readable with any SQL client. Floats are still boxed
-// once each: the driver interface (`driver.NamedValue`) takes `any`, and modernc.org/sqlite binds every
-// parameter through SQLite's serialized (FULLMUTEX) API; together with the transpiled SQLite's own work
-// (`sqlite3_step` is about half the commit's CPU) that is where the remaining time goes.
+// How a loop is committed. One transaction per loop (`BEGIN IMMEDIATE` … `COMMIT`, synchronous=FULL),
+// on the writer connection: the run and loop-number checks, the `loops` row, then the raw samples and the
+// points with one `INSERT … SELECT` each, the figures, corrections and verdicts in multi-row `INSERT`s of
+// up to 256 rows with bound parameters, and the outbox row.
+//
+// The bulk rows do not go through parameters. modernc.org/sqlite binds a parameter with one call into
+// SQLite, and every such call takes the connection's mutex (connections are opened SQLITE_OPEN_FULLMUTEX);
+// for 1.5 M values per 100 k-sample loop that was about a third of the commit's processor time. Instead
+// the store registers a virtual-table module, `hystd_bulk` (bulk.go), once per process, and each writer
+// connection creates the table `temp.hystd_bulk` in its own temp schema (created inside the loop's
+// transaction if the connection has none; never in the store file, which holds only the tables below). A
+// query on it with `src = K` yields the rows of the loop's samples or points that AddLoop registered under
+// key K for the length of that statement: column `seq` and the rowid are the row's index (the INSERT takes
+// the rowid, which reaches SQLite without a Go value boxed per row), `c0` … the row's values as INTEGER,
+// REAL, TEXT or NULL (a NaN). So `INSERT INTO raw_samples (loop_id, seq, t_ns, …) SELECT ?1, rowid,
+// c0, … FROM temp.hystd_bulk WHERE src = ?2` writes the same typed rows a bound INSERT writes, in sequence
+// order, with the foreign-key and NOT NULL checks of the schema, and the statement's count of rows must
+// equal the loop's. A value equal to the one in the row before is handed over as that same Go value,
+// not boxed again (phase, hold setpoints, timing offsets, branch repeat). `TestBulkRowsAreTypedSQL` checks
+// every column's SQLite type and the NULLs; `TestBulkAfterRollbackAndReopen` a rolled-back insert, a
+// reopened store and an empty loop.
+//
+// What was tried and left out (processor time of AddLoop per 100 k-sample commit from CPU profiles, on a
+// machine at load 6–10; this design: 0.32–0.37 s): 256-row multi-row INSERTs with bound values, the loop
+// id and first sequence number bound once per statement (the code before, 0.46–0.50 s); the same with
+// `temp_store=MEMORY` (0.40–0.46 s: each
+// multi-row INSERT into a table with a foreign key keeps a statement journal, which past 64 KiB SQLite
+// moves to a temporary file for the rest of the transaction — with a single INSERT … SELECT per table the
+// journal stays small, so the pragma is not needed); batches of 128 to 2 900 rows (none better than 256);
+// a larger page cache (no less processor time); preparing the bulk statements once per connection
+// (preparing was about 1 % of the time, and a statement held across loops would outlive a connection that
+// database/sql closes).
 package store

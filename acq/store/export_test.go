@@ -4,6 +4,8 @@ import (
 	"context"
 	"database/sql"
 	"net/url"
+
+	"hystd/acq/record"
 )
 
 // WriterForTest exposes the writer pool to the package's tests.
@@ -24,4 +26,10 @@ func CreateAtVersionForTest(ctx context.Context, path string, v int) (*sql.DB, e
 		return nil, err
 	}
 	return db, nil
+}
+
+// InsertRawForTest inserts raw samples of loop loopID in tx the way AddLoop
+// does.
+func InsertRawForTest(ctx context.Context, tx *sql.Tx, loopID int64, raw []record.Sample) error {
+	return insertBulk(ctx, tx, loopID, rawSource(raw))
 }

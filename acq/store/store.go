@@ -63,6 +63,9 @@ func OpenWith(ctx context.Context, path string, o Options) (*Store, error) {
 	if s.now == nil {
 		s.now = time.Now
 	}
+	if err := registerBulk(); err != nil {
+		return nil, fmt.Errorf("store: %s: %w", path, err)
+	}
 	u := url.URL{Scheme: "file", Path: abs}
 	q := "_pragma=busy_timeout(10000)&_pragma=journal_mode(WAL)&_pragma=synchronous(FULL)&_pragma=foreign_keys(1)"
 	s.w, err = sql.Open("sqlite", u.String()+"?"+q+"&_txlock=immediate")

@@ -4,12 +4,9 @@ import (
 	"context"
 	"crypto/sha256"
 	"database/sql"
-	"database/sql/driver"
 	"encoding/hex"
 	"errors"
 	"fmt"
-	"math"
-	"strconv"
 	"strings"
 	"time"
 
@@ -120,17 +117,12 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 	if l.N < 1 {
 		return fmt.Errorf("store: loop of run %s: loop number %d, want ≥ 1", l.RunID, l.N)
 	}
-	conn, err := s.w.Conn(ctx)
-	if err != nil {
-		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
-	}
-	defer conn.Close()
-	tx, err := conn.BeginTx(ctx, nil)
+	tx, err := s.w.BeginTx(ctx, nil)
 	if err != nil {
 		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
 	}
 	defer tx.Rollback()
-	if err := addLoop(ctx, conn, tx, l, s.now()); err != nil {
+	if err := addLoop(ctx, tx, l, s.now()); err != nil {
 		return fmt.Errorf("store: loop %d of run %s: %w", l.N, l.RunID, err)
 	}
 	if err := tx.Commit(); err != nil {
@@ -147,12 +139,7 @@ func (s *Store) AddLoop(ctx context.Context, l record.Loop) error {
 // revision that is not the next one.
 func (s *Store) AddRevision(ctx context.Context, v record.Revision, loops []record.Loop) error {
 	fail := func(err error) error { return fmt.Errorf("store: revision %d of run %s: %w", v.N, v.RunID, err) }
-	conn, err := s.w.Conn(ctx)
-	if err != nil {
-		return fail(err)
-	}
-	defer conn.Close()
-	tx, err := conn.BeginTx(ctx, nil)
+	tx, err := s.w.BeginTx(ctx, nil)
 	if err != nil {
 		return fail(err)
 	}
@@ -185,7 +172,7 @@ func (s *Store) AddRevision(ctx context.Context, v record.Revision, loops []reco
 			return fail(err)
 		}
 		l.Revision = v.N
-		if err := addLoop(ctx, conn, tx, l, now); err != nil {
+		if err := addLoop(ctx, tx, l, now); err != nil {
 			return fail(fmt.Errorf("loop %d: %w", l.N, err))
 		}
 	}
@@ -234,16 +221,15 @@ func insertRevision(ctx context.Context, tx *sql.Tx, v record.Revision) error {
 	return err
 }
 
-// batchRows is how many rows one multi-row INSERT carries.
+// batchRows is how many rows one multi-row INSERT of a small table
+// (figures, corrections, verdicts) carries.
 const batchRows = 256
 
-// addLoop writes l in tx, which runs on conn. The bulk rows (raw samples,
-// points) go straight to the driver's prepared statements on the same
-// connection, inside the same transaction: each statement carries
-// batchRows rows, binds the loop id and the first sequence number once
-// (?1, ?2 + k) and the row values into an argument slice reused for every
-// batch, so database/sql neither copies nor converts the arguments.
-func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now time.Time) error {
+// addLoop writes l in tx. The raw samples and points, the bulk of a loop,
+// each go in one INSERT … SELECT from the writer's bulk table (bulk.go),
+// which hands SQLite the rows' typed values straight from l; the small
+// tables go in multi-row INSERTs with bound parameters.
+func addLoop(ctx context.Context, tx *sql.Tx, l record.Loop, now time.Time) error {
 	var one int
 	if err := tx.QueryRowContext(ctx, `SELECT 1 FROM runs WHERE id = ?`, l.RunID).Scan(&one); err != nil {
 		if errors.Is(err, sql.ErrNoRows) {
@@ -277,40 +263,11 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 	if err != nil {
 		return err
 	}
-	raw := func(i int, a, prev []driver.NamedValue) {
-		r := &l.Raw[i]
-		keepInt(a, prev, 0, int64(r.T))
-		keepInt(a, prev, 1, int64(r.TUnc))
-		keepText(a, prev, 2, string(r.Phase))
-		keepReal(a, prev, 3, r.Setpoint)
-		keepReal(a, prev, 4, r.I)
-		keepReal(a, prev, 5, r.V)
-		keepReal(a, prev, 6, r.Psi)
-		keepReal(a, prev, 7, r.BProbe)
-		keepReal(a, prev, 8, r.TempC)
-		keepInt(a, prev, 9, int64(r.DtI))
-		keepInt(a, prev, 10, int64(r.DtB))
+	if err := insertBulk(ctx, tx, id, rawSource(l.Raw)); err != nil {
+		return fmt.Errorf("raw samples: %w", err)
 	}
-	pt := func(i int, a, prev []driver.NamedValue) {
-		p := &l.Points[i]
-		keepInt(a, prev, 0, int64(p.T))
-		keepReal(a, prev, 1, p.H)
-		keepReal(a, prev, 2, p.B)
-		keepReal(a, prev, 3, p.J)
-		keepInt(a, prev, 4, int64(p.Branch))
-	}
-	err = conn.Raw(func(dc any) error {
-		if err := bulkInsert(ctx, dc, "raw_samples (loop_id, seq, t_ns, t_unc_ns, phase, setpoint, i_a, v_v, psi_wb, b_probe_t, temp_c, dt_i_ns, dt_b_ns)",
-			11, len(l.Raw), id, raw); err != nil {
-			return fmt.Errorf("raw samples: %w", err)
-		}
-		if err := bulkInsert(ctx, dc, "points (loop_id, seq, t_ns, h_a_m, b_t, j_t, branch)", 5, len(l.Points), id, pt); err != nil {
-			return fmt.Errorf("points: %w", err)
-		}
-		return nil
-	})
-	if err != nil {
-		return err
+	if err := insertBulk(ctx, tx, id, pointSource(l.Points)); err != nil {
+		return fmt.Errorf("points: %w", err)
 	}
 	fig := func(i int, a []any) []any {
 		f := l.Figures[i]
@@ -336,126 +293,6 @@ func addLoop(ctx context.Context, conn *sql.Conn, tx *sql.Tx, l record.Loop, now
 	if _, err := tx.ExecContext(ctx, `INSERT INTO outbox (run_id, revision, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, ?, 'pending', ?)`,
 		l.RunID, rev, l.N, now.UnixNano(), now.UnixNano()); err != nil {
 		return fmt.Errorf("outbox: %w", err)
-	}
-	return nil
-}
-
-// keepInt, keepReal and keepText set argument c of a row to v. A value
-// equal to the previous row's (prev, nil for a batch's first row) reuses
-// that row's interface value instead of boxing v again: phase, timing
-// uncertainty, branch and hold values repeat from row to row. A NaN real
-// is NULL (SQLite has no NaN).
-func keepInt(a, prev []driver.NamedValue, c int, v int64) {
-	if prev != nil {
-		if p, ok := prev[c].Value.(int64); ok && p == v {
-			a[c].Value = prev[c].Value
-			return
-		}
-	}
-	a[c].Value = v
-}
-
-func keepReal(a, prev []driver.NamedValue, c int, v float64) {
-	if math.IsNaN(v) {
-		a[c].Value = nil
-		return
-	}
-	if prev != nil {
-		if p, ok := prev[c].Value.(float64); ok && math.Float64bits(p) == math.Float64bits(v) {
-			a[c].Value = prev[c].Value
-			return
-		}
-	}
-	a[c].Value = v
-}
-
-func keepText(a, prev []driver.NamedValue, c int, v string) {
-	if prev != nil {
-		if p, ok := prev[c].Value.(string); ok && p == v {
-			a[c].Value = prev[c].Value
-			return
-		}
-	}
-	a[c].Value = v
-}
-
-// bulkSQL is an INSERT of rows rows into table (its column list starting
-// with loop_id, seq), binding the loop id as ?1, row k's seq as ?2 + k and
-// cols more values per row as anonymous parameters (?3 onward, in order).
-func bulkSQL(table string, cols, rows int) string {
-	var b strings.Builder
-	b.WriteString("INSERT INTO ")
-	b.WriteString(table)
-	b.WriteString(" VALUES ")
-	rest := strings.Repeat(",?", cols) + ")"
-	for k := 0; k < rows; k++ {
-		if k > 0 {
-			b.WriteByte(',')
-		}
-		if k == 0 {
-			b.WriteString("(?1,?2")
-		} else {
-			b.WriteString("(?1,?2+")
-			b.WriteString(strconv.Itoa(k))
-		}
-		b.WriteString(rest)
-	}
-	return b.String()
-}
-
-// bulkInsert inserts n rows into table through the driver connection dc
-// (inside the caller's transaction); fill sets row i's cols values in a,
-// prev being the previous row's in the same statement (nil for the first).
-func bulkInsert(ctx context.Context, dc any, table string, cols, n int, loopID int64, fill func(i int, a, prev []driver.NamedValue)) error {
-	if n == 0 {
-		return nil
-	}
-	prep, ok := dc.(driver.ConnPrepareContext)
-	if !ok {
-		return fmt.Errorf("driver %T cannot prepare with a context", dc)
-	}
-	args := make([]driver.NamedValue, 2+cols*min(n, batchRows))
-	for i := range args {
-		args[i].Ordinal = i + 1
-	}
-	args[0].Value = loopID
-	exec := func(st driver.Stmt, from, rows int) error {
-		se, ok := st.(driver.StmtExecContext)
-		if !ok {
-			return fmt.Errorf("driver statement %T cannot execute with a context", st)
-		}
-		a := args[:2+cols*rows]
-		a[1].Value = int64(from)
-		var prev []driver.NamedValue
-		for k := 0; k < rows; k++ {
-			row := a[2+k*cols : 2+(k+1)*cols]
-			fill(from+k, row, prev)
-			prev = row
-		}
-		_, err := se.ExecContext(ctx, a)
-		return err
-	}
-	run := func(rows, from, to int) error {
-		st, err := prep.PrepareContext(ctx, bulkSQL(table, cols, rows))
-		if err != nil {
-			return err
-		}
-		defer st.Close()
-		for i := from; i < to; i += rows {
-			if err := exec(st, i, rows); err != nil {
-				return err
-			}
-		}
-		return nil
-	}
-	full := n / batchRows * batchRows
-	if full > 0 {
-		if err := run(batchRows, 0, full); err != nil {
-			return err
-		}
-	}
-	if n > full {
-		return run(n-full, full, n)
 	}
 	return nil
 }

@@ -5,7 +5,8 @@ the same loop (rows written by the benchmark as JSON) into the same store
 file (so the same schema), with the same pragmas as store.Open, in one
 transaction: the run's check, the loop row, executemany of the raw samples,
 points, figures, corrections and verdicts, the outbox row. Only the
-transaction is timed (BEGIN to COMMIT); it prints the seconds it took.
+transaction is timed (BEGIN to COMMIT); it prints the seconds it took and
+the processor seconds (user plus system) the process used meanwhile.
 
     python3 commit_sqlite3.py STORE.db ROWS.json LOOP_N
 """
@@ -22,7 +23,7 @@ def main(db, rows, n):
     for p in ("busy_timeout = 10000", "journal_mode = WAL", "synchronous = FULL", "foreign_keys = 1"):
         con.execute("PRAGMA " + p)
     run = d["run_id"]
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     con.execute("BEGIN IMMEDIATE")
     if con.execute("SELECT 1 FROM runs WHERE id = ?", (run,)).fetchone() is None:
         sys.exit("no run " + run)
@@ -53,7 +54,7 @@ def main(db, rows, n):
         "INSERT INTO outbox (run_id, loop_n, created_ns, state, updated_ns) VALUES (?, ?, ?, 'pending', ?)",
         (run, n, d["now_ns"], d["now_ns"]))
     con.execute("COMMIT")
-    print(time.perf_counter() - t0)
+    print(time.perf_counter() - t0, time.process_time() - c0)
     print("sqlite", sqlite3.sqlite_version, file=sys.stderr)
     con.close()
 
