@@ -75,13 +75,15 @@ import (
 // clock; acq/demo TestLateTriggerPlacedByInstrumentClock). It is not the
 // only one: with trigger_time, a real-time run beside two busy loops still
 // gave one loop's Br 0.615 ± 0.068 T (truth about 0.651 T) after six holds.
-// A suspect not yet reproduced: a setpoint stamped before its command is
-// written (round.setAt) but applied late, so that readings at the start of
-// a step's kept part still belong to the step before. Measured in real
-// time beside two busy loops (load 6–7): of 802 sweep setpoints, the
-// set_current exchange (write and error-queue read) ended more than half a
-// step (6.25 ms) after its stamp for 140, more than a whole step for 37,
-// up to 119 ms. So reading k is placed at
+// Another cause: a setpoint stamped before its command is written
+// (round.setAt) but applied late, so that readings at the start of a step's
+// kept part still belonged to the step before. Measured in real time beside
+// two busy loops (load 6–7): of 802 sweep setpoints, the set_current
+// exchange (write and error-queue read) ended more than half a step
+// (6.25 ms) after its stamp for 140, more than a whole step for 37, up to
+// 119 ms. A step whose setpoint exchange ended (round.setDone) after the
+// start of its settled part therefore keeps no reading (stepAt); reproduced
+// on simulated time in acq/demo TestLateSetpointKeptOutOfItsStep. So reading k is placed at
 //
 //	t_ik = T_i + r_i·(L_i + delay + k·period)
 //
@@ -106,7 +108,8 @@ import (
 // B back for a few milliseconds, and those readings lie off the
 // quasi-static loop (on the demo bench they widen HcB by one step of H,
 // 10 A/m). The engine keeps the readings from the middle to nine tenths of
-// each step (keepFrom, keepTo) and leaves out the others, saying how many in
+// each step (keepFrom, keepTo; none of a step whose setpoint exchange ended
+// after its middle, see stepAt) and leaves out the others, saying how many in
 // the run's events; the last tenth is left out because the instant of a
 // setpoint change is known only within the supply's own response and the
 // stamps' uncertainty. With buffer_period one 30th of the setpoint period
@@ -177,10 +180,14 @@ type capture struct {
 }
 
 type round struct {
-	setAt time.Duration
-	s     record.Sample
-	level float64 // the setpoint sent after the reading
-	phase record.Phase
+	setAt time.Duration // stamped before the setpoint's command is written
+	// setDone is when the setpoint's exchange ended (its command written
+	// and the error queue read after it): the level changed at some
+	// instant in [setAt, setDone].
+	setDone time.Duration
+	s       record.Sample
+	level   float64 // the setpoint sent after the reading
+	phase   record.Phase
 }
 
 // bufferedOf returns the instrument of a role as instr.Buffered when its
@@ -335,12 +342,19 @@ func (c *capture) readThenSet(ctx context.Context, level float64) (sampler.Readi
 	}); err != nil {
 		return rd, &sampler.RoleError{Role: "supply", Err: fmt.Errorf("set current %.6g A: %w", level, err)}
 	}
+	c.setDone()
 	return rd, nil
 }
 
 // note keeps a supply reading taken just before the setpoint level is sent.
 func (c *capture) note(s record.Sample, level float64, phase record.Phase) {
-	c.rounds = append(c.rounds, round{setAt: c.x.s.Clock.Now().Sub(c.x.start), s: s, level: level, phase: phase})
+	at := c.x.s.Clock.Now().Sub(c.x.start)
+	c.rounds = append(c.rounds, round{setAt: at, setDone: at, s: s, level: level, phase: phase})
+}
+
+// setDone records that the last noted round's setpoint exchange ended now.
+func (c *capture) setDone() {
+	c.rounds[len(c.rounds)-1].setDone = c.x.s.Clock.Now().Sub(c.x.start)
 }
 
 // finish waits for every acquisition to complete, reads the clocks and
@@ -586,18 +600,42 @@ func (c *capture) samples() ([]record.Sample, error) {
 // stepAt is the supply's side of a buffered reading at t (time
 // uncertainty u) on a stepped sweep: the current read at the end of the
 // step the reading falls in, when it falls in the settled part of that
-// step (keepFrom, keepTo); ok is false otherwise.
+// step (keepFrom, keepTo); ok is false otherwise. A step whose setpoint
+// exchange ended (setDone) after the start of its settled part keeps no
+// reading: a host late between the setpoint's stamp and its command's
+// write (or a supply slow to take it) changed the level that much later,
+// so the readings of the settled part may still belong to the step before
+// or to a level not yet settled.
 func (c *capture) stepAt(t, u time.Duration) (record.Sample, bool) {
 	j := sort.Search(len(c.rounds), func(i int) bool { return c.rounds[i].setAt >= t })
 	if j == len(c.rounds) || j == 0 || c.rounds[j-1].phase != record.Sweep {
 		return record.Sample{}, false
 	}
-	if pos := float64(t-c.rounds[j-1].setAt) / float64(c.rounds[j].setAt-c.rounds[j-1].setAt); pos < keepFrom || pos >= keepTo {
+	start, step := c.rounds[j-1].setAt, c.rounds[j].setAt-c.rounds[j-1].setAt
+	from := start + time.Duration(keepFrom*float64(step))
+	if c.rounds[j-1].setDone > from || t < from || t >= start+time.Duration(keepTo*float64(step)) {
 		return record.Sample{}, false
 	}
 	rd := c.rounds[j]
 	return record.Sample{T: t, TUnc: max(u, rd.s.TUnc), Phase: record.Sweep, I: rd.s.I, V: rd.s.V, TempC: rd.s.TempC,
 		Setpoint: c.rounds[j-1].level}, true // the level of the step the reading falls in
+}
+
+// lateSteps counts the sweep steps whose setpoint exchange ended after the
+// start of their settled part (stepAt keeps none of their readings), and
+// the sweep steps in all.
+func (c *capture) lateSteps() (late, all int) {
+	for j := 1; j < len(c.rounds); j++ {
+		r := c.rounds[j-1]
+		if r.phase != record.Sweep {
+			continue
+		}
+		all++
+		if r.setDone > r.setAt+time.Duration(keepFrom*float64(c.rounds[j].setAt-r.setAt)) {
+			late++
+		}
+	}
+	return late, all
 }
 
 // interp is the linear interpolation of vs (at ascending times ts) at t,

@@ -406,6 +406,10 @@ func (x *exec) endStep(ctx context.Context, st recipe.Step, cpt *capture, raw, d
 		}
 		x.event(ctx, "info", "step %d: buffered capture, %d readings every %s on each of %s; %d kept, %d outside the settled part of their setpoint step left out",
 			st.N, cpt.plan.Count, cpt.plan.Period, cpt.names(), cpt.plan.Count-cpt.left, cpt.left)
+		if late, all := cpt.lateSteps(); late > 0 && cpt.ramp == nil {
+			x.event(ctx, "warn", "step %d: %d of %d setpoints reached the supply after the middle of their step (the computer was late between a setpoint's time and its command); none of those steps' readings were kept",
+				st.N, late, all)
+		}
 	}
 	if st.Loop != nil {
 		x.storeLoop(ctx, st, raw, loopStart)
