@@ -36,7 +36,10 @@
 //     the extreme sample better than the lines (left out; the winner's miss enters U), kept between the
 //     extreme sample and the lines' apex; with noise when a parabola over the widest window without a quartic
 //     term bends significantly and fits as well as two lines (F test). A tip within 8 samples of the
-//     record's start or end is read from the one side, at the record's end. Tip samples belong to the sweep;
+//     record's start or end is read from the one side, at the record's end. A tip with no apex (held flat,
+//     or a staircase's top step) is the mean of the extreme sample and the sides' flat windows at its level:
+//     not a side that climbs to it, nor a flat one a step below (a staircase sampled in clusters of a few
+//     readings, steps left out; TestTipsOfClusteredStaircase). Tip samples belong to the sweep;
 //     no band average. `readTip` and its stages are in tips.go; tests on Hm·cos ωt in roundtip_test.go.
 //   - (BH)max, operating point: on each complete falling branch, the exact maximum of −H·B along the straight
 //     pieces between samples, refined on smooth data by the cubics of H(t) and B(t) through four samples

@@ -314,9 +314,10 @@ func apexTip(tp Tip, l, r side, kept bool) Tip {
 	if math.IsNaN(ta) || ta < l.u[len(l.u)-1] || ta > r.u[len(r.u)-1] || !steep(lH, sgn) || !steep(rH, -sgn) {
 		// No apex (a tip held flat, e.g. under closed-loop control):
 		// the extreme sample would pick the largest noise; the mean of
-		// the samples around it within two noise deviations of its H
-		// is the tip instead.
-		return plateau(tp, l.u[:max(int(lH.n), 1)], l.h, l.b, r.u[:max(int(rH.n), 1)], r.h, r.b)
+		// it and the sides' flat windows at its level is the tip instead
+		// (flatSides).
+		lw, rw := flatSides(sgn, l.h, r.h, lH, rH, steep(lH, sgn), steep(rH, -sgn))
+		return plateau(tp, l.u[:lw], l.h, l.b, r.u[:rw], r.h, r.b)
 	}
 	return linesApex(tp, l, r, lH, rH, ta)
 }
@@ -536,6 +537,37 @@ func apex(l, r line) float64 {
 		return nan()
 	}
 	return (r.a - l.a + l.b*l.u0 - r.b*r.u0) / d
+}
+
+// flatSides returns how many samples of each side's window (lH, rH fitted
+// to the samples of h nearest the tip) belong to a plateau at the tip: none
+// of a side that climbs to the tip (lSteep, rSteep), and none of a flat side
+// whose level lies off the other's, beyond three standard errors of the
+// difference of their means, on the side away from the tip. A staircase
+// sampled a few readings a step gives both: its top step held at the end of
+// the record has a sloped window on one side, and a step left without
+// readings puts a flat window one step below the tip. Averaged with the
+// tip, either pulled it down the branch (by 400 A/m, and 15 A/m of a 20 A/m
+// gap, on the buffered demo).
+func flatSides(sgn float64, lh, rh []float64, lH, rH line, lSteep, rSteep bool) (lw, rw int) {
+	lw, rw = max(int(lH.n), 1), max(int(rH.n), 1)
+	if lSteep {
+		lw = 0
+	}
+	if rSteep {
+		rw = 0
+	}
+	if lw == 0 || rw == 0 {
+		return lw, rw
+	}
+	ml, mr := meanOf(lh[:lw]), meanOf(rh[:rw])
+	if d := ml - mr; d*d > 9*(lH.s2/float64(lw)+rH.s2/float64(rw)) {
+		if sgn*d > 0 {
+			return lw, 0
+		}
+		return 0, rw
+	}
+	return lw, rw
 }
 
 // plateau returns the tip as the mean of the extreme sample and the
