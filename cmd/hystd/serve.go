@@ -1,6 +1,7 @@
 package main
 
 import (
+	"context"
 	"fmt"
 
 	"github.com/spf13/cobra"
@@ -36,7 +37,10 @@ func newServeCmd() *cobra.Command {
 				}
 				w.Clock = c
 			}
-			return daemon.Serve(cmd.Context(), cfgPath, w)
+			// Serve takes SIGTERM and SIGINT itself (a second one while it
+			// stops abandons the halts): main's context, which a signal
+			// also ends, must not hand it the same signal twice.
+			return daemon.Serve(context.WithoutCancel(cmd.Context()), cfgPath, w)
 		},
 	}
 	cmd.Flags().StringVar(&cfgPath, "config", "", "daemon config file (kind: daemon)")
