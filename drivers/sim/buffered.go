@@ -87,13 +87,7 @@ func bufferedMatchers(p profile.Profile) []matcher {
 			continue
 		}
 		m := matcher{name: bufPrefix + name, op: op, query: query}
-		tmpl = normalize(tmpl)
-		if i := strings.Index(tmpl, "{}"); i >= 0 {
-			m.arg = true
-			m.prefix, m.suffix = strings.ToUpper(tmpl[:i]), strings.ToUpper(tmpl[i+2:])
-		} else {
-			m.prefix = strings.ToUpper(tmpl)
-		}
+		m.match(tmpl)
 		ms = append(ms, m)
 	}
 	return ms

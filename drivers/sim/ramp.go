@@ -26,13 +26,7 @@ func rampMatchers(p profile.Profile) []matcher {
 	var ms []matcher
 	for name, op := range map[string]profile.Operation{"rate": r.Rate, "off": r.Off} {
 		m := matcher{name: rampPrefix + name, op: op}
-		tmpl := normalize(op.Set)
-		if i := strings.Index(tmpl, "{}"); i >= 0 {
-			m.arg = true
-			m.prefix, m.suffix = strings.ToUpper(tmpl[:i]), strings.ToUpper(tmpl[i+2:])
-		} else {
-			m.prefix = strings.ToUpper(tmpl)
-		}
+		m.match(op.Set)
 		ms = append(ms, m)
 	}
 	return ms

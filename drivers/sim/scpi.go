@@ -110,6 +110,18 @@ type matcher struct {
 	arg    bool   // the template has a "{}" placeholder
 }
 
+// match sets what m recognises from a command template: its normalized
+// text, split at a "{}" placeholder when it has one.
+func (m *matcher) match(tmpl string) {
+	tmpl = normalize(tmpl)
+	if i := strings.Index(tmpl, "{}"); i >= 0 {
+		m.arg = true
+		m.prefix, m.suffix = strings.ToUpper(tmpl[:i]), strings.ToUpper(tmpl[i+2:])
+	} else {
+		m.prefix = strings.ToUpper(tmpl)
+	}
+}
+
 func newMatchers(p profile.Profile) []matcher {
 	var ms []matcher
 	for name, op := range p.Operations {
@@ -118,13 +130,7 @@ func newMatchers(p profile.Profile) []matcher {
 		if op.Query != "" {
 			m.query, tmpl = true, op.Query
 		}
-		tmpl = normalize(tmpl)
-		if i := strings.Index(tmpl, "{}"); i >= 0 {
-			m.arg = true
-			m.prefix, m.suffix = strings.ToUpper(tmpl[:i]), strings.ToUpper(tmpl[i+2:])
-		} else {
-			m.prefix = strings.ToUpper(tmpl)
-		}
+		m.match(tmpl)
 		ms = append(ms, m)
 		if op.Poll != "" {
 			ms = append(ms, matcher{name: opPoll, query: true, prefix: strings.ToUpper(normalize(op.Poll)),
