@@ -352,6 +352,16 @@ func (c *capture) note(s record.Sample, level float64, phase record.Phase) {
 	c.rounds = append(c.rounds, round{setAt: at, setDone: at, s: s, level: level, phase: phase})
 }
 
+// kept is the settled part [from, to) of the step that r's setpoint began
+// and next's ended (keepFrom, keepTo); late says r's setpoint exchange
+// ended after from, so that the step keeps no reading (stepAt).
+func (r round) kept(next round) (from, to time.Duration, late bool) {
+	step := next.setAt - r.setAt
+	from = r.setAt + time.Duration(keepFrom*float64(step))
+	to = r.setAt + time.Duration(keepTo*float64(step))
+	return from, to, r.setDone > from
+}
+
 // setDone records that the last noted round's setpoint exchange ended now.
 func (c *capture) setDone() {
 	c.rounds[len(c.rounds)-1].setDone = c.x.s.Clock.Now().Sub(c.x.start)
@@ -611,9 +621,8 @@ func (c *capture) stepAt(t, u time.Duration) (record.Sample, bool) {
 	if j == len(c.rounds) || j == 0 || c.rounds[j-1].phase != record.Sweep {
 		return record.Sample{}, false
 	}
-	start, step := c.rounds[j-1].setAt, c.rounds[j].setAt-c.rounds[j-1].setAt
-	from := start + time.Duration(keepFrom*float64(step))
-	if c.rounds[j-1].setDone > from || t < from || t >= start+time.Duration(keepTo*float64(step)) {
+	from, to, late := c.rounds[j-1].kept(c.rounds[j])
+	if late || t < from || t >= to {
 		return record.Sample{}, false
 	}
 	rd := c.rounds[j]
@@ -631,7 +640,7 @@ func (c *capture) lateSteps() (late, all int) {
 			continue
 		}
 		all++
-		if r.setDone > r.setAt+time.Duration(keepFrom*float64(c.rounds[j].setAt-r.setAt)) {
+		if _, _, slow := r.kept(c.rounds[j]); slow {
 			late++
 		}
 	}
